@@ -1,0 +1,1 @@
+"""edgevib host side (CPython): recordings, training, replay, link to the gateway."""
