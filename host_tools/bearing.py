@@ -1,0 +1,76 @@
+"""Kinematic defect frequencies of a rolling-element bearing from its geometry.
+
+A local defect on a race or a rolling element makes an impact each time the two meet. With no
+slip, the impact rates are fixed multiples ("orders") of the shaft speed, set by the number of
+rolling elements n, the ball diameter d, the pitch diameter D and the contact angle phi
+(rolling-bearing literature; common practice; see /work/shared/FACTS.md):
+
+    BPFO = (n/2) fr (1 - (d/D) cos phi)          ball pass, outer race (stationary outer ring)
+    BPFI = (n/2) fr (1 + (d/D) cos phi)          ball pass, inner race
+    FTF  = (fr/2)  (1 - (d/D) cos phi)           fundamental train (cage) frequency
+    BSF  = (D/(2d)) fr (1 - ((d/D) cos phi)^2)   ball spin frequency
+
+The formulas assume the inner ring turns with the shaft and the outer ring is fixed. Real
+bearings slip by about 1-2 %, so measured lines sit slightly below these (common practice).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from host_tools.errors import EdgevibError
+
+
+@dataclass(frozen=True)
+class BearingGeometry:
+    """Geometry of one bearing: lengths in mm, contact angle in degrees."""
+
+    n_elements: int
+    ball_diameter_mm: float
+    pitch_diameter_mm: float
+    contact_angle_deg: float = 0.0
+
+    def __post_init__(self) -> None:
+        if int(self.n_elements) != self.n_elements or self.n_elements < 3:
+            raise EdgevibError(f"bearing: need at least 3 rolling elements, got {self.n_elements}")
+        if not 0.0 < self.ball_diameter_mm < self.pitch_diameter_mm:
+            raise EdgevibError(
+                "bearing: ball diameter must be positive and smaller than the pitch diameter "
+                f"(got d={self.ball_diameter_mm} mm, D={self.pitch_diameter_mm} mm)"
+            )
+        if not 0.0 <= self.contact_angle_deg < 90.0:
+            raise EdgevibError(
+                f"bearing: contact angle must be in [0, 90) degrees, got {self.contact_angle_deg}"
+            )
+
+
+@dataclass(frozen=True)
+class DefectOrders:
+    """Defect frequencies as multiples of shaft speed (dimensionless orders)."""
+
+    bpfo: float
+    bpfi: float
+    bsf: float
+    ftf: float
+
+    def frequencies_hz(self, shaft_rpm: float) -> dict[str, float]:
+        """Defect frequencies in Hz at a shaft speed given in r/min."""
+        fr = shaft_rpm / 60.0
+        return {"bpfo": self.bpfo * fr, "bpfi": self.bpfi * fr, "bsf": self.bsf * fr, "ftf": self.ftf * fr}
+
+
+def defect_orders(g: BearingGeometry) -> DefectOrders:
+    """Kinematic defect orders of bearing `g` (formulas in the module docstring)."""
+    ratio = g.ball_diameter_mm / g.pitch_diameter_mm * math.cos(math.radians(g.contact_angle_deg))
+    half_n = g.n_elements / 2.0
+    return DefectOrders(
+        bpfo=half_n * (1.0 - ratio),
+        bpfi=half_n * (1.0 + ratio),
+        bsf=g.pitch_diameter_mm / (2.0 * g.ball_diameter_mm) * (1.0 - ratio * ratio),
+        ftf=0.5 * (1.0 - ratio),
+    )
+
+
+# A 6205-size deep-groove ball bearing (the geometry used by the demo pumps). Geometry as
+# tabulated with a widely used open bearing-fault dataset; from memory.
+BEARING_6205 = BearingGeometry(n_elements=9, ball_diameter_mm=7.94, pitch_diameter_mm=39.04)
