@@ -1,0 +1,459 @@
+"""Recordings: read WAV, CSV and .npy accelerometer files with their sidecar JSON; write WAV.
+
+Every recording file has a sidecar beside it: same stem, extension `.json` (`pump.wav` ->
+`pump.json`), holding one JSON object:
+
+    m_s2_per_unit   required  physical acceleration (m/s^2) per sample unit of the file
+    sample_rate_hz  required for CSV without a time column and for .npy; optional for WAV
+                    (WAV stores an integer rate; a sidecar value may refine it but must round to it)
+    m_s2_per_count  optional  the device counts scale to convert to (see "Counts" below)
+    t0_s            optional  start time of the first frame, seconds on the gateway's clock
+    rpm             optional  shaft speed, r/min (null when unknown or changing)
+    vane_count      optional  impeller vanes (names the vane-pass line)
+    axes            optional  one name per channel (default "x", "y", "z", then "a3", ...)
+    plant, machine  optional  labels; a stream must not mix machines
+Other keys are kept in `Recording.sidecar` untouched.
+
+Formats
+- WAV: RIFF/WAVE, little-endian, PCM int16 or int32, IEEE float32 or float64 (format code 3),
+  or WAVE_FORMAT_EXTENSIBLE (0xFFFE) wrapping one of those. One channel per axis.
+- CSV: comma-separated, one header row of column names, then one row per frame. A column named
+  `t_s` (seconds) is an optional time column: it fixes the sample rate (and t0_s when the sidecar
+  has none); every other column is an axis, in order. Numbers written without '.', 'e' or
+  'nan'/'inf' throughout make integer data; anything else is float data.
+- .npy: a 1-D (one axis) or 2-D (frames x axes) array of an integer or float dtype.
+
+Counts: the device works on int16 counts (frames x axes) and a scale `m_s2_per_count`. The
+counts scale is, in order of precedence: the caller's `m_s2_per_count` (for example the scale a
+parameter set was trained on), the sidecar's `m_s2_per_count`, and for integer data the file's own
+unit (counts = samples unchanged). Float data with none of these is refused, since there is no
+honest way to guess a sensor's resolution. Conversion is counts = round-half-even(sample *
+m_s2_per_unit / m_s2_per_count); a value that would fall outside -32768..32767 is refused (not
+saturated), because silently clipped data would pass for a sensor at full scale.
+
+Every error is an EdgevibError with one line that names the file; nothing is ever written to or
+next to an input.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+import re
+import struct
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterable
+
+import numpy as np
+
+from host_tools.errors import EdgevibError
+
+RECORDING_SUFFIXES = (".wav", ".csv", ".npy")
+TIME_COLUMN = "t_s"
+_INT16_MIN, _INT16_MAX = -32768, 32767
+_WAVE_PCM, _WAVE_FLOAT, _WAVE_EXTENSIBLE = 1, 3, 0xFFFE
+# Sub-format GUIDs of WAVE_FORMAT_EXTENSIBLE share this tail after the 2-byte format code
+# (Microsoft multimedia registration; common practice).
+_GUID_TAIL = bytes.fromhex("000000001000800000aa00389b71")
+_RATE_REL_TOL = 1e-6
+
+
+@dataclass(frozen=True)
+class Recording:
+    """One recording as the device would see it.
+
+    counts: int16 array, frames x axes (C order). Physical acceleration in m/s^2 is
+    counts * m_s2_per_count. t0_s is None when the sidecar gives no start time.
+    """
+
+    path: Path
+    counts: np.ndarray
+    m_s2_per_count: float
+    sample_rate_hz: float
+    axes: tuple[str, ...]
+    t0_s: float | None = None
+    rpm: float | None = None
+    vane_count: int | None = None
+    plant: str | None = None
+    machine: str | None = None
+    sidecar: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.counts.shape[0])
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_frames / self.sample_rate_hz
+
+    def accel_m_s2(self) -> np.ndarray:
+        """Acceleration in m/s^2 (float64, frames x axes)."""
+        return self.counts.astype(np.float64) * self.m_s2_per_count
+
+
+def sidecar_path(path: str | os.PathLike) -> Path:
+    """The sidecar JSON of a recording file: same folder and stem, `.json`."""
+    return Path(path).with_suffix(".json")
+
+
+def read_recording(
+    path: str | os.PathLike,
+    expected_rate_hz: float | None = None,
+    m_s2_per_count: float | None = None,
+) -> Recording:
+    """Read one recording and its sidecar.
+
+    expected_rate_hz: if given, a recording at another rate is refused (relative tolerance 1e-6).
+    m_s2_per_count: if given, counts are produced at this scale (m/s^2 per count).
+    """
+    p = Path(path)
+    suffix = p.suffix.lower()
+    if suffix not in RECORDING_SUFFIXES:
+        raise EdgevibError(f"{p}: unknown recording format {p.suffix!r} (use .wav, .csv or .npy)")
+    if not p.is_file():
+        raise EdgevibError(f"{p}: no such file")
+    meta = _read_sidecar(p)
+    if suffix == ".wav":
+        data, rate, is_float = _read_wav(p)
+    elif suffix == ".csv":
+        data, rate, is_float, t_first = _read_csv(p)
+        if t_first is not None and "t0_s" not in meta:
+            meta["t0_s"] = t_first
+    else:
+        data, rate, is_float = _read_npy(p)
+    rate = _resolve_rate(p, rate, meta.get("sample_rate_hz"), from_wav=suffix == ".wav")
+    if expected_rate_hz is not None and not math.isclose(rate, expected_rate_hz, rel_tol=_RATE_REL_TOL):
+        raise EdgevibError(f"{p}: sample rate {rate:g} Hz does not match the expected {expected_rate_hz:g} Hz")
+    if data.shape[0] == 0:
+        raise EdgevibError(f"{p}: recording holds no samples")
+    axes = _axis_names(p, meta.get("axes"), data.shape[1])
+    scale = m_s2_per_count if m_s2_per_count is not None else meta.get("m_s2_per_count")
+    counts, scale = _to_counts(p, data, is_float, meta["m_s2_per_unit"], scale)
+    return Recording(
+        path=p,
+        counts=counts,
+        m_s2_per_count=scale,
+        sample_rate_hz=rate,
+        axes=axes,
+        t0_s=meta.get("t0_s"),
+        rpm=meta.get("rpm"),
+        vane_count=meta.get("vane_count"),
+        plant=meta.get("plant"),
+        machine=meta.get("machine"),
+        sidecar=meta,
+    )
+
+
+def read_stream(
+    sources: str | os.PathLike | Iterable[str | os.PathLike],
+    expected_rate_hz: float | None = None,
+    m_s2_per_count: float | None = None,
+) -> list[Recording]:
+    """Read the recordings of one gateway as one stream, ordered by t0_s.
+
+    sources: a folder (every .wav/.csv/.npy file in it, not recursive), one file, or a list of
+    files and folders. With more than one recording every one needs t0_s; all must share the
+    sample rate, axis names and counts scale, must not overlap in time, and must not name
+    different machines.
+    """
+    if isinstance(sources, (str, os.PathLike)):
+        sources = [sources]
+    files: list[Path] = []
+    for s in sources:
+        s = Path(s)
+        if s.is_dir():
+            found = sorted(q for q in s.iterdir() if q.suffix.lower() in RECORDING_SUFFIXES and q.is_file())
+            if not found:
+                raise EdgevibError(f"{s}: folder holds no .wav, .csv or .npy recordings")
+            files.extend(found)
+        else:
+            files.append(s)
+    recs = [read_recording(f, expected_rate_hz, m_s2_per_count) for f in files]
+    if len(recs) == 1:
+        return recs
+    for r in recs:
+        if r.t0_s is None:
+            raise EdgevibError(f"{r.path}: sidecar has no t0_s, needed to order a stream of {len(recs)} recordings")
+    recs.sort(key=lambda r: r.t0_s)
+    first = recs[0]
+    for prev, r in zip(recs, recs[1:]):
+        if not math.isclose(r.sample_rate_hz, first.sample_rate_hz, rel_tol=_RATE_REL_TOL):
+            raise EdgevibError(f"{r.path}: sample rate {r.sample_rate_hz:g} Hz differs from {first.path} ({first.sample_rate_hz:g} Hz)")
+        if r.axes != first.axes:
+            raise EdgevibError(f"{r.path}: axes {list(r.axes)} differ from {first.path} {list(first.axes)}")
+        if not math.isclose(r.m_s2_per_count, first.m_s2_per_count, rel_tol=1e-9):
+            raise EdgevibError(f"{r.path}: counts scale {r.m_s2_per_count:g} m/s^2 differs from {first.path} ({first.m_s2_per_count:g})")
+        if r.machine is not None and first.machine is not None and r.machine != first.machine:
+            raise EdgevibError(f"{r.path}: machine {r.machine!r} differs from {first.path} ({first.machine!r}); one stream is one gateway")
+        if r.t0_s < prev.t0_s + prev.duration_s - 0.5 / r.sample_rate_hz:
+            raise EdgevibError(f"{r.path}: starts at t0_s={r.t0_s:g} s, before {prev.path} ends")
+    return recs
+
+
+def write_wav(path: str | os.PathLike, counts: np.ndarray, sample_rate_hz: float, sidecar: dict[str, Any]) -> Path:
+    """Write int16 counts (frames x axes) as PCM WAV plus its sidecar, each atomically.
+
+    The sidecar must hold m_s2_per_unit (m/s^2 per count here); sample_rate_hz is added (exact,
+    while the WAV header holds it rounded to an integer). Each file goes to a temporary name in
+    the same folder and is moved into place with os.replace, sidecar first: a reader never sees a
+    half-written file, and a WAV is never in place without its sidecar. Returns the WAV path.
+    """
+    p = Path(path)
+    if p.suffix.lower() != ".wav":
+        raise EdgevibError(f"{p}: write_wav writes .wav files only")
+    c = np.asarray(counts)
+    if c.ndim == 1:
+        c = c[:, None]
+    if c.dtype != np.int16 or c.ndim != 2 or c.shape[0] == 0:
+        raise EdgevibError(f"{p}: counts must be a non-empty int16 array, frames x axes (got {c.dtype}, shape {c.shape})")
+    rate_int = int(round(sample_rate_hz))
+    if rate_int < 1:
+        raise EdgevibError(f"{p}: sample rate must be at least 1 Hz, got {sample_rate_hz}")
+    meta = dict(sidecar)
+    meta["sample_rate_hz"] = float(sample_rate_hz)
+    _validate_sidecar(sidecar_path(p), meta)
+    _axis_names(p, meta.get("axes"), c.shape[1])
+    n_ch = c.shape[1]
+    payload = np.ascontiguousarray(c, dtype="<i2").tobytes()
+    header = b"".join(
+        (
+            b"RIFF", struct.pack("<I", 36 + len(payload)), b"WAVE",
+            b"fmt ", struct.pack("<IHHIIHH", 16, _WAVE_PCM, n_ch, rate_int, rate_int * 2 * n_ch, 2 * n_ch, 16),
+            b"data", struct.pack("<I", len(payload)),
+        )
+    )
+    _atomic_write(sidecar_path(p), (json.dumps(meta, indent=1, sort_keys=True) + "\n").encode())
+    _atomic_write(p, header + payload)
+    return p
+
+
+def _atomic_write(path: Path, data: bytes) -> None:
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix="." + path.name + ".", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "wb") as f:
+            f.write(data)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        os.unlink(tmp)
+        raise
+
+
+# --- sidecar -----------------------------------------------------------------------------------
+
+def _read_sidecar(p: Path) -> dict[str, Any]:
+    sp = sidecar_path(p)
+    if not sp.is_file():
+        raise EdgevibError(f"{p}: missing sidecar {sp.name} (needs at least m_s2_per_unit)")
+    try:
+        meta = json.loads(sp.read_text(encoding="utf-8"))
+    except (ValueError, UnicodeDecodeError) as e:
+        raise EdgevibError(f"{sp}: sidecar is not valid JSON ({e})") from None
+    if not isinstance(meta, dict):
+        raise EdgevibError(f"{sp}: sidecar must be a JSON object")
+    _validate_sidecar(sp, meta)
+    return meta
+
+
+def _is_number(v: Any) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+
+def _validate_sidecar(sp: Path, meta: dict[str, Any]) -> None:
+    if "m_s2_per_unit" not in meta:
+        raise EdgevibError(f"{sp}: sidecar lacks m_s2_per_unit (m/s^2 per sample unit)")
+    for key in ("m_s2_per_unit", "sample_rate_hz", "m_s2_per_count"):
+        v = meta.get(key)
+        if v is not None and not (_is_number(v) and v > 0):
+            raise EdgevibError(f"{sp}: {key} must be a positive number, got {v!r}")
+    if meta.get("t0_s") is not None and not _is_number(meta["t0_s"]):
+        raise EdgevibError(f"{sp}: t0_s must be a number of seconds, got {meta['t0_s']!r}")
+    if meta.get("rpm") is not None and not (_is_number(meta["rpm"]) and meta["rpm"] >= 0):
+        raise EdgevibError(f"{sp}: rpm must be a number >= 0 or null, got {meta['rpm']!r}")
+    vc = meta.get("vane_count")
+    if vc is not None and not (isinstance(vc, int) and not isinstance(vc, bool) and vc > 0):
+        raise EdgevibError(f"{sp}: vane_count must be a positive integer, got {vc!r}")
+    for key in ("plant", "machine"):
+        if meta.get(key) is not None and not isinstance(meta[key], str):
+            raise EdgevibError(f"{sp}: {key} must be a string, got {meta[key]!r}")
+    axes = meta.get("axes")
+    if axes is not None and not (isinstance(axes, list) and all(isinstance(a, str) and a for a in axes)):
+        raise EdgevibError(f"{sp}: axes must be a list of names, got {axes!r}")
+
+
+def _axis_names(p: Path, names: list[str] | None, n: int) -> tuple[str, ...]:
+    if names is None:
+        return tuple(["x", "y", "z"][:n] + [f"a{i}" for i in range(3, n)])
+    if len(names) != n:
+        raise EdgevibError(f"{p}: sidecar names {len(names)} axes but the file holds {n} channels")
+    if len(set(names)) != n:
+        raise EdgevibError(f"{p}: sidecar axis names repeat: {names}")
+    return tuple(names)
+
+
+def _resolve_rate(p: Path, file_rate: float | None, side_rate: float | None, from_wav: bool) -> float:
+    if file_rate is None:
+        if side_rate is None:
+            raise EdgevibError(f"{p}: sample rate unknown: give sample_rate_hz in the sidecar")
+        return float(side_rate)
+    if side_rate is None:
+        return float(file_rate)
+    # A WAV header holds an integer rate; the sidecar may carry the exact one.
+    agrees = round(side_rate) == file_rate if from_wav else math.isclose(side_rate, file_rate, rel_tol=1e-4)
+    if not agrees:
+        raise EdgevibError(f"{p}: sample rate {file_rate:g} Hz in the file disagrees with sidecar sample_rate_hz {side_rate:g}")
+    return float(side_rate)
+
+
+def _to_counts(p: Path, data: np.ndarray, is_float: bool, unit: float, scale: float | None) -> tuple[np.ndarray, float]:
+    if is_float and not np.all(np.isfinite(data)):
+        bad = int(np.argmax(~np.isfinite(data).all(axis=1)))
+        raise EdgevibError(f"{p}: NaN or infinite sample at frame {bad}")
+    if scale is None:
+        if is_float:
+            raise EdgevibError(f"{p}: float samples need m_s2_per_count (the counts scale) in the sidecar")
+        scale = unit
+    scale = float(scale)
+    if not is_float and scale == unit:
+        values = data
+    else:
+        values = np.rint(data.astype(np.float64) * unit / scale)
+    lo, hi = values.min(), values.max()
+    if lo < _INT16_MIN or hi > _INT16_MAX:
+        worst = float(hi if hi > -lo else lo)
+        raise EdgevibError(
+            f"{p}: a sample of {worst * scale:g} m/s^2 is {worst:g} counts at {scale:g} m/s^2 per count, "
+            "outside the int16 range (would clip; use a coarser m_s2_per_count)"
+        )
+    return np.ascontiguousarray(values, dtype=np.int16), scale
+
+
+# --- WAV ---------------------------------------------------------------------------------------
+
+def _read_wav(p: Path) -> tuple[np.ndarray, float, bool]:
+    size = p.stat().st_size
+    with open(p, "rb") as f:
+        head = f.read(12)
+        if len(head) < 12 or head[:4] != b"RIFF" or head[8:12] != b"WAVE":
+            raise EdgevibError(f"{p}: not a RIFF/WAVE file (little-endian RIFF expected)")
+        fmt = None
+        while True:
+            ch = f.read(8)
+            if len(ch) < 8:
+                raise EdgevibError(f"{p}: truncated WAV: no data chunk" if fmt else f"{p}: truncated WAV: no fmt chunk")
+            cid, clen = ch[:4], struct.unpack("<I", ch[4:])[0]
+            if cid == b"fmt ":
+                body = f.read(clen)
+                if len(body) < 16 or len(body) < clen:
+                    raise EdgevibError(f"{p}: truncated WAV fmt chunk")
+                fmt = _parse_fmt(p, body)
+                f.seek(clen & 1, 1)
+            elif cid == b"data":
+                if fmt is None:
+                    raise EdgevibError(f"{p}: WAV data chunk comes before the fmt chunk")
+                code, n_ch, rate, width = fmt
+                start = f.tell()
+                if start + clen > size:
+                    raise EdgevibError(f"{p}: truncated WAV: data chunk declares {clen} bytes, file holds {size - start}")
+                if clen % (n_ch * width):
+                    raise EdgevibError(f"{p}: truncated WAV: data length {clen} is not a whole number of frames")
+                kind = "f" if code == _WAVE_FLOAT else "i"
+                raw = np.fromfile(f, dtype=np.dtype(f"<{kind}{width}"), count=clen // width)
+                return raw.reshape(-1, n_ch), float(rate), kind == "f"
+            else:
+                if f.tell() + clen > size:
+                    raise EdgevibError(f"{p}: truncated WAV chunk {cid!r}")
+                f.seek(clen + (clen & 1), 1)
+
+
+def _parse_fmt(p: Path, body: bytes) -> tuple[int, int, int, int]:
+    code, n_ch, rate, _byte_rate, block, bits = struct.unpack("<HHIIHH", body[:16])
+    if code == _WAVE_EXTENSIBLE:
+        if len(body) < 40 or body[26:40] != _GUID_TAIL:
+            raise EdgevibError(f"{p}: WAVE_FORMAT_EXTENSIBLE with an unknown sub-format")
+        code = struct.unpack("<H", body[24:26])[0]
+    width = bits // 8
+    supported = (code == _WAVE_PCM and bits in (16, 32)) or (code == _WAVE_FLOAT and bits in (32, 64))
+    if not supported:
+        raise EdgevibError(f"{p}: unsupported WAV sample format (code {code}, {bits} bits); use PCM int16/int32 or float32")
+    if n_ch < 1 or rate < 1 or block != n_ch * width:
+        raise EdgevibError(f"{p}: inconsistent WAV header ({n_ch} channels, {rate} Hz, block {block} bytes)")
+    return code, n_ch, rate, width
+
+
+# --- CSV and .npy ------------------------------------------------------------------------------
+
+_FLOAT_MARK = re.compile(r"[.eEnNiI]")
+
+
+def _read_csv(p: Path) -> tuple[np.ndarray, float | None, bool, float | None]:
+    try:
+        text = p.read_text(encoding="utf-8")
+    except UnicodeDecodeError:
+        raise EdgevibError(f"{p}: CSV is not UTF-8 text") from None
+    lines = [ln for ln in text.splitlines() if ln.strip()]
+    if len(lines) < 2:
+        raise EdgevibError(f"{p}: CSV needs a header row and at least one data row")
+    names = [c.strip() for c in lines[0].split(",")]
+    if any(not c or _looks_numeric(c) for c in names):
+        raise EdgevibError(f"{p}: CSV first row must name every column, got {lines[0]!r}")
+    rows = [ln.split(",") for ln in lines[1:]]
+    for i, fields in enumerate(rows, start=2):
+        if len(fields) != len(names):
+            raise EdgevibError(f"{p}: CSV line {i} has {len(fields)} fields, header has {len(names)} (truncated?)")
+    try:
+        table = np.array([[float(v) for v in fields] for fields in rows], dtype=np.float64)
+    except ValueError as e:
+        raise EdgevibError(f"{p}: CSV holds a value that is not a number ({e})") from None
+    rate = t_first = None
+    if TIME_COLUMN in names:
+        ti = names.index(TIME_COLUMN)
+        rate, t_first = _rate_from_times(p, table[:, ti])
+        table = np.delete(table, ti, axis=1)
+        names.pop(ti)
+        rows = [fields[:ti] + fields[ti + 1:] for fields in rows]
+    is_float = any(_FLOAT_MARK.search(v) for fields in rows for v in fields)
+    if not names:
+        raise EdgevibError(f"{p}: CSV has a time column but no axis columns")
+    if is_float:
+        return table, rate, True, t_first
+    return table.astype(np.int64), rate, False, t_first
+
+
+def _looks_numeric(s: str) -> bool:
+    try:
+        float(s)
+        return True
+    except ValueError:
+        return False
+
+
+def _rate_from_times(p: Path, t: np.ndarray) -> tuple[float | None, float]:
+    if not np.all(np.isfinite(t)):
+        raise EdgevibError(f"{p}: CSV time column holds NaN or infinity")
+    if len(t) < 2:
+        return None, float(t[0])
+    dt = np.diff(t)
+    step = (t[-1] - t[0]) / (len(t) - 1)
+    if step <= 0 or np.max(np.abs(dt - step)) > 0.01 * step:
+        raise EdgevibError(f"{p}: CSV time column is not evenly spaced and increasing")
+    return 1.0 / step, float(t[0])
+
+
+def _read_npy(p: Path) -> tuple[np.ndarray, None, bool]:
+    try:
+        a = np.load(p, allow_pickle=False)
+    except (ValueError, OSError, EOFError) as e:
+        raise EdgevibError(f"{p}: cannot read .npy ({e})") from None
+    if a.ndim == 1:
+        a = a[:, None]
+    if a.ndim != 2:
+        raise EdgevibError(f"{p}: .npy array must be 1-D or 2-D (frames x axes), got shape {a.shape}")
+    if a.dtype.kind in "iu":
+        return a, None, False
+    if a.dtype.kind == "f":
+        return a, None, True
+    raise EdgevibError(f"{p}: .npy dtype {a.dtype} is not an integer or float type")
