@@ -1,0 +1,103 @@
+# Integer helpers for the per-window path: every argument, intermediate and result is a small
+# int (|v| < 2**30), so nothing here allocates on a 32-bit MicroPython port.
+from micropython import const
+
+_LOG2_FRAC = const(7)    # mantissa bits used for interpolation between log2 table entries
+
+
+def msb(x):
+    """Index of the highest set bit of 0 < x < 2**30 (msb(1) == 0); MicroPython has no bit_length."""
+    n = 0
+    if x >= 1 << 16:
+        x >>= 16
+        n = 16
+    if x >= 1 << 8:
+        x >>= 8
+        n += 8
+    if x >= 1 << 4:
+        x >>= 4
+        n += 4
+    if x >= 1 << 2:
+        x >>= 2
+        n += 2
+    if x >= 2:
+        n += 1
+    return n
+
+
+def isqrt(x):
+    """floor(sqrt(x)) for 0 <= x < 2**30, by the bitwise method (no multiply overflows)."""
+    r = 0
+    b = 1 << 28
+    while b > x:
+        b >>= 2
+    while b:
+        if x >= r + b:
+            x -= r + b
+            r = (r >> 1) + b
+        else:
+            r >>= 1
+        b >>= 2
+    return r
+
+
+def sqrt_pow2(s, e):
+    """round(sqrt(s * 2**e)) for 0 <= s < 2**30 and any int e, if the result is < 2**30.
+
+    s is shifted so its top bit lands at 27 or 28 (isqrt then keeps 14 bits or more), the shift
+    chosen so the remaining power of two is even; that half-power is applied to the root, rounded.
+    """
+    if s <= 0:
+        return 0
+    k = 28 - msb(s)          # bring the top bit to 28 or 27
+    if (e - k) & 1:
+        k -= 1
+    if k >= 0:
+        r = isqrt(s << k)
+    else:
+        r = isqrt(s >> -k)
+    h = (e - k) >> 1         # exact: e - k is even
+    if h >= 0:
+        return r << h
+    return (r + (1 << (-h - 1))) >> -h
+
+
+def div_pow2(num, den, s):
+    """floor(num * 2**s / den) for 0 <= num < 2**30, 0 < den < 2**30, s >= 0, result < 2**30.
+
+    Long division in chunks: each step shifts the remainder by as many bits as keep it under
+    2**30, so the exact quotient is found without a wide intermediate.
+    """
+    q = num // den
+    r = num - q * den
+    room = 29 - msb(den)     # r < den, so r << room < 2**30
+    if room < 1:
+        room = 1
+        den >>= 1            # a 30-bit divisor: give up one bit of it rather than overflow
+        r >>= 1
+    while s > 0:
+        c = room if s > room else s
+        r <<= c
+        d = r // den
+        q = (q << c) + d
+        r -= d * den
+        s -= c
+    return q
+
+
+def log2_q8(x, table_q15):
+    """round(256 * log2(x)) for 0 < x < 2**30, within 1 LSB; table_q15 from tables.log2_table().
+
+    The mantissa's top 8 bits pick a table entry (log2(1 + i/256), Q15) and the next bits
+    interpolate linearly; the result is Q8.
+    """
+    e = msb(x)
+    # mantissa as 8 index bits and _LOG2_FRAC fraction bits below the leading one
+    sh = e - 8 - _LOG2_FRAC
+    m = (x >> sh) if sh >= 0 else (x << -sh)
+    m &= (1 << (8 + _LOG2_FRAC)) - 1
+    i = m >> _LOG2_FRAC
+    f = m & ((1 << _LOG2_FRAC) - 1)
+    t0 = table_q15[i]
+    lin = t0 + (((table_q15[i + 1] - t0) * f) >> _LOG2_FRAC)    # Q15, < 2**15
+    return (e << 8) + ((lin + 64) >> 7)
