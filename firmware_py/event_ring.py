@@ -1,0 +1,56 @@
+# Fixed-size ring of detector events (state transitions), preallocated arrays, no allocation.
+# When the ring is full the oldest event is overwritten and `lost` counts it.
+from array import array
+
+
+class EventRing:
+    """cap events; slot i holds t[i] (s), old[i], new[i] (states), reason[i], mode[i]
+    (-1 none), feat[i] (flat feature index, -1 none), score[i] (Q8 spreads).
+
+    Drain: `i = ring.pop()` gives the oldest slot (or -1 if empty); read the arrays at i before
+    the next put().
+    """
+
+    def __init__(self, cap):
+        self.cap = cap
+        z = bytes(4 * cap)
+        self.t = array("i", z)
+        self.old = array("i", z)
+        self.new = array("i", z)
+        self.reason = array("i", z)
+        self.mode = array("i", z)
+        self.feat = array("i", z)
+        self.score = array("i", z)
+        self.head = 0     # next slot to write
+        self.count = 0    # events held
+        self.lost = 0     # events overwritten unread (saturates)
+
+    def put(self, t, old, new, reason, mode, feat, score):
+        i = self.head
+        self.t[i] = t
+        self.old[i] = old
+        self.new[i] = new
+        self.reason[i] = reason
+        self.mode[i] = mode
+        self.feat[i] = feat
+        self.score[i] = score
+        i += 1
+        self.head = 0 if i == self.cap else i
+        if self.count == self.cap:
+            if self.lost < (1 << 29):
+                self.lost += 1
+        else:
+            self.count += 1
+
+    def pending(self):
+        return self.count
+
+    def pop(self):
+        """Slot of the oldest unread event, marked read; -1 if none."""
+        if self.count == 0:
+            return -1
+        i = self.head - self.count
+        if i < 0:
+            i += self.cap
+        self.count -= 1
+        return i
