@@ -70,12 +70,8 @@ class ADXL345Model(ChipModel):
     def _int_source(self):
         n = self.count
         wm = self.regs[FIFO_CTL] & 0x1F
-        if self.fifo_mode() == BYPASS:
-            ready = self.fresh
-            water = 0
-        else:
-            ready = 1 if n else 0
-            water = 1 if n >= wm else 0
+        ready = self.fresh if self.fifo_mode() == BYPASS else (1 if n else 0)
+        water = 1 if n >= wm else 0     # Samples = 0 sets it at once, in any mode (FIFO_CTL)
         return (ready << 7) | (water << 1) | self.overrun
 
     def _read_reg(self, reg):
