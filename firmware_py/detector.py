@@ -75,7 +75,7 @@ PARAM_DOC = {
     "det_s_floor_q8": "least per-mode spread, Q8 baseline spreads",
     "det_learn_base_n": "learning: windows for the baseline (phase 1, <= 65535)",
     "det_learn_mode_n": "learning: windows for the operating modes (phase 2, <= 65535)",
-    "det_learn_radius_q8": "learning: a window farther than this from every mode opens a new one, Q8 baseline spreads",
+    "det_learn_radius_q8": "learning: a window whose r.m.s. distance per feature from every mode exceeds this opens a new mode, Q8 baseline spreads",
     "det_learn_min_n": "learning: modes with fewer windows are dropped",
     "det_learn_margin_q8": "learning: alert threshold = CHI_Q8[d-1] * margin, Q8",
     "det_learn_alarm_q8": "learning: alarm threshold = alert threshold * this, Q8",
@@ -118,7 +118,7 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_dc_lo_q8": [-dc] * axes, "det_dc_hi_q8": [dc] * axes,
         "det_drop_max": 0, "det_fault_k": 3,
         "det_sd_floor_q4": 128, "det_s_floor_q8": 64,
-        "det_learn_base_n": 300, "det_learn_mode_n": 600, "det_learn_radius_q8": 3 * 256,
+        "det_learn_base_n": 300, "det_learn_mode_n": 600, "det_learn_radius_q8": 320,
         "det_learn_min_n": 30, "det_learn_margin_q8": 320, "det_learn_alarm_q8": 384,
         "det_drift_shift": 0, "det_drift_max_q8": 128,
         "det_event_n": 32,
@@ -183,8 +183,8 @@ class Detector:
         self.fault_k = _int(p, "det_fault_k", 1, 1 << 20)
         self.base_n = _int(p, "det_learn_base_n", 2, N_MAX)
         self.mode_n = _int(p, "det_learn_mode_n", 1, N_MAX)
-        r = _int(p, "det_learn_radius_q8", 1, Z_LIM)
-        self.r2 = (r * r) >> 8
+        r = _int(p, "det_learn_radius_q8", 1, 2048)
+        self.r2d = ((r * r) >> 8) * d             # squared radius times d, Q8 spreads squared
         self.min_n = _int(p, "det_learn_min_n", 1, N_MAX)
         self.margin = _int(p, "det_learn_margin_q8", 256, 1 << 12)
         self.alarm_ratio = _int(p, "det_learn_alarm_q8", 256, 1 << 12)
@@ -364,12 +364,15 @@ class Detector:
         return self.state
 
     def _drift(self):
-        """Move the baseline mean a 2**-shift step toward this window, within drift_max spreads."""
+        """Move the baseline mean a 2**-shift step along this window's offset from its nearest
+        mode (so every mode shifts together), staying within drift_max spreads of the trained
+        mean. The offset is clamped to 8 spreads so that offset * sd_q4 < 2**28."""
         m = self.model
         sh = self.drift_shift
+        b = m.mode * self.d
         for j in range(self.d):
-            mu = m.mean_q4[j]
-            mu += (((self.u[j] << 4) - mu) + (1 << sh >> 1)) >> sh
+            off_q4 = (clamp(self.z[j] - m.c_q8[b + j], 2048) * m.sd_q4[j]) >> 8
+            mu = m.mean_q4[j] + ((off_q4 + (1 << sh >> 1)) >> sh)
             lim = (self.drift_max * m.sd_q4[j]) >> 8
             m.mean_q4[j] = self.mean0_q4[j] + clamp(mu - self.mean0_q4[j], lim)
 
@@ -415,7 +418,7 @@ class Detector:
             if best < 0 or s < best:
                 best = s
                 best_m = m
-        if (best < 0 or best > self.r2) and self.ck < KMAX:
+        if (best < 0 or best > self.r2d) and self.ck < KMAX:
             best_m = self.ck
             self.ck += 1
         b = best_m * d
