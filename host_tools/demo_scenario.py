@@ -150,7 +150,9 @@ def build_scenario(seed: int = DEFAULT_SEED, days: float = DAYS, training_days: 
     rng = np.random.default_rng([seed, 0])
     t_start = START_T0_S
     t_end = t_start + days * _DAY_S
-    d = lambda x: t_start + x * _DAY_S  # noqa: E731 - day number -> Unix s
+
+    def d(day: float) -> float:
+        return t_start + day * _DAY_S
     faults = tuple(
         f for f in (
             Fault("P-101", "loose_cable", d(11.3), d(13.6), "sensor cable connector loose: dropouts and spikes"),
@@ -198,7 +200,7 @@ def _hourly_speeds(rng: np.random.Generator, hours: int, stop_days: list[float])
 def _profile(t_start: float, hourly: np.ndarray) -> tuple[np.ndarray, np.ndarray, list[tuple[float, float]]]:
     """Breakpoints of the speed profile (changes on the hour, linear ramps) and the stop list."""
     bt, br, stops = [t_start], [hourly[0]], []
-    stop_t = None
+    stop_t = t_start  # a profile that begins stopped was stopped from the start
     for h in range(1, len(hourly)):
         old, new = hourly[h - 1], hourly[h]
         if new == old:
@@ -210,7 +212,7 @@ def _profile(t_start: float, hourly: np.ndarray) -> tuple[np.ndarray, np.ndarray
             stop_t = t
         elif old == 0.0:
             stops.append((stop_t, t))
-    if hourly[-1] == 0.0 and stop_t is not None:
+    if hourly[-1] == 0.0:
         stops.append((stop_t, t_start + len(hourly) * 3600.0))
     return np.array(bt), np.array(br), stops
 
@@ -230,7 +232,7 @@ _BEARING_END_M_S2 = 25.0  # peak of one impact's ring-down at full defect severi
 def synthesize(sc: Scenario, snap: Snapshot) -> np.ndarray:
     """Accelerometer counts of one snapshot: int16, frames x 3 (x, y, z); M_S2_PER_COUNT scale."""
     p = sc.pumps[snap.pump]
-    rng = np.random.default_rng([sc.seed, 1 + [*sc.pumps].index(p.name), int(round((snap.t0_s - sc.start_t0_s) * 1000))])
+    rng = np.random.default_rng([sc.seed, 1 + [*sc.pumps].index(p.name), int(round(snap.t0_s * 1000))])
     n = int(round(snap.duration_s * FS_HZ))
     t = snap.t0_s + np.arange(n) / FS_HZ
     rpm = sc.speed_rpm(p.name, t) * (1.0 + 0.001 * rng.standard_normal())  # slip varies with load

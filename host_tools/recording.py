@@ -115,6 +115,7 @@ def read_recording(
     if not p.is_file():
         raise EdgevibError(f"{p}: no such file")
     meta = _read_sidecar(p)
+    rate: float | None
     if suffix == ".wav":
         data, rate, is_float = _read_wav(p)
     elif suffix == ".csv":
@@ -173,12 +174,17 @@ def read_stream(
     recs = [read_recording(f, expected_rate_hz, m_s2_per_count) for f in files]
     if len(recs) == 1:
         return recs
+    starts: list[float] = []
     for r in recs:
         if r.t0_s is None:
             raise EdgevibError(f"{r.path}: sidecar has no t0_s, needed to order a stream of {len(recs)} recordings")
-    recs.sort(key=lambda r: r.t0_s)
+        starts.append(r.t0_s)
+    order = sorted(range(len(recs)), key=starts.__getitem__)
+    recs = [recs[i] for i in order]
+    starts = [starts[i] for i in order]
     first = recs[0]
-    for prev, r in zip(recs, recs[1:]):
+    for i in range(1, len(recs)):
+        prev, r = recs[i - 1], recs[i]
         if not math.isclose(r.sample_rate_hz, first.sample_rate_hz, rel_tol=_RATE_REL_TOL):
             raise EdgevibError(f"{r.path}: sample rate {r.sample_rate_hz:g} Hz differs from {first.path} ({first.sample_rate_hz:g} Hz)")
         if r.axes != first.axes:
@@ -187,8 +193,8 @@ def read_stream(
             raise EdgevibError(f"{r.path}: counts scale {r.m_s2_per_count:g} m/s^2 differs from {first.path} ({first.m_s2_per_count:g})")
         if r.machine is not None and first.machine is not None and r.machine != first.machine:
             raise EdgevibError(f"{r.path}: machine {r.machine!r} differs from {first.path} ({first.machine!r}); one stream is one gateway")
-        if r.t0_s < prev.t0_s + prev.duration_s - 0.5 / r.sample_rate_hz:
-            raise EdgevibError(f"{r.path}: starts at t0_s={r.t0_s:g} s, before {prev.path} ends")
+        if starts[i] < starts[i - 1] + prev.duration_s - 0.5 / r.sample_rate_hz:
+            raise EdgevibError(f"{r.path}: starts at t0_s={starts[i]:g} s, before {prev.path} ends")
     return recs
 
 

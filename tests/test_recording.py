@@ -239,6 +239,13 @@ def _case_would_clip(d):
     return p, {}
 
 
+def _case_int32_beyond_int16(d):
+    p = d / "r.wav"
+    p.write_bytes(_wav_bytes(np.array([[0], [40000]], np.int32)))
+    _sidecar(p, m_s2_per_unit=0.001)  # integer data kept as counts: 40000 does not fit int16
+    return p, {}
+
+
 def _case_csv_short_row(d):
     p = d / "r.csv"
     p.write_text("x,y\n1,2\n3\n")
@@ -264,7 +271,7 @@ def _case_bad_sidecar(d):
     "make",
     [_case_missing_sidecar, _case_truncated, _case_nan, _case_inf_npy, _case_rate_mismatch,
      _case_unknown_format, _case_not_wav, _case_float_without_scale, _case_would_clip,
-     _case_csv_short_row, _case_unsupported_pcm8, _case_bad_sidecar],
+     _case_int32_beyond_int16, _case_csv_short_row, _case_unsupported_pcm8, _case_bad_sidecar],
 )
 def test_errors_name_the_file_and_touch_nothing(tmp_path, make):
     p, kwargs = make(tmp_path)
@@ -284,6 +291,9 @@ def test_stream_errors(tmp_path):
         read_stream([a, b])
     _sidecar(b, m_s2_per_unit=1.0, t0_s=5.0, machine="P-102")
     with pytest.raises(EdgevibError, match="b.wav.*machine"):
+        read_stream(tmp_path)
+    _sidecar(b, m_s2_per_unit=2.0, t0_s=5.0)
+    with pytest.raises(EdgevibError, match="b.wav.*counts scale"):
         read_stream(tmp_path)
     _sidecar(b, m_s2_per_unit=1.0)
     with pytest.raises(EdgevibError, match="b.wav.*t0_s"):
