@@ -207,7 +207,7 @@ arg_values = st.none() | st.booleans() | st.integers(-2**40, 2**40) | st.binary(
 FRAMES_TRIED = [0]
 
 
-@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(st.lists(st.tuples(st.sampled_from(CMDS),
                           st.dictionaries(st.sampled_from(["off", "len", "data", "size", "on",
                                                            "id", "t", "sig", "seq"]),

@@ -1,0 +1,112 @@
+"""Frames over a transport: requests with sequence numbers, replies matched to them, timeouts
+and retries. Framing (COBS + CRC-32) is firmware_py.frames, the device's own code; payloads
+are MessagePack through the reference `msgpack` library. Raises LinkError on any failure."""
+from __future__ import annotations
+
+import collections
+import time
+
+import msgpack
+
+import firmware_py  # noqa: F401  (installs the micropython stand-in the device modules import)
+from firmware_py import frames
+from host_tools.errors import LinkError
+
+MAX_PAYLOAD = 65536   # the host accepts larger frames than any device sends
+
+
+class DeviceRefused(LinkError):
+    """The device answered with an error reply; .code is its err field (see docs/protocol.md)."""
+
+    def __init__(self, cmd: str, code: str, msg: str):
+        super().__init__(f"gateway refused {cmd}: {msg}")
+        self.code = code
+
+
+class Link:
+    """Request/reply over transport. timeout_s per attempt, retries extra attempts."""
+
+    def __init__(self, transport, timeout_s: float = 1.0, retries: int = 2):
+        self.transport = transport
+        self.timeout_s = timeout_s
+        self.retries = retries
+        self._rx = frames.Receiver(MAX_PAYLOAD)
+        self._seq = 0
+        self._ready: collections.deque = collections.deque()   # decoded frames not yet taken
+        self.pushes: collections.deque = collections.deque()   # unsolicited messages
+        self.frames_sent = 0
+        self.bad_frames = 0
+
+    def _frame(self, msg: dict) -> bytes:
+        payload = msgpack.packb(msg, use_bin_type=True)
+        buf = bytearray(payload) + bytearray(4)
+        out = bytearray(frames.wire_size(len(payload)))
+        return bytes(out[:frames.encode(buf, len(payload), out)])
+
+    def _pump(self, timeout_s: float) -> None:
+        """Read what arrives within timeout_s and queue every good frame."""
+        data = self.transport.read(4096, timeout_s)
+        for b in data:
+            k = self._rx.push(b)
+            if k < 0:
+                self.bad_frames += 1
+            elif k > 0:
+                try:
+                    msg = msgpack.unpackb(bytes(self._rx.buf[:k]), raw=False)
+                except Exception:
+                    self.bad_frames += 1
+                    continue
+                if isinstance(msg, dict) and "push" in msg:
+                    self.pushes.append(msg)
+                elif isinstance(msg, dict):
+                    self._ready.append(msg)
+                else:
+                    self.bad_frames += 1
+
+    def request(self, cmd: str, **args) -> dict:
+        """Send cmd with args and return the reply's results (seq and ok removed)."""
+        self._seq = self._seq % 0xFFFF + 1
+        seq = self._seq
+        frame = self._frame({"seq": seq, "cmd": cmd, **args})
+        for _ in range(self.retries + 1):
+            self.transport.write(frame)
+            self.frames_sent += 1
+            deadline = time.monotonic() + self.timeout_s
+            while True:
+                reply = self._take(seq)
+                if reply == "resend":
+                    break
+                if reply is not None:
+                    if not reply.get("ok"):
+                        raise DeviceRefused(cmd, str(reply.get("err")), str(reply.get("msg")))
+                    return {k: v for k, v in reply.items() if k not in ("seq", "ok")}
+                left = deadline - time.monotonic()
+                if left <= 0:
+                    break
+                self._pump(left)
+        raise LinkError(f"no reply to {cmd} after {self.retries + 1} tries "
+                        f"({self.timeout_s:g} s each)")
+
+    def _take(self, seq: int):
+        """The queued reply for seq, "resend" if the device reported a damaged frame, or None.
+        Replies to older requests (late duplicates) are dropped."""
+        while self._ready:
+            msg = self._ready.popleft()
+            if msg.get("seq") == seq:
+                return msg
+            if msg.get("seq") is None and msg.get("err") == "frame":
+                return "resend"
+        return None
+
+    def next_push(self, timeout_s: float):
+        """The next unsolicited message, or None if none arrives within timeout_s."""
+        deadline = time.monotonic() + timeout_s
+        while not self.pushes:
+            left = deadline - time.monotonic()
+            if left <= 0:
+                return None
+            self._pump(left)
+        return self.pushes.popleft()
+
+    def close(self) -> None:
+        self.transport.close()
