@@ -59,6 +59,7 @@ class FeatureCore:
         self.cos_t, self.sin_t = tables.twiddles(n)
         self.hann = tables.hann(n, self.cos_t)
         self.pos = tables.bitrev_positions(n)
+        self.tw = fft.radix4_twiddles(self.m, self.cos_t, self.sin_t)
         self.log2_t = tables.log2_table()
         self.vmant, self.vsh2, self.vel_exp = tables.velocity_weights(n, fs_hz, vel_lo_hz, vel_hi_hz)
         self.buf = array.array('i', bytes(4 * n))
@@ -125,7 +126,7 @@ class FeatureCore:
             s4 += (r * r) >> L
             buf[pos[i]] = (y * hann[i]) >> 15
         m = self.m
-        fft.cfft(buf, m, self.cos_t, self.sin_t)
+        fft.cfft(buf, m, self.tw)
         vs = fft.spectrum(buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p)
         self._finish(off, pk, u, g, sh, sq, s4, vs)
 

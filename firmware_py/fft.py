@@ -1,12 +1,13 @@
 # Fixed-point FFT of a real window, through an n/2-point complex FFT, in place.
 #
-# Scaling, stated once for both functions:
+# Scaling, stated once for all functions here:
 # - Input: buf (array('i'), n ints) holds the windowed real samples x[i] in bit-reversed complex
 #   order (tables.bitrev_positions), |x| <= 2**14, as complex points z[c] = x[2c] + j*x[2c+1].
-# - cfft: radix-2 decimation in time, m = n/2 points, log2(m) stages; every butterfly halves its
-#   outputs (>> 1, floor), so after the last stage buf holds Z[k] / m, where Z is the exact DFT
-#   of z. Halving each stage keeps |component| <= 2**14 * sqrt(2) < 23171 throughout, so a
-#   twiddle product (Q15, |w| <= 2**15) stays below 23171 * 2**15 < 2**30.
+# - cfft: m = n/2 points, decimation in time: radix-4 stages (one radix-2 stage first when log2(m)
+#   is odd). A radix-2 stage halves its outputs (>> 1), a radix-4 stage quarters them (>> 2,
+#   floor), so after the last stage buf holds Z[k] / m, where Z is the exact DFT of z. Each output
+#   is at most the largest input in magnitude, so |component| <= 2**14 * sqrt(2) < 23171
+#   throughout and a twiddle product (Q15, |w| <= 2**15) stays below 23171 * 2**15 < 2**30.
 # - spectrum: the real-FFT split X[k] = E[k] - j*W**k*O[k], with E, O the halves
 #   (Z[k] + conj Z[m-k])/2 and (Z[k] - conj Z[m-k])/2, halved before the twiddle product for the
 #   same bound. Result: X[k] = DFT(x)[k] / m for k = 0..m, |X| <= 2**14 (the window sum bound).
@@ -15,38 +16,112 @@
 # Floor shifts bias each stage by at most -1/2 LSB; that error is what the tests' tolerance derives from.
 
 
-def cfft(buf, m, cos_t, sin_t):
+def radix4_twiddles(m, cos_t, sin_t):
+    """Twiddles of every radix-4 stage of an m-point cfft, one array('i') (Q15).
+
+    For a stage of quarter-span h and j = 0..h-1, with w = W_m**(j*m/(4h)) = W_n**(j*m/(2h)),
+    six ints: w**2, w, w**3 as (cos, sin) pairs (W = cos - j*sin), stages in execution order.
+    cos_t, sin_t cover 0..pi (tables.twiddles); angles up to 3*pi/2 use cos(t) = -cos(t - pi).
+    """
+    tw = []
+    h = 2 if _odd_log2(m) else 1
+    while h < m:
+        for j in range(h):
+            q = j * m // (2 * h)            # index of w in the n-point tables
+            for e in (2, 1, 3):
+                i = q * e
+                if i <= m:
+                    tw.append(cos_t[i])
+                    tw.append(sin_t[i])
+                else:
+                    tw.append(-cos_t[i - m])
+                    tw.append(-sin_t[i - m])
+        h *= 4
+    return _array_i(tw)
+
+
+def _array_i(values):
+    import array
+    return array.array('i', values)
+
+
+def _odd_log2(m):
+    k = 0
+    while m > 1:
+        m >>= 1
+        k += 1
+    return k & 1
+
+
+def cfft(buf, m, tw):
     """In-place scaled complex FFT of m points (interleaved re, im; input bit-reversed).
 
-    Twiddles W_m**j = cos - j*sin come from the n = 2m point tables (W_m**j = W_n**(2j)).
-    Overwrites buf. Scaling: see the module comment.
+    tw from radix4_twiddles(m, ...). Overwrites buf. Scaling: see the module comment.
     """
-    h = 1
     end = 2 * m
+    h = 1
+    if _odd_log2(m):
+        # radix-2 stage with W = 1: pairs of neighbours
+        for a in range(0, end, 4):
+            ur = buf[a]
+            ui = buf[a + 1]
+            xr = buf[a + 2]
+            xi = buf[a + 3]
+            buf[a] = (ur + xr) >> 1
+            buf[a + 1] = (ui + xi) >> 1
+            buf[a + 2] = (ur - xr) >> 1
+            buf[a + 3] = (ui - xi) >> 1
+        h = 2
+    t = 0
     while h < m:
-        step = m // h                 # table index stride: W_m**(j*m/(2h)) = W_n**(j*m/h)
-        span = 4 * h                  # ints between successive butterflies of one twiddle
-        off = 2 * h                   # ints from a butterfly's top to its bottom
-        t = 0
-        for j in range(0, 2 * h, 2):
-            wr = cos_t[t]
-            wi = sin_t[t]
+        q = 2 * h                          # ints between the four legs of a butterfly
+        span = 8 * h
+        for j in range(0, q, 2):
+            w2r = tw[t]
+            w2i = tw[t + 1]
+            w1r = tw[t + 2]
+            w1i = tw[t + 3]
+            w3r = tw[t + 4]
+            w3i = tw[t + 5]
+            t += 6
             a = j
             while a < end:
-                b = a + off
+                b = a + q
+                c = b + q
+                d = c + q
+                # B = w**2 * x[b], C = w * x[c], D = w**3 * x[d]  (w = wr - j*wi)
                 xr = buf[b]
                 xi = buf[b + 1]
-                tr = (wr * xr + wi * xi) >> 15      # (wr - j wi)(xr + j xi)
-                ti = (wr * xi - wi * xr) >> 15
-                ur = buf[a]
-                ui = buf[a + 1]
-                buf[a] = (ur + tr) >> 1
-                buf[a + 1] = (ui + ti) >> 1
-                buf[b] = (ur - tr) >> 1
-                buf[b + 1] = (ui - ti) >> 1
+                br = (w2r * xr + w2i * xi) >> 15
+                bi = (w2r * xi - w2i * xr) >> 15
+                xr = buf[c]
+                xi = buf[c + 1]
+                cr = (w1r * xr + w1i * xi) >> 15
+                ci = (w1r * xi - w1i * xr) >> 15
+                xr = buf[d]
+                xi = buf[d + 1]
+                dr = (w3r * xr + w3i * xi) >> 15
+                di = (w3r * xi - w3i * xr) >> 15
+                ar = buf[a]
+                ai = buf[a + 1]
+                s0r = ar + br
+                s0i = ai + bi
+                s1r = ar - br
+                s1i = ai - bi
+                s2r = cr + dr
+                s2i = ci + di
+                s3r = cr - dr
+                s3i = ci - di
+                buf[a] = (s0r + s2r) >> 2          # y0 = (a + B) + (C + D)
+                buf[a + 1] = (s0i + s2i) >> 2
+                buf[c] = (s0r - s2r) >> 2          # y2 = (a + B) - (C + D)
+                buf[c + 1] = (s0i - s2i) >> 2
+                buf[b] = (s1r + s3i) >> 2          # y1 = (a - B) - j(C - D)
+                buf[b + 1] = (s1i - s3r) >> 2
+                buf[d] = (s1r - s3i) >> 2          # y3 = (a - B) + j(C - D)
+                buf[d + 1] = (s1i + s3r) >> 2
                 a += span
-            t += step
-        h <<= 1
+        h *= 4
 
 
 def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
