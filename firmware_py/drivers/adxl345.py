@@ -136,12 +136,12 @@ class ADXL345:
             # One frame per transaction: the FIFO pops when a read of the data registers ends
             # ("Retrieving Data from FIFO"), and reading past DATAZ1 reaches FIFO_CTL.
             regs.read_into(_DATAX0, buf)
-            for a in range(axes):
-                v = buf[2 * a] | (buf[2 * a + 1] << 8)
-                if v > 32767:
-                    v -= 65536
-                out[i] = v
+            p = 0
+            for _ in range(axes):
+                # little-endian two's complement: sign-extend bit 15
+                out[i] = ((buf[p] | (buf[p + 1] << 8)) ^ 0x8000) - 0x8000
                 i += 1
+                p += 2
         self.gaps.taken(n)
         return n
 

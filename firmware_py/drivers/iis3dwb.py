@@ -156,12 +156,12 @@ class IIS3DWB:
             regs.read_into(_FIFO_DATA_OUT_TAG, blk)
             for w in range(0, _WORD * wm, _WORD):
                 if blk[w] >> 3 == _TAG_XL:
-                    for a in range(axes):
-                        v = blk[w + 1 + 2 * a] | (blk[w + 2 + 2 * a] << 8)
-                        if v > 32767:
-                            v -= 65536
-                        out[i] = v
+                    p = w + 1
+                    for _ in range(axes):
+                        # little-endian two's complement: sign-extend bit 15
+                        out[i] = ((blk[p] | (blk[p + 1] << 8)) ^ 0x8000) - 0x8000
                         i += 1
+                        p += 2
             level -= wm
             got += wm
         self.gaps.taken(got)
