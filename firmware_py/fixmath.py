@@ -63,18 +63,15 @@ def sqrt_pow2(s, e):
 
 
 def div_pow2(num, den, s):
-    """floor(num * 2**s / den) for 0 <= num < 2**30, 0 < den < 2**30, s >= 0, result < 2**30.
+    """floor(num * 2**s / den), exactly, for 0 <= num < 2**30, 0 < den < 2**29, s >= 0, with a
+    result below 2**30.
 
-    Long division in chunks: each step shifts the remainder by as many bits as keep it under
-    2**30, so the exact quotient is found without a wide intermediate.
+    Long division in chunks: each step shifts the remainder (< den) by as many bits as keep it
+    under 2**30, so the exact quotient is found without a wide intermediate.
     """
     q = num // den
     r = num - q * den
-    room = 29 - msb(den)     # r < den, so r << room < 2**30
-    if room < 1:
-        room = 1
-        den >>= 1            # a 30-bit divisor: give up one bit of it rather than overflow
-        r >>= 1
+    room = 29 - msb(den)     # >= 1 since den < 2**29: r << room < 2**30
     while s > 0:
         c = room if s > room else s
         r <<= c
