@@ -5,9 +5,10 @@ no measurement from any real machine went into this. The signals are made from s
 that the tools have something realistic to work on, and so that the faults are known exactly.
 
 Each pump carries one triaxial MEMS accelerometer on its drive-end bearing housing, sampled at
-3200 Hz. Axes: x radial horizontal, y axial, z radial vertical (z reads +1 g of gravity). Counts
-scale: a 16-bit +-16 g range, 16 g / 32768 = 0.488 mg per count (M_S2_PER_COUNT, m/s^2 per count);
-the sensor saturates at -32768..32767 as a real one would.
+3200 Hz. Axes: x radial horizontal, y axial, z radial vertical (z reads +1 g of gravity). The
+sensor is ADXL345-like, as on the Pico board profile (boards/pico_adxl345.json): +-16 g full
+resolution, 256 counts per g (3.9 mg per count, M_S2_PER_COUNT in m/s^2 per count), codes
+-4096..4095 where it saturates as a real one would.
 
 What a snapshot contains (amplitudes are peak m/s^2 at the top speed, 1480 r/min, where forces
 scale with the square of speed below the first critical speed; common practice):
@@ -18,7 +19,7 @@ scale with the square of speed below the first critical speed; common practice):
 - a housing resonance (P-101 1100 Hz, P-102 1250 Hz; below the 1600 Hz Nyquist limit) rung by
   impacts of a bearing outer-race defect at BPFO from the 6205 geometry, with about 1 % slip and
   random jitter of each impact time;
-- sensor noise (100 ug/sqrt(Hz), white), per-axis offsets and a slow daily drift of the offsets.
+- sensor noise (white, 290-430 ug/sqrt(Hz)), per-axis offsets and a slow daily drift of them.
 
 The operating story (six weeks of gateway snapshots, 4 s every 2 hours, plus one at every stop and
 restart, t0_s in Unix seconds from an invented start date):
@@ -50,7 +51,9 @@ from host_tools.recording import write_wav
 
 FS_HZ = 3200
 G_M_S2 = 9.80665  # standard gravity (CGPM 1901; common practice)
-M_S2_PER_COUNT = 16.0 * G_M_S2 / 32768.0  # +-16 g over 16 bits
+COUNTS_PER_G = 256  # ADXL345 full resolution (datasheet; as in the board profiles)
+M_S2_PER_COUNT = G_M_S2 / COUNTS_PER_G
+ADC_MIN, ADC_MAX = -4096, 4095  # +-16 g in 13 bits
 AXES = ("x", "y", "z")
 PLANT = "Brackwater pumping station"
 DEFAULT_SEED = 2026
@@ -63,7 +66,8 @@ TOP_RPM = OPERATING_RPM[0]
 RAMP_RPM_PER_S = 150.0
 START_T0_S = datetime(2026, 3, 2, tzinfo=timezone.utc).timestamp()  # invented start date
 BEARING_SLIP = 0.01  # rolling elements lag the kinematic rate by about 1 % (common practice)
-SENSOR_NOISE_UG_RTHZ = 100.0
+# Noise density per axis (x, y, z), ug/sqrt(Hz): near the ADXL345's datasheet figures (from memory).
+SENSOR_NOISE_UG_RTHZ = (290.0, 290.0, 430.0)
 _DAY_S = 86400.0
 
 
@@ -230,7 +234,8 @@ _BEARING_END_M_S2 = 25.0  # peak of one impact's ring-down at full defect severi
 
 
 def synthesize(sc: Scenario, snap: Snapshot) -> np.ndarray:
-    """Accelerometer counts of one snapshot: int16, frames x 3 (x, y, z); M_S2_PER_COUNT scale."""
+    """Accelerometer counts of one snapshot: int16 in ADC_MIN..ADC_MAX, frames x 3 (x, y, z),
+    M_S2_PER_COUNT m/s^2 per count."""
     p = sc.pumps[snap.pump]
     rng = np.random.default_rng([sc.seed, 1 + [*sc.pumps].index(p.name), int(round(snap.t0_s * 1000))])
     n = int(round(snap.duration_s * FS_HZ))
@@ -255,11 +260,11 @@ def synthesize(sc: Scenario, snap: Snapshot) -> np.ndarray:
     a += np.outer(_bearing_impacts(sc, p, snap.t0_s, theta, rpm, rng), _GAIN_RES)
     if cav > 0.0:
         a += _cavitation(rng, n, cav)
-    a += rng.standard_normal((n, 3)) * (SENSOR_NOISE_UG_RTHZ * 1e-6 * G_M_S2 * math.sqrt(FS_HZ / 2.0))
+    a += rng.standard_normal((n, 3)) * (np.asarray(SENSOR_NOISE_UG_RTHZ) * 1e-6 * G_M_S2 * math.sqrt(FS_HZ / 2.0))
     drift = 0.03 * np.sin(2 * np.pi * (t - sc.start_t0_s) / _DAY_S + ph[3])  # offsets follow temperature
     a += np.asarray(p.offsets_m_s2) + drift[:, None]
     a[:, 2] += G_M_S2
-    counts = np.clip(np.rint(a / M_S2_PER_COUNT), -32768, 32767).astype(np.int16)
+    counts = np.clip(np.rint(a / M_S2_PER_COUNT), ADC_MIN, ADC_MAX).astype(np.int16)
     if sc.fault_severity(p.name, "loose_cable", snap.t0_s) > 0.0 and rng.random() < 0.8:
         _loose_cable(rng, counts)
     return counts
@@ -305,7 +310,7 @@ def _loose_cable(rng: np.random.Generator, counts: np.ndarray) -> None:
         j = min(n, i + int(rng.uniform(0.02, 0.4) * FS_HZ))
         counts[i:j] = counts[i - 1] if rng.random() < 0.5 else 0
     at = rng.integers(0, n, rng.poisson(8.0))
-    counts[at, rng.integers(0, 3, len(at))] = rng.choice(np.array([-32768, 32767], np.int16), len(at))
+    counts[at, rng.integers(0, 3, len(at))] = rng.choice(np.array([ADC_MIN, ADC_MAX], np.int16), len(at))
 
 
 # --- files -------------------------------------------------------------------------------------
