@@ -1,0 +1,155 @@
+"""Board profiles (boards/*.json) and their loader (firmware_py/board.py), on CPython and on
+MicroPython (the device reads them with its json module)."""
+import copy
+import json
+from pathlib import Path
+
+import pytest
+
+import firmware_py  # noqa: F401
+from firmware_py import board, features
+from firmware_py.drivers import adxl345, iis3dwb
+
+BOARDS = Path(__file__).parent.parent / "boards"
+NAMES = sorted(p.stem for p in BOARDS.glob("*.json"))
+
+
+def profile(name):
+    return json.loads((BOARDS / (name + ".json")).read_text())
+
+
+def test_the_required_boards_are_there():
+    families = {profile(n)["mcu"]["family"] for n in NAMES}
+    assert {"rp2040", "esp32s3", "host"} <= families and "desk" in NAMES
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_every_profile_loads_and_fits_its_budget(name):
+    p = board.load(str(BOARDS / (name + ".json")))
+    assert p["name"] == name
+    need = board.memory_need(p)
+    assert need <= p["heap_budget_bytes"]
+    assert p["window_n"] & (p["window_n"] - 1) == 0 and p["ring_windows"] >= 2
+
+
+def test_desk_profile_is_what_the_virtual_gateway_expects():
+    p = board.load(str(BOARDS / "desk.json"))
+    assert p["sample_rate_hz"] == 3200 and p["window_n"] == 512 and p["axes"] in (1, 3)
+    assert p["bus"]["type"] == "none" and p["sensor"]["model"] == "virtual"
+
+
+def test_memory_need_is_the_feature_core_plus_the_driver_buffers():
+    p = profile("pico_adxl345")
+    core = features.footprint_bytes(p["window_n"], p["axes"], p["ring_windows"], p["n_bands"])
+    drv = adxl345.footprint_bytes(p["fifo_watermark"], p["axes"])
+    assert board.memory_need(p) == core + drv + 1024
+    # The driver's share: 6-byte frame buffer, command and write bytes, a 32-frame read block.
+    assert drv == 6 + 3 + 2 * 3 * 32
+    assert iis3dwb.footprint_bytes(256, 1) == 7 * 256 + 5 + 2 * 512
+
+
+def test_memory_need_follows_the_feature_core(monkeypatch):
+    p = profile("desk")
+    monkeypatch.setattr(features, "footprint_bytes", lambda n, axes, ring, bands: 10 ** 6)
+    with pytest.raises(board.BoardError, match="needs 1001120 bytes of heap, more than "
+                                                "heap_budget_bytes 262144"):
+        board.check(p)
+
+
+def test_a_profile_over_its_budget_is_refused_with_the_numbers():
+    p = profile("esp32s3_iis3dwb")
+    p["ring_windows"] = 8
+    need = board.memory_need(p)
+    with pytest.raises(board.BoardError) as e:
+        board.check(p)
+    assert str(need) in str(e.value) and "131072" in str(e.value)
+
+
+def _set(path, value):
+    def edit(p):
+        d = p
+        for k in path[:-1]:
+            d = d[k]
+        if value is KeyError:
+            del d[path[-1]]
+        else:
+            d[path[-1]] = value
+    return edit
+
+
+BAD = [
+    (("window_n",), 1000, "power of two"),
+    (("window_n",), 32, "window_n must be an integer from 64"),
+    (("ring_windows",), 1, "ring_windows"),
+    (("axes",), 4, "axes"),
+    (("axes",), True, "axes"),                      # JSON true is not an integer
+    (("n_bands",), 0, "n_bands"),
+    (("sample_rate_hz",), KeyError, "sample_rate_hz"),
+    (("sample_rate_hz",), 3000, "no 3000 Hz"),      # ADXL345 Table 7 has no 3000 Hz
+    (("fifo_watermark",), 32, "1 to 31"),           # 32-level FIFO
+    (("mcu", "family"), "stm32", "mcu.family"),
+    (("mcu", "clock_hz"), 0, "mcu.clock_hz"),
+    (("bus", "type"), "uart", "bus.type"),
+    (("bus", "pins", "cs"), KeyError, "bus.pins.cs"),
+    (("sensor", "model"), "mma8451", "no driver"),
+    (("sensor", "counts_per_g"), 512, "does not match"),
+    (("sensor", "adc_min"), -2048, "does not match"),
+    (("led_pin",), "GP25", "led_pin"),
+    (("heap_budget_bytes",), 20000, "more than heap_budget_bytes"),
+]
+
+
+@pytest.mark.parametrize("path, value, reason", BAD, ids=[".".join(b[0]) + "=" + repr(b[1]) for b in BAD])
+def test_malformed_profiles_are_refused_with_the_reason(path, value, reason):
+    p = copy.deepcopy(profile("pico_adxl345"))
+    _set(path, value)(p)
+    with pytest.raises(board.BoardError, match=reason):
+        board.check(p)
+
+
+def test_iis3dwb_specific_checks():
+    p = profile("esp32s3_iis3dwb")
+    p["sample_rate_hz"] = 3200
+    with pytest.raises(board.BoardError, match="26667"):
+        board.check(p)
+    p = profile("esp32s3_iis3dwb")
+    p["sensor"]["counts_per_g"] = 2048
+    with pytest.raises(board.BoardError, match="2049 counts/g"):
+        board.check(p)
+
+
+def test_load_names_the_file(tmp_path):
+    bad = tmp_path / "x.json"
+    bad.write_text("{not json")
+    with pytest.raises(board.BoardError, match="x.json: not valid JSON"):
+        board.load(str(bad))
+    with pytest.raises(board.BoardError, match="cannot read"):
+        board.load(str(tmp_path / "missing.json"))
+    p = profile("desk")
+    p["axes"] = 0
+    bad.write_text(json.dumps(p))
+    with pytest.raises(board.BoardError, match="x.json: axes"):
+        board.load(str(bad))
+
+
+def test_profiles_load_on_micropython():
+    from host_tools.mpy_guest import run_guest
+    texts = {n: (BOARDS / (n + ".json")).read_text() for n in NAMES}
+    bad = profile("pico_adxl345")
+    bad["window_n"] = 1000
+    body = """
+import json
+from firmware_py import board
+texts = %r
+for name in sorted(texts):
+    p = board.check(json.loads(texts[name]))
+    emit([name, board.memory_need(p)])
+try:
+    board.check(json.loads(%r))
+    emit("accepted")
+except board.BoardError as e:
+    emit(str(e))
+""" % (texts, json.dumps(bad))
+    res = run_guest(body)
+    assert res.out[:-1] == [[n, board.memory_need(profile(n))] for n in NAMES]
+    assert "power of two" in res.out[-1]
