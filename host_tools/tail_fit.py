@@ -85,12 +85,13 @@ class TailFit:
 
         Uses the asymptotic covariance of the GPD maximum-likelihood estimates, per excess
         (1 + xi) [[1 + xi, -sigma], [-sigma, 2 sigma^2]] (Coles 2001, sec. 4.3; from memory,
-        valid for xi > -0.5), and the binomial variance zeta (1 - zeta) / N of zeta. Returns 0
-        at or below u, where the empirical distribution is used.
+        valid for xi > -0.5), and the binomial variance zeta (1 - zeta) / N of zeta. At or below
+        u, where the empirical distribution is used, the binomial error of that proportion.
         """
         y = x - self.u
         if y <= 0.0:
-            return 0.0
+            q = max(self.exceedance_prob(x), 1.0 / self.n_scores)
+            return math.sqrt((1.0 - q) / (q * self.n_scores))
         xi, s = self.shape, self.scale
         d_sigma = y / (s * (s + xi * y))
         if abs(xi) < _XI_ZERO:

@@ -105,6 +105,11 @@ def test_lenient_target_uses_empirical_quantile():
     # p (1 - p) = 0.2 -> p = 0.2764, above the tail fraction: the empirical quantile is used.
     assert ch.p_window == pytest.approx((1 - math.sqrt(1 - 0.8)) / 2, rel=1e-9)
     assert ch.threshold == pytest.approx(np.quantile(scores, 1 - ch.p_window))
+    # Binomial error of an empirical proportion: sd of log q is sqrt((1 - q) / (N q)).
+    q = ch.fit.exceedance_prob(ch.threshold)
+    assert ch.fit.log_exceedance_se(ch.threshold) == pytest.approx(math.sqrt((1 - q) / (1000 * q)))
+    lo, hi = ch.false_alerts_range_95
+    assert lo < 20 < hi
 
 
 def test_bad_inputs():
