@@ -336,8 +336,9 @@ class Detector:
         if self.state == al.IDLE:
             self._set(self._base_state(), al.R_STARTED)
         # the ISO guard: largest axis velocity
-        vel = -1
-        for a in range(self.axes):
+        vf = fi.F_VEL
+        vel = f[vf]
+        for a in range(1, self.axes):
             if f[a * pa + fi.F_VEL] > vel:
                 vel = f[a * pa + fi.F_VEL]
                 vf = a * pa + fi.F_VEL
