@@ -15,11 +15,11 @@ class MpackError(ValueError):
 
 
 class Writer:
-    """Encode into buf[0:cap]; self.pos is the number of bytes written so far."""
+    """Encode into buf[0:cap] (cap < 0: all of buf); self.pos counts the bytes written."""
 
-    def __init__(self, buf):
+    def __init__(self, buf, cap=-1):
         self.buf = buf
-        self.cap = len(buf)
+        self.cap = len(buf) if cap < 0 else cap
         self.pos = 0
 
     def reset(self):

@@ -44,6 +44,11 @@ def rollback_message(from_version, to_version):
     return ("edgevib rollback %d %d" % (from_version, to_version)).encode()
 
 
+def _le32(buf, end):
+    """The 4 bytes before end as a little-endian int (a long int on small ports: allocates)."""
+    return buf[end - 4] | (buf[end - 3] << 8) | (buf[end - 2] << 16) | (buf[end - 1] << 24)
+
+
 def _exists(path):
     try:
         os.stat(path)
@@ -200,10 +205,12 @@ class ParamStore:
         return self._pending
 
     def staged_crc(self):
-        """CRC-32 trailer of the staged image as an int (allocates a long on small ports)."""
-        s = self._stage
-        k = self._staged
-        return s[k - 4] | (s[k - 3] << 8) | (s[k - 2] << 16) | (s[k - 1] << 24)
+        """CRC-32 trailer of the staged image, as an int."""
+        return _le32(self._stage, self._staged)
+
+    def crc(self):
+        """CRC-32 trailer of the committed image, as an int."""
+        return _le32(self.image, len(self.image))
 
     def _write(self, path, data):
         with open(path, "wb") as f:

@@ -74,8 +74,7 @@ class Service:
         self.write = write
         self.rx = frames.Receiver(max_request)
         self._tx = bytearray(max_reply + 4)      # 4 spare bytes for the CRC
-        self._out = mpack.Writer(self._tx)
-        self._out.cap = max_reply
+        self._out = mpack.Writer(self._tx, max_reply)
         self._wire = bytearray(frames.wire_size(max_reply))
         self.chunk = max_reply - _MARGIN          # largest data chunk a read returns
         self._last_req = None
@@ -165,7 +164,6 @@ class Service:
         except _Missing as e:
             return self._err(seq, "missing", str(e))
         except Exception as e:   # a gateway fault must still produce a reply
-            self.errors += 1
             return self._err(seq, "fail", type(e).__name__ + ": " + str(e))
 
     def _err(self, seq, code, text):
@@ -186,8 +184,7 @@ class Service:
         r = self.gw.info()
         ps = self.gw.params
         r["param_version"] = ps.version
-        r["param_crc"] = (ps.image[-4] | (ps.image[-3] << 8) | (ps.image[-2] << 16)
-                          | (ps.image[-1] << 24))
+        r["param_crc"] = ps.crc()
         r["param_source"] = ps.source
         r["param_previous"] = ps.previous_version()
         return r

@@ -8,10 +8,11 @@
 # that one snapshot: the file is written under a temporary name and renamed into its slot.
 # Not per-window code: runs once per event and allocates.
 import os
+from micropython import const
 from firmware_py import mpack
 from firmware_py.crc32 import crc32_into, crc32_ok
 
-_META_CAP = 1024   # bytes for the header map; features of a few hundred fields fit
+_META_CAP = const(1024)   # bytes for the header map; features of a few hundred fields fit
 
 
 def parse(img):

@@ -1,6 +1,7 @@
 import random
 
 import msgpack
+import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 import firmware_py  # noqa: F401
@@ -207,6 +208,12 @@ arg_values = st.none() | st.booleans() | st.integers(-2**40, 2**40) | st.binary(
 FRAMES_TRIED = [0]
 
 
+@pytest.fixture(scope="module", autouse=True)
+def _report_fuzz_count():
+    yield
+    print(f"\ncommand handler fuzz: {FRAMES_TRIED[0]} frames tried in total")
+
+
 @settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(st.lists(st.tuples(st.sampled_from(CMDS),
                           st.dictionaries(st.sampled_from(["off", "len", "data", "size", "on",
@@ -265,8 +272,34 @@ def test_fuzz_flash_with_mutated_chunks(tmp_path):
         else:
             assert gw.params.version == 0
     FRAMES_TRIED[0] += tried
-    print(f"command handler fuzz: {FRAMES_TRIED[0]} frames so far; {applied}/60 flashes applied")
+    print(f"seeded flash fuzz: {tried} frames, {applied}/60 flashes applied")
     assert 0 < applied < 60
+
+
+def test_fuzz_random_byte_streams(tmp_path):
+    # Seeded: random bytes, random valid-CRC frames of random payloads, and random MessagePack
+    # maps; every reply must be a well-formed frame with a MessagePack map.
+    rng = random.Random(11)
+    svc, gw, out = make(tmp_path)
+    tried = 0
+    for _ in range(3000):
+        kind = rng.randrange(3)
+        if kind == 0:
+            data = bytes(rng.randrange(256) for _ in range(rng.randrange(1, 60))) + b"\x00"
+        elif kind == 1:
+            data = frame(bytes(rng.randrange(256) for _ in range(rng.randrange(1, 60))))
+        else:
+            m = {rng.choice(["seq", "cmd", "off", "data", "x"]): rng.choice(
+                [rng.randrange(-99, 99), rng.choice(CMDS), b"\x00\x01", None, [1], {"a": 1}])
+                for _ in range(rng.randrange(1, 5))}
+            data = frame(msgpack.packb(m, use_bin_type=True))
+        svc.receive(data)
+        tried += 1
+    got = replies(out)
+    assert got and all(isinstance(r, dict) and "ok" in r for r in got)
+    assert gw.applied == [] and gw.params.version == 0
+    FRAMES_TRIED[0] += tried
+    print(f"random stream fuzz: {tried} frames, {len(got)} replies")
 
 
 # ---- same bytes under MicroPython ----

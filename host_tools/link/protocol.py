@@ -4,6 +4,7 @@ are MessagePack through the reference `msgpack` library. Raises LinkError on any
 from __future__ import annotations
 
 import collections
+import os
 import time
 
 import msgpack
@@ -31,7 +32,9 @@ class Link:
         self.timeout_s = timeout_s
         self.retries = retries
         self._rx = frames.Receiver(MAX_PAYLOAD)
-        self._seq = 0
+        # Start at a random seq so a new session never repeats the device's last request
+        # bytes (the device would answer from its retry cache).
+        self._seq = int.from_bytes(os.urandom(2), "little") % 0xFFFF
         self._ready: collections.deque = collections.deque()   # decoded frames not yet taken
         self.pushes: collections.deque = collections.deque()   # unsolicited messages
         self.frames_sent = 0
