@@ -204,7 +204,7 @@ def write_wav(path: str | os.PathLike, counts: np.ndarray, sample_rate_hz: float
     The sidecar must hold m_s2_per_unit (m/s^2 per count here); sample_rate_hz is added (exact,
     while the WAV header holds it rounded to an integer). Each file goes to a temporary name in
     the same folder and is moved into place with os.replace, sidecar first: a reader never sees a
-    half-written file, and a WAV is never in place without its sidecar. Returns the WAV path.
+    half-written file, and a new WAV never appears without its sidecar. Returns the WAV path.
     """
     p = Path(path)
     if p.suffix.lower() != ".wav":
