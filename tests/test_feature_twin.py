@@ -1,0 +1,57 @@
+"""The numpy twin is bit-identical to firmware_py (under CPython) on every feature and power bin."""
+import numpy as np
+from hypothesis import HealthCheck, given, settings, strategies as st
+
+from host_tools.feature_twin import FeatureTwin, TwinConfig
+from tests.feature_helpers import device_features
+from tests.signals import adversarial, random_windows
+
+CONFIGS = [
+    dict(n=64, fs=1000, bands=((1, 4), (4, 32)), adc=(-32768, 32767), vel=(2, 400)),
+    dict(n=512, fs=3200, bands=((2, 9), (9, 40), (40, 256)), adc=(-32768, 32767), vel=(10, 1000)),
+    dict(n=1024, fs=26667, bands=((1, 100),), adc=(-2048, 2047), vel=(10, 1000)),
+    dict(n=2048, fs=6667, bands=(), adc=(-32768, 32767), vel=(10, 1000)),
+]
+
+
+def _both(x, cfg, axes=1):
+    dev, fc = device_features(x, n=cfg["n"], fs=cfg["fs"], bands=cfg["bands"], adc=cfg["adc"],
+                              vel=cfg["vel"])
+    tw = FeatureTwin(TwinConfig(n=cfg["n"], fs_hz=cfg["fs"], adc_min=cfg["adc"][0],
+                                adc_max=cfg["adc"][1], bands=cfg["bands"], vel_lo_hz=cfg["vel"][0],
+                                vel_hi_hz=cfg["vel"][1]), axes=axes)
+    feats, power = tw.features(x, keep_power=True)
+    return dev, feats, power, fc
+
+
+def test_adversarial_windows_bit_identical():
+    for cfg in CONFIGS:
+        x = np.concatenate(list(adversarial(cfg["n"]).values()))
+        dev, twin, power, fc = _both(x, cfg)
+        assert np.array_equal(dev, twin), cfg
+        assert np.array_equal(np.array(fc.p), power[-1, 0])   # spectrum of the last window
+
+
+def test_random_windows_bit_identical_three_axes():
+    cfg = CONFIGS[1]
+    x = random_windows(cfg["n"], 3 * 10, seed=5).reshape(3, -1).T.copy()
+    dev, twin, _, _ = _both(x, cfg, axes=3)
+    assert np.array_equal(dev, twin)
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(seed=st.integers(0, 2**32 - 1), which=st.integers(0, len(CONFIGS) - 1))
+def test_hypothesis_random_signals_bit_identical(seed, which):
+    cfg = CONFIGS[which]
+    x = random_windows(cfg["n"], 3, seed).ravel()
+    dev, twin, _, _ = _both(x, cfg)
+    assert np.array_equal(dev, twin)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.integers(-32768, 32767), min_size=64, max_size=64))
+def test_hypothesis_arbitrary_samples_bit_identical(samples):
+    cfg = CONFIGS[0]
+    x = np.array(samples, dtype=np.int16)
+    dev, twin, _, _ = _both(x, cfg)
+    assert np.array_equal(dev, twin)
