@@ -130,8 +130,12 @@ class Writer:
             for x in obj:
                 self.pack(x)
         elif isinstance(obj, dict):
+            try:
+                keys = sorted(obj)
+            except TypeError:
+                raise MpackError("mpack: map keys must be all str or all int")
             self.map_head(len(obj))
-            for k in sorted(obj):
+            for k in keys:
                 self.pack(k)
                 self.pack(obj[k])
         else:

@@ -66,7 +66,8 @@ class ParamStore:
     """The committed set (self.params, self.version, self.image) and the staging area.
 
     board, fs_hz, n, axes describe this gateway; a set built for others is refused. factory is
-    the encoded MessagePack body used when no valid file exists (first boot). key, if given, is
+    the encoded MessagePack body used when no valid file exists (first boot); it must itself be
+    a valid set for this gateway. key, if given, is
     the site key: only signed sets with a higher version are accepted, and rollback is signed.
     """
 

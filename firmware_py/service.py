@@ -25,7 +25,8 @@ The gateway object this handler drives must provide:
     request_reboot()  reset once the reply has been sent (must not reset inside the call)
 
 While streaming, the gateway calls push(msg) with a dict (for example its status()) to send
-an unsolicited {push: "features", ...} frame.
+an unsolicited {push: "features", ...} frame. Handling a request and push() allocate (dicts,
+strings, the reply copy): call them from the main loop, outside heap-locked per-window code.
 """
 from micropython import const
 from firmware_py import frames, mpack
@@ -116,9 +117,10 @@ class Service:
         w.reset()
         try:
             w.pack(msg)
-        except mpack.MpackError:
+        except mpack.MpackError as e:
             w.reset()
-            w.pack({"seq": msg.get("seq"), "ok": False, "err": "fail", "msg": "reply too large"})
+            w.pack({"seq": msg.get("seq"), "ok": False, "err": "fail",
+                    "msg": "reply not sent: " + str(e)})
         k = frames.encode(self._tx, w.pos, self._wire)
         return bytes(self._wire[0:k])
 

@@ -167,6 +167,20 @@ def test_errors_are_replies(tmp_path):
         assert isinstance(r["msg"], str) and r["msg"]
 
 
+def test_unencodable_gateway_result_is_an_error_reply(tmp_path):
+    svc, gw, out = make(tmp_path)
+    gw.status = lambda: {"state": "normal", "score": 1.5}          # floats are not device values
+    [r] = call(svc, out, req(1, "status"))
+    assert r == {"seq": 1, "ok": False, "err": "fail",
+                 "msg": "reply not sent: mpack: cannot encode float"}
+    gw.status = lambda: {"state": "normal", 3: 1}
+    [r] = call(svc, out, req(2, "status"))
+    assert r["err"] == "fail" and "all str or all int" in r["msg"]
+    gw.acknowledge = lambda: 1 / 0
+    [r] = call(svc, out, req(3, "ack"))
+    assert r["err"] == "fail" and r["msg"].startswith("ZeroDivisionError")
+
+
 def test_retry_gets_cached_reply_without_running_twice(tmp_path):
     svc, gw, out = make(tmp_path)
     a = call(svc, out, req(3, "ack"))
