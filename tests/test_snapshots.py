@@ -73,3 +73,30 @@ def test_reads_in_chunks(tmp_path):
     parts = b"".join(r.read(0, off, 100) for off in range(0, size, 100))
     assert parts == (tmp_path / "ev0.bin").read_bytes()
     assert snapshots.parse(parts)[0]["kind"] == "alarm"
+
+
+def test_cut_while_saving_loses_only_that_snapshot(tmp_path):
+    r = ring(tmp_path)
+    r.save("alert", 1, [1], window(1))
+    img = (tmp_path / "ev0.bin").read_bytes()
+    for cut in range(0, len(img), 97):
+        (tmp_path / "ev.tmp").write_bytes(img[:cut])          # a save cut before its rename
+        (tmp_path / "ev1.bin").write_bytes(img[:cut])         # or a slot file torn on FAT
+        assert [e["id"] for e in ring(tmp_path).list()] == [0]
+    again = ring(tmp_path)
+    assert again.save("alarm", 2, [2], window(2)) == 1
+    assert [e["id"] for e in again.list()] == [0, 1]
+
+
+def test_parse_on_micropython(tmp_path):
+    from host_tools.mpy_guest import run_guest
+    r = ring(tmp_path)
+    r.save("alarm", 77, [5, -6], window(2))
+    img = (tmp_path / "ev0.bin").read_bytes()
+    res = run_guest(f"""
+from firmware_py.snapshots import parse
+from array import array
+meta, raw = parse(bytes.fromhex({img.hex()!r}))
+emit([meta['kind'], meta['t'], meta['features'], list(array('h', raw))[:5], len(raw)])
+""")
+    assert res.out[0] == ["alarm", 77, [5, -6], window(2).tolist()[:5], N * AXES * 2]
