@@ -4,7 +4,7 @@ cost per FIFO block in guest fuel (deterministic), with a minimal bus so the mod
 is left out."""
 import pytest
 
-import chip_support
+from tests import chip_support
 from host_tools.mpy_guest import run_guest
 
 chip_support.stage_models_in_guest()

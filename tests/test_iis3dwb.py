@@ -8,7 +8,7 @@ from array import array
 
 import pytest
 
-import chip_support  # noqa: F401
+from tests import chip_support  # noqa: F401  (puts chipmodels on the path)
 import firmware_py  # noqa: F401
 from chipmodels import iis3dwb as chip
 from chipmodels.bus import FakeMachine, FakeSPI
@@ -130,3 +130,17 @@ def test_open_sensor_from_the_esp32s3_profile():
     m.advance_us(10_000)
     out = array('h', [0] * 512)
     assert d.read_into(out) == 256 and d.axes == 1
+
+
+def test_model_fifo_mode_stops_when_full():
+    # FIFO_MODE = 001: the FIFO stops collecting when full; the oldest frames are kept.
+    m, _ = make()
+    m._write_reg(chip.FIFO_CTRL4, 0x00)     # bypass empties it
+    m._write_reg(chip.FIFO_CTRL4, 0x01)
+    m.k = 0
+    m.advance_ns(600 * 37_500)
+    assert m.count == 512 and m.dropped == 88
+    m.start(chip.FIFO_DATA_OUT_TAG, 1)
+    assert m.rd() == 0x02 << 3               # TAG_SENSOR = accelerometer
+    x = m.rd() | m.rd() << 8
+    assert x == m.sample(0, 0) & 0xFFFF and m.count == 511
