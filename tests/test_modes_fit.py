@@ -12,7 +12,7 @@ def _datasets():
     rng = np.random.default_rng(7)
     blobs, _ = make_blobs(2500, centers=6, n_features=5, cluster_std=2.5, random_state=1)
     aniso = blobs @ rng.normal(size=(5, 5))
-    uniform = rng.random((2000, 4))
+    uniform = rng.random((1200, 4))
     return {"overlapping blobs": blobs, "anisotropic": aniso, "uniform": uniform}
 
 
