@@ -279,3 +279,17 @@ def test_signed_image_layout(tmp_path):
     assert img[5:5 + len(b)] == b
     assert img[5 + len(b):-4] == hmac.new(KEY, img[:5 + len(b)], "sha256").digest()
     assert int.from_bytes(img[-4:], "little") == binascii.crc32(img[:-4])
+
+
+def test_rename_leaving_both_names(tmp_path):
+    # A cut inside a rename on FAT can leave the data under both names; boot must accept both.
+    for src, dst, expect in (("cur", "old", 2), ("new", "cur", 3)):
+        root = tmp_path / f"{src}{dst}"
+        root.mkdir()
+        st = prepared(root)
+        if src == "new":
+            (root / "params.new").write_bytes(build_image(body(3)))
+        (root / f"params.{dst}").write_bytes((root / f"params.{src}").read_bytes())
+        booted = store(root)
+        assert booted.version == expect
+        assert not (root / "params.new").exists()
