@@ -169,3 +169,25 @@ def test_model_bypass_mode_overrun():
     x = m.rd() | m.rd() << 8
     m.stop()
     assert x == m.sample(1, 0) & 0xFFFF and m._int_source() & 0x81 == 0
+
+
+def test_open_sensor_on_i2c():
+    import copy
+    import json
+    from pathlib import Path
+    from firmware_py import board
+    p = json.loads((Path(__file__).parent.parent / "boards" / "pico_adxl345.json").read_text())
+    p = copy.deepcopy(p)
+    p["bus"] = {"type": "i2c", "id": 0, "pins": {"scl": 5, "sda": 4}, "frequency": 400_000,
+                "addr": chip.I2C_ADDR}
+    p["sample_rate_hz"] = 800
+    board.check(p)
+    m = chip.ADXL345Model(SIG)
+    mach = FakeMachine(m, chip.I2C_ADDR)
+    d = open_sensor(p, mach, m.ticks_us)
+    assert [c for c in mach.calls if c[0] == "I2C"] == [("I2C", 0, 5, 4, 400_000)]
+    assert m.regs[chip.BW_RATE] == 0x0D          # Table 7: 800 Hz
+    m.advance_us(20_000)
+    out = array('h', [0] * 96)
+    assert d.read_into(out) == 16
+    assert list(out[:48]) == [m.sample(k, a) for k in range(16) for a in range(3)]
