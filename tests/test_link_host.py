@@ -10,7 +10,7 @@ from firmware_py.snapshots import SnapshotRing, parse
 from host_tools.errors import LinkError
 from host_tools.link import Client, DeviceRefused, Link, open_transport
 from host_tools.link.transport import PtyTransport, memory_pair
-from test_service import BOARD, FakeGateway, body
+from tests.test_service import BOARD, FakeGateway, body
 
 KEY = b"brackwater site key 01"
 
