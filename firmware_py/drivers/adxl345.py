@@ -101,10 +101,10 @@ class ADXL345:
         if self._read8(_DEVID) != _DEVID_VALUE:
             raise OSError("ADXL345 not found: DEVID is not 0xE5")
         rc = rate_code(rate_hz)
-        gc_ = range_code(range_g)
-        if rc < 0 or gc_ < 0 or not 1 <= watermark < FIFO_FRAMES:
+        rng = range_code(range_g)
+        if rc < 0 or rng < 0 or not 1 <= watermark < FIFO_FRAMES:
             raise ValueError("ADXL345 cannot run this rate, range or watermark")
-        self._format = _FULL_RES | gc_
+        self._format = _FULL_RES | rng
         regs.write(_POWER_CTL, 0)                 # standby while configuring (datasheet advice)
         regs.write(_DATA_FORMAT, self._format)
         regs.write(_BW_RATE, rc)
