@@ -1,0 +1,44 @@
+"""Run the feature core on the real MicroPython of the test suite (host_tools.mpy_guest)."""
+import binascii
+
+import numpy as np
+
+from host_tools.mpy_guest import run_guest
+
+
+def guest_features(windows, n, fs, bands=(), adc=(-32768, 32767), vel=(10, 1000), axes=1):
+    """Feed each window (int16, n frames x axes) to a FeatureCore in the guest, stepping with the
+    heap locked. Returns (features per window, whether every step ran without allocating,
+    core heap bytes from gc.mem_alloc around construction).
+
+    All work sits in functions and module level stays shallow, so gc.collect() from module
+    level is safe in this guest (host_tools.mpy_guest explains the collector's blind spot).
+    """
+    blob = b"".join(np.asarray(w, dtype=np.int16).tobytes() for w in windows)
+    body = f"""
+import array, binascii, gc
+from firmware_py.features import FeatureCore
+def build():
+    return FeatureCore({n}, {axes}, {fs}, {adc[0]}, {adc[1]}, bands={list(bands)!r}, vel_lo_hz={vel[0]}, vel_hi_hz={vel[1]})
+def feed(fc):
+    data = array.array('h', binascii.unhexlify({binascii.hexlify(blob).decode()!r}))
+    src = array.array('h', bytes(2 * {n * axes}))
+    clean = True
+    for w in range(len(data) // {n * axes}):
+        for i in range({n * axes}):
+            src[i] = data[w * {n * axes} + i]
+        fc.ring.push(src, {n})
+        ok, stepped = locked(fc.step)
+        clean = clean and ok and stepped
+        emit(list(fc.feats))
+    return clean
+gc.collect()
+a0 = gc.mem_alloc()
+fc = build()
+gc.collect()
+heap = gc.mem_alloc() - a0
+emit([feed(fc), heap])
+"""
+    res = run_guest(body)
+    *feats, (clean, heap) = res.out
+    return np.array(feats), clean, heap
