@@ -57,7 +57,7 @@ def kmeans(x: np.ndarray, k: int, n_init: int = 10, max_iter: int = 300, tol: fl
     start with the least inertia (sum of squared distances to the assigned centre)."""
     x = np.asarray(x, dtype=float)
     rng = np.random.default_rng(seed)
-    best = (None, None, np.inf)
+    best: tuple[np.ndarray, np.ndarray, float] = (np.empty((0, x.shape[1])), np.empty(0, int), np.inf)
     scale = max(float(x.var(0).mean()), 1e-300)
     for _ in range(n_init):
         c = _plusplus(x, k, rng)
@@ -114,7 +114,7 @@ def choose_k(x: np.ndarray, k_max: int = dm.KMAX, seed: int = 0) -> tuple[int, d
         scores[k] = silhouette(x[sample], lab[sample])
     if not scores or max(scores.values()) <= SILHOUETTE_MIN:
         return 1, scores
-    return max(scores, key=scores.get), scores
+    return max(scores, key=lambda k: scores[k]), scores
 
 
 def transformed(feats: np.ndarray, params: dict) -> np.ndarray:

@@ -56,5 +56,5 @@ def test_choose_k_finds_separated_modes(k):
 def test_choose_k_keeps_one_mode_for_a_single_gaussian():
     # a single isotropic Gaussian has no substantial structure (silhouette well under 0.25 is
     # expected for it; Kaufman and Rousseeuw's reading, from memory)
-    x = np.random.default_rng(3).normal(size=(1500, 6))
+    x = np.random.default_rng(3).normal(size=(800, 6))
     assert mf.choose_k(x)[0] == 1
