@@ -7,7 +7,7 @@ Integer-only and allocation-free in step(), ack() and learn() (checked under hea
 MicroPython); every array is made once, in the constructor, from the parameter set.
 
 API
-    det = Detector(params)          # params: dict, keys in PARAM_DOC below (default_params())
+    det = Detector(params)          # params: dict, keys in PARAM_KEYS below (default_params())
     state = det.step(feats, t_s, dropped)
         feats   array('i') laid out as firmware_py.feature_index (axes x per_axis(n_bands))
         t_s     int, seconds (any epoch, < 2**30); only copied into events
@@ -45,44 +45,46 @@ CHI_Q8 = (996, 1099, 1176, 1241, 1299, 1351, 1399, 1444, 1487, 1527, 1565, 1601,
 
 _BIG = const(0x3FFFFFFF)
 
-PARAM_DOC = {
-    "det_axes": "axes in the feature vector",
-    "det_bands": "band powers per axis",
-    "det_feat": "flat feature indices scored (<= 64), axis * per_axis + field",
-    "det_base_mean_q4": "baseline mean per scored feature, log2 Q8 units, Q4",
-    "det_base_sd_q4": "baseline standard deviation per scored feature, log2 Q8 units, Q4",
-    "det_modes": "number of operating modes k (0 = no model: ISO guard only)",
-    "det_mode_c_q8": "k x d centroids, mode-major, Q8 baseline spreads",
-    "det_mode_s_q8": "k x d per-mode spreads, Q8 baseline spreads",
-    "det_thr_alert_q8": "score at or over which a window counts toward an alert, Q8 spreads",
-    "det_thr_alarm_q8": "score at or over which a window counts toward an alarm, Q8 spreads",
-    "det_hyst_q8": "clear threshold as a fraction of det_thr_alert_q8, Q8 (205 = 0.8)",
-    "det_k": "windows over threshold, of the last det_n, that raise",
-    "det_n": "persistence window length (<= 30)",
-    "det_dwell": "least windows in alert or alarm before it can clear",
-    "det_idle_rms_q8": "broadband floor: machine stopped when max axis F_RMS is under it, Q8 counts",
-    "det_startup_n": "windows held off after the machine starts (no scoring, no learning)",
-    "det_iso_group": "ISO 10816-3 machine group (1 or 2), for the record",
-    "det_iso_found": "foundation, 'rigid' or 'flexible', for the record",
-    "det_iso_bounds": "zone boundaries A/B, B/C, C/D in F_VEL units (counts/s Q16)",
-    "det_flat_rms_q8": "sensor flatline: any axis F_RMS under this, Q8 counts",
-    "det_clip_max": "sensor clipping: any axis F_CLIP over this, samples per window",
-    "det_dc_lo_q8": "per axis, least healthy F_MEAN, Q8 counts",
-    "det_dc_hi_q8": "per axis, greatest healthy F_MEAN, Q8 counts",
-    "det_drop_max": "sensor: more dropped samples than this in one window is a fault",
-    "det_fault_k": "consecutive bad (good) windows to enter (leave) sensor_fault",
-    "det_sd_floor_q4": "least baseline spread, log2 Q8 units, Q4",
-    "det_s_floor_q8": "least per-mode spread, Q8 baseline spreads",
-    "det_learn_base_n": "learning: windows for the baseline (phase 1, <= 65535)",
-    "det_learn_mode_n": "learning: windows for the operating modes (phase 2, <= 65535)",
-    "det_learn_radius_q8": "learning: a window whose r.m.s. distance per feature from every mode exceeds this opens a new mode, Q8 baseline spreads",
-    "det_learn_min_n": "learning: modes with fewer windows are dropped",
-    "det_learn_margin_q8": "learning: alert threshold = CHI_Q8[d-1] * margin, Q8",
-    "det_learn_alarm_q8": "learning: alarm threshold = alert threshold * this, Q8",
-    "det_drift_shift": "slow drift: baseline mean follows with weight 2**-shift per normal window; 0 off",
-    "det_drift_max_q8": "slow drift: most the mean may move from its trained value, Q8 baseline spreads",
-    "det_event_n": "capacity of the event ring",
-}
+# The detector's keys in the parameter set (formats and defaults: docs/detector.md). Kept as
+# names only: on the device, comments cost nothing and strings cost RAM.
+PARAM_KEYS = (
+    "det_axes",             # axes in the feature vector
+    "det_bands",            # band powers per axis
+    "det_feat",             # flat feature indices scored (<= 64), axis * per_axis + field
+    "det_base_mean_q4",     # baseline mean per scored feature, log2 Q8 units, Q4
+    "det_base_sd_q4",       # baseline standard deviation per scored feature, log2 Q8 units, Q4
+    "det_modes",            # number of operating modes k (0 = no model: ISO guard only)
+    "det_mode_c_q8",        # k x d centroids, mode-major, Q8 baseline spreads
+    "det_mode_s_q8",        # k x d per-mode spreads, Q8 baseline spreads
+    "det_thr_alert_q8",     # score at or over which a window counts toward an alert, Q8 spreads
+    "det_thr_alarm_q8",     # score at or over which a window counts toward an alarm, Q8 spreads
+    "det_hyst_q8",          # clear threshold as a fraction of det_thr_alert_q8, Q8 (205 = 0.8)
+    "det_k",                # windows over threshold, of the last det_n, that raise
+    "det_n",                # persistence window length (<= 30)
+    "det_dwell",            # least windows in alert or alarm before it can clear
+    "det_idle_rms_q8",      # idle when the largest axis F_RMS is under this, Q8 counts
+    "det_startup_n",        # windows held off after the machine starts (no scoring, no learning)
+    "det_iso_group",        # ISO 10816-3 machine group (1 or 2), for the record
+    "det_iso_found",        # foundation, 'rigid' or 'flexible', for the record
+    "det_iso_bounds",       # zone boundaries A/B, B/C, C/D in F_VEL units (counts/s Q16)
+    "det_flat_rms_q8",      # sensor flatline: any axis F_RMS under this, Q8 counts
+    "det_clip_max",         # sensor clipping: any axis F_CLIP over this, samples per window
+    "det_dc_lo_q8",         # per axis, least healthy F_MEAN, Q8 counts
+    "det_dc_hi_q8",         # per axis, greatest healthy F_MEAN, Q8 counts
+    "det_drop_max",         # sensor: more dropped samples than this in one window is a fault
+    "det_fault_k",          # consecutive bad (good) windows to enter (leave) sensor_fault
+    "det_sd_floor_q4",      # least baseline spread, log2 Q8 units, Q4
+    "det_s_floor_q8",       # least per-mode spread, Q8 baseline spreads
+    "det_learn_base_n",     # learning: windows for the baseline (phase 1, <= 65535)
+    "det_learn_mode_n",     # learning: windows for the operating modes (phase 2, <= 65535)
+    "det_learn_radius_q8",  # learning: new-mode radius, r.m.s. per feature, Q8 spreads
+    "det_learn_min_n",      # learning: modes with fewer windows are dropped
+    "det_learn_margin_q8",  # learning: alert threshold = CHI_Q8[d-1] * margin, Q8
+    "det_learn_alarm_q8",   # learning: alarm threshold = alert threshold * this, Q8
+    "det_drift_shift",      # drift: step 2**-shift per normal window; 0 off
+    "det_drift_max_q8",     # drift: bound from the trained mean, Q8 spreads
+    "det_event_n",          # capacity of the event ring
+)
 
 
 def default_feature_list(axes, n_bands):
@@ -143,7 +145,7 @@ class Detector:
     """See the module docstring."""
 
     def __init__(self, p):
-        for key in PARAM_DOC:
+        for key in PARAM_KEYS:
             if key not in p:
                 raise ValueError("parameter set lacks " + key)
         axes = self.axes = _int(p, "det_axes", 1, 8)
@@ -191,8 +193,6 @@ class Detector:
         self.drift_shift = _int(p, "det_drift_shift", 0, 20)
         self.drift_max = _int(p, "det_drift_max_q8", 0, 1 << 10)
         self.events = EventRing(_int(p, "det_event_n", 1, 4096))
-        self.iso_group = p["det_iso_group"]
-        self.iso_found = p["det_iso_found"]
         self.tab = log2_table()
         self.u = array("i", bytes(4 * d))
         self.z = array("i", bytes(4 * d))
@@ -463,12 +463,13 @@ class Detector:
         self._set(self._base_state(), al.R_LEARN_DONE)
 
     def export(self):
-        """The model and thresholds in use, as parameter keys (for the host to pull)."""
+        """The model and thresholds in use (baseline means as drifted), as parameter keys."""
         m = self.model
         kd = m.k * self.d
         return {
             "det_base_mean_q4": list(m.mean_q4), "det_base_sd_q4": list(m.sd_q4),
-            "det_modes": m.k, "det_mode_c_q8": list(m.c_q8)[:kd], "det_mode_s_q8": list(m.s_q8)[:kd],
+            "det_modes": m.k, "det_mode_c_q8": list(m.c_q8)[:kd],
+            "det_mode_s_q8": list(m.s_q8)[:kd],
             "det_thr_alert_q8": self.thr_alert, "det_thr_alarm_q8": self.thr_alarm,
             "det_idle_rms_q8": self.idle_floor,
         }

@@ -54,7 +54,10 @@ class ModeModel:
         self.k = k
 
     def standardise(self, u, z):
-        """z[j] = (u[j] - mean) / sd, Q8 spreads, clamped to +-Z_LIM. |(u<<4 - mean) << 8| < 2**27."""
+        """z[j] = (u[j] - mean) / sd, Q8 spreads, clamped to +-Z_LIM.
+
+        mean_q4 may sit up to 4 spreads past U_LIM << 4 after drift, so the shifted difference
+        stays under 2**28."""
         for j in range(self.d):
             z[j] = clamp((((u[j] << 4) - self.mean_q4[j]) << 8) // self.sd_q4[j], Z_LIM)
 

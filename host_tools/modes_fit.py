@@ -11,10 +11,12 @@ from array import array
 import numpy as np
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
+from firmware_py import feature_index as fi
 from firmware_py import modes as dm
 from firmware_py.detector import CHI_Q8
 from firmware_py.welford import Welford
 from firmware_py.fixmath import sqrt_pow2
+from firmware_py.tables import log2_table
 
 # Kaufman and Rousseeuw's reading of the average silhouette ("Finding Groups in Data", 1990;
 # from memory): 0.25 or less means no substantial structure, so one mode is kept.
@@ -57,7 +59,8 @@ def kmeans(x: np.ndarray, k: int, n_init: int = 10, max_iter: int = 300, tol: fl
     start with the least inertia (sum of squared distances to the assigned centre)."""
     x = np.asarray(x, dtype=float)
     rng = np.random.default_rng(seed)
-    best: tuple[np.ndarray, np.ndarray, float] = (np.empty((0, x.shape[1])), np.empty(0, int), np.inf)
+    best: tuple[np.ndarray, np.ndarray, float] = (np.empty((0, x.shape[1])), np.empty(0, int),
+                                                  np.inf)
     scale = max(float(x.var(0).mean()), 1e-300)
     for _ in range(n_init):
         c = _plusplus(x, k, rng)
@@ -119,8 +122,6 @@ def choose_k(x: np.ndarray, k_max: int = dm.KMAX, seed: int = 0) -> tuple[int, d
 
 def transformed(feats: np.ndarray, params: dict) -> np.ndarray:
     """Rows of raw feature vectors -> the device's log-scale features u (log2 Q8), by its code."""
-    from firmware_py import feature_index as fi
-    from firmware_py.tables import log2_table
     idx = array("i", params["det_feat"])
     pa = fi.per_axis(params["det_bands"])
     logf = array("b", [1 if dm.is_log_field(i % pa) else 0 for i in idx])
@@ -141,10 +142,14 @@ def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | 
     The baseline is the device's fixed-point Welford; z is standardised by the device's code; the
     modes are k-means in z (Q8) with k chosen by the silhouette; each mode's spread is its
     members' standard deviation per feature, floored at det_s_floor_q8. The alert threshold is
-    the chi-square tail point of the device (CHI_Q8, p = 1e-4) times the margin.
+    the chi-square tail point of the device (CHI_Q8, p = 1e-4) times the margin. The idle floor
+    is a quarter of the quietest window's broadband level, as the device's own learning sets it.
     """
     u = transformed(feats, params)
     d = u.shape[1]
+    pa = fi.per_axis(params["det_bands"])
+    rms = np.asarray(feats)[:, fi.F_RMS::pa][:, :params["det_axes"]]
+    idle = max(int(params["det_idle_rms_q8"]), int(rms.max(1).min()) >> 2)
     w = Welford(d)
     for row in u:
         for j in range(d):
@@ -159,7 +164,10 @@ def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | 
         model.standardise(array("i", row.tolist()), zb)
         z[r] = zb
     k, _ = choose_k(z, k_max, seed)
-    centers, lab, _ = kmeans(z, k, seed=seed) if k > 1 else (z.mean(0)[None], np.zeros(len(z), int), 0.0)
+    if k > 1:
+        centers, lab, _ = kmeans(z, k, seed=seed)
+    else:
+        centers, lab = z.mean(0)[None], np.zeros(len(z), int)
     floor = params["det_s_floor_q8"]
     spread = np.array([z[lab == m].std(0) if (lab == m).any() else np.zeros(d) for m in range(k)])
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
@@ -172,4 +180,5 @@ def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | 
         "det_mode_s_q8": [int(v) for v in np.clip(np.rint(spread), floor, dm.Z_LIM).ravel()],
         "det_thr_alert_q8": int(alert),
         "det_thr_alarm_q8": int((alert * params["det_learn_alarm_q8"]) >> 8),
+        "det_idle_rms_q8": idle,
     }
