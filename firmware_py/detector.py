@@ -135,9 +135,13 @@ def _int(p, key, lo, hi):
 
 
 def _ints(p, key, n):
+    """p[key] as array('i') of n ints, each a small int (reading a larger one would allocate)."""
     v = p[key]
     if len(v) != n:
         raise ValueError("%s must hold %d ints" % (key, n))
+    for x in v:
+        if not isinstance(x, int) or not -_BIG <= x <= _BIG:
+            raise ValueError("%s must hold ints within +-(2**30 - 1)" % key)
     return array("i", v)
 
 

@@ -194,9 +194,10 @@ def test_export_round_trip():
     assert [x[1:] for x in a] == [x[1:] for x in b]
 
 
-@pytest.mark.parametrize("key", ["det_k", "det_iso_bounds"])
-def test_bad_parameters(key):
+@pytest.mark.parametrize("key,value", [("det_k", 0), ("det_iso_bounds", [5, 3, 1]),
+                                       ("det_dc_hi_q8", [1 << 30] * AXES), ("det_feat", [999])])
+def test_bad_parameters(key, value):
     p = params()
-    p[key] = 0 if key == "det_k" else [5, 3, 1]
+    p[key] = value
     with pytest.raises(ValueError):
         Detector(p)
