@@ -74,13 +74,21 @@ class FeatureCore:
         self.windows = 0
 
     def step(self):
-        """Process the oldest waiting window of every axis into self.feats; False if none waits."""
+        """Process the oldest waiting window of every axis into self.feats and free its slot;
+        False if no window waits."""
+        if not self.process():
+            return False
+        self.ring.release()
+        return True
+
+    def process(self):
+        """As step(), but the window stays in the ring (ring.window(a) still reads it) until
+        ring.release(): the caller may save it, e.g. as an event snapshot."""
         ring = self.ring
         if not ring.ready():
             return False
         for a in range(self.axes):
             self._axis(ring.window(a), a * self.per)
-        ring.release()
         self.windows += 1
         return True
 
