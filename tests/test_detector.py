@@ -264,3 +264,35 @@ def test_missing_parameter_is_refused():
         Detector(p)
     with pytest.raises(ValueError):
         Detector(params(det_mode_c_q8=[0, 0]))
+
+
+def test_fixed_point_score_against_a_float_reference():
+    # reference: the same formulas in numpy float64. Error budget per term, in mode spreads:
+    # z is floored to 1/256 baseline spread and the spread is at least 1/4 of one, so 1/64;
+    # the quotient and the square add 1/256 each. Checked as |score - ref| <= 0.02 * ref + 0.1.
+    rng = np.random.default_rng(21)
+    pa = fi.per_axis(8)
+    for trial in range(60):
+        d = int(rng.integers(1, 9))
+        k = int(rng.integers(1, 9))
+        feat = [fi.F_BAND0 + j for j in range(d)]
+        mean_q4 = rng.integers(-4000 * 16, 4000 * 16, d)
+        sd_q4 = rng.integers(20 * 16, 600 * 16, d)
+        c = rng.integers(-1500, 1500, (k, d))
+        s = rng.integers(64, 1024, (k, d))
+        p = default_params(1, 8, VEL_PER_MM_S)
+        p.update(det_feat=feat, det_base_mean_q4=mean_q4.tolist(), det_base_sd_q4=sd_q4.tolist(),
+                 det_modes=k, det_mode_c_q8=c.ravel().tolist(), det_mode_s_q8=s.ravel().tolist(),
+                 det_startup_n=0, det_idle_rms_q8=1000, det_thr_alert_q8=1 << 16,
+                 det_thr_alarm_q8=1 << 16)
+        det = Detector(p)
+        f = array("i", bytes(4 * pa))
+        f[fi.F_RMS] = 4000
+        u = np.clip(np.rint(mean_q4 / 16 + rng.normal(0, 3, d) * sd_q4 / 16), -8191, 8191)
+        f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", u.astype(int).tolist())
+        det.step(f, trial, 0)
+        z = np.clip((u - mean_q4 / 16) / (sd_q4 / 16), -32, 32)
+        dist = np.sqrt((((z - c / 256) / (s / 256)) ** 2).sum(1))
+        ref = dist.min()
+        assert abs(det.score / 256 - ref) <= 0.02 * np.sqrt(d) + d / 256 / max(ref, 1)
+        assert dist[det.mode] <= ref + 0.04 * np.sqrt(d)   # nearest, up to a near tie
