@@ -14,6 +14,7 @@ from host_tools.errors import EdgevibError
 # name -> module under host_tools.commands
 COMMANDS = {
     "bench": "bench",
+    "check": "check",
     "demo": "demo",
 }
 
