@@ -27,8 +27,10 @@ R_DROP = const(11)         # sensor: too many dropped samples
 R_SENSOR_OK = const(12)    # sensor healthy again on k consecutive windows
 R_LEARN_START = const(13)  # learning commanded
 R_LEARN_DONE = const(14)   # learning finished, new model in use
+R_LEARN_STOP = const(15)   # learning stopped by command, old model kept
 REASON_NAMES = ("", "score", "iso_c", "iso_d", "clear", "ack", "stopped", "started", "flatline",
-                "clipping", "dc_offset", "dropped", "sensor_ok", "learn_start", "learn_done")
+                "clipping", "dc_offset", "dropped", "sensor_ok", "learn_start", "learn_done",
+                "learn_stop")
 
 _DWELL_MAX = const(1 << 29)
 

@@ -16,7 +16,7 @@ API
       det.mode (nearest mode, -1 none), det.feat (flat feature index that drove the score or the
       guard or the fault, -1 none), det.zone (ISO zone 0..3 = A..D), det.bb (broadband level).
     det.ack(t_s)       acknowledge a latched alarm; det.learn(t_s) start learning (False if
-                       refused: alarm latched or sensor fault)
+                       refused: alarm latched or sensor fault); det.stop_learning(t_s) abandon it
     det.events         EventRing (firmware_py/event_ring.py): i = det.events.pop() -> slot or -1;
                        read det.events.t[i], old[i], new[i], reason[i], mode[i], feat[i], score[i]
     det.export()       the learned model as parameter keys (allocates; not for the window path)
@@ -263,6 +263,14 @@ class Detector:
         self.min_bb = _BIG
         self._set(al.LEARNING, al.R_LEARN_START)
         return True
+
+    def stop_learning(self, t_s):
+        """Abandon learning; the model in use before learn() stays. Returns the state."""
+        self.t = t_s
+        if self.learning:
+            self.learning = False
+            self._set(self._base_state(), al.R_LEARN_STOP)
+        return self.state
 
     # -- the window path ------------------------------------------------------------------------
     def _sensor_bad(self, f, dropped):

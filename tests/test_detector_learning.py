@@ -160,6 +160,20 @@ def test_learning_refused_or_abandoned():
     assert det.learn(10) is False                # refused while an alarm is latched
 
 
+def test_stop_learning_keeps_the_old_model():
+    rng = np.random.default_rng(8)
+    det = learned(rng)
+    before = det.export()
+    det.learn(5000)
+    feed(det, pump(450, 1, rng), 5001)               # baseline done, modes half learned
+    assert det.stop_learning(6000) == al.NORMAL
+    assert det.export() == before
+    ev = [(det.events.old[i], det.events.new[i], det.events.reason[i])
+          for i in iter(det.events.pop, -1)]
+    assert ev[-1] == (al.LEARNING, al.NORMAL, al.R_LEARN_STOP)
+    assert det.stop_learning(6001) == al.NORMAL        # not learning: nothing happens
+
+
 def test_slow_drift_is_followed_within_its_bound_and_frozen_out_of_normal():
     rng = np.random.default_rng(6)
     det = learned(rng, det_drift_shift=6, det_drift_max_q8=128)

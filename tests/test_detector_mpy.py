@@ -83,6 +83,10 @@ def run_all():
             det.learn(i)
         if i == 1100:
             det.ack(i)
+        if i == 1150:
+            det.learn(i)
+        if i == 1200:
+            det.stop_learning(i)
         det.step(f, i, dropped[i])
         out[4 * i] = det.state
         out[4 * i + 1] = det.score
@@ -130,7 +134,8 @@ def test_same_scores_and_events_as_cpython(both):
     assert {0, 2, 3, 4, 5} <= states and (1 in states or 2 in states)
     assert guest[4] == 0                      # ring large enough: nothing lost
     reasons = [e[3] for e in host[2]]
-    assert {1, 5, 6, 7, 9, 10, 12, 13, 14} <= set(reasons)   # score, ack, stop, start, faults...
+    # score, ack, stopped, started, clipping, dc offset, sensor ok, learn start, done and stop
+    assert {1, 5, 6, 7, 9, 10, 12, 13, 14, 15} <= set(reasons)
 
 
 EXTREMES = """
