@@ -79,8 +79,14 @@ class CheckSettings:
     adc_max: int = 32767
     expected_m_s2_per_count: float | None = None
     board_name: str | None = None
-    zones_mm_s: tuple[float, float, float] = tuple(b / 100 for b in iso_zones.DEFAULT_BOUNDS_CMM[(2, "rigid")])
-    zones_source: str = "ISO 10816-3 group 2, rigid foundation (default table, from memory)"
+    zones_mm_s: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    zones_source: str = ""
+
+    def __post_init__(self) -> None:
+        if not self.zones_source:   # default: the shared table, group 2 (15-300 kW), rigid
+            bounds, source = iso_zone_bounds(2, "rigid")
+            object.__setattr__(self, "zones_mm_s", bounds)
+            object.__setattr__(self, "zones_source", source)
 
 
 def iso_zone_bounds(group: int, foundation: str) -> tuple[tuple[float, float, float], str]:
@@ -88,8 +94,8 @@ def iso_zone_bounds(group: int, foundation: str) -> tuple[tuple[float, float, fl
     key = (group, foundation)
     if key not in iso_zones.DEFAULT_BOUNDS_CMM:
         raise EdgevibError(f"no default ISO 10816-3 table for group {group}, {foundation} foundation")
-    bounds = tuple(b / 100 for b in iso_zones.DEFAULT_BOUNDS_CMM[key])
-    return bounds, f"ISO 10816-3 group {group}, {foundation} foundation (default table, from memory)"
+    ab, bc, cd = (b / 100 for b in iso_zones.DEFAULT_BOUNDS_CMM[key])   # table: mm/s x 100
+    return (ab, bc, cd), f"ISO 10816-3 group {group}, {foundation} foundation (default table, from memory)"
 
 
 def settings_from_board(path: str | Path | None, **zones: Any) -> CheckSettings:
@@ -345,15 +351,17 @@ def line_names(rpm: float | None, vanes: int | None) -> dict[int, str]:
 
 
 def _name(f: float, rpm: float | None, vanes: int | None, df: float) -> str:
-    """Name of a line at f Hz: the nearest nameable order within one bin (or the speed
-    tolerance, if larger), else "unidentified"; without rpm, "rpm unknown"."""
+    """Name of a line at f Hz: the nearest nameable order within half a bin (the interpolated
+    frequency of a steady line is good to about a tenth of a bin) or the speed tolerance, if
+    larger; else "unidentified" (a whole bin would reach the neighbouring orders of a slow shaft,
+    and a bearing line between them would take their name). Without rpm, "rpm unknown"."""
     if not rpm:
         return "rpm unknown"
     f1 = rpm / 60.0
     best, name = math.inf, "unidentified"
     for order, label in line_names(rpm, vanes).items():
         d = abs(f - order * f1)
-        if d <= max(df, SPEED_REL_TOL * order * f1) and d < best:
+        if d <= max(0.5 * df, SPEED_REL_TOL * order * f1) and d < best:
             best, name = d, label
     return name
 

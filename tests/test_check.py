@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 
 from host_tools.commission import CheckSettings, _zone_item, check_recording, longest_run, settings_from_board
+from host_tools.commands.check import plot_png
 from host_tools.demo_scenario import write_scenario
 from host_tools.recording import Recording, write_wav
 
@@ -182,6 +183,11 @@ def test_flatline_of_a_constant_signal():
     assert r.overall == "problem"
 
 
+def test_plot_of_a_dead_single_axis_recording_is_still_a_png():
+    r = check_recording(_rec(np.full(4 * N, -7)), DESK)
+    assert plot_png(r)[:8] == b"\x89PNG\r\n\x1a\n"          # PNG signature (PNG specification)
+
+
 def test_a_dropout_shorter_than_a_window_is_found():
     x = np.arange(20 * N) % 7 * 50 - 150                      # no two neighbours equal
     x[1000:1100] = 777
@@ -278,6 +284,7 @@ def test_bad_input_is_one_line_exit_2_and_nothing_written(demo_wav, tmp_path):
         ([good, "--plot", out / "missing" / "a.png"], "does not exist"),
         ([good, "--json", good.with_suffix(".json")], "would overwrite"),
         ([good, "--plot", out / "a.jpg"], "PNG"),
+        ([good, "--zones", "4.5,2.8,1.4", "--json", out / "a.json"], "three rising numbers"),
     ]
     for args, words in cases:
         res = _cli(*args)

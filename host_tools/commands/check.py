@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import io
 import json
+import math
 from pathlib import Path
 
 import numpy as np
@@ -154,33 +155,42 @@ def plot_png(r: CheckResult) -> bytes:
     fig.suptitle(f"{title}\n{who + ' - ' if who else ''}{speed}; {r.windows} windows of {r.n} at "
                  f"{r.sample_rate_hz:g} Hz; overall: {r.overall}", fontsize=11, color=_INK)
     for ax, sp, colour in zip(axs[:, 0], r.spectra, _AXIS_COLOURS * 2):
-        amp = np.sqrt(sp.ms_per_bin * HANN_ENBW_BINS)
-        ax.plot(f[k0:], amp[k0:], color=colour, lw=1.1)
-        floor = np.sqrt(sp.floor_ms_per_bin * HANN_ENBW_BINS)
-        if floor > 0:
-            ax.axhline(floor, color=_MUTED, lw=0.9, ls="--")
-            ax.text(f[k0] * 1.04, floor / 1.15, f"noise floor {sp.floor_density / G_M_S2 * 1e6:.0f} ug/sqrt(Hz)",
-                    color=_MUTED, fontsize=8, ha="left", va="top")
-        _mark_lines(ax, sp.lines)
-        ax.set_xscale("log")
-        ax.set_yscale("log")
-        top = max(float(amp[k0:].max()), floor, 1e-12)
-        ax.set_ylim(max(floor / 4, top * 1e-4) if floor > 0 else top * 1e-4, top * 40)   # room for labels
-        ax.set_xlim(f[k0], f[-1])
-        ax.set_ylabel(f"{sp.axis}: m/s^2 r.m.s.", color=_INK)
-        ax.grid(True, which="major", color=_GRID, lw=0.8)
-        ax.grid(True, which="minor", color=_GRID, lw=0.4)
-        for side in ("top", "right"):
-            ax.spines[side].set_visible(False)
-        for side in ("left", "bottom"):
-            ax.spines[side].set_color(_MUTED)
-        ax.tick_params(colors=_INK, labelsize=8)
+        _panel(ax, f, k0, sp, colour)
     axs[-1, 0].set_xlabel("frequency, Hz", color=_INK)
     fig.tight_layout()
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=110, facecolor="white")
     plt.close(fig)
     return buf.getvalue()
+
+
+def _panel(ax, f: np.ndarray, k0: int, sp, colour: str) -> None:
+    """One axis' spectrum from bin k0 up, its noise floor and lines, on log-log axes."""
+    amp = np.sqrt(sp.ms_per_bin[k0:] * HANN_ENBW_BINS)
+    floor = math.sqrt(sp.floor_ms_per_bin * HANN_ENBW_BINS)
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlim(f[k0], f[-1])
+    if amp.max() > 0:
+        ax.plot(f[k0:], amp, color=colour, lw=1.1)
+        top = float(amp.max())
+        ax.set_ylim(max(floor / 4, top * 1e-4), top * 40)   # headroom for the labels
+    else:
+        ax.set_ylim(1e-3, 1.0)
+        ax.text(0.5, 0.5, "flat output: no spectrum", transform=ax.transAxes, ha="center", color=_MUTED)
+    if floor > 0:
+        ax.axhline(floor, color=_MUTED, lw=0.9, ls="--")
+        ax.text(f[k0] * 1.04, floor / 1.15, f"noise floor {sp.floor_density / G_M_S2 * 1e6:.0f} ug/sqrt(Hz)",
+                color=_MUTED, fontsize=8, ha="left", va="top")
+    _mark_lines(ax, sp.lines)
+    ax.set_ylabel(f"{sp.axis}: m/s^2 r.m.s.", color=_INK)
+    ax.grid(True, which="major", color=_GRID, lw=0.8)
+    ax.grid(True, which="minor", color=_GRID, lw=0.4)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    for side in ("left", "bottom"):
+        ax.spines[side].set_color(_MUTED)
+    ax.tick_params(colors=_INK, labelsize=8)
 
 
 def _mark_lines(ax, lines) -> None:
