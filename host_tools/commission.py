@@ -18,7 +18,7 @@ The check is advisory: it is no machinery protection system, and an all-clear is
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -39,6 +39,7 @@ DEFAULT_N = 512
 VEL_BAND_HZ = (10, 1000)   # broadband velocity band of ISO 10816 for machines above 600 r/min (FACTS.md)
 ISO_MIN_RPM = 600          # below this the ISO 10816-3 band starts at 2 Hz (FACTS.md)
 G_M_S2 = units.STANDARD_GRAVITY_M_S2
+INT16_MIN, INT16_MAX = -32768, 32767   # full scale when no board says otherwise: the counts' own limits
 
 # Hann window (periodic, as tables.hann): equivalent noise bandwidth 1.5 bins (common practice).
 HANN_ENBW_BINS = 1.5
@@ -75,8 +76,8 @@ class CheckSettings:
 
     n: int = DEFAULT_N
     expected_rate_hz: float | None = None
-    adc_min: int = -32768
-    adc_max: int = 32767
+    adc_min: int = INT16_MIN
+    adc_max: int = INT16_MAX
     expected_m_s2_per_count: float | None = None
     board_name: str | None = None
     zones_mm_s: tuple[float, float, float] = (0.0, 0.0, 0.0)
@@ -162,6 +163,9 @@ class AxisSpectrum:
 
 @dataclass
 class CheckResult:
+    """Everything the check found: the items with verdicts, the averaged spectra (freq_hz: bin
+    centres, Hz), the settings it judged against (with the full scale it actually used)."""
+
     recording: str
     sample_rate_hz: float
     n: int
@@ -214,6 +218,9 @@ def check_recording(rec: Recording, settings: CheckSettings, rpm: float | None =
         raise EdgevibError(f"{rec.path}: the check handles 1 to 3 axes, the file holds {n_axes}")
     if rec.n_frames < n:
         raise EdgevibError(f"{rec.path}: {rec.n_frames} frames is shorter than one window of {n} samples")
+    if not _scale_matches(rec, settings):
+        # another sensor or range than the board's: its full-scale codes are unknown here
+        settings = replace(settings, adc_min=INT16_MIN, adc_max=INT16_MAX)
     fs = int(round(rec.sample_rate_hz))
     try:
         twin = FeatureTwin(TwinConfig(n, fs, settings.adc_min, settings.adc_max, (), *VEL_BAND_HZ), n_axes)
@@ -228,8 +235,8 @@ def check_recording(rec: Recording, settings: CheckSettings, rpm: float | None =
     means = rec.counts.astype(np.float64).mean(axis=0) * rec.m_s2_per_count
     spectra = []
     for a, name in enumerate(rec.axes):
-        f = feats[:, a * per:(a + 1) * per]
-        peak = f[:, F_PEAK] >> 8                     # counts (F_PEAK is Q8)
+        fa = feats[:, a * per:(a + 1) * per]
+        peak = fa[:, F_PEAK] >> 8                     # counts (F_PEAK is Q8)
         live = peak > 0
         if live.any():
             ms_w = _window_ms(power[:, a], peak, live, rec.m_s2_per_count)
@@ -240,7 +247,7 @@ def check_recording(rec: Recording, settings: CheckSettings, rpm: float | None =
         density = math.sqrt(floor_ms / df)   # power normalisation: noise reads its PSD x df per bin
         lines = _lines(ms, df, rpm, vane_count, max_lines)
         spectra.append(AxisSpectrum(name, ms, density, floor_ms, band, lines))
-        vel = units.velocity_mm_s(float(np.median(f[live, F_VEL])), rec.m_s2_per_count) if live.any() else 0.0
+        vel = units.velocity_mm_s(float(np.median(fa[live, F_VEL])), rec.m_s2_per_count) if live.any() else 0.0
         items += [
             _offset_item(name, means[a], rec.m_s2_per_count, settings),
             _clip_item(name, rec.counts[:, a], settings),
@@ -381,17 +388,23 @@ def _rate_item(rec: Recording, s: CheckSettings) -> Item:
                 data)
 
 
+def _scale_matches(rec: Recording, s: CheckSettings) -> bool:
+    """True when the recording's counts scale is the board sensor's (or there is no board)."""
+    e = s.expected_m_s2_per_count
+    return e is None or abs(rec.m_s2_per_count / e - 1.0) <= SCALE_REL_TOL
+
+
 def _scale_item(rec: Recording, s: CheckSettings) -> Item:
     value = f"{rec.m_s2_per_count * 1000:.4g} mm/s^2 per count"
     data = {"m_s2_per_count": rec.m_s2_per_count, "expected_m_s2_per_count": s.expected_m_s2_per_count}
     if s.expected_m_s2_per_count is None:
         return Item("counts scale", None, "ok", value, "no board profile to compare with", data)
-    rel = rec.m_s2_per_count / s.expected_m_s2_per_count - 1.0
-    if abs(rel) <= SCALE_REL_TOL:
+    if _scale_matches(rec, s):
         return Item("counts scale", None, "ok", value, f"matches the sensitivity of board {s.board_name}", data)
+    rel = rec.m_s2_per_count / s.expected_m_s2_per_count - 1.0
     return Item("counts scale", None, "check", value,
                 f"board {s.board_name} expects {s.expected_m_s2_per_count * 1000:.4g} ({rel:+.0%}): "
-                "wrong range setting or sidecar scale", data)
+                "wrong range setting or sidecar scale; clipping judged at the int16 limits", data)
 
 
 def _length_item(rec: Recording, windows: int, n: int) -> Item:

@@ -174,6 +174,14 @@ def test_clipping_percentage_of_a_known_number_of_clipped_samples():
     assert _item(check_recording(_rec(x2), DESK), "clipping").verdict == "check"
 
 
+def test_another_sensors_scale_is_flagged_and_its_counts_are_not_judged_at_the_boards_full_scale():
+    x = np.rint(np.random.default_rng(6).standard_normal(20 * N) * 3000)   # beyond +-4096 often
+    r = check_recording(_rec(x, scale=SCALE / 16), DESK)
+    assert _item(r, "counts scale", None).verdict == "check"
+    assert _item(r, "clipping").data["clipped_samples"] == 0   # int16 limits, none reached
+    assert _item(check_recording(_rec(x), DESK), "clipping").verdict == "problem"
+
+
 def test_flatline_of_a_constant_signal():
     r = check_recording(_rec(np.full(10 * N, 123)), DESK)
     it = _item(r, "flatline")
