@@ -1,7 +1,8 @@
 """The `edgevib` command line: one table of sub-commands, each a module in host_tools.commands.
 
 Each command module defines HELP (one line), add_arguments(parser) and run(args) -> int.
-Modules are imported only when their command runs, so start-up stays quick.
+Only the module of the command being run is imported (all of them for the top-level help), so
+start-up stays quick and one command's import trouble cannot break another.
 """
 from __future__ import annotations
 
@@ -19,10 +20,14 @@ COMMANDS = {
 }
 
 
-def _parser() -> argparse.ArgumentParser:
+def _parser(argv: list[str]) -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="edgevib", description="Vibration condition monitoring tools.")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    wanted = next((a for a in argv if not a.startswith("-")), None)
     for name, modname in COMMANDS.items():
+        if wanted in COMMANDS and name != wanted:
+            sub.add_parser(name)
+            continue
         mod = importlib.import_module("host_tools.commands." + modname)
         sp = sub.add_parser(name, help=mod.HELP, description=mod.HELP)
         mod.add_arguments(sp)
@@ -31,7 +36,8 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    args = _parser().parse_args(argv)
+    argv = sys.argv[1:] if argv is None else argv
+    args = _parser(argv).parse_args(argv)
     try:
         return int(args._run(args) or 0)
     except EdgevibError as e:
