@@ -6,6 +6,12 @@
 # Per window (window()): FeatureCore.process, the raw copy and Detector.step allocate nothing and
 # may run with the heap locked. Saving a snapshot and answering the link allocate; poll() does
 # those after the window, outside any lock.
+#
+# Raw stream (raw_stream(True)): poll() pushes each window's raw counts with its index w and
+# `gap`, the frames lost just before it (ring full, or the ring emptied by apply_params), so a
+# host can tell contiguous windows from spliced ones. Frames lost when the ring is full fall just
+# before the first window not yet in it: index windows + slots, kept in self.gaps at that index
+# modulo slots + 1 (every index from the next window to that one is distinct there).
 import array
 import gc
 
@@ -26,6 +32,7 @@ class Gateway:
         self.ticks_ms = ticks_ms
         self.clock_base = 0          # wall-clock seconds at ticks 0 (set_clock)
         self.streaming = False
+        self.raw_on = False          # push each window's raw counts (raw_stream)
         self.reboot_wanted = False
         self.pending_kind = None     # "alert"/"alarm": a snapshot to save after this window
         self.service = None          # set by the application: pushes the stream
@@ -37,12 +44,23 @@ class Gateway:
         mv = memoryview(self.raw)
         self.raw_views = [mv[a * n:(a + 1) * n] for a in range(axes)]
         self.raw_valid = False
+        self.gaps = array.array('i', bytes(4 * (profile["ring_windows"] + 1)))   # frames
+        self.raw_gap = 0             # frames lost just before the last processed window
+        self.core = None
         self.apply_params(store.params)
 
     # ---- samples and windows ----
     def feed(self, src, frames):
         """Interleaved int16 frames from the sensor FIFO into the ring (drops are counted)."""
-        self.core.ring.push(src, frames)
+        ring = self.core.ring
+        lost = ring.push(src, frames)
+        if lost:
+            self._lose(self.windows + ring.slots, lost)
+
+    def _lose(self, w, frames):
+        """Note frames lost just before window index w (allocation-free)."""
+        g = self.gaps
+        g[w % len(g)] += frames
 
     def window(self):
         """Run one waiting window through features and detector; False if none waits.
@@ -57,6 +75,10 @@ class Gateway:
             self.raw_views[a][0:core.n] = ring.window(a)
         ring.release()
         self.raw_valid = True
+        g = self.gaps
+        k = self.windows % len(g)
+        self.raw_gap = g[k]
+        g[k] = 0
         d = ring.dropped - self.dropped_seen
         self.dropped_seen = ring.dropped
         det = self.det
@@ -76,6 +98,11 @@ class Gateway:
                 self.snapshots.save(kind, self.now_s(), self.core.feats, self.raw)
             if self.streaming and self.service is not None:
                 self.service.push(self.status())
+            if self.raw_on and self.service is not None:
+                t = self.ticks_ms()
+                self.service.push_data("raw", {"w": self.windows - 1, "gap": self.raw_gap,
+                                               "t_s": self.now_s(), "ms": t % 1000},
+                                       bytes(self.raw))
 
     def now_s(self):
         return self.clock_base + self.ticks_ms() // 1000
@@ -98,14 +125,29 @@ class Gateway:
     def stream(self, on):
         self.streaming = bool(on)
 
+    def raw_stream(self, on):
+        """Start (True) or stop (False) pushing raw windows; returns the next window's index."""
+        self.raw_on = bool(on)
+        return self.windows
+
     def apply_params(self, p):
         """Rebuild feature core and detector for parameter set p (after boot, commit, rollback).
 
-        Allocates; the old buffers become garbage, collected here rather than mid-window.
+        Allocates; the old buffers become garbage, collected here rather than mid-window. Frames
+        waiting in the old ring are lost: the raw stream reports them before the next window.
         """
-        self.core = None
-        self.det = None
-        gc.collect()
+        old = self.core
+        if old is not None:
+            lost = old.ring.filled
+            g = self.gaps
+            for i in range(len(g)):
+                lost += g[i]
+                g[i] = 0
+            self._lose(self.windows, lost)
+        old = None
+        if hasattr(self, "core"):
+            del self.core, self.det   # free the old buffers first: the heap holds one set, not two
+            gc.collect()
         self.core, self.det = params_mod.build(p, self.profile)
         self.dropped_seen = 0
 
