@@ -12,6 +12,8 @@ physical units per window, mean square per bin in (m/s^2)^2 = 4/3 * 2**(-2u) * p
 m_s2_per_count**2, where u is the window's normalisation shift (features._axis: the peak |x -
 mean| is shifted so its top bit is bit 13) and 4/3 the Hann power normalisation the band powers
 use; summed over a band this is the band's mean square. The check averages these over windows.
+Spectra and velocity come from the whole windows (a trailing part window is left out, as on the
+device); offset, clipping and runs of identical samples from every sample.
 
 The check is advisory: it is no machinery protection system, and an all-clear is no guarantee.
 """
@@ -291,7 +293,8 @@ def _noise_floor(ms_w: np.ndarray, df: float) -> tuple[float, tuple[float, float
     ms_w: mean square per bin of each live window. The quietest part is the block (1/16 of the
     spectrum, at least 8 bins) with the lowest median, so a line inside a block does not lift it.
     Choosing the lowest of many noisy blocks would bias the level low, so the block is chosen on
-    the even windows and measured on the odd ones (independent data; one window does both). For
+    the even windows and measured on the odd ones (independent data; a single window does both,
+    which reads low, and the length item asks for a longer recording then). For
     noise, each bin of a window's power-normalised periodogram is exponentially distributed about
     its mean, so the average of W windows is gamma distributed with shape W and its median sits at
     gammaincinv(W, 1/2) / W of the mean (common practice); the median is corrected by that factor.

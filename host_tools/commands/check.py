@@ -36,7 +36,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--board", metavar="PROFILE.json",
                    help=f"board profile to compare with (default {DEFAULT_BOARD.name} when present)")
     p.add_argument("--rpm", type=float, help="shaft speed in r/min (overrides the sidecar)")
-    p.add_argument("--vanes", type=int, help="impeller vane count (overrides the sidecar)")
+    p.add_argument("--vanes", type=int, metavar="N", help="impeller vane count (overrides the sidecar)")
     p.add_argument("--group", type=int, choices=(1, 2), default=2,
                    help="ISO 10816-3 machine group: 1 large, 2 medium, 15-300 kW (default 2)")
     p.add_argument("--foundation", choices=("rigid", "flexible"), default="rigid",
