@@ -126,6 +126,10 @@ def test_noise_floor_against_the_sensor_figure_in_the_sidecar():
     low = check_recording(_rec(x, sensor_noise_ug_rthz=[density_ug / 5]), DESK)
     assert _item(low, "noise floor").verdict == "check"
     assert "x the sensor's figure" in _item(low, "noise floor").explanation
+    # no figure: about 3900 ug/sqrt(Hz) here, far above a MEMS sensor's own (from memory)
+    assert _item(check_recording(_rec(x), DESK), "noise floor").verdict == "check"
+    quiet = np.rint(np.random.default_rng(4).standard_normal(64 * N) * 4.0)   # about 390 ug/sqrt(Hz)
+    assert _item(check_recording(_rec(quiet), DESK), "noise floor").verdict == "ok"
 
 
 # --- ISO zone ---------------------------------------------------------------------------------------
