@@ -17,6 +17,7 @@ The gateway object this handler drives must provide:
     status()          -> {state: str, mode: int, features: [int], windows: int,
                           dropped: int, events: int}
     stream(on)        start (True) or stop (False) pushing a features message per window
+    raw_stream(on)    -> int: start/stop pushing each window's raw counts; the next window's index
     apply_params(p)   run the detector on params dict p (called after commit and rollback)
     acknowledge()     -> bool: clear a latched alarm; True if one was latched
     learn(on)         start (True) or stop (False) learning this pump's normal
@@ -25,7 +26,8 @@ The gateway object this handler drives must provide:
     request_reboot()  reset once the reply has been sent (must not reset inside the call)
 
 While streaming, the gateway calls push(msg) with a dict (for example its status()) to send
-an unsolicited {push: "features", ...} frame. Handling a request and push() allocate (dicts,
+an unsolicited {push: "features", ...} frame, and push_data("raw", fields, blob) to send a blob
+too large for one frame as {push: "raw", ...fields, total, off, data} chunks. Handling a request and push() allocate (dicts,
 strings, the reply copy): call them from the main loop, outside heap-locked per-window code.
 """
 from micropython import const
@@ -90,6 +92,7 @@ class Service:
             "rollback": self._rollback, "ack": self._ack, "learn": self._learn,
             "event_list": self._event_list, "event_read": self._event_read,
             "capture": self._capture, "clock": self._clock, "reboot": self._reboot,
+            "raw": self._raw_stream,
         }
 
     # ---- bytes in, frames out ----
@@ -106,11 +109,25 @@ class Service:
                 self.errors += 1
                 self._send({"seq": None, "ok": False, "err": "frame", "msg": _ERR_TEXT[k]})
 
-    def push(self, msg):
-        """Send an unsolicited message: msg (a dict) plus {push: "features"}."""
+    def push(self, msg, kind="features"):
+        """Send an unsolicited message: msg (a dict) plus {push: kind}."""
         m = dict(msg)
-        m["push"] = "features"
+        m["push"] = kind
         self._send(m)
+
+    def push_data(self, kind, msg, blob):
+        """Push bytes blob in frames that fit the reply buffer: each is msg plus {push: kind,
+        total: len(blob), off, data: at most self.chunk bytes}, in order."""
+        total = len(blob)
+        off = 0
+        while off < total:
+            m = dict(msg)
+            m["push"] = kind
+            m["total"] = total
+            m["off"] = off
+            m["data"] = blob[off:off + self.chunk]
+            self._send(m)
+            off += self.chunk
 
     def _encode(self, msg):
         w = self._out
@@ -197,6 +214,9 @@ class Service:
     def _stream(self, req):
         self.gw.stream(_arg(req, "on", bool))
         return {}
+
+    def _raw_stream(self, req):
+        return {"w": self.gw.raw_stream(_arg(req, "on", bool))}
 
     def _param_read(self, req):
         img = self.gw.params.image
