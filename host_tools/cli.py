@@ -17,6 +17,12 @@ COMMANDS = {
     "bench": "bench",
     "check": "check",
     "demo": "demo",
+    "emulate": "emulate",
+    "events": "events",
+    "flash": "flash",
+    "monitor": "monitor",
+    "record": "record",
+    "rollback": "rollback",
 }
 
 

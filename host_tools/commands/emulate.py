@@ -1,0 +1,56 @@
+"""`edgevib emulate --recording REC.wav [--board B] [--speed X] [--state-dir DIR] [--loop]`:
+a virtual gateway on a pseudo-terminal (host_tools/virtual_gateway.py).
+
+The first line on stdout is the port to give the other commands (`--port`). The parameter files
+and event snapshots live in --state-dir (a temporary folder, removed at exit, by default), so
+stopping and restarting on the same folder is a power cut. At the end of the recording the
+gateway idles, still answering on the link; --loop starts the recording again instead. Runs
+until Ctrl-C or SIGTERM.
+"""
+from __future__ import annotations
+
+import argparse
+import shutil
+import signal
+import sys
+import tempfile
+
+from host_tools.device_link import read_key
+from host_tools.virtual_gateway import DESK_BOARD, VirtualGateway, load_profile
+
+HELP = "run a virtual gateway fed from a recording, on a pseudo-terminal"
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--recording", required=True, metavar="REC.wav", help="recording with its sidecar")
+    p.add_argument("--board", metavar="B.json", help=f"board profile (default {DESK_BOARD.name})")
+    p.add_argument("--speed", type=float, default=1.0,
+                   help="real time multiple; 0 = as fast as possible (default 1)")
+    p.add_argument("--state-dir", metavar="DIR",
+                   help="folder for the parameter store and snapshots (default: a temporary one)")
+    p.add_argument("--loop", action="store_true", help="repeat the recording instead of idling at its end")
+    p.add_argument("--key-file", metavar="K", help="site key the virtual gateway holds (its bytes are the key)")
+
+
+def run(args: argparse.Namespace) -> int:
+    profile = load_profile(args.board)
+    key = read_key(args.key_file)
+    temp = None if args.state_dir else tempfile.mkdtemp(prefix="edgevib-emulate-")
+    try:
+        vg = VirtualGateway(args.recording, profile, args.state_dir or temp, speed=args.speed,
+                            loop=args.loop, key=key)
+        print(vg.port, flush=True)
+        print(f"edgevib emulate: {profile['name']} gateway on {vg.port}, {vg.recording.duration_s:.1f} s "
+              f"of {vg.recording.path.name} at speed {args.speed:g}, state in {args.state_dir or temp}",
+              file=sys.stderr, flush=True)
+        if vg.saturated:
+            print(f"edgevib emulate: {vg.saturated} samples beyond the converter's range are saturated, "
+                  "as the board's sensor would read them", file=sys.stderr, flush=True)
+        signal.signal(signal.SIGTERM, lambda *_: vg.stop_soon())
+        signal.signal(signal.SIGINT, lambda *_: vg.stop_soon())
+        vg.run()
+        vg.stop()
+    finally:
+        if temp:
+            shutil.rmtree(temp, ignore_errors=True)
+    return 0

@@ -1,0 +1,101 @@
+"""`edgevib events --port PORT --out DIR`: pull every event snapshot from a gateway as WAV +
+sidecar.
+
+Each snapshot (firmware_py/snapshots.py) holds the raw window that raised an alert or alarm and
+its features. It becomes DIR/event_<id>_<kind>.wav with a sidecar carrying kind, t (the gateway's
+clock when it was saved), the raw features, a readable per-axis summary in physical units, and
+t0_s (the window's start: t less one window, to the second of the gateway's clock). Files are
+written whole (host_tools.recording.write_wav); a snapshot overwritten on the gateway between
+listing and reading is reported and skipped.
+"""
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+import firmware_py  # noqa: F401
+from firmware_py import feature_index as fi
+from firmware_py.snapshots import parse
+from host_tools import units
+from host_tools.device_link import committed_params, connected, m_s2_per_count, raw_frames
+from host_tools.errors import EdgevibError, LinkError
+from host_tools.link import DeviceRefused
+from host_tools.recording import write_wav
+
+HELP = "pull the gateway's event snapshots as WAV + sidecar"
+AXIS_NAMES = ("x", "y", "z")
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    p.add_argument("--out", required=True, metavar="DIR", help="folder for the snapshots (made if missing)")
+
+
+def summary(features: list[int], axes: int, scale: float) -> dict:
+    """Per-axis velocity (mm/s r.m.s.), r.m.s. and peak (m/s^2), crest and kurtosis."""
+    per = len(features) // axes
+    out = {}
+    for a in range(axes):
+        f = features[a * per:(a + 1) * per]
+        out[AXIS_NAMES[a] if a < len(AXIS_NAMES) else f"a{a}"] = {
+            "vel_mm_s": round(units.velocity_mm_s(f[fi.F_VEL], scale), 4),
+            "rms_m_s2": round(units.accel_m_s2(f[fi.F_RMS], scale), 5),
+            "peak_m_s2": round(units.accel_m_s2(f[fi.F_PEAK], scale), 5),
+            "crest": round(units.ratio(f[fi.F_CREST]), 4),
+            "kurtosis": round(units.ratio(f[fi.F_KURT]), 4),
+        }
+    return out
+
+
+def save_event(out: Path, img: bytes, scale: float, board: str) -> Path:
+    """Write one snapshot file image as WAV + sidecar in folder out; returns the WAV path."""
+    try:
+        meta, raw = parse(img)
+    except ValueError as e:
+        raise LinkError(f"snapshot read from the gateway is damaged ({e})") from None
+    n, axes, fs = meta["n"], meta["axes"], meta["fs_hz"]
+    sidecar = {
+        "m_s2_per_unit": scale,
+        "sample_rate_hz": float(fs),
+        "axes": list(AXIS_NAMES[:axes]) + [f"a{i}" for i in range(3, axes)],
+        "t0_s": meta["t"] - n / fs,
+        "source": "edgevib events",
+        "board": board,
+        "event_id": meta["id"],
+        "kind": meta["kind"],
+        "t": meta["t"],
+        "features": list(meta["features"]),
+        "features_summary": summary(list(meta["features"]), axes, scale),
+    }
+    return write_wav(out / f"event_{meta['id']:05d}_{meta['kind']}.wav", raw_frames(raw, n, axes), fs, sidecar)
+
+
+def run(args: argparse.Namespace) -> int:
+    out = Path(args.out)
+    if out.exists() and not out.is_dir():
+        raise EdgevibError(f"{out}: exists and is not a folder")
+    with connected(args.port) as c:
+        board = c.identify()["board"]
+        scale = m_s2_per_count(committed_params(c))
+        listed = c.event_list()
+        out.mkdir(parents=True, exist_ok=True)
+        saved, gone = [], []
+        for e in listed:
+            try:
+                img = c.event_read(e["id"])
+            except DeviceRefused as err:
+                if err.code != "missing":
+                    raise
+                gone.append(e["id"])
+                continue
+            saved.append(save_event(out, img, scale, board))
+    kinds = {}
+    for p in saved:
+        k = p.stem.rsplit("_", 1)[1]
+        kinds[k] = kinds.get(k, 0) + 1
+    detail = ", ".join(f"{v} {k}" for k, v in sorted(kinds.items()))
+    print(f"pulled {len(saved)} event snapshots from {args.port} into {out}" + (f" ({detail})" if detail else ""))
+    if gone:
+        print(f"{len(gone)} listed snapshots were overwritten on the gateway before they could be read: "
+              + ", ".join(map(str, gone)))
+    return 0

@@ -1,0 +1,96 @@
+"""`edgevib flash PARAMS.msgpack --port PORT [--key-file K]`: put a parameter set on a gateway.
+
+PARAMS.msgpack is the parameter set body: one MessagePack map (version, board, fs_hz, n, axes,
+counts_per_g, fc_*, det_* keys; firmware_py/params.py). The image is built here
+(firmware_py.paramstore.build_image, signed when a site key is given), staged in chunks, checked
+by the gateway (its CRC must equal ours), committed, read back and compared. The gateway's store
+applies a set only once it is complete, verified and committed, so a link lost at any point
+leaves the gateway on the set it had.
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+
+import msgpack
+
+import firmware_py  # noqa: F401
+from firmware_py.paramstore import build_image
+from host_tools.device_link import connected, read_key
+from host_tools.errors import EdgevibError, LinkError
+from host_tools.link import DeviceRefused
+
+HELP = "upload a parameter set to a gateway, verify, commit and read it back"
+_REQUIRED = ("version", "board", "fs_hz", "n", "axes")
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("params", metavar="PARAMS.msgpack", help="parameter set body (a MessagePack map)")
+    p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    p.add_argument("--key-file", metavar="K", help="site key file: sign the set (its bytes are the key)")
+
+
+def load_body(path: str) -> tuple[bytes, dict]:
+    """The file's bytes and the map they decode to; EdgevibError unless a usable set body."""
+    try:
+        with open(path, "rb") as f:
+            data = f.read()
+    except OSError as e:
+        raise EdgevibError(f"{path}: cannot read ({e.strerror})") from None
+    try:
+        body = msgpack.unpackb(data, raw=False, strict_map_key=False)
+    except Exception as e:   # msgpack raises several types for malformed input
+        raise EdgevibError(f"{path}: not a MessagePack value ({type(e).__name__}: {e})") from None
+    if not isinstance(body, dict):
+        raise EdgevibError(f"{path}: a parameter set is a MessagePack map, this is a {type(body).__name__}")
+    for k in _REQUIRED:
+        if k not in body:
+            raise EdgevibError(f"{path}: parameter set has no '{k}'")
+    if not isinstance(body["version"], int) or isinstance(body["version"], bool):
+        raise EdgevibError(f"{path}: 'version' must be an int")
+    return data, body
+
+
+def flash(c, image: bytes, progress=None) -> dict:
+    """Stage, verify, commit and read back image on client c; {version, crc, bytes, seconds}.
+
+    A refusal by the gateway's store becomes an EdgevibError (the set is wrong for it); a lost
+    link stays a LinkError.
+    """
+    crc = int.from_bytes(image[-4:], "little")
+    t0 = time.monotonic()
+    try:
+        c.param_write(image, progress=progress)
+        got = c.param_verify(len(image))
+        if got["crc"] != crc:
+            raise LinkError(f"gateway computed CRC 0x{got['crc']:08x}, the set has 0x{crc:08x}")
+        version = c.param_commit()
+    except DeviceRefused as e:
+        if e.code == "refused":
+            raise EdgevibError(str(e)) from None
+        raise
+    if c.param_read() != image:
+        raise LinkError("the committed set read back from the gateway differs from the one sent")
+    info = c.identify()
+    if info["param_version"] != version or info["param_crc"] != crc:
+        raise LinkError(f"gateway reports version {info['param_version']} CRC 0x{info['param_crc']:08x} "
+                        f"after committing version {version} CRC 0x{crc:08x}")
+    return {"version": version, "crc": crc, "bytes": len(image), "seconds": time.monotonic() - t0}
+
+
+def run(args: argparse.Namespace) -> int:
+    data, body = load_body(args.params)
+    key = read_key(args.key_file)
+    image = build_image(data, key)
+    with connected(args.port) as c:
+        if sys.stderr.isatty():
+            from tqdm import tqdm
+            with tqdm(total=len(image), unit="B", unit_scale=True, desc="upload", leave=False) as bar:
+                r = flash(c, image, progress=lambda done, total: bar.update(done - bar.n))
+        else:
+            r = flash(c, image)
+    signed = ", signed" if key else ""
+    print(f"flashed version {r['version']} (CRC 0x{r['crc']:08x}, {r['bytes']} bytes{signed}) "
+          f"to {args.port} in {r['seconds']:.2f} s; read back identical")
+    return 0

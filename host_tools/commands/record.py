@@ -1,0 +1,171 @@
+"""`edgevib record --port PORT --seconds S --out REC.wav`: raw samples from a gateway into WAV
+plus sidecar, ready for `check`, `train` and `replay`.
+
+The gateway pushes every window's raw counts while its raw stream is on (docs/protocol.md,
+`raw`); each window carries its index and the frames lost just before it, so windows are joined
+only where the samples are contiguous. Where windows are missing (the host or the link too slow,
+the gateway's ring full, a parameter commit), the recording is split there: REC.wav holds the
+first gap-free part, REC_2.wav the next, and so on, each with its own t0_s; the missing windows
+are counted and reported. Nothing is ever spliced across a gap. The span recorded is S seconds
+of the gateway's sample stream from the first window received.
+
+Sidecar: m_s2_per_unit from the committed set's counts_per_g, sample_rate_hz, axis names, t0_s
+from the gateway's clock (to the millisecond of its tick counter; as good as the clock was set),
+and where it came from (board, firmware, parameter version, first window index).
+"""
+from __future__ import annotations
+
+import argparse
+import math
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from host_tools.device_link import committed_params, connected, m_s2_per_count, raw_frames
+from host_tools.errors import EdgevibError, LinkError
+from host_tools.recording import write_wav
+
+HELP = "record raw samples from a gateway into WAV + sidecar"
+AXIS_NAMES = ("x", "y", "z")
+STALL_S = 5.0          # no raw window for this long: the gateway is not streaming
+
+
+@dataclass
+class Part:
+    """A gap-free run of windows: first window index, its start time, the windows' frames."""
+
+    w0: int
+    t0_s: float
+    windows: list[np.ndarray] = field(default_factory=list)
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    p.add_argument("--seconds", type=float, required=True, metavar="S", help="how long to record")
+    p.add_argument("--out", required=True, metavar="REC.wav", help="output WAV (sidecar REC.json beside it)")
+
+
+def part_path(out: Path, k: int) -> Path:
+    """Output path of part k (0 = the name given, then _2, _3, ...)."""
+    return out if k == 0 else out.with_name(f"{out.stem}_{k + 1}{out.suffix}")
+
+
+class _Collector:
+    """Reassembles raw push chunks into windows and windows into gap-free parts."""
+
+    def __init__(self, n: int, axes: int, fs: int, first_w: int, count: int):
+        self.n, self.axes, self.fs = n, axes, fs
+        self.first_w = first_w       # windows before this are left from an earlier session
+        self.count = count           # windows wanted, from the first one received
+        self.start: int | None = None
+        self.parts: list[Part] = []
+        self.missed = 0
+        self._w = None
+        self._buf = bytearray()
+        self._meta: dict = {}
+
+    @property
+    def done(self) -> bool:
+        return self.start is not None and self._last_w() >= self.start + self.count - 1
+
+    def _last_w(self) -> int:
+        p = self.parts[-1]
+        return p.w0 + len(p.windows) - 1
+
+    def chunk(self, m: dict) -> None:
+        w = m["w"]
+        if w < self.first_w:
+            return
+        if m["off"] == 0:
+            self._w, self._buf, self._meta = w, bytearray(m["data"]), m
+        elif w == self._w and m["off"] == len(self._buf):
+            self._buf += m["data"]
+        else:
+            self._w = None            # a chunk went missing: this window is lost
+            return
+        if self._w is not None and len(self._buf) == m["total"]:
+            self._window(w, raw_frames(bytes(self._buf), self.n, self.axes), self._meta)
+            self._w = None
+
+    def _window(self, w: int, frames: np.ndarray, meta: dict) -> None:
+        if self.start is None:
+            self.start = w
+        if w >= self.start + self.count:
+            return
+        t_end = meta["t_s"] + meta["ms"] / 1000.0
+        contiguous = bool(self.parts) and w == self._last_w() + 1 and meta["gap"] == 0
+        if self.parts and not contiguous:
+            self.missed += w - self._last_w() - 1
+        if not contiguous:
+            self.parts.append(Part(w, t_end - self.n / self.fs))
+        self.parts[-1].windows.append(frames)
+
+
+def run(args: argparse.Namespace) -> int:
+    if not (args.seconds > 0 and math.isfinite(args.seconds)):
+        raise EdgevibError(f"--seconds must be a positive number, not {args.seconds}")
+    out = Path(args.out)
+    if out.suffix.lower() != ".wav":
+        raise EdgevibError(f"{out}: --out must name a .wav file")
+    if not out.parent.is_dir():
+        raise EdgevibError(f"{out.parent}: no such folder")
+    with connected(args.port) as c:
+        info = c.identify()
+        scale = m_s2_per_count(committed_params(c))
+        n, axes, fs = info["n"], info["axes"], info["fs_hz"]
+        frames_wanted = int(round(args.seconds * fs))
+        first = c.link.request("raw", on=True)["w"]
+        col = _Collector(n, axes, fs, first, math.ceil(frames_wanted / n))
+        t_start = time.monotonic()
+        try:
+            last = time.monotonic()
+            while not col.done:
+                m = c.link.next_push(0.5)
+                if m is None:
+                    if time.monotonic() - last > STALL_S:
+                        raise LinkError(f"no raw window from {args.port} for {STALL_S:g} s "
+                                        "(is the gateway sampling?)")
+                    continue
+                if m.get("push") == "raw":
+                    last = time.monotonic()
+                    col.chunk(m)
+        finally:
+            try:
+                c.link.request("raw", on=False)
+            except LinkError:
+                pass
+        elapsed = time.monotonic() - t_start
+    written = _write_parts(out, col, frames_wanted, scale, info)
+    total_frames = sum(f for _, f in written)
+    names = ", ".join(str(p) for p, _ in written)
+    rate_kb = total_frames * axes * 2 / 1000 / elapsed if elapsed > 0 else float("inf")
+    print(f"recorded {total_frames / fs:.3f} s ({total_frames} frames x {axes} axes) from {args.port} "
+          f"into {names}; {rate_kb:.1f} kB/s over the link")
+    if col.missed:
+        print(f"missed {col.missed} windows ({col.missed * n / fs:.3f} s): the recording is split "
+              f"into {len(written)} gap-free parts, never joined across a gap")
+    return 0
+
+
+def _write_parts(out: Path, col: _Collector, frames_wanted: int, scale: float, info: dict) -> list[tuple[Path, int]]:
+    """Write each part (trimmed to the span asked for) as WAV + sidecar; [(path, frames)]."""
+    written = []
+    for k, part in enumerate(col.parts):
+        counts = np.concatenate(part.windows)
+        keep = frames_wanted - (part.w0 - col.start) * col.n
+        counts = counts[:keep]
+        sidecar = {
+            "m_s2_per_unit": scale,
+            "sample_rate_hz": float(col.fs),
+            "axes": list(AXIS_NAMES[:col.axes]) + [f"a{i}" for i in range(3, col.axes)],
+            "t0_s": round(part.t0_s, 3),
+            "source": "edgevib record",
+            "board": info["board"],
+            "firmware": info["fw"],
+            "param_version": info["param_version"],
+            "first_window": part.w0,
+        }
+        written.append((write_wav(part_path(out, k), counts, col.fs, sidecar), len(counts)))
+    return written
