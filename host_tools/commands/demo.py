@@ -1,0 +1,226 @@
+"""`edgevib demo --out DIR`: the whole host workflow on the invented Brackwater scenario.
+
+INVENTED DEMO DATA (host_tools.demo_scenario): a fictional plant, pumps P-101 and P-102, and
+seeded faults. Steps, as a technician and an engineer would take them:
+1. generate the scenario into DIR/data (WAV snapshots with sidecars, ground_truth.json);
+2. the commissioning check on the first snapshot of P-101 (host_tools.commission);
+3. per pump, train a parameter set on its healthy training days (host_tools.training);
+4. replay its field days through the device detector, state carried from one snapshot to the
+   next (host_tools.replay), and write DIR/<pump>/params.msgpack, params.json, events.json,
+   windows.csv and the report DIR/<pump>/report/index.html (host_tools.report);
+5. print per pump the alerts raised outside the seeded faults and when each fault was first seen.
+The pumps are trained and replayed in parallel, one process each (two cores make it quick).
+
+Everything is built in a temporary folder beside DIR and moved into place at the end; an existing
+DIR is replaced only when it is empty or holds an earlier demo.
+"""
+from __future__ import annotations
+
+import argparse
+import csv
+import io
+import json
+import os
+import secrets
+import shutil
+import time
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from host_tools.errors import EdgevibError
+
+HELP = "run the invented two-pump demo: generate data, check, train, replay, report"
+
+DEFAULT_DAYS = 42.0           # six weeks: every seeded fault of the scenario happens in them
+DEFAULT_INTERVAL_S = 7200.0   # one 4 s snapshot every 2 hours (plus one at each stop and start)
+_MARKER = "demo.json"         # what a finished demo folder holds, so a rerun may replace it
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    from host_tools import demo_scenario as ds
+    p.add_argument("--out", required=True, metavar="DIR", help="folder to write (made, or replaced if it holds an earlier demo)")
+    p.add_argument("--days", type=float, default=DEFAULT_DAYS, help=f"length of the scenario in days (default {DEFAULT_DAYS:g})")
+    p.add_argument("--training-days", type=float, default=ds.TRAINING_DAYS,
+                   help=f"healthy days at the start used for training (default {ds.TRAINING_DAYS:g})")
+    p.add_argument("--interval-s", type=float, default=DEFAULT_INTERVAL_S, metavar="S",
+                   help=f"seconds between periodic snapshots (default {DEFAULT_INTERVAL_S:g})")
+    p.add_argument("--seed", type=int, default=ds.DEFAULT_SEED, help=f"scenario seed (default {ds.DEFAULT_SEED})")
+    p.add_argument("--jobs", type=int, default=None, help="worker processes (default: one per pump, at most the cores)")
+
+
+def run(args: argparse.Namespace) -> int:
+    out = Path(args.out)
+    _check_out(out)
+    if not 0 < args.training_days < args.days:
+        raise EdgevibError("--training-days must be above 0 and below --days")
+    if not args.interval_s >= 60:
+        raise EdgevibError("--interval-s must be at least 60 s")
+    started = time.monotonic()
+    tmp = out.parent / f".{out.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp"
+    tmp.mkdir()
+    try:
+        lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs)
+        _swap_in(tmp, out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    print("\n".join(lines))
+    print(f"demo finished in {time.monotonic() - started:.0f} s")
+    return 0
+
+
+def _check_out(out: Path) -> None:
+    if out.exists() and not out.is_dir():
+        raise EdgevibError(f"{out}: exists and is not a folder; give a folder for the demo")
+    if out.is_dir() and any(out.iterdir()) and not (out / _MARKER).is_file():
+        raise EdgevibError(f"{out}: folder holds other files and no earlier demo; choose an empty or new folder")
+    if not out.parent.is_dir():
+        raise EdgevibError(f"{out}: folder {out.parent} does not exist")
+
+
+def _swap_in(tmp: Path, out: Path) -> None:
+    """Move the finished folder into place; an earlier demo is moved aside first, then removed."""
+    old = None
+    if out.exists():
+        old = out.parent / f".{out.name}.{os.getpid()}.{secrets.token_hex(4)}.old"
+        os.replace(out, old)
+    os.replace(tmp, out)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+def build(work: Path, final: Path, seed: int, days: float, training_days: float, interval_s: float,
+          jobs: int | None = None) -> list[str]:
+    """Run the demo into folder `work` (paths are printed as they will be under `final`);
+    returns the summary lines. Prints the commissioning check as it goes."""
+    from host_tools import demo_scenario as ds
+    gt_path = ds.write_scenario(work / "data", seed=seed, days=days, training_days=training_days,
+                                interval_s=interval_s)
+    truth = json.loads(gt_path.read_text())
+    print(commissioning_text(work / "data" / truth["files"]["P-101"]["training"][0]), end="")
+    pumps = sorted(truth["files"])
+    jobs = max(1, min(jobs or len(pumps), len(pumps), os.cpu_count() or 1))
+    if jobs == 1:
+        results = [pump_run(work, p, truth) for p in pumps]
+    else:
+        with ProcessPoolExecutor(max_workers=jobs) as pool:
+            results = list(pool.map(pump_run, [work] * len(pumps), pumps, [truth] * len(pumps)))
+    lines = ["", "Summary (invented demo data: Brackwater pumping station)"]
+    for r in results:
+        lines += summary_lines(r, truth, final)
+    lines += ["", "edgevib is advisory condition monitoring, not machinery protection or a safety shutdown system;",
+              "an all-clear is no guarantee."]
+    (work / _MARKER).write_text(json.dumps({"seed": seed, "days": days, "training_days": training_days,
+                                            "interval_s": interval_s, "pumps": results}, indent=1) + "\n")
+    return lines
+
+
+def commissioning_text(path: Path) -> str:
+    """The commissioning check of one recording, as `edgevib check` prints it."""
+    from host_tools.commands.check import render_text
+    from host_tools.commission import check_recording, settings_from_board
+    from host_tools.recording import read_recording
+    rec = read_recording(path)
+    return f"$ edgevib check {Path(*path.parts[-4:])}\n" + render_text(check_recording(rec, settings_from_board(None)))
+
+
+def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
+    """Train on one pump's training days, replay its field days, write its files; returns what
+    the summary needs (JSON-able). Runs in a worker process."""
+    import msgpack
+
+    from firmware_py import params as pm
+    from host_tools.commands.train import load_board
+    from host_tools.recording import read_stream
+    from host_tools.replay import m_s2_per_count, replay
+    from host_tools.report import detections, false_raises, pump_faults, write_report
+    from host_tools.training import train
+
+    profile = load_board(None)
+    scale = m_s2_per_count(pm.factory(profile))
+    data = work / "data" / pump
+
+    def stream(part: str):
+        return read_stream(data / part, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
+
+    t = time.monotonic()
+    params, summary = train(stream("training"), profile, 1.0, seed=0)
+    train_s = time.monotonic() - t
+    field = stream("field")
+    t = time.monotonic()
+    result = replay([field], params, profile, names=[pump])
+    replay_s = time.monotonic() - t
+    folder = work / pump
+    folder.mkdir()
+    pm.build(params, profile)
+    (folder / "params.msgpack").write_bytes(msgpack.packb(params, use_bin_type=True))
+    (folder / "params.json").write_text(json.dumps(summary, indent=1) + "\n")
+    (folder / "events.json").write_text(json.dumps(result.to_json(), indent=1) + "\n")
+    (folder / "windows.csv").write_text(windows_csv(result.windows, work))
+    write_report(folder / "report", result, params, field, truth)
+    faults = pump_faults(truth, pump)
+    t_from = field[0].t0_s
+    t_to = field[-1].t0_s + field[-1].duration_s
+    return {"pump": pump, "train_s": train_s, "replay_s": replay_s,
+            "windows": int(len(result.windows["t_s"])), "recordings": len(field),
+            "field_days": (t_to - t_from) / 86400.0, "events": len(result.events),
+            "thresholds": {k: summary["thresholds"][k] for k in ("alert", "alarm", "clear")},
+            "expected_false_alerts_per_30_days": summary["thresholds"].get("expected_false_alerts_per_30_days"),
+            "modes": summary["modes"]["k"],
+            "false": false_raises(result.events, faults, t_from, t_to),
+            "detections": detections(result.events, faults)}
+
+
+def windows_csv(windows: dict[str, np.ndarray], root: Path) -> str:
+    """One row per window, columns as the replay names them; recording paths relative to the
+    demo folder, numbers at full precision."""
+    keys = list(windows)
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(keys)
+    cols = []
+    for k in keys:
+        v = windows[k]
+        if k == "recording":
+            v = np.array([os.path.relpath(p, root) for p in v.tolist()], dtype=object)
+        cols.append(v.tolist())
+    w.writerows(zip(*cols))
+    return buf.getvalue()
+
+
+def _when(t_s: float, start: float) -> str:
+    return f"day {(t_s - start) / 86400.0:.2f}"
+
+
+def _delay(s: float) -> str:
+    return f"{s / 3600:.1f} h" if s < 2 * 86400 else f"{s / 86400:.1f} days"
+
+
+def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
+    """The printed summary of one pump."""
+    start = truth["start_t0_s"]
+    fr = r["false"]
+    per30 = len(fr["alerts"]) / fr["healthy_days"] * 30 if fr["healthy_days"] > 0 else float("nan")
+    exp = r["expected_false_alerts_per_30_days"]
+    th = r["thresholds"]
+    out = ["", f"{r['pump']}: trained in {r['train_s']:.1f} s ({r['modes']} operating modes; alert {th['alert']:.2f}, "
+               f"alarm {th['alarm']:.2f} spreads{'' if exp is None else f'; expected {exp:.2f} false alerts per 30 days'}), "
+               f"replayed {r['recordings']} snapshots ({r['windows']} windows, {r['field_days']:.1f} days) in {r['replay_s']:.1f} s",
+           f"  outside the seeded faults ({fr['healthy_days']:.1f} days): {len(fr['alerts'])} false alert(s) "
+           f"({per30:.2f} per 30 days), {len(fr['sensor_faults'])} false sensor fault(s)"]
+    for e in fr["alerts"]:
+        out.append(f"    false alert: {_when(e['t_s'], start)}, {e['from']} -> {e['to']} ({e['reason']}, {e.get('feature') or '-'})")
+    for d in r["detections"]:
+        what = d["kind"].replace("_", " ")
+        if d["detected_t_s"] is None:
+            out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): NOT detected")
+        else:
+            out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): detected {_when(d['detected_t_s'], start)} "
+                       f"as {d['detected_as']}, {_delay(d['delay_s'])} after it began")
+    folder = final / r["pump"]
+    out.append(f"  report: {folder / 'report' / 'index.html'}")
+    out.append(f"  files:  {folder / 'params.msgpack'}, params.json, events.json, windows.csv")
+    return out
