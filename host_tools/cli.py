@@ -17,6 +17,8 @@ COMMANDS = {
     "bench": "bench",
     "check": "check",
     "demo": "demo",
+    "replay": "replay",
+    "train": "train",
     "emulate": "emulate",
     "events": "events",
     "flash": "flash",

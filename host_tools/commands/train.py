@@ -1,0 +1,97 @@
+"""`edgevib train NORMAL... --out PARAMS.msgpack`: a parameter set from healthy recordings.
+
+NORMAL: recordings (.wav/.csv/.npy with sidecars) or folders; each folder is one stream of one
+gateway, the files named directly form one more stream. Writes PARAMS.msgpack (the parameter set
+body: one MessagePack map, for `edgevib flash` and firmware_py.params.build), PARAMS.json beside
+it (what was learned, host_tools.training) and PARAMS.report.txt (the training report, also
+printed). Everything is computed and encoded first; each file is then moved into place whole, so
+a refused input writes nothing.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+
+import msgpack
+
+import firmware_py  # noqa: F401
+from firmware_py import board, mpack
+from firmware_py import params as pm
+from host_tools.commission import DEFAULT_BOARD
+from host_tools.errors import EdgevibError
+from host_tools.recording import _atomic_write, read_stream, sidecar_path
+from host_tools.replay import group_sources, m_s2_per_count
+from host_tools.training import report_text, train
+
+HELP = "train a parameter set on healthy recordings: baseline, operating modes, thresholds for a false-alert target"
+# The gateway's parameter store holds images up to 8192 bytes (firmware_py.paramstore, cap);
+# an image is the body plus 5 bytes of head, 32 of signature and 4 of CRC.
+_STORE_CAP = 8192
+_IMAGE_EXTRA = 5 + 32 + 4
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("normal", nargs="+", metavar="NORMAL", help="healthy recordings or folders of them (a folder is one stream)")
+    p.add_argument("--out", required=True, metavar="PARAMS.msgpack", help="parameter set to write (.msgpack)")
+    p.add_argument("--board", metavar="PROFILE.json", help=f"board profile (default {DEFAULT_BOARD.name})")
+    p.add_argument("--false-alerts-per-month", type=float, default=1.0, metavar="X",
+                   help="target expected false alerts per 30 days of running (default 1)")
+    p.add_argument("--version", type=int, default=1, metavar="V", help="parameter set version (default 1)")
+    p.add_argument("--seed", type=int, default=0, help="k-means seed (default 0)")
+
+
+def outputs(out: Path) -> tuple[Path, Path, Path]:
+    """PARAMS.msgpack, its summary PARAMS.json and report PARAMS.report.txt."""
+    return out, out.with_suffix(".json"), out.with_suffix(".report.txt")
+
+
+def load_board(path: str | None) -> dict:
+    try:
+        return board.load(str(path or DEFAULT_BOARD))
+    except board.BoardError as e:
+        raise EdgevibError(f"board profile {e}") from None
+
+
+def check_outputs(paths: list[Path], sources: list[Path]) -> None:
+    """Refuse outputs that would overwrite an input (recording or sidecar) or have no folder."""
+    inputs = set()
+    for s in sources:
+        files = [q for q in s.iterdir()] if s.is_dir() else [s, sidecar_path(s)]
+        inputs.update(q.resolve() for q in files)
+    for o in paths:
+        if o.resolve() in inputs:
+            raise EdgevibError(f"{o}: would overwrite an input; choose another name")
+        if not o.parent.is_dir():
+            raise EdgevibError(f"{o}: folder {o.parent} does not exist")
+
+
+def run(args: argparse.Namespace) -> int:
+    out = Path(args.out)
+    if out.suffix.lower() != ".msgpack":
+        raise EdgevibError(f"{out}: the parameter set is written as .msgpack; give a .msgpack name")
+    paths = list(outputs(out))
+    sources = [Path(s) for s in args.normal]
+    check_outputs(paths, sources)
+    if not args.false_alerts_per_month > 0:
+        raise EdgevibError("--false-alerts-per-month must be a positive number")
+    if not 0 <= args.version < 1 << 30:
+        raise EdgevibError("--version must be an int from 0 to 2**30 - 1")
+    profile = load_board(args.board)
+    scale = m_s2_per_count(pm.factory(profile))
+    streams = [read_stream(g, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
+               for g in group_sources(sources)]
+    params, summary = train(streams, profile, args.false_alerts_per_month, seed=args.seed, version=args.version)
+    body = msgpack.packb(params, use_bin_type=True)
+    if mpack.unpackb(body) != params:   # the device's own decoder must read it back unchanged
+        raise EdgevibError("internal: the encoded parameter set does not decode to itself")
+    if len(body) + _IMAGE_EXTRA > _STORE_CAP:
+        raise EdgevibError(f"the parameter set is {len(body)} bytes, more than a gateway's store holds")
+    pm.build(params, profile)
+    text = report_text(summary)
+    rendered = [body, (json.dumps(summary, indent=1) + "\n").encode(), text.encode()]
+    for path, data in zip(paths, rendered):
+        _atomic_write(path, data)
+    print(text, end="")
+    print(f"wrote {paths[0]}, {paths[1].name}, {paths[2].name}")
+    return 0
