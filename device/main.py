@@ -1,0 +1,15 @@
+# /main.py on the gateway (edgevib deploy copies it there): run the application. The logic is
+# in firmware_py/app.py, where the tests reach it. An exception that escapes after start-up
+# is printed on the console and the board resets; that boot counts towards safe mode.
+import machine
+import sys
+import time
+
+from firmware_py import app
+
+try:
+    app.main()
+except Exception as e:
+    sys.print_exception(e)
+    time.sleep_ms(1000)
+    machine.reset()
