@@ -1,0 +1,18 @@
+"""edgevib bench prints its figures as JSON; the deterministic ones are checked here (speed is
+measured and printed, never asserted)."""
+import json
+import subprocess
+import sys
+
+
+def test_bench_json_has_every_figure_and_the_deterministic_ones_hold():
+    out = subprocess.run([sys.executable, "-m", "host_tools.cli", "bench", "--json"],
+                         capture_output=True, text=True, check=True).stdout
+    fig = json.loads(out)
+    for key in ("mpy_loop_equiv_per_sample", "mpy_naive_float_ratio", "core_heap_bytes",
+                "allocs_per_window", "host_msamples_per_s", "host_vs_numpy_rfft_ratio"):
+        assert key in fig
+    assert fig["allocs_per_window"] == 0
+    assert fig["window_runs_with_heap_locked"] is True
+    assert 0 < fig["core_heap_bytes"] <= 16384
+    assert fig["mpy_window_fuel"] > 0 and fig["mpy_naive_float_window_fuel"] > 0
