@@ -60,6 +60,7 @@ def cfft(buf, m, tw):
     """
     end = 2 * m
     t = 0
+    h = 1
     if _odd_log2(m):
         # radix-2 stage with W = 1: pairs of neighbours
         for a in range(0, end, 4):
@@ -72,36 +73,6 @@ def cfft(buf, m, tw):
             buf[a + 2] = (ur - xr) >> 1
             buf[a + 3] = (ui - xi) >> 1
         h = 2
-    else:
-        # first radix-4 stage: h = 1, its only twiddle is W = 1, so no products (same result
-        # as the general stage below with w = 32768 + 0j, which is exact)
-        for a in range(0, end, 8):
-            ar = buf[a]
-            ai = buf[a + 1]
-            br = buf[a + 2]
-            bi = buf[a + 3]
-            cr = buf[a + 4]
-            ci = buf[a + 5]
-            dr = buf[a + 6]
-            di = buf[a + 7]
-            s0r = ar + br
-            s0i = ai + bi
-            s1r = ar - br
-            s1i = ai - bi
-            s2r = cr + dr
-            s2i = ci + di
-            s3r = cr - dr
-            s3i = ci - di
-            buf[a] = (s0r + s2r) >> 2
-            buf[a + 1] = (s0i + s2i) >> 2
-            buf[a + 4] = (s0r - s2r) >> 2
-            buf[a + 5] = (s0i - s2i) >> 2
-            buf[a + 2] = (s1r + s3i) >> 2
-            buf[a + 3] = (s1i - s3r) >> 2
-            buf[a + 6] = (s1r - s3i) >> 2
-            buf[a + 7] = (s1i + s3r) >> 2
-        h = 4
-        t = 6                          # its twiddle row is skipped
     while h < m:
         q = 2 * h                          # ints between the four legs of a butterfly
         span = 8 * h
