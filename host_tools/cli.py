@@ -17,6 +17,7 @@ COMMANDS = {
     "bench": "bench",
     "check": "check",
     "demo": "demo",
+    "deploy": "deploy",
     "replay": "replay",
     "train": "train",
     "emulate": "emulate",

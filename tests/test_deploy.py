@@ -1,0 +1,141 @@
+"""`edgevib deploy`: the dry run builds a .mpy for every device module with mpy-cross and prints
+the mpremote copy; bad boards and bad parameter files are refused in one line (exit 2); a
+module MicroPython cannot compile stops the build and leaves no build folder."""
+import shlex
+import subprocess
+import sys
+
+import msgpack
+import pytest
+
+import firmware_py  # noqa: F401
+from firmware_py import params
+from firmware_py.paramstore import build_image
+from host_tools import deploy
+from host_tools.cli import main
+from tests.test_typecheck import compile_mpy
+
+ROOT = deploy.ROOT
+PICO = "pico_adxl345"
+
+
+def test_dry_run_builds_every_module_and_lists_the_copies(tmp_path, capsys):
+    build = tmp_path / "b"
+    assert main(["deploy", "--port", "/dev/ttyACM7", "--board", PICO, "--dry-run",
+                 "--build", str(build)]) == 0
+    out = capsys.readouterr().out.splitlines()
+    modules = deploy.device_modules()
+    assert "firmware_py/app.py" in modules and "firmware_py/drivers/adxl345.py" in modules
+    assert not any(m.endswith("_host_micropython.py") for m in modules)
+    for rel in modules:
+        mpy = build / (rel[:-3] + ".mpy")
+        data = mpy.read_bytes()
+        assert len(data) > 4 and data[:1] == b"M"      # .mpy files start with 'M' (format v6)
+        assert data[1] == 6                             # the version this mpy-cross emits
+        assert any(shlex.split(line)[-1] == rel and str(mpy) in line for line in out)
+    assert sorted(p.relative_to(build).as_posix() for p in build.rglob("*.mpy")) == \
+        sorted(m[:-3] + ".mpy" for m in modules)
+    assert (build / "main.py").read_text() == (ROOT / "device" / "main.py").read_text()
+    assert (build / "boot.py").read_text() == (ROOT / "device" / "boot.py").read_text()
+    [copy] = [shlex.split(line) for line in out if "mpremote" in line]
+    assert copy[:5] == [sys.executable, "-m", "mpremote", "connect", "/dev/ttyACM7"]
+    steps = " ".join(copy).split(" + ")
+    assert f"fs cp -r {build}/firmware_py :" in steps
+    assert f"fs cp {build}/main.py :main.py" in steps and f"fs cp {build}/boot.py :boot.py" in steps
+    assert f"fs cp {ROOT}/boards/{PICO}.json :board.json" in steps
+    assert steps[0].endswith(f"run {build}/clean.py")
+    assert (build / "clean.py").read_text() == deploy.CLEAN_SCRIPT
+    assert steps[-1] == "reset"
+    assert not any("params.cur" in s for s in steps)
+
+
+def test_the_built_files_match_mpy_cross_run_directly(tmp_path):
+    """Same compiler, same source: the deploy build equals the CI check's own compile."""
+    pl = deploy.plan("/dev/null", PICO, tmp_path / "b")
+    deploy.build_files(pl, None, echo=lambda s: None)
+    r = subprocess.run([sys.executable, "-m", "mpy_cross", "-s", "firmware_py/app.py", "-o",
+                        str(tmp_path / "app.mpy"), "firmware_py/app.py"], cwd=ROOT)
+    assert r.returncode == 0
+    assert (tmp_path / "app.mpy").read_bytes() == (tmp_path / "b/firmware_py/app.mpy").read_bytes()
+
+
+@pytest.mark.parametrize("name", ["main.py", "boot.py", "clean.py"])
+def test_what_the_board_runs_as_source_compiles_for_micropython(name, tmp_path):
+    src = ROOT / "device" / name
+    if name == "clean.py":
+        src = tmp_path / name
+        src.write_text(deploy.CLEAN_SCRIPT)
+    r = compile_mpy(src, tmp_path / "out.mpy")
+    assert r.returncode == 0, r.stderr
+
+
+def test_a_port_that_never_appears_is_a_link_error(tmp_path, capsys):
+    assert main(["deploy", "--port", "/dev/edgevib-no-such-port", "--board", PICO,
+                 "--build", str(tmp_path / "b"), "--wait", "0.2"]) == 3
+    assert "did not appear within 0.2 s" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("board, says", [("nosuch", "unknown board 'nosuch' (boards: "),
+                                         ("desk", "virtual gateway")])
+def test_a_board_that_cannot_be_deployed_is_one_line_and_exit_2(board, says, tmp_path, capsys):
+    assert main(["deploy", "--port", "X", "--board", board, "--dry-run",
+                 "--build", str(tmp_path / "b")]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and says in err
+    assert not (tmp_path / "b").exists()
+
+
+def factory_body(profile, **changes):
+    p = params.factory(profile)
+    p.update(changes)
+    return msgpack.packb(p, use_bin_type=True)
+
+
+def test_parameters_go_to_params_cur_checked(tmp_path, capsys):
+    _, profile = deploy.board_profile(PICO)
+    body = factory_body(profile, version=5)
+    src = tmp_path / "p.msgpack"
+    src.write_bytes(body)
+    build = tmp_path / "b"
+    assert main(["deploy", "--port", "P", "--board", PICO, "--dry-run", "--build", str(build),
+                 "--params", str(src)]) == 0
+    assert (build / "params.cur").read_bytes() == build_image(body)
+    assert f"fs cp {build}/params.cur :params.cur" in capsys.readouterr().out
+    assert src.read_bytes() == body                           # the input is never modified
+
+
+@pytest.mark.parametrize("content, says", [
+    (b"\x93\x01\x02\x03", "neither a parameter image nor a MessagePack map"),
+    ("other-board", "set is for board 'p-102'"),
+    ("no-detector", "the detector cannot run this set"),
+])
+def test_bad_parameters_are_refused_before_the_build(content, says, tmp_path, capsys):
+    _, profile = deploy.board_profile(PICO)
+    if content == "other-board":
+        content = factory_body(profile, board="p-102")
+    elif content == "no-detector":
+        content = build_image(msgpack.packb({"version": 1, "board": PICO, "fs_hz": 3200,
+                                             "n": 1024, "axes": 3}))
+    src = tmp_path / "bad.bin"
+    src.write_bytes(content)
+    assert main(["deploy", "--port", "P", "--board", PICO, "--dry-run",
+                 "--build", str(tmp_path / "b"), "--params", str(src)]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and says in err
+    assert not (tmp_path / "b").exists()
+
+
+def test_a_module_micropython_cannot_compile_stops_the_build(tmp_path, monkeypatch):
+    bad = tmp_path / "fw" / "firmware_py"
+    bad.mkdir(parents=True)
+    (bad / "__init__.py").write_text("")
+    (bad / "late.py").write_text("def f(x):\n    match x:\n        case 1:\n            return 2\n")
+    monkeypatch.setattr(deploy, "ROOT", tmp_path / "fw")
+    monkeypatch.setattr(deploy, "FIRMWARE", bad)
+    pl = deploy.plan("P", PICO, tmp_path / "b")
+    pl = deploy.Plan(pl.board, pl.build, [c for c in pl.compile_cmds if "firmware_py/" in c[-1]],
+                     pl.copy_cmd)
+    with pytest.raises(deploy.EdgevibError, match="firmware_py/late.py: mpy-cross cannot compile"):
+        deploy.build_files(pl, None, echo=lambda s: None)
+    assert not (tmp_path / "b").exists()
+    assert [p.name for p in tmp_path.iterdir()] == ["fw"]     # no temporary folder left
