@@ -14,7 +14,8 @@ and its PNGs (matplotlib, Agg):
   spans on the time plots and a table of detection delays.
 
 Times are on the recordings' clock (t0_s plus the offset in the file); plots show days (hours for
-spans under two days) since the start of the first recording. Windows of separate snapshots are
+spans under two days) since the start of the first recording, or with ground truth since the
+scenario's start (its faults are placed in days from there). Windows of separate snapshots are
 drawn as points, never joined by lines across the gaps between them. The state band holds each
 window's state until the next window, up to GAP_HOLD times the usual spacing; longer gaps (no
 recording) stay blank. Every segment is drawn at least MIN_SEG_FRACTION of the axis wide, worst
@@ -187,11 +188,12 @@ def false_raises(events: Sequence[dict], faults: Sequence[dict], t_from: float, 
 
 @dataclass(frozen=True)
 class Clock:
-    """Plot time: (t_s - origin_s) / scale_s, in `unit` ("days" or "hours")."""
+    """Plot time: (t_s - origin_s) / scale_s, in `unit` ("days" or "hours") since `since`."""
 
     origin_s: float
     scale_s: float
     unit: str
+    since: str = "the first recording"
 
     def __call__(self, t: Any) -> Any:
         return (np.asarray(t, dtype=float) - self.origin_s) / self.scale_s
@@ -206,11 +208,14 @@ class Clock:
     def axis_label(self) -> str:
         when = (f" ({datetime.fromtimestamp(self.origin_s, timezone.utc):%Y-%m-%d %H:%M} UTC)"
                 if self.origin_s > _UNIX_2000 else "")
-        return f"{self.unit} since the first recording{when}"
+        return f"{self.unit} since {self.since}{when}"
 
 
-def clock_for(t_first: float, t_last: float) -> Clock:
-    return Clock(t_first, 3600.0, "hours") if t_last - t_first < 2 * _DAY_S else Clock(t_first, _DAY_S, "days")
+def clock_for(origin: float, t_last: float, since: str = "the first recording") -> Clock:
+    """Hours for spans under two days, else days."""
+    if t_last - origin < 2 * _DAY_S:
+        return Clock(origin, 3600.0, "hours", since)
+    return Clock(origin, _DAY_S, "days", since)
 
 
 # --- recordings -----------------------------------------------------------------------------------
@@ -628,7 +633,9 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
     window_s = p["n"] / float(p["fs_hz"])
     t_first = _t0(recs[0])
     t_last = max(_t0(r) + r.duration_s for r in recs)
-    clock = clock_for(t_first, t_last)
+    # The scenario's faults are told in days from its start, so with ground truth the clock starts there.
+    origin = float(ground_truth["start_t0_s"]) if ground_truth and "start_t0_s" in ground_truth else t_first
+    clock = clock_for(origin, t_last, "the scenario start" if origin != t_first else "the first recording")
     faults = pump_faults(ground_truth, machine)
     axes = recs[0].axes
     who = " - ".join(x for x in (plant, machine) if x) or str(recs[0].path.parent)

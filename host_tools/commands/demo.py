@@ -169,7 +169,7 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
             "field_days": (t_to - t_from) / 86400.0, "events": len(result.events),
             "thresholds": {k: summary["thresholds"][k] for k in ("alert", "alarm", "clear")},
             "expected_false_alerts_per_30_days": summary["thresholds"].get("expected_false_alerts_per_30_days"),
-            "modes": summary["modes"]["k"],
+            "modes": summary["modes"]["k"], "warnings": summary.get("warnings", []),
             "false": false_raises(result.events, faults, t_from, t_to),
             "detections": detections(result.events, faults)}
 
@@ -211,6 +211,8 @@ def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
                f"replayed {r['recordings']} snapshots ({r['windows']} windows, {r['field_days']:.1f} days) in {r['replay_s']:.1f} s",
            f"  outside the seeded faults ({fr['healthy_days']:.1f} days): {len(fr['alerts'])} false alert(s) "
            f"({per30:.2f} per 30 days), {len(fr['sensor_faults'])} false sensor fault(s)"]
+    for wtext in r["warnings"]:
+        out.append(f"  training warning: {wtext}")
     for e in fr["alerts"]:
         out.append(f"    false alert: {_when(e['t_s'], start)}, {e['from']} -> {e['to']} ({e['reason']}, {e.get('feature') or '-'})")
     for d in r["detections"]:
