@@ -58,6 +58,7 @@ FOLDS = 3                 # held-out blocks of recordings (each model is fitted 
 ALARM_RATE_RATIO = 10.0   # false alarms aimed 10 times rarer than false alerts
 DC_MARGIN_G = 0.25        # least half-width of the healthy DC range (g): tilt or a loose mount, not drift
 MIN_MODE_WINDOWS = 30     # a mode with fewer training windows is thinly supported
+MIN_WINDOWS = 50          # fewer running healthy windows cannot support a baseline and modes
 MIN_HOURS = 1.0           # less scored running time than this is thin training data
 _THR_MAX = 1 << 16        # the detector's limit on thresholds (Q8 spreads)
 _DAYS_30_S = 30 * 86400.0
@@ -171,7 +172,7 @@ def _model(rows: np.ndarray, params: dict, seed: int) -> dict:
     return keys
 
 
-def _threshold(scores: np.ndarray, windows_30: float, k: int, n: int, target: float) -> tuple[int, Any]:
+def score_threshold(scores: np.ndarray, windows_30: float, k: int, n: int, target: float) -> tuple[int, Any]:
     """(threshold Q8, ThresholdChoice): the least integer score T with S >= T exactly when S > x."""
     ch = tail_fit.choose_threshold(scores, windows_30, k, n, target)
     return min(int(math.floor(ch.threshold)) + 1, _THR_MAX), ch
@@ -229,9 +230,8 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     if n_zone_c:
         warnings.append(f"{n_zone_c} running training windows are in ISO zone C or D and were left out: the training data does not look healthy")
     n_use = int(sum(u.sum() for u in use))
-    need = math.ceil(tail_fit.MIN_EXCEEDANCES / tail_fit.DEFAULT_TAIL_FRACTION)
-    if n_use < max(2 * need, 10):
-        raise EdgevibError(f"only {n_use} running, healthy training windows; record more of the pump in normal duty (at least {max(2 * need, 10)})")
+    if n_use < MIN_WINDOWS:
+        raise EdgevibError(f"only {n_use} running, healthy training windows; record more of the pump in normal duty (at least {MIN_WINDOWS})")
     if n_use * window_s < MIN_HOURS * 3600:
         warnings.append(f"only {n_use * window_s / 3600:.2f} h of running windows: thresholds and modes rest on little data")
 
@@ -262,8 +262,8 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         held_scores = np.concatenate([st.score_q8[u] for st, u in zip(_run(_mute(p), feats), use)])
     thr: dict[str, Any]
     try:
-        alert, ch = _threshold(held_scores, windows_30, k_of, n_of, false_alerts_per_month)
-        alarm_t, ch2 = _threshold(held_scores, windows_30, k_of, n_of, false_alerts_per_month / ALARM_RATE_RATIO)
+        alert, ch = score_threshold(held_scores, windows_30, k_of, n_of, false_alerts_per_month)
+        alarm_t, ch2 = score_threshold(held_scores, windows_30, k_of, n_of, false_alerts_per_month / ALARM_RATE_RATIO)
         alarm = min(max(alarm_t, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
         thr = {"method": "generalised Pareto tail of held-out healthy scores (peaks over threshold)",
                "expected_false_alerts_per_30_days": ch.false_alerts_per_30_days,
