@@ -34,7 +34,6 @@ import json
 import os
 import secrets
 import shutil
-import tempfile
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
@@ -598,25 +597,36 @@ def write_report(out_dir: str | os.PathLike, result: Any, params: dict,
         raise EdgevibError(f"{out}: folder {out.parent} does not exist")
     recs = _load(recordings, params)
     files, page = render(result, params, recs, ground_truth, stream)
-    tmp = out.parent / f".{out.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp"
-    tmp.mkdir()   # not mkdtemp: the finished folder should get the usual permissions
+    tmp = staging_folder(out)
     try:
         for name, data in files.items():
             (tmp / name).write_bytes(data)
         (tmp / "index.html").write_text(page, encoding="utf-8")
-        _swap_in(tmp, out)
+        swap_in(tmp, out)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return out / "index.html"
 
 
-def _swap_in(tmp: Path, out: Path) -> None:
-    """Move the finished folder into place; an earlier report is moved aside first, then removed."""
+def _sibling(out: Path, suffix: str) -> Path:
+    return out.parent / f".{out.name}.{os.getpid()}.{secrets.token_hex(4)}{suffix}"
+
+
+def staging_folder(out: Path) -> Path:
+    """A new hidden folder beside out to build into (same file system, so the move is a rename).
+    Made with mkdir, not mkdtemp, so the finished folder gets the usual permissions."""
+    tmp = _sibling(out, ".tmp")
+    tmp.mkdir()
+    return tmp
+
+
+def swap_in(tmp: Path, out: Path) -> None:
+    """Move the finished folder tmp to out; an earlier out is renamed aside first, then removed."""
     old = None
     if out.exists():
-        old = Path(tempfile.mkdtemp(dir=out.parent, prefix="." + out.name + ".", suffix=".old"))
-        os.replace(out, old / "r")
+        old = _sibling(out, ".old")
+        os.replace(out, old)
     os.replace(tmp, out)
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)

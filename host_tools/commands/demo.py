@@ -21,7 +21,6 @@ import csv
 import io
 import json
 import os
-import secrets
 import shutil
 import time
 from concurrent.futures import ProcessPoolExecutor
@@ -59,11 +58,11 @@ def run(args: argparse.Namespace) -> int:
     if not args.interval_s >= 60:
         raise EdgevibError("--interval-s must be at least 60 s")
     started = time.monotonic()
-    tmp = out.parent / f".{out.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp"
-    tmp.mkdir()
+    from host_tools.report import staging_folder, swap_in
+    tmp = staging_folder(out)
     try:
         lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs)
-        _swap_in(tmp, out)
+        swap_in(tmp, out)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
@@ -79,17 +78,6 @@ def _check_out(out: Path) -> None:
         raise EdgevibError(f"{out}: folder holds other files and no earlier demo; choose an empty or new folder")
     if not out.parent.is_dir():
         raise EdgevibError(f"{out}: folder {out.parent} does not exist")
-
-
-def _swap_in(tmp: Path, out: Path) -> None:
-    """Move the finished folder into place; an earlier demo is moved aside first, then removed."""
-    old = None
-    if out.exists():
-        old = out.parent / f".{out.name}.{os.getpid()}.{secrets.token_hex(4)}.old"
-        os.replace(out, old)
-    os.replace(tmp, out)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
 
 
 def build(work: Path, final: Path, seed: int, days: float, training_days: float, interval_s: float,

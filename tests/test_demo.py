@@ -1,0 +1,109 @@
+"""`edgevib demo` end to end on a small invented scenario (in this process), and its refusals.
+
+The scenario is our own data, so these are checks of the workflow, not of the detector against an
+outside reference: the files are read back with reference libraries (msgpack, csv, json) and the
+printed detection times are checked against the ground truth and the events written."""
+import contextlib
+import csv
+import io
+import json
+import re
+from pathlib import Path
+
+import msgpack
+import pytest
+
+import firmware_py  # noqa: F401
+from firmware_py import board, mpack
+from firmware_py import params as pm
+from host_tools import cli
+
+REPO = Path(__file__).resolve().parent.parent
+# 21 days (the bearing defect starts on day 20), 6 healthy days to train on, a snapshot every
+# 6 hours: the smallest scenario that holds every fault of P-101 and trains without refusal.
+SMALL = ["--days", "21", "--training-days", "6", "--interval-s", "21600", "--jobs", "1"]
+WINDOW_COLUMNS = ("t_s", "state", "score", "mode", "accel_rms_m_s2", "velocity_rms_mm_s")
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    root = tmp_path_factory.mktemp("demo")
+    out = root / "demo_out"
+    buf = io.StringIO()          # a module-scoped fixture cannot use capsys
+    with contextlib.redirect_stdout(buf):
+        status = cli.main(["demo", "--out", str(out), *SMALL])
+    return root, out, status, buf.getvalue()
+
+
+def test_demo_writes_every_file_of_both_pumps(demo):
+    root, out, status, text = demo
+    assert status == 0
+    assert sorted(p.name for p in root.iterdir()) == ["demo_out"]      # no staging folder left
+    truth = json.loads((out / "data" / "ground_truth.json").read_text())
+    assert sorted(truth["files"]) == ["P-101", "P-102"]
+    profile = board.load(str(REPO / "boards" / "desk.json"))
+    for pump in ("P-101", "P-102"):
+        d = out / pump
+        for name in ("params.msgpack", "params.json", "events.json", "windows.csv", "report/index.html",
+                     "report/score.png", "report/velocity.png"):
+            assert (d / name).is_file() and (d / name).stat().st_size > 0, (pump, name)
+        body = (d / "params.msgpack").read_bytes()
+        params = msgpack.unpackb(body, raw=False)          # the reference MessagePack decoder
+        assert mpack.unpackb(body) == params                # the device's decoder reads the same
+        pm.build(params, profile)                           # and the device can build from it
+        events = json.loads((d / "events.json").read_text())
+        with open(d / "windows.csv", newline="") as f:
+            rows = list(csv.DictReader(f))
+        assert set(WINDOW_COLUMNS) <= set(rows[0])
+        assert len(rows) == events["summary"]["total"]["windows"]
+        assert all((out / r["recording"]).is_file() for r in rows[::97])   # paths relative to DIR
+        assert f"{pump}/report/index.html" in text
+
+
+def _day(t_s, truth):
+    return (t_s - truth["start_t0_s"]) / 86400.0
+
+
+def test_summary_reports_the_bearing_fault_as_detected_with_its_time(demo):
+    _, out, _, text = demo
+    truth = json.loads((out / "data" / "ground_truth.json").read_text())
+    bearing = next(f for f in truth["faults"] if f["kind"] == "bearing_outer_race")
+    assert bearing["pump"] == "P-101"
+    events = json.loads((out / "P-101" / "events.json").read_text())["events"]
+    first = next(e for e in events if e["to"] in ("alert", "alarm") and e["t_s"] >= bearing["start_t0_s"])
+    m = re.search(r"bearing outer race \(from day ([\d.]+)\): detected day ([\d.]+) as (\w+) \((\w+)\), "
+                  r"([\d.]+) (h|days) after it began", text)
+    assert m, text
+    assert float(m.group(1)) == pytest.approx(_day(bearing["start_t0_s"], truth), abs=0.005)
+    assert float(m.group(2)) == pytest.approx(_day(first["t_s"], truth), abs=0.005)
+    assert (m.group(3), m.group(4)) == (first["to"], first["reason"])
+    delay_h = (first["t_s"] - bearing["start_t0_s"]) / 3600
+    assert float(m.group(5)) * (24 if m.group(6) == "days" else 1) == pytest.approx(delay_h, abs=0.05 * 24)
+    # the loose cable shows as a sensor fault, not as a machine alert
+    assert re.search(r"loose cable \(from day [\d.]+\): detected day [\d.]+ as sensor_fault", text)
+    assert "Commissioning check:" in text
+    assert "not machinery protection" in text
+
+
+def test_summary_counts_false_alerts_outside_the_faults(demo):
+    _, out, _, text = demo
+    truth = json.loads((out / "data" / "ground_truth.json").read_text())
+    for pump in ("P-101", "P-102"):
+        spans = [(f["start_t0_s"], f["end_t0_s"]) for f in truth["faults"] if f["pump"] == pump]
+        events = json.loads((out / pump / "events.json").read_text())["events"]
+        false = [e for e in events if e["to"] in ("alert", "alarm") and e["from"] not in ("alert", "alarm")
+                 and not any(a <= e["t_s"] <= b for a, b in spans)]
+        block = text.split(f"\n{pump}: ", 1)[1]
+        assert re.search(rf"outside the seeded faults \([\d.]+ days\): {len(false)} false alert\(s\)", block)
+
+
+def test_bad_out_is_one_line_and_exit_2(tmp_path, capsys):
+    f = tmp_path / "not_a_folder"
+    f.write_text("keep")
+    assert cli.main(["demo", "--out", str(f), *SMALL]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and err.startswith("edgevib: error: ") and "not a folder" in err
+    assert f.read_text() == "keep"
+    assert cli.main(["demo", "--out", str(tmp_path / "missing" / "out"), *SMALL]) == 2
+    assert capsys.readouterr().err.count("\n") == 1
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["not_a_folder"]
