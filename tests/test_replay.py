@@ -1,0 +1,171 @@
+"""Replay: the device detector over twin features, streams, the command, and the demo scenario."""
+import csv
+import io
+import json
+from array import array
+
+import numpy as np
+import pytest
+
+import firmware_py  # noqa: F401
+from firmware_py import alarm as al
+from firmware_py import params as pm
+from host_tools import demo_scenario as ds
+from host_tools.cli import main
+from host_tools.recording import read_stream
+from host_tools.replay import feature_name, replay
+from host_tools.training import train
+from tests.test_training import FS, PROFILE, healthy_stream, pump_counts, recording
+from tests.test_training import _write as write_recordings
+
+
+@pytest.fixture(scope="module")
+def trained():
+    return train(healthy_stream(seed=11, per_point=8), PROFILE)[0]
+
+
+def field_stream(seed=12, t_start=100000.0):
+    """Healthy, a stop, a growing 300 Hz tone (a departure), a stuck sensor, healthy again."""
+    rng = np.random.default_rng(seed)
+    plan = [(1480.0, 0.0), (1050.0, 0.0), (0.0, 0.0), (745.0, 0.0), (1480.0, 1.5), (1480.0, 80.0),
+            (1480.0, None), (1050.0, 0.0), (1480.0, 0.0)]
+    recs = []
+    for i, (rpm, extra) in enumerate(plan):
+        if extra is None:
+            c = np.tile(pump_counts(rng, rpm, 0.01)[:1], (int(2 * FS), 1))   # output stuck at one value
+        else:
+            c = pump_counts(rng, rpm, 2.0, extra_hz=300.0, extra_counts=extra)
+        recs.append(recording(c, t_start + 600.0 * i, rpm, name=f"field{i}"))
+    return recs
+
+
+def by_hand(recs, p):
+    """The device path written out: firmware_py's own FeatureCore fed each recording's whole
+    windows, then Detector.step, draining the event ring after every window."""
+    core, det = pm.build(p, PROFILE)
+    n, axes = p["n"], p["axes"]
+    states, scores, events = [], [], []
+    w = 0
+    for r in recs:
+        for k in range(r.n_frames // n):
+            core.ring.push(array("h", r.counts[k * n:(k + 1) * n].ravel().tolist()), n)
+            assert core.step()
+            states.append(det.step(core.feats, w, 0))
+            scores.append(det.score)
+            while det.events.count:
+                i = det.events.pop()
+                e = det.events
+                events.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score[i]))
+            w += 1
+    assert axes == recs[0].counts.shape[1]
+    return states, scores, events
+
+
+def test_replay_gives_the_device_detectors_events_exactly(trained):
+    recs = field_stream()
+    res = replay([recs], trained, PROFILE)
+    states, scores, events = by_hand(recs, trained)
+    assert [al.STATE_NAMES.index(s) for s in res.windows["state"]] == states
+    assert np.array_equal(np.rint(res.windows["score"] * 256).astype(int), scores)
+    t = res.windows["t_s"]
+    want = [{"stream": res.streams[0], "t_s": float(t[w]), "from": al.STATE_NAMES[o], "to": al.STATE_NAMES[nw],
+             "reason": al.REASON_NAMES[rs], "mode": m if m >= 0 else None,
+             "feature": feature_name(f, trained, recs[0].axes) if f >= 0 else None, "score": s / 256}
+            for w, o, nw, rs, m, f, s in events]
+    assert res.events == want
+    reached = {e["to"] for e in res.events}
+    assert {"alert", "alarm", "idle", "sensor_fault"} <= reached, reached
+    # window times: t0_s of the recording plus the end of the window in it
+    n = trained["n"]
+    assert t[0] == pytest.approx(recs[0].t0_s + n / FS)
+    assert t[12] == pytest.approx(recs[1].t0_s + n / FS)
+
+
+def test_alarm_latched_in_one_recording_stays_latched_in_the_next(trained):
+    recs = field_stream()
+    rng = np.random.default_rng(3)
+    fault = recording(pump_counts(rng, 1480.0, 4.0, extra_hz=300.0, extra_counts=80.0), recs[5].t0_s, 1480.0, "fault")
+    after = recs[7:]
+    res = replay([[after[1], fault, after[0]]], trained, PROFILE)   # any order: sorted by t0_s
+    w = res.windows
+    first = w["recording"] == str(fault.path)
+    assert "alarm" in set(w["state"][first])
+    assert set(w["state"][~first]) == {"alarm"}
+    assert not any(e["from"] == "alarm" for e in res.events)
+    alone = replay([after], trained, PROFILE)
+    assert "alarm" not in set(alone.windows["state"])
+
+
+def test_recordings_without_a_gap_are_joined_sample_by_sample(trained):
+    rng = np.random.default_rng(5)
+    c = pump_counts(rng, 1480.0, 4.0)
+    cut = 3000                                    # not a multiple of the window: one window straddles
+    whole = replay([[recording(c, 500.0, 1480.0, "whole")]], trained, PROFILE)
+    parts = replay([[recording(c[:cut], 500.0, 1480.0, "a"), recording(c[cut:], 500.0 + cut / FS, 1480.0, "b")]],
+                   trained, PROFILE)
+    for key in ("t_s", "state", "score", "mode", "velocity_rms_mm_s"):
+        assert np.array_equal(whole.windows[key], parts.windows[key]), key
+
+
+def test_parallel_replay_equals_serial(trained):
+    streams = [field_stream(seed=1), healthy_stream(seed=2, per_point=2)]
+    one = replay(streams, trained, PROFILE, jobs=1)
+    two = replay(streams, trained, PROFILE, jobs=2)
+    assert one.events == two.events and one.summary == two.summary
+    assert all(np.array_equal(one.windows[k], two.windows[k]) for k in one.windows)
+    assert one.streams[0] != one.streams[1]
+
+
+def test_replay_command_writes_json_and_csv(tmp_path, capsys, trained):
+    import msgpack
+    write_recordings(tmp_path / "gw", field_stream())
+    params = tmp_path / "p.msgpack"
+    params.write_bytes(msgpack.packb(trained))
+    out, wcsv = tmp_path / "out.json", tmp_path / "w.csv"
+    assert main(["replay", str(tmp_path / "gw"), "--params", str(params), "--json", str(out),
+                 "--windows-csv", str(wcsv), "--jobs", "1"]) == 0
+    assert "sensor_fault" in capsys.readouterr().out
+    doc = json.loads(out.read_text())
+    assert set(doc) == {"sample_rate_hz", "streams", "events", "summary"}
+    assert doc["sample_rate_hz"] == FS
+    assert set(doc["events"][0]) == {"stream", "t_s", "from", "to", "reason", "mode", "feature", "score"}
+    rows = list(csv.DictReader(io.StringIO(wcsv.read_text())))
+    assert len(rows) == doc["summary"]["total"]["windows"]
+    for col in ("t_s", "state", "score", "mode", "accel_rms_m_s2", "velocity_rms_mm_s", "zone", "kurtosis_z"):
+        assert col in rows[0]
+    # refusals: a set for another board, one line, exit 2, nothing written
+    other = dict(trained, fs_hz=1600)
+    params.write_bytes(msgpack.packb(other))
+    out.unlink()
+    wcsv.unlink()
+    assert main(["replay", str(tmp_path / "gw"), "--params", str(params), "--json", str(out)]) == 2
+    assert capsys.readouterr().err.count("\n") == 1 and not out.exists()
+
+
+# --- the demo scenario: a check of our own invented data, not an external reference ----------------
+
+def _first(events, kinds, t0, t1):
+    return next((e["t_s"] for e in events if e["to"] in kinds and t0 <= e["t_s"] <= t1), None)
+
+
+def test_demo_scenario_detects_each_seeded_fault(tmp_path):
+    # OUR OWN DATA: the invented Brackwater scenario (host_tools.demo_scenario), 6-hourly snapshots
+    # over 28.5 days so every seeded fault occurs; train on the healthy week, replay the field part.
+    gt = json.loads(ds.write_scenario(tmp_path, days=28.5, interval_s=6 * 3600.0).read_text())
+    scale = gt["m_s2_per_count"]
+    figures = []
+    for pump in ("P-101", "P-102"):
+        p, summary = train(read_stream(tmp_path / pump / "training", FS, scale), PROFILE)
+        res = replay([tmp_path / pump / "field"], p, PROFILE)
+        faults = [f for f in gt["faults"] if f["pump"] == pump]
+        false = [e for e in res.events if e["to"] in ("alert", "alarm", "sensor_fault")
+                 and not any(f["start_t0_s"] <= e["t_s"] <= f["end_t0_s"] + 3600 for f in faults)]
+        figures.append(f"{pump}: alert {p['det_thr_alert_q8'] / 256:.2f}, {len(false)} false raises on the healthy span")
+        assert len(false) <= 1, false
+        for f in faults:
+            kinds = ("sensor_fault",) if f["kind"] == "loose_cable" else ("alert", "alarm")
+            t = _first(res.events, kinds, f["start_t0_s"], f["end_t0_s"])
+            assert t is not None, f"{pump} {f['kind']} not detected"
+            figures.append(f"{pump} {f['kind']}: {kinds[0] if len(kinds) == 1 else 'alert/alarm'} after "
+                           f"{(t - f['start_t0_s']) / 3600:.1f} h")
+    print("\ndemo scenario (our own data): " + "; ".join(figures))
