@@ -46,7 +46,7 @@ class Gateway:
         self.raw_valid = False
         self.gaps = array.array('i', bytes(4 * (profile["ring_windows"] + 1)))   # frames
         self.raw_gap = 0             # frames lost just before the last processed window
-        self.apply_params(store.params)
+        self.core, self.det = params_mod.build(store.params, profile)
 
     # ---- samples and windows ----
     def feed(self, src, frames):
@@ -135,15 +135,14 @@ class Gateway:
         Allocates; the old buffers become garbage, collected here rather than mid-window. Frames
         waiting in the old ring are lost: the raw stream reports them before the next window.
         """
-        if hasattr(self, "core"):
-            lost = self.core.ring.filled
-            g = self.gaps
-            for i in range(len(g)):
-                lost += g[i]
-                g[i] = 0
-            self._lose(self.windows, lost)
-            del self.core, self.det   # free the old buffers first: the heap holds one set, not two
-            gc.collect()
+        lost = self.core.ring.filled
+        g = self.gaps
+        for i in range(len(g)):
+            lost += g[i]
+            g[i] = 0
+        self._lose(self.windows, lost)
+        del self.core, self.det   # free the old buffers first: the heap holds one set, not two
+        gc.collect()
         self.core, self.det = params_mod.build(p, self.profile)
         self.dropped_seen = 0
 

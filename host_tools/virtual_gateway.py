@@ -18,9 +18,10 @@ as against a board.
   snapshots, gateway and command handler from those files, as a boot would; samples keep coming
   from where the recording had got to.
 - Link: os.openpty(); the slave end is put in raw mode (termios) and its name is .port, which a
-  host opens with pyserial. Replies are always queued; pushes (stream, raw) are dropped whole
-  when more than PUSH_BACKLOG bytes wait for a host that is not reading (counted in
-  push_dropped), as a slow link would lose them; the raw stream's window indices show the loss.
+  host opens with pyserial. Replies are always queued; the pushes (stream, raw) of a window are
+  dropped, all of them, when more than PUSH_BACKLOG bytes already wait for a host that is not
+  reading fast enough (counted in push_dropped, frames), as a slow link would lose them; the raw
+  stream's window indices show the loss.
 
 Run it in a thread for tests (start() / stop()), or in the foreground with run().
 """
@@ -102,7 +103,7 @@ class VirtualGateway:
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._tx = bytearray()
-        self._pushing = False
+        self._drop_pushes = False
         self._master, self._slave = os.openpty()
         tty.setraw(self._slave, termios.TCSANOW)   # no echo, no line editing: bytes pass unchanged
         os.set_blocking(self._master, False)
@@ -128,7 +129,7 @@ class VirtualGateway:
         self.boots += 1
 
     def _write(self, frame: bytes) -> None:
-        if self._pushing and len(self._tx) > PUSH_BACKLOG:
+        if self._drop_pushes:
             self.push_dropped += 1
             return
         self._tx += frame
@@ -147,11 +148,11 @@ class VirtualGateway:
         self.fed += k
         gw = self.gateway
         gw.feed(src, k)
-        self._pushing = True
+        self._drop_pushes = len(self._tx) > PUSH_BACKLOG    # for every push of these windows
         try:
             gw.poll()
         finally:
-            self._pushing = False
+            self._drop_pushes = False
         return True
 
     # ---- the link ----

@@ -60,15 +60,25 @@ class _Collector:
         self.first_w = first_w       # windows before this are left from an earlier session
         self.count = count           # windows wanted, from the first one received
         self.start: int | None = None
+        self.latest = -1             # highest window index seen, whole or not
         self.parts: list[Part] = []
-        self.missed = 0
         self._w = None
         self._buf = bytearray()
         self._meta: dict = {}
 
     @property
     def done(self) -> bool:
-        return self.start is not None and self._last_w() >= self.start + self.count - 1
+        """The span has been passed: every window of it arrived or never will."""
+        if self.start is None:
+            return False
+        end = self.start + self.count - 1
+        return self.latest > end or (bool(self.parts) and self._last_w() >= end)
+
+    @property
+    def missed(self) -> int:
+        """Windows of the span that did not arrive whole."""
+        got = sum(len(p.windows) for p in self.parts)
+        return (min(self.latest, self.start + self.count - 1) - self.start + 1 - got) if self.start is not None else 0
 
     def _last_w(self) -> int:
         p = self.parts[-1]
@@ -78,6 +88,9 @@ class _Collector:
         w = m["w"]
         if w < self.first_w:
             return
+        if self.start is None:
+            self.start = w
+        self.latest = max(self.latest, w)
         if m["off"] == 0:
             self._w, self._buf, self._meta = w, bytearray(m["data"]), m
         elif w == self._w and m["off"] == len(self._buf):
@@ -90,14 +103,10 @@ class _Collector:
             self._w = None
 
     def _window(self, w: int, frames: np.ndarray, meta: dict) -> None:
-        if self.start is None:
-            self.start = w
         if w >= self.start + self.count:
             return
         t_end = meta["t_s"] + meta["ms"] / 1000.0
         contiguous = bool(self.parts) and w == self._last_w() + 1 and meta["gap"] == 0
-        if self.parts and not contiguous:
-            self.missed += w - self._last_w() - 1
         if not contiguous:
             self.parts.append(Part(w, t_end - self.n / self.fs))
         self.parts[-1].windows.append(frames)
@@ -137,6 +146,8 @@ def run(args: argparse.Namespace) -> int:
             except LinkError:
                 pass
         elapsed = time.monotonic() - t_start
+    if not col.parts:
+        raise LinkError(f"no whole raw window arrived from {args.port} in the span recorded")
     written = _write_parts(out, col, frames_wanted, scale, info)
     total_frames = sum(f for _, f in written)
     names = ", ".join(str(p) for p, _ in written)
@@ -144,8 +155,8 @@ def run(args: argparse.Namespace) -> int:
     print(f"recorded {total_frames / fs:.3f} s ({total_frames} frames x {axes} axes) from {args.port} "
           f"into {names}; {rate_kb:.1f} kB/s over the link")
     if col.missed:
-        print(f"missed {col.missed} windows ({col.missed * n / fs:.3f} s): the recording is split "
-              f"into {len(written)} gap-free parts, never joined across a gap")
+        print(f"missed {col.missed} windows ({col.missed * n / fs:.3f} s): written as {len(written)} "
+              "gap-free parts, never joined across a gap")
     return 0
 
 

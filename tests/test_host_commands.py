@@ -1,0 +1,342 @@
+"""The host commands end to end: `edgevib` in this process, through pyserial on the pseudo-terminal
+of a virtual gateway running in a thread (real firmware_py Gateway, Service and parameter store)."""
+import binascii
+import io
+import math
+import re
+
+import numpy as np
+import pytest
+
+import firmware_py  # noqa: F401
+from firmware_py import params as params_mod
+from firmware_py.paramstore import build_image
+from host_tools import virtual_gateway
+from host_tools.commands import flash as flash_cmd
+from host_tools.commands import monitor as monitor_cmd
+from host_tools.commands import record as record_cmd
+from host_tools.errors import LinkError
+from host_tools.link import Client
+from host_tools.recording import read_recording
+from tests.test_emulate import (
+    CPG, FS, M_S2_PER_COUNT, N, PROFILE, SINES, T0, emulator, fault_recording, param_body, run_cli,
+    sine_recording)
+
+KEY = b"brackwater site key, pumps P-101 and P-102"
+
+
+@pytest.fixture
+def idle_gateway(tmp_path):
+    """A virtual gateway that has played 3 s of sines and now idles, answering the link."""
+    with emulator(sine_recording(tmp_path / "s.wav", seconds=3.0), tmp_path / "state", speed=0) as vg:
+        assert vg.ended.wait(10)
+        yield vg
+
+
+def _set_file(path, version, **changes):
+    path.write_bytes(param_body(version, **changes))
+    return path
+
+
+def _one_line(err):
+    return err.count("\n") == 1 and err.startswith("edgevib: error: ")
+
+
+def test_flash_verifies_commits_and_reads_back(idle_gateway, tmp_path, capsys):
+    vg = idle_gateway
+    f = _set_file(tmp_path / "v1.msgpack", 1, det_thr_alert_q8=6 * 256)
+    rc, out, err = run_cli(capsys, "flash", f, "--port", vg.port)
+    image = build_image(f.read_bytes())
+    crc = binascii.crc32(image[:-4])            # reference CRC-32 (zlib/binascii, IEEE 802.3)
+    assert rc == 0 and err == ""
+    assert f"flashed version 1 (CRC 0x{crc:08x}, {len(image)} bytes)" in out
+    assert vg.gateway.det.thr_alert == 6 * 256            # the running detector took the new set
+    c = Client.open(vg.port)
+    try:
+        assert c.param_read() == image
+        info = c.identify()
+        assert info["param_version"] == 1 and info["param_crc"] == crc and info["param_previous"] is None   # factory set: no rollback
+    finally:
+        c.close()
+
+
+def test_flash_refusals_are_one_line_and_change_nothing(idle_gateway, tmp_path, capsys):
+    vg = idle_gateway
+    good = _set_file(tmp_path / "v1.msgpack", 1)
+    assert run_cli(capsys, "flash", good, "--port", vg.port)[0] == 0
+    other = _set_file(tmp_path / "pico.msgpack", 2, board="pico-adxl345")
+    rc, out, err = run_cli(capsys, "flash", other, "--port", vg.port)
+    assert rc == 2 and out == "" and _one_line(err) and "set is for board 'pico-adxl345'" in err
+    slow = _set_file(tmp_path / "rate.msgpack", 2, fs_hz=1600)
+    rc, out, err = run_cli(capsys, "flash", slow, "--port", vg.port)
+    assert rc == 2 and _one_line(err) and "1600 Hz" in err
+    (tmp_path / "list.msgpack").write_bytes(b"\x93\x01\x02\x03")          # [1, 2, 3]
+    rc, out, err = run_cli(capsys, "flash", tmp_path / "list.msgpack", "--port", vg.port)
+    assert rc == 2 and _one_line(err) and "is a list" in err
+    rc, out, err = run_cli(capsys, "flash", tmp_path / "missing.msgpack", "--port", vg.port)
+    assert rc == 2 and _one_line(err) and "cannot read" in err
+    rc, out, err = run_cli(capsys, "flash", good, "--port", str(tmp_path / "no-such-port"))
+    assert rc == 3 and _one_line(err) and "cannot open serial port" in err
+    c = Client.open(vg.port)
+    try:
+        assert c.identify()["param_version"] == 1 and c.param_read() == build_image(good.read_bytes())
+    finally:
+        c.close()
+
+
+def test_link_cut_mid_upload_never_half_applies(tmp_path, capsys):
+    rec = sine_recording(tmp_path / "s.wav", seconds=1.0)
+    state = tmp_path / "state"
+    v1 = _set_file(tmp_path / "v1.msgpack", 1)
+    v2_image = build_image(param_body(2, det_thr_alert_q8=3 * 256))
+    with emulator(rec, state, speed=0) as vg:
+        assert run_cli(capsys, "flash", v1, "--port", vg.port)[0] == 0
+        # The host's port goes away after the first chunk (cable pulled).
+        c = Client.open(vg.port, timeout_s=0.3, retries=0)
+        with pytest.raises(LinkError):
+            flash_cmd.flash(c, v2_image, progress=lambda done, total: c.link.transport.close())
+        assert vg.gateway.params.version == 1 and vg.gateway.det.thr_alert == 5 * 256
+        # The gateway loses power during a second attempt's upload.
+        c = Client.open(vg.port, timeout_s=0.3, retries=0)
+        with pytest.raises(LinkError):
+            flash_cmd.flash(c, v2_image, progress=lambda done, total: vg.stop())
+        c.close()
+    with emulator(rec, state, speed=0) as vg:
+        c = Client.open(vg.port)
+        try:
+            assert c.identify()["param_version"] == 1
+            assert c.param_read() == build_image(v1.read_bytes())
+        finally:
+            c.close()
+        # and a whole upload afterwards goes through
+        (tmp_path / "v2.msgpack").write_bytes(param_body(2, det_thr_alert_q8=3 * 256))
+        rc, out, err = run_cli(capsys, "flash", tmp_path / "v2.msgpack", "--port", vg.port)
+        assert rc == 0 and "flashed version 2" in out and vg.gateway.det.thr_alert == 3 * 256
+
+
+def test_rollback(idle_gateway, tmp_path, capsys):
+    vg = idle_gateway
+    rc, out, err = run_cli(capsys, "rollback", "--port", vg.port)
+    assert rc == 2 and _one_line(err) and "no previous parameter set" in err
+    v1, v2 = _set_file(tmp_path / "v1.msgpack", 1), _set_file(tmp_path / "v2.msgpack", 2)
+    for f in (v1, v2):
+        assert run_cli(capsys, "flash", f, "--port", vg.port)[0] == 0
+    rc, out, err = run_cli(capsys, "rollback", "--port", vg.port)
+    crc = binascii.crc32(build_image(v1.read_bytes())[:-4])
+    assert rc == 0 and out == f"rolled back from version 2 to version 1 (CRC 0x{crc:08x})\n"
+    assert vg.gateway.params.image == build_image(v1.read_bytes())
+
+
+def test_signed_flash_and_rollback(tmp_path, capsys):
+    rec = sine_recording(tmp_path / "s.wav", seconds=1.0)
+    key_file = tmp_path / "site.key"
+    key_file.write_bytes(KEY)
+    v1, v2 = _set_file(tmp_path / "v1.msgpack", 1), _set_file(tmp_path / "v2.msgpack", 2)
+    with emulator(rec, tmp_path / "state", speed=0, key=KEY) as vg:
+        rc, out, err = run_cli(capsys, "flash", v1, "--port", vg.port)
+        assert rc == 2 and _one_line(err) and "accepts only signed sets" in err
+        for f in (v1, v2):
+            rc, out, err = run_cli(capsys, "flash", f, "--port", vg.port, "--key-file", key_file)
+            assert rc == 0 and "signed" in out
+        rc, out, err = run_cli(capsys, "flash", v1, "--port", vg.port, "--key-file", key_file)
+        assert rc == 2 and "version 1 is not newer than committed 2" in err     # no replay of old sets
+        rc, out, err = run_cli(capsys, "rollback", "--port", vg.port)
+        assert rc == 2 and _one_line(err) and "signature" in err
+        rc, out, err = run_cli(capsys, "rollback", "--port", vg.port, "--key-file", key_file)
+        assert rc == 0 and "from version 2 to version 1" in out
+        (tmp_path / "short.key").write_bytes(b"abc")
+        rc, out, err = run_cli(capsys, "rollback", "--port", vg.port, "--key-file", tmp_path / "short.key")
+        assert rc == 2 and _one_line(err) and "at least 16 bytes" in err
+
+
+def _fields(line):
+    return dict(kv.split("=", 1) for kv in line.split()[1:])
+
+
+def test_monitor_once_in_physical_units(idle_gateway, capsys):
+    rc, out, err = run_cli(capsys, "monitor", "--port", idle_gateway.port, "--once")
+    assert rc == 0 and out.count("\n") == 1
+    f = _fields(out)
+    assert f["state"] == "normal" and f["windows"] == "18" and f["dropped"] == "0"
+    for axis, (amp, hz) in enumerate(SINES):
+        a_peak = amp * M_S2_PER_COUNT
+        # Sine identities (handbook): r.m.s. = peak / sqrt 2; velocity amplitude = a / (2 pi f);
+        # crest factor sqrt 2; kurtosis (Pearson) 1.5.
+        vel = float(f["vel_mm_s"].split(",")[axis])
+        assert vel == pytest.approx(a_peak / (2 * math.pi * hz) / math.sqrt(2) * 1000, rel=0.03)
+        assert float(f["rms_m_s2"].split(",")[axis]) == pytest.approx(a_peak / math.sqrt(2), rel=0.03)
+        assert float(f["crest"].split(",")[axis]) == pytest.approx(math.sqrt(2), rel=0.03)
+        assert float(f["kurt"].split(",")[axis]) == pytest.approx(1.5, rel=0.03)
+    # 1.72 mm/s on x: zone B of ISO 10816-3 group 2 rigid (1.4-2.8 mm/s; from memory)
+    assert f["zone"] == "B"
+
+
+def test_monitor_follows_the_stream(tmp_path, capsys):
+    rec = sine_recording(tmp_path / "s.wav", seconds=20.0)
+    with emulator(rec, tmp_path / "state", speed=4) as vg:
+        rc, out, err = run_cli(capsys, "monitor", "--port", vg.port, "--updates", "4")
+        assert rc == 0
+        lines = out.splitlines()
+        assert len(lines) == 4
+        windows = [int(_fields(ln)["windows"]) for ln in lines]
+        assert windows == list(range(windows[0], windows[0] + 4))      # one update per window
+        assert not vg.gateway.streaming                                  # stream stopped on exit
+
+
+def test_monitor_redraws_a_fixed_block_in_place(idle_gateway):
+    c = Client.open(idle_gateway.port)
+    try:
+        view = monitor_cmd.view_of(c, idle_gateway.port)
+        st = c.status()
+    finally:
+        c.close()
+    block = monitor_cmd.render_block(st, view)
+    screen = io.StringIO()
+    draw = monitor_cmd._Screen(screen)
+    draw.draw(block)
+    draw.draw(block)
+    text = screen.getvalue()
+    assert text.count("\x1b[2K") == 2 * len(block)
+    assert text.count(f"\x1b[{len(block)}F") == 1      # the second frame starts at the first's top
+    assert "state NORMAL" in text and "ISO zone B" in text and "\x1b[3" not in text   # no colours
+
+
+def _demo_recording(path, seconds):
+    """Invented demo data (P-101, a healthy day), varied enough for sample-exact comparison."""
+    from host_tools import demo_scenario as ds
+    from host_tools.recording import write_wav
+    sc = ds.build_scenario()
+    snap = ds.Snapshot("P-101", sc.start_t0_s + 3.5 * 86400, seconds)
+    return write_wav(path, ds.synthesize(sc, snap), ds.FS_HZ, ds.snapshot_sidecar(sc, snap))
+
+
+def test_record_equals_the_source_samples(tmp_path, capsys):
+    rec = _demo_recording(tmp_path / "demo.wav", 12.0)
+    src = read_recording(rec)
+    with emulator(rec, tmp_path / "state", speed=8) as vg:
+        rc, out, err = run_cli(capsys, "record", "--port", vg.port, "--seconds", "1.5",
+                               "--out", tmp_path / "got.wav")
+        assert rc == 0 and "missed" not in out
+    got = read_recording(tmp_path / "got.wav")
+    side = got.sidecar
+    first = vg.frame_of_window(side["first_window"])
+    assert got.n_frames == int(1.5 * FS) and got.sample_rate_hz == FS
+    assert np.array_equal(got.counts, src.counts[first:first + got.n_frames])
+    assert side["m_s2_per_unit"] == pytest.approx(9.80665 / CPG, rel=1e-12)   # ISO 80000-3 gravity
+    assert got.t0_s == pytest.approx(src.t0_s + first / FS, abs=1.0)          # the clock ticks in s
+    assert got.axes == ("x", "y", "z") and side["param_version"] == 0
+    assert not vg.gateway.raw_on                                              # stream stopped
+
+
+class _SlowLink(virtual_gateway.VirtualGateway):
+    """A virtual gateway whose link carries 48 bytes per FIFO block: half the raw stream's
+    3 KB per window, so pushes back up and whole windows are dropped."""
+
+    def _flush(self):
+        held = self._tx[48:]
+        del self._tx[48:]
+        super()._flush()
+        self._tx += held
+
+
+def test_record_splits_at_missed_windows_and_never_splices(tmp_path, capsys, monkeypatch):
+    rec = _demo_recording(tmp_path / "demo.wav", 30.0)
+    src = read_recording(rec)
+    monkeypatch.setattr(virtual_gateway, "PUSH_BACKLOG", 3000)
+    vg = _SlowLink(rec, PROFILE, tmp_path / "state", speed=0).start()
+    try:
+        rc, out, err = run_cli(capsys, "record", "--port", vg.port, "--seconds", 24 * N / FS,
+                               "--out", tmp_path / "got.wav")
+    finally:
+        vg.stop()
+    assert rc == 0, err
+    parts = sorted(tmp_path.glob("got*.wav"))
+    found = re.search(r"^missed (\d+) windows", out, re.M)
+    missed = int(found.group(1)) if found else 0
+    assert missed > 0 and len(parts) >= 2 and f"written as {len(parts)} gap-free parts" in out
+    total = 0
+    for p in parts:
+        got = read_recording(p)
+        first = vg.frame_of_window(got.sidecar["first_window"])
+        assert np.array_equal(got.counts, src.counts[first:first + got.n_frames])     # each part exact
+        total += got.n_frames
+    assert total + missed * N == 24 * N
+
+
+def test_record_collector_joins_only_contiguous_windows():
+    col = record_cmd._Collector(4, 1, 3200, first_w=10, count=8)
+    win = {w: np.full(8, w, np.uint8).tobytes() for w in range(9, 20)}
+
+    def send(w, gap=0, chunks=(0, 4)):
+        for off in chunks:
+            col.chunk({"w": w, "gap": gap, "t_s": 100 + w, "ms": 0, "off": off, "total": 8,
+                       "data": win[w][off:off + 4]})
+
+    send(9)                      # left from an earlier session: ignored
+    send(10)
+    send(11)
+    send(13)                     # 12 never arrived
+    send(14, gap=7)              # frames lost just before 14
+    send(15, chunks=(0,))        # second chunk lost: 15 is incomplete
+    send(16)
+    send(17, chunks=(0,))
+    assert not col.done          # the last window of the span is still coming
+    send(17, chunks=(4,))
+    assert col.done
+    assert [(p.w0, len(p.windows)) for p in col.parts] == [(10, 2), (13, 1), (14, 1), (16, 2)]
+    assert col.missed == 2        # 12 and 15
+    assert col.parts[1].t0_s == pytest.approx(113 - 4 / 3200)
+
+
+def test_record_bad_input(idle_gateway, tmp_path, capsys):
+    rc, out, err = run_cli(capsys, "record", "--port", idle_gateway.port, "--seconds", "0", "--out", tmp_path / "a.wav")
+    assert rc == 2 and _one_line(err) and "--seconds" in err
+    rc, out, err = run_cli(capsys, "record", "--port", idle_gateway.port, "--seconds", "1", "--out", tmp_path / "a.csv")
+    assert rc == 2 and _one_line(err) and ".wav" in err
+    assert list(tmp_path.glob("a.*")) == []
+
+
+def test_events_are_the_windows_that_raised_them(tmp_path, capsys):
+    rec = fault_recording(tmp_path / "fault.wav")
+    src = read_recording(rec)
+    with emulator(rec, tmp_path / "state", speed=0) as vg:
+        assert vg.ended.wait(20)
+        rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--out", tmp_path / "ev")
+        assert rc == 0 and "pulled 2 event snapshots" in out
+        on_device = {e["id"]: e for e in vg.gateway.snapshots.list()}
+    wavs = sorted((tmp_path / "ev").glob("*.wav"))
+    assert [p.name for p in wavs] == ["event_00000_alert.wav", "event_00001_alarm.wav"]
+    core = params_mod.feature_core(params_mod.factory(PROFILE), PROFILE)
+    half_window = src.n_frames // 2 // N
+    for p in wavs:
+        got = read_recording(p)
+        side = got.sidecar
+        # The raw window must be one whole window of the source, at a window boundary, after the
+        # loud imbalance began.
+        at = [k for k in range(src.n_frames // N) if np.array_equal(src.counts[k * N:(k + 1) * N], got.counts)]
+        assert len(at) == 1 and at[0] >= half_window
+        k = at[0]
+        assert side["t"] == int(src.t0_s) + (k + 1) * N // FS             # saved right after window k
+        assert side["kind"] == p.stem.split("_")[2] == on_device[side["event_id"]]["kind"]
+        # its features are the ones the feature core computes for that window
+        core.ring.push(np.ascontiguousarray(got.counts).ravel(), N)
+        assert core.process()
+        core.ring.release()
+        assert side["features"] == list(core.feats)
+        # velocity r.m.s. 10-1000 Hz from numpy: Hann window, spectrum divided by (2 pi f)^2
+        x = got.counts[:, 0] * M_S2_PER_COUNT
+        w = np.hanning(N + 1)[:N]
+        spec = np.abs(np.fft.rfft((x - x.mean()) * w)) ** 2 * 2 / (np.sum(w ** 2) * N)
+        f = np.fft.rfftfreq(N, 1 / FS)
+        band = (f >= 10) & (f <= 1000)
+        v_rms = math.sqrt(np.sum(spec[band] / (2 * math.pi * f[band]) ** 2)) * 1000
+        assert side["features_summary"]["x"]["vel_mm_s"] == pytest.approx(v_rms, rel=0.05)
+        assert v_rms > 7.1      # the added 12 mm/s imbalance: above zone D of every default table
+
+
+def test_events_bad_output(idle_gateway, tmp_path, capsys):
+    (tmp_path / "file").write_text("x")
+    rc, out, err = run_cli(capsys, "events", "--port", idle_gateway.port, "--out", tmp_path / "file")
+    assert rc == 2 and _one_line(err) and "not a folder" in err
+    rc, out, err = run_cli(capsys, "events", "--port", idle_gateway.port, "--out", tmp_path / "none")
+    assert rc == 0 and "pulled 0 event snapshots" in out
