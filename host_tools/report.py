@@ -83,12 +83,13 @@ DETECTED_BY = {"bearing_outer_race": (ALERT, ALARM), "cavitation": (ALERT, ALARM
 class Windows:
     """Per-window arrays of a replay: t_s (s, recordings' clock), state (int, alarm.STATE_NAMES
     order), score (spreads of the nearest mode; 0 when not evaluated), velocity (mm/s r.m.s.,
-    largest axis)."""
+    largest axis), mode (nearest mode, -1 none or not given)."""
 
     t_s: np.ndarray
     state: np.ndarray
     score: np.ndarray
     velocity_mm_s: np.ndarray
+    mode: np.ndarray            # nearest mode, -1 none
 
 
 def _get(result: Any, name: str) -> Any:
@@ -110,8 +111,10 @@ def windows_of(result: Any, stream: int | None = None) -> Windows:
     src = _get(result, "windows")
     src = src if isinstance(src, dict) else result
 
-    def col(name: str) -> np.ndarray:
+    def col(name: str, default: Any = None) -> np.ndarray:
         v = _get(src, name)
+        if v is None and default is not None:
+            v = np.full(len(_get(src, "t_s")), default)
         if v is None:
             raise EdgevibError(f"replay result has no per-window {name!r}")
         v = np.asarray(v)
@@ -123,7 +126,7 @@ def windows_of(result: Any, stream: int | None = None) -> Windows:
     states = col("state")
     code = np.array([state_code(s) for s in states.tolist()], dtype=int) if states.dtype.kind in "OUS" \
         else states.astype(int)
-    return Windows(col("t_s").astype(float), code, col("score").astype(float), vel)
+    return Windows(col("t_s").astype(float), code, col("score").astype(float), vel, col("mode", -1).astype(int))
 
 
 def one_stream(result: Any, stream: str | None = None) -> tuple[Windows, list[dict], Any]:
@@ -262,9 +265,11 @@ def _pyplot():
 
 
 def _style(ax) -> None:
-    from matplotlib.ticker import FuncFormatter, NullFormatter
+    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
     ax.grid(True, which="major", color=GRID, lw=0.7)
     if ax.get_yscale() == "log":
+        # ticks at 1, 2 and 5 per decade, so a span under one decade still gets labels
+        ax.yaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
         ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
         ax.yaxis.set_minor_formatter(NullFormatter())
     ax.set_axisbelow(True)
@@ -466,18 +471,18 @@ class _WindowSamples:
 
 def event_windows(ev: dict, w: Windows, p: dict) -> tuple[list[float], list[float]]:
     """End times of the windows at the event (the persistence window: det_n windows ending at
-    the event's, within one snapshot) and just before it (the SPECTRUM_WINDOWS latest running
-    windows, not idle or sensor fault, before those)."""
+    the event's, within one snapshot) and just before it: the SPECTRUM_WINDOWS latest running
+    windows (not idle or sensor fault) before those, in the event's mode when it has one and
+    such windows exist, so that the comparison is at the same operating point."""
     i = min(int(np.searchsorted(w.t_s, float(ev["t_s"]) - 1e-6)), len(w.t_s) - 1)
     window_s = p["n"] / float(p["fs_hz"])
     at = [i]
     while len(at) < int(p.get("det_n", 5)) and at[0] > 0 and w.t_s[at[0]] - w.t_s[at[0] - 1] < 1.5 * window_s:
         at.insert(0, at[0] - 1)
-    before, j = [], at[0] - 1
-    while j >= 0 and len(before) < SPECTRUM_WINDOWS:
-        if w.state[j] not in (IDLE, SENSOR_FAULT):
-            before.insert(0, j)
-        j -= 1
+    running = np.flatnonzero((w.state[:at[0]] != IDLE) & (w.state[:at[0]] != SENSOR_FAULT))
+    mode = ev.get("mode")
+    same = running[w.mode[running] == mode] if mode is not None and mode >= 0 else running[:0]
+    before = (same if len(same) else running)[-SPECTRUM_WINDOWS:]
     return [float(w.t_s[j]) for j in before], [float(w.t_s[j]) for j in at]
 
 
@@ -568,12 +573,16 @@ def _table(head: Sequence[str], rows: Sequence[Sequence[str]], num: Sequence[int
     return f"<table><tr>{h}</tr>{body}</table>"
 
 
-def _summary_rows(summary: Any) -> list[list[str]]:
+def _summary_rows(summary: Any, clock: Clock) -> list[list[str]]:
+    """One row per item; times (keys ending in t_s or _t_s) as the tables show them."""
     if not isinstance(summary, dict):
         return [["summary", _esc(summary)]] if summary else []
     rows = []
     for k, v in summary.items():
-        text = json.dumps(v, sort_keys=True) if isinstance(v, (dict, list)) else str(v)
+        if k.endswith("t_s") and isinstance(v, (int, float)) and not isinstance(v, bool):
+            text = clock.label(float(v))
+        else:
+            text = json.dumps(v, sort_keys=True) if isinstance(v, (dict, list)) else str(v)
         rows.append([_esc(k), _esc(text if len(text) < 400 else text[:400] + " ...")])
     return rows
 
@@ -654,8 +663,10 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
              "velocity.png": plot_velocity(w, p, clock, window_s, faults, f"{who}: velocity r.m.s. and ISO zones")}
     src = _WindowSamples(recs, p)
     raising = [i for i, e in enumerate(events) if state_code(e["to"]) in _RAISES]
+    # machine raises before sensor faults when there are more than the plots allowed
+    chosen = sorted(sorted(raising, key=lambda i: state_code(events[i]["to"]) == SENSOR_FAULT)[:MAX_SPECTRA])
     spectra: dict[int, str] = {}
-    for i in raising[:MAX_SPECTRA]:
+    for i in chosen:
         name = f"spectrum_{len(spectra) + 1:02d}.png"
         files[name] = plot_event_spectrum(events[i], i + 1, w, p, src, clock, axes)
         spectra[i] = name
@@ -676,6 +687,8 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
               "The band above shows the state; an alert needs the score over its threshold on "
               f'{p.get("det_k", "k")} of the last {p.get("det_n", "n")} windows.</p>',
               '<img src="score.png" alt="score over time with thresholds">',
+              "<p>An alarm stays latched until it is acknowledged on the gateway; a replay acknowledges nothing, "
+              "so once raised it stays to the end.</p>",
               "<h2>Velocity r.m.s. and ISO zones</h2>",
               '<img src="velocity.png" alt="velocity r.m.s. against ISO zone boundaries">',
               f"<h2>Events ({len(events)})</h2>", _events_table(events, spectra, p, axes, clock)]
@@ -684,10 +697,11 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
         left = len(raising) - len(spectra)
         parts.append("<p>Averaged acceleration spectrum of the running windows just before the event (grey) "
                      "and of the persistence window that raised it, on the axis of the driving feature."
-                     + (f" {left} later raising event(s) have no plot here." if left else "") + "</p>")
+                     + (f" {left} more raising event(s) have no plot here (alerts and alarms go first, then "
+                        f"sensor faults, up to {MAX_SPECTRA} plots)." if left else "") + "</p>")
         parts += [f'<img id="spectrum-{i + 1}" src="{name}" alt="spectrum around event {i + 1}">'
                   for i, name in spectra.items()]
-    rows = _summary_rows(summary)
+    rows = _summary_rows(summary, clock)
     if rows:
         parts += ["<h2>Replay summary</h2>", _table(("item", "value"), rows)]
     parts.append("</body></html>\n")
