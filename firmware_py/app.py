@@ -302,10 +302,14 @@ class App:
         if k:
             self.service.receive(self._rx, k)
             gw = self.gw
-            if not self.safe and getattr(gw, "det", None) is None:
-                # a committed set that cannot be built: run the one before it, or the factory set
+            if not self.safe and not hasattr(gw, "det"):
+                # A committed set that cannot be built left the gateway without a detector: run
+                # the set before it, or the factory set, in a new gateway (keeping the clock).
                 self._quarantine(gw.params)
-                gw.apply_params(gw.params.params)
+                self.gw = self._gateway(gw.params, gw.snapshots)
+                self.gw.clock_base = gw.clock_base
+                self.gw.service = self.service
+                self.service.gw = self.gw
 
     def _check_flow(self, now):
         gw = self.gw
