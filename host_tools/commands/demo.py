@@ -17,8 +17,6 @@ DIR is replaced only when it is empty or holds an earlier demo.
 from __future__ import annotations
 
 import argparse
-import csv
-import io
 import json
 import os
 import shutil
@@ -34,7 +32,7 @@ from host_tools.errors import EdgevibError
 HELP = "run the invented two-pump demo: generate data, check, train, replay, report"
 
 DEFAULT_DAYS = 42.0           # six weeks: every seeded fault of the scenario happens in them
-DEFAULT_INTERVAL_S = 7200.0   # one 4 s snapshot every 2 hours (plus one at each stop and start)
+DEFAULT_INTERVAL_S = 10800.0  # one 4 s snapshot every 3 hours (plus one at each stop and start): about a minute on 2 cores
 _MARKER = "demo.json"         # what a finished demo folder holds, so a rerun may replace it
 
 
@@ -121,6 +119,7 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
     import msgpack
 
     from firmware_py import params as pm
+    from host_tools.commands.replay import windows_csv
     from host_tools.commands.train import load_board
     from host_tools.recording import read_stream
     from host_tools.replay import m_s2_per_count, replay
@@ -147,7 +146,10 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
     (folder / "params.msgpack").write_bytes(msgpack.packb(params, use_bin_type=True))
     (folder / "params.json").write_text(json.dumps(summary, indent=1) + "\n")
     (folder / "events.json").write_text(json.dumps(result.to_json(), indent=1) + "\n")
-    (folder / "windows.csv").write_text(windows_csv(result.windows, work))
+    # recordings named relative to the demo folder, so the CSV stays right once it is moved
+    result.windows["recording"] = np.array([os.path.relpath(p, work) for p in result.windows["recording"].tolist()],
+                                           dtype=object)
+    (folder / "windows.csv").write_text(windows_csv(result))
     write_report(folder / "report", result, params, field, truth)
     faults = pump_faults(truth, pump)
     t_from = field[0].t0_s
@@ -160,23 +162,6 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
             "modes": summary["modes"]["k"], "warnings": summary.get("warnings", []),
             "false": false_raises(result.events, faults, t_from, t_to),
             "detections": detections(result.events, faults)}
-
-
-def windows_csv(windows: dict[str, np.ndarray], root: Path) -> str:
-    """One row per window, columns as the replay names them; recording paths relative to the
-    demo folder, numbers at full precision."""
-    keys = list(windows)
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(keys)
-    cols = []
-    for k in keys:
-        v = windows[k]
-        if k == "recording":
-            v = np.array([os.path.relpath(p, root) for p in v.tolist()], dtype=object)
-        cols.append(v.tolist())
-    w.writerows(zip(*cols))
-    return buf.getvalue()
 
 
 def _when(t_s: float, start: float) -> str:
