@@ -217,10 +217,6 @@ class VirtualGateway:
         self._thread.start()
         return self
 
-    def stop_soon(self) -> None:
-        """Ask run() to return (safe from a signal handler)."""
-        self._stop.set()
-
     def stop(self) -> None:
         """Stop running and close the pseudo-terminal (a power cut, as far as the host can tell)."""
         self._stop.set()

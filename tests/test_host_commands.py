@@ -288,6 +288,13 @@ def test_record_collector_joins_only_contiguous_windows():
     assert col.parts[1].t0_s == pytest.approx(113 - 4 / 3200)
 
 
+def test_record_from_a_gateway_that_stopped_sampling(idle_gateway, tmp_path, capsys, monkeypatch):
+    monkeypatch.setattr(record_cmd, "STALL_S", 0.3)
+    rc, out, err = run_cli(capsys, "record", "--port", idle_gateway.port, "--seconds", "1", "--out", tmp_path / "a.wav")
+    assert rc == 3 and _one_line(err) and "no raw window" in err
+    assert list(tmp_path.glob("a.*")) == [] and not idle_gateway.gateway.raw_on
+
+
 def test_record_bad_input(idle_gateway, tmp_path, capsys):
     rc, out, err = run_cli(capsys, "record", "--port", idle_gateway.port, "--seconds", "0", "--out", tmp_path / "a.wav")
     assert rc == 2 and _one_line(err) and "--seconds" in err

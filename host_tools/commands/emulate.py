@@ -14,6 +14,7 @@ import shutil
 import signal
 import sys
 import tempfile
+import threading
 
 from host_tools.device_link import read_key
 from host_tools.virtual_gateway import DESK_BOARD, VirtualGateway, load_profile
@@ -46,9 +47,16 @@ def run(args: argparse.Namespace) -> int:
         if vg.saturated:
             print(f"edgevib emulate: {vg.saturated} samples beyond the converter's range are saturated, "
                   "as the board's sensor would read them", file=sys.stderr, flush=True)
-        signal.signal(signal.SIGTERM, lambda *_: vg.stop_soon())
-        signal.signal(signal.SIGINT, lambda *_: vg.stop_soon())
-        vg.run()
+        stop = threading.Event()
+        signal.signal(signal.SIGTERM, lambda *_: stop.set())
+        signal.signal(signal.SIGINT, lambda *_: stop.set())
+        vg.start()
+        told = False
+        while not stop.wait(0.2):
+            if vg.ended.is_set() and not told:
+                then = "starting it again" if args.loop else "idling, still answering (Ctrl-C to stop)"
+                print(f"edgevib emulate: the recording has played to its end; {then}", file=sys.stderr, flush=True)
+                told = True
         vg.stop()
     finally:
         if temp:
