@@ -312,7 +312,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     summary = {
         "board": p["board"], "version": p["version"], "fs_hz": p["fs_hz"], "n": p["n"], "window_s": window_s,
         "streams": len(streams), "recordings": sum(len(s) for s in streams), "machines": machines,
-        "windows": {"total": n_windows, "idle_or_held_off_or_sensor": n_windows - n_scored, "scored": n_scored,
+        "windows": {"total": n_windows, "not_scored": n_windows - n_scored, "scored": n_scored,
                     "iso_zone_c_or_d": n_zone_c, "used": n_use, "held_out_scores": int(len(held_scores))},
         "hours": {"recorded": n_windows * window_s / 3600, "running_used": n_use * window_s / 3600},
         "idle_floor": {"q8_counts": idle, "m_s2": idle / 256 * scale, "rule": idle_rule},

@@ -133,6 +133,9 @@ def test_replay_command_writes_json_and_csv(tmp_path, capsys, trained):
     assert len(rows) == doc["summary"]["total"]["windows"]
     for col in ("t_s", "state", "score", "mode", "accel_rms_m_s2", "velocity_rms_mm_s", "zone", "kurtosis_z"):
         assert col in rows[0]
+    assert float(rows[1]["t_s"]) - float(rows[0]["t_s"]) == pytest.approx(trained["n"] / FS, abs=1e-3)
+    t_alarm = next(e["t_s"] for e in doc["events"] if e["to"] == "alarm")
+    assert next(r["state"] for r in rows if abs(float(r["t_s"]) - t_alarm) < 1e-3) == "alarm"
     # refusals: a set for another board, one line, exit 2, nothing written
     other = dict(trained, fs_hz=1600)
     params.write_bytes(msgpack.packb(other))

@@ -1,5 +1,18 @@
 """`edgevib replay REC... --params PARAMS.msgpack`: recordings through the exact device detector.
 
+OUT.json (--json): {"sample_rate_hz": float, "streams": [stream names], "events": [...],
+"summary": {"streams": {name: s}, "total": s}}. An event: {"stream", "t_s" (window end, s, the
+recordings' clock), "from", "to" (state names), "reason" (firmware_py.alarm.REASON_NAMES), "mode"
+(int or null), "feature" (e.g. "velocity_rms axis z", or null), "score" (spreads of the nearest
+mode)}. A summary s: recordings, windows, observed_s, t_first_s, t_last_s, windows_per_state
+{state: count}, alerts, alarms, sensor_faults (events into those states), first_alert_t_s,
+first_alarm_t_s, first_sensor_fault_t_s (null when none), events_lost; the total adds streams.
+W.csv (--windows-csv): one row per window, columns stream, recording, t_s, state, score, mode
+(-1 none), feature (the one that drove the score, guard or fault; empty when none),
+accel_rms_m_s2 and velocity_rms_mm_s (largest axis), zone (ISO letter), then per axis <a>:
+accel_rms_m_s2_<a>, velocity_rms_mm_s_<a>, peak_m_s2_<a>, crest_<a>, kurtosis_<a>, mean_m_s2_<a>,
+clipped_<a>, band_<lo>_<hi>_hz_db_<a> (dB re 1 (m/s^2)^2; -inf for an empty band).
+
 REC: recordings or folders; each folder is one stream (one gateway's recordings in t0_s order,
 detector state carried across), the files named directly form one more stream. Streams replay in
 parallel (--jobs), with a progress bar only when stderr is a terminal. --json writes
@@ -11,6 +24,8 @@ from __future__ import annotations
 
 import argparse
 import csv
+import importlib
+import importlib.util
 import io
 import json
 import re
@@ -48,17 +63,16 @@ def windows_csv(result: ReplayResult) -> str:
     out.writerow(["stream", *cols])
     names = np.array(result.streams, dtype=object)[result.windows["stream"]]
     data = [names.tolist()] + [v.tolist() for v in cols.values()]
+    fmt = ["{}"] + ["{:.3f}" if k == "t_s" else "{:.6g}" for k in cols]   # t_s: ms on a Unix clock
     for row in zip(*data):
-        out.writerow([f"{v:.6g}" if isinstance(v, float) else v for v in row])
+        out.writerow([f.format(v) if isinstance(v, float) else v for f, v in zip(fmt, row)])
     return buf.getvalue()
 
 
 def _report_module():
-    try:
-        from host_tools import report
-    except ImportError:
-        raise EdgevibError("report module missing") from None
-    return report
+    if importlib.util.find_spec("host_tools.report") is None:
+        raise EdgevibError("report module missing")
+    return importlib.import_module("host_tools.report")
 
 
 def run(args: argparse.Namespace) -> int:
