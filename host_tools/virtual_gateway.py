@@ -54,6 +54,7 @@ SNAPSHOT_SLOTS = 8            # event snapshot files kept in state_dir (oldest o
 PARAM_CAP = 8192              # largest parameter image the store accepts, bytes
 PUSH_BACKLOG = 256 * 1024     # bytes of unread output beyond which pushes are dropped
 _READ = 4096
+_CATCH_UP = 32                # FIFO blocks fed at most between two looks at the link
 
 
 def load_profile(path: str | os.PathLike | None) -> dict:
@@ -88,7 +89,10 @@ class VirtualGateway:
         self.recording = rec
         self.t0_s = rec.t0_s or 0.0
         self.state_dir = str(state_dir)
-        os.makedirs(self.state_dir, exist_ok=True)
+        try:
+            os.makedirs(self.state_dir, exist_ok=True)
+        except OSError as e:
+            raise EdgevibError(f"{state_dir}: cannot make the state folder ({e.strerror})") from None
         self.speed = float(speed)
         self.loop = loop
         self.key = key
@@ -137,10 +141,9 @@ class VirtualGateway:
     def _feed_block(self) -> bool:
         """Feed one FIFO block and run the windows it completes; False at the end (no loop)."""
         if self.pos >= len(self.counts):
-            if not self.loop:
-                self.ended.set()
-                return False
             self.ended.set()
+            if not self.loop:
+                return False
             self.pos = 0
         k = min(self.block, len(self.counts) - self.pos)
         src = array.array("h", self.counts[self.pos:self.pos + k].tobytes())
@@ -160,7 +163,7 @@ class VirtualGateway:
         """Wait up to timeout_s for link bytes; hand them to the command handler; send output."""
         wlist = [self._master] if self._tx else []
         try:
-            readable, writable, _ = select.select([self._master], wlist, [], timeout_s)
+            readable, _, _ = select.select([self._master], wlist, [], timeout_s)
         except (OSError, ValueError):   # closed under us by stop()
             return
         if readable:
@@ -201,7 +204,9 @@ class VirtualGateway:
         while not self._stop.is_set():
             if feeding:
                 now = time.monotonic()
-                while feeding and now >= due:
+                for _ in range(_CATCH_UP):      # behind time: catch up, but keep answering
+                    if not (feeding and now >= due):
+                        break
                     feeding = self._feed_block()
                     due += period
                     if period == 0.0:
