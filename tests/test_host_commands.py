@@ -19,7 +19,7 @@ from host_tools.errors import LinkError
 from host_tools.link import Client
 from host_tools.recording import read_recording
 from tests.test_emulate import (
-    CPG, FS, M_S2_PER_COUNT, N, PROFILE, SINES, T0, emulator, fault_recording, param_body, run_cli,
+    CPG, FS, M_S2_PER_COUNT, N, PROFILE, REPO, SINES, emulator, fault_recording, param_body, run_cli,
     sine_recording)
 
 KEY = b"brackwater site key, pumps P-101 and P-102"
@@ -347,3 +347,37 @@ def test_events_bad_output(idle_gateway, tmp_path, capsys):
     assert rc == 2 and _one_line(err) and "not a folder" in err
     rc, out, err = run_cli(capsys, "events", "--port", idle_gateway.port, "--out", tmp_path / "none")
     assert rc == 0 and "pulled 0 event snapshots" in out
+
+
+def _on_a_terminal(*argv):
+    """Run `python -m host_tools.cli ARGV` with stdout and stderr on a pseudo-terminal: (rc, text)."""
+    import fcntl
+    import os
+    import struct
+    import subprocess
+    import sys
+    import termios
+    master, slave = os.openpty()
+    fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 24, 100, 0, 0))   # 24 x 100 cells
+    proc = subprocess.Popen([sys.executable, "-m", "host_tools.cli", *map(str, argv)],
+                            cwd=REPO, stdout=slave, stderr=slave, stdin=subprocess.DEVNULL)
+    os.close(slave)
+    text = bytearray()
+    while True:
+        try:
+            chunk = os.read(master, 4096)
+        except OSError:          # EIO: the child closed its end
+            break
+        if not chunk:
+            break
+        text += chunk
+    os.close(master)
+    return proc.wait(20), text.decode(errors="replace")
+
+
+def test_terminal_views(idle_gateway, tmp_path):
+    rc, text = _on_a_terminal("monitor", "--port", idle_gateway.port, "--once")
+    assert rc == 0 and "state NORMAL" in text and "vel mm/s" in text and "parameter set v0" in text
+    f = _set_file(tmp_path / "v4.msgpack", 4, note="x" * 6000)      # 14 chunks
+    rc, text = _on_a_terminal("flash", f, "--port", idle_gateway.port)
+    assert rc == 0 and "upload:" in text and "flashed version 4" in text     # tqdm's bar on stderr

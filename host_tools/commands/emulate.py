@@ -36,13 +36,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     profile = load_profile(args.board)
     key = read_key(args.key_file)
-    temp = None if args.state_dir else tempfile.mkdtemp(prefix="edgevib-emulate-")
+    state = args.state_dir or tempfile.mkdtemp(prefix="edgevib-emulate-")
+    temp = None if args.state_dir else state
     try:
-        vg = VirtualGateway(args.recording, profile, args.state_dir or temp, speed=args.speed,
+        vg = VirtualGateway(args.recording, profile, state, speed=args.speed,
                             loop=args.loop, key=key)
         print(vg.port, flush=True)
         print(f"edgevib emulate: {profile['name']} gateway on {vg.port}, {vg.recording.duration_s:.1f} s "
-              f"of {vg.recording.path.name} at speed {args.speed:g}, state in {args.state_dir or temp}",
+              f"of {vg.recording.path.name} at speed {args.speed:g}, state in {state}",
               file=sys.stderr, flush=True)
         if vg.saturated:
             print(f"edgevib emulate: {vg.saturated} samples beyond the converter's range are saturated, "

@@ -11,6 +11,7 @@ listing and reading is reported and skipped.
 from __future__ import annotations
 
 import argparse
+from collections import Counter
 from pathlib import Path
 
 import firmware_py  # noqa: F401
@@ -89,10 +90,7 @@ def run(args: argparse.Namespace) -> int:
                 gone.append(e["id"])
                 continue
             saved.append(save_event(out, img, scale, board))
-    kinds = {}
-    for p in saved:
-        k = p.stem.rsplit("_", 1)[1]
-        kinds[k] = kinds.get(k, 0) + 1
+    kinds = Counter(p.stem.rsplit("_", 1)[1] for p in saved)
     detail = ", ".join(f"{v} {k}" for k, v in sorted(kinds.items()))
     print(f"pulled {len(saved)} event snapshots from {args.port} into {out}" + (f" ({detail})" if detail else ""))
     if gone:

@@ -149,14 +149,16 @@ def run(args: argparse.Namespace) -> int:
             st = c.status()
             print("\n".join(render_block(st, v)) if out.isatty() else render_line(st, v))
             return 0
-        show = _Screen(out).draw if out.isatty() else (lambda lines: (out.write(lines + "\n"), out.flush()))
-        render = render_block if out.isatty() else render_line
+        screen = _Screen(out) if out.isatty() else None
         c.stream(True)
         shown = 0
         try:
             while args.updates is None or shown < args.updates:
                 st = _next_status(c)
-                show(render(st, v))
+                if screen is not None:
+                    screen.draw(render_block(st, v))
+                else:
+                    print(render_line(st, v), flush=True)
                 shown += 1
         except KeyboardInterrupt:
             pass

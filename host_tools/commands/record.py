@@ -59,7 +59,7 @@ class _Collector:
         self.n, self.axes, self.fs = n, axes, fs
         self.first_w = first_w       # windows before this are left from an earlier session
         self.count = count           # windows wanted, from the first one received
-        self.start: int | None = None
+        self.start = -1              # index of the first window seen; -1 before any
         self.latest = -1             # highest window index seen, whole or not
         self.parts: list[Part] = []
         self._w = None
@@ -69,7 +69,7 @@ class _Collector:
     @property
     def done(self) -> bool:
         """The span has been passed: every window of it arrived or never will."""
-        if self.start is None:
+        if self.start < 0:
             return False
         end = self.start + self.count - 1
         return self.latest > end or (bool(self.parts) and self._last_w() >= end)
@@ -78,7 +78,7 @@ class _Collector:
     def missed(self) -> int:
         """Windows of the span that did not arrive whole."""
         got = sum(len(p.windows) for p in self.parts)
-        return (min(self.latest, self.start + self.count - 1) - self.start + 1 - got) if self.start is not None else 0
+        return (min(self.latest, self.start + self.count - 1) - self.start + 1 - got) if self.start >= 0 else 0
 
     def _last_w(self) -> int:
         p = self.parts[-1]
@@ -88,7 +88,7 @@ class _Collector:
         w = m["w"]
         if w < self.first_w:
             return
-        if self.start is None:
+        if self.start < 0:
             self.start = w
         self.latest = max(self.latest, w)
         if m["off"] == 0:
