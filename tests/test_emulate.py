@@ -280,3 +280,42 @@ def test_emulate_process_answers_monitor_and_survives_a_kill_mid_flash(tmp_path,
         if proc.poll() is None:
             proc.kill()
         proc.wait(10)
+
+
+def test_gap_accounting_allocates_nothing_on_micropython():
+    """feed() past a full ring and window() after it, each under heap_lock on MicroPython."""
+    import json
+
+    from host_tools.mpy_guest import run_guest
+    res = run_guest("""
+import array, json
+from firmware_py import mpack, params
+from firmware_py.gateway import Gateway
+from firmware_py.paramstore import ParamStore
+from firmware_py.snapshots import SnapshotRing
+prof = json.loads(%(profile)r)
+n = prof['window_n']
+store = ParamStore('/nonexistent-edgevib', 'desk', 3200, n, 3, mpack.packb(params.factory(prof), 4096))
+gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3), lambda: 0)
+src = array.array('h', [((k * 37) %% 2001) - 1000 for k in range(48)])
+def feed():
+    gw.feed(src, 16)
+    return 0
+def window():
+    return gw.window()
+ok = True
+gaps = []
+for rounds in (3, 1):
+    for b in range(rounds * n // 16):
+        ok = locked(feed)[0] and ok
+    while True:
+        done, ran = locked(window)
+        ok = ok and done
+        if not ran:
+            break
+        gaps.append(gw.raw_gap)
+emit([ok, gaps, gw.core.ring.dropped])
+""" % {"profile": json.dumps(PROFILE)})
+    ok, gaps, dropped = res.out[0]
+    assert ok, "feed or window allocated under heap_lock"
+    assert gaps == [0, 0, N] and dropped == N     # a third window did not fit; the next one says so
