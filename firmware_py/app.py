@@ -15,6 +15,9 @@
 # Per main-loop pass (step()): the link is served (allocates), then at most one window runs with
 # the heap locked, then its snapshot and stream pushes (allocate), the LED and the watchdog.
 # One window per pass keeps the link answered when processing falls behind the sensor.
+import array
+import os
+
 import micropython
 from micropython import const
 
@@ -165,7 +168,6 @@ class App:
         self.t_data = self.t0
         self.healthy = False
         self.fresh = 0               # set by acquire() when frames arrived
-        self.bus_errors = 0
         self.drv = None
         self.timer = None
         self.root = root
@@ -215,7 +217,6 @@ class App:
                 self._quarantine(store)
 
     def _quarantine(self, store):
-        import os
         bad = self.root + "/params.bad"
         try:
             os.remove(bad)
@@ -238,7 +239,6 @@ class App:
             return
         self.drv = sensor
         frames = mod.block_frames(p["fifo_watermark"])
-        import array
         self.block = array.array('h', bytes(2 * p["axes"] * frames))
         period = p["fifo_watermark"] * 1000 // p["sample_rate_hz"]
         m = self.machine
@@ -252,7 +252,8 @@ class App:
 
     def acquire(self):
         """Drain the sensor FIFO into the gateway's ring; returns the frames moved. Runs in the
-        timer callback: allocation-free, and a failing bus transfer only counts an error."""
+        timer callback: allocation-free; a failing bus transfer moves nothing, and samples that
+        stop for STALL_MS show as sensor_fault."""
         drv = self.drv
         if drv is None:
             return 0
@@ -263,7 +264,6 @@ class App:
                 self.fresh = 1
             return k
         except Exception:
-            self.bus_errors = (self.bus_errors + 1) & _TICKS_MASK
             return 0
 
     # ---- the main loop ----

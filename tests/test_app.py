@@ -126,6 +126,17 @@ def test_the_state_is_sensor_fault_while_no_samples_come(tmp_path):
     assert rig.app.state() != "sensor_fault"
 
 
+def test_a_failing_bus_in_the_timer_callback_raises_nothing_and_shows(tmp_path):
+    rig = Rig(tmp_path)
+    rig.run(N // 16)
+
+    def broken(out):
+        raise OSError(5)                 # EIO, as machine.SPI/I2C report a failed transfer
+    rig.app.drv.read_into = broken
+    rig.run(STALL_MS * 1000 // BLOCK_US + 1)        # the timer keeps firing into the error
+    assert rig.app.acquire() == 0 and rig.app.state() == "sensor_fault"
+
+
 def test_an_absent_sensor_gives_sensor_fault_and_a_working_link(tmp_path):
     chip = ADXL345Model(signal())
     chip.regs[0] = 0x00                                        # DEVID does not read 0xE5
