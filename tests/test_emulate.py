@@ -319,3 +319,11 @@ emit([ok, gaps, gw.core.ring.dropped])
     ok, gaps, dropped = res.out[0]
     assert ok, "feed or window allocated under heap_lock"
     assert gaps == [0, 0, N] and dropped == N     # a third window did not fit; the next one says so
+
+
+def test_loop_repeats_the_recording(tmp_path):
+    rec = sine_recording(tmp_path / "s.wav", seconds=1.0)
+    with emulator(rec, tmp_path / "state", speed=0, loop=True) as vg:
+        wait_for(lambda: vg.gateway.windows >= 20)
+        assert vg.ended.is_set() and vg.fed > 3 * FS       # past the end more than twice
+        assert vg.gateway.core.ring.dropped == 0
