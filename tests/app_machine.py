@@ -18,6 +18,7 @@ class StandInMachine:
         self.cs_pin = cs_pin
         self.spi = None
         self.pins = {}
+        self.driven = []                  # (pin number, level) of every level driven, all pins
         self.wdts = []
         self.timers = []
         self.resets = 0
@@ -42,6 +43,7 @@ class StandInMachine:
                     return self.level
                 self.level = 1 if v else 0
                 self.levels.append(self.level)
+                machine.driven.append((self.n, self.level))
                 return None
 
         class WDT:

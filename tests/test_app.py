@@ -6,6 +6,7 @@ import functools
 import json
 import math
 import shutil
+import sys
 from array import array
 from pathlib import Path
 
@@ -235,6 +236,79 @@ def test_a_committed_set_the_detector_refuses_does_not_stop_the_gateway(tmp_path
     rig.run(N // 16 + 1)
     assert rig.app.gw.windows >= 1
     assert rig.app.gw.params.source == "factory" and (tmp_path / "params.bad").exists()
+
+
+class StopLoop(Exception):
+    pass
+
+
+def run_main(tmp_path, monkeypatch, board_text, console, passes):
+    """app.main() as main.py calls it, with stand-ins for machine, select, time and the console;
+    the main loop ends after `passes` sleeps. Returns (machine, sleeps, kbd_intr calls)."""
+    import micropython
+
+    from firmware_py import app as app_mod
+    chip = ADXL345Model(signal())
+    mach = StandInMachine(chip, PICO["bus"]["pins"]["cs"])
+    sleeps, kbd = [], []
+
+    class Time:
+        @staticmethod
+        def ticks_ms():
+            return (chip.now_us // 1000) & 0x3FFFFFFF
+
+        ticks_us = staticmethod(chip.ticks_us)
+
+        @staticmethod
+        def sleep_ms(ms):
+            sleeps.append(ms)
+            if len(sleeps) > passes:
+                raise StopLoop()
+            chip.advance_us(1000 * ms)
+            for t in mach.timers:
+                t.fire()
+
+    class Console:
+        buffer = console
+        text = []
+
+        @staticmethod
+        def write(t):                       # what print() writes, as str
+            Console.text.append(t)
+
+    (tmp_path / "board.json").write_text(board_text)
+    monkeypatch.setitem(sys.modules, "machine", mach)
+    monkeypatch.setitem(sys.modules, "select", StandInSelect())
+    monkeypatch.setitem(sys.modules, "time", Time)
+    monkeypatch.setattr(micropython, "kbd_intr", kbd.append, raising=False)
+    monkeypatch.setattr(sys, "stdin", Console)
+    monkeypatch.setattr(sys, "stdout", Console)
+    try:
+        app_mod.main(str(tmp_path), str(tmp_path / "board.json"))
+    except StopLoop:
+        pass
+    return mach, sleeps, kbd, "".join(Console.text)
+
+
+def test_main_waits_in_the_start_up_window_then_serves_the_console(tmp_path, monkeypatch):
+    console = StreamPair()
+    console.send(req(1, "identify"))
+    mach, sleeps, kbd, _ = run_main(tmp_path, monkeypatch, (ROOT / "boards" / "pico_adxl345.json")
+                                 .read_text(), console, 400)
+    led = [v for n, v in mach.driven if n == PICO["led_pin"]]
+    assert sleeps[0] == 3000 and led[0] == 1                    # steady on: REPL reachable
+    assert kbd == [-1]                                          # then Ctrl-C is data
+    assert len(mach.wdts) == 1 and mach.wdts[0].feeds >= 1      # windows ran
+    [r] = [m for m in replies([console.take()]) if "push" not in m]
+    assert r["ok"] and r["board"] == "pico_adxl345"
+    assert boots(tmp_path) == 1
+
+
+def test_main_with_a_refused_profile_stays_in_the_repl_without_a_watchdog(tmp_path,
+                                                                         monkeypatch):
+    mach, sleeps, kbd, text = run_main(tmp_path, monkeypatch, "{not json", StreamPair(), 0)
+    assert mach.wdts == [] and kbd == [] and sleeps == []
+    assert text.startswith("edgevib: not starting:") and "not valid JSON" in text
 
 
 def rotations(p):
