@@ -5,7 +5,7 @@ The first line on stdout is the port to give the other commands (`--port`). The 
 and event snapshots live in --state-dir (a temporary folder, removed at exit, by default), so
 stopping and restarting on the same folder is a power cut. At the end of the recording the
 gateway idles, still answering on the link; --loop starts the recording again instead. Runs
-until Ctrl-C or SIGTERM.
+until Ctrl-C, SIGTERM or SIGHUP.
 """
 from __future__ import annotations
 
@@ -36,6 +36,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     profile = load_profile(args.board)
     key = read_key(args.key_file)
+    stop = threading.Event()
+    for sig in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP):   # SIGHUP: its terminal closed
+        signal.signal(sig, lambda *_: stop.set())
     state = args.state_dir or tempfile.mkdtemp(prefix="edgevib-emulate-")
     temp = None if args.state_dir else state
     try:
@@ -48,9 +51,6 @@ def run(args: argparse.Namespace) -> int:
         if vg.saturated:
             print(f"edgevib emulate: {vg.saturated} samples beyond the converter's range are saturated, "
                   "as the board's sensor would read them", file=sys.stderr, flush=True)
-        stop = threading.Event()
-        signal.signal(signal.SIGTERM, lambda *_: stop.set())
-        signal.signal(signal.SIGINT, lambda *_: stop.set())
         vg.start()
         told = False
         while not stop.wait(0.2):
