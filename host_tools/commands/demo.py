@@ -86,7 +86,8 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     gt_path = ds.write_scenario(work / "data", seed=seed, days=days, training_days=training_days,
                                 interval_s=interval_s)
     truth = json.loads(gt_path.read_text())
-    print(commissioning_text(work / "data" / truth["files"]["P-101"]["training"][0]), end="")
+    first = Path("data") / truth["files"]["P-101"]["training"][0]
+    print(commissioning_text(work / first, final / first), end="")
     pumps = sorted(truth["files"])
     jobs = max(1, min(jobs or len(pumps), len(pumps), os.cpu_count() or 1))
     if jobs == 1:
@@ -104,13 +105,14 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     return lines
 
 
-def commissioning_text(path: Path) -> str:
-    """The commissioning check of one recording, as `edgevib check` prints it."""
+def commissioning_text(path: Path, shown: Path) -> str:
+    """The commissioning check of one recording, as `edgevib check` prints it (the command line
+    shown with the path `shown`)."""
     from host_tools.commands.check import render_text
     from host_tools.commission import check_recording, settings_from_board
     from host_tools.recording import read_recording
     rec = read_recording(path)
-    return f"$ edgevib check {Path(*path.parts[-4:])}\n" + render_text(check_recording(rec, settings_from_board(None)))
+    return f"$ edgevib check {shown}\n" + render_text(check_recording(rec, settings_from_board(None)))
 
 
 def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
@@ -184,8 +186,9 @@ def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
                f"replayed {r['recordings']} snapshots ({r['windows']} windows, {r['field_days']:.1f} days) in {r['replay_s']:.1f} s",
            f"  outside the seeded faults ({fr['healthy_days']:.1f} days): {len(fr['alerts'])} false alert(s) "
            f"({per30:.2f} per 30 days), {len(fr['sensor_faults'])} false sensor fault(s)"]
-    for wtext in r["warnings"]:
-        out.append(f"  training warning: {wtext}")
+    if r["warnings"]:
+        out.append(f"  training: {len(r['warnings'])} warning(s) in {final / r['pump'] / 'params.json'}, the first: "
+                   f"{r['warnings'][0]}")
     for e in fr["alerts"]:
         out.append(f"    false alert: {_when(e['t_s'], start)}, {e['from']} -> {e['to']} ({e['reason']}, {e.get('feature') or '-'})")
     for d in r["detections"]:
