@@ -124,7 +124,8 @@ def plan(port: str, board: str, build: Path, params: Path | None = None) -> Plan
         compile_cmds.append(mpy + ["-s", rel, "-o", str(out), rel])
     for name in ("main.py", "boot.py"):        # copied as source; compiled only to check
         rel = "device/" + name
-        compile_cmds.append(mpy + ["-s", name, "-o", str(build / "check" / (name[:-3] + ".mpy")), rel])
+        check = build / "check" / (name[:-3] + ".mpy")
+        compile_cmds.append(mpy + ["-s", name, "-o", str(check), rel])
     cp = ["+", "fs", "cp"]
     copy = [sys.executable, "-m", "mpremote", "connect", port, "run", str(build / "clean.py"),
             "+", "fs", "cp", "-r", str(build / "firmware_py"), ":",

