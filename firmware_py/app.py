@@ -10,7 +10,8 @@
 # run while window() holds the heap lock. The ring is single producer (the callback) and single
 # consumer (window()); the callback runs to completion, and the consumer's one shared update
 # (SampleRing.release: `filled -= n`, one statement without a jump) is not split by a soft
-# callback. A hard timer would be allowed to split it, so it is not used.
+# callback: the VM runs scheduled callbacks at jump instructions (py/vm.c, from memory). A hard
+# timer could split it, so it is not used.
 #
 # Per main-loop pass (step()): the link is served (allocates), then at most one window runs with
 # the heap locked, then its snapshot and stream pushes (allocate), the LED and the watchdog.
