@@ -327,3 +327,9 @@ def test_loop_repeats_the_recording(tmp_path):
         wait_for(lambda: vg.gateway.windows >= 20)
         assert vg.ended.is_set() and vg.fed > 3 * FS       # past the end more than twice
         assert vg.gateway.core.ring.dropped == 0
+
+
+def test_emulate_command_leaves_the_signal_handlers_as_it_found_them(tmp_path, capsys):
+    before = [signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)]
+    run_cli(capsys, "emulate", "--recording", tmp_path / "none.wav")
+    assert [signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)] == before

@@ -20,6 +20,7 @@ from host_tools.device_link import read_key
 from host_tools.virtual_gateway import DESK_BOARD, VirtualGateway, load_profile
 
 HELP = "run a virtual gateway fed from a recording, on a pseudo-terminal"
+_STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)   # SIGHUP: its terminal closed
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -37,11 +38,11 @@ def run(args: argparse.Namespace) -> int:
     profile = load_profile(args.board)
     key = read_key(args.key_file)
     stop = threading.Event()
-    for sig in (signal.SIGINT, signal.SIGTERM, signal.SIGHUP):   # SIGHUP: its terminal closed
-        signal.signal(sig, lambda *_: stop.set())
-    state = args.state_dir or tempfile.mkdtemp(prefix="edgevib-emulate-")
-    temp = None if args.state_dir else state
+    before = {sig: signal.signal(sig, lambda *_: stop.set()) for sig in _STOP_SIGNALS}
+    temp = None
     try:
+        state = args.state_dir or tempfile.mkdtemp(prefix="edgevib-emulate-")
+        temp = None if args.state_dir else state
         vg = VirtualGateway(args.recording, profile, state, speed=args.speed,
                             loop=args.loop, key=key)
         print(vg.port, flush=True)
@@ -62,4 +63,6 @@ def run(args: argparse.Namespace) -> int:
     finally:
         if temp:
             shutil.rmtree(temp, ignore_errors=True)
+        for sig, handler in before.items():
+            signal.signal(sig, handler)
     return 0
