@@ -140,3 +140,21 @@ def test_a_module_micropython_cannot_compile_stops_the_build(tmp_path, monkeypat
         deploy.build_files(pl, None, echo=lambda s: None)
     assert not (tmp_path / "b").exists()
     assert [p.name for p in tmp_path.iterdir()] == ["fw"]     # no temporary folder left
+
+
+@pytest.mark.parametrize("rc", [0, 1])
+def test_the_copy_runs_the_printed_command_and_a_failure_is_a_link_error(rc, tmp_path, monkeypatch):
+    pl = deploy.plan("COM9", PICO, tmp_path / "b")           # no /dev/ file to wait for
+    ran = []
+
+    def fake_run(cmd, cwd=None):
+        ran.append(cmd)
+        return subprocess.CompletedProcess(cmd, rc)
+    monkeypatch.setattr(deploy.subprocess, "run", fake_run)
+    printed = []
+    if rc == 0:
+        deploy.copy_to_board(pl, 0, echo=printed.append)
+    else:
+        with pytest.raises(deploy.LinkError, match="mpremote failed \\(exit 1\\)"):
+            deploy.copy_to_board(pl, 0, echo=printed.append)
+    assert ran == [pl.copy_cmd] and printed == [shlex.join(pl.copy_cmd)]
