@@ -100,6 +100,29 @@ def test_samples_flow_from_the_chip_model_into_features_and_detector(tmp_path):
     assert status["features"] == list(gw.core.feats)
 
 
+def test_an_alarm_saves_event_snapshots_and_shows_on_the_led(tmp_path):
+    # Velocity r.m.s. of a sine of A counts at f Hz: A * g / 256 / (2 pi f) / sqrt(2) (handbook
+    # identity; 256 counts/g, g = 9.80665 m/s^2): x 8.6 mm/s, z 6.9 mm/s, over the factory
+    # guard's zone D boundary (4.5 mm/s, ISO 10816-3 group 2 rigid, from memory in FACTS.md).
+    v_x = AMP[0] * 9.80665 / 256 / (2 * math.pi * F_HZ[0]) / math.sqrt(2) * 1000
+    assert v_x > 4.5
+    rig = Rig(tmp_path)
+    for _ in range(20):                      # start-up hold-off (10 windows), then k of n
+        rig.run(N // 16)
+        if rig.app.state() == "alarm":
+            break
+    assert rig.app.state() == "alarm" and rig.app.gw.windows >= 10
+    events = rig.ask(1, "event_list")["events"]
+    assert events and {e["kind"] for e in events} <= {"alert", "alarm"}
+    assert events[-1]["kind"] == "alarm"
+    meta = msgpack.Unpacker()
+    meta.feed((tmp_path / ("ev%d.bin" % events[-1]["id"])).read_bytes())
+    head = next(meta)                        # the snapshot header, decoded by msgpack itself
+    assert head["kind"] == "alarm" and head["n"] == N and head["axes"] == 3
+    t = rig.ticks_ms()
+    assert rig.led() == status_led.level("alarm", t)
+
+
 def test_watchdog_is_fed_once_per_window(tmp_path):
     rig = Rig(tmp_path)
     wdt = rig.machine.wdts[0]
