@@ -169,7 +169,11 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     Reading det.score when det.mode is -1 gives 0, as the device reports it.
     """
     rows = feats.tolist()
-    st, sc, md, ft, ev = [], [], [], [], []
+    st: list[int] = []
+    sc: list[int] = []
+    md: list[int] = []
+    ft: list[int] = []
+    ev: list[tuple[int, int, int, int, int, int, int]] = []
     step, ring = det.step, det.events
     put_s, put_c, put_m, put_f = st.append, sc.append, md.append, ft.append
     for w, row in enumerate(rows, first_w):

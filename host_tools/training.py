@@ -37,6 +37,7 @@ edgevib is advisory condition monitoring, not machinery protection or a safety s
 from __future__ import annotations
 
 import math
+from concurrent.futures import ProcessPoolExecutor
 from typing import Any, Sequence
 
 import numpy as np
@@ -172,6 +173,14 @@ def _model(rows: np.ndarray, params: dict, seed: int) -> dict:
     return keys
 
 
+def _fit_all(rows: list[np.ndarray], params: dict, seed: int, jobs: int) -> list[dict]:
+    """_model over each row set, in up to `jobs` processes (the same result for any jobs)."""
+    if jobs <= 1 or len(rows) == 1:
+        return [_model(r, params, seed) for r in rows]
+    with ProcessPoolExecutor(max_workers=min(jobs, len(rows))) as pool:
+        return list(pool.map(_model, rows, [params] * len(rows), [seed] * len(rows)))
+
+
 def score_threshold(scores: np.ndarray, windows_30: float, k: int, n: int, target: float) -> tuple[int, Any]:
     """(threshold Q8, ThresholdChoice): the least integer score T with S >= T exactly when S > x."""
     ch = tail_fit.choose_threshold(scores, windows_30, k, n, target)
@@ -179,12 +188,13 @@ def score_threshold(scores: np.ndarray, windows_30: float, k: int, n: int, targe
 
 
 def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: float = 1.0, seed: int = 0,
-          version: int = 1, folds: int = FOLDS) -> tuple[dict, dict]:
+          version: int = 1, folds: int = FOLDS, jobs: int = 1) -> tuple[dict, dict]:
     """A parameter set trained on healthy recordings of one gateway, and a JSON-able summary.
 
     recordings: Recording objects (one stream) or lists of them (one per stream), read at the
     board's counts scale (m/s^2 per count = g / counts_per_g). profile: board profile dict.
     false_alerts_per_month: target expected false alerts per 30 days of running. seed: k-means.
+    version: the set's version. folds: held-out blocks. jobs: processes for the k-means fits.
     """
     if not false_alerts_per_month > 0:
         raise EdgevibError("the false-alert target must be a positive number per 30 days")
@@ -239,23 +249,23 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     rec_fold = _blocks(streams, folds)
     win_fold = [rf[sf.rec] for rf, sf in zip(rec_fold, feats)]
     n_folds = len(np.unique(np.concatenate(rec_fold)))
+    fold_rows = [(f, np.concatenate([sf.feats[u & (wf != f)] for sf, u, wf in zip(feats, use, win_fold)]))
+                 for f in range(n_folds if n_folds > 1 else 0)]
+    fold_rows = [(f, r) for f, r in fold_rows if len(r) >= MIN_WINDOWS]
+    rows = np.concatenate([sf.feats[u] for sf, u in zip(feats, use)])
+    # the fold models and the model from every usable window are independent fits
+    fits = _fit_all([r for _, r in fold_rows] + [rows], p, seed, jobs)
     held: list[np.ndarray] = []
     fold_sets = []
-    for f in range(n_folds if n_folds > 1 else 0):
-        train_rows = np.concatenate([sf.feats[u & (wf != f)] for sf, u, wf in zip(feats, use, win_fold)])
-        if len(train_rows) < 10:
-            continue
-        pf = _with(p, **_model(train_rows, p, seed))
+    for (f, _), keys in zip(fold_rows, fits):
+        pf = _with(p, **keys)
         fold_sets.append((f, pf))
         for st, u, wf in zip(_run(_mute(pf), feats), use, win_fold):
             held.append(st.score_q8[u & (wf == f)])
     held_scores = np.concatenate(held) if held else np.zeros(0)
     if n_folds < 2:
         warnings.append("a single recording: thresholds come from the model's own training windows (optimistic)")
-
-    # the model from every usable window
-    rows = np.concatenate([sf.feats[u] for sf, u in zip(feats, use)])
-    p = _with(p, **_model(rows, p, seed))
+    p = _with(p, **fits[-1])
     k_of, n_of = p["det_k"], p["det_n"]
     windows_30 = _DAYS_30_S / window_s
     if n_folds < 2:

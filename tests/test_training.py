@@ -233,3 +233,10 @@ def test_train_command_refuses_bad_input_and_writes_nothing(tmp_path, capsys):
     assert main(["train", str(folder), "--out", str(folder / "a.msgpack")]) == 2
     assert "overwrite" in capsys.readouterr().err
     assert not out.exists() and not (folder / "a.msgpack").exists()
+
+
+def test_parallel_fits_give_the_same_set():
+    recs = healthy_stream(seed=8, per_point=6)
+    one = train(recs, PROFILE, jobs=1)
+    two = train(recs, PROFILE, jobs=2)
+    assert one[0] == two[0] and one[1] == two[1]

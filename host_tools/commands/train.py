@@ -21,7 +21,7 @@ from firmware_py import params as pm
 from host_tools.commission import DEFAULT_BOARD
 from host_tools.errors import EdgevibError
 from host_tools.recording import _atomic_write, read_stream, sidecar_path
-from host_tools.replay import group_sources, m_s2_per_count
+from host_tools.replay import default_jobs, group_sources, m_s2_per_count
 from host_tools.training import report_text, train
 
 HELP = "train a parameter set on healthy recordings: baseline, operating modes, thresholds for a false-alert target"
@@ -39,6 +39,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="target expected false alerts per 30 days of running (default 1)")
     p.add_argument("--version", type=int, default=1, metavar="V", help="parameter set version (default 1)")
     p.add_argument("--seed", type=int, default=0, help="k-means seed (default 0)")
+    p.add_argument("--jobs", type=int, default=default_jobs(), metavar="J",
+                   help="processes for the operating-mode fits (default: the cores available)")
 
 
 def outputs(out: Path) -> tuple[Path, Path, Path]:
@@ -46,7 +48,7 @@ def outputs(out: Path) -> tuple[Path, Path, Path]:
     return out, out.with_suffix(".json"), out.with_suffix(".report.txt")
 
 
-def load_board(path: str | None) -> dict:
+def load_board(path: str | Path | None) -> dict:
     try:
         return board.load(str(path or DEFAULT_BOARD))
     except board.BoardError as e:
@@ -55,7 +57,7 @@ def load_board(path: str | None) -> dict:
 
 def check_outputs(paths: list[Path], sources: list[Path]) -> None:
     """Refuse outputs that would overwrite an input (recording or sidecar) or have no folder."""
-    inputs = set()
+    inputs: set[Path] = set()
     for s in sources:
         files = [q for q in s.iterdir()] if s.is_dir() else [s, sidecar_path(s)]
         inputs.update(q.resolve() for q in files)
@@ -81,7 +83,8 @@ def run(args: argparse.Namespace) -> int:
     scale = m_s2_per_count(pm.factory(profile))
     streams = [read_stream(g, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
                for g in group_sources(sources)]
-    params, summary = train(streams, profile, args.false_alerts_per_month, seed=args.seed, version=args.version)
+    params, summary = train(streams, profile, args.false_alerts_per_month, seed=args.seed, version=args.version,
+                            jobs=max(1, args.jobs))
     body = msgpack.packb(params, use_bin_type=True)
     if mpack.unpackb(body) != params:   # the device's own decoder must read it back unchanged
         raise EdgevibError("internal: the encoded parameter set does not decode to itself")
