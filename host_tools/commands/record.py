@@ -160,7 +160,8 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
-def _write_parts(out: Path, col: _Collector, frames_wanted: int, scale: float, info: dict) -> list[tuple[Path, int]]:
+def _write_parts(out: Path, col: _Collector, frames_wanted: int, scale: float,
+                 info: dict) -> list[tuple[Path, int]]:
     """Write each part (trimmed to the span asked for) as WAV + sidecar; [(path, frames)]."""
     written = []
     for k, part in enumerate(col.parts):
