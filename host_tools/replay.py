@@ -49,7 +49,7 @@ from host_tools.errors import EdgevibError
 from host_tools.feature_twin import FeatureTwin, TwinConfig
 from host_tools.recording import Recording, read_stream
 
-_CHUNK_WINDOWS = 2048  # windows per call of the feature twin: bounds its temporary arrays
+_CHUNK_WINDOWS = 512   # windows per call of the feature twin: keeps its temporaries in cache (measured fastest)
 _FIELD_NAMES = {fi.F_MEAN: "mean", fi.F_RMS: "accel_rms", fi.F_PEAK: "peak", fi.F_CREST: "crest",
                 fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms"}
 
