@@ -2,7 +2,7 @@
 # A-D of ISO 10816-3 / ISO 20816-3 (machine groups 1 and 2, rigid and flexible foundations).
 #
 # SOURCE: ISO 10816-3 zone boundaries, FROM MEMORY, not checked against the standard
-# (see /work/shared/FACTS.md, "Vibration severity"). Confirm against the purchased standard
+# (a figure recalled by the team, unconfirmed). Confirm against the purchased standard
 # (or the site's own acceptance limits) before relying on them; the parameter set may carry any
 # other boundaries, this table is only the default.
 #

@@ -3,7 +3,7 @@
 A local defect on a race or a rolling element makes an impact each time the two meet. With no
 slip, the impact rates are fixed multiples ("orders") of the shaft speed, set by the number of
 rolling elements n, the ball diameter d, the pitch diameter D and the contact angle phi
-(rolling-bearing literature; common practice; see /work/shared/FACTS.md):
+(rolling-bearing literature, e.g. T. A. Harris, "Rolling Bearing Analysis"; common practice):
 
     BPFO = (n/2) fr (1 - (d/D) cos phi)          ball pass, outer race (stationary outer ring)
     BPFI = (n/2) fr (1 + (d/D) cos phi)          ball pass, inner race

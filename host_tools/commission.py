@@ -38,8 +38,8 @@ from host_tools.recording import Recording
 VERDICTS = ("ok", "check", "problem")   # in rising order of concern
 DEFAULT_BOARD = Path(__file__).resolve().parent.parent / "boards" / "desk.json"
 DEFAULT_N = 512
-VEL_BAND_HZ = (10, 1000)   # broadband velocity band of ISO 10816 for machines above 600 r/min (FACTS.md)
-ISO_MIN_RPM = 600          # below this the ISO 10816-3 band starts at 2 Hz (FACTS.md)
+VEL_BAND_HZ = (10, 1000)   # broadband velocity band of ISO 10816-1 for machines above 600 r/min (from memory)
+ISO_MIN_RPM = 600          # below this the ISO 10816-3 band starts at 2 Hz (from memory)
 G_M_S2 = units.STANDARD_GRAVITY_M_S2
 INT16_MIN, INT16_MAX = -32768, 32767   # full scale when no board says otherwise: the counts' own limits
 

@@ -18,7 +18,7 @@ def dec(data: bytes, cap: int = 4096):
     return k if k < 0 else bytes(out[:k])
 
 
-# Worked examples of COBS (Cheshire and Baker, 1999), as listed in /work/shared/FACTS.md.
+# Worked examples of COBS (Cheshire and Baker, "Consistent Overhead Byte Stuffing", 1999).
 def test_worked_examples():
     assert enc(b"\x00") == bytes.fromhex("0101")
     assert enc(b"\x00\x00") == bytes.fromhex("010101")

@@ -5,7 +5,7 @@ import firmware_py  # noqa: F401
 from firmware_py import iso_zones as iz
 
 # ISO 10816-3 / 20816-3 boundaries A/B, B/C, C/D in mm/s r.m.s., FROM MEMORY (not confirmed
-# against the standard; /work/shared/FACTS.md lists the same figures as unconfirmed). Written
+# against the standard; the team's notes list the same figures as unconfirmed). Written
 # here as decimals on purpose, independently of the module's hundredths.
 EXPECTED_MM_S = {
     (1, "rigid"): (2.3, 4.5, 7.1),
