@@ -279,3 +279,19 @@ def test_a_result_of_several_streams_needs_the_stream_named(tmp_path):
         report.write_report(tmp_path / "r", res, _params(), recs)
     index = report.write_report(tmp_path / "r", res, _params(), recs, stream="P-101")
     assert index.is_file()
+
+
+def test_a_stopped_pump_with_no_events_still_gets_every_plot(tmp_path):
+    # nothing evaluated (all idle, score 0) and no events: the plots are drawn from the
+    # thresholds and zone lines alone, and the page says there were no events
+    recs = _recordings(windows=4)
+    res = _result(recs)
+    res["events"] = []
+    res["windows"]["state"] = np.array(["idle"] * len(res["windows"]["t_s"]), dtype=object)
+    res["windows"]["score"] = np.zeros(len(res["windows"]["t_s"]))
+    index = report.write_report(tmp_path / "r", res, _params(), recs)
+    page = _parse(index)
+    assert sorted(page.srcs) == ["score.png", "velocity.png"]
+    for name in page.srcs:
+        _png_size((tmp_path / "r" / name).read_bytes())
+    assert "No events" in index.read_text()
