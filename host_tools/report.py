@@ -46,7 +46,7 @@ from firmware_py import feature_index as fi
 from firmware_py import iso_zones
 from firmware_py.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSOR_FAULT, STATE_NAMES
 from host_tools import units
-from host_tools.commission import HANN_ENBW_BINS, _window_ms
+from host_tools.commission import HANN_ENBW_BINS, _window_ms, line_names
 from host_tools.errors import EdgevibError
 from host_tools.feature_twin import FeatureTwin, TwinConfig
 from host_tools.recording import Recording, read_recording
@@ -441,9 +441,17 @@ class _WindowSamples:
                          *p["fc_vel_hz"])
         self.twin = FeatureTwin(cfg, recs[0].counts.shape[1])
 
+    def _index(self, t_end_s: float) -> int:
+        """Index of the recording that holds (the middle of) the window ending at t_end_s, -1 none."""
+        return int(np.searchsorted(self.t0, t_end_s - self.n / self.fs / 2)) - 1
+
+    def recording(self, t_end_s: float) -> Recording | None:
+        i = self._index(t_end_s)
+        return self.recs[i] if i >= 0 else None
+
     def counts(self, t_end_s: float) -> tuple[np.ndarray, float] | None:
         """(counts of the window ending at t_end_s, its counts scale), or None if not found."""
-        i = int(np.searchsorted(self.t0, t_end_s - self.n / self.fs / 2)) - 1
+        i = self._index(t_end_s)
         if i < 0:
             return None
         r = self.recs[i]
@@ -497,6 +505,18 @@ def _event_axis(ev: dict, axes: Sequence[str], before: np.ndarray | None, at: np
     return int(np.argmax(change))
 
 
+def _mark_orders(ax, rpm: float | None, vanes: int | None, f_max: float) -> None:
+    """Thin dotted lines at 1x and, with a vane count, at the vane pass and its second harmonic
+    (names as the commissioning check gives them), when the recording says the shaft speed."""
+    names = line_names(rpm, vanes)
+    for order in sorted({1, vanes or 1, 2 * (vanes or 0)} & set(names)):
+        f = order * float(rpm) / 60.0
+        if f < f_max:
+            ax.axvline(f, color=MUTED, lw=0.7, ls=":", zorder=1)
+            ax.text(f, 1.0, " " + names[order].split(" / ")[0], transform=ax.get_xaxis_transform(), fontsize=7,
+                    color=MUTED, rotation=90, va="top", ha="left")
+
+
 def plot_event_spectrum(ev: dict, number: int, w: Windows, p: dict, src: _WindowSamples, clock: Clock,
                         axes: Sequence[str]) -> bytes:
     """Averaged acceleration spectrum (r.m.s. per line) before and at one event, on one axis."""
@@ -521,6 +541,9 @@ def plot_event_spectrum(ev: dict, number: int, w: Windows, p: dict, src: _Window
     if drawn:
         ax.set_yscale("log")
     ax.set_xlim(0, fs / 2)
+    rec = src.recording(t_at[-1])
+    if rec is not None:
+        _mark_orders(ax, rec.rpm, rec.vane_count, fs / 2)
     _style(ax)
     ax.set_xlabel("frequency, Hz")
     ax.set_ylabel(f"axis {axes[axis] if axis < len(axes) else axis}: m/s² r.m.s.")
