@@ -59,7 +59,7 @@ MIN_SEG_FRACTION = 1 / 700  # least drawn width of a band segment, fraction of t
 _UNIX_2000 = 946684800.0  # t0_s past this reads as Unix seconds, so a UTC date is shown too
 _DAY_S = 86400.0
 
-# Our own palette: muted, distinguishable in print and for the commonest colour blindness.
+# Our own palette, muted; the states also differ in order (worst drawn on top) and in the tables by name.
 INK, MUTED, GRID, PAPER = "#1d2b36", "#75838f", "#e4e8ec", "#ffffff"
 STATE_COLOURS = {
     NORMAL: "#8fbf9f",        # sage
@@ -126,7 +126,10 @@ def windows_of(result: Any, stream: int | None = None) -> Windows:
     states = col("state")
     code = np.array([state_code(s) for s in states.tolist()], dtype=int) if states.dtype.kind in "OUS" \
         else states.astype(int)
-    return Windows(col("t_s").astype(float), code, col("score").astype(float), vel, col("mode", -1).astype(int))
+    t = col("t_s").astype(float)
+    order = np.argsort(t, kind="stable")     # time order, which the event lookups rely on
+    return Windows(t[order], code[order], col("score").astype(float)[order], vel[order],
+                   col("mode", -1).astype(int)[order])
 
 
 def one_stream(result: Any, stream: str | None = None) -> tuple[Windows, list[dict], Any]:
@@ -240,8 +243,8 @@ def iso_bounds_mm_s(p: dict) -> tuple[tuple[float, float, float], str]:
     if "det_iso_bounds" in p and "counts_per_g" in p:
         scale = units.STANDARD_GRAVITY_M_S2 / p["counts_per_g"]
         b = [units.velocity_mm_s(v, scale) for v in p["det_iso_bounds"]]
-        return (b[0], b[1], b[2]), (f"parameter set: ISO 10816-3 group {p.get('det_iso_group', '?')}, "
-                                    f"{p.get('det_iso_found', '?')} foundation")
+        return (b[0], b[1], b[2]), (f"the parameter set's boundaries (recorded as ISO 10816-3 group "
+                                    f"{p.get('det_iso_group', '?')}, {p.get('det_iso_found', '?')} foundation)")
     b = [v / 100 for v in iso_zones.DEFAULT_BOUNDS_CMM[(2, "rigid")]]
     return (b[0], b[1], b[2]), "ISO 10816-3 group 2, rigid (default table, from memory)"
 

@@ -217,7 +217,7 @@ def test_iso_lines_come_back_from_the_parameter_set():
     bounds, source = report.iso_bounds_mm_s(p)
     for got, cmm in zip(bounds, iso_zones.DEFAULT_BOUNDS_CMM[(1, "flexible")]):
         assert abs(got - cmm / 100) <= 0.5 / vpm * (1 + cmm / 100) + 1e-12
-    assert "group 1, flexible" in source
+    assert "group 1, flexible foundation" in source
     assert report.iso_bounds_mm_s({})[0] == (1.4, 2.8, 4.5)
 
 
