@@ -50,7 +50,10 @@ def _plusplus(x: np.ndarray, k: int, rng: np.random.Generator) -> np.ndarray:
 
 
 def _sq_dist(x: np.ndarray, c: np.ndarray) -> np.ndarray:
-    return ((x[:, None, :] - c[None, :, :]) ** 2).sum(2)
+    """Squared distances (n, k) as |x|^2 - 2 x.c + |c|^2: one matrix product instead of an
+    (n, k, d) array; rounding can make a zero distance slightly negative, so clip at 0."""
+    d = (x * x).sum(1)[:, None] - 2.0 * (x @ c.T) + (c * c).sum(1)[None, :]
+    return np.maximum(d, 0.0)
 
 
 def kmeans(x: np.ndarray, k: int, n_init: int = 10, max_iter: int = 300, tol: float = 1e-6,
