@@ -55,6 +55,8 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError("--training-days must be above 0 and below --days")
     if not args.interval_s >= 60:
         raise EdgevibError("--interval-s must be at least 60 s")
+    if args.jobs is not None and args.jobs < 1:
+        raise EdgevibError("--jobs must be at least 1")
     started = time.monotonic()
     from host_tools.report import staging_folder, swap_in
     tmp = staging_folder(out)
@@ -191,6 +193,8 @@ def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
                    f"{r['warnings'][0]}")
     for e in fr["alerts"]:
         out.append(f"    false alert: {_when(e['t_s'], start)}, {e['from']} -> {e['to']} ({e['reason']}, {e.get('feature') or '-'})")
+    if not r["detections"]:
+        out.append("  no seeded fault in this span")
     for d in r["detections"]:
         what = d["kind"].replace("_", " ")
         if d["detected_t_s"] is None:
