@@ -15,6 +15,7 @@ def run(args) -> int:
 
     figures = bench.device_figures()
     figures.update(bench.host_figures())
+    figures.update(bench.workflow_figures())
     figures["targets_met"] = bench.met(figures)
     if args.json:
         print(json.dumps(figures, indent=2))
