@@ -382,7 +382,7 @@ def plot_score(w: Windows, p: dict, clock: Clock, window_s: float, faults: Seque
               and state_code(e["from"]) not in (ALERT, ALARM)]
     if raised:
         ax.plot(raised, [top / 1.25] * len(raised), "v", ms=5, color=STATE_COLOURS[ALERT], mec=INK, mew=0.4,
-                zorder=5, label="alert raised")
+                zorder=5, label="alert or alarm raised")
         ax.legend(loc="upper left", frameon=False, fontsize=8)
     ax.set_ylabel("score, spreads of the nearest mode")
     _style(ax)
