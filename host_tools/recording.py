@@ -230,12 +230,12 @@ def write_wav(path: str | os.PathLike, counts: np.ndarray, sample_rate_hz: float
             b"data", struct.pack("<I", len(payload)),
         )
     )
-    _atomic_write(sidecar_path(p), (json.dumps(meta, indent=1, sort_keys=True) + "\n").encode())
-    _atomic_write(p, header + payload)
+    atomic_write(sidecar_path(p), (json.dumps(meta, indent=1, sort_keys=True) + "\n").encode())
+    atomic_write(p, header + payload)
     return p
 
 
-def _atomic_write(path: Path, data: bytes) -> None:
+def atomic_write(path: Path, data: bytes) -> None:
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix="." + path.name + ".", suffix=".tmp")
     try:
         with os.fdopen(fd, "wb") as f:

@@ -18,7 +18,7 @@ from host_tools.commission import (
     DEFAULT_BOARD, G_M_S2, HANN_ENBW_BINS, CheckResult, check_recording, iso_zone_bounds, lowest_bin,
     settings_from_board)
 from host_tools.errors import EdgevibError
-from host_tools.recording import _atomic_write, read_recording, sidecar_path
+from host_tools.recording import atomic_write, read_recording, sidecar_path
 
 HELP = "commissioning check of a recording: rate, offset, clipping, flatline, noise, lines, ISO zone"
 
@@ -67,7 +67,7 @@ def run(args: argparse.Namespace) -> int:
     if args.plot:
         rendered.append((Path(args.plot), plot_png(result)))
     for path, data in rendered:
-        _atomic_write(path, data)
+        atomic_write(path, data)
     print(render_text(result), end="")
     return 0
 

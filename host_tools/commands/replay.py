@@ -37,7 +37,7 @@ import numpy as np
 from host_tools.commands.flash import load_body
 from host_tools.commands.train import check_outputs, load_board
 from host_tools.errors import EdgevibError
-from host_tools.recording import _atomic_write, read_stream
+from host_tools.recording import atomic_write, read_stream
 from host_tools.replay import ReplayResult, default_jobs, group_sources, m_s2_per_count, replay
 
 HELP = "replay recordings through the device detector: events, per-window states, scores and features"
@@ -96,7 +96,7 @@ def run(args: argparse.Namespace) -> int:
     if args.windows_csv:
         rendered.append((Path(args.windows_csv), windows_csv(result).encode()))
     for path, data in rendered:
-        _atomic_write(path, data)
+        atomic_write(path, data)
     if report is not None:
         _write_reports(report, Path(args.report), result, params, groups)
     print(summary_text(result), end="")

@@ -20,7 +20,7 @@ from firmware_py import board, mpack
 from firmware_py import params as pm
 from host_tools.commission import DEFAULT_BOARD
 from host_tools.errors import EdgevibError
-from host_tools.recording import _atomic_write, read_stream, sidecar_path
+from host_tools.recording import atomic_write, read_stream, sidecar_path
 from host_tools.replay import default_jobs, group_sources, m_s2_per_count
 from host_tools.training import report_text, train
 
@@ -94,7 +94,7 @@ def run(args: argparse.Namespace) -> int:
     text = report_text(summary)
     rendered = [body, (json.dumps(summary, indent=1) + "\n").encode(), text.encode()]
     for path, data in zip(paths, rendered):
-        _atomic_write(path, data)
+        atomic_write(path, data)
     print(text, end="")
     print(f"wrote {paths[0]}, {paths[1].name}, {paths[2].name}")
     return 0
