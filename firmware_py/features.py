@@ -10,7 +10,7 @@ from firmware_py.feature_index import (
 from firmware_py.fixmath import div_pow2, log2_q8, msb, sqrt_pow2
 from firmware_py.ring import SampleRing, footprint_bytes as _ring_bytes
 
-_Y_BITS = const(13)     # windows are normalised so the peak's top bit is bit 13: |y| <= 2**14
+Y_BITS = const(13)      # windows are normalised so the peak's top bit is bit 13: |y| <= 2**14
 _MIN_N = const(64)
 _MAX_N = const(4096)
 
@@ -116,8 +116,8 @@ class FeatureCore:
         if pk == 0:
             self._flat(off)
             return
-        # normalise: y = (x - mean) * 2**u, peak's top bit at _Y_BITS
-        u = _Y_BITS - msb(pk)
+        # normalise: y = (x - mean) * 2**u, peak's top bit at Y_BITS
+        u = Y_BITS - msb(pk)
         g = 1 << u if u > 0 else 1
         sh = -u if u < 0 else 0
         buf = self.buf

@@ -8,10 +8,9 @@ ISO 10816-3 zone of velocity r.m.s. Each item gets a verdict in plain words, one
 a one-line explanation; the overall verdict is the worst of them.
 
 Spectra: the twin's power spectra (Hann window, features.FeatureCore) are brought back to
-physical units per window, mean square per bin in (m/s^2)^2 = 4/3 * 2**(-2u) * p[k] *
-m_s2_per_count**2, where u is the window's normalisation shift (features._axis: the peak |x -
-mean| is shifted so its top bit is bit 13) and 4/3 the Hann power normalisation the band powers
-use; summed over a band this is the band's mean square. The check averages these over windows.
+physical units per window by FeatureTwin.mean_square_per_bin (mean square per bin, the scale of
+the band powers: summed over a band it is the band's mean square) times m_s2_per_count**2. The
+check averages these over windows.
 Spectra and velocity come from the whole windows (a trailing part window is left out, as on the
 device); offset, clipping and runs of identical samples from every sample.
 
@@ -32,7 +31,7 @@ from firmware_py import board, iso_zones
 from firmware_py.feature_index import F_PEAK, F_VEL
 from host_tools import units
 from host_tools.errors import EdgevibError
-from host_tools.feature_twin import _Y_BITS, FeatureTwin, TwinConfig
+from host_tools.feature_twin import FeatureTwin, TwinConfig
 from host_tools.recording import Recording
 
 VERDICTS = ("ok", "check", "problem")   # in rising order of concern
@@ -232,6 +231,7 @@ def check_recording(rec: Recording, settings: CheckSettings, rpm: float | None =
     except ValueError as e:
         raise EdgevibError(f"{rec.path}: cannot analyse at {fs} Hz with {n}-sample windows ({e})") from None
     feats, power = twin.features(rec.counts, keep_power=True)
+    ms_all = twin.mean_square_per_bin(feats, power) * rec.m_s2_per_count ** 2   # (m/s^2)^2
     per, windows = twin.per, feats.shape[0]
     df = fs / n
     freq = np.arange(n // 2 + 1) * df
@@ -244,7 +244,7 @@ def check_recording(rec: Recording, settings: CheckSettings, rpm: float | None =
         peak = fa[:, F_PEAK] >> 8                     # counts (F_PEAK is Q8)
         live = peak > 0
         if live.any():
-            ms_w = _window_ms(power[:, a], peak, live, rec.m_s2_per_count)
+            ms_w = ms_all[live, a]
             ms = ms_w.mean(axis=0)
             floor_ms, band = _noise_floor(ms_w, df)
         else:
@@ -275,14 +275,6 @@ def check_recording(rec: Recording, settings: CheckSettings, rpm: float | None =
 
 
 # --- spectra -------------------------------------------------------------------------------------
-
-def _window_ms(p: np.ndarray, peak: np.ndarray, live: np.ndarray, scale: float) -> np.ndarray:
-    """Twin power spectra (windows, m+1) -> mean square per bin, (m/s^2)^2, of each live window
-    (a flat window has no spectrum), shape (live windows, m+1). Normalisation in the module
-    docstring."""
-    u = _Y_BITS - (np.frexp(peak[live].astype(np.float64))[1] - 1)   # features._axis: u = 13 - msb(pk)
-    return p[live].astype(np.float64) * np.exp2(-2.0 * u)[:, None] * (4.0 / 3.0) * scale * scale
-
 
 def lowest_bin(df: float) -> int:
     """First bin the check looks at: above the DC leakage of the Hann window (bins 0 and 1) and

@@ -18,10 +18,8 @@ import numpy as np
 from firmware_py import fft, tables
 from firmware_py.feature_index import (
     F_BAND0, F_CLIP, F_CREST, F_KURT, F_MEAN, F_PEAK, F_RMS, F_VEL, LOG2_ZERO_Q8, per_axis)
-from firmware_py.features import check_config
+from firmware_py.features import Y_BITS, check_config
 from firmware_py.fixmath import log2_q8
-
-_Y_BITS = 13   # firmware_py.features._Y_BITS
 
 
 @dataclass
@@ -98,6 +96,15 @@ class FeatureTwin:
                 power[:, a] = p
         return (feats, power) if keep_power else feats
 
+    def mean_square_per_bin(self, feats, power):
+        """Spectra from features(keep_power=True) as mean square per bin, counts**2, shape
+        (windows, axes, m+1): one-sided and Hann-normalised, the scale of the band powers (a
+        band's mean square is the sum over its bins; white noise reads PSD * bin width). The
+        window's normalisation 2**u is undone from its F_PEAK; a flat window reads zero."""
+        pk = feats[:, F_PEAK::self.per][:, : self.axes].astype(np.int64) >> 8
+        u = np.where(pk > 0, Y_BITS - _msb(np.maximum(pk, 1)), 0)
+        return power.astype(np.float64) * np.exp2(-2.0 * u)[..., None] * (4.0 / 3.0)
+
     def _axis(self, x, f):
         n, L, cfg = self.n, self.L, self.cfg
         s = x.sum(axis=1, dtype=np.int64)
@@ -110,7 +117,7 @@ class FeatureTwin:
         f[:, F_PEAK] = pk << 8
         f[:, F_CLIP] = clip
         live = pk > 0
-        u = np.where(live, _Y_BITS - _msb(np.maximum(pk, 1)), 0)
+        u = np.where(live, Y_BITS - _msb(np.maximum(pk, 1)), 0)
         g = (1 << np.maximum(u, 0)).astype(np.int32)
         sh = np.maximum(-u, 0).astype(np.int32)
         y = ((x - mean[:, None].astype(np.int32)) * g[:, None]) >> sh[:, None]

@@ -46,7 +46,7 @@ from firmware_py import feature_index as fi
 from firmware_py import iso_zones
 from firmware_py.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSOR_FAULT, STATE_NAMES
 from host_tools import units
-from host_tools.commission import HANN_ENBW_BINS, _window_ms, line_names
+from host_tools.commission import HANN_ENBW_BINS, line_names
 from host_tools.errors import EdgevibError
 from host_tools.feature_twin import FeatureTwin, TwinConfig
 from host_tools.recording import Recording, read_recording
@@ -470,13 +470,11 @@ class _WindowSamples:
         if not found:
             return None
         feats, power = self.twin.features(np.concatenate([c for c, _ in found]), keep_power=True)
-        scale = found[0][1]
+        ms = self.twin.mean_square_per_bin(feats, power) * found[0][1] ** 2      # (m/s^2)^2
         out = []
         for a in range(self.twin.axes):
-            pk = feats[:, a * self.twin.per + fi.F_PEAK] >> 8      # counts (F_PEAK is Q8)
-            live = pk > 0
-            out.append(_window_ms(power[:, a], pk, live, scale).mean(axis=0) if live.any()
-                       else np.full(power.shape[2], np.nan))
+            live = feats[:, a * self.twin.per + fi.F_PEAK] > 0                  # flat: no spectrum
+            out.append(ms[live, a].mean(axis=0) if live.any() else np.full(power.shape[2], np.nan))
         return np.array(out)
 
 

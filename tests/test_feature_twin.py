@@ -55,3 +55,16 @@ def test_hypothesis_arbitrary_samples_bit_identical(samples):
     x = np.array(samples, dtype=np.int16)
     dev, twin, _, _ = _both(x, cfg)
     assert np.array_equal(dev, twin)
+
+
+def test_mean_square_per_bin_sums_to_a_tones_mean_square():
+    # a sine of amplitude A has mean square A**2/2 (textbook identity); the Hann main lobe holds
+    # all of it but for the side lobes' share (about 0.05 % beyond +-2 bins)
+    n, A = 512, 3000.0
+    x = np.round(A * np.sin(2 * np.pi * 16 * np.arange(4 * n) / n)).astype(np.int16)
+    tw = FeatureTwin(TwinConfig(n=n, fs_hz=3200, adc_min=-32768, adc_max=32767))
+    feats, power = tw.features(x, keep_power=True)
+    ms = tw.mean_square_per_bin(feats, power)
+    assert ms.shape == (4, 1, n // 2 + 1)
+    lobe = ms[:, 0, 14:19].sum(axis=1)
+    assert np.all(np.abs(lobe / (A * A / 2) - 1) < 2e-3)
