@@ -26,6 +26,8 @@ COMMANDS = {
     "monitor": "monitor",
     "record": "record",
     "rollback": "rollback",
+    "ack": "ack",
+    "learn": "learn",
 }
 
 
