@@ -126,7 +126,8 @@ class SafeGateway(DeviceGateway):
 
     def status(self):
         return {"state": "safe", "mode": -1, "score_q8": 0, "feature": -1, "zone": 0,
-                "features": [], "windows": 0, "dropped": 0, "events": self.snapshots.next_id,
+                "features": [], "windows": 0, "dropped": 0, "skipped": 0,
+                "events": self.snapshots.next_id,
                 "t_s": self.now_s()}
 
     def stream(self, on):

@@ -11,6 +11,10 @@ _MIN_N = const(64)
 _MAX_N = const(8192)
 _MAX_BANDS = const(32)
 _HEADERS = const(1024)   # object headers of the buffers, about 16 bytes each, on top of payloads
+_MAX_EVERY = const(64)
+# The application feeds its 8 s watchdog once per analysed window (app.WDT_MS), so analysed
+# windows must come at least twice that often.
+MAX_CYCLE_MS = const(4000)
 
 
 class BoardError(ValueError):
@@ -82,6 +86,7 @@ def check(p):
     if n & (n - 1):
         raise BoardError("window_n must be a power of two, not %d" % n)
     _int(p, "ring_windows", 2, 64)
+    every = _int(p, "analyse_every", 1, _MAX_EVERY)
     wm = _int(p, "fifo_watermark", 1, 4096)
     _int(p, "axes", 1, 3)
     _int(p, "heap_budget_bytes", 1024, 1 << 26)
@@ -101,6 +106,10 @@ def check(p):
             raise BoardError("sensor %s needs a bus" % sensor["model"])
     elif wm > n:
         raise BoardError("fifo_watermark must not exceed window_n")
+    if every * n * 1000 > MAX_CYCLE_MS * rate:
+        raise BoardError("analyse_every * window_n is %d ms of samples, over %d ms between "
+                         "analysed windows (the watchdog is fed once per analysed window)"
+                         % (every * n * 1000 // rate, MAX_CYCLE_MS))
     need = memory_need(p)
     if need > p["heap_budget_bytes"]:
         raise BoardError("%s needs %d bytes of heap, more than heap_budget_bytes %d"

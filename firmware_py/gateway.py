@@ -7,11 +7,16 @@
 # may run with the heap locked. Saving a snapshot and answering the link allocate; poll() does
 # those after the window, outside any lock.
 #
+# Duty cycle (profile key analyse_every, K): of every K windows of frames only the first goes to
+# the ring and is analysed; feed() discards the other K - 1 on purpose and counts them in
+# `skipped` (windows), never in `dropped` (frames lost by accident, which the detector is told).
+#
 # Raw stream (raw_stream(True)): poll() pushes each window's raw counts with its index w and
-# `gap`, the frames lost just before it (ring full, or the ring emptied by apply_params), so a
-# host can tell contiguous windows from spliced ones. Frames lost when the ring is full fall just
-# before the first window not yet in it: index windows + slots, kept in self.gaps at that index
-# modulo slots + 1 (every index from the next window to that one is distinct there).
+# `gap`, the frames missing just before it (ring full, the ring emptied by apply_params, or
+# skipped on purpose), so a host can tell contiguous windows from spliced ones. Frames lost when
+# the ring is full fall just before the first window not yet in it: index windows + slots, kept
+# in self.gaps at that index modulo slots + 1 (every index from the next window to that one is
+# distinct there); skipped frames fall before the next window the ring will form.
 import array
 import gc
 
@@ -38,6 +43,10 @@ class Gateway:
         self.service = None          # set by the application: pushes the stream
         self.dropped_seen = 0
         self.windows = 0
+        self.every = profile["analyse_every"]
+        self.slot = 0                # window of the present cycle; 0 is the one analysed
+        self.left = profile["window_n"]    # frames still to come in that window
+        self.skipped = 0             # windows discarded on purpose, since start
         n = profile["window_n"]
         axes = profile["axes"]
         self.raw = array.array('h', bytes(2 * n * axes))
@@ -50,11 +59,41 @@ class Gateway:
 
     # ---- samples and windows ----
     def feed(self, src, frames):
-        """Interleaved int16 frames from the sensor FIFO into the ring (drops are counted)."""
+        """Interleaved int16 frames from the sensor FIFO: into the ring for the first window of
+        every `every`, discarded for the others (each counted in skipped at its first frame).
+        Frames the full ring cannot take are dropped and counted. Allocation-free, and kept
+        to a few locals: a bigger frame would be taken from the heap when it is not locked."""
+        i = 0
+        while i < frames:
+            k = frames - i
+            if k > self.left:
+                k = self.left
+            if self.slot == 0:
+                self._keep(src, k, i)
+            else:
+                self._skip(k)
+            i += k
+            self.left -= k
+            if self.left == 0:
+                self._next_window()
+
+    def _keep(self, src, k, first):
         ring = self.core.ring
-        lost = ring.push(src, frames)
+        lost = ring.push(src, k, first)
         if lost:
             self._lose(self.windows + ring.slots, lost)
+
+    def _skip(self, k):
+        ring = self.core.ring
+        self._lose(self.windows + ring.filled // ring.n, k)   # before the next window formed
+
+    def _next_window(self):
+        self.left = self.core.n
+        self.slot += 1
+        if self.slot == self.every:
+            self.slot = 0
+        else:
+            self.skipped += 1
 
     def _lose(self, w, frames):
         """Note frames lost just before window index w (allocation-free)."""
@@ -110,7 +149,8 @@ class Gateway:
     def info(self):
         p = self.profile
         return {"fw": FW_VERSION, "board": p["name"], "fs_hz": p["sample_rate_hz"],
-                "n": p["window_n"], "axes": p["axes"], "uptime_s": self.ticks_ms() // 1000,
+                "n": p["window_n"], "axes": p["axes"],
+                "analyse_every": p["analyse_every"], "uptime_s": self.ticks_ms() // 1000,
                 "heap_free": gc.mem_free() if hasattr(gc, "mem_free") else 0}
 
     def status(self):
@@ -118,7 +158,8 @@ class Gateway:
         return {"state": alarm.STATE_NAMES[det.state], "mode": det.mode,
                 "score_q8": det.score, "feature": det.feat, "zone": det.zone,
                 "features": list(self.core.feats), "windows": self.windows,
-                "dropped": self.core.ring.dropped, "events": self.snapshots.next_id,
+                "dropped": self.core.ring.dropped, "skipped": self.skipped,
+                "events": self.snapshots.next_id,
                 "t_s": self.now_s()}
 
     def stream(self, on):
@@ -145,6 +186,8 @@ class Gateway:
         gc.collect()
         self.core, self.det = params_mod.build(p, self.profile)
         self.dropped_seen = 0
+        self.slot = 0                # the next frame starts a window in the new ring
+        self.left = self.core.n
 
     def acknowledge(self):
         latched = self.det.state == alarm.ALARM

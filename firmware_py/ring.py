@@ -22,8 +22,8 @@ class SampleRing:
         self.filled = 0       # frames written and not yet released
         self.dropped = 0      # frames lost to a full ring, since start (never reset)
 
-    def push(self, src, frames):
-        """Append `frames` interleaved frames from src (array('h'), frames * axes counts).
+    def push(self, src, frames, first=0):
+        """Append `frames` interleaved frames from src (array('h')), from its frame `first` on.
 
         Returns the number of frames dropped by this call (also added to self.dropped).
         """
@@ -34,13 +34,13 @@ class SampleRing:
         axes = self.axes
         if axes == 1:
             d = self.data[0]
-            for i in range(take):
+            for i in range(first, first + take):
                 d[w] = src[i]
                 w += 1
                 if w == cap:
                     w = 0
         else:
-            i = 0
+            i = first * axes
             for _ in range(take):
                 for a in range(axes):
                     self.data[a][w] = src[i]

@@ -43,8 +43,9 @@ def test_memory_need_is_the_feature_core_plus_the_driver_buffers():
     core = features.footprint_bytes(p["window_n"], p["axes"], p["ring_windows"], p["n_bands"])
     drv = adxl345.footprint_bytes(p["fifo_watermark"], p["axes"])
     assert board.memory_need(p) == core + drv + 1024
-    # The driver's share: 6-byte frame buffer, command and write bytes, a 32-frame read block.
-    assert drv == 6 + 3 + 2 * 3 * 32
+    # The driver's share: 6-byte frame buffer, command and write bytes, a 32-frame read block
+    # of one axis (the profile keeps x only).
+    assert p["axes"] == 1 and drv == 6 + 3 + 2 * 1 * 32
     assert iis3dwb.footprint_bytes(256, 1) == 7 * 256 + 5 + 2 * 512
 
 
@@ -96,6 +97,12 @@ BAD = [
     (("sensor", "adc_min"), -2048, "does not match"),
     (("led_pin",), "GP25", "led_pin"),
     (("heap_budget_bytes",), 20000, "more than heap_budget_bytes"),
+    (("analyse_every",), 0, "analyse_every must be an integer from 1 to 64"),
+    (("analyse_every",), 65, "analyse_every must be an integer from 1 to 64"),
+    (("analyse_every",), KeyError, "analyse_every"),
+    (("analyse_every",), 12.5, "analyse_every"),
+    # 13 windows of 1024 at 3200 Hz: 4160 ms between analysed windows, watchdog fed too seldom
+    (("analyse_every",), 13, "4160 ms of samples, over 4000 ms"),
 ]
 
 
@@ -105,6 +112,16 @@ def test_malformed_profiles_are_refused_with_the_reason(path, value, reason):
     _set(path, value)(p)
     with pytest.raises(board.BoardError, match=reason):
         board.check(p)
+
+
+def test_analysed_windows_come_often_enough_for_the_watchdog():
+    from firmware_py import app
+    # The application feeds the watchdog once per analysed window: at the longest gap the
+    # profile check allows, that is still every half watchdog period or sooner.
+    assert 2 * board.MAX_CYCLE_MS <= app.WDT_MS
+    p = profile("pico_adxl345")
+    p["analyse_every"] = 12                                 # 12 x 320 ms = 3840 ms: allowed
+    board.check(p)
 
 
 def test_iis3dwb_specific_checks():
