@@ -61,8 +61,9 @@ class Gateway:
     def feed(self, src, frames):
         """Interleaved int16 frames from the sensor FIFO: into the ring for the first window of
         every `every`, discarded for the others (each counted in skipped at its first frame).
-        Frames the full ring cannot take are dropped and counted. Allocation-free, and kept
-        to a few locals: a bigger frame would be taken from the heap when it is not locked."""
+        Frames the full ring cannot take are dropped and counted. src: frames * axes counts.
+        Allocation-free, and split into small methods: MicroPython takes a call's state from
+        the heap when it exceeds a few words (py/objfun.c, from memory) and the heap is free."""
         i = 0
         while i < frames:
             k = frames - i
@@ -85,6 +86,8 @@ class Gateway:
 
     def _skip(self, k):
         ring = self.core.ring
+        if self.left == ring.n:
+            self.skipped += 1                                  # its first frame
         self._lose(self.windows + ring.filled // ring.n, k)   # before the next window formed
 
     def _next_window(self):
@@ -92,8 +95,6 @@ class Gateway:
         self.slot += 1
         if self.slot == self.every:
             self.slot = 0
-        else:
-            self.skipped += 1
 
     def _lose(self, w, frames):
         """Note frames lost just before window index w (allocation-free)."""

@@ -436,6 +436,27 @@ def test_one_window_in_k_is_analysed_and_the_rest_are_skipped_not_dropped(tmp_pa
     assert gw.info()["analyse_every"] == k_every
 
 
+def test_new_parameters_mid_cycle_start_a_fresh_cycle(tmp_path):
+    prof = dict(DESK, analyse_every=3)
+    gw, told = duty_gateway(tmp_path, prof)
+    n, axes = prof["window_n"], prof["axes"]
+    k = n + n // 2                                   # one kept window, half a skipped one
+    gw.feed(frames_from(0, k, axes), k)
+    assert gw.window() and gw.skipped == 1
+    gw.apply_params(gw.params.params)
+    told = []                                        # the new detector, recorded the same way
+    step = gw.det.step
+    gw.det.step = lambda f, t_s, dropped: told.append(dropped) or step(f, t_s, dropped)
+    gw.feed(frames_from(k, 4 * n, axes), 4 * n)      # a kept window, 2 skipped, 1 kept
+    got = []
+    while gw.window():
+        got.append((np.frombuffer(gw.capture(), "<i2").reshape(axes, n), gw.raw_gap))
+    assert [gap for _, gap in got] == [n // 2, 2 * n]     # the half, then the two skipped
+    assert np.array_equal(got[0][0], expected_window(k, n, axes))
+    assert np.array_equal(got[1][0], expected_window(k + 3 * n, n, axes))
+    assert gw.skipped == 3 and told == [0, 0] and gw.core.ring.dropped == 0
+
+
 def test_frames_a_full_ring_cannot_take_are_still_dropped_and_told(tmp_path):
     prof = PICO
     gw, told = duty_gateway(tmp_path, prof)
@@ -509,6 +530,52 @@ def test_per_window_step_allocates_nothing_on_micropython():
     assert clean, "a per-window step allocated under heap_lock"
     assert windows == 3 and skipped == 3 * (EVERY - 1) and lost == 0 and dropped == 0
     assert head == want                         # the window holds the chip's samples
+
+
+def test_skipping_allocates_nothing_on_micropython():
+    """Gateway.feed with blocks straddling kept and skipped windows (3 axes, 1 in 3) and
+    Gateway.window, each under heap_lock on MicroPython; the windows hold the right frames."""
+    prof = dict(DESK, analyse_every=3)
+    body = """
+import array, json
+from firmware_py import mpack, params
+from firmware_py.gateway import Gateway
+from firmware_py.paramstore import ParamStore
+from firmware_py.snapshots import SnapshotRing
+prof = json.loads(%(profile)r)
+n = prof['window_n']
+store = ParamStore('/nonexistent-edgevib', prof['name'], 3200, n, 3,
+                   mpack.packb(params.factory(prof)), None)
+gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3), lambda: 0)
+src = array.array('h', bytes(2 * 3 * 37))
+k = 0
+def feed():
+    for j in range(37):
+        for a in range(3):
+            src[3 * j + a] = ((k + j) * 7 + a * 1000) %% 20001 - 10000
+    gw.feed(src, 37)
+    return 37
+def window():
+    return gw.window()
+ok = True
+firsts = []
+while k < 4 * 3 * n:
+    done, got = locked(feed)
+    ok = ok and done
+    k += got
+    done, ran = locked(window)
+    ok = ok and done
+    if ran:
+        firsts.append([gw.raw[0], gw.raw[n], gw.raw[2 * n], gw.raw_gap])
+emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
+""" % {"profile": json.dumps(prof)}
+    ok, windows, skipped, dropped, firsts = run_guest(body).out[0]
+    assert ok, "feed or window allocated under heap_lock"
+    n = prof["window_n"]
+    assert windows == 4 and skipped == 4 * 2 and dropped == 0
+    want = [list(expected_window(c * 3 * n, 1, 3)[:, 0]) + [0 if c == 0 else 2 * n]
+            for c in range(4)]
+    assert firsts == want
 
 
 # ---- real-time budget (docs/boards.md) ----------------------------------------------------------
