@@ -14,7 +14,8 @@ API
         dropped samples dropped since the previous window
       after it: det.state, det.score (Q8 spreads of the nearest mode, 0 without a model),
       det.mode (nearest mode, -1 none), det.feat (flat feature index that drove the score or the
-      guard or the fault, -1 none), det.zone (ISO zone 0..3 = A..D), det.bb (broadband level).
+      guard or the fault, -1 none), det.zone (ISO zone 0..3 = A..D), det.bb (broadband level:
+      the largest axis F_VEL, counts/s Q16, the quantity of the idle floor and the ISO guard).
     det.ack(t_s)       acknowledge a latched alarm; det.learn(t_s) start learning (False if
                        refused: alarm latched or sensor fault); det.stop_learning(t_s) abandon it
     det.events         EventRing (firmware_py/event_ring.py): i = det.events.pop() -> slot or -1;
@@ -44,6 +45,7 @@ CHI_Q8 = (996, 1099, 1176, 1241, 1299, 1351, 1399, 1444, 1487, 1527, 1565, 1601,
           2629, 2646, 2662, 2679, 2695, 2711, 2727, 2743)
 
 _BIG = const(0x3FFFFFFF)
+_IDLE_MM_S_PER_100 = const(5)   # default idle floor, hundredths of mm/s (default_params)
 
 # The detector's keys in the parameter set (formats and defaults: docs/detector.md). Kept as
 # names only: on the device, comments cost nothing and strings cost RAM.
@@ -62,7 +64,7 @@ PARAM_KEYS = (
     "det_k",                # windows over threshold, of the last det_n, that raise
     "det_n",                # persistence window length (<= 30)
     "det_dwell",            # least windows in alert or alarm before it can clear
-    "det_idle_rms_q8",      # idle when the largest axis F_RMS is under this, Q8 counts
+    "det_idle_vel_q16",     # idle when the largest axis F_VEL is under this, counts/s Q16
     "det_startup_n",        # windows held off after the machine starts (no scoring, no learning)
     "det_iso_group",        # ISO 10816-3 machine group (1 or 2), for the record
     "det_iso_found",        # foundation, 'rigid' or 'flexible', for the record
@@ -103,7 +105,10 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
 
     vel_per_mm_s: F_VEL units (counts/s Q16) per mm/s, from the calibration. full_scale: the
     converter's full scale in counts; the healthy DC range defaults to +-7/8 of it. The default
-    guard is group 2 rigid, the lowest boundaries of the table (the cautious choice).
+    guard is group 2 rigid, the lowest boundaries of the table (the cautious choice). The default
+    idle floor is 0.05 mm/s, 1/28 of the lowest zone A/B boundary (1.4 mm/s): no running pump
+    reads that quietly, so the guard is never blinded before training; a noisy MEMS sensor on a
+    stopped pump may read more (an ADXL345 about 0.15-0.4 mm/s) and show running until trained.
     """
     feat = default_feature_list(axes, n_bands)
     dc = (full_scale * 7 // 8) << 8
@@ -113,7 +118,7 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_modes": 0, "det_mode_c_q8": [], "det_mode_s_q8": [],
         "det_thr_alert_q8": 5 * 256, "det_thr_alarm_q8": 8 * 256, "det_hyst_q8": 205,
         "det_k": 3, "det_n": 5, "det_dwell": 10,
-        "det_idle_rms_q8": 8 * 256, "det_startup_n": 10,
+        "det_idle_vel_q16": vel_per_mm_s * _IDLE_MM_S_PER_100 // 100, "det_startup_n": 10,
         "det_iso_group": group, "det_iso_found": foundation,
         "det_iso_bounds": bounds_in_vel_units(group, foundation, vel_per_mm_s),
         "det_flat_rms_q8": 64, "det_clip_max": 0,
@@ -176,7 +181,7 @@ class Detector:
         self.hyst = _int(p, "det_hyst_q8", 1, 256)
         self.alarm = Alarm(_int(p, "det_k", 1, 30), _int(p, "det_n", 1, 30),
                            _int(p, "det_dwell", 0, 1 << 20))
-        self.idle_floor = _int(p, "det_idle_rms_q8", 0, _BIG)
+        self.idle_floor = _int(p, "det_idle_vel_q16", 0, _BIG)
         self.startup_n = _int(p, "det_startup_n", 0, 1 << 20)
         self.iso = _ints(p, "det_iso_bounds", 3)
         if not 0 < self.iso[0] <= self.iso[1] <= self.iso[2]:
@@ -212,7 +217,7 @@ class Detector:
         self.fault = False
         self.fault_reason = 0
         self.fault_feat = -1
-        self.running = False                      # broadband level at or over the idle floor
+        self.running = False                      # broadband velocity at or over the idle floor
         self.hold = self.startup_n
         self.state = al.IDLE
         self.t = 0
@@ -324,13 +329,16 @@ class Detector:
             self.hold = self.startup_n            # treat like a restart: no transient alert
             self._set(self._base_state(), al.R_SENSOR_OK)
             return self.state
-        # machine running? broadband level = largest axis r.m.s.
-        bb = 0
-        for a in range(self.axes):
-            if f[a * pa + fi.F_RMS] > bb:
-                bb = f[a * pa + fi.F_RMS]
-        self.bb = bb
-        if bb < self.idle_floor:
+        # machine running? broadband level = largest axis velocity r.m.s.: the 1/f weighting
+        # favours the machine's low-frequency lines over the sensor's flat noise
+        vf = fi.F_VEL
+        vel = f[vf]
+        for a in range(1, self.axes):
+            if f[a * pa + fi.F_VEL] > vel:
+                vel = f[a * pa + fi.F_VEL]
+                vf = a * pa + fi.F_VEL
+        self.bb = vel
+        if vel < self.idle_floor:
             self.running = False
             self.hold = self.startup_n
             self.alarm.reset()
@@ -347,13 +355,7 @@ class Detector:
             return self.state
         if self.state == al.IDLE:
             self._set(self._base_state(), al.R_STARTED)
-        # the ISO guard: largest axis velocity
-        vf = fi.F_VEL
-        vel = f[vf]
-        for a in range(1, self.axes):
-            if f[a * pa + fi.F_VEL] > vel:
-                vel = f[a * pa + fi.F_VEL]
-                vf = a * pa + fi.F_VEL
+        # the ISO guard: the same largest axis velocity
         self.zone = zone_of(vel, self.iso)
         transform(f, self.idx, self.logf, self.u, self.d, self.tab)
         if self.learning:
@@ -483,5 +485,5 @@ class Detector:
             "det_modes": m.k, "det_mode_c_q8": list(m.c_q8)[:kd],
             "det_mode_s_q8": list(m.s_q8)[:kd],
             "det_thr_alert_q8": self.thr_alert, "det_thr_alarm_q8": self.thr_alarm,
-            "det_idle_rms_q8": self.idle_floor,
+            "det_idle_vel_q16": self.idle_floor,
         }

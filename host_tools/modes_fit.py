@@ -146,13 +146,14 @@ def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | 
     modes are k-means in z (Q8) with k chosen by the silhouette; each mode's spread is its
     members' standard deviation per feature, floored at det_s_floor_q8. The alert threshold is
     the chi-square tail point of the device (CHI_Q8, p = 1e-4) times the margin. The idle floor
-    is a quarter of the quietest window's broadband level, as the device's own learning sets it.
+    (det_idle_vel_q16, counts/s Q16) is a quarter of the quietest window's broadband velocity
+    (largest axis F_VEL), as the device's own learning sets it, and never under the set's.
     """
     u = transformed(feats, params)
     d = u.shape[1]
     pa = fi.per_axis(params["det_bands"])
-    rms = np.asarray(feats)[:, fi.F_RMS::pa][:, :params["det_axes"]]
-    idle = max(int(params["det_idle_rms_q8"]), int(rms.max(1).min()) >> 2)
+    vel = np.asarray(feats)[:, fi.F_VEL::pa][:, :params["det_axes"]]
+    idle = max(int(params["det_idle_vel_q16"]), int(vel.max(1).min()) >> 2)
     w = Welford(d)
     for row in u:
         for j in range(d):
@@ -183,5 +184,5 @@ def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | 
         "det_mode_s_q8": [int(v) for v in np.clip(np.rint(spread), floor, dm.Z_LIM).ravel()],
         "det_thr_alert_q8": int(alert),
         "det_thr_alarm_q8": int((alert * params["det_learn_alarm_q8"]) >> 8),
-        "det_idle_rms_q8": idle,
+        "det_idle_vel_q16": idle,
     }

@@ -9,10 +9,12 @@ What is learned, and how (every step that the device also does runs the device's
    DC_MARGIN_G about its centre, never wider than the factory's +-7/8 of full scale; clipping
    (det_clip_max) stays 0, any sample at the converter's full scale is suspect; the flatline
    floor stays the factory's.
-3. Idle floor (det_idle_rms_q8, on the broadband level = largest axis r.m.s., Q8 counts): where
-   recordings say the shaft speed (sidecar rpm 0 = stopped, > 0 = running), the floor is the
-   geometric mean of the 99th percentile of stopped windows and the 1st percentile of running
-   ones. Without both, the device's own rule: a quarter of the quietest window.
+3. Idle floor (det_idle_vel_q16, on the broadband level = largest axis velocity r.m.s. F_VEL,
+   counts/s Q16; velocity weights the machine's low-frequency lines by 1/f and so stands further
+   above a MEMS sensor's flat noise than acceleration does): where recordings say the shaft
+   speed (sidecar rpm 0 = stopped, > 0 = running), the floor is the geometric mean of the 99th
+   percentile of stopped windows and the 1st percentile of running ones. Without both, the
+   device's own rule: a quarter of the quietest window.
 4. Which windows the device would score (running, past the start-up hold-off, sensor healthy,
    ISO zone A or B): found by stepping the device Detector over each stream in time order.
 5. Baseline and operating modes: host_tools.modes_fit.fit (device Welford baseline and
@@ -48,7 +50,7 @@ from firmware_py import feature_index as fi
 from firmware_py import params as pm
 from firmware_py.detector import Detector
 from firmware_py.iso_zones import ZONE_C
-from host_tools import modes_fit, tail_fit
+from host_tools import modes_fit, tail_fit, units
 from host_tools.errors import EdgevibError
 from host_tools.recording import Recording
 from host_tools.replay import (
@@ -122,9 +124,10 @@ def _dc_range(feats: np.ndarray, params: dict, profile: dict) -> tuple[list[int]
     return lo_out, hi_out
 
 
-def _idle_floor(bb: np.ndarray, rpm: np.ndarray) -> tuple[int, str, list[str]]:
-    """det_idle_rms_q8 from the broadband levels bb (Q8 counts) and each window's recorded rpm
-    (nan unknown); returns (floor, rule used, warnings)."""
+def _idle_floor(bb: np.ndarray, rpm: np.ndarray, scale: float) -> tuple[int, str, list[str]]:
+    """det_idle_vel_q16 from the broadband velocities bb (largest axis F_VEL, counts/s Q16) and
+    each window's recorded rpm (nan unknown); scale: m/s^2 per count, for the warning's mm/s.
+    Returns (floor, rule used, warnings)."""
     stopped, running = bb[rpm == 0], bb[rpm > 0]
     if len(stopped) >= 5 and len(running) >= 5:
         q_stop, q_run = np.percentile(stopped, 99), np.percentile(running, 1)
@@ -134,8 +137,9 @@ def _idle_floor(bb: np.ndarray, rpm: np.ndarray) -> tuple[int, str, list[str]]:
                     [])
         floor = int(math.sqrt(np.median(stopped) * np.median(running)))
         return (floor, "geometric mean of the median stopped and running levels (sidecar rpm)",
-                [f"stopped and running broadband levels overlap (stopped up to {q_stop / 256:.2f}, running from "
-                 f"{q_run / 256:.2f} counts r.m.s.): some windows near the idle floor will be misjudged"])
+                [f"stopped and running broadband velocities overlap (stopped up to {units.velocity_mm_s(q_stop, scale):.3f}, "
+                 f"running from {units.velocity_mm_s(q_run, scale):.3f} mm/s r.m.s.): some windows near the idle floor "
+                 "will be misjudged"])
     return (max(int(bb.min()) >> 2, 1), "a quarter of the quietest window (the device's rule; no sidecar rpm marks stopped and running recordings)",
             ["no recordings marked stopped (sidecar rpm 0) and running: the idle floor is a quarter of the quietest "
              "window, so a stopped pump in the training data is learned as an operating mode"])
@@ -169,7 +173,7 @@ def _mode_table(feats: np.ndarray, modes: np.ndarray, k: int, params: dict, scal
 def _model(rows: np.ndarray, params: dict, seed: int) -> dict:
     """modes_fit.fit's baseline, modes and thresholds; the idle floor stays the one set here."""
     keys = modes_fit.fit(rows, params, seed=seed)
-    keys.pop("det_idle_rms_q8")
+    keys.pop("det_idle_vel_q16")
     return keys
 
 
@@ -224,11 +228,11 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     flat = int((allf[:, fi.F_RMS::pa][:, :axes] < base["det_flat_rms_q8"]).any(1).sum())
     if flat:
         warnings.append(f"{flat} training windows look like a stuck sensor (r.m.s. under the flatline floor)")
-    bb = allf[:, fi.F_RMS::pa][:, :axes].max(1).astype(np.float64)
+    bb = allf[:, fi.F_VEL::pa][:, :axes].max(1).astype(np.float64)
     rpm = np.concatenate([np.array([np.nan if r.rpm is None else r.rpm for r in s])[sf.rec] for s, sf in zip(streams, feats)])
-    idle, idle_rule, w = _idle_floor(bb, rpm)
+    idle, idle_rule, w = _idle_floor(bb, rpm, scale)
     warnings += w
-    p = _with(base, det_dc_lo_q8=dc_lo, det_dc_hi_q8=dc_hi, det_clip_max=0, det_idle_rms_q8=idle)
+    p = _with(base, det_dc_lo_q8=dc_lo, det_dc_hi_q8=dc_hi, det_clip_max=0, det_idle_vel_q16=idle)
 
     # which windows the device scores, and which of those are fit for training (zone A/B)
     probe = _run(_probe_model(p), feats)
@@ -325,7 +329,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         "windows": {"total": n_windows, "not_scored": n_windows - n_scored, "scored": n_scored,
                     "iso_zone_c_or_d": n_zone_c, "used": n_use, "held_out_scores": int(len(held_scores))},
         "hours": {"recorded": n_windows * window_s / 3600, "running_used": n_use * window_s / 3600},
-        "idle_floor": {"q8_counts": idle, "m_s2": idle / 256 * scale, "rule": idle_rule},
+        "idle_floor": {"q16_counts_per_s": idle, "mm_s": units.velocity_mm_s(idle, scale), "rule": idle_rule},
         "sensor": {"dc_lo_m_s2": [v / 256 * scale for v in dc_lo], "dc_hi_m_s2": [v / 256 * scale for v in dc_hi],
                    "clip_max": 0, "flat_rms_m_s2": p["det_flat_rms_q8"] / 256 * scale,
                    "rule": f"observed window means widened by their own range each side, at least +-{DC_MARGIN_G} g, within +-7/8 full scale"},
@@ -352,7 +356,7 @@ def report_text(summary: dict) -> str:
         f"edgevib training report: board {s['board']}, parameter set version {s['version']}",
         f"data: {s['recordings']} recordings in {s['streams']} stream(s), {w['total']} windows of {s['window_s']:g} s "
         f"({h['recorded']:.2f} h); {w['used']} running healthy windows used ({h['running_used']:.2f} h)",
-        f"idle floor: {s['idle_floor']['m_s2']:.3f} m/s^2 r.m.s. on the largest axis ({s['idle_floor']['rule']})",
+        f"idle floor: {s['idle_floor']['mm_s']:.3f} mm/s velocity r.m.s. on the largest axis ({s['idle_floor']['rule']})",
         f"operating modes: {s['modes']['k']} over {s['modes']['features']} features; {s['modes']['criterion']}",
     ]
     for m in s["modes"]["table"]:

@@ -97,6 +97,46 @@ def test_summary_counts_false_alerts_outside_the_faults(demo):
         assert re.search(rf"outside the seeded faults \([\d.]+ days\): {len(false)} false alert\(s\)", block)
 
 
+def test_trained_idle_floor_tells_stopped_from_running_on_the_training_days(demo):
+    # A check of our own data (the invented scenario), not against an outside reference: with the
+    # trained set, the device detector stepped over each pump's healthy training days judges every
+    # window of a stopped snapshot (sidecar rpm 0) idle, and almost no running one (rpm > 0) idle
+    # for being under the floor. The slowest duty point, 890 r/min, reads barely above the sensor
+    # noise in acceleration, so this fails with a floor on acceleration. Running windows may also
+    # be idle in the start-up hold-off (at most det_startup_n - 1 per start), by design.
+    import numpy as np
+
+    from firmware_py import alarm as al
+    from firmware_py import feature_index as fi
+    from firmware_py.detector import Detector
+    from host_tools.recording import read_stream
+    from host_tools.replay import m_s2_per_count, step_detector, stream_features, twin_for
+    _, out, _, _ = demo
+    profile = board.load(str(REPO / "boards" / "desk.json"))
+    stopped = running = under = held = starts = slow = 0
+    for pump in ("P-101", "P-102"):
+        params = msgpack.unpackb((out / pump / "params.msgpack").read_bytes(), raw=False)
+        recs = read_stream(out / "data" / pump / "training", expected_rate_hz=params["fs_hz"],
+                           m_s2_per_count=m_s2_per_count(params))
+        sf = stream_features(recs, twin_for(params, profile))
+        rpm = np.array([np.nan if r.rpm is None else r.rpm for r in recs])[sf.rec]
+        steps = step_detector(Detector(params), sf.feats)
+        idle = steps.state == al.IDLE
+        vel = sf.feats[:, fi.F_VEL::fi.per_axis(len(params["fc_bands"]))].max(1)
+        low = vel < params["det_idle_vel_q16"]
+        run = rpm > 0
+        assert idle[rpm == 0].all() and low[rpm == 0].all(), pump
+        stopped += int((rpm == 0).sum())
+        running += int(run.sum())
+        slow += int((rpm == 890).sum())
+        under += int((idle & low & run).sum())
+        held += int((idle & ~low & run).sum())
+        starts += 1 + sum(1 for e in steps.events if e[3] == al.R_STARTED)   # and the first window
+    assert stopped > 0 and slow > 0
+    assert under <= 0.01 * running
+    assert held <= (params["det_startup_n"] - 1) * starts
+
+
 def test_bad_out_is_one_line_and_exit_2(tmp_path, capsys):
     f = tmp_path / "not_a_folder"
     f.write_text("keep")

@@ -12,17 +12,18 @@ from firmware_py.detector import Detector, default_params
 
 PA = fi.per_axis(1)
 VEL_PER_MM_S = 6680          # F_VEL units per mm/s (a 1 mg/count sensor: 65536 / 9.81)
+IDLE = VEL_PER_MM_S // 4     # idle floor of these tests: 0.25 mm/s
 N, NO, AL, ID, SF, LE = al.NORMAL, al.ALERT, al.ALARM, al.IDLE, al.SENSOR_FAULT, al.LEARNING
 
 
 def params(**kw):
     """One axis, one band; the model: one mode, one feature (the band power, log2 Q8), baseline
-    1000 +- 100, so a band value of 1000 + 100 s scores s spreads exactly."""
+    1000 +- 100, so a band value of 1000 + 100 s scores s spreads exactly. Idle under 0.25 mm/s."""
     p = default_params(1, 1, VEL_PER_MM_S)
     p.update(det_feat=[fi.F_BAND0], det_base_mean_q4=[1000 * 16], det_base_sd_q4=[100 * 16],
              det_modes=1, det_mode_c_q8=[0], det_mode_s_q8=[256], det_thr_alert_q8=3 * 256,
              det_thr_alarm_q8=6 * 256, det_hyst_q8=205, det_k=3, det_n=5, det_dwell=4,
-             det_startup_n=0, det_idle_rms_q8=1000, det_fault_k=2)
+             det_startup_n=0, det_idle_vel_q16=IDLE, det_fault_k=2)
     p.update(kw)
     return p
 
@@ -96,12 +97,13 @@ def test_mahalanobis_tail_matches_chi_square():
     feat = [fi.F_BAND0 + j for j in range(d)]
     p.update(det_feat=feat, det_base_mean_q4=[0] * d, det_base_sd_q4=[200 * 16] * d,
              det_modes=1, det_mode_c_q8=[0] * d, det_mode_s_q8=[256] * d, det_startup_n=0,
-             det_idle_rms_q8=1000, det_thr_alert_q8=1 << 16, det_thr_alarm_q8=1 << 16)
+             det_idle_vel_q16=IDLE, det_thr_alert_q8=1 << 16, det_thr_alarm_q8=1 << 16)
     det = Detector(p)
     thr = np.sqrt(stats.chi2.isf(0.01, d))
     x = np.rint(200 * np.random.default_rng(9).standard_normal((n, d))).astype(int)
     f = array("i", bytes(4 * fi.per_axis(4)))
     f[fi.F_RMS] = 4000
+    f[fi.F_VEL] = VEL_PER_MM_S        # running: 1 mm/s
     over = 0
     for i, row in enumerate(x.tolist()):
         f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", row)
@@ -115,10 +117,11 @@ def test_nearest_mode_and_driving_feature():
     b0, b1 = fi.F_BAND0, fi.F_BAND0 + 1
     p.update(det_feat=[b0, b1], det_base_mean_q4=[0, 0], det_base_sd_q4=[1600, 1600],
              det_modes=2, det_mode_c_q8=[0, 0, 1280, 1280], det_mode_s_q8=[256, 256, 128, 512],
-             det_startup_n=0, det_idle_rms_q8=1000)
+             det_startup_n=0, det_idle_vel_q16=IDLE)
     det = Detector(p)
     f = array("i", bytes(4 * fi.per_axis(2)))
     f[fi.F_RMS] = 4000
+    f[fi.F_VEL] = VEL_PER_MM_S
     f[b0], f[b1] = 520, 460           # z = (5.2, 4.6): mode 1 at (5, 5) with spreads 0.5, 2
     det.step(f, 0, 0)
     assert det.mode == 1
@@ -198,8 +201,8 @@ def test_iso_guard_overrides_the_learned_score():
 
 def test_idle_no_alarm_and_start_up_hold_off():
     det = running(Detector(params(det_startup_n=4)))
-    # stopped: broadband under the floor; high score and zone D are not evaluated
-    assert run(det, [9] * 5, rms=900, vel=9.0) == [ID] * 5
+    # stopped: broadband velocity under the floor; a high score is not evaluated
+    assert run(det, [9] * 5, vel=0.1) == [ID] * 5
     assert events(det)[0][1:4] == (N, ID, al.R_STOPPED)
     # restart transient: 4 windows held off, then normal; the transient never alerts
     assert run(det, [9, 9, 9, 9, 0, 0, 0, 0], 10) == [ID, ID, ID, N, N, N, N, N]
@@ -209,10 +212,31 @@ def test_idle_no_alarm_and_start_up_hold_off():
 def test_alert_drops_to_idle_but_a_latched_alarm_stays():
     det = running(Detector(params()))
     run(det, [4, 4, 4])
-    assert run(det, [0], rms=500) == [ID]
+    assert run(det, [0], vel=0.1) == [ID]
     det = running(Detector(params()))
     run(det, [7, 7, 7])
-    assert run(det, [0, 0], rms=500) == [AL, AL]
+    assert run(det, [0, 0], vel=0.1) == [AL, AL]
+
+
+def test_idle_follows_the_largest_axis_velocity_not_the_acceleration():
+    p = default_params(2, 1, VEL_PER_MM_S)
+    p.update(det_startup_n=0, det_idle_vel_q16=IDLE)
+    det = Detector(p)
+    f = array("i", bytes(4 * 2 * PA))
+
+    def step(vel0, vel1, rms):
+        for a, v in enumerate((vel0, vel1)):
+            f[a * PA + fi.F_RMS] = rms
+            f[a * PA + fi.F_VEL] = v
+        return det.step(f, 0, 0)
+    # acceleration near a MEMS sensor's noise (0.4 counts r.m.s.), velocity of a running pump
+    assert step(VEL_PER_MM_S, 0, 100) == N and det.bb == VEL_PER_MM_S
+    # strong acceleration (4000 counts r.m.s.), velocity under the floor on both axes: stopped
+    assert step(IDLE - 1, IDLE - 2, 4000 << 8) == ID and det.bb == IDLE - 1
+    # the floor itself counts as running, on whichever axis reaches it
+    assert step(0, IDLE, 100) == N and det.bb == IDLE
+    # the default: 0.05 mm/s in F_VEL units of the calibration given
+    assert default_params(1, 1, VEL_PER_MM_S)["det_idle_vel_q16"] == VEL_PER_MM_S * 5 // 100
 
 
 # -- sensor health --------------------------------------------------------------------------
@@ -283,11 +307,12 @@ def test_fixed_point_score_against_a_float_reference():
         p = default_params(1, 8, VEL_PER_MM_S)
         p.update(det_feat=feat, det_base_mean_q4=mean_q4.tolist(), det_base_sd_q4=sd_q4.tolist(),
                  det_modes=k, det_mode_c_q8=c.ravel().tolist(), det_mode_s_q8=s.ravel().tolist(),
-                 det_startup_n=0, det_idle_rms_q8=1000, det_thr_alert_q8=1 << 16,
+                 det_startup_n=0, det_idle_vel_q16=IDLE, det_thr_alert_q8=1 << 16,
                  det_thr_alarm_q8=1 << 16)
         det = Detector(p)
         f = array("i", bytes(4 * pa))
         f[fi.F_RMS] = 4000
+        f[fi.F_VEL] = VEL_PER_MM_S
         u = np.clip(np.rint(mean_q4 / 16 + rng.normal(0, 3, d) * sd_q4 / 16), -8191, 8191)
         f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", u.astype(int).tolist())
         det.step(f, trial, 0)

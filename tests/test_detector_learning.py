@@ -128,13 +128,29 @@ def test_idle_windows_are_not_learned():
     stopped = pump(30, 0, rng)
     for f in stopped:
         for a in range(AXES):
-            f[a * PA + fi.F_RMS] = 100          # under the idle floor
+            f[a * PA + fi.F_VEL] = VEL // 100   # 0.01 mm/s: under the default floor, 0.05
     feed(det, stopped)
     assert det.state == al.LEARNING and det.wb.n[0] == 0
     feed(det, pump(99, 0, rng), 100)
     assert det.state == al.LEARNING
     feed(det, pump(1, 0, rng), 300)
     assert det.state == al.NORMAL
+
+
+def test_learned_idle_floor_is_a_quarter_of_the_quietest_velocity():
+    # the device: the quietest largest-axis F_VEL of the baseline windows, over 4; the host fit:
+    # the same rule over all its windows; neither lowers the floor of the set
+    rng = np.random.default_rng(10)
+    w = mixed(100, rng)
+    det = Detector(params(det_learn_base_n=50, det_learn_mode_n=50))
+    det.learn(0)
+    feed(det, w)
+    assert det.state == al.NORMAL
+    vel = np.array([list(f) for f in w])[:, fi.F_VEL::PA].max(1)
+    assert det.export()["det_idle_vel_q16"] == int(vel[:50].min()) >> 2 > params()["det_idle_vel_q16"]
+    assert mf.fit(np.array([list(f) for f in w]), params())["det_idle_vel_q16"] == int(vel.min()) >> 2
+    high = params(det_idle_vel_q16=1 << 20)
+    assert mf.fit(np.array([list(f) for f in w]), high)["det_idle_vel_q16"] == 1 << 20
 
 
 def test_learning_refused_or_abandoned():

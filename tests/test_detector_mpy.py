@@ -55,9 +55,10 @@ for i in range(NW):
         feats[b + fi.F_VEL] = (6000, 12000)[pt] + noise(300)
         for k in range(NB):
             feats[b + fi.F_BAND0 + k] = (1800, 2300)[pt] - 300 * k + noise(20)
-    if 600 <= i < 620:                        # pump stopped
+    if 600 <= i < 620:                        # pump stopped: velocity under the idle floor
         for a in range(AXES):
             feats[i * NF + a * PA + fi.F_RMS] = 300
+            feats[i * NF + a * PA + fi.F_VEL] = 100
     if 620 <= i < 625 or 700 <= i < 720:      # restart transient, then a real change
         feats[i * NF + PA + fi.F_BAND0 + 2] += 700
     if 800 <= i < 806:                        # clipping
@@ -152,7 +153,7 @@ d = len(p["det_feat"])
 # sensor checks and idle floor opened wide so that absurd values reach the scoring path;
 # the model at its own extremes: tiny spreads, centroids at the clamp
 p.update(det_flat_rms_q8=0, det_clip_max=BIG, det_dc_lo_q8=[-BIG, -BIG], det_dc_hi_q8=[BIG, BIG],
-         det_drop_max=BIG, det_idle_rms_q8=0, det_startup_n=0, det_sd_floor_q4=1, det_s_floor_q8=1,
+         det_drop_max=BIG, det_idle_vel_q16=0, det_startup_n=0, det_sd_floor_q4=1, det_s_floor_q8=1,
          det_base_mean_q4=[(-1) ** j * BIG for j in range(d)], det_base_sd_q4=[1] * d,
          det_modes=8, det_mode_c_q8=[(-1) ** (j + m) * BIG for m in range(8) for j in range(d)],
          det_mode_s_q8=[1] * (8 * d), det_thr_alert_q8=1, det_thr_alarm_q8=2, det_drift_shift=1,
@@ -224,8 +225,8 @@ p["det_learn_radius_q8"] = 1
 det = Detector(p)
 f = array("i", bytes(4 * 3 * PA))
 for a in range(3):
-    f[a * PA + fi.F_RMS] = 4000 if CASE != "idle" else 100
-    f[a * PA + fi.F_VEL] = 6000
+    f[a * PA + fi.F_RMS] = 4000
+    f[a * PA + fi.F_VEL] = 6000 if CASE != "idle" else 100
 if CASE == "learning":
     det.learn(0)
     for i in range(10):                 # baseline done, 8 modes open: the dearest phase

@@ -17,6 +17,7 @@ from sklearn.preprocessing import StandardScaler
 
 import firmware_py  # noqa: F401
 from firmware_py import board, mpack
+from firmware_py import feature_index as fi
 from firmware_py import params as pm
 from host_tools import modes_fit, tail_fit
 from host_tools.cli import main
@@ -158,10 +159,10 @@ def test_idle_floor_between_stopped_and_running_and_sensor_limits():
     recs = healthy_stream(seed=4, per_point=8, stops=6)
     params, summary = train(recs, PROFILE)
     feats = _twin_rows(recs, params)
-    pa = 7 + len(params["fc_bands"])
-    bb = feats[:, 1::pa].max(1)
+    pa = fi.per_axis(len(params["fc_bands"]))
+    bb = feats[:, fi.F_VEL::pa].max(1)              # broadband velocity, largest axis
     per_rec = np.repeat([r.rpm for r in recs], [r.n_frames // params["n"] for r in recs])
-    assert bb[per_rec == 0].max() < params["det_idle_rms_q8"] < bb[per_rec > 0].min()
+    assert bb[per_rec == 0].max() < params["det_idle_vel_q16"] < bb[per_rec > 0].min()
     assert "sidecar rpm" in summary["idle_floor"]["rule"]
     # DC range holds every training mean with room, z around 1 g
     assert all(lo < 0 < hi for lo, hi in zip(params["det_dc_lo_q8"][:2], params["det_dc_hi_q8"][:2]))
