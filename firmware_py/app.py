@@ -171,6 +171,7 @@ class App:
         self.healthy = False
         self.fresh = 0               # set by acquire() when frames arrived
         self.drv = None
+        self.lost_seen = 0           # driver's lost-frame count already passed to the gateway
         self.timer = None
         self.root = root
         self.boots = BootCounter(root + "/boots.txt", CRASH_LIMIT)
@@ -286,6 +287,10 @@ class App:
         if gw.reboot_wanted:
             self.reboot()
         if not self.safe and self.drv is not None:
+            lost = self.drv.gaps.lost - self.lost_seen  # FIFO overruns the driver counted
+            if lost:
+                self.lost_seen += lost
+                gw.lost_upstream(lost)                  # never silent: the detector is told
             gw.quota = 1
             before = gw.windows
             gw.poll()

@@ -42,6 +42,7 @@ class Gateway:
         self.pending_kind = None     # "alert"/"alarm": a snapshot to save after this window
         self.service = None          # set by the application: pushes the stream
         self.dropped_seen = 0
+        self.lost_elsewhere = 0      # frames dropped outside the present ring: sensor FIFO, old rings
         self.windows = 0
         self.every = profile["analyse_every"]
         self.slot = 0                # window of the present cycle; 0 is the one analysed
@@ -96,6 +97,14 @@ class Gateway:
         if self.slot == self.every:
             self.slot = 0
 
+    def lost_upstream(self, frames):
+        """Frames the sensor lost before they reached the ring (a FIFO overrun, counted by the
+        driver): added to dropped, so the detector is told, and marked as a gap before the next
+        window. Allocation-free (called from the acquisition timer)."""
+        ring = self.core.ring
+        self.lost_elsewhere += frames   # main loop only; ring.dropped belongs to the timer's push
+        self._lose(self.windows + ring.filled // ring.n, frames)
+
     def _lose(self, w, frames):
         """Note frames lost just before window index w (allocation-free)."""
         g = self.gaps
@@ -118,8 +127,9 @@ class Gateway:
         k = self.windows % len(g)
         self.raw_gap = g[k]
         g[k] = 0
-        d = ring.dropped - self.dropped_seen
-        self.dropped_seen = ring.dropped
+        total = ring.dropped + self.lost_elsewhere
+        d = total - self.dropped_seen
+        self.dropped_seen = total
         det = self.det
         old = det.state
         new = det.step(core.feats, self.now_s(), d)
@@ -159,7 +169,7 @@ class Gateway:
         return {"state": alarm.STATE_NAMES[det.state], "mode": det.mode,
                 "score_q8": det.score, "feature": det.feat, "zone": det.zone,
                 "features": list(self.core.feats), "windows": self.windows,
-                "dropped": self.core.ring.dropped, "skipped": self.skipped,
+                "dropped": self.core.ring.dropped + self.lost_elsewhere, "skipped": self.skipped,
                 "events": self.snapshots.next_id,
                 "t_s": self.now_s()}
 
@@ -183,10 +193,11 @@ class Gateway:
             lost += g[i]
             g[i] = 0
         self._lose(self.windows, lost)
+        self.lost_elsewhere += self.core.ring.dropped     # the count outlives its ring
         del self.core, self.det   # free the old buffers first: the heap holds one set, not two
         gc.collect()
         self.core, self.det = params_mod.build(p, self.profile)
-        self.dropped_seen = 0
+        self.dropped_seen = self.lost_elsewhere
         self.slot = 0                # the next frame starts a window in the new ring
         self.left = self.core.n
 

@@ -181,6 +181,7 @@ def test_open_sensor_on_i2c():
     p["bus"] = {"type": "i2c", "id": 0, "pins": {"scl": 5, "sda": 4}, "frequency": 400_000,
                 "addr": chip.I2C_ADDR}
     p["sample_rate_hz"] = 800
+    p["axes"] = 3                     # the I2C read path of all three axes
     board.check(p)
     m = chip.ADXL345Model(SIG)
     mach = FakeMachine(m, chip.I2C_ADDR)

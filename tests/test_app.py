@@ -731,3 +731,20 @@ def test_real_time_budget_verdicts_of_the_docs_hold(row_id, profile, verdict, re
                                         abs=2)
     elif verdict == "no":
         assert figures == pytest.approx([best / period, worst / period], abs=0.1)
+
+
+def test_fifo_overruns_reach_the_detector_as_dropped_frames(tmp_path):
+    # The ADXL345 FIFO holds 32 levels (data sheet, FIFO section): at 3200 Hz it is full after
+    # 10 ms, so a timer held off for 50 ms loses about 128 frames. Those frames are never silently
+    # gone: the driver counts them, the gateway adds them to dropped, the detector is told.
+    rig = Rig(tmp_path)
+    gw = rig.app.gw
+    rig.run(2 * CYCLE)
+    assert gw.core.ring.dropped == 0
+    rig.chip.advance_us(50_000)                  # the timer did not run for 50 ms
+    rig.run(3 * CYCLE)
+    lost = rig.app.drv.gaps.lost
+    assert lost > 0
+    assert gw.core.ring.dropped + gw.lost_elsewhere == lost
+    assert rig.ask(7, "status")["dropped"] == lost
+    assert gw.dropped_seen == lost                # and the detector was told of every one

@@ -115,8 +115,9 @@ def test_bad_parameters_are_refused_before_the_build(content, says, tmp_path, ca
     if content == "other-board":
         content = factory_body(profile, board="p-102")
     elif content == "no-detector":
-        content = build_image(msgpack.packb({"version": 1, "board": PICO, "fs_hz": 3200,
-                                             "n": 1024, "axes": 3}))
+        content = build_image(msgpack.packb({"version": 1, "board": PICO,
+                                             "fs_hz": profile["sample_rate_hz"],
+                                             "n": profile["window_n"], "axes": profile["axes"]}))
     src = tmp_path / "bad.bin"
     src.write_bytes(content)
     assert main(["deploy", "--port", "P", "--board", PICO, "--dry-run",
