@@ -13,9 +13,9 @@ The gateway object this handler drives must provide:
     snapshots  firmware_py.snapshots.SnapshotRing: the event snapshots
   methods (results are plain dicts/lists/ints/str/bytes; none may block for long)
     info()            -> {fw: str, board: str, fs_hz: int, n: int, axes: int,
-                          uptime_s: int, heap_free: int}
+                          analyse_every: int, uptime_s: int, heap_free: int}
     status()          -> {state: str, mode: int, features: [int], windows: int,
-                          dropped: int, events: int}
+                          dropped: int, skipped: int, events: int, ...}
     stream(on)        start (True) or stop (False) pushing a features message per window
     raw_stream(on)    -> int: start/stop pushing each window's raw counts; the next window's index
     apply_params(p)   run the detector on params dict p (called after commit and rollback)
