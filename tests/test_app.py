@@ -110,7 +110,7 @@ def test_samples_flow_from_the_chip_model_into_features_and_detector(tmp_path):
 def test_an_alarm_saves_event_snapshots_and_shows_on_the_led(tmp_path):
     # Velocity r.m.s. of a sine of A counts at f Hz: A * g / 256 / (2 pi f) / sqrt(2) (handbook
     # identity; 256 counts/g, g = 9.80665 m/s^2): x 8.6 mm/s, over the factory
-    # guard's zone D boundary (4.5 mm/s, ISO 10816-3 group 2 rigid, from memory in FACTS.md).
+    # guard's zone D boundary (4.5 mm/s, ISO 10816-3 group 2 rigid, from memory).
     v_x = AMP[0] * 9.80665 / 256 / (2 * math.pi * F_HZ[0]) / math.sqrt(2) * 1000
     assert v_x > 4.5
     rig = Rig(tmp_path)
@@ -582,12 +582,12 @@ emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
 # Fuel per window on MicroPython: the timer's work (driver read_into + ring push) with a minimal
 # bus whose own Python cost is taken out (C functions on a board), plus gateway.window() on a
 # varied signal (a flat one would skip the FFT). Converted to time with the published loop
-# speeds of FACTS.md (orders of magnitude only; they disagree by up to 3x) at between 856
+# speeds published for MicroPython (docs/boards.md names each source; orders of magnitude only; they disagree by up to 3x) at between 856
 # (loop in a function) and 1459 (loop at module level) fuel per loop iteration.
 
 from tests.test_drivers_guest import _MIN_BUS, _STUB_ONLY  # noqa: E402
 
-LOOP_SPEED = {          # simple integer loop iterations per second, FACTS.md
+LOOP_SPEED = {          # simple integer loop iterations per second (sources in docs/boards.md)
     "rp2040": 150_000,  # Raspberry Pi Pico, a 2021 blog comparison (timed while-loop)
     "esp32s3": 380_000, # ESP32 at 240 MHz, a public benchmark repository (v1.9.4); not an S3
 }

@@ -251,6 +251,6 @@ def test_fuel_per_step(case, state):
     assert r40.out[0] == [True, state]
     per_step = (r40.fuel - r0.fuel) // 40
     print("fuel per step, %s:" % case, per_step)
-    # at about 1470 fuel per simple loop iteration (FACTS.md) the monitoring step is some 1400
+    # at about 1470 fuel per simple loop iteration (measured by edgevib bench) the monitoring step is some 1400
     # interpreted loop iterations: milliseconds on a 150-400 k iteration/s board
     assert per_step < 4_000_000
