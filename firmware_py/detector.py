@@ -45,7 +45,6 @@ CHI_Q8 = (996, 1099, 1176, 1241, 1299, 1351, 1399, 1444, 1487, 1527, 1565, 1601,
           2629, 2646, 2662, 2679, 2695, 2711, 2727, 2743)
 
 _BIG = const(0x3FFFFFFF)
-_IDLE_MM_S_PER_100 = const(5)   # default idle floor, hundredths of mm/s (default_params)
 
 # The detector's keys in the parameter set (formats and defaults: docs/detector.md). Kept as
 # names only: on the device, comments cost nothing and strings cost RAM.
@@ -106,9 +105,10 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
     vel_per_mm_s: F_VEL units (counts/s Q16) per mm/s, from the calibration. full_scale: the
     converter's full scale in counts; the healthy DC range defaults to +-7/8 of it. The default
     guard is group 2 rigid, the lowest boundaries of the table (the cautious choice). The default
-    idle floor is 0.05 mm/s, 1/28 of the lowest zone A/B boundary (1.4 mm/s): no running pump
-    reads that quietly, so the guard is never blinded before training; a noisy MEMS sensor on a
-    stopped pump may read more (an ADXL345 about 0.15-0.4 mm/s) and show running until trained.
+    idle floor is 0.05 mm/s, 1/28 of the lowest zone A/B boundary (1.4 mm/s): low enough that a
+    running pump is not taken for a stopped one, so the guard is not blinded before training (the
+    cautious side); a noisy MEMS sensor on a stopped pump may read more (an ADXL345 about
+    0.13-0.39 mm/s in the demo) and show running until trained or learned.
     """
     feat = default_feature_list(axes, n_bands)
     dc = (full_scale * 7 // 8) << 8
@@ -118,7 +118,7 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_modes": 0, "det_mode_c_q8": [], "det_mode_s_q8": [],
         "det_thr_alert_q8": 5 * 256, "det_thr_alarm_q8": 8 * 256, "det_hyst_q8": 205,
         "det_k": 3, "det_n": 5, "det_dwell": 10,
-        "det_idle_vel_q16": vel_per_mm_s * _IDLE_MM_S_PER_100 // 100, "det_startup_n": 10,
+        "det_idle_vel_q16": vel_per_mm_s // 20, "det_startup_n": 10,   # 0.05 mm/s
         "det_iso_group": group, "det_iso_found": foundation,
         "det_iso_bounds": bounds_in_vel_units(group, foundation, vel_per_mm_s),
         "det_flat_rms_q8": 64, "det_clip_max": 0,
