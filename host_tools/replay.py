@@ -194,8 +194,8 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
 def physical_columns(feats: np.ndarray, params: dict, scale: float, axis_names: Sequence[str]) -> dict[str, np.ndarray]:
     """Per-window features in physical units, one column per name (per axis with the suffix
     `_<axis>`; accel_rms_m_s2 and velocity_rms_mm_s without suffix are the largest over the axes,
-    the quantities of the idle floor and of the ISO guard; zone is the ISO zone letter of that
-    velocity against the set's boundaries)."""
+    the velocity being the quantity of both the idle floor and the ISO guard; zone is the ISO
+    zone letter of that velocity against the set's boundaries)."""
     pa = fi.per_axis(len(params["fc_bands"]))
     f = feats.astype(np.float64)
     cols: dict[str, np.ndarray] = {}
