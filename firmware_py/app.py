@@ -124,6 +124,9 @@ class SafeGateway(DeviceGateway):
         self.fault = "safe"
         self.quota = 0
 
+    def uptime_s(self):
+        return self.ticks_ms() // 1000   # no samples in safe mode; the loop is short-lived
+
     def status(self):
         return {"state": "safe", "mode": -1, "score_q8": 0, "feature": -1, "zone": 0,
                 "features": [], "windows": 0, "dropped": 0, "skipped": 0,

@@ -28,14 +28,24 @@ FW_VERSION = "edgevib-0.1"
 
 class Gateway:
     """profile: board profile dict; store: ParamStore; snapshots: SnapshotRing;
-    ticks_ms: function giving milliseconds since start (time.ticks_ms on the board)."""
+    ticks_ms: function giving milliseconds since start (time.ticks_ms on the board), used only
+    for the millisecond part of raw-stream times.
+
+    Time: up_s counts seconds since start from the samples themselves (every frame fed, kept,
+    skipped or lost upstream, at the profile's rate): a small int for 34 years, where
+    time.ticks_ms wraps after 12 days and Unix seconds are past 2**30. The detector gets up_s,
+    so its window path never makes a big int; wall-clock times are clock_base + up_s, formed
+    only outside the heap lock (status, snapshots, pushes)."""
 
     def __init__(self, profile, store, snapshots, ticks_ms):
         self.profile = profile
         self.params = store
         self.snapshots = snapshots
         self.ticks_ms = ticks_ms
-        self.clock_base = 0          # wall-clock seconds at ticks 0 (set_clock)
+        self.clock_base = 0          # wall-clock seconds at up_s == 0 (set_clock)
+        self.up_s = 0                # seconds since start, counted from samples
+        self.up_frames = 0           # frames fed since up_s was last advanced
+        self.fs = profile["sample_rate_hz"]
         self.streaming = False
         self.raw_on = False          # push each window's raw counts (raw_stream)
         self.reboot_wanted = False
@@ -65,6 +75,7 @@ class Gateway:
         Frames the full ring cannot take are dropped and counted. src: frames * axes counts.
         Allocation-free, and split into small methods: MicroPython takes a call's state from
         the heap when it exceeds a few words (py/objfun.c, from memory) and the heap is free."""
+        self.up_frames += frames     # folded into up_s by uptime_s(), once per window
         i = 0
         while i < frames:
             k = frames - i
@@ -102,6 +113,7 @@ class Gateway:
         driver): added to dropped, so the detector is told, and marked as a gap before the next
         window. Allocation-free (called from the acquisition timer)."""
         ring = self.core.ring
+        self.up_frames += frames        # lost frames are time that passed
         self.lost_elsewhere += frames   # main loop only; ring.dropped belongs to the timer's push
         self._lose(self.windows + ring.filled // ring.n, frames)
 
@@ -132,7 +144,7 @@ class Gateway:
         self.dropped_seen = total
         det = self.det
         old = det.state
-        new = det.step(core.feats, self.now_s(), d)
+        new = det.step(core.feats, self.uptime_s(), d)
         if new != old and (new == alarm.ALERT or new == alarm.ALARM):
             self.pending_kind = new
         self.windows += 1
@@ -153,15 +165,25 @@ class Gateway:
                                                "t_s": self.now_s(), "ms": t % 1000},
                                        bytes(self.raw))
 
+    def uptime_s(self):
+        """Seconds since start, from the frames fed so far (allocation-free)."""
+        f = self.up_frames
+        while f >= self.fs:
+            f -= self.fs
+            self.up_s += 1
+        self.up_frames = f
+        return self.up_s
+
     def now_s(self):
-        return self.clock_base + self.ticks_ms() // 1000
+        """Wall-clock seconds (may be a big int on a board: call outside the heap lock)."""
+        return self.clock_base + self.uptime_s()
 
     # ---- the interface service.py drives ----
     def info(self):
         p = self.profile
         return {"fw": FW_VERSION, "board": p["name"], "fs_hz": p["sample_rate_hz"],
                 "n": p["window_n"], "axes": p["axes"],
-                "analyse_every": p["analyse_every"], "uptime_s": self.ticks_ms() // 1000,
+                "analyse_every": p["analyse_every"], "uptime_s": self.uptime_s(),
                 "heap_free": gc.mem_free() if hasattr(gc, "mem_free") else 0}
 
     def status(self):
@@ -203,21 +225,21 @@ class Gateway:
 
     def acknowledge(self):
         latched = self.det.state == alarm.ALARM
-        self.det.ack(self.now_s())
+        self.det.ack(self.uptime_s())
         return latched
 
     def learn(self, on):
         if on:
-            self.det.learn(self.now_s())
+            self.det.learn(self.uptime_s())
         else:
-            self.det.stop_learning(self.now_s())
+            self.det.stop_learning(self.uptime_s())
 
     def capture(self):
         """The latest processed raw window, int16 little-endian counts, axis-major."""
         return bytes(self.raw) if self.raw_valid else b""
 
     def set_clock(self, t):
-        self.clock_base = t - self.ticks_ms() // 1000
+        self.clock_base = t - self.uptime_s()
 
     def request_reboot(self):
         self.reboot_wanted = True

@@ -578,12 +578,49 @@ emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
     assert firsts == want
 
 
+def test_windows_stay_allocation_free_with_the_wall_clock_set_on_micropython():
+    """Unix seconds are past 2**30 (a big int on a 32-bit port): with the clock set, the detector
+    must still see only the gateway's own small seconds count, and wall times come out right."""
+    body = """
+import array, json
+from firmware_py import mpack, params
+from firmware_py.gateway import Gateway
+from firmware_py.paramstore import ParamStore
+from firmware_py.snapshots import SnapshotRing
+prof = json.loads(%(profile)r)
+n = prof['window_n']
+store = ParamStore('/nonexistent-edgevib', prof['name'], 3200, n, 3,
+                   mpack.packb(params.factory(prof)), None)
+gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3), lambda: 0)
+gw.set_clock(1764633600)                       # 2025-12-02 00:00:00 UTC
+src = array.array('h', bytes(2 * 3 * n))
+for i in range(3 * n):
+    src[i] = (i * 37) %% 2001 - 1000
+def feed():
+    gw.feed(src, n)
+    return 0
+def window():
+    return gw.window()
+ok = True
+for w in range(15):                            # 2.4 s of samples
+    ok = ok and locked(feed)[0]
+    done, ran = locked(window)
+    ok = ok and done and ran
+emit([ok, gw.windows, gw.uptime_s(), str(gw.now_s()), gw.det.t])
+""" % {"profile": json.dumps(DESK)}
+    ok, windows, up, now, det_t = run_guest(body).out[0]
+    assert ok, "a window allocated with the clock set"
+    assert windows == 15 and up == 15 * DESK["window_n"] // DESK["sample_rate_hz"]
+    assert int(now) == 1764633600 + up and det_t == up < 2**30
+
+
 # ---- real-time budget (docs/boards.md) ----------------------------------------------------------
 # Fuel per window on MicroPython: the timer's work (driver read_into + ring push) with a minimal
 # bus whose own Python cost is taken out (C functions on a board), plus gateway.window() on a
-# varied signal (a flat one would skip the FFT). Converted to time with the published loop
-# speeds published for MicroPython (docs/boards.md names each source; orders of magnitude only; they disagree by up to 3x) at between 856
-# (loop in a function) and 1459 (loop at module level) fuel per loop iteration.
+# varied signal (a flat one would skip the FFT). Converted to time with the loop speeds
+# published for MicroPython (docs/boards.md names each source; orders of magnitude only, they
+# disagree by up to 3x) at between 856 (loop in a function) and 1459 (loop at module level) fuel
+# per loop iteration.
 
 from tests.test_drivers_guest import _MIN_BUS, _STUB_ONLY  # noqa: E402
 
