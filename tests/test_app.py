@@ -532,11 +532,9 @@ def test_per_window_step_allocates_nothing_on_micropython():
     assert head == want                         # the window holds the chip's samples
 
 
-def test_skipping_allocates_nothing_on_micropython():
-    """Gateway.feed with blocks straddling kept and skipped windows (3 axes, 1 in 3) and
-    Gateway.window, each under heap_lock on MicroPython; the windows hold the right frames."""
-    prof = dict(DESK, analyse_every=3)
-    body = """
+# A 3-axis desk gateway in the guest (no filesystem there: the store falls back to its
+# factory set); formatted with %(profile)r, the profile as JSON.
+_GUEST_GATEWAY = """
 import array, json
 from firmware_py import mpack, params
 from firmware_py.gateway import Gateway
@@ -547,6 +545,14 @@ n = prof['window_n']
 store = ParamStore('/nonexistent-edgevib', prof['name'], 3200, n, 3,
                    mpack.packb(params.factory(prof)), None)
 gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3), lambda: 0)
+"""
+
+
+def test_skipping_allocates_nothing_on_micropython():
+    """Gateway.feed with blocks straddling kept and skipped windows (3 axes, 1 in 3) and
+    Gateway.window, each under heap_lock on MicroPython; the windows hold the right frames."""
+    prof = dict(DESK, analyse_every=3)
+    body = (_GUEST_GATEWAY + """
 src = array.array('h', bytes(2 * 3 * 37))
 k = 0
 def feed():
@@ -568,7 +574,7 @@ while k < 4 * 3 * n:
     if ran:
         firsts.append([gw.raw[0], gw.raw[n], gw.raw[2 * n], gw.raw_gap])
 emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
-""" % {"profile": json.dumps(prof)}
+""") % {"profile": json.dumps(prof)}
     ok, windows, skipped, dropped, firsts = run_guest(body).out[0]
     assert ok, "feed or window allocated under heap_lock"
     n = prof["window_n"]
@@ -581,17 +587,7 @@ emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
 def test_windows_stay_allocation_free_with_the_wall_clock_set_on_micropython():
     """Unix seconds are past 2**30 (a big int on a 32-bit port): with the clock set, the detector
     must still see only the gateway's own small seconds count, and wall times come out right."""
-    body = """
-import array, json
-from firmware_py import mpack, params
-from firmware_py.gateway import Gateway
-from firmware_py.paramstore import ParamStore
-from firmware_py.snapshots import SnapshotRing
-prof = json.loads(%(profile)r)
-n = prof['window_n']
-store = ParamStore('/nonexistent-edgevib', prof['name'], 3200, n, 3,
-                   mpack.packb(params.factory(prof)), None)
-gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3), lambda: 0)
+    body = (_GUEST_GATEWAY + """
 gw.set_clock(1764633600)                       # 2025-12-02 00:00:00 UTC
 src = array.array('h', bytes(2 * 3 * n))
 for i in range(3 * n):
@@ -607,7 +603,7 @@ for w in range(15):                            # 2.4 s of samples
     done, ran = locked(window)
     ok = ok and done and ran
 emit([ok, gw.windows, gw.uptime_s(), str(gw.now_s()), gw.det.t])
-""" % {"profile": json.dumps(DESK)}
+""") % {"profile": json.dumps(DESK)}
     ok, windows, up, now, det_t = run_guest(body).out[0]
     assert ok, "a window allocated with the clock set"
     assert windows == 15 and up == 15 * DESK["window_n"] // DESK["sample_rate_hz"]
