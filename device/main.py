@@ -1,11 +1,11 @@
 # /main.py on the gateway (edgevib deploy copies it there): run the application. The logic is
-# in firmware_py/app.py, where the tests reach it. An exception that escapes after start-up
+# in firmware_py/run/app.py, where the tests reach it. An exception that escapes after start-up
 # is printed on the console and the board resets; that boot counts towards safe mode.
 import machine
 import sys
 import time
 
-from firmware_py import app
+from firmware_py.run import app
 
 try:
     app.main()

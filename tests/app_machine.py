@@ -1,4 +1,4 @@
-# Stand-ins for what firmware_py/app.py takes from MicroPython: the machine module (Pin, SPI
+# Stand-ins for what firmware_py/run/app.py takes from MicroPython: the machine module (Pin, SPI
 # routed to a chip model from tests/chipmodels, a WDT that records feeds, a Timer the test
 # fires, reset) and a serial link (a byte queue each way, polled through a select stand-in).
 # Plain MicroPython-subset code: the guest tests import it too (staged beside chipmodels).

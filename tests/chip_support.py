@@ -11,7 +11,7 @@ if str(HERE) not in sys.path:
 
 def stage_models_in_guest():
     """Copy tests/chipmodels into the guest's staging folder (once per process)."""
-    from host_tools import mpy_guest
+    from host_tools.twin import mpy_guest
     root = mpy_guest._stage()
     dst = root / "chipmodels"
     if not dst.exists():

@@ -3,7 +3,7 @@ import array
 
 import numpy as np
 
-from firmware_py.features import FeatureCore
+from firmware_py.dsp.features import FeatureCore
 
 
 def device_features(x, n=512, fs=3200, bands=(), adc=(-32768, 32767), vel=(10, 1000)):

@@ -1,9 +1,9 @@
-"""Run the feature core on the real MicroPython of the test suite (host_tools.mpy_guest)."""
+"""Run the feature core on the real MicroPython of the test suite (host_tools.twin.mpy_guest)."""
 import binascii
 
 import numpy as np
 
-from host_tools.mpy_guest import run_guest
+from host_tools.twin.mpy_guest import run_guest
 
 
 def guest_features(windows, n, fs, bands=(), adc=(-32768, 32767), vel=(10, 1000), axes=1):
@@ -12,12 +12,12 @@ def guest_features(windows, n, fs, bands=(), adc=(-32768, 32767), vel=(10, 1000)
     core heap bytes from gc.mem_alloc around construction).
 
     All work sits in functions and module level stays shallow, so gc.collect() from module
-    level is safe in this guest (host_tools.mpy_guest explains the collector's blind spot).
+    level is safe in this guest (host_tools.twin.mpy_guest explains the collector's blind spot).
     """
     blob = b"".join(np.asarray(w, dtype=np.int16).tobytes() for w in windows)
     body = f"""
 import array, binascii, gc
-from firmware_py.features import FeatureCore
+from firmware_py.dsp.features import FeatureCore
 def build():
     return FeatureCore({n}, {axes}, {fs}, {adc[0]}, {adc[1]}, bands={list(bands)!r}, vel_lo_hz={vel[0]}, vel_hi_hz={vel[1]})
 def feed(fc):

@@ -141,7 +141,7 @@ def test_self_test_fails_with_out_of_range_deltas(st):
 
 
 def test_open_sensor_from_the_pico_profile():
-    from firmware_py import board
+    from firmware_py.run import board
     from pathlib import Path
     p = board.load(str(Path(__file__).parent.parent / "boards" / "pico_adxl345.json"))
     m = chip.ADXL345Model(SIG)
@@ -175,7 +175,7 @@ def test_open_sensor_on_i2c():
     import copy
     import json
     from pathlib import Path
-    from firmware_py import board
+    from firmware_py.run import board
     p = json.loads((Path(__file__).parent.parent / "boards" / "pico_adxl345.json").read_text())
     p = copy.deepcopy(p)
     p["bus"] = {"type": "i2c", "id": 0, "pins": {"scl": 5, "sda": 4}, "frequency": 400_000,

@@ -1,4 +1,4 @@
-"""The device application (firmware_py/app.py) under CPython with stand-ins for `machine` and
+"""The device application (firmware_py/run/app.py) under CPython with stand-ins for `machine` and
 the serial link (tests/app_machine.py), a temporary folder as the board's filesystem, and the
 ADXL345 register model behind the SPI stand-in; and its per-window step on the real
 MicroPython of the test suite, heap locked."""
@@ -21,11 +21,11 @@ from tests.test_service import replies, req
 from chipmodels.adxl345 import ADXL345Model
 
 import firmware_py  # noqa: F401
-from firmware_py import board, status_led
-from firmware_py.app import CRASH_LIMIT, HEALTHY_MS, STALL_MS, App, StreamLink
-from firmware_py.feature_index import F_RMS
-from firmware_py.paramstore import build_image
-from host_tools.mpy_guest import _stage, run_guest
+from firmware_py.run import board, status_led
+from firmware_py.run.app import CRASH_LIMIT, HEALTHY_MS, STALL_MS, App, StreamLink
+from firmware_py.dsp.feature_index import F_RMS
+from firmware_py.store.paramstore import build_image
+from host_tools.twin.mpy_guest import _stage, run_guest
 
 ROOT = Path(__file__).parent.parent
 PICO = board.load(str(ROOT / "boards" / "pico_adxl345.json"))
@@ -277,7 +277,7 @@ def run_main(tmp_path, monkeypatch, board_text, console, passes):
     the main loop ends after `passes` sleeps. Returns (machine, sleeps, kbd_intr calls)."""
     import micropython
 
-    from firmware_py import app as app_mod
+    from firmware_py.run import app as app_mod
     chip = ADXL345Model(signal())
     mach = StandInMachine(chip, PICO["bus"]["pins"]["cs"])
     sleeps, kbd = [], []
@@ -381,10 +381,11 @@ DESK = board.load(str(ROOT / "boards" / "desk.json"))
 
 def duty_gateway(root, prof):
     """A Gateway on the factory set whose detector records the dropped count of every step."""
-    from firmware_py import mpack, params
-    from firmware_py.gateway import Gateway
-    from firmware_py.paramstore import ParamStore
-    from firmware_py.snapshots import SnapshotRing
+    from firmware_py.codec import mpack
+    from firmware_py.run import params
+    from firmware_py.run.gateway import Gateway
+    from firmware_py.store.paramstore import ParamStore
+    from firmware_py.store.snapshots import SnapshotRing
     fs, n, axes = prof["sample_rate_hz"], prof["window_n"], prof["axes"]
     store = ParamStore(str(root), prof["name"], fs, n, axes,
                        mpack.packb(params.factory(prof)), None)
@@ -485,7 +486,7 @@ import json, array, gc
 import firmware_py
 from chipmodels.adxl345 import ADXL345Model
 from app_machine import StandInMachine, StreamPair, StandInSelect
-from firmware_py.app import App, StreamLink
+from firmware_py.run.app import App, StreamLink
 prof = json.loads(%(profile)r)
 sig = array.array('h', [((k * 37) %% 2001) - 1000 for k in range(3 * 400)])
 m = ADXL345Model(sig)
@@ -536,10 +537,11 @@ def test_per_window_step_allocates_nothing_on_micropython():
 # factory set); formatted with %(profile)r, the profile as JSON.
 _GUEST_GATEWAY = """
 import array, json
-from firmware_py import mpack, params
-from firmware_py.gateway import Gateway
-from firmware_py.paramstore import ParamStore
-from firmware_py.snapshots import SnapshotRing
+from firmware_py.codec import mpack
+from firmware_py.run import params
+from firmware_py.run.gateway import Gateway
+from firmware_py.store.paramstore import ParamStore
+from firmware_py.store.snapshots import SnapshotRing
 prof = json.loads(%(profile)r)
 n = prof['window_n']
 store = ParamStore('/nonexistent-edgevib', prof['name'], 3200, n, 3,
@@ -630,7 +632,7 @@ import json, array
 import firmware_py
 from firmware_py.drivers import SPIRegs, GapCounter
 from app_machine import StandInMachine, StreamPair, StandInSelect
-from firmware_py.app import App, StreamLink
+from firmware_py.run.app import App, StreamLink
 prof = json.loads(%(profile)r)
 if prof['sensor']['model'] == 'adxl345':
     from firmware_py.drivers import adxl345
@@ -731,7 +733,7 @@ def mega(cell):
     ("pico_adxl345", PICO, "yes"),
     ("esp32s3_iis3dwb", ESP32S3, "yes"),
     ("pico-3-axes-every-window", dict(PICO, axes=3, analyse_every=1), "no"),
-    ("pico-every-window", dict(PICO, analyse_every=1), "depends"),
+    ("pico-every-window", dict(PICO, analyse_every=1), "tight"),
     ("esp32s3-every-window", dict(ESP32S3, analyse_every=1), "no"),
     ("esp32s3-1-in-6", dict(ESP32S3, analyse_every=6), "tight"),
 ], ids=lambda v: v if isinstance(v, str) and v not in VERDICTS else "")

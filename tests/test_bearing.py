@@ -3,7 +3,7 @@ import math
 
 import pytest
 
-from host_tools.bearing import BEARING_6205, BearingGeometry, defect_orders
+from host_tools.data.bearing import BEARING_6205, BearingGeometry, defect_orders
 from host_tools.errors import EdgevibError
 
 

@@ -1,4 +1,4 @@
-"""Board profiles (boards/*.json) and their loader (firmware_py/board.py), on CPython and on
+"""Board profiles (boards/*.json) and their loader (firmware_py/run/board.py), on CPython and on
 MicroPython (the device reads them with its json module)."""
 import copy
 import json
@@ -7,7 +7,8 @@ from pathlib import Path
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import board, features
+from firmware_py.run import board
+from firmware_py.dsp import features
 from firmware_py.drivers import adxl345, iis3dwb
 
 BOARDS = Path(__file__).parent.parent / "boards"
@@ -115,7 +116,7 @@ def test_malformed_profiles_are_refused_with_the_reason(path, value, reason):
 
 
 def test_analysed_windows_come_often_enough_for_the_watchdog():
-    from firmware_py import app
+    from firmware_py.run import app
     # The application feeds the watchdog once per analysed window: at the longest gap the
     # profile check allows, that is still every half watchdog period or sooner.
     assert 2 * board.MAX_CYCLE_MS <= app.WDT_MS
@@ -150,7 +151,7 @@ def test_load_names_the_file(tmp_path):
 
 
 def test_profiles_load_on_micropython():
-    from host_tools.mpy_guest import run_guest
+    from host_tools.twin.mpy_guest import run_guest
     texts = {n: (BOARDS / (n + ".json")).read_text() for n in NAMES}
     bad = []
     for path, value in ((("window_n",), 1000), (("axes",), 4), (("bus", "type"), "uart")):
@@ -159,7 +160,7 @@ def test_profiles_load_on_micropython():
         bad.append(json.dumps(p))
     body = """
 import json
-from firmware_py import board
+from firmware_py.run import board
 texts = %r
 for name in sorted(texts):
     p = board.check(json.loads(texts[name]))

@@ -10,10 +10,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from host_tools.commission import CheckSettings, _zone_item, check_recording, longest_run, settings_from_board
+from host_tools.check.commission import CheckSettings, _zone_item, check_recording, longest_run, settings_from_board
 from host_tools.commands.check import plot_png
-from host_tools.demo_scenario import write_scenario
-from host_tools.recording import Recording, write_wav
+from host_tools.data.demo_scenario import write_scenario
+from host_tools.data.recording import Recording, write_wav
 
 REPO = Path(__file__).resolve().parent.parent
 FS, N = 3200, 512
@@ -135,7 +135,7 @@ def test_noise_floor_against_the_sensor_figure_in_the_sidecar():
 # --- ISO zone ---------------------------------------------------------------------------------------
 
 # ISO 10816-3 group 2, rigid foundation: A/B 1.4, B/C 2.8, C/D 4.5 mm/s r.m.s. (from memory; the
-# same unconfirmed figures as firmware_py/iso_zones.py).
+# same unconfirmed figures as firmware_py/detect/iso_zones.py).
 @pytest.mark.parametrize("boundary, below, above", [(1.4, "A", "B"), (2.8, "B", "C"), (4.5, "C", "D")])
 def test_iso_zone_just_below_and_above_a_boundary(boundary, below, above):
     # A sine of acceleration amplitude a at angular frequency w has velocity amplitude a / w and

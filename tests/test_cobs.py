@@ -3,8 +3,8 @@ import math
 from hypothesis import given, settings, strategies as st
 
 import firmware_py  # noqa: F401
-from firmware_py import cobs
-from host_tools.mpy_guest import run_guest
+from firmware_py.codec import cobs
+from host_tools.twin.mpy_guest import run_guest
 
 
 def enc(data: bytes) -> bytes:
@@ -67,7 +67,7 @@ def test_decode_never_raises(junk):
 
 def test_encode_allocation_free_on_micropython():
     res = run_guest("""
-from firmware_py import cobs
+from firmware_py.codec import cobs
 src = bytearray(bytes(range(256)) * 3)
 dst = bytearray(cobs.max_encoded(len(src)))
 n = len(src)

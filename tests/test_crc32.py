@@ -3,8 +3,8 @@ import binascii
 from hypothesis import given, strategies as st
 
 import firmware_py  # noqa: F401
-from firmware_py import crc32
-from host_tools.mpy_guest import run_guest
+from firmware_py.codec import crc32
+from host_tools.twin.mpy_guest import run_guest
 
 
 def value(data: bytes) -> int:
@@ -44,7 +44,7 @@ def test_sub_range_and_ok(mid, pre, post):
 def test_allocation_free_and_same_on_micropython():
     data = bytes(range(256)) * 4
     res = run_guest("""
-from firmware_py import crc32
+from firmware_py.codec import crc32
 data = bytearray(bytes(range(256)) * 4)
 out = bytearray(4)
 n = len(data)

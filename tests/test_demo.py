@@ -14,8 +14,9 @@ import msgpack
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import board, mpack
-from firmware_py import params as pm
+from firmware_py.run import board
+from firmware_py.codec import mpack
+from firmware_py.run import params as pm
 from host_tools import cli
 
 REPO = Path(__file__).resolve().parent.parent
@@ -106,11 +107,11 @@ def test_trained_idle_floor_tells_stopped_from_running_on_the_training_days(demo
     # be idle in the start-up hold-off (at most det_startup_n - 1 per start), by design.
     import numpy as np
 
-    from firmware_py import alarm as al
-    from firmware_py import feature_index as fi
-    from firmware_py.detector import Detector
-    from host_tools.recording import read_stream
-    from host_tools.replay import m_s2_per_count, step_detector, stream_features, twin_for
+    from firmware_py.detect import alarm as al
+    from firmware_py.dsp import feature_index as fi
+    from firmware_py.detect.detector import Detector
+    from host_tools.data.recording import read_stream
+    from host_tools.twin.replay import m_s2_per_count, step_detector, stream_features, twin_for
     _, out, _, _ = demo
     profile = board.load(str(REPO / "boards" / "desk.json"))
     stopped = running = under = held = starts = slow = 0

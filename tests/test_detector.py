@@ -6,9 +6,9 @@ import pytest
 from scipy import stats
 
 import firmware_py  # noqa: F401
-from firmware_py import alarm as al
-from firmware_py import feature_index as fi
-from firmware_py.detector import Detector, default_params
+from firmware_py.detect import alarm as al
+from firmware_py.dsp import feature_index as fi
+from firmware_py.detect.detector import Detector, default_params
 
 PA = fi.per_axis(1)
 VEL_PER_MM_S = 6680          # F_VEL units per mm/s (a 1 mg/count sensor: 65536 / 9.81)

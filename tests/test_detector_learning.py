@@ -6,10 +6,10 @@ import pytest
 from scipy import stats
 
 import firmware_py  # noqa: F401
-from firmware_py import alarm as al
-from firmware_py import feature_index as fi
-from firmware_py.detector import CHI_Q8, Detector, default_params
-from host_tools import modes_fit as mf
+from firmware_py.detect import alarm as al
+from firmware_py.dsp import feature_index as fi
+from firmware_py.detect.detector import CHI_Q8, Detector, default_params
+from host_tools.fit import modes_fit as mf
 
 AXES, BANDS = 3, 4
 PA = fi.per_axis(BANDS)

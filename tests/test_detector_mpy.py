@@ -1,4 +1,4 @@
-"""The detector on a real MicroPython (host_tools.mpy_guest): no allocation in the window path,
+"""The detector on a real MicroPython (host_tools.twin.mpy_guest): no allocation in the window path,
 every intermediate a small int even for extreme features, and the same scores and events as
 under CPython on a long stream."""
 import json
@@ -6,7 +6,7 @@ import textwrap
 
 import pytest
 
-from host_tools.mpy_guest import run_guest
+from host_tools.twin.mpy_guest import run_guest
 
 # One scenario script, run unchanged by the guest and by CPython. Features come from an integer
 # LCG (no floats anywhere), are generated before the heap is locked into one flat array, and the
@@ -14,8 +14,8 @@ from host_tools.mpy_guest import run_guest
 # MicroPython an int past +-2**30 is a heap object, so the lock also proves the bound.
 SCENARIO = """
 from array import array
-from firmware_py.detector import Detector, default_params
-from firmware_py import feature_index as fi
+from firmware_py.detect.detector import Detector, default_params
+from firmware_py.dsp import feature_index as fi
 
 AXES = 3
 NB = 4
@@ -141,8 +141,8 @@ def test_same_scores_and_events_as_cpython(both):
 
 EXTREMES = """
 from array import array
-from firmware_py.detector import Detector, default_params
-from firmware_py import feature_index as fi
+from firmware_py.detect.detector import Detector, default_params
+from firmware_py.dsp import feature_index as fi
 
 NB = 8
 PA = fi.per_axis(NB)
@@ -211,8 +211,8 @@ def test_extreme_features_keep_every_int_small():
 
 FUEL_BODY = """
 from array import array
-from firmware_py.detector import Detector, default_params
-from firmware_py import feature_index as fi
+from firmware_py.detect.detector import Detector, default_params
+from firmware_py.dsp import feature_index as fi
 PA = fi.per_axis(4)
 p = default_params(3, 4, 6680)
 d = len(p["det_feat"])

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py.welford import Welford, IN_LIM, N_MAX
+from firmware_py.detect.welford import Welford, IN_LIM, N_MAX
 
 
 def _streams():

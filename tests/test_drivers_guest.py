@@ -1,11 +1,11 @@
-"""The drivers' read paths on a real MicroPython (1.27, host_tools.mpy_guest): allocation-free
+"""The drivers' read paths on a real MicroPython (1.27, host_tools.twin.mpy_guest): allocation-free
 under heap_lock with the chip models behind the bus, samples exact, overrun counted; and their
 cost per FIFO block in guest fuel (deterministic), with a minimal bus so the models' own cost
 is left out."""
 import pytest
 
 from tests import chip_support
-from host_tools.mpy_guest import run_guest
+from host_tools.twin.mpy_guest import run_guest
 
 chip_support.stage_models_in_guest()
 

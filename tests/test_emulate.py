@@ -15,15 +15,15 @@ import numpy as np
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import params as params_mod
-from firmware_py.paramstore import build_image
+from firmware_py.run import params as params_mod
+from firmware_py.store.paramstore import build_image
 from host_tools import cli
-from host_tools import demo_scenario as ds
+from host_tools.data import demo_scenario as ds
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import Client
-from host_tools.recording import read_recording, write_wav
-from host_tools.units import STANDARD_GRAVITY_M_S2
-from host_tools.virtual_gateway import VirtualGateway, load_profile
+from host_tools.data.recording import read_recording, write_wav
+from host_tools.data.units import STANDARD_GRAVITY_M_S2
+from host_tools.twin.virtual_gateway import VirtualGateway, load_profile
 
 REPO = Path(__file__).resolve().parent.parent
 PROFILE = load_profile(None)                 # boards/desk.json
@@ -182,9 +182,9 @@ def test_site_key_is_held_by_the_virtual_gateway(tmp_path):
 
 def test_raw_stream_marks_frames_lost_to_a_full_ring(tmp_path):
     """Feed past a full ring: the window after the lost frames reports exactly how many."""
-    from firmware_py.gateway import Gateway
-    from firmware_py.paramstore import ParamStore
-    from firmware_py.snapshots import SnapshotRing
+    from firmware_py.run.gateway import Gateway
+    from firmware_py.store.paramstore import ParamStore
+    from firmware_py.store.snapshots import SnapshotRing
 
     store = ParamStore(str(tmp_path), "desk", FS, N, 3, param_body(0))
     gw = Gateway(PROFILE, store, SnapshotRing(str(tmp_path), 2, FS, N, 3), lambda: 0)
@@ -289,13 +289,14 @@ def test_gap_accounting_allocates_nothing_on_micropython():
     """feed() past a full ring and window() after it, each under heap_lock on MicroPython."""
     import json
 
-    from host_tools.mpy_guest import run_guest
+    from host_tools.twin.mpy_guest import run_guest
     res = run_guest("""
 import array, json
-from firmware_py import mpack, params
-from firmware_py.gateway import Gateway
-from firmware_py.paramstore import ParamStore
-from firmware_py.snapshots import SnapshotRing
+from firmware_py.codec import mpack
+from firmware_py.run import params
+from firmware_py.run.gateway import Gateway
+from firmware_py.store.paramstore import ParamStore
+from firmware_py.store.snapshots import SnapshotRing
 prof = json.loads(%(profile)r)
 n = prof['window_n']
 store = ParamStore('/nonexistent-edgevib', 'desk', 3200, n, 3, mpack.packb(params.factory(prof), 4096))

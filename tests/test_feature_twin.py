@@ -2,7 +2,7 @@
 import numpy as np
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from host_tools.feature_twin import FeatureTwin, TwinConfig
+from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from tests.feature_helpers import device_features
 from tests.signals import adversarial, random_windows
 

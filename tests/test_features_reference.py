@@ -6,8 +6,8 @@ import numpy as np
 import scipy.stats
 from numpy.testing import assert_allclose
 
-from firmware_py import feature_index as fi
-from host_tools import units
+from firmware_py.dsp import feature_index as fi
+from host_tools.data import units
 from tests.feature_helpers import device_features, tone
 
 N, FS = 512, 3200

@@ -7,7 +7,7 @@ import numpy as np
 import scipy.signal
 from hypothesis import given, strategies as st
 
-from firmware_py import fixmath, tables
+from firmware_py.dsp import fixmath, tables
 
 
 def machin_pi_q60():

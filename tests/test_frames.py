@@ -4,8 +4,9 @@ import random
 from hypothesis import given, settings, strategies as st
 
 import firmware_py  # noqa: F401
-from firmware_py import cobs, frames
-from host_tools.mpy_guest import run_guest
+from firmware_py.codec import cobs
+from firmware_py.link import frames
+from host_tools.twin.mpy_guest import run_guest
 
 
 def frame(payload: bytes) -> bytes:
@@ -95,7 +96,7 @@ def test_fuzz_random_and_mutated_frames():
 def test_receiver_allocation_free_on_micropython():
     f = frame(bytes(range(1, 120)))
     res = run_guest(f"""
-from firmware_py import frames
+from firmware_py.link import frames
 rx = frames.Receiver(128)
 f = bytes({list(f)!r})
 def run():

@@ -3,8 +3,8 @@ import hmac
 from hypothesis import given, strategies as st
 
 import firmware_py  # noqa: F401
-from firmware_py.hmac_sha256 import digest_equal, hmac_sha256
-from host_tools.mpy_guest import run_guest
+from firmware_py.codec.hmac_sha256 import digest_equal, hmac_sha256
+from host_tools.twin.mpy_guest import run_guest
 
 
 def test_rfc4231_case1():
@@ -34,7 +34,7 @@ def test_digest_equal():
 
 def test_same_on_micropython():
     res = run_guest("""
-from firmware_py.hmac_sha256 import hmac_sha256
+from firmware_py.codec.hmac_sha256 import hmac_sha256
 emit(hmac_sha256(b'Jefe', b'what do ya want for nothing?').hex())
 emit(hmac_sha256(bytes(100), b'x' * 300).hex())
 """)

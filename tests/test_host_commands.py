@@ -9,15 +9,15 @@ import numpy as np
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import params as params_mod
-from firmware_py.paramstore import build_image
-from host_tools import virtual_gateway
+from firmware_py.run import params as params_mod
+from firmware_py.store.paramstore import build_image
+from host_tools.twin import virtual_gateway
 from host_tools.commands import flash as flash_cmd
 from host_tools.commands import monitor as monitor_cmd
 from host_tools.commands import record as record_cmd
 from host_tools.errors import LinkError
 from host_tools.link import Client
-from host_tools.recording import read_recording
+from host_tools.data.recording import read_recording
 from tests.test_emulate import (
     CPG, FS, M_S2_PER_COUNT, N, PROFILE, REPO, SINES, emulator, fault_recording, param_body, run_cli,
     sine_recording)
@@ -204,8 +204,8 @@ def test_monitor_redraws_a_fixed_block_in_place(idle_gateway):
 
 def _demo_recording(path, seconds):
     """Invented demo data (P-101, a healthy day), varied enough for sample-exact comparison."""
-    from host_tools import demo_scenario as ds
-    from host_tools.recording import write_wav
+    from host_tools.data import demo_scenario as ds
+    from host_tools.data.recording import write_wav
     sc = ds.build_scenario()
     snap = ds.Snapshot("P-101", sc.start_t0_s + 3.5 * 86400, seconds)
     return write_wav(path, ds.synthesize(sc, snap), ds.FS_HZ, ds.snapshot_sidecar(sc, snap))

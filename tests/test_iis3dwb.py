@@ -121,7 +121,7 @@ def test_self_test_fails_with_out_of_range_deltas(st):
 
 def test_open_sensor_from_the_esp32s3_profile():
     from pathlib import Path
-    from firmware_py import board
+    from firmware_py.run import board
     p = board.load(str(Path(__file__).parent.parent / "boards" / "esp32s3_iis3dwb.json"))
     m = chip.IIS3DWBModel(SIG)
     mach = FakeMachine(m)

@@ -2,7 +2,7 @@
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import iso_zones as iz
+from firmware_py.detect import iso_zones as iz
 
 # ISO 10816-3 / 20816-3 boundaries A/B, B/C, C/D in mm/s r.m.s., FROM MEMORY (not confirmed
 # against the standard; the team's notes list the same figures as unconfirmed). Written

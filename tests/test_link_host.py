@@ -4,9 +4,9 @@ import threading
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py.paramstore import ParamStore, build_image
-from firmware_py.service import Service
-from firmware_py.snapshots import SnapshotRing, parse
+from firmware_py.store.paramstore import ParamStore, build_image
+from firmware_py.link.service import Service
+from firmware_py.store.snapshots import SnapshotRing, parse
 from host_tools.errors import LinkError
 from host_tools.link import Client, DeviceRefused, Link, open_transport
 from host_tools.link.transport import PtyTransport, memory_pair

@@ -5,7 +5,7 @@ from sklearn.cluster import KMeans
 from sklearn.datasets import make_blobs
 from sklearn.metrics import adjusted_rand_score, silhouette_score
 
-from host_tools import modes_fit as mf
+from host_tools.fit import modes_fit as mf
 
 
 def _datasets():

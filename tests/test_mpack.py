@@ -3,8 +3,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 import firmware_py  # noqa: F401
-from firmware_py import mpack
-from host_tools.mpy_guest import run_guest
+from firmware_py.codec import mpack
+from host_tools.twin.mpy_guest import run_guest
 
 # Every int width of the MessagePack specification: edges of fixint, uint8..uint64, negative
 # fixint and int8..int64 (msgpack.org spec, "int format family").
@@ -98,7 +98,7 @@ def test_micropython_same_bytes_and_small_ints_allocation_free():
          "m": {"z": [1, [2, [3]]], "a": -5}}
     ref = msgpack.packb(_canonical(v), use_bin_type=True)
     res = run_guest(f"""
-from firmware_py import mpack
+from firmware_py.codec import mpack
 v = {v!r}
 emit(list(mpack.packb(v)))
 emit(mpack.unpackb(bytes({list(ref)!r})) == v)

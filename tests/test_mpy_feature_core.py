@@ -6,8 +6,8 @@ intermediate that overflowed would raise MemoryError inside locked() and fail th
 """
 import numpy as np
 
-from firmware_py import features
-from host_tools.feature_twin import FeatureTwin, TwinConfig
+from firmware_py.dsp import features
+from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from tests.feature_helpers import device_features
 from tests.mpy_core import guest_features
 from tests.signals import adversarial, random_windows

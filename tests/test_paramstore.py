@@ -5,8 +5,8 @@ import msgpack
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import paramstore
-from firmware_py.paramstore import ParamError, ParamStore, build_image
+from firmware_py.store import paramstore
+from firmware_py.store.paramstore import ParamError, ParamStore, build_image
 
 BOARD = dict(board="p101-gw", fs_hz=3200, n=1024, axes=3)
 KEY = b"brackwater site key 01"

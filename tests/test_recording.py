@@ -9,7 +9,7 @@ import pytest
 import scipy.io.wavfile as wavfile
 
 from host_tools.errors import EdgevibError
-from host_tools.recording import read_recording, read_stream, sidecar_path, write_wav
+from host_tools.data.recording import read_recording, read_stream, sidecar_path, write_wav
 
 FS = 3200
 RNG = np.random.default_rng(7)

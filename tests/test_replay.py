@@ -8,13 +8,13 @@ import numpy as np
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import alarm as al
-from firmware_py import params as pm
-from host_tools import demo_scenario as ds
+from firmware_py.detect import alarm as al
+from firmware_py.run import params as pm
+from host_tools.data import demo_scenario as ds
 from host_tools.cli import main
-from host_tools.recording import read_stream
-from host_tools.replay import feature_name, replay
-from host_tools.training import train
+from host_tools.data.recording import read_stream
+from host_tools.twin.replay import feature_name, replay
+from host_tools.fit.training import train
 from tests.test_training import FS, PROFILE, healthy_stream, pump_counts, recording
 from tests.test_training import _write as write_recordings
 
@@ -152,7 +152,7 @@ def _first(events, kinds, t0, t1):
 
 
 def test_demo_scenario_detects_each_seeded_fault(tmp_path):
-    # OUR OWN DATA: the invented Brackwater scenario (host_tools.demo_scenario), 6-hourly snapshots
+    # OUR OWN DATA: the invented Brackwater scenario (host_tools.data.demo_scenario), 6-hourly snapshots
     # over 28.5 days so every seeded fault occurs; train on the healthy week, replay the field part.
     gt = json.loads(ds.write_scenario(tmp_path, days=28.5, interval_s=6 * 3600.0).read_text())
     scale = gt["m_s2_per_count"]

@@ -10,11 +10,12 @@ import numpy as np
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import board, iso_zones
-from firmware_py import params as pm
-from host_tools import report
+from firmware_py.run import board
+from firmware_py.detect import iso_zones
+from firmware_py.run import params as pm
+from host_tools.report import replay_report as report
 from host_tools.errors import EdgevibError
-from host_tools.recording import Recording
+from host_tools.data.recording import Recording
 
 REPO = Path(__file__).resolve().parent.parent
 PROFILE = board.load(str(REPO / "boards" / "desk.json"))

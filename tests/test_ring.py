@@ -3,8 +3,8 @@ import array
 
 import numpy as np
 
-from firmware_py.ring import SampleRing
-from host_tools.mpy_guest import run_guest
+from firmware_py.dsp.ring import SampleRing
+from host_tools.twin.mpy_guest import run_guest
 
 
 def _push(ring, frames_xyz):
@@ -46,7 +46,7 @@ def test_full_ring_counts_dropped_frames_and_keeps_unprocessed_windows():
 def test_push_is_allocation_free_on_micropython():
     res = run_guest("""
 import array
-from firmware_py.ring import SampleRing
+from firmware_py.dsp.ring import SampleRing
 ring = SampleRing(3, 64, 2)
 src = array.array('h', range(-48, 48))
 def fill():

@@ -5,11 +5,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
 import firmware_py  # noqa: F401
-from firmware_py import frames
-from firmware_py.paramstore import ParamStore, build_image
-from firmware_py.service import Service
-from firmware_py.snapshots import SnapshotRing
-from host_tools.mpy_guest import run_guest
+from firmware_py.link import frames
+from firmware_py.store.paramstore import ParamStore, build_image
+from firmware_py.link.service import Service
+from firmware_py.store.snapshots import SnapshotRing
+from host_tools.twin.mpy_guest import run_guest
 
 BOARD = dict(board="p101-gw", fs_hz=3200, n=256, axes=3)
 
@@ -331,9 +331,9 @@ def canned(img):
 
 
 GUEST_SETUP = FAKE_GATEWAY + '''
-from firmware_py.paramstore import ParamStore
-from firmware_py.snapshots import SnapshotRing
-from firmware_py.service import Service
+from firmware_py.store.paramstore import ParamStore
+from firmware_py.store.snapshots import SnapshotRing
+from firmware_py.link.service import Service
 ps = ParamStore("/nonexistent-edgevib", "p101-gw", 3200, 256, 3, FACTORY, None, 4096)
 gw = FakeGateway(ps, SnapshotRing("/nonexistent-edgevib", 4, 3200, 256, 3))
 out = []

@@ -5,8 +5,8 @@ import msgpack
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py import snapshots
-from firmware_py.snapshots import SnapshotRing, parse
+from firmware_py.store import snapshots
+from firmware_py.store.snapshots import SnapshotRing, parse
 
 N, AXES = 64, 3
 
@@ -89,12 +89,12 @@ def test_cut_while_saving_loses_only_that_snapshot(tmp_path):
 
 
 def test_parse_on_micropython(tmp_path):
-    from host_tools.mpy_guest import run_guest
+    from host_tools.twin.mpy_guest import run_guest
     r = ring(tmp_path)
     r.save("alarm", 77, [5, -6], window(2))
     img = (tmp_path / "ev0.bin").read_bytes()
     res = run_guest(f"""
-from firmware_py.snapshots import parse
+from firmware_py.store.snapshots import parse
 from array import array
 meta, raw = parse(bytes.fromhex({img.hex()!r}))
 emit([meta['kind'], meta['t'], meta['features'], list(array('h', raw))[:5], len(raw)])

@@ -6,7 +6,7 @@ import pytest
 from scipy.stats import binom, expon, genpareto
 
 from host_tools.errors import EdgevibError
-from host_tools.tail_fit import (
+from host_tools.fit.tail_fit import (
     choose_threshold, fire_prob, fit_tail, onset_prob, window_prob_for_rate,
 )
 

@@ -16,14 +16,15 @@ from sklearn.metrics import adjusted_rand_score
 from sklearn.preprocessing import StandardScaler
 
 import firmware_py  # noqa: F401
-from firmware_py import board, mpack
-from firmware_py import feature_index as fi
-from firmware_py import params as pm
-from host_tools import modes_fit, tail_fit
+from firmware_py.run import board
+from firmware_py.codec import mpack
+from firmware_py.dsp import feature_index as fi
+from firmware_py.run import params as pm
+from host_tools.fit import modes_fit, tail_fit
 from host_tools.cli import main
-from host_tools.recording import Recording, write_wav
-from host_tools.replay import replay
-from host_tools.training import score_threshold, train
+from host_tools.data.recording import Recording, write_wav
+from host_tools.twin.replay import replay
+from host_tools.fit.training import score_threshold, train
 
 ROOT = Path(__file__).resolve().parent.parent
 PROFILE = board.load(str(ROOT / "boards" / "desk.json"))
@@ -151,7 +152,7 @@ def test_modes_recovered_at_separate_operating_points():
 
 
 def _twin_rows(recs, params):
-    from host_tools.replay import stream_features, twin_for
+    from host_tools.twin.replay import stream_features, twin_for
     return stream_features(recs, twin_for(params, PROFILE)).feats
 
 

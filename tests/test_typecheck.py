@@ -69,7 +69,7 @@ def test_all_of_firmware_py_type_checks_against_the_micropython_stubs(typeshed):
 
 
 def test_board_and_drivers_type_check(typeshed):
-    targets = ["firmware_py/board.py", "firmware_py/drivers"]
+    targets = ["firmware_py/run/board.py", "firmware_py/drivers"]
     r = mypy(typeshed, targets, ROOT)
     assert r.returncode == 0, r.stdout + r.stderr
 

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import argparse
 
-from host_tools.device_link import connected
+from host_tools.link.device_link import connected
 
 HELP = "acknowledge a latched alarm on a gateway"
 

@@ -11,7 +11,7 @@ def add_arguments(p):
 
 
 def run(args) -> int:
-    from host_tools import bench
+    from host_tools.ops import bench
 
     figures = bench.device_figures()
     figures.update(bench.host_figures())

@@ -1,6 +1,6 @@
 """`edgevib check REC`: the commissioning check a technician runs after fitting the sensor.
 
-Prints a readable report (host_tools.commission does the analysis); --json also writes it as
+Prints a readable report (host_tools.check.commission does the analysis); --json also writes it as
 JSON, --plot draws the averaged spectrum with the named lines and the noise floor. Outputs are
 rendered in memory first and each is moved into place whole, so a failed run writes nothing.
 """
@@ -14,11 +14,11 @@ from pathlib import Path
 
 import numpy as np
 
-from host_tools.commission import (
+from host_tools.check.commission import (
     DEFAULT_BOARD, G_M_S2, HANN_ENBW_BINS, CheckResult, check_recording, iso_zone_bounds, lowest_bin,
     settings_from_board)
 from host_tools.errors import EdgevibError
-from host_tools.recording import atomic_write, read_recording, sidecar_path
+from host_tools.data.recording import atomic_write, read_recording, sidecar_path
 
 HELP = "commissioning check of a recording: rate, offset, clipping, flatline, noise, lines, ISO zone"
 

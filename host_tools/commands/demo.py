@@ -1,13 +1,13 @@
 """`edgevib demo --out DIR`: the whole host workflow on the invented Brackwater scenario.
 
-INVENTED DEMO DATA (host_tools.demo_scenario): a fictional plant, pumps P-101 and P-102, and
+INVENTED DEMO DATA (host_tools.data.demo_scenario): a fictional plant, pumps P-101 and P-102, and
 seeded faults. Steps, as a technician and an engineer would take them:
 1. generate the scenario into DIR/data (WAV snapshots with sidecars, ground_truth.json);
-2. the commissioning check on the first snapshot of P-101 (host_tools.commission);
-3. per pump, train a parameter set on its healthy training days (host_tools.training);
+2. the commissioning check on the first snapshot of P-101 (host_tools.check.commission);
+3. per pump, train a parameter set on its healthy training days (host_tools.fit.training);
 4. replay its field days through the device detector, state carried from one snapshot to the
-   next (host_tools.replay), and write DIR/<pump>/params.msgpack, params.json, events.json,
-   windows.csv and the report DIR/<pump>/report/index.html (host_tools.report);
+   next (host_tools.twin.replay), and write DIR/<pump>/params.msgpack, params.json, events.json,
+   windows.csv and the report DIR/<pump>/report/index.html (host_tools.report.replay_report);
 5. print per pump the alerts raised outside the seeded faults and when each fault was first seen.
 The pumps are trained and replayed in parallel, one process each (two cores make it quick).
 
@@ -37,7 +37,7 @@ _MARKER = "demo.json"         # what a finished demo folder holds, so a rerun ma
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    from host_tools import demo_scenario as ds
+    from host_tools.data import demo_scenario as ds
     p.add_argument("--out", required=True, metavar="DIR", help="folder to write (made, or replaced if it holds an earlier demo)")
     p.add_argument("--days", type=float, default=DEFAULT_DAYS, help=f"length of the scenario in days (default {DEFAULT_DAYS:g})")
     p.add_argument("--training-days", type=float, default=ds.TRAINING_DAYS,
@@ -58,7 +58,7 @@ def run(args: argparse.Namespace) -> int:
     if args.jobs is not None and args.jobs < 1:
         raise EdgevibError("--jobs must be at least 1")
     started = time.monotonic()
-    from host_tools.report import staging_folder, swap_in
+    from host_tools.report.replay_report import staging_folder, swap_in
     tmp = staging_folder(out)
     try:
         lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs)
@@ -84,7 +84,7 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
           jobs: int | None = None) -> list[str]:
     """Run the demo into folder `work` (paths are printed as they will be under `final`);
     returns the summary lines. Prints the commissioning check as it goes."""
-    from host_tools import demo_scenario as ds
+    from host_tools.data import demo_scenario as ds
     gt_path = ds.write_scenario(work / "data", seed=seed, days=days, training_days=training_days,
                                 interval_s=interval_s)
     truth = json.loads(gt_path.read_text())
@@ -111,8 +111,8 @@ def commissioning_text(path: Path, shown: Path) -> str:
     """The commissioning check of one recording, as `edgevib check` prints it (the command line
     shown with the path `shown`)."""
     from host_tools.commands.check import render_text
-    from host_tools.commission import check_recording, settings_from_board
-    from host_tools.recording import read_recording
+    from host_tools.check.commission import check_recording, settings_from_board
+    from host_tools.data.recording import read_recording
     rec = read_recording(path)
     return f"$ edgevib check {shown}\n" + render_text(check_recording(rec, settings_from_board(None)))
 
@@ -122,13 +122,13 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
     the summary needs (JSON-able). Runs in a worker process."""
     import msgpack
 
-    from firmware_py import params as pm
+    from firmware_py.run import params as pm
     from host_tools.commands.replay import windows_csv
     from host_tools.commands.train import load_board
-    from host_tools.recording import read_stream
-    from host_tools.replay import m_s2_per_count, replay
-    from host_tools.report import detections, false_raises, pump_faults, write_report
-    from host_tools.training import train
+    from host_tools.data.recording import read_stream
+    from host_tools.twin.replay import m_s2_per_count, replay
+    from host_tools.report.replay_report import detections, false_raises, pump_faults, write_report
+    from host_tools.fit.training import train
 
     profile = load_board(None)
     scale = m_s2_per_count(pm.factory(profile))

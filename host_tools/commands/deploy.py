@@ -1,5 +1,5 @@
 """`edgevib deploy --port PORT --board B`: precompile firmware_py to .mpy and copy it, main.py,
-boot.py, the board profile and optional parameters to a gateway (host_tools.deploy does it).
+boot.py, the board profile and optional parameters to a gateway (host_tools.ops.deploy does it).
 
 --dry-run builds the .mpy files and prints every command without touching a device.
 """
@@ -26,7 +26,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from host_tools import deploy
+    from host_tools.ops import deploy
 
     _, profile = deploy.board_profile(args.board)
     image = deploy.parameter_image(args.params, profile) if args.params else None

@@ -1,5 +1,5 @@
 """`edgevib emulate --recording REC.wav [--board B] [--speed X] [--state-dir DIR] [--loop]`:
-a virtual gateway on a pseudo-terminal (host_tools/virtual_gateway.py).
+a virtual gateway on a pseudo-terminal (host_tools/twin/virtual_gateway.py).
 
 The first line on stdout is the port to give the other commands (`--port`). The parameter files
 and event snapshots live in --state-dir (a temporary folder, removed at exit, by default), so
@@ -16,8 +16,8 @@ import sys
 import tempfile
 import threading
 
-from host_tools.device_link import read_key
-from host_tools.virtual_gateway import DESK_BOARD, VirtualGateway, load_profile
+from host_tools.link.device_link import read_key
+from host_tools.twin.virtual_gateway import DESK_BOARD, VirtualGateway, load_profile
 
 HELP = "run a virtual gateway fed from a recording, on a pseudo-terminal"
 _STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)   # SIGHUP: its terminal closed

@@ -1,11 +1,11 @@
 """`edgevib events --port PORT --out DIR`: pull every event snapshot from a gateway as WAV +
 sidecar.
 
-Each snapshot (firmware_py/snapshots.py) holds the raw window that raised an alert or alarm and
+Each snapshot (firmware_py/store/snapshots.py) holds the raw window that raised an alert or alarm and
 its features. It becomes DIR/event_<id>_<kind>.wav with a sidecar carrying kind, t (the gateway's
 clock when it was saved), the raw features, a readable per-axis summary in physical units, and
 t0_s (the window's start: t less one window, to the second of the gateway's clock). Files are
-written whole (host_tools.recording.write_wav); a snapshot overwritten on the gateway between
+written whole (host_tools.data.recording.write_wav); a snapshot overwritten on the gateway between
 listing and reading is reported and skipped.
 """
 from __future__ import annotations
@@ -15,13 +15,13 @@ from collections import Counter
 from pathlib import Path
 
 import firmware_py  # noqa: F401
-from firmware_py import feature_index as fi
-from firmware_py.snapshots import parse
-from host_tools import units
-from host_tools.device_link import committed_params, connected, m_s2_per_count, raw_frames
+from firmware_py.dsp import feature_index as fi
+from firmware_py.store.snapshots import parse
+from host_tools.data import units
+from host_tools.link.device_link import committed_params, connected, m_s2_per_count, raw_frames
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
-from host_tools.recording import write_wav
+from host_tools.data.recording import write_wav
 
 HELP = "pull the gateway's event snapshots as WAV + sidecar"
 AXIS_NAMES = ("x", "y", "z")

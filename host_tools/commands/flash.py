@@ -1,8 +1,8 @@
 """`edgevib flash PARAMS.msgpack --port PORT [--key-file K]`: put a parameter set on a gateway.
 
 PARAMS.msgpack is the parameter set body: one MessagePack map (version, board, fs_hz, n, axes,
-counts_per_g, fc_*, det_* keys; firmware_py/params.py). The image is built here
-(firmware_py.paramstore.build_image, signed when a site key is given), staged in chunks, checked
+counts_per_g, fc_*, det_* keys; firmware_py/run/params.py). The image is built here
+(firmware_py.store.paramstore.build_image, signed when a site key is given), staged in chunks, checked
 by the gateway (its CRC must equal ours), committed, read back and compared. The gateway's store
 applies a set only once it is complete, verified and committed, so a link lost at any point
 leaves the gateway on the set it had.
@@ -16,8 +16,8 @@ import time
 import msgpack
 
 import firmware_py  # noqa: F401
-from firmware_py.paramstore import build_image
-from host_tools.device_link import connected, read_key
+from firmware_py.store.paramstore import build_image
+from host_tools.link.device_link import connected, read_key
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
 

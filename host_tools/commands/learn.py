@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import argparse
 
-from host_tools.device_link import connected
+from host_tools.link.device_link import connected
 from host_tools.errors import EdgevibError
 
 HELP = "start or stop learning this pump's normal on the gateway"

@@ -1,7 +1,7 @@
 """`edgevib monitor --port PORT [--once]`: a live view of a gateway's state and main features.
 
-Features come in the device's integer scales (firmware_py/feature_index.py) and are shown in
-physical units through host_tools/units.py, with the counts scale of the committed parameter
+Features come in the device's integer scales (firmware_py/dsp/feature_index.py) and are shown in
+physical units through host_tools/data/units.py, with the counts scale of the committed parameter
 set. On a terminal a fixed block is redrawn in place (ANSI cursor movement, no colours);
 otherwise each update is one line, for logs and pipes. --once prints one status and exits.
 The view is advisory condition monitoring, not machinery protection; an all-clear is no guarantee.
@@ -15,10 +15,10 @@ from dataclasses import dataclass
 from datetime import datetime, timezone
 
 import firmware_py  # noqa: F401
-from firmware_py import feature_index as fi
-from firmware_py.iso_zones import ZONE_NAMES
-from host_tools import units
-from host_tools.device_link import committed_params, connected, feature_name, m_s2_per_count
+from firmware_py.dsp import feature_index as fi
+from firmware_py.detect.iso_zones import ZONE_NAMES
+from host_tools.data import units
+from host_tools.link.device_link import committed_params, connected, feature_name, m_s2_per_count
 from host_tools.errors import EdgevibError, LinkError
 
 HELP = "live view of a gateway: state, mode, score, ISO zone and the main features"

@@ -23,9 +23,9 @@ from pathlib import Path
 
 import numpy as np
 
-from host_tools.device_link import committed_params, connected, m_s2_per_count, raw_frames
+from host_tools.link.device_link import committed_params, connected, m_s2_per_count, raw_frames
 from host_tools.errors import EdgevibError, LinkError
-from host_tools.recording import write_wav
+from host_tools.data.recording import write_wav
 
 HELP = "record raw samples from a gateway into WAV + sidecar"
 AXIS_NAMES = ("x", "y", "z")

@@ -2,7 +2,7 @@
 
 OUT.json (--json): {"sample_rate_hz": float, "streams": [stream names], "events": [...],
 "summary": {"streams": {name: s}, "total": s}}. An event: {"stream", "t_s" (window end, s, the
-recordings' clock), "from", "to" (state names), "reason" (firmware_py.alarm.REASON_NAMES), "mode"
+recordings' clock), "from", "to" (state names), "reason" (firmware_py.detect.alarm.REASON_NAMES), "mode"
 (int or null), "feature" (e.g. "velocity_rms axis z", or null), "score" (spreads of the nearest
 mode)}. A summary s: recordings, windows, observed_s, t_first_s, t_last_s, windows_per_state
 {state: count}, alerts, alarms, sensor_faults (events into those states), first_alert_t_s,
@@ -17,7 +17,7 @@ REC: recordings or folders; each folder is one stream (one gateway's recordings 
 detector state carried across), the files named directly form one more stream. Streams replay in
 parallel (--jobs), with a progress bar only when stderr is a terminal. --json writes
 sample_rate_hz, streams, events and summary; --windows-csv one row per window; --report DIR the
-HTML report (host_tools.report; one sub-folder per stream when there are several). JSON and CSV
+HTML report (host_tools.report.replay_report; one sub-folder per stream when there are several). JSON and CSV
 are rendered in memory and each moved into place whole.
 """
 from __future__ import annotations
@@ -37,8 +37,8 @@ import numpy as np
 from host_tools.commands.flash import load_body
 from host_tools.commands.train import check_outputs, load_board
 from host_tools.errors import EdgevibError
-from host_tools.recording import atomic_write, read_stream
-from host_tools.replay import ReplayResult, default_jobs, group_sources, m_s2_per_count, replay
+from host_tools.data.recording import atomic_write, read_stream
+from host_tools.twin.replay import ReplayResult, default_jobs, group_sources, m_s2_per_count, replay
 
 HELP = "replay recordings through the device detector: events, per-window states, scores and features"
 _BOARDS = Path(__file__).resolve().parents[2] / "boards"
@@ -70,9 +70,9 @@ def windows_csv(result: ReplayResult) -> str:
 
 
 def _report_module():
-    if importlib.util.find_spec("host_tools.report") is None:
+    if importlib.util.find_spec("host_tools.report.replay_report") is None:
         raise EdgevibError("report module missing")
-    return importlib.import_module("host_tools.report")
+    return importlib.import_module("host_tools.report.replay_report")
 
 
 def run(args: argparse.Namespace) -> int:

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import argparse
 
-from host_tools.device_link import connected, read_key
+from host_tools.link.device_link import connected, read_key
 from host_tools.errors import EdgevibError
 from host_tools.link import DeviceRefused
 

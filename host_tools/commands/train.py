@@ -2,8 +2,8 @@
 
 NORMAL: recordings (.wav/.csv/.npy with sidecars) or folders; each folder is one stream of one
 gateway, the files named directly form one more stream. Writes PARAMS.msgpack (the parameter set
-body: one MessagePack map, for `edgevib flash` and firmware_py.params.build), PARAMS.json beside
-it (what was learned, host_tools.training) and PARAMS.report.txt (the training report, also
+body: one MessagePack map, for `edgevib flash` and firmware_py.run.params.build), PARAMS.json beside
+it (what was learned, host_tools.fit.training) and PARAMS.report.txt (the training report, also
 printed). Everything is computed and encoded first; each file is then moved into place whole, so
 a refused input writes nothing.
 """
@@ -16,16 +16,17 @@ from pathlib import Path
 import msgpack
 
 import firmware_py  # noqa: F401
-from firmware_py import board, mpack
-from firmware_py import params as pm
-from host_tools.commission import DEFAULT_BOARD
+from firmware_py.run import board
+from firmware_py.codec import mpack
+from firmware_py.run import params as pm
+from host_tools.check.commission import DEFAULT_BOARD
 from host_tools.errors import EdgevibError
-from host_tools.recording import atomic_write, read_stream, sidecar_path
-from host_tools.replay import default_jobs, group_sources, m_s2_per_count
-from host_tools.training import report_text, train
+from host_tools.data.recording import atomic_write, read_stream, sidecar_path
+from host_tools.twin.replay import default_jobs, group_sources, m_s2_per_count
+from host_tools.fit.training import report_text, train
 
 HELP = "train a parameter set on healthy recordings: baseline, operating modes, thresholds for a false-alert target"
-# The gateway's parameter store holds images up to 8192 bytes (firmware_py.paramstore, cap);
+# The gateway's parameter store holds images up to 8192 bytes (firmware_py.store.paramstore, cap);
 # an image is the body plus 5 bytes of head, 32 of signature and 4 of CRC.
 _STORE_CAP = 8192
 _IMAGE_EXTRA = 5 + 32 + 4

@@ -5,7 +5,7 @@ from __future__ import annotations
 import hmac
 
 import firmware_py  # noqa: F401
-from firmware_py.paramstore import rollback_message
+from firmware_py.store.paramstore import rollback_message
 from host_tools.link.protocol import Link
 from host_tools.link.transport import open_transport
 
@@ -41,7 +41,7 @@ class Client:
         self.link.request("stream", on=on)
 
     def param_read(self) -> bytes:
-        """The committed parameter image (firmware_py.paramstore layout)."""
+        """The committed parameter image (firmware_py.store.paramstore layout)."""
         return self._read_all("param_read")
 
     def param_write(self, image: bytes, progress=None, chunk: int = CHUNK) -> None:
@@ -78,7 +78,7 @@ class Client:
         return self.link.request("event_list")["events"]
 
     def event_read(self, sid: int) -> bytes:
-        """The snapshot file image (parse with firmware_py.snapshots.parse)."""
+        """The snapshot file image (parse with firmware_py.store.snapshots.parse)."""
         return self._read_all("event_read", id=sid)
 
     def capture(self) -> bytes:

@@ -1,5 +1,5 @@
 """Frames over a transport: requests with sequence numbers, replies matched to them, timeouts
-and retries. Framing (COBS + CRC-32) is firmware_py.frames, the device's own code; payloads
+and retries. Framing (COBS + CRC-32) is firmware_py.link.frames, the device's own code; payloads
 are MessagePack through the reference `msgpack` library. Raises LinkError on any failure."""
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import time
 import msgpack
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in the device modules import)
-from firmware_py import frames
+from firmware_py.link import frames
 from host_tools.errors import LinkError
 
 MAX_PAYLOAD = 65536   # the host accepts larger frames than any device sends

@@ -1,0 +1,113 @@
+# Operating-mode model: features brought to a common log scale, standardised against the
+# baseline, and scored by the distance to the nearest mode in units of that mode's spread.
+#
+# Scales (all ints):
+#   u  transformed feature, log2 Q8 (256 per octave), clamped to +-U_LIM
+#   z  standardised feature, Q8 baseline spreads (256 = one baseline standard deviation), +-Z_LIM
+#   centroids c_q8 in z units (Q8); per-mode spreads s_q8 in z units (Q8, floored when built)
+#   score: sqrt(sum_j ((z_j - c_mj) / s_mj)**2), Q8 mode spreads (a diagonal Mahalanobis distance)
+from array import array
+from micropython import const
+from firmware_py.dsp import feature_index as fi
+from firmware_py.dsp.fixmath import log2_q8, sqrt_pow2
+
+KMAX = const(8)          # most operating modes a model holds
+DMAX = const(64)         # most features a model uses: keeps the sum of squares under 2**28
+U_LIM = const(8191)      # |u| bound: log2 in [-32, 32) octaves; a band of zero power clamps here
+Z_LIM = const(8191)      # |z| bound, 32 baseline spreads
+_D_LIM = const(32767)    # |(z - c) / s| bound, Q8: 128 spreads, so its square is < 2**30
+
+
+def is_log_field(field):
+    """True for the per-axis fields compared on a log2 scale (magnitudes: r.m.s., peak, crest,
+    kurtosis, velocity); band powers are log2 already; mean and clip count stay linear."""
+    return field == fi.F_RMS or field == fi.F_PEAK or field == fi.F_CREST or \
+        field == fi.F_KURT or field == fi.F_VEL
+
+
+class ModeModel:
+    """Baseline (mean_q4, sd_q4 per feature: Q4 of log2-Q8 units) and k <= KMAX modes."""
+
+    def __init__(self, d):
+        self.d = d
+        self.k = 0
+        z = bytes(4 * d)
+        self.mean_q4 = array("i", z)
+        self.sd_q4 = array("i", z)
+        self.c_q8 = array("i", bytes(4 * d * KMAX))
+        self.s_q8 = array("i", bytes(4 * d * KMAX))
+        self.mode = -1         # nearest mode of the last score(), -1 if no model
+        self.drive = -1        # index j (0..d-1) of the feature that contributed most, -1 none
+
+    def load(self, mean_q4, sd_q4, k, c_q8, s_q8, sd_floor_q4, s_floor_q8):
+        """Fill from parameter lists, flooring the spreads. Start-up only."""
+        d = self.d
+        if len(mean_q4) != d or len(sd_q4) != d or not 0 <= k <= KMAX or \
+                len(c_q8) != k * d or len(s_q8) != k * d:
+            raise ValueError("detector model lists do not match det_feat and det_modes")
+        for j in range(d):
+            self.mean_q4[j] = clamp(mean_q4[j], U_LIM << 4)
+            self.sd_q4[j] = min(max(sd_q4[j], sd_floor_q4), U_LIM << 4)
+        for i in range(k * d):
+            self.c_q8[i] = clamp(c_q8[i], Z_LIM)
+            self.s_q8[i] = min(max(s_q8[i], s_floor_q8), Z_LIM)
+        self.k = k
+
+    def standardise(self, u, z):
+        """z[j] = (u[j] - mean) / sd, Q8 spreads, clamped to +-Z_LIM.
+
+        mean_q4 may sit up to 4 spreads past U_LIM << 4 after drift, so the shifted difference
+        stays under 2**28."""
+        for j in range(self.d):
+            z[j] = clamp((((u[j] << 4) - self.mean_q4[j]) << 8) // self.sd_q4[j], Z_LIM)
+
+    def score(self, z):
+        """Distance of z to the nearest mode, Q8 mode spreads; sets mode and drive. 0 if k == 0.
+
+        Each term ((z - c) << 8) // s is clamped to +-_D_LIM, its square >> 8 is < 2**22, and the
+        sum over d <= 64 terms (Q8 spreads squared) stays < 2**28.
+        """
+        d = self.d
+        best = -1
+        best_m = -1
+        for m in range(self.k):
+            b = m * d
+            s = 0
+            for j in range(d):
+                t = clamp(((z[j] - self.c_q8[b + j]) << 8) // self.s_q8[b + j], _D_LIM)
+                s += (t * t) >> 8
+            if best < 0 or s < best:
+                best = s
+                best_m = m
+        self.mode = best_m
+        self.drive = -1
+        if best_m < 0:
+            return 0
+        b = best_m * d
+        top = -1
+        for j in range(d):
+            t = clamp(((z[j] - self.c_q8[b + j]) << 8) // self.s_q8[b + j], _D_LIM)
+            t = t if t >= 0 else -t
+            if t > top:
+                top = t
+                self.drive = j
+        return sqrt_pow2(best, 8)
+
+
+def clamp(x, lim):
+    """x limited to [-lim, lim]."""
+    if x > lim:
+        return lim
+    if x < -lim:
+        return -lim
+    return x
+
+
+def transform(feats, idx, logf, u, d, tab):
+    """u[j] = log2 Q8 of feats[idx[j]] (values < 1 taken as 1) where logf[j], else feats[idx[j]];
+    clamped to +-U_LIM. tab: tables.log2_table()."""
+    for j in range(d):
+        x = feats[idx[j]]
+        if logf[j]:
+            x = log2_q8(x if x > 1 else 1, tab)
+        u[j] = clamp(x, U_LIM)

@@ -1,0 +1,171 @@
+# The feature core: per axis, each window of n int16 counts becomes the integer feature fields
+# of feature_index (scales documented there). All memory is allocated in the constructor; step()
+# allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
+import array
+from micropython import const
+
+from firmware_py.dsp import fft, tables
+from firmware_py.dsp.feature_index import (
+    F_BAND0, F_CLIP, F_CREST, F_KURT, F_MEAN, F_PEAK, F_RMS, F_VEL, LOG2_ZERO_Q8, per_axis)
+from firmware_py.dsp.fixmath import div_pow2, log2_q8, msb, sqrt_pow2
+from firmware_py.dsp.ring import SampleRing, footprint_bytes as _ring_bytes
+
+Y_BITS = const(13)      # windows are normalised so the peak's top bit is bit 13: |y| <= 2**14
+_MIN_N = const(64)
+_MAX_N = const(4096)
+
+
+def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz):
+    """Raise ValueError with the reason if the feature core cannot run this configuration."""
+    if n < _MIN_N or n > _MAX_N or n & (n - 1):
+        raise ValueError("window length must be a power of two from 64 to 4096")
+    if axes < 1 or axes > 3:
+        raise ValueError("1 to 3 axes")
+    if not 0 < vel_lo_hz < vel_hi_hz or 2 * vel_lo_hz >= fs_hz:
+        raise ValueError("velocity band must satisfy 0 < lo < hi and lo below fs/2")
+    m = n >> 1
+    for b in bands:
+        if not 1 <= b[0] < b[1] <= m:
+            raise ValueError("band bins must satisfy 1 <= lo < hi <= n/2")
+
+
+def footprint_bytes(n, axes, ring_windows, n_bands):
+    """Heap bytes the feature core's buffers and tables take (array payloads; object headers,
+    about 16 bytes each, come on top). Used by board profiles to check the heap budget."""
+    m = n >> 1
+    tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * 257 + 3 * (m + 1)   # trig, hann, pos, log2, vel
+    work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
+    return _ring_bytes(axes, n, ring_windows) + tables_b + work_b
+
+
+class FeatureCore:
+    """Ring buffer plus feature stage for `axes` axes of n-sample windows at fs_hz.
+
+    bands: list of (lo_bin, hi_bin) half-open bin ranges for band powers; adc_min/adc_max: the
+    converter's full-scale codes (a sample at or beyond them counts as clipped).
+    """
+
+    def __init__(self, n, axes, fs_hz, adc_min, adc_max, bands=(), vel_lo_hz=10, vel_hi_hz=1000,
+                 ring_windows=2):
+        check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz)
+        self.n = n
+        self.m = n >> 1
+        self.L = msb(n)
+        self.axes = axes
+        self.fs_hz = fs_hz
+        self.adc_min = adc_min
+        self.adc_max = adc_max
+        self.ring = SampleRing(axes, n, ring_windows)
+        self.cos_t, self.sin_t = tables.twiddles(n)
+        self.hann = tables.hann(n, self.cos_t)
+        self.pos = tables.bitrev_positions(n)
+        self.tw = fft.radix4_twiddles(self.m, self.cos_t, self.sin_t)
+        self.log2_t = tables.log2_table()
+        self.vmant, self.vsh2, self.vel_exp = tables.velocity_weights(n, fs_hz, vel_lo_hz, vel_hi_hz)
+        self.buf = array.array('i', bytes(4 * n))
+        self.p = array.array('i', bytes(4 * (self.m + 1)))
+        pv = memoryview(self.p)
+        self.bands = [pv[b[0]:b[1]] for b in bands]
+        self.n_bands = len(bands)
+        # band mean square = 4/3 * 2**-2u * sum(p) (Hann power normalisation); 4/3 as log2, Q8
+        self.log2_4_3 = 512 - log2_q8(3, self.log2_t)
+        self.per = per_axis(self.n_bands)
+        self.feats = array.array('i', bytes(4 * axes * self.per))
+        self.windows = 0
+
+    def step(self):
+        """Process the oldest waiting window of every axis into self.feats and free its slot;
+        False if no window waits."""
+        if not self.process():
+            return False
+        self.ring.release()
+        return True
+
+    def process(self):
+        """As step(), but the window stays in the ring (ring.window(a) still reads it) until
+        ring.release(): the caller may save it, e.g. as an event snapshot."""
+        ring = self.ring
+        if not ring.ready():
+            return False
+        for a in range(self.axes):
+            self._axis(ring.window(a), a * self.per)
+        self.windows += 1
+        return True
+
+    def _axis(self, win, off):
+        n = self.n
+        L = self.L
+        f = self.feats
+        s = sum(win)                    # |s| <= 2**15 * n <= 2**27
+        mx = max(win)
+        mn = min(win)
+        mean = (s + (n >> 1)) >> L      # rounded integer mean, counts
+        pk = mx - mean
+        if mean - mn > pk:
+            pk = mean - mn              # peak of x - mean, counts, <= 65535
+        clip = 0
+        if mx >= self.adc_max or mn <= self.adc_min:
+            hi = self.adc_max
+            lo = self.adc_min
+            for v in win:
+                if v >= hi or v <= lo:
+                    clip += 1
+        f[off + F_MEAN] = (s + (1 << (L - 9)) >> (L - 8)) if L > 8 else s << (8 - L)
+        f[off + F_PEAK] = pk << 8
+        f[off + F_CLIP] = clip
+        if pk == 0:
+            self._flat(off)
+            return
+        # normalise: y = (x - mean) * 2**u, peak's top bit at Y_BITS
+        u = Y_BITS - msb(pk)
+        g = 1 << u if u > 0 else 1
+        sh = -u if u < 0 else 0
+        buf = self.buf
+        hann = self.hann
+        pos = self.pos
+        s2 = L - 1
+        sq = 0                          # sum(y*y >> (L-1)) < 2**29
+        s4 = 0                          # sum(round(y*y / 2**14)**2 >> L) < 2**28
+        for i in range(n):
+            y = ((win[i] - mean) * g) >> sh
+            yy = y * y
+            sq += yy >> s2
+            r = (yy + 8192) >> 14
+            s4 += (r * r) >> L
+            buf[pos[i]] = (y * hann[i]) >> 15
+        m = self.m
+        fft.cfft(buf, m, self.tw)
+        vs = fft.spectrum(buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p)
+        self._finish(off, pk, u, g, sh, sq, s4, vs)
+
+    def _finish(self, off, pk, u, g, sh, sq, s4, vs):
+        """Features from the window sums (shared by the device and the host twin).
+
+        sq, s4, vs, u as in _axis; pk: peak counts. Writes F_RMS..F_VEL and the band powers.
+        """
+        f = self.feats
+        # mean square of y is sq / 2 (sq holds y*y / 2**(L-1), summed over n = 2**L samples)
+        f[off + F_RMS] = sqrt_pow2(sq, 15 - 2 * u)                 # sqrt(sq/2) * 2**(8-u)
+        rms_y_q8 = sqrt_pow2(sq, 15)
+        f[off + F_CREST] = div_pow2((pk * g) >> sh, rms_y_q8, 20)  # Q12
+        # kurtosis = mean(y**4) / mean(y**2)**2 = s4 * 2**28 / (sq/2)**2 = s4 * 2**30 / sq**2
+        f[off + F_KURT] = div_pow2(div_pow2(s4, sq, 21), sq, 21)   # Q12
+        f[off + F_VEL] = sqrt_pow2(vs, 62 - 2 * self.vel_exp - 2 * u)
+        t = self.log2_t
+        c = self.log2_4_3 - 512 * u
+        for b in range(self.n_bands):
+            ps = sum(self.bands[b])
+            f[off + F_BAND0 + b] = log2_q8(ps, t) + c if ps > 0 else LOG2_ZERO_Q8
+
+    def _flat(self, off):
+        """A window with no variation at all (stuck output): no spectrum, zero features."""
+        f = self.feats
+        f[off + F_RMS] = 0
+        f[off + F_CREST] = 0
+        f[off + F_KURT] = 0
+        f[off + F_VEL] = 0
+        for b in range(self.n_bands):
+            f[off + F_BAND0 + b] = LOG2_ZERO_Q8
+        p = self.p
+        for k in range(self.m + 1):
+            p[k] = 0

@@ -1,0 +1,188 @@
+"""Operating modes on the host: k-means (k-means++ seeding, several starts) and the choice of k
+by the silhouette, turned into the detector's parameter keys.
+
+The baseline and the standardisation run through the device's own code (firmware_py.detect.modes), so
+the model the host fits is exactly in the space the device scores in.
+"""
+from __future__ import annotations
+
+from array import array
+
+import numpy as np
+
+import firmware_py  # noqa: F401  (installs the micropython stand-in)
+from firmware_py.dsp import feature_index as fi
+from firmware_py.detect import modes as dm
+from firmware_py.detect.detector import CHI_Q8
+from firmware_py.detect.welford import Welford
+from firmware_py.dsp.fixmath import sqrt_pow2
+from firmware_py.dsp.tables import log2_table
+
+# Kaufman and Rousseeuw's reading of the average silhouette ("Finding Groups in Data", 1990;
+# from memory): 0.25 or less means no substantial structure, so one mode is kept.
+SILHOUETTE_MIN = 0.25
+_SIL_SAMPLE = 2000      # the silhouette is O(n**2): score it on at most this many rows
+
+
+def _plusplus(x: np.ndarray, k: int, rng: np.random.Generator) -> np.ndarray:
+    """k-means++ seeds (Arthur and Vassilvitskii 2007), greedy: 2 + ln k trials per seed, the
+    one that lowers the potential most is kept."""
+    n = len(x)
+    trials = 2 + int(np.log(k))
+    centers = [x[rng.integers(n)]]
+    d2 = ((x - centers[0]) ** 2).sum(1)
+    for _ in range(1, k):
+        total = d2.sum()
+        if total <= 0:
+            cand = rng.integers(n, size=trials)
+        else:
+            cand = np.searchsorted(np.cumsum(d2), rng.random(trials) * total)
+            cand = np.minimum(cand, n - 1)
+        best, best_pot, best_d2 = None, np.inf, None
+        for c in cand:
+            nd2 = np.minimum(d2, ((x - x[c]) ** 2).sum(1))
+            pot = nd2.sum()
+            if pot < best_pot:
+                best, best_pot, best_d2 = c, pot, nd2
+        centers.append(x[best])
+        d2 = best_d2
+    return np.array(centers, dtype=float)
+
+
+def _sq_dist(x: np.ndarray, c: np.ndarray) -> np.ndarray:
+    """Squared distances (n, k) as |x|^2 - 2 x.c + |c|^2: one matrix product instead of an
+    (n, k, d) array; rounding can make a zero distance slightly negative, so clip at 0."""
+    d = (x * x).sum(1)[:, None] - 2.0 * (x @ c.T) + (c * c).sum(1)[None, :]
+    return np.maximum(d, 0.0)
+
+
+def kmeans(x: np.ndarray, k: int, n_init: int = 10, max_iter: int = 300, tol: float = 1e-6,
+           seed: int = 0) -> tuple[np.ndarray, np.ndarray, float]:
+    """Lloyd's k-means from n_init k-means++ starts; returns (centers, labels, inertia) of the
+    start with the least inertia (sum of squared distances to the assigned centre)."""
+    x = np.asarray(x, dtype=float)
+    rng = np.random.default_rng(seed)
+    best: tuple[np.ndarray, np.ndarray, float] = (np.empty((0, x.shape[1])), np.empty(0, int),
+                                                  np.inf)
+    scale = max(float(x.var(0).mean()), 1e-300)
+    for _ in range(n_init):
+        c = _plusplus(x, k, rng)
+        for _ in range(max_iter):
+            lab = _sq_dist(x, c).argmin(1)
+            new = c.copy()
+            for j in range(k):
+                members = x[lab == j]
+                if len(members):
+                    new[j] = members.mean(0)
+            shift = ((new - c) ** 2).sum()
+            c = new
+            if shift <= tol * scale:
+                break
+        d = _sq_dist(x, c)
+        lab = d.argmin(1)
+        inertia = float(d[np.arange(len(x)), lab].sum())
+        if inertia < best[2]:
+            best = (c, lab, inertia)
+    return best
+
+
+def silhouette(x: np.ndarray, labels: np.ndarray) -> float:
+    """Mean silhouette (Rousseeuw 1987): s = (b - a) / max(a, b) per point, with a the mean
+    distance to its own cluster and b the least mean distance to another; 0 for singletons."""
+    x = np.asarray(x, dtype=float)
+    d = np.sqrt(np.maximum(_sq_dist(x, x), 0.0))
+    ids = np.unique(labels)
+    if len(ids) < 2:
+        raise ValueError("the silhouette needs at least two clusters")
+    sums = np.stack([d[:, labels == i].sum(1) for i in ids], 1)
+    sizes = np.array([(labels == i).sum() for i in ids])
+    own = np.searchsorted(ids, labels)
+    own_n = sizes[own]
+    a = sums[np.arange(len(x)), own] / np.maximum(own_n - 1, 1)
+    other = sums / sizes
+    other[np.arange(len(x)), own] = np.inf
+    b = other.min(1)
+    s = np.where(own_n > 1, (b - a) / np.maximum(np.maximum(a, b), 1e-300), 0.0)
+    return float(s.mean())
+
+
+def choose_k(x: np.ndarray, k_max: int = dm.KMAX, seed: int = 0) -> tuple[int, dict]:
+    """k in 1..k_max with the greatest mean silhouette, or 1 if none beats SILHOUETTE_MIN.
+    Returns (k, {k: silhouette})."""
+    x = np.asarray(x, dtype=float)
+    rng = np.random.default_rng(seed)
+    sample = rng.choice(len(x), size=min(len(x), _SIL_SAMPLE), replace=False)
+    scores = {}
+    for k in range(2, min(k_max, len(x) - 1) + 1):
+        _, lab, _ = kmeans(x, k, seed=seed)
+        if len(np.unique(lab[sample])) < 2:
+            continue
+        scores[k] = silhouette(x[sample], lab[sample])
+    if not scores or max(scores.values()) <= SILHOUETTE_MIN:
+        return 1, scores
+    return max(scores, key=lambda k: scores[k]), scores
+
+
+def transformed(feats: np.ndarray, params: dict) -> np.ndarray:
+    """Rows of raw feature vectors -> the device's log-scale features u (log2 Q8), by its code."""
+    idx = array("i", params["det_feat"])
+    pa = fi.per_axis(params["det_bands"])
+    logf = array("b", [1 if dm.is_log_field(i % pa) else 0 for i in idx])
+    tab = log2_table()
+    u = array("i", bytes(4 * len(idx)))
+    out = np.empty((len(feats), len(idx)), dtype=np.int64)
+    for r, row in enumerate(np.asarray(feats, dtype=np.int64)):
+        dm.transform(array("i", row.tolist()), idx, logf, u, len(idx), tab)
+        out[r] = u
+    return out
+
+
+def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | None = None,
+        seed: int = 0) -> dict:
+    """Baseline, operating modes and thresholds from healthy running windows (rows of raw
+    feature vectors). Returns the detector keys to merge into the parameter set.
+
+    The baseline is the device's fixed-point Welford; z is standardised by the device's code; the
+    modes are k-means in z (Q8) with k chosen by the silhouette; each mode's spread is its
+    members' standard deviation per feature, floored at det_s_floor_q8. The alert threshold is
+    the chi-square tail point of the device (CHI_Q8, p = 1e-4) times the margin. The idle floor
+    (det_idle_vel_q16, counts/s Q16) is a quarter of the quietest window's broadband velocity
+    (largest axis F_VEL), as the device's own learning sets it, and never under the set's.
+    """
+    u = transformed(feats, params)
+    d = u.shape[1]
+    pa = fi.per_axis(params["det_bands"])
+    vel = np.asarray(feats)[:, fi.F_VEL::pa][:, :params["det_axes"]]
+    idle = max(int(params["det_idle_vel_q16"]), int(vel.max(1).min()) >> 2)
+    w = Welford(d)
+    for row in u:
+        for j in range(d):
+            w.add(j, int(row[j]))
+    model = dm.ModeModel(d)
+    mean = [w.mean_q(j, 4) for j in range(d)]
+    sd = [sqrt_pow2(w.var(j), 8) for j in range(d)]
+    model.load(mean, sd, 0, [], [], params["det_sd_floor_q4"], params["det_s_floor_q8"])
+    zb = array("i", bytes(4 * d))
+    z = np.empty_like(u)
+    for r, row in enumerate(u):
+        model.standardise(array("i", row.tolist()), zb)
+        z[r] = zb
+    k, _ = choose_k(z, k_max, seed)
+    if k > 1:
+        centers, lab, _ = kmeans(z, k, seed=seed)
+    else:
+        centers, lab = z.mean(0)[None], np.zeros(len(z), int)
+    floor = params["det_s_floor_q8"]
+    spread = np.array([z[lab == m].std(0) if (lab == m).any() else np.zeros(d) for m in range(k)])
+    margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
+    alert = (CHI_Q8[d - 1] * margin) >> 8
+    return {
+        "det_base_mean_q4": [int(v) for v in model.mean_q4],
+        "det_base_sd_q4": [int(v) for v in model.sd_q4],
+        "det_modes": int(k),
+        "det_mode_c_q8": [int(v) for v in np.clip(np.rint(centers), -dm.Z_LIM, dm.Z_LIM).ravel()],
+        "det_mode_s_q8": [int(v) for v in np.clip(np.rint(spread), floor, dm.Z_LIM).ravel()],
+        "det_thr_alert_q8": int(alert),
+        "det_thr_alarm_q8": int((alert * params["det_learn_alarm_q8"]) >> 8),
+        "det_idle_vel_q16": idle,
+    }

@@ -1,0 +1,286 @@
+"""Measured cost figures of the feature stage, on a real MicroPython and on the host.
+
+Device cost is wasm fuel (a deterministic instruction budget of the MicroPython guest), turned
+into a count of simple loop iterations measured in the same run, so the figure does not depend on
+this machine's speed. Each fuel figure is a difference of two guest runs that differ only in how
+many times the measured work runs (start-up, compilation and set-up cancel out).
+
+The window path is measured with the heap locked, as the device runs it. That matters for cost,
+not only for memory: unlocked, MicroPython puts each large function frame on the heap, and the
+allocator's search for a free block then costs in proportion to the heap's clutter; locked, frames
+go on the stack.
+"""
+from __future__ import annotations
+
+import time
+
+import numpy as np
+
+from firmware_py.run import params
+from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
+from host_tools.twin.mpy_guest import run_guest
+
+N = 512
+FS = 3200
+BANDS = params.default_bands(N, FS, 8)
+WINDOWS = 4          # windows per fuel measurement (different data each)
+
+# Set-up shared by the fixed-point and float runs: WINDOWS windows of noise plus tones, 16-bit
+_SETUP = f"""
+import array
+src = array.array('h', bytes(2 * {N * WINDOWS}))
+seed = 12345
+for i in range({N * WINDOWS}):
+    seed = (seed * 1103515245 + 12345) & 0x3fffffff
+    src[i] = ((seed >> 14) - 32768) // 8 + (i * 37 % 400) * 20 - 4000
+"""
+
+_FIXED = _SETUP + f"""
+from firmware_py.dsp.features import FeatureCore
+fc = FeatureCore({N}, 1, {FS}, -32768, 32767, bands={BANDS!r})
+blk = array.array('h', bytes(2 * {N}))
+def load(w):
+    for i in range({N}):
+        blk[i] = src[w * {N} + i]
+    fc.ring.push(blk, {N})
+step = fc.step
+release = fc.ring.release
+def run(steps):
+    for w in range({WINDOWS}):
+        load(w)
+        ok, _ = locked(step if steps else release)
+        if not ok:
+            raise MemoryError("window path allocated")
+"""
+
+# A straightforward float implementation of the same features, for comparison: an n-point complex
+# radix-2 FFT on float lists, no fixed-point tricks (written for this comparison only).
+_FLOAT = _SETUP + f"""
+import math, gc
+n = {N}
+bands = {BANDS!r}
+def tables():
+    hann = [0.5 - 0.5 * math.cos(2 * math.pi * i / n) for i in range(n)]
+    wv = [0.0] * (n // 2 + 1)
+    for k in range(1, n // 2 + 1):
+        f = k * {FS} / n
+        h2 = (f / 10) ** 6 / (1 + (f / 10) ** 6) / (1 + (f / 1000) ** 6)
+        wv[k] = h2 / (2 * math.pi * f) ** 2
+    bits = 0
+    while (1 << bits) < n:
+        bits += 1
+    rev = [0] * n
+    for i in range(n):
+        r = 0
+        for b in range(bits):
+            r |= ((i >> b) & 1) << (bits - 1 - b)
+        rev[i] = r
+    tw_r = [math.cos(-2 * math.pi * k / n) for k in range(n // 2)]
+    tw_i = [math.sin(-2 * math.pi * k / n) for k in range(n // 2)]
+    return hann, wv, rev, tw_r, tw_i
+hann, wv, rev, tw_r, tw_i = tables()
+re = [0.0] * n
+im = [0.0] * n
+p = [0.0] * (n // 2 + 1)
+out = [0.0] * (7 + len(bands))
+def features(x, off):
+    mean = 0.0
+    for i in range(n):
+        mean += x[off + i]
+    mean /= n
+    s2 = 0.0
+    s4 = 0.0
+    pk = 0.0
+    clip = 0
+    for i in range(n):
+        v = x[off + i]
+        if v >= 32767 or v <= -32768:
+            clip += 1
+        d = v - mean
+        d2 = d * d
+        s2 += d2
+        s4 += d2 * d2
+        if abs(d) > pk:
+            pk = abs(d)
+        j = rev[i]
+        re[j] = d * hann[i]
+        im[j] = 0.0
+    size = 2
+    while size <= n:
+        half = size // 2
+        step = n // size
+        for start in range(0, n, size):
+            k = 0
+            for j in range(start, start + half):
+                wr = tw_r[k]
+                wi = tw_i[k]
+                xr = re[j + half] * wr - im[j + half] * wi
+                xi = re[j + half] * wi + im[j + half] * wr
+                re[j + half] = re[j] - xr
+                im[j + half] = im[j] - xi
+                re[j] += xr
+                im[j] += xi
+                k += step
+        size *= 2
+    vs = 0.0
+    for k in range(n // 2 + 1):
+        p[k] = re[k] * re[k] + im[k] * im[k]
+        vs += p[k] * wv[k]
+    rms = math.sqrt(s2 / n)
+    out[0] = mean
+    out[1] = rms
+    out[2] = pk
+    out[3] = pk / rms
+    out[4] = (s4 / n) / (s2 / n) ** 2
+    out[5] = clip
+    out[6] = math.sqrt(vs * 16 / (3 * n * n))
+    for b in range(len(bands)):
+        s = 0.0
+        for k in range(bands[b][0], bands[b][1]):
+            s += p[k]
+        out[7 + b] = s
+def run(steps):
+    if steps:
+        for w in range({WINDOWS}):
+            features(src, w * n)
+gc.collect()    # a compact heap: the float version's allocations then cost what they would on a board
+"""
+
+_HEAP = f"""
+import gc
+from firmware_py.dsp.features import FeatureCore
+def build():
+    return FeatureCore({N}, 1, {FS}, -32768, 32767, bands={BANDS!r})
+gc.collect()
+a0 = gc.mem_alloc()
+fc = build()
+gc.collect()
+emit(gc.mem_alloc() - a0)
+"""
+
+# Allocation per window: heap in use before and after WINDOWS windows without the lock (no
+# collection runs: the guest heap is large), and whether every window also runs under the lock.
+_ALLOC = _FIXED + """
+import gc
+def fill_and_run():
+    for w in range(%d):
+        load(w)
+        m0 = gc.mem_alloc()
+        fc.step()
+        emit(gc.mem_alloc() - m0)
+    load(0)
+    emit(locked(fc.step))
+fill_and_run()
+""" % WINDOWS
+
+
+def _fuel_diff(body_a: str, body_b: str) -> int:
+    return run_guest(body_b).fuel - run_guest(body_a).fuel
+
+
+def loop_fuel(module_level: bool = True) -> float:
+    """Fuel of one iteration of `for i in range(n): s += i` (at module level, or in a function)."""
+    def body(k):
+        if module_level:
+            return f"s = 0\nfor i in range({k}):\n    s += i\n"
+        return f"def f():\n    s = 0\n    for i in range({k}):\n        s += i\n    return s\nf()\n"
+    return _fuel_diff(body(1000), body(11000)) / 10000
+
+
+def device_figures() -> dict:
+    fixed = _fuel_diff(_FIXED + "run(False)\n", _FIXED + "run(True)\n") / WINDOWS
+    flt = _fuel_diff(_FLOAT + "run(False)\n", _FLOAT + "run(True)\n") / WINDOWS
+    loop = loop_fuel(True)
+    loop_fn = loop_fuel(False)
+    alloc = run_guest(_ALLOC).out
+    per_window_bytes, locked_ok = alloc[:-1], alloc[-1]
+    return {
+        "mpy_window_fuel": round(fixed),
+        "mpy_loop_fuel": round(loop, 1),
+        "mpy_loop_fuel_in_function": round(loop_fn, 1),
+        "mpy_loop_equiv_per_sample": round(fixed / N / loop, 2),
+        "mpy_loop_equiv_per_sample_vs_function_loop": round(fixed / N / loop_fn, 2),
+        "mpy_naive_float_ratio": round(fixed / flt, 3),
+        "mpy_naive_float_window_fuel": round(flt),
+        "core_heap_bytes": run_guest(_HEAP).out[0],
+        # MicroPython allocates in 16-byte blocks: bytes / 16 bounds the number of allocations
+        "allocs_per_window": max(per_window_bytes) / 16,
+        "window_runs_with_heap_locked": bool(locked_ok[0] and locked_ok[1]),
+    }
+
+
+def host_figures(seconds: float = 60.0, repeat: int = 5) -> dict:
+    """numpy twin on a `seconds`-long 3200 Hz one-axis recording, against numpy.fft.rfft."""
+    rng = np.random.default_rng(1)
+    frames = int(seconds * FS)
+    t = np.arange(frames) / FS
+    x = np.clip(np.round(rng.normal(0, 2000, frames) + 6000 * np.sin(2 * np.pi * 24.6 * t)),
+                -32768, 32767).astype(np.int16)
+    twin = FeatureTwin(TwinConfig(n=N, fs_hz=FS, adc_min=-32768, adc_max=32767, bands=tuple(map(tuple, BANDS))))
+    wins = x[: (frames // N) * N].reshape(-1, N).astype(np.float64)
+    twin.features(x)
+    np.fft.rfft(wins, axis=1)
+    best_twin = best_fft = float("inf")
+    for _ in range(repeat):       # side by side, best of `repeat` for each
+        t0 = time.perf_counter()
+        twin.features(x)
+        best_twin = min(best_twin, time.perf_counter() - t0)
+        t0 = time.perf_counter()
+        np.fft.rfft(wins, axis=1)
+        best_fft = min(best_fft, time.perf_counter() - t0)
+    return {
+        "host_msamples_per_s": round(frames / best_twin / 1e6, 2),
+        "host_vs_numpy_rfft_ratio": round(best_twin / best_fft, 2),
+    }
+
+
+def workflow_figures() -> dict:
+    """Training time per hour of 3200 Hz recording and end-to-end replay throughput (reading the
+    files, features, device detector, events), on one core, on a small invented demo scenario."""
+    import json
+    import tempfile
+    from pathlib import Path
+
+    from host_tools.data import demo_scenario
+    from host_tools.twin import replay
+    from host_tools.fit import training
+    from host_tools.data.recording import read_stream
+
+    root = Path(__file__).resolve().parents[2]
+    profile = json.loads((root / "boards" / "desk.json").read_text())
+    with tempfile.TemporaryDirectory() as tmp:
+        d = Path(tmp)
+        demo_scenario.write_scenario(d, days=10, training_days=5, interval_s=3600)
+        recs = read_stream(d / "P-101" / "training")
+        hours = sum(r.duration_s for r in recs) / 3600
+        t0 = time.perf_counter()
+        p, _ = training.train(recs, profile)
+        train_s = time.perf_counter() - t0
+        field = d / "P-101" / "field"
+        t0 = time.perf_counter()
+        res = replay.replay([field], p, profile)           # reads the files itself
+        replay_s = time.perf_counter() - t0
+        frames = sum(r.n_frames for r in read_stream(field))
+        axes = profile["axes"]
+    return {
+        "train_s_per_hour": round(train_s / hours, 1),
+        # samples are per axis: a 3-axis frame at 3200 Hz is 3 samples
+        "replay_msamples_per_s": round(frames * axes / replay_s / 1e6, 2),
+        "replay_x_real_time": round(frames / replay_s / profile["sample_rate_hz"]),
+        "replay_windows": int(res.summary["total"]["windows"]),
+    }
+
+
+TARGETS = {
+    "mpy_loop_equiv_per_sample": ("<=", 10),
+    "core_heap_bytes": ("<=", 16384),
+    "allocs_per_window": ("==", 0),
+    "host_msamples_per_s": (">=", 5),
+    "host_vs_numpy_rfft_ratio": ("<=", 20),
+    "replay_msamples_per_s": (">=", 4),
+}
+
+
+def met(figures: dict) -> dict:
+    ops = {"<=": lambda a, b: a <= b, ">=": lambda a, b: a >= b, "==": lambda a, b: a == b}
+    return {k: ops[op](figures[k], v) for k, (op, v) in TARGETS.items() if k in figures}
