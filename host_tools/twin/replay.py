@@ -51,7 +51,12 @@ from host_tools.data.recording import Recording, read_stream
 
 _CHUNK_WINDOWS = 512   # windows per call of the feature twin: keeps its temporaries in cache (measured fastest)
 _FIELD_NAMES = {fi.F_MEAN: "mean", fi.F_RMS: "accel_rms", fi.F_PEAK: "peak", fi.F_CREST: "crest",
-                fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms"}
+                fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms",
+                fi.F_STUCK: "stuck_run", fi.F_ZERO: "zero_run", fi.F_SPEED: "speed",
+                fi.F_SPEED_CONF: "speed_confidence", fi.F_ORD_HALF: "order_0.5x", fi.F_ORD_1X: "order_1x",
+                fi.F_ORD_2X: "order_2x", fi.F_ORD_3X: "order_3x", fi.F_ORD_VANE: "vane_pass",
+                fi.F_ENV_BPFO: "envelope_bpfo", fi.F_ENV_BPFI: "envelope_bpfi", fi.F_ENV_BSF: "envelope_bsf",
+                fi.F_ENV_FTF: "envelope_ftf"}
 
 
 # --- set-up from a parameter set ----------------------------------------------------------------
