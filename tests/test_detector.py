@@ -67,7 +67,7 @@ def events(det):
         i = e.pop()
         if i < 0:
             return out
-        out.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score[i]))
+        out.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score_q8[i]))
 
 
 def running(det, **kw):
@@ -98,7 +98,7 @@ def test_gaussian_tail_three_spreads():
     for i, v in enumerate(x.tolist()):
         f[fi.F_BAND0] = v
         det.step(f, i, 0)
-        over += det.score >= 3 * 256
+        over += det.score_q8 >= 3 * 256
     p = 2 * stats.norm.sf(2.995)
     assert abs(over - n * p) <= 3 * np.sqrt(n * p * (1 - p))
     assert 2 * stats.norm.sf(3) == pytest.approx(0.0027, abs=5e-5)   # the table value itself
@@ -128,7 +128,7 @@ def _gauss_scores(d, n, zlam_q8, seed):
     for i, row in enumerate(x.tolist()):
         f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", row)
         det.step(f, i, 0)
-        out[i] = det.score
+        out[i] = det.score_q8
     return out
 
 
@@ -181,7 +181,7 @@ def test_nearest_mode_without_operating_points_and_driving_feature():
     det.step(f, 0, 0)
     assert det.mode == 1
     expect = np.hypot((5.2 - 5) / 0.5, (4.6 - 5) / 2)
-    assert abs(det.score / 256 - expect) < 0.02
+    assert abs(det.score_q8 / 256 - expect) < 0.02
     assert det.feat == b0            # (0.2 / 0.5) beats (0.4 / 2)
     f[b0], f[b1] = 10, 150
     det.step(f, 1, 0)
@@ -204,7 +204,7 @@ def test_the_operating_point_chooses_the_mode_not_the_health_features():
     # a window that looks exactly like mode 1 (5 spreads) while running at mode 0's speed is
     # scored against mode 0: 5 spreads over, not 0 from the nearest mode
     run(det, [5], speed=25, conf=200)
-    assert det.mode == 0 and det.score == 5 * 256
+    assert det.mode == 0 and det.score_q8 == 5 * 256
     det2 = running(Detector(op_params()), speed=15, conf=200, score=5)
     run(det2, [5], speed=15, conf=200)
     assert det2.mode == 1 and det2.score == 0
@@ -214,7 +214,7 @@ def test_off_point_is_not_scored_never_alerts_and_the_guard_still_acts():
     det = running(Detector(op_params()), speed=25, conf=200)
     # 20 Hz lies in no mode: not scored, state unscored after the hold-off, however high
     states = run(det, [9] * 8, speed=20, conf=200)
-    assert set(states) == {US} and det.why == dt.W_OFF_POINT and det.score == 0
+    assert set(states) == {US} and det.why == dt.W_OFF_POINT and det.score_q8 == 0
     assert det.n_why[dt.W_OFF_POINT] == 8
     assert events(det) == [(0, N, US, al.R_UNKNOWN_POINT, -1, -1, 0)]
     # the ISO guard still raises on it (zone C, 3.0 mm/s, group 2 rigid from memory)
@@ -236,7 +236,7 @@ def test_speed_change_and_run_down_are_not_scored():
     st = [det.step(win(9, speed=s, conf=200), i, 0) for i, s in enumerate(up)]
     # the span of 4 holds only 25 Hz from the 12th window on; 3 steady windows later, scored
     assert st[:13] == [ID] * 13 and st[13] == N
-    assert det.n_why[dt.W_UNSTEADY] > 0 and det.score == 9 * 256
+    assert det.n_why[dt.W_UNSTEADY] > 0 and det.score_q8 == 9 * 256
     # run-down: speed falling window by window, the level too: not scored, never raises
     det2 = running(Detector(p), speed=25, conf=200)
     down = [24, 22, 20, 18, 16, 14, 12]
@@ -361,11 +361,11 @@ def test_idle_follows_the_largest_axis_velocity_not_the_acceleration():
             f[a * PA + fi.F_VEL] = v
         return det.step(f, 0, 0)
     # acceleration near a MEMS sensor's noise (0.4 counts r.m.s.), velocity of a running pump
-    assert step(VEL_PER_MM_S, 0, 100) == N and det.bb == VEL_PER_MM_S
+    assert step(VEL_PER_MM_S, 0, 100) == N and det.bb_vel_q16 == VEL_PER_MM_S
     # strong acceleration (4000 counts r.m.s.), velocity under the floor on both axes: stopped
-    assert step(IDLE - 1, IDLE - 2, 4000 << 8) == ID and det.bb == IDLE - 1
+    assert step(IDLE - 1, IDLE - 2, 4000 << 8) == ID and det.bb_vel_q16 == IDLE - 1
     # the floor itself counts as running, on whichever axis reaches it
-    assert step(0, IDLE, 100) == N and det.bb == IDLE
+    assert step(0, IDLE, 100) == N and det.bb_vel_q16 == IDLE
     # the default: 0.05 mm/s in F_VEL units of the calibration given, to the unit
     assert abs(default_params(1, 1, VEL_PER_MM_S)["det_idle_vel_q16"] - 0.05 * VEL_PER_MM_S) < 1
 
@@ -467,7 +467,7 @@ def test_fixed_point_score_against_a_float_reference():
         t = (z - c / 256) / (s / 256)
         dist = np.sqrt((t ** 2).sum(1))
         ref = dist.min()
-        assert abs(det.score / 256 - ref) <= 0.02 * np.sqrt(d) + d / 256 / max(ref, 1)
+        assert abs(det.score_q8 / 256 - ref) <= 0.02 * np.sqrt(d) + d / 256 / max(ref, 1)
         assert dist[det.mode] <= ref + 0.04 * np.sqrt(d)   # nearest, up to a near tie
         # the per-feature channel of the chosen mode: its largest |t|, to the same budget
-        assert abs(det.zmax / 256 - np.abs(t[det.mode]).max()) <= 0.02 + 1 / 64
+        assert abs(det.zmax_q8 / 256 - np.abs(t[det.mode]).max()) <= 0.02 + 1 / 64

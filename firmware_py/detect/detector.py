@@ -22,17 +22,17 @@ API
         feats   array('i') laid out as firmware_py.dsp.feature_index (axes x per_axis(n_bands))
         t_s     int, seconds (any epoch, < 2**30); only copied into events
         dropped samples dropped since the previous window
-      after it: det.state; det.score (combined score, Q8 spreads, 0 when not scored), det.dist
-      and det.zmax (its two channels, Q8 spreads); det.mode (-1 none); det.feat (flat feature
+      after it: det.state; det.score_q8 (combined score, Q8 spreads, 0 when not scored), det.dist_q8
+      and det.zmax_q8 (its two channels, Q8 spreads); det.mode (-1 none); det.feat (flat feature
       index that drove the score, the guard or the fault, -1 none); det.zone (ISO zone 0..3 =
-      A..D); det.bb (largest axis F_VEL, counts/s Q16); det.why (W_* below: why not scored, 0
+      A..D); det.bb_vel_q16 (largest axis F_VEL, counts/s Q16); det.why (W_* below: why not scored, 0
       scored) and det.n_why (count per W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8),
       det.load_q8 (log2 Q8): the operating point; det.pushed (1 if the window added to the
       persistence evidence) and det.resets (times that evidence was forgotten).
     det.ack(t_s)       acknowledge a latched alarm; det.learn(t_s) start learning (False if
                        refused: alarm latched or sensor fault); det.stop_learning(t_s) abandon it
     det.events         EventRing (firmware_py/detect/event_ring.py): i = det.events.pop() -> slot or -1;
-                       read det.events.t[i], old[i], new[i], reason[i], mode[i], feat[i], score[i]
+                       read det.events.t[i], old[i], new[i], reason[i], mode[i], feat[i], score_q8[i]
     det.export()       the learned model as parameter keys (allocates; not for the window path)
     States and reasons: firmware_py/detect/alarm.py (STATE_NAMES, REASON_NAMES).
 """
@@ -264,7 +264,7 @@ class Detector:
         self.alarm = Alarm(span, kw if kw > 0 else 1,
                            windows_for(_int(p, "det_escalate_ms", 0, _BIG), n, fs, every),
                            windows_for(_int(p, "det_dwell_ms", 0, _BIG), n, fs, every))
-        self.idle_floor_q16 = _int(p, "det_idle_vel_q16", 0, _BIG)
+        self.idle_vel_q16 = _int(p, "det_idle_vel_q16", 0, _BIG)
         self.hold_w = windows_for(_int(p, "det_hold_ms", 0, _BIG), n, fs, every)
         self.hold_max_w = windows_for(_int(p, "det_hold_max_ms", 0, _BIG), n, fs, every)
         m = windows_for(_int(p, "det_steady_ms", 0, _BIG), n, fs, every)
@@ -308,7 +308,7 @@ class Detector:
         self.phase = 0
         self.seen = 0                             # windows learned in this phase
         self.ck = 0                               # modes opened so far in phase 2
-        self.min_bb = _BIG
+        self.min_bb_vel_q16 = _BIG
         self.fault_bad = 0
         self.fault_good = 0
         self.fault = False
@@ -322,13 +322,13 @@ class Detector:
         self.off_reason = 0
         self.state = al.IDLE
         self.t = 0
-        self.score = 0                            # combined score, Q8 spreads (0 when not scored)
-        self.dist = 0                             # distance to the mode, Q8 spreads
-        self.zmax = 0                             # largest single-feature |z|, Q8 spreads
+        self.score_q8 = 0                            # combined score, Q8 spreads (0 when not scored)
+        self.dist_q8 = 0                             # distance to the mode, Q8 spreads
+        self.zmax_q8 = 0                             # largest single-feature |z|, Q8 spreads
         self.mode = -1
         self.feat = -1
         self.zone = 0
-        self.bb = 0
+        self.bb_vel_q16 = 0
         self.why = W_IDLE
         self.pushed = 0                           # 1 when this window added to the evidence
         self.resets = 0                           # times the evidence was forgotten (saturates)
@@ -366,7 +366,7 @@ class Detector:
     def _set(self, new, reason):
         """Enter state new (if it differs), logging the event with this window's figures."""
         if new != self.state:
-            self.events.put(self.t, self.state, new, reason, self.mode, self.feat, self.score)
+            self.events.put(self.t, self.state, new, reason, self.mode, self.feat, self.score_q8)
             self.state = new
 
     def _base_state(self):
@@ -410,7 +410,7 @@ class Detector:
         self.phase = 0
         self.seen = 0
         self.ck = 0
-        self.min_bb = _BIG
+        self.min_bb_vel_q16 = _BIG
         self._set(al.LEARNING, al.R_LEARN_START)
         return True
 
@@ -546,9 +546,9 @@ class Detector:
     def step(self, f, t_s, dropped):
         """One window: features f, time t_s (s), dropped samples. Returns the state."""
         self.t = t_s
-        self.score = 0
-        self.dist = 0
-        self.zmax = 0
+        self.score_q8 = 0
+        self.dist_q8 = 0
+        self.zmax_q8 = 0
         self.mode = -1
         self.feat = -1
         self.pushed = 0
@@ -588,8 +588,8 @@ class Detector:
             if f[a * pa + fi.F_VEL] > vel:
                 vel = f[a * pa + fi.F_VEL]
                 vf = a * pa + fi.F_VEL
-        self.bb = vel
-        if vel < self.idle_floor_q16:
+        self.bb_vel_q16 = vel
+        if vel < self.idle_vel_q16:
             self._count(W_IDLE)
             self.running = False
             self._restart()
@@ -644,7 +644,7 @@ class Detector:
             self._score(f, m)
         if self.zone >= ZONE_C:
             self.feat = vf
-        s = self.score
+        s = self.score_q8
         clr = (self.thr_alert_q8 * self.hyst_q8) >> 8
         lv = self.alarm.level
         self.alarm.update(1 if s >= self.thr_alert_q8 else 0, 1 if s >= self.thr_alarm_q8 else 0,
@@ -679,9 +679,9 @@ class Detector:
         md.standardise(self.u, self.z)
         dist = md.distance(self.z, m)
         zc = (md.zmax_q8 * self.zlam_q8) >> 8
-        self.dist = dist
-        self.zmax = md.zmax_q8
-        self.score = dist if dist >= zc else zc
+        self.dist_q8 = dist
+        self.zmax_q8 = md.zmax_q8
+        self.score_q8 = dist if dist >= zc else zc
         self.mode = m
         self.feat = self.idx[md.drive]
 
@@ -721,8 +721,8 @@ class Detector:
         if self.phase == 0:
             for j in range(d):
                 self.wb.add(j, self.u[j])
-            if self.bb < self.min_bb:
-                self.min_bb = self.bb
+            if self.bb_vel_q16 < self.min_bb_vel_q16:
+                self.min_bb_vel_q16 = self.bb_vel_q16
             self.seen += 1
             if self.seen >= self.base_n:
                 c = self.cand
@@ -818,9 +818,9 @@ class Detector:
         self.op_on = self.l_op
         self.thr_alert_q8 = (CHI_Q8[d - 1] * self.margin_q8) >> 8
         self.thr_alarm_q8 = (self.thr_alert_q8 * self.alarm_ratio_q8) >> 8
-        f = self.min_bb >> 2                      # a quarter of the quietest learned window
-        if f > self.idle_floor_q16:
-            self.idle_floor_q16 = f
+        f = self.min_bb_vel_q16 >> 2                      # a quarter of the quietest learned window
+        if f > self.idle_vel_q16:
+            self.idle_vel_q16 = f
         self.cand = self.model
         self.model = c
         for j in range(d):
@@ -841,5 +841,5 @@ class Detector:
             "det_op_speed_q8": list(self.op_speed_q8)[:2 * m.k] if op else [],
             "det_op_load_q8": list(self.op_load_q8)[:2 * m.k] if op else [],   # +-(2**30 - 1) = open
             "det_thr_alert_q8": self.thr_alert_q8, "det_thr_alarm_q8": self.thr_alarm_q8,
-            "det_idle_vel_q16": self.idle_floor_q16,
+            "det_idle_vel_q16": self.idle_vel_q16,
         }

@@ -184,7 +184,7 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     """Step `det` over the rows of feats (windows, features), window w given the clock first_w + w.
 
     The loop is the detector's own code; it only reads the results and drains the event ring.
-    Reading det.score when det.mode is -1 gives 0, as the device reports it.
+    Reading det.score_q8 when det.mode is -1 gives 0, as the device reports it.
     """
     rows = feats.tolist()
     n = len(rows)
@@ -200,7 +200,7 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     step, ring = det.step, det.events
     for i, row in enumerate(rows):
         st[i] = step(row, first_w + i, 0)
-        sc[i] = det.score
+        sc[i] = det.score_q8
         md[i] = det.mode
         ft[i] = det.feat
         wy[i] = det.why
@@ -210,7 +210,7 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
         while ring.count:
             k = ring.pop()
             ev.append((ring.t[k], ring.old[k], ring.new[k], ring.reason[k], ring.mode[k],
-                       ring.feat[k], ring.score[k]))
+                       ring.feat[k], ring.score_q8[k]))
     return Steps(st, sc, md, ft, ev, ring.lost, wy, pu, rs, sp)
 
 
