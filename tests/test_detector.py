@@ -207,7 +207,7 @@ def test_the_operating_point_chooses_the_mode_not_the_health_features():
     assert det.mode == 0 and det.score_q8 == 5 * 256
     det2 = running(Detector(op_params()), speed=15, conf=200, score=5)
     run(det2, [5], speed=15, conf=200)
-    assert det2.mode == 1 and det2.score == 0
+    assert det2.mode == 1 and det2.score_q8 == 0
 
 
 def test_off_point_is_not_scored_never_alerts_and_the_guard_still_acts():

@@ -140,15 +140,14 @@ _RUN_DEFAULT = const(44)
 
 
 def default_feature_list(axes, n_bands):
-    """Scored features by default: per axis the magnitudes (r.m.s., peak, crest, kurtosis,
-    velocity), the order lines and envelope lines, and the band powers. Not scored: the mean and
-    clip count (sensor checks), the run lengths (sensor checks), speed and its confidence
-    (operating point, never health)."""
+    """Scored features by default: every field of every axis but the mean, the clip count and the
+    sensor-run, speed, order and envelope fields (F_STUCK .. F_ENV_FTF), which a trained set
+    chooses for itself."""
     pa = fi.per_axis(n_bands)
     out = []
     for a in range(axes):
         for f in range(pa):
-            if is_log_field(f) or f >= fi.F_ORD_HALF:
+            if f != fi.F_MEAN and f != fi.F_CLIP and not fi.F_STUCK <= f <= fi.F_ENV_FTF:
                 out.append(a * pa + f)
     return out
 

@@ -12,7 +12,8 @@
 #   (Z[k] + conj Z[m-k])/2 and (Z[k] - conj Z[m-k])/2, halved before the twiddle product for the
 #   same bound. Result: X[k] = DFT(x)[k] / m for k = 0..m, |X| <= 2**14 (the window sum bound).
 #   Power p[k] = re**2 + im**2 <= 2**28, and by Parseval sum(p) <= 1.5 * 2**28 < 2**30, so sums of
-#   any band of p never overflow.
+#   any band of p never overflow. spectrum leaves X itself in buf (packed real-FFT layout), which
+#   the envelope stage reads.
 # Floor shifts bias each stage by at most -1/2 LSB; that error is what the tests' tolerance derives from.
 
 
@@ -131,7 +132,11 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
     sum over k of |X[k] * w[k] / 2**15|**2 with w[k] = vmant[k] * 2**-(vsh2[k]/2) (the weighted
     power behind velocity r.m.s., tables.velocity_weights): each component is scaled by the
     mantissa (Q15, >= 2**14, so it keeps its precision), squared, then shifted right by vsh2[k].
-    The sum is < 2**30 like sum(p), since w < 2**15. Reads buf, does not change it.
+    The sum is < 2**30 like sum(p), since w < 2**15.
+
+    Overwrites buf with the spectrum X itself, in the packed real-FFT layout: X[k] for k = 1..m-1
+    at buf[2k] (re) and buf[2k+1] (im); buf[0] = X[0] and buf[1] = X[m] (both real). Each value
+    read from buf is consumed before its slot is written (k and m-k are done together).
     """
     zr = buf[0]
     zi = buf[1]
@@ -139,6 +144,8 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
     xm = zr - zi                      # Nyquist: Re Z0 - Im Z0
     p[0] = x0 * x0
     p[m] = xm * xm
+    buf[0] = x0
+    buf[1] = xm
     v = (xm * vmant[m]) >> 15
     vs = (v * v) >> vsh2[m]
     hm = m >> 1
@@ -159,13 +166,17 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
         ti = (wr * oi - wi * orr) >> 15
         xr = er + ti                            # X[k] = E - jT
         xi = ei - tr
+        buf[i] = xr
+        buf[i + 1] = xi
         p[k] = xr * xr + xi * xi
         g = vmant[k]
         vr = (xr * g) >> 15
         vi = (xi * g) >> 15
         vs += (vr * vr + vi * vi) >> vsh2[k]
-        xr = er - ti                            # X[m-k] = conj(E + jT); sign is lost in power
+        xr = er - ti                            # X[m-k] = conj(E + jT): (xr, -xi)
         xi = ei + tr
+        buf[q] = xr
+        buf[q + 1] = -xi
         p[m - k] = xr * xr + xi * xi
         g = vmant[m - k]
         vr = (xr * g) >> 15
@@ -174,6 +185,7 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
     # k = m/2 pairs with itself: W = -j, so X = conj Z[m/2]
     ar = buf[m]
     ai = buf[m + 1]
+    buf[m + 1] = -ai
     p[hm] = ar * ar + ai * ai
     g = vmant[hm]
     vr = (ar * g) >> 15
