@@ -92,9 +92,9 @@ class FeatureCore:
         self.per = per_axis(self.n_bands)
         self.feats = array.array('i', bytes(4 * axes * self.per))
         self.speed = speed.SpeedEstimator(n, fs_hz, speed_lo_q8, speed_hi_q8, self.p)
-        self.orders = orders.OrderReader(vane, self.p, self.log2_t)
-        self.env = envelope.Envelope(n, env_band, bear_q12, self.hann, self.pos, self.tw,
-                                     self.log2_t)
+        self.orders = orders.OrderReader(vane, self.p, self.log2_q15)
+        self.env = envelope.Envelope(n, env_band, bear_q12, self.hann_q15, self.pos, self.tw_q15,
+                                     self.log2_q15)
         self.windows = 0
 
     def step(self):
@@ -180,7 +180,7 @@ class FeatureCore:
         vs = fft.spectrum(buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p)
         self._finish(off, pk, u, g, sh, sq, s4, vs)
         f1 = self.speed.run(f, off)
-        self.orders.run(f1, self.log2_4_3 - 512 * u, f, off)
+        self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
         self.env.run(buf, f1, f, off)
 
     def _finish(self, off, pk, u, g, sh, sq, s4, vs):

@@ -75,7 +75,7 @@ class FeatureTwin:
             self.reach = (((self.c_lo + 2) >> 2) - 3, ((3 * self.c_hi + 2) >> 2) + 4)
         # envelope.Envelope's set-up
         self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4
-        h = self.hann[0::2].astype(np.int64) >> 1
+        h = self.hann_q15[0::2].astype(np.int64) >> 1
         self.w2 = (h * h) >> 14
         self.w2sum = int(self.w2.sum())
         self.env_c_ms = 2048 - log2_q8(35, tables.log2_table())
@@ -155,7 +155,7 @@ class FeatureTwin:
         p, vs, xr, xi = self._spectrum(re, im)
         self._finish(f, pk, u, g.astype(np.int64), sh.astype(np.int64), sq, s4, vs, p)
         f1 = self._speed(p, f)
-        self._orders(p, f1, self.log2_4_3 - 512 * u, f)
+        self._orders(p, f1, self.log2_4_3_q8 - 512 * u, f)
         self._envelope(xr, xi, f1, f)
         # a flat window: no spectrum, zero features (features._flat)
         dead = ~live
@@ -313,7 +313,7 @@ class FeatureTwin:
                 continue
             k = np.where(live, x >> 8, 1)
             s = p[rows, k - 1] + p[rows, k] + p[rows, k + 1] + p[rows, k + 2]
-            f[:, field] = np.where(live & (s > 0), _log2_q8(np.maximum(s, 1), self.log2_t) + c,
+            f[:, field] = np.where(live & (s > 0), _log2_q8(np.maximum(s, 1), self.log2_q15) + c,
                                    LOG2_ZERO_Q8)
 
     def _envelope(self, xr, xi, f1, f):
@@ -348,7 +348,7 @@ class FeatureTwin:
         Dr, Di = self._cfft(dr.astype(np.int32), np.zeros_like(dr, dtype=np.int32))
         pe = Dr.astype(np.int64) ** 2 + Di.astype(np.int64) ** 2
         live = (f1 > 0) & (mx > 0) & (top > 0) & (eq > 0)
-        c = self.env_c_ms - 2 * _log2_q8(np.maximum(eq, 1), self.log2_t)
+        c = self.env_c_ms - 2 * _log2_q8(np.maximum(eq, 1), self.log2_q15)
         rows = np.arange(wn)[:, None]
         for j, o in enumerate(self.cfg.bear_q12):
             x = (f1 * o) >> 12
@@ -357,7 +357,7 @@ class FeatureTwin:
             inside = ks <= ((x >> 8) + 3)[:, None]
             sl = (pe[rows, np.minimum(ks, m - 1)] * inside).sum(axis=1)
             f[:, F_ENV_BPFO + j] = np.where(live & (sl > 0),
-                                            _log2_q8(np.maximum(sl, 1), self.log2_t) + c,
+                                            _log2_q8(np.maximum(sl, 1), self.log2_q15) + c,
                                             LOG2_ZERO_Q8)
 
 
