@@ -234,8 +234,9 @@ def test_speed_change_and_run_down_are_not_scored():
     # start: idle through the run-up (speed rising 2 Hz per window), then steady for the hold
     up = [10, 12, 14, 16, 18, 20, 22, 24, 25, 25, 25, 25, 25, 25, 25]
     st = [det.step(win(9, speed=s, conf=200), i, 0) for i, s in enumerate(up)]
-    # the span of 4 holds only 25 Hz from the 12th window on; 3 steady windows later, scored
-    assert st[:13] == [ID] * 13 and st[13] == N
+    # steady when the medians of the span's halves agree: [24, 25 | 25, 25] at the 11th window
+    # (the upper median of two is the larger); 3 steady windows later, scored
+    assert st[:12] == [ID] * 12 and st[12] == N
     assert det.n_why[dt.W_UNSTEADY] > 0 and det.score_q8 == 9 * 256
     # run-down: speed falling window by window, the level too: not scored, never raises
     det2 = running(Detector(p), speed=25, conf=200)

@@ -300,6 +300,7 @@ class Detector:
         self.l_op = False                         # learning modes by operating point
         self.ring_speed_q8 = array("i", bytes(4 * _STEADY_MAX))   # Hz Q8, 0 = no estimate
         self.ring_level_q8 = array("i", bytes(4 * _STEADY_MAX))   # log2 of F_VEL, Q8
+        self.sort_q8 = array("i", bytes(4 * _STEADY_MAX))         # scratch for medians, Hz Q8
         self.ring_i = 0
         self.ring_n = 0
         self.n_why = array("i", bytes(4 * len(WHY_NAMES)))
@@ -488,9 +489,13 @@ class Detector:
 
     def _steadiness(self, level_q8):
         """Push this window's speed and level into the steadiness span; W_SCORED (0) if the
-        machine runs steadily, else why not: W_NO_SPEED, W_RUNDOWN (speed or level falling by
-        more than the tolerance across the span) or W_UNSTEADY (speed spread over the tolerance,
-        or the span not yet full). Without operating points only the level is judged."""
+        machine runs steadily, else why not: W_NO_SPEED (under half the span has a confident
+        speed estimate), W_RUNDOWN (the newer half's median speed under the older half's by
+        more than the tolerance, or the level fallen by more than its tolerance across the span)
+        or W_UNSTEADY (the halves' medians apart by more than the tolerance, or the span not yet
+        full). Medians, not extremes: a single window's estimate can miss by a bin, and the median
+        of a span ignores such misses. Sets speed_q8 to the span's median (the operating point).
+        Without operating points only the level is judged."""
         i = self.ring_i
         sp = self.speed_q8 if self.conf_q8 >= self.conf_min_q8 else 0
         self.ring_speed_q8[i] = sp
@@ -507,22 +512,41 @@ class Detector:
             return W_RUNDOWN
         if not self.op_on:
             return W_SCORED
-        if sp == 0:
+        h = m >> 1
+        mid = self._median(oldest, m)
+        self.speed_q8 = mid
+        if mid == 0:
             return W_NO_SPEED
-        lo = sp
-        hi = sp
-        for j in range(m):
-            v = self.ring_speed_q8[j]
-            if v == 0:
-                return W_NO_SPEED
-            if v < lo:
-                lo = v
-            if v > hi:
-                hi = v
-        if hi - lo > (self.speed_tol_q12 * hi) >> 12:
-            o = self.ring_speed_q8[oldest]
-            return W_RUNDOWN if o - sp > (self.speed_tol_q12 * o) >> 12 else W_UNSTEADY
+        if h == 0:
+            return W_SCORED
+        old = self._median(oldest, h)
+        new = self._median(oldest + h, m - h)
+        tol = (self.speed_tol_q12 * mid) >> 12
+        if old - new > tol:
+            return W_RUNDOWN
+        if new - old > tol or old == 0 or new == 0:
+            return W_UNSTEADY
         return W_SCORED
+
+    def _median(self, first, count):
+        """Median of the confident speeds (Hz Q8) in count ring slots from first (modulo the span),
+        0 if fewer than half of them are confident. Insertion sort into a scratch array: count
+        <= 32, allocation-free."""
+        t = self.sort_q8
+        m = self.steady_m
+        k = 0
+        for j in range(count):
+            v = self.ring_speed_q8[(first + j) % m]
+            if v > 0:
+                i = k
+                while i > 0 and t[i - 1] > v:
+                    t[i] = t[i - 1]
+                    i -= 1
+                t[i] = v
+                k += 1
+        if 2 * k < count or k == 0:
+            return 0
+        return t[k >> 1]
 
     def _choose_mode(self):
         """The trained mode whose operating-point range holds this window's speed and load
