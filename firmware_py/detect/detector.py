@@ -128,6 +128,7 @@ W_NO_MODEL = const(9)      # no trained model (ISO guard only)
 WHY_NAMES = ("scored", "idle", "hold", "unsteady", "rundown", "no_speed", "off_point",
              "sensor_fault", "learning", "no_model")
 _STEADY_MAX = const(32)    # most windows in the steadiness span
+_SPEED_MAX = const(1 << 17)  # speeds are taken as at most 512 Hz (Q8): tol_q12 * speed < 2**29
 # Longest healthy run of identical samples before training has measured the sensor. A run of L
 # identical samples takes L - 1 coincidences in a row; if each happens with probability q, a
 # window of n samples holds such a run with probability at most n q**(L - 1). For white Gaussian
@@ -347,7 +348,7 @@ class Detector:
             return False
         v = _ints(p, "det_op_speed_q8", 2 * k)
         for i in range(2 * k):
-            self.op_speed_q8[i] = v[i]
+            self.op_speed_q8[i] = clamp(v[i], _SPEED_MAX)   # so centres and gaps stay small ints
         if len(ld):
             v = _ints(p, "det_op_load_q8", 2 * k)
             for i in range(2 * k):
@@ -479,9 +480,10 @@ class Detector:
         self.op_axis = best
         b = best * pa
         sp = f[b + fi.F_SPEED]
+        sp = sp if sp < _SPEED_MAX else _SPEED_MAX
         self.speed_q8 = sp if sp > 0 and conf >= 0 else 0
         self.conf_q8 = conf if conf > 0 else 0
-        v = f[b + fi.F_ORD_VANE]
+        v = clamp(f[b + fi.F_ORD_VANE], 1 << 28)
         if sp > 0 and v > fi.LOG2_ZERO_Q8:
             self.load_q8 = v - 4 * log2_q8(sp, self.tab)
         else:
@@ -559,7 +561,7 @@ class Detector:
             lo = self.op_speed_q8[2 * m]
             hi = self.op_speed_q8[2 * m + 1]
             if lo <= sp <= hi and self.op_load_q8[2 * m] <= ld <= self.op_load_q8[2 * m + 1]:
-                g = sp - ((lo + hi) >> 1)
+                g = sp - (lo >> 1) - (hi >> 1)
                 g = g if g >= 0 else -g
                 if g < gap:
                     gap = g
