@@ -1,11 +1,11 @@
-# Detector states, event reasons, and the alert/alarm logic in running time: raise an alert when
-# at least k of the last L evaluated windows are over the alert threshold (L and k from seconds
-# and a fraction, so the rule means the same on any board), escalate to an alarm only after the
-# alert has persisted, clear with hysteresis and a minimum dwell, latch an alarm until it is
-# acknowledged.
-#
-# Entry points: Evidence (the span of per-window flags), Alarm (the level), windows_for (seconds
-# to windows). Allocation-free after construction.
+"""Detector states, event reasons, and the alert/alarm logic in running time: raise an alert when
+at least k of the last L evaluated windows are over the alert threshold (L and k from seconds
+and a fraction, so the rule means the same on any board), escalate to an alarm only after the
+alert has persisted, clear with hysteresis and a minimum dwell, latch an alarm until it is
+acknowledged. Allocation-free after construction.
+
+Entry points: windows_for() (time to analysed windows), Evidence (the span of per-window flags),
+Alarm (the level)."""
 from micropython import const
 from firmware_py.detect.iso_zones import ZONE_C, ZONE_D
 
