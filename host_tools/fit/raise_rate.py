@@ -36,6 +36,9 @@ The extremal index of S above u (Ferro and Segers, "Inference for clusters of ex
 JRSS B 65, 2003, intervals estimator) is reported beside the cluster count as a check: N_c is close
 to theta * (number of exceedances).
 
+Entry points: fit() (the cluster tail from held-out sequences), promise() (threshold and stated
+rate for a target), raise_statistic(), clusters(), extremal_index().
+
 edgevib is advisory condition monitoring, not machinery protection: a stated rate is a statistical
 estimate from the training data, not a guarantee.
 """
