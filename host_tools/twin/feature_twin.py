@@ -72,6 +72,8 @@ class FeatureTwin:
         if self.speed_on:
             self.c_lo = speed.bins_q2(cfg.speed_lo_q8, n, cfg.fs_hz, True)
             self.c_hi = speed.bins_q2(cfg.speed_hi_q8, n, cfg.fs_hz, False)
+            self.b_lo = speed.bins_q(cfg.speed_lo_q8, n, cfg.fs_hz, 8, True)
+            self.b_hi = speed.bins_q(cfg.speed_hi_q8, n, cfg.fs_hz, 8, False)
             self.reach = (((self.c_lo + 2) >> 2) - 3, ((3 * self.c_hi + 2) >> 2) + 4)
         # envelope.Envelope's set-up
         self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4
@@ -266,9 +268,11 @@ class FeatureTwin:
         p = p.astype(np.int64)
         c = np.arange(self.c_lo, self.c_hi + 1)
         s = np.zeros((wn, c.size), dtype=np.int64)
-        for h in (1, 2, 3):
+        for h in (2, 3):
             j = (h * c + 2) >> 2
             s += p[:, j - 1] + p[:, j] + p[:, j + 1]
+        j = (c + 2) >> 2
+        s = (s >> 1) + p[:, j - 1] + p[:, j] + p[:, j + 1]
         best = s.max(axis=1)
         cb = c[s.argmax(axis=1)]                    # first largest, as the device's strict >
         fq, pw = [], []
@@ -286,12 +290,16 @@ class FeatureTwin:
             a1 = _sqrt_pow2(np.where(hi >= lo, hi, lo), e)
             d = ((((2 * a1 - a0) << 9) // np.maximum(a1 + a0, 1)) + 1) >> 1
             fq.append(np.where(top == 0, k << 8, np.where(hi >= lo, (k << 8) + d, (k << 8) - d)))
-        top = np.maximum(np.maximum(pw[0], pw[1]), pw[2])
+        hs = np.where(pw[1] > pw[0], 2, 1)
+        hs = np.where(pw[2] > np.choose(hs - 1, pw), 3, hs)
+        top = np.choose(hs - 1, pw)
+        fs = np.choose(hs - 1, fq)
         sh = np.maximum(_msb(np.maximum(top, 1)) - 7, 0)
-        w1, w2, w3 = pw[0] >> sh, pw[1] >> sh, pw[2] >> sh
+        w1, w2, w3 = ((pw[h - 1] >> sh) * (np.abs(hs * fq[h - 1] - h * fs) <= 128 * hs)
+                      for h in (1, 2, 3))
         den = np.maximum(w1 + 4 * w2 + 9 * w3, 1)
         f1 = (w1 * fq[0] + 2 * w2 * fq[1] + 3 * w3 * fq[2] + (den >> 1)) // den
-        f1 = np.clip(f1, self.c_lo << 6, self.c_hi << 6)
+        f1 = np.clip(f1, self.b_lo, self.b_hi)
         fam = pw[0] + pw[1] + pw[2]
         tot = p[:, self.reach[0]:self.reach[1]].sum(axis=1)
         conf = np.where(tot > 0, (fam << 8) // np.maximum(tot, 1), 0)
