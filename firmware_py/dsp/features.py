@@ -47,11 +47,7 @@ def footprint_bytes(n, axes, ring_windows, n_bands):
     them. Used by board profiles to check the heap budget."""
     m = n >> 1
     tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * 257 + 3 * (m + 1)   # trig, hann, pos, log2, vel
-    tw_b = 0                                                             # radix-4 twiddles
-    h = 2 if fft._odd_log2(m) else 1
-    while h < m:
-        tw_b += 4 * 6 * h
-        h *= 4
+    tw_b = fft.twiddle_bytes(m)                                          # radix-4 twiddles
     work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
     return (_ring_bytes(axes, n, ring_windows) + tables_b + tw_b + work_b
             + envelope.buffer_bytes(n))
@@ -93,8 +89,8 @@ class FeatureCore:
         self.feats = array.array('i', bytes(4 * axes * self.per))
         self.speed = speed.SpeedEstimator(n, fs_hz, speed_lo_q8, speed_hi_q8, self.p)
         self.orders = orders.OrderReader(vane, self.p, self.log2_t)
-        self.env = envelope.Envelope(n, env_band, bear_q12, self.hann, self.pos, self.tw,
-                                     self.log2_t)
+        self.env = envelope.Envelope(n, fs_hz, env_band, bear_q12, speed_hi_q8, self.hann,
+                                     self.pos, self.tw, self.cos_t, self.sin_t, self.log2_t)
         self.windows = 0
 
     def step(self):

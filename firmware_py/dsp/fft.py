@@ -41,6 +41,16 @@ def radix4_twiddles(m, cos_t, sin_t):
     return _array_i(tw)
 
 
+def twiddle_bytes(m):
+    """Bytes of radix4_twiddles(m, ...): six ints per j of every radix-4 stage."""
+    b = 0
+    h = 2 if _odd_log2(m) else 1
+    while h < m:
+        b += 4 * 6 * h
+        h *= 4
+    return b
+
+
 def _array_i(values):
     import array
     return array.array('i', values)

@@ -64,7 +64,7 @@ class FeatureTwin:
         vm, vs, self.vel_exp = tables.velocity_weights(n, cfg.fs_hz, cfg.vel_lo_hz, cfg.vel_hi_hz)
         self.vmant = np.array(vm, dtype=np.int32)
         self.vsh2 = np.array(vs, dtype=np.int32)
-        self.stages = self._stage_twiddles(fft.radix4_twiddles(self.m, cos_t, sin_t))
+        self.stages = self._stage_twiddles(fft.radix4_twiddles(self.m, cos_t, sin_t), self.m)
         self.log2_4_3 = 512 - log2_q8(3, tables.log2_table())
         self.per = per_axis(len(cfg.bands))
         # speed.SpeedEstimator's range, quarter bins, and the bins its confidence sums
@@ -75,23 +75,31 @@ class FeatureTwin:
             self.b_lo = speed.bins_q(cfg.speed_lo_q8, n, cfg.fs_hz, 8, True)
             self.b_hi = speed.bins_q(cfg.speed_hi_q8, n, cfg.fs_hz, 8, False)
             self.reach = (((self.c_lo + 2) >> 2) - 3, ((3 * self.c_hi + 2) >> 2) + 4)
-        # envelope.Envelope's set-up
-        self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4
-        h = self.hann[0::2].astype(np.int64) >> 1
-        self.w2 = (h * h) >> 14
-        self.w2sum = int(self.w2.sum())
-        self.env_c_ms = 2048 - log2_q8(35, tables.log2_table())
-        self.cpos = self.pos[0::2] // 2          # bit-reversed slot of complex point c
+        # envelope.Envelope's set-up: M points, the window and bit-reversed slots at a stride
+        self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4 and cfg.speed_hi_q8 > 0
+        if self.env_on:
+            mz = envelope.points(n, cfg.fs_hz, cfg.env_band, cfg.bear_q12, cfg.speed_hi_q8)
+            st = self.m // mz
+            tw = fft.radix4_twiddles(mz, [cos_t[k * st] for k in range(mz + 1)],
+                                     [sin_t[k * st] for k in range(mz + 1)])
+            self.env_mz = mz
+            self.env_stages = self._stage_twiddles(tw, mz)
+            h = self.hann[:: n // mz].astype(np.int64) >> 1
+            self.w2 = (h * h) >> 14
+            self.w2sum = int(self.w2.sum())
+            self.cpos = self.pos[:: 2 * st] // 2          # bit-reversed slot of complex point c
+            self.env_c_ms = 2048 - log2_q8(35, tables.log2_table())
 
     # --- set-up -------------------------------------------------------------------------------
 
-    def _stage_twiddles(self, tw):
-        """Split fft.radix4_twiddles' flat table into (h, w2, w1, w3) per stage, each w an
-        (cos, sin) pair of int32 arrays over j = 0..h-1."""
+    @staticmethod
+    def _stage_twiddles(tw, m):
+        """Split fft.radix4_twiddles' flat table for an m-point cfft into (h, w2, w1, w3) per
+        stage, each w an (cos, sin) pair of int32 arrays over j = 0..h-1."""
         tw = np.array(tw, dtype=np.int32).reshape(-1, 6)
         out, t = [], 0
-        h = 2 if fft._odd_log2(self.m) else 1
-        while h < self.m:
+        h = 2 if fft._odd_log2(m) else 1
+        while h < m:
             rows = tw[t:t + h]
             t += h
             out.append((h, (rows[:, 0], rows[:, 1]), (rows[:, 2], rows[:, 3]), (rows[:, 4], rows[:, 5])))
@@ -173,15 +181,16 @@ class FeatureTwin:
             p[dead] = 0
         return p
 
-    def _cfft(self, re, im):
-        """fft.cfft over all windows: re, im (windows, m) in bit-reversed order."""
+    def _cfft(self, re, im, stages=None):
+        """fft.cfft over all windows: re, im (windows, m) in bit-reversed order; stages from
+        _stage_twiddles for that m (the window's own m-point FFT by default)."""
         wn, m = re.shape
         if fft._odd_log2(m):
             r2, i2 = re.reshape(wn, m // 2, 2), im.reshape(wn, m // 2, 2)
             ur, ui, xr, xi = r2[:, :, 0], i2[:, :, 0], r2[:, :, 1], i2[:, :, 1]
             re = np.stack(((ur + xr) >> 1, (ur - xr) >> 1), axis=2).reshape(wn, m)
             im = np.stack(((ui + xi) >> 1, (ui - xi) >> 1), axis=2).reshape(wn, m)
-        for h, (w2r, w2i), (w1r, w1i), (w3r, w3i) in self.stages:
+        for h, (w2r, w2i), (w1r, w1i), (w3r, w3i) in (self.stages if stages is None else stages):
             r4 = re.reshape(wn, m // (4 * h), 4, h)
             i4 = im.reshape(wn, m // (4 * h), 4, h)
             xr, xi = r4[:, :, 1], i4[:, :, 1]
@@ -330,7 +339,7 @@ class FeatureTwin:
         f[:, fields] = LOG2_ZERO_Q8
         if not self.env_on:
             return
-        m = self.m
+        m = self.env_mz
         lo, hi = self.cfg.env_band
         br, bi = xr[:, lo:hi].astype(np.int64), xi[:, lo:hi].astype(np.int64)
         mx = np.maximum(np.abs(br).max(axis=1), np.abs(bi).max(axis=1))
@@ -343,7 +352,7 @@ class FeatureTwin:
         slots = self.cpos[: hi - lo]
         er[:, slots] = (br * g) >> sh
         ei[:, slots] = -((bi * g) >> sh)
-        zr, zi = self._cfft(er.astype(np.int32), ei.astype(np.int32))
+        zr, zi = self._cfft(er.astype(np.int32), ei.astype(np.int32), self.env_stages)
         s = zr.astype(np.int64) ** 2 + zi.astype(np.int64) ** 2
         top = s.max(axis=1)
         w = _msb(np.maximum(top, 1)) - envelope._S_TOP
@@ -353,7 +362,7 @@ class FeatureTwin:
         d = s - ((eq[:, None] * self.w2 + 8192) >> 14)
         dr = np.empty_like(d)
         dr[:, self.cpos] = d
-        Dr, Di = self._cfft(dr.astype(np.int32), np.zeros_like(dr, dtype=np.int32))
+        Dr, Di = self._cfft(dr.astype(np.int32), np.zeros_like(dr, dtype=np.int32), self.env_stages)
         pe = Dr.astype(np.int64) ** 2 + Di.astype(np.int64) ** 2
         live = (f1 > 0) & (mx > 0) & (top > 0) & (eq > 0)
         c = self.env_c_ms - 2 * _log2_q8(np.maximum(eq, 1), self.log2_t)
