@@ -173,7 +173,8 @@ class FeatureCore:
         f[off + F_ZERO] = zmax
         m = self.m
         fft.cfft(buf, m, self.tw)
-        vs = fft.spectrum(buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p)
+        vs = fft.spectrum(buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p,
+                          self.env.on)
         self._finish(off, pk, u, g, sh, sq, s4, vs)
         f1 = self.speed.run(f, off)
         self.orders.run(f1, self.log2_4_3 - 512 * u, f, off)
