@@ -27,7 +27,7 @@ def _normalised(x, fc):
     pk = max(int(x.max()) - mean, mean - int(x.min()))
     u = 13 - (pk.bit_length() - 1)
     assert u >= 0                    # peaks below 2**14: y is x - mean scaled exactly
-    return (x.astype(float) - mean) * 2.0 ** u, u, np.array(fc.hann) / 32768
+    return (x.astype(float) - mean) * 2.0 ** u, u, np.array(fc.hann_q15) / 32768
 
 
 # --- order amplitudes -----------------------------------------------------------------------
@@ -156,7 +156,7 @@ def _reference_lines(X, fc, f1_bins):
     s = np.abs(z) ** 2
     w = int(s.max()).bit_length() - 1 - 12
     s = s * 2.0 ** -w
-    h = np.array(fc.hann[0::2], dtype=np.int64) >> 1
+    h = np.array(fc.hann_q15[0::2], dtype=np.int64) >> 1
     w2 = ((h * h) >> 14) / 2 ** 14                      # the device's w^2 (Q14 table, exact)
     eq = s.sum() / w2.sum()
     D = np.fft.fft(s - eq * w2) / M

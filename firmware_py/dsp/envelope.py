@@ -1,9 +1,9 @@
 # Squared-envelope spectrum of a high-frequency band at the bearing defect orders, in integers,
 # allocation-free; buffers are made once in the constructor.
 #
-# Entry point: Envelope(n, fs_hz, band, bear_q12, speed_hi_q8, hann, pos, tw, cos_t, sin_t,
-# log2_t).run(buf, f1_q8, f, off) writes F_ENV_BPFO..F_ENV_FTF. buf holds the window's spectrum X
-# as fft.spectrum leaves it.
+# Entry point: Envelope(n, fs_hz, band, bear_q12, speed_hi_q8, hann_q15, pos, tw_q15, cos_q15,
+# sin_q15, log2_q15).run(buf, f1_q8, f, off) writes F_ENV_BPFO..F_ENV_FTF. buf holds the
+# window's spectrum X as fft.spectrum leaves it.
 #
 # Method (envelope analysis, Randall and Antoni, "Rolling element bearing diagnostics: a
 # tutorial", MSSP 25, 2011): band-pass around a resonance the impacts excite, demodulate, and read
@@ -101,7 +101,8 @@ def buffer_bytes(n):
 class Envelope:
     """Squared-envelope lines for one band and one bearing, reused for every window and axis."""
 
-    def __init__(self, n, fs_hz, band, bear_q12, speed_hi_q8, hann, pos, tw, cos_t, sin_t, log2_t):
+    def __init__(self, n, fs_hz, band, bear_q12, speed_hi_q8, hann_q15, pos, tw_q15, cos_q15,
+                 sin_q15, log2_q15):
         m = n >> 1
         self.on = len(band) == 2 and len(bear_q12) == 4 and speed_hi_q8 > 0
         mz = points(n, fs_hz, band, bear_q12, speed_hi_q8) if self.on else 16
@@ -109,24 +110,25 @@ class Envelope:
         self.lo = band[0] if self.on else 0
         self.hi = band[1] if self.on else 0
         self.bear = array.array('i', bear_q12 if self.on else (0, 0, 0, 0))
-        self.hann = hann
+        self.hann_q15 = hann_q15
         self.pos = pos
         self.ps = 2 * (m // mz)                         # stride into pos: slot of point c
         self.hs = n // mz                               # stride into hann: w at envelope sample t
         if mz == m:
-            self.tw = tw
+            self.tw_q15 = tw_q15
         else:                                           # W_mz = W_n ** (n/mz): every (m/mz)-th entry
             st = m // mz
-            self.tw = fft.radix4_twiddles(mz, array.array('i', [cos_t[k * st] for k in range(mz + 1)]),
-                                          array.array('i', [sin_t[k * st] for k in range(mz + 1)]))
-        self.log2_t = log2_t
+            self.tw_q15 = fft.radix4_twiddles(
+                mz, array.array('i', [cos_q15[k * st] for k in range(mz + 1)]),
+                array.array('i', [sin_q15[k * st] for k in range(mz + 1)]))
+        self.log2_q15 = log2_q15
         self.e = array.array('i', bytes(8 * mz))        # mz complex points, interleaved
         w2sum = 0                                       # sum of w**2 at the envelope's samples, Q14
         for t in range(mz):
-            h = hann[t * self.hs] >> 1                  # Q14, <= 2**14
+            h = hann_q15[t * self.hs] >> 1              # Q14, <= 2**14
             w2sum += (h * h) >> 14
-        self.w2sum = w2sum
-        self.c_ms = 2048 - log2_q8(35, log2_t)          # log2(256/35): one side, / mean(w**4)
+        self.w2sum_q14 = w2sum
+        self.c_ms_q8 = 2048 - log2_q8(35, log2_q15)     # log2(256/35): one side, / mean(w**4)
 
     def run(self, buf, f1_q8, f, off):
         """Lines for the spectrum X in buf (fft.spectrum's layout) at 1x = f1_q8 (bins Q8).
@@ -138,7 +140,7 @@ class Envelope:
             f[off + F_ENV_BSF] = LOG2_ZERO_Q8
             f[off + F_ENV_FTF] = LOG2_ZERO_Q8
             return
-        c = self.c_ms - 2 * log2_q8(eq, self.log2_t)
+        c = self.c_ms_q8 - 2 * log2_q8(eq, self.log2_q15)
         b = self.bear
         f[off + F_ENV_BPFO] = self._line(buf, mul_shift(f1_q8, b[0], 12), c)
         f[off + F_ENV_BPFI] = self._line(buf, mul_shift(f1_q8, b[1], 12), c)
@@ -172,7 +174,7 @@ class Envelope:
             q = pos[ps * (k - lo)]      # slot of complex point k - lo, bit-reversed
             e[q] = (buf[2 * k] * g) >> sh
             e[q + 1] = -((buf[2 * k + 1] * g) >> sh)
-        fft.cfft(e, mz, self.tw)
+        fft.cfft(e, mz, self.tw_q15)
         top = 0
         for i in range(0, n2, 2):       # s[t] = |z[t]|**2 into the real slot e[2t]
             zr = e[i]
@@ -192,15 +194,15 @@ class Envelope:
             e[i] = v
             tot += v
         # eq = round(tot / sum(w**2)) = round(tot * 2**14 / w2sum), e2's mean in s' units
-        eq = (div_pow2(tot, self.w2sum, 15) + 1) >> 1
-        hann = self.hann
+        eq = (div_pow2(tot, self.w2sum_q14, 15) + 1) >> 1
+        hann = self.hann_q15
         hs = self.hs
         for t in range(mz):
             h = hann[hs * t] >> 1       # w(t), Q14
             q = pos[ps * t]
             buf[q] = e[2 * t] - ((eq * ((h * h) >> 14) + 8192) >> 14)
             buf[q + 1] = 0
-        fft.cfft(buf, mz, self.tw)
+        fft.cfft(buf, mz, self.tw_q15)
         return eq
 
     def _line(self, d, x_q8, c):
@@ -214,4 +216,4 @@ class Envelope:
             r = d[2 * j]
             i = d[2 * j + 1]
             s += r * r + i * i
-        return log2_q8(s, self.log2_t) + c if s > 0 else LOG2_ZERO_Q8
+        return log2_q8(s, self.log2_q15) + c if s > 0 else LOG2_ZERO_Q8

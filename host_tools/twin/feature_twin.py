@@ -58,23 +58,23 @@ class FeatureTwin:
         cos_t, sin_t = tables.twiddles(n)           # the device's own tables, built the same way
         self.cos = np.array(cos_t, dtype=np.int32)
         self.sin = np.array(sin_t, dtype=np.int32)
-        self.hann = np.array(tables.hann(n, cos_t), dtype=np.int32)
+        self.hann_q15 = np.array(tables.hann(n, cos_t), dtype=np.int32)
         self.pos = np.array(tables.bitrev_positions(n), dtype=np.intp)
-        self.log2_t = np.array(tables.log2_table(), dtype=np.int64)
+        self.log2_q15 = np.array(tables.log2_table(), dtype=np.int64)
         vm, vs, self.vel_exp = tables.velocity_weights(n, cfg.fs_hz, cfg.vel_lo_hz, cfg.vel_hi_hz)
         self.vmant = np.array(vm, dtype=np.int32)
         self.vsh2 = np.array(vs, dtype=np.int32)
         self.stages = self._stage_twiddles(fft.radix4_twiddles(self.m, cos_t, sin_t), self.m)
-        self.log2_4_3 = 512 - log2_q8(3, tables.log2_table())
+        self.log2_4_3_q8 = 512 - log2_q8(3, tables.log2_table())
         self.per = per_axis(len(cfg.bands))
         # speed.SpeedEstimator's range, quarter bins, and the bins its confidence sums
         self.speed_on = cfg.speed_hi_q8 > 0
         if self.speed_on:
-            self.c_lo = speed.bins_q2(cfg.speed_lo_q8, n, cfg.fs_hz, True)
-            self.c_hi = speed.bins_q2(cfg.speed_hi_q8, n, cfg.fs_hz, False)
-            self.b_lo = speed.bins_q(cfg.speed_lo_q8, n, cfg.fs_hz, 8, True)
-            self.b_hi = speed.bins_q(cfg.speed_hi_q8, n, cfg.fs_hz, 8, False)
-            self.reach = (((self.c_lo + 2) >> 2) - 3, ((3 * self.c_hi + 2) >> 2) + 4)
+            self.c_lo_q2 = speed.bins_q2(cfg.speed_lo_q8, n, cfg.fs_hz, True)
+            self.c_hi_q2 = speed.bins_q2(cfg.speed_hi_q8, n, cfg.fs_hz, False)
+            self.b_lo_q8 = speed.bins_q(cfg.speed_lo_q8, n, cfg.fs_hz, 8, True)
+            self.b_hi_q8 = speed.bins_q(cfg.speed_hi_q8, n, cfg.fs_hz, 8, False)
+            self.reach = (((self.c_lo_q2 + 2) >> 2) - 3, ((3 * self.c_hi_q2 + 2) >> 2) + 4)
         # envelope.Envelope's set-up: M points, the window and bit-reversed slots at a stride
         self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4 and cfg.speed_hi_q8 > 0
         if self.env_on:
@@ -84,11 +84,11 @@ class FeatureTwin:
                                      [sin_t[k * st] for k in range(mz + 1)])
             self.env_mz = mz
             self.env_stages = self._stage_twiddles(tw, mz)
-            h = self.hann[:: n // mz].astype(np.int64) >> 1
-            self.w2 = (h * h) >> 14
-            self.w2sum = int(self.w2.sum())
+            h = self.hann_q15[:: n // mz].astype(np.int64) >> 1
+            self.w2_q14 = (h * h) >> 14
+            self.w2sum_q14 = int(self.w2_q14.sum())
             self.cpos = self.pos[:: 2 * st] // 2          # bit-reversed slot of complex point c
-            self.env_c_ms = 2048 - log2_q8(35, tables.log2_table())
+            self.env_c_ms_q8 = 2048 - log2_q8(35, tables.log2_table())
 
     # --- set-up -------------------------------------------------------------------------------
 
@@ -160,12 +160,12 @@ class FeatureTwin:
         r = (yy + 8192) >> 14
         s4 = ((r * r) >> L).sum(axis=1, dtype=np.int64)
         buf = np.empty_like(y)
-        buf[:, self.pos] = (y * self.hann) >> 15
+        buf[:, self.pos] = (y * self.hann_q15) >> 15
         re, im = self._cfft(buf[:, 0::2].copy(), buf[:, 1::2].copy())
         p, vs, xr, xi = self._spectrum(re, im)
         self._finish(f, pk, u, g.astype(np.int64), sh.astype(np.int64), sq, s4, vs, p)
         f1 = self._speed(p, f)
-        self._orders(p, f1, self.log2_4_3 - 512 * u, f)
+        self._orders(p, f1, self.log2_4_3_q8 - 512 * u, f)
         self._envelope(xr, xi, f1, f)
         # a flat window: no spectrum, zero features (features._flat)
         dead = ~live
@@ -260,10 +260,10 @@ class FeatureTwin:
         f[:, F_CREST] = ((pk * g) >> sh << 20) // np.maximum(rms_y_q8, 1)
         f[:, F_KURT] = (((s4 << 21) // sq1) << 21) // sq1
         f[:, F_VEL] = _sqrt_pow2(vs, 62 - 2 * self.vel_exp - 2 * u)
-        c = self.log2_4_3 - 512 * u
+        c = self.log2_4_3_q8 - 512 * u
         for b, (lo, hi) in enumerate(self.cfg.bands):
             ps = p[:, lo:hi].sum(axis=1, dtype=np.int64)
-            f[:, F_BAND0 + b] = np.where(ps > 0, _log2_q8(np.maximum(ps, 1), self.log2_t) + c,
+            f[:, F_BAND0 + b] = np.where(ps > 0, _log2_q8(np.maximum(ps, 1), self.log2_q15) + c,
                                          LOG2_ZERO_Q8)
 
 
@@ -275,7 +275,7 @@ class FeatureTwin:
             f[:, F_SPEED_CONF] = 0
             return np.zeros(wn, dtype=np.int64)
         p = p.astype(np.int64)
-        c = np.arange(self.c_lo, self.c_hi + 1)
+        c = np.arange(self.c_lo_q2, self.c_hi_q2 + 1)
         s = np.zeros((wn, c.size), dtype=np.int64)
         for h in (2, 3):
             j = (h * c + 2) >> 2
@@ -302,13 +302,13 @@ class FeatureTwin:
         hs = np.where(pw[1] > pw[0], 2, 1)
         hs = np.where(pw[2] > np.choose(hs - 1, pw), 3, hs)
         top = np.choose(hs - 1, pw)
-        fs = np.choose(hs - 1, fq)
+        fr = np.choose(hs - 1, fq)
         sh = np.maximum(_msb(np.maximum(top, 1)) - 7, 0)
-        w1, w2, w3 = ((pw[h - 1] >> sh) * (np.abs(hs * fq[h - 1] - h * fs) <= 128 * hs)
+        w1, w2, w3 = ((pw[h - 1] >> sh) * (np.abs(hs * fq[h - 1] - h * fr) <= 128 * hs)
                       for h in (1, 2, 3))
         den = np.maximum(w1 + 4 * w2 + 9 * w3, 1)
         f1 = (w1 * fq[0] + 2 * w2 * fq[1] + 3 * w3 * fq[2] + (den >> 1)) // den
-        f1 = np.clip(f1, self.b_lo, self.b_hi)
+        f1 = np.clip(f1, self.b_lo_q8, self.b_hi_q8)
         fam = pw[0] + pw[1] + pw[2]
         tot = p[:, self.reach[0]:self.reach[1]].sum(axis=1)
         conf = np.where(tot > 0, (fam << 8) // np.maximum(tot, 1), 0)
@@ -330,7 +330,7 @@ class FeatureTwin:
                 continue
             k = np.where(live, x >> 8, 1)
             s = p[rows, k - 1] + p[rows, k] + p[rows, k + 1] + p[rows, k + 2]
-            f[:, field] = np.where(live & (s > 0), _log2_q8(np.maximum(s, 1), self.log2_t) + c,
+            f[:, field] = np.where(live & (s > 0), _log2_q8(np.maximum(s, 1), self.log2_q15) + c,
                                    LOG2_ZERO_Q8)
 
     def _envelope(self, xr, xi, f1, f):
@@ -358,14 +358,14 @@ class FeatureTwin:
         w = _msb(np.maximum(top, 1)) - envelope._S_TOP
         s = (s << np.maximum(-w, 0)[:, None]) >> np.maximum(w, 0)[:, None]
         tot = s.sum(axis=1)
-        eq = (((tot << 15) // self.w2sum) + 1) >> 1
-        d = s - ((eq[:, None] * self.w2 + 8192) >> 14)
+        eq = (((tot << 15) // self.w2sum_q14) + 1) >> 1
+        d = s - ((eq[:, None] * self.w2_q14 + 8192) >> 14)
         dr = np.empty_like(d)
         dr[:, self.cpos] = d
         Dr, Di = self._cfft(dr.astype(np.int32), np.zeros_like(dr, dtype=np.int32), self.env_stages)
         pe = Dr.astype(np.int64) ** 2 + Di.astype(np.int64) ** 2
         live = (f1 > 0) & (mx > 0) & (top > 0) & (eq > 0)
-        c = self.env_c_ms - 2 * _log2_q8(np.maximum(eq, 1), self.log2_t)
+        c = self.env_c_ms_q8 - 2 * _log2_q8(np.maximum(eq, 1), self.log2_q15)
         rows = np.arange(wn)[:, None]
         for j, o in enumerate(self.cfg.bear_q12):
             x = (f1 * o) >> 12
@@ -374,7 +374,7 @@ class FeatureTwin:
             inside = ks <= ((x >> 8) + 3)[:, None]
             sl = (pe[rows, np.minimum(ks, m - 1)] * inside).sum(axis=1)
             f[:, F_ENV_BPFO + j] = np.where(live & (sl > 0),
-                                            _log2_q8(np.maximum(sl, 1), self.log2_t) + c,
+                                            _log2_q8(np.maximum(sl, 1), self.log2_q15) + c,
                                             LOG2_ZERO_Q8)
 
 
