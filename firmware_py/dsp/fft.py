@@ -57,6 +57,16 @@ def radix4_twiddles(m, cos_t, sin_t):
     return _array_i(tw)
 
 
+def twiddle_bytes(m):
+    """Bytes of radix4_twiddles(m, ...): six ints per j of every radix-4 stage."""
+    b = 0
+    h = 2 if _odd_log2(m) else 1
+    while h < m:
+        b += 4 * 6 * h
+        h *= 4
+    return b
+
+
 def _array_i(values):
     import array
     return array.array('i', values)
@@ -141,7 +151,7 @@ def cfft(buf, m, tw):
         h *= 4
 
 
-def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
+def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p, keep_x):
     """Split the complex FFT in buf into the real spectrum of the window.
 
     Writes the power p[k] = |X[k]|**2 for k = 0..m (array('i'), m + 1 entries) and returns
@@ -150,9 +160,10 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
     mantissa (Q15, >= 2**14, so it keeps its precision), squared, then shifted right by vsh2[k].
     The sum is < 2**30 like sum(p), since w < 2**15.
 
-    Overwrites buf with the spectrum X itself, in the packed real-FFT layout: X[k] for k = 1..m-1
-    at buf[2k] (re) and buf[2k+1] (im); buf[0] = X[0] and buf[1] = X[m] (both real). Each value
-    read from buf is consumed before its slot is written (k and m-k are done together).
+    With keep_x, overwrites buf with the spectrum X itself, in the packed real-FFT layout: X[k]
+    for k = 1..m-1 at buf[2k] (re) and buf[2k+1] (im); buf[0] = X[0] and buf[1] = X[m] (both
+    real). Each value read from buf is consumed before its slot is written (k and m-k are done
+    together). Without it buf is left as it was (the stores cost a few per cent of the window).
     """
     zr = buf[0]
     zi = buf[1]
@@ -160,8 +171,9 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
     xm = zr - zi                      # Nyquist: Re Z0 - Im Z0
     p[0] = x0 * x0
     p[m] = xm * xm
-    buf[0] = x0
-    buf[1] = xm
+    if keep_x:
+        buf[0] = x0
+        buf[1] = xm
     v = (xm * vmant[m]) >> 15
     vs = (v * v) >> vsh2[m]
     hm = m >> 1
@@ -182,8 +194,9 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
         ti = (wr * oi - wi * orr) >> 15
         xr = er + ti                            # X[k] = E - jT
         xi = ei - tr
-        buf[i] = xr
-        buf[i + 1] = xi
+        if keep_x:
+            buf[i] = xr
+            buf[i + 1] = xi
         p[k] = xr * xr + xi * xi
         g = vmant[k]
         vr = (xr * g) >> 15
@@ -191,8 +204,9 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
         vs += (vr * vr + vi * vi) >> vsh2[k]
         xr = er - ti                            # X[m-k] = conj(E + jT): (xr, -xi)
         xi = ei + tr
-        buf[q] = xr
-        buf[q + 1] = -xi
+        if keep_x:
+            buf[q] = xr
+            buf[q + 1] = -xi
         p[m - k] = xr * xr + xi * xi
         g = vmant[m - k]
         vr = (xr * g) >> 15
@@ -201,7 +215,8 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
     # k = m/2 pairs with itself: W = -j, so X = conj Z[m/2]
     ar = buf[m]
     ai = buf[m + 1]
-    buf[m + 1] = -ai
+    if keep_x:
+        buf[m + 1] = -ai
     p[hm] = ar * ar + ai * ai
     g = vmant[hm]
     vr = (ar * g) >> 15
