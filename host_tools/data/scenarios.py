@@ -316,7 +316,7 @@ def _schedule(rng: np.random.Generator, h: History, interval_s: float, snapshot_
     for s in h.stops:
         if s["run_down_t_s"] is not None:
             spans.append((s["run_down_t_s"] - 60.0, s["stopped_t_s"] + 30.0, "run-down and stop"))
-        spans.append((s["run_up_t_s"] - 30.0, s["steady_t_s"] + 300.0, "restart and run-up"))
+        spans.append((s["run_up_t_s"] - 30.0, s["steady_t_s"] + 150.0, "restart and run-up"))
     modes = [c for c in h.changes if c["kind"] == "mode"]
     want = int(round(changes_per_day * (h.end_t_s - h.start_t_s) / DAY_S))
     for i in sorted(rng.choice(len(modes), min(want, len(modes)), replace=False).tolist()) if modes else []:
@@ -370,8 +370,9 @@ class _Synth:
         self.ph = r[0].uniform(0, 2 * np.pi, 10)
         self.levels = [ph.Ar1Level(tau, _LEVEL_SPREAD, self.fs, r[1 + i]) for i, tau in enumerate(_LEVEL_TAU_S)]
         self.flow = ph.BandNoise(10.0, 1000.0, self.fs, 3, r[5])
-        self.background = ph.BandNoise(10.0, 1000.0, self.fs, 3, r[6])
-        self.cav_noise = ph.BandNoise(400.0, min(1500.0, 0.45 * self.fs), self.fs, 3, r[7])
+        # Made only for a history with cavitation: the healthy and faulty copies still share it.
+        self.cav_noise = (ph.BandNoise(400.0, min(1500.0, 0.45 * self.fs), self.fs, 3, r[7])
+                          if any(f.kind == "cavitation" for f in h.faults) else None)
         self.res = ph.Resonator(m.resonance_hz, m.resonance_q, self.fs)
         self.impacts = ph.ImpactTrain(defect_orders(m.bearing).bpfo, BEARING_SLIP, IMPACT_JITTER, r[8])
         self.r_cav, self.r_sensor, self.r_sf = r[9], r[10], r[11]
@@ -398,19 +399,21 @@ class _Synth:
         a += np.outer(ph.order_line(theta, 2.0, two_x, self.ph[1]), _GAIN_2X)
         a += np.outer(ph.vane_pass(theta, m.vane_count, m.vane_pass_m_s2 * force * lv[2], 0.6,
                                    (self.ph[2], self.ph[3])), _GAIN_VANE)
-        a += self.flow.next(n) * (m.flow_noise_m_s2 * force * lv[3] * h.load_drift(t))[:, None]
-        a += self.background.next(n) * _BACKGROUND_M_S2
+        # Flow noise of this pump (~ speed^2, with the duty point) and the neighbouring plant's,
+        # which is there when this pump stands still; one noise source carries both (same band).
+        a += self.flow.next(n) * (m.flow_noise_m_s2 * force * lv[3] * h.load_drift(t) + _BACKGROUND_M_S2)[:, None]
         s_loose = float(sev["looseness"].mean())
         if s_loose > 0.0:
             a += np.outer(ph.looseness(theta, 2.0 * m.imbalance_m_s2 * force, s_loose, self.ph[4:8]), _GAIN_LOOSE)
         amp = _BEARING_FULL_M_S2 * sev["bearing_outer_race"] * ratio
         imp = self.impacts.next(theta, amp)                # always advanced: keeps the impact count
         a += np.outer(self.res.next(imp), _GAIN_RES)
-        cav_noise = self.cav_noise.next(n)                 # always drawn: same noise with or without
-        gate = ph.bursts(self.r_cav, n, self.fs, 30.0, 0.008)
-        # Cavitation needs a small suction margin: strong at high flow, none below 80 % speed.
-        cav = sev["cavitation"] * np.clip((ratio - 0.8) / 0.2, 0.0, 1.0) ** 1.5 * _CAV_FULL_M_S2
-        a += cav_noise * (cav * (0.4 + 1.5 * gate))[:, None]
+        if self.cav_noise is not None:
+            cav_noise = self.cav_noise.next(n)             # always drawn: same noise with or without
+            gate = ph.bursts(self.r_cav, n, self.fs, 30.0, 0.008)
+            # Cavitation needs a small suction margin: strong at high flow, none below 80 % speed.
+            cav = sev["cavitation"] * np.clip((ratio - 0.8) / 0.2, 0.0, 1.0) ** 1.5 * _CAV_FULL_M_S2
+            a += cav_noise * (cav * (0.4 + 1.5 * gate))[:, None]
         d = (t - START_T0_S) / DAY_S                       # zero-g offsets follow temperature daily
         a += np.asarray(m.offsets_m_s2) + (0.03 * np.sin(2 * np.pi * d + self.ph[8]))[:, None]
         a[:, 2] += ph.G_M_S2
@@ -645,8 +648,10 @@ def ground_truth(h: History, axes: Sequence[str] = AXES) -> dict:
 
 SCALES = {
     # days of training, of the healthy field history and of each fault history; snapshot spacing
-    "full": {"train_days": 4.0, "healthy_days": 6.0, "fault_days": 5.0, "interval_s": 600.0, "long_s": 1800.0},
-    "demo": {"train_days": 2.0, "healthy_days": 2.0, "fault_days": 3.0, "interval_s": 1800.0, "long_s": 600.0},
+    "full": {"train_days": 2.5, "healthy_days": 3.0, "fault_days": 3.0, "sensor_days": 1.2, "interval_s": 1800.0,
+             "long_s": 600.0, "changes_per_day": 1.0},
+    "demo": {"train_days": 2.0, "healthy_days": 1.5, "fault_days": 2.5, "sensor_days": 1.0, "interval_s": 3600.0,
+             "long_s": 300.0, "changes_per_day": 0.5},
 }
 _FAULTS_OF = {"RW-1": MACHINE_FAULTS, "RW-2": ("bearing_outer_race", "looseness")}
 _GROWTH_DAYS = {"imbalance": 2.0, "misalignment": 2.0, "bearing_outer_race": 2.5, "cavitation": 1.5, "looseness": 2.0}
@@ -658,7 +663,7 @@ def evaluation_suite(seed: int = 2027, scale: str = "full", machines: Sequence[s
     c = SCALES[scale]
     out = []
     for mi, name in enumerate(machines):
-        base = dict(interval_s=c["interval_s"], long_stretch_s=c["long_s"])
+        base = dict(interval_s=c["interval_s"], long_stretch_s=c["long_s"], mode_change_stretches_per_day=c["changes_per_day"])
         t_train = START_T0_S
         t_field = t_train + c["train_days"] * DAY_S
         out.append(plan_history(f"{name}-training", name, seed, c["train_days"], t_train, role="training", **base))
@@ -674,22 +679,25 @@ def evaluation_suite(seed: int = 2027, scale: str = "full", machines: Sequence[s
                 a = t_field + lead
                 sf = SensorFault(kind, a, a + 0.5 * DAY_S)
                 out.append(plan_history(f"{name}-sensor-{kind.replace('_', '-')}", name, seed + 20 + k,
-                                        min(c["fault_days"], 2.0), t_field, role="sensor_fault", sensor_faults=(sf,), **base))
+                                        c["sensor_days"], t_field, role="sensor_fault", sensor_faults=(sf,), **base))
     return out
 
 
 def write_suite(out_dir: str | os.PathLike, seed: int = 2027, scale: str = "full", axes: Sequence[str] = AXES,
-                histories: Sequence[History] | None = None) -> Path:
+                histories: Sequence[History] | None = None, jobs: int = 1) -> Path:
     """Write every history of evaluation_suite (or the ones given) and OUT/suite.json, returned:
     {"seed", "scale", "plant", "histories": [{"name", "role", "machine", "ground_truth", "folder"}]}
-    with paths relative to OUT."""
+    with paths relative to OUT. jobs > 1 writes that many histories at once, in processes."""
     out = Path(out_dir)
-    hs = evaluation_suite(seed, scale) if histories is None else histories
-    items = []
-    for h in hs:
-        gt = write_history(out, h, axes)
-        items.append({"name": h.name, "role": h.role, "machine": h.machine.name,
-                      "folder": h.name, "ground_truth": str(gt.relative_to(out))})
+    hs = evaluation_suite(seed, scale) if histories is None else list(histories)
+    if jobs > 1:
+        from concurrent.futures import ProcessPoolExecutor
+        with ProcessPoolExecutor(max_workers=jobs) as pool:
+            gts = list(pool.map(write_history, [out] * len(hs), hs, [tuple(axes)] * len(hs)))
+    else:
+        gts = [write_history(out, h, axes) for h in hs]
+    items = [{"name": h.name, "role": h.role, "machine": h.machine.name, "folder": h.name,
+              "ground_truth": str(gt.relative_to(out))} for h, gt in zip(hs, gts)]
     p = out / "suite.json"
     p.write_text(json.dumps({"seed": seed, "scale": scale, "plant": PLANT, "note": "invented data",
                              "histories": items}, indent=1) + "\n")
