@@ -149,7 +149,7 @@ def test_stationary_levels_wander_as_specified():
 
 
 def test_suite_plan_covers_every_fault_once():
-    hs = sc.evaluation_suite(scale="demo")
+    hs = sc.evaluation_suite(scale="full")
     kinds = [(h.machine.name, f.kind) for h in hs for f in h.faults]
     assert sorted(k for m, k in kinds if m == "RW-1") == sorted(sc.MACHINE_FAULTS)
     assert {m for m, _ in kinds} == {"RW-1", "RW-2"}

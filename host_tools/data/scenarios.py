@@ -559,6 +559,8 @@ def sidecar(h: History, r: Recording, axes: Sequence[str] = AXES) -> dict:
         "sample_rate_hz": m.sensor.fs_hz, "t0_s": r.t0_s, "rpm": rpm, "vane_count": m.vane_count,
         "axes": list(axes), "plant": PLANT, "machine": m.name, "trigger": r.kind,
         "sensor_noise_ug_rthz": [m.sensor.noise_ug_rthz[AXES.index(a)] for a in axes],
+        "bearing": {"n_elements": m.bearing.n_elements, "ball_diameter_mm": m.bearing.ball_diameter_mm,
+                    "pitch_diameter_mm": m.bearing.pitch_diameter_mm, "contact_angle_deg": m.bearing.contact_angle_deg},
         "note": "invented data (edgevib evaluation scenario)",
     }
 
@@ -650,17 +652,20 @@ SCALES = {
     # days of training, of the healthy field history and of each fault history; snapshot spacing
     "full": {"train_days": 2.5, "healthy_days": 3.0, "fault_days": 3.0, "sensor_days": 1.2, "interval_s": 1800.0,
              "long_s": 600.0, "changes_per_day": 1.0},
-    "demo": {"train_days": 2.0, "healthy_days": 1.5, "fault_days": 2.5, "sensor_days": 1.0, "interval_s": 3600.0,
-             "long_s": 300.0, "changes_per_day": 0.5},
+    # the demo's: one machine, shorter, hourly snapshots (a minute or so on two cores)
+    "demo": {"train_days": 1.5, "healthy_days": 1.0, "fault_days": 2.2, "sensor_days": 0.8, "interval_s": 3600.0,
+             "long_s": 120.0, "changes_per_day": 0.5, "machines": ("RW-1",)},
 }
 _FAULTS_OF = {"RW-1": MACHINE_FAULTS, "RW-2": ("bearing_outer_race", "looseness")}
 _GROWTH_DAYS = {"imbalance": 2.0, "misalignment": 2.0, "bearing_outer_race": 2.5, "cavitation": 1.5, "looseness": 2.0}
 
 
-def evaluation_suite(seed: int = 2027, scale: str = "full", machines: Sequence[str] = ("RW-1", "RW-2")) -> list[History]:
+def evaluation_suite(seed: int = 2027, scale: str = "full", machines: Sequence[str] | None = None) -> list[History]:
     """The histories a detector is judged on (see the module docstring). Training histories come
-    first in time; every field history starts where its machine's training ends."""
+    first in time; every field history starts where its machine's training ends. machines:
+    default the scale's ("full": RW-1 and RW-2, "demo": RW-1)."""
     c = SCALES[scale]
+    machines = machines or c.get("machines", tuple(MACHINES))
     out = []
     for mi, name in enumerate(machines):
         base = dict(interval_s=c["interval_s"], long_stretch_s=c["long_s"], mode_change_stretches_per_day=c["changes_per_day"])
