@@ -132,34 +132,54 @@ def _gauss_scores(d, n, zlam_q8, seed):
     return out
 
 
-def test_mahalanobis_tail_matches_chi_square():
-    # d independent standard normal features: score**2 is chi-square with d degrees of freedom
-    # (scipy.stats.chi2); at the 1 % point the exceedance must be 1 % within binomial error.
-    # With the per-feature channel at weight 1 (zlam 256) the combined score is the distance,
-    # since no single term can exceed the root of their sum.
+def _one_sided_sum_sf(d, x2):
+    """P(sum of d independent terms >= x2), each term max(z, -3)**2 for standard normal z: the
+    distance's square on ideal data with the detector's one-sided terms. A term is chi-square
+    with 1 degree of freedom below 9 (scipy.stats.chi2), a point mass of P(z <= -3) at 9, and
+    above 9 only the upper tail, density phi(sqrt y) / (2 sqrt y) (scipy.stats.norm); the sum's
+    law is the d-fold convolution on a grid of 1e-3 (scipy.signal.fftconvolve)."""
+    from scipy import signal
+    dy = 1e-3
+    y = np.arange(0, 80, dy)
+    c = np.where(y < 9, stats.chi2.cdf(y, 1), stats.norm.cdf(np.sqrt(y)))
+    pmf = np.diff(np.concatenate([[0.0], c]))
+    total = pmf
+    for _ in range(d - 1):
+        total = signal.fftconvolve(total, pmf)[:len(y)]
+    return float(1.0 - total[: int(round(x2 / dy))].sum())
+
+
+def test_mahalanobis_tail_matches_its_one_sided_law():
+    # d independent standard normal features; each term of the distance counts at most 3 spreads
+    # below the mode (the one-sided distance, firmware_py/detect/modes.py), so score**2 follows
+    # the convolution above instead of chi-square; at its 1 % point the exceedance must be 1 %
+    # within binomial error (3 standard deviations), plus the grid's own error.
     d, n = 4, 40_000
-    thr = np.sqrt(stats.chi2.isf(0.01, d))
-    over = int((_gauss_scores(d, n, 256, 9) >= round(thr * 256)).sum())
+    from scipy.optimize import brentq
+    thr2 = brentq(lambda x2: _one_sided_sum_sf(d, x2) - 0.01, 5.0, 40.0, xtol=1e-4)
+    assert thr2 < stats.chi2.isf(0.01, d)          # one-sided terms: a lighter tail than chi-square
+    over = int((_gauss_scores(d, n, 256, 9) >= round(np.sqrt(thr2) * 256)).sum())
     assert abs(over - 0.01 * n) <= 3 * np.sqrt(n * 0.01 * 0.99) + 0.002 * n
 
 
 def test_combined_score_tail_against_its_analytic_value():
-    # Two independent standard normal features, per-feature channel weighted lam = 1.2: the
-    # combined score max(sqrt(z1^2 + z2^2), lam * max|z|) stays under T exactly when z lies in
-    # the disc of radius T and in the square |z_j| < T / lam. Its probability is a double
-    # integral of the bivariate normal density over that intersection (scipy.integrate.dblquad,
-    # the analytic reference); the detector's exceedance on 60 000 Gaussian windows must match it
-    # within 3 binomial standard deviations plus the quantisation of z (1/200 spread: a shift of
-    # 1/400 spread moves the probability by at most 2 * density(T) * perimeter / 400).
+    # Two independent standard normal features, per-feature channel weighted lam = 1.2, T = 3:
+    # the combined score max(sqrt(t1^2 + t2^2), lam * max(t1, t2, 0)), t_j = max(z_j, -3), stays
+    # under T exactly when z lies in the disc of radius T (a term at -3 alone reaches T) and every
+    # z_j < T / lam. Its probability is a double integral of the bivariate normal density over
+    # that region (scipy.integrate.dblquad, the analytic reference); the detector's exceedance on
+    # 60 000 Gaussian windows must match it within 3 binomial standard deviations plus the
+    # quantisation of z (1/200 spread: a shift of 1/400 spread moves the probability by at most
+    # 2 * density(T) * perimeter / 400).
     d, n, lam = 2, 60_000, 1.2
     t = 3.0
     a = t / lam
     inside, _ = integrate.dblquad(
-        lambda y, x: stats.norm.pdf(x) * stats.norm.pdf(y), -a, a,
-        lambda x: -min(a, np.sqrt(max(t * t - x * x, 0.0))), lambda x: min(a, np.sqrt(max(t * t - x * x, 0.0))))
+        lambda y, x: stats.norm.pdf(x) * stats.norm.pdf(y), -t, a,
+        lambda x: -np.sqrt(max(t * t - x * x, 0.0)), lambda x: min(a, np.sqrt(max(t * t - x * x, 0.0))))
     p = 1.0 - inside
-    # neither channel alone: the disc alone gives chi2 (d = 2), the square alone the max |z|
-    assert p > stats.chi2.sf(t * t, 2) and p > 1 - (1 - 2 * stats.norm.sf(a)) ** 2
+    # neither channel alone: the disc alone gives chi2 (d = 2), the upper square alone max(z)
+    assert p > stats.chi2.sf(t * t, 2) and p > 1 - (1 - stats.norm.sf(a)) ** 2
     over = int((_gauss_scores(d, n, round(lam * 256), 11) >= round(t * 256)).sum())
     quant = n * 2 * stats.norm.pdf(a) * 8 * a / 400
     assert abs(over - n * p) <= 3 * np.sqrt(n * p * (1 - p)) + quant
@@ -465,10 +485,11 @@ def test_fixed_point_score_against_a_float_reference():
         f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", u.astype(int).tolist())
         det.step(f, trial, 0)
         z = np.clip((u - mean_q4 / 16) / (sd_q4 / 16), -32, 32)
-        t = (z - c / 256) / (s / 256)
-        dist = np.sqrt((t ** 2).sum(1))
-        ref = dist.min()
+        t2 = (z - c / 256) / (s / 256)
+        near = np.sqrt((t2 ** 2).sum(1))              # the legacy choice: nearest, two-sided
+        t = np.maximum(t2, -3.0)                      # the score: one-sided terms (modes.py)
+        assert near[det.mode] <= near.min() + 0.04 * np.sqrt(d)   # nearest, up to a near tie
+        ref = np.sqrt((t[det.mode] ** 2).sum())       # zlam 0: the score is the distance
         assert abs(det.score_q8 / 256 - ref) <= 0.02 * np.sqrt(d) + d / 256 / max(ref, 1)
-        assert dist[det.mode] <= ref + 0.04 * np.sqrt(d)   # nearest, up to a near tie
-        # the per-feature channel of the chosen mode: its largest |t|, to the same budget
-        assert abs(det.zmax_q8 / 256 - np.abs(t[det.mode]).max()) <= 0.02 + 1 / 64
+        # the per-feature channel of the chosen mode: its largest rise, to the same budget
+        assert abs(det.zmax_q8 / 256 - max(t[det.mode].max(), 0.0)) <= 0.02 + 1 / 64

@@ -6,7 +6,8 @@ Scales (all ints):
   z  standardised feature, Q8 baseline spreads (256 = one baseline standard deviation), +-Z_LIM
   centroids c_q8 in z units (Q8); per-mode spreads s_q8 in z units (Q8, floored when built)
   distance: sqrt(sum_j ((z_j - c_mj) / s_mj)**2), Q8 mode spreads (a diagonal Mahalanobis distance)
-  zmax: max_j |z_j - c_mj| / s_mj, Q8 mode spreads (the per-feature channel)
+  zmax: max_j (z_j - c_mj) / s_mj, Q8 mode spreads (the per-feature channel: rises only)
+  terms below the mode count at most 3 spreads (ModeModel.distance)
 
 Entry points: is_log_field(), ModeModel, clamp(), transform()."""
 from array import array
@@ -19,6 +20,7 @@ DMAX = const(64)         # most features a model uses: keeps the sum of squares 
 U_LIM = const(8191)      # |u| bound: log2 in [-32, 32) octaves; a band of zero power clamps here
 Z_LIM = const(8191)      # |z| bound, 32 baseline spreads
 _D_LIM = const(32767)    # |(z - c) / s| bound, Q8: 128 spreads, so its square is < 2**30
+_NEG_LIM = const(768)    # a term below the mode counts at most 3 spreads (distance())
 
 
 def is_log_field(field):
@@ -84,19 +86,24 @@ class ModeModel:
 
     def distance(self, z, m):
         """Distance of z to mode m, Q8 mode spreads; sets mode, drive and zmax_q8 (the largest
-        single-feature |z - c| / s, Q8 mode spreads: the per-feature channel).
+        single-feature rise (z - c) / s, Q8 mode spreads: the per-feature channel).
 
-        Each term ((z - c) << 8) // s is clamped to +-_D_LIM, its square >> 8 is < 2**22, and the
-        sum over d <= 64 terms (Q8 spreads squared) stays < 2**28.
+        One-sided: a term below the mode counts at most _NEG_LIM (3 spreads). Every fault watched
+        raises its lines (1x, 2x, 0.5x, envelope, broadband); a line that sinks into the noise
+        floor is no symptom, and the log of a noise-level power has a long lower tail (log of a
+        chi-square with few degrees of freedom) that would otherwise dominate healthy scores.
+        Each term is within [-_NEG_LIM, _D_LIM], its square >> 8 is < 2**22, and the sum over
+        d <= 64 terms (Q8 spreads squared) stays < 2**28. zmax_q8 is 0 when nothing rises.
         """
         d = self.d
         b = m * d
         s = 0
-        top = -1
+        top = 0
+        self.drive = 0
         for j in range(d):
-            t = clamp(((z[j] - self.c_q8[b + j]) << 8) // self.s_q8[b + j], _D_LIM)
+            t = ((z[j] - self.c_q8[b + j]) << 8) // self.s_q8[b + j]
+            t = _D_LIM if t > _D_LIM else (-_NEG_LIM if t < -_NEG_LIM else t)
             s += (t * t) >> 8
-            t = t if t >= 0 else -t
             if t > top:
                 top = t
                 self.drive = j

@@ -206,7 +206,7 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
         lo_hz = floor_hz
         hi_hz = max(hi_hz, floor_hz * 1.2)
     hi_hz = min(hi_hz, fs / 8.0)   # 3x must stay well inside the spectrum
-    vanes = sorted({int(r.sidecar["vane_count"]) for s in streams for r in s if r.sidecar.get("vane_count")})
+    vanes = sorted({int(r.vane_count) for s in streams for r in s if r.vane_count})
     vane = vanes[0] if len(vanes) == 1 else 0
     if len(vanes) > 1:
         warnings.append(f"recordings disagree on the vane count ({vanes}): no vane-pass line")
