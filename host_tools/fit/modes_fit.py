@@ -181,8 +181,8 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
 
     Modes come from the operating point, never from the health features: with speed_hz (the
     device's speed estimate of each window, Hz), speed_modes() groups the windows at gaps wider
-    than twice speed_tol (the steady tolerance, at least 1 %), and each mode's speed range
-    (det_op_speed_q8) is its windows' range widened by that much each side; the load proxy is left open (docs/detector.md, Operating
+    than speed_tol (the steady tolerance, at least 1 %), and each mode's speed range
+    (det_op_speed_q8) is its windows' range widened by twice that each side; the load proxy is left open (docs/detector.md, Operating
     point). Without speed_hz: one mode and no operating points. The baseline is the device's
     fixed-point Welford; z is standardised by the device's code; each mode's centroid and spread
     are its members' mean and standard deviation per feature, the spread floored at
@@ -212,7 +212,7 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     op: list[int] = []
     if speed_hz is not None:
         widen = 2.0 * max(speed_tol, 0.01)
-        k, lab = speed_modes(speed_hz, widen, MIN_MODE_N, k_max)
+        k, lab = speed_modes(speed_hz, widen / 2, MIN_MODE_N, k_max)
         for m in range(k):
             sp = np.asarray(speed_hz)[lab == m]
             op += [int(math.floor(sp.min() * (1 - widen) * 256)), int(math.ceil(sp.max() * (1 + widen) * 256))]

@@ -72,7 +72,7 @@ HOLD_FLOOR_S = 5.0        # least hold-off after a start: a few seconds of settl
 HOLD_DEFAULT_S = 10.0     # hold-off when the data hold no start
 _DAYS_30_S = 30 * 86400.0
 MODE_CRITERION = ("operating points by the shaft speed the device estimates (never by the health features): "
-                  "sorted speeds cut at gaps wider than twice the steady tolerance, groups under 30 windows joined "
+                  "sorted speeds cut at gaps wider than the steady tolerance, groups under 30 windows joined "
                   "to a neighbour, at most 8")
 
 
@@ -281,7 +281,8 @@ def _op_of(sf: StreamFeatures, params: dict) -> tuple[np.ndarray, np.ndarray, np
 def _steadiness(feats: list[StreamFeatures], streams: list[list[Recording]], p: dict, every: int
                 ) -> tuple[dict, dict, list[str]]:
     """det_conf_min_q8, det_speed_tol_q12 and det_level_tol_q8 from the steady running recordings
-    (sidecar rpm > 0, so no run-up or speed change inside): the confidence floor is half the 1st
+    (sidecar rpm > 0, so no run-up or speed change inside; spans within one recording, since
+    the next may be at another speed): the confidence floor is half the 1st
     percentile of their speed confidence; the tolerances are 1.5 times the 99th percentile of the
     speed spread (max - min over max) and of the level fall over det_steady_ms, at least 0.5 % and
     1/8 octave, at most 25 % (a run-up changes the speed faster than that over 2 s; a window of 0.16 s
@@ -298,7 +299,8 @@ def _steadiness(feats: list[StreamFeatures], streams: list[list[Recording]], p: 
         if len(sp) >= span and h > 0:
             # the device's statistic: medians of the span's older and newer halves, apart by
             w = np.lib.stride_tricks.sliding_window_view(np.where(sp > 0, sp, np.nan), span)
-            okw = np.lib.stride_tricks.sliding_window_view(ok, span).all(1)
+            recw = np.lib.stride_tricks.sliding_window_view(sf.rec, span)
+            okw = np.lib.stride_tricks.sliding_window_view(ok, span).all(1) & (recw.min(1) == recw.max(1))
             old, new = np.nanmedian(w[:, :h], 1), np.nanmedian(w[:, h:], 1)
             spread.append((np.abs(new - old) / np.nanmedian(w, 1))[okw])
             lw = np.lib.stride_tricks.sliding_window_view(lv, span)
