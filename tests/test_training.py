@@ -142,7 +142,7 @@ def test_warnings_for_abnormal_or_thin_training_data():
     recs = healthy_stream(seed=5, per_point=8)
     rng = np.random.default_rng(9)
     # a few recordings already vibrating hard (ISO zone C/D) among the healthy ones
-    bad = [recording(pump_counts(rng, 1480.0, 2.0, tone=60.0), 50000.0 + 600 * i, 1480.0) for i in range(2)]
+    bad = [recording(pump_counts(rng, 1480.0, 20.0, tone=60.0), 50000.0 + 600 * i, 1480.0) for i in range(2)]
     _, summary = train(recs + bad, PROFILE)
     assert summary["windows"]["iso_zone_c_or_d"] > 0
     assert any("zone C" in w for w in summary["warnings"])

@@ -293,7 +293,10 @@ def _steadiness(feats: list[StreamFeatures], streams: list[list[Recording]], p: 
     for sf, recs in zip(feats, streams):
         rpm = np.array([np.nan if r.rpm is None else r.rpm for r in recs])[sf.rec]
         sp, conf, lv = _op_of(sf, p)
-        ok = (rpm > 0) & (sp > 0)
+        # an estimate pinned at an end of the search range is the range, not the shaft (a shaft
+        # slower than the window resolves): it would set the tolerance for every other speed
+        lo, hi = p["fc_speed_lo_q8"] / 256 * 1.01, p["fc_speed_hi_q8"] / 256 * 0.99
+        ok = (rpm > 0) & (sp > lo) & (sp < hi)
         sp_all.append(sp[ok])
         conf_all.append(conf[ok])
         if len(sp) >= span and h > 0:
