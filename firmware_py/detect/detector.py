@@ -181,7 +181,7 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_persist_ms": 20000, "det_persist_q8": 205, "det_escalate_ms": 300000,
         "det_dwell_ms": 60000,
         "det_idle_vel_q16": vel_per_mm_s // 20,   # 0.05 mm/s
-        "det_hold_ms": 5000, "det_hold_max_ms": 60000, "det_steady_ms": 2000,
+        "det_hold_ms": 5000, "det_hold_max_ms": 60000, "det_steady_ms": 1000,
         "det_speed_tol_q12": 123, "det_level_tol_q8": 128,
         "det_iso_group": group, "det_iso_found": foundation,
         "det_iso_bounds": bounds_in_vel_units(group, foundation, vel_per_mm_s),
