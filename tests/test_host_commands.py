@@ -29,7 +29,7 @@ KEY = b"brackwater site key, pumps P-101 and P-102"
 def idle_gateway(tmp_path):
     """A virtual gateway that has played 3 s of sines and now idles, answering the link."""
     with emulator(sine_recording(tmp_path / "s.wav", seconds=3.0), tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(10)
+        assert vg.ended.wait(120)
         yield vg
 
 
@@ -308,7 +308,7 @@ def test_events_are_the_windows_that_raised_them(tmp_path, capsys):
     rec = fault_recording(tmp_path / "fault.wav")
     src = read_recording(rec)
     with emulator(rec, tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(20)
+        assert vg.ended.wait(120)
         rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--out", tmp_path / "ev")
         assert rc == 0 and "pulled 2 event snapshots" in out
         on_device = {e["id"]: e for e in vg.gateway.snapshots.list()}
@@ -373,7 +373,7 @@ def _on_a_terminal(*argv):
             break
         text += chunk
     os.close(master)
-    return proc.wait(20), text.decode(errors="replace")
+    return proc.wait(120), text.decode(errors="replace")
 
 
 def test_terminal_views(idle_gateway, tmp_path):
