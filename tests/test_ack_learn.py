@@ -25,6 +25,8 @@ def test_ack_without_alarm_and_learning_start_stop(tmp_path, capsys):
         rc, out, _ = run_cli(capsys, "learn", "--stop", "--port", vg.port)
         assert rc == 0 and out.startswith("learning stopped")
         assert not vg.gateway.det.learning
+        rc, out, _ = run_cli(capsys, "learn", "--stop", "--port", vg.port)   # again: not learning
+        assert rc == 0 and out.startswith("the gateway was not learning")
 
 
 def test_learn_needs_start_or_stop(capsys):

@@ -24,6 +24,7 @@ from micropython import const
 
 from firmware_py.codec import mpack
 from firmware_py.run import params as params_mod
+from firmware_py.run import param_check
 from firmware_py.detect.alarm import STATE_NAMES
 from firmware_py.store.bootcount import BootCounter
 from firmware_py.drivers import driver_module, open_sensor
@@ -124,6 +125,7 @@ class SafeGateway(DeviceGateway):
         self.windows = 0
         self.fault = "safe"
         self.quota = 0
+        store.trial = self.trial_params          # a set committed in safe mode must run too
 
     def uptime_s(self):
         return self.ticks_ms() // 1000   # no samples in safe mode; the loop is short-lived
@@ -192,6 +194,12 @@ class App:
         factory = mpack.packb(params_mod.factory(profile))
         store = ParamStore(root, profile["name"], fs, n, axes, factory, self._site_key())
         snaps = SnapshotRing(root, SNAPSHOT_SLOTS, fs, n, axes)
+        if self.safe and store.source == "cur" and store.previous_version() is not None:
+            # Crashing boots on a set that has a previous one: the set goes aside and the
+            # previous set gets a fresh count; safe mode only if that one crashes too.
+            self._quarantine(store)
+            self.boots.clear()
+            self.safe = self.boots.start()
         if self.safe:
             self.gw = SafeGateway(profile, store, snaps, ticks_ms)
         else:
@@ -213,10 +221,11 @@ class App:
 
     def _gateway(self, store, snaps):
         """A running DeviceGateway on the committed set; a set the store accepts but the
-        feature core or detector refuses is moved aside (params.bad) and the store boots the
-        one before it, or the factory set, which always builds."""
+        feature core or detector refuses, or that fails its trial run (param_check), is moved
+        aside (params.bad) and the store boots the one before it, or the factory set."""
         while True:
             try:
+                param_check.trial(store.params, self.profile)
                 return DeviceGateway(self.profile, store, snaps, self.ticks_ms)
             except Exception:
                 if store.source == "factory":

@@ -22,6 +22,7 @@ import gc
 
 from firmware_py.detect import alarm
 from firmware_py.run import params as params_mod
+from firmware_py.run import param_check
 from firmware_py.dsp.feature_index import F_RMS
 
 FW_VERSION = "edgevib-0.1"
@@ -68,6 +69,11 @@ class Gateway:
         self.gaps = array.array('i', bytes(4 * (profile["ring_windows"] + 1)))   # frames
         self.raw_gap = 0             # frames lost just before the last processed window
         self.core, self.det = params_mod.build(store.params, profile)
+        store.trial = self.trial_params          # no set is committed before it has run
+
+    def trial_params(self, p):
+        """Raise ValueError unless set p runs on this board (firmware_py/run/param_check.py)."""
+        param_check.trial(p, self.profile)
 
     # ---- samples and windows ----
     def feed(self, src, frames):

@@ -88,6 +88,7 @@ class ParamStore:
         self.params = None
         self.image = b""         # committed image; boot() always sets it
         self.source = None       # which file the running set came from: cur, new, old, factory
+        self.trial = None        # trial(params): raise ValueError unless the set runs (param_check)
         self.boot()
 
     # ---- checking ----
@@ -202,8 +203,14 @@ class ParamStore:
         self._pending = None
         if size != self._staged:
             raise ParamError("have %d bytes staged, expected %d" % (self._staged, size))
-        self._pending = self.check(self._stage, size, True)
-        return self._pending
+        p = self.check(self._stage, size, True)
+        if self.trial is not None:
+            try:
+                self.trial(p)
+            except ValueError as e:
+                raise ParamError("set does not run on this gateway: " + str(e))
+        self._pending = p
+        return p
 
     def staged_crc(self):
         """CRC-32 trailer of the staged image, as an int."""

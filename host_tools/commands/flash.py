@@ -20,6 +20,7 @@ from firmware_py.store.paramstore import build_image
 from host_tools.link.device_link import connected, read_key
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
+from host_tools.ops.param_gate import profile_for, prove
 
 HELP = "upload a parameter set to a gateway, verify, commit and read it back"
 _REQUIRED = ("version", "board", "fs_hz", "n", "axes")
@@ -81,6 +82,9 @@ def flash(c, image: bytes, progress=None) -> dict:
 
 def run(args: argparse.Namespace) -> int:
     data, body = load_body(args.params)
+    profile = profile_for(body)
+    if profile is not None:        # a board the host knows: prove the set runs before sending
+        prove(body, profile, args.params)
     key = read_key(args.key_file)
     image = build_image(data, key)
     with connected(args.port) as c:

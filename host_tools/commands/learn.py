@@ -23,6 +23,11 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     with connected(args.port) as c:
+        if args.stop:
+            was = c.status()["state"]
+            if was != "learning":
+                print(f"the gateway was not learning (it is {was}); nothing to stop")
+                return 0
         c.learn(bool(args.start))
         state = c.status()["state"]
     if args.start and state != "learning":

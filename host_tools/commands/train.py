@@ -56,6 +56,13 @@ def load_board(path: str | Path | None) -> dict:
         raise EdgevibError(f"board profile {e}") from None
 
 
+def require_existing(sources: list[Path]) -> None:
+    """One clear line for a recording or folder that is not there."""
+    for s in sources:
+        if not s.exists():
+            raise EdgevibError(f"{s}: no such recording or folder")
+
+
 def check_outputs(paths: list[Path], sources: list[Path]) -> None:
     """Refuse outputs that would overwrite an input (recording or sidecar) or have no folder."""
     inputs: set[Path] = set()
@@ -75,7 +82,8 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError(f"{out}: the parameter set is written as .msgpack; give a .msgpack name")
     paths = list(outputs(out))
     sources = [Path(s) for s in args.normal]
-    check_outputs(paths, sources)
+    require_existing(sources)
+    check_outputs(paths, sources + ([Path(args.board)] if args.board else []))
     if not args.false_alerts_per_month > 0:
         raise EdgevibError("--false-alerts-per-month must be a positive number")
     if not 0 <= args.version < 1 << 30:
