@@ -256,16 +256,17 @@ def test_bad_or_missing_parameters_still_run_the_factory_set(tmp_path, content):
     assert seen == {0, 1}
 
 
-def test_a_committed_set_the_detector_refuses_does_not_stop_the_gateway(tmp_path):
+def test_a_set_the_detector_refuses_is_refused_before_commit_and_the_gateway_runs_on(tmp_path):
     rig = Rig(tmp_path)
     img = identity_only_set(4)
     assert rig.ask(1, "param_write", off=0, data=img)["ok"]
-    assert rig.ask(2, "param_verify", size=len(img))["ok"]
+    r = rig.ask(2, "param_verify", size=len(img))
+    assert r["ok"] is False and r["err"] == "refused" and "does not run" in r["msg"]
     r = rig.ask(3, "param_commit")
-    assert r["ok"] is False                               # the build failed after the commit
+    assert r["ok"] is False and "nothing verified" in r["msg"]       # nothing half-applied
     rig.run(N // 16 + 1)
     assert rig.app.gw.windows >= 1
-    assert rig.app.gw.params.source == "factory" and (tmp_path / "params.bad").exists()
+    assert rig.app.gw.params.source == "factory" and not (tmp_path / "params.cur").exists()
 
 
 class StopLoop(Exception):

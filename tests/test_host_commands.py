@@ -77,7 +77,7 @@ def test_flash_refusals_are_one_line_and_change_nothing(idle_gateway, tmp_path, 
     rc, out, err = run_cli(capsys, "flash", tmp_path / "missing.msgpack", "--port", vg.port)
     assert rc == 2 and _one_line(err) and "cannot read" in err
     rc, out, err = run_cli(capsys, "flash", good, "--port", str(tmp_path / "no-such-port"))
-    assert rc == 3 and _one_line(err) and "cannot open serial port" in err
+    assert rc == 2 and _one_line(err) and "cannot open serial port" in err      # bad input: 2
     c = Client.open(vg.port)
     try:
         assert c.identify()["param_version"] == 1 and c.param_read() == build_image(good.read_bytes())

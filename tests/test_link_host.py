@@ -7,7 +7,7 @@ import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import ParamStore, build_image
 from firmware_py.link.service import Service
 from firmware_py.store.snapshots import SnapshotRing, parse
-from host_tools.errors import LinkError
+from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import Client, DeviceRefused, Link, open_transport
 from host_tools.link.transport import PtyTransport, memory_pair
 from tests.test_service import BOARD, FakeGateway, body
@@ -88,9 +88,11 @@ def test_transport_names():
     loop = open_transport("loop:")
     loop.write(b"abc")
     assert loop.read(10, 0.1) == b"abc" and loop.read(10, 0.01) == b""
-    with pytest.raises(LinkError, match="unknown port option 'speed=9'"):
+    # bad port names are bad input (exit 2, docs/protocol.md "Exit status"), not a link failure
+    with pytest.raises(EdgevibError, match="unknown port option 'speed=9'") as e:
         open_transport("serial:/dev/null?speed=9")
-    with pytest.raises(LinkError, match="cannot open serial port /nonexistent/tty"):
+    assert not isinstance(e.value, LinkError) and e.value.exit_status == 2
+    with pytest.raises(EdgevibError, match="cannot open serial port /nonexistent/tty"):
         open_transport("/nonexistent/tty")
 
 

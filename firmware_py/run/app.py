@@ -17,7 +17,6 @@
 # the heap locked, then its snapshot and stream pushes (allocate), the LED and the watchdog.
 # One window per pass keeps the link answered when processing falls behind the sensor.
 import array
-import os
 
 import micropython
 from micropython import const
@@ -27,6 +26,7 @@ from firmware_py.run import params as params_mod
 from firmware_py.run import param_check
 from firmware_py.detect.alarm import STATE_NAMES
 from firmware_py.store.bootcount import BootCounter
+from firmware_py.store.latch import LatchFile
 from firmware_py.drivers import driver_module, open_sensor
 from firmware_py.run.gateway import Gateway
 from firmware_py.store.paramstore import ParamStore
@@ -45,6 +45,25 @@ _RX_CHUNK = const(64)             # link bytes handled per pass
 # Timer ids: the rp2 port has virtual timers only (-1), the esp32 port hardware timers 0..3
 # (port quick-reference pages, from memory).
 _TIMER_ID = {"rp2040": -1, "esp32s3": 0}
+
+
+def site_key(root):
+    """The site key (bytes) from root/site.key, or None: then unsigned sets are accepted."""
+    try:
+        with open(root + "/site.key", "rb") as f:
+            k = f.read()
+        return k or None
+    except OSError:
+        return None
+
+
+def gateway_id(machine):
+    """This board's id as hex (machine.unique_id(): the flash or chip serial), or None."""
+    try:
+        from binascii import hexlify
+        return hexlify(machine.unique_id()).decode()
+    except (AttributeError, OSError, TypeError):
+        return None
 
 
 def elapsed_ms(now, then):
@@ -84,10 +103,10 @@ class DeviceGateway(Gateway):
     `quota` windows per poll(), and `fault` (a state name such as "sensor_fault", or "" for
     none) reported as the state while the application sees no samples."""
 
-    def __init__(self, profile, store, snapshots, ticks_ms):
+    def __init__(self, profile, store, snapshots, ticks_ms, latch=None):
         self.fault = ""
         self.quota = 0
-        Gateway.__init__(self, profile, store, snapshots, ticks_ms)
+        Gateway.__init__(self, profile, store, snapshots, ticks_ms, latch)
 
     def window(self):
         if self.quota <= 0:
@@ -181,6 +200,7 @@ class App:
         self.timer = None
         self.root = root
         self.boots = BootCounter(root + "/boots.txt", CRASH_LIMIT)
+        self.latch = LatchFile(root + "/alarm.latch")   # survives flash, rollback, reboot, power
         self.safe = self.boots.start()
         # The watchdog starts before anything that could hang (sensor, files); it cannot be
         # stopped once started.
@@ -192,12 +212,13 @@ class App:
         n = profile["window_n"]
         axes = profile["axes"]
         factory = mpack.packb(params_mod.factory(profile))
-        store = ParamStore(root, profile["name"], fs, n, axes, factory, self._site_key())
+        store = ParamStore(root, profile["name"], fs, n, axes, factory, site_key(root),
+                           gateway_id=gateway_id(machine))
         snaps = SnapshotRing(root, SNAPSHOT_SLOTS, fs, n, axes)
         if self.safe and store.source == "cur" and store.previous_version() is not None:
             # Crashing boots on a set that has a previous one: the set goes aside and the
             # previous set gets a fresh count; safe mode only if that one crashes too.
-            self._quarantine(store)
+            store.quarantine()
             self.boots.clear()
             self.safe = self.boots.start()
         if self.safe:
@@ -210,15 +231,6 @@ class App:
             self._start_sensor(sensor, ticks_us)
 
     # ---- start-up ----
-    def _site_key(self):
-        """The site key (bytes) from root/site.key, or None: then unsigned sets are accepted."""
-        try:
-            with open(self.root + "/site.key", "rb") as f:
-                k = f.read()
-            return k or None
-        except OSError:
-            return None
-
     def _gateway(self, store, snaps):
         """A running DeviceGateway on the committed set; a set the store accepts but the
         feature core or detector refuses, or that fails its trial run (param_check), is moved
@@ -226,20 +238,11 @@ class App:
         while True:
             try:
                 param_check.trial(store.params, self.profile)
-                return DeviceGateway(self.profile, store, snaps, self.ticks_ms)
+                return DeviceGateway(self.profile, store, snaps, self.ticks_ms, self.latch)
             except Exception:
                 if store.source == "factory":
                     raise
-                self._quarantine(store)
-
-    def _quarantine(self, store):
-        bad = self.root + "/params.bad"
-        try:
-            os.remove(bad)
-        except OSError:
-            pass
-        os.rename(store.cur, bad)
-        store.boot()
+                store.quarantine()
 
     def _start_sensor(self, sensor, ticks_us):
         p = self.profile
@@ -325,7 +328,7 @@ class App:
             if not self.safe and not hasattr(gw, "det"):
                 # A committed set that cannot be built left the gateway without a detector: run
                 # the set before it, or the factory set, in a new gateway (keeping the clock).
-                self._quarantine(gw.params)
+                gw.params.quarantine()
                 self.gw = self._gateway(gw.params, gw.snapshots)
                 self.gw.clock_base = gw.clock_base
                 self.gw.service = self.service
@@ -352,28 +355,39 @@ class App:
             sleep_ms(1)
 
 
-def prepare():
-    """For boot.py: room to report an exception raised in the timer callback."""
+def prepare(root=""):
+    """For boot.py: room to report an exception raised in the timer callback; on a gateway that
+    holds a site key, Ctrl-C is data from the first moment (no way into the REPL)."""
     micropython.alloc_emergency_exception_buf(128)
+    if site_key(root):
+        micropython.kbd_intr(-1)
 
 
 def main(root="", board_file="/board.json", grace_ms=GRACE_MS):
     """For main.py: a start-up window in which Ctrl-C reaches the REPL (for mpremote and
-    `edgevib deploy`), then the link takes the USB console and the gateway runs for good."""
+    `edgevib deploy`), then the link takes the USB console and the gateway runs for good.
+    With a site key there is no window and main() never returns to the REPL (the key and the
+    sets would be readable there; docs/protocol.md, "Threat model")."""
     import machine
     import select
     import sys
     import time
     from firmware_py.run import board
+    keyed = site_key(root) is not None
+    if keyed:
+        micropython.kbd_intr(-1)
     try:
         profile = board.load(board_file)
     except board.BoardError as e:
-        print("edgevib: not starting:", e)       # stays in the REPL, no watchdog started
-        return
+        print("edgevib: not starting:", e)       # no watchdog started
+        while keyed:                             # keyed: never fall through to the REPL
+            time.sleep_ms(1000)
+        return                                   # unkeyed: stays in the REPL
     led = StatusLed(None if profile["led_pin"] is None
                     else machine.Pin(profile["led_pin"], machine.Pin.OUT, value=1))
     led.show("starting", 0)
-    time.sleep_ms(grace_ms)
+    if not keyed:
+        time.sleep_ms(grace_ms)
     micropython.kbd_intr(-1)         # frames are binary: byte 0x03 must not interrupt
     link = StreamLink(sys.stdin.buffer, sys.stdout.buffer, select)
     App(machine, profile, root, link, time.ticks_ms, time.ticks_us).run(time.sleep_ms)

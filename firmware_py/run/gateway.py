@@ -39,7 +39,7 @@ class Gateway:
     so its window path never makes a big int; wall-clock times are clock_base + up_s, formed
     only outside the heap lock (status, snapshots, pushes)."""
 
-    def __init__(self, profile, store, snapshots, ticks_ms):
+    def __init__(self, profile, store, snapshots, ticks_ms, latch=None):
         self.profile = profile
         self.params = store
         self.snapshots = snapshots
@@ -70,6 +70,9 @@ class Gateway:
         self.raw_gap = 0             # frames lost just before the last processed window
         self.core, self.det = params_mod.build(store.params, profile)
         store.trial = self.trial_params          # no set is committed before it has run
+        self.latch = latch           # LatchFile, or None: the latched alarm lives in RAM only
+        self.latched = latch.load() if latch is not None else 0   # reason, 0 none
+        self._relatch()
 
     def trial_params(self, p):
         """Raise ValueError unless set p runs on this board (firmware_py/run/param_check.py)."""
@@ -160,6 +163,7 @@ class Gateway:
     def poll(self):
         """Process every waiting window, then do the work that allocates: snapshots, stream."""
         while self.window():
+            self._keep_latch()
             if self.pending_kind is not None:
                 kind = alarm.STATE_NAMES[self.pending_kind]
                 self.pending_kind = None
@@ -223,9 +227,11 @@ class Gateway:
             g[i] = 0
         self._lose(self.windows, lost)
         self.lost_elsewhere += self.core.ring.dropped     # the count outlives its ring
+        self._keep_latch()           # a window run outside poll() may have raised it
         del self.core, self.det   # free the old buffers first: the heap holds one set, not two
         gc.collect()
         self.core, self.det = params_mod.build(p, self.profile)
+        self._relatch()              # a new set never clears an alarm nobody acknowledged
         self.dropped_seen = self.lost_elsewhere
         self.slot = 0                # the next frame starts a window in the new ring
         self.left = self.core.n
@@ -233,7 +239,27 @@ class Gateway:
     def acknowledge(self):
         latched = self.det.state == alarm.ALARM
         self.det.ack(self.uptime_s())
+        self._keep_latch()
         return latched
+
+    # ---- the latched alarm, kept in the state file (firmware_py/store/latch.py) ----
+    def _keep_latch(self):
+        """Save the latch when it changed: an alarm raised and not acknowledged, or cleared."""
+        a = self.det.alarm
+        r = a.reason if a.level == alarm.ALARM and not a.acked else 0
+        if r != self.latched:
+            self.latched = r
+            if self.latch is not None:
+                self.latch.save(r)
+
+    def _relatch(self):
+        """Put a latched alarm (self.latched, its reason) back into a freshly built detector."""
+        if self.latched:
+            det = self.det
+            det.alarm.level = alarm.ALARM
+            det.alarm.reason = self.latched
+            det.alarm.acked = False
+            det.state = alarm.ALARM
 
     def learn(self, on):
         if on:

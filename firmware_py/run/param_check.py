@@ -16,9 +16,9 @@
 # scoring path runs too, then one learning window. Any exception is a refusal.
 #
 # The same functions run on the device (store commit path, boot) and on the host (flash, deploy,
-# replay). Not per-window code: allocates (a second feature core and detector, freed after).
+# replay). Not per-window code: allocates a second feature core and detector, garbage on return
+# (the heap must hold two sets for a moment; boards.md sizes the heap for that).
 import array
-import gc
 
 import micropython
 
@@ -114,8 +114,6 @@ def trial(p, profile):
         raise
     except Exception as e:     # IndexError, MemoryError (allocated under the lock), ...
         raise ValueError("the set does not run: %s %s" % (type(e).__name__, e))
-    finally:
-        gc.collect()
 
 
 def _run(core, det, profile):

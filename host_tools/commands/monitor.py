@@ -18,7 +18,7 @@ import firmware_py  # noqa: F401
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect.iso_zones import ZONE_NAMES
 from host_tools.data import units
-from host_tools.link.device_link import committed_params, connected, feature_name, m_s2_per_count
+from host_tools.link.device_link import add_key_argument, committed_params, connected, feature_name, m_s2_per_count, read_key
 from host_tools.errors import EdgevibError, LinkError
 
 HELP = "live view of a gateway: state, mode, score, ISO zone and the main features"
@@ -42,6 +42,7 @@ class View:
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    add_key_argument(p)
     p.add_argument("--once", action="store_true", help="print one status and exit")
     p.add_argument("--updates", type=int, metavar="N", help="stop after N updates (default: until Ctrl-C)")
 
@@ -143,7 +144,7 @@ def run(args: argparse.Namespace) -> int:
     if args.updates is not None and args.updates < 1:
         raise EdgevibError("--updates must be at least 1")
     out = sys.stdout
-    with connected(args.port) as c:
+    with connected(args.port, key=read_key(args.key_file)) as c:
         v = view_of(c, args.port)
         if args.once:
             st = c.status()

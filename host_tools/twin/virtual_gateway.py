@@ -45,6 +45,7 @@ from firmware_py.codec import mpack
 from firmware_py.run.gateway import Gateway
 from firmware_py.store.paramstore import ParamStore
 from firmware_py.link.service import Service
+from firmware_py.store.latch import LatchFile
 from firmware_py.store.snapshots import SnapshotRing
 from host_tools.errors import EdgevibError
 from host_tools.data.recording import read_recording
@@ -127,7 +128,7 @@ class VirtualGateway:
         snaps = SnapshotRing(self.state_dir, SNAPSHOT_SLOTS, self.fs, p["window_n"], p["axes"])
         self.boot_fed = self.fed
         self.boot_pos = self.pos
-        gw = Gateway(p, store, snaps, self._ticks_ms)
+        gw = Gateway(p, store, snaps, self._ticks_ms, LatchFile(os.path.join(self.state_dir, "alarm.latch")))
         gw.clock_base = int(self.t0_s + self.pos / self.fs)
         gw.service = Service(gw, self._write)
         self.gateway = gw
