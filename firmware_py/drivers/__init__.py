@@ -4,8 +4,11 @@
 # read_into() may run under micropython.heap_lock() or from a hard timer callback.
 from micropython import const
 
+from firmware_py.dsp.counters import sat_add
+
 _TICKS_MASK = const(0x3FFFFFFF)   # MicroPython ticks wrap at 2**30 (time.ticks_* docs)
 _MAX_GAP_US = const(60_000_000)   # gaps longer than this are clamped: 16 * gap stays < 2**30
+_MAX_LOST = const(0x3FFFFFFF)     # one estimate held below 2**30 (a corrupt FIFO level)
 
 
 class I2CRegs:
@@ -79,8 +82,9 @@ class GapCounter:
         self._t = ticks_us()
         self._carry = 0          # Q4 us not yet worth a whole frame
         self._left = 0           # frames left in the FIFO after the previous read
-        self.lost = 0            # frames lost since start (never reset)
-        self.overruns = 0        # status reads that showed an overrun, since start
+        self.lost = 0            # frames lost since start (never reset; saturates at 2**30 - 1)
+        self.overruns = 0        # status reads that showed an overrun, since start (saturates)
+        self.unreported = 0      # frames lost since the application last took them (take())
 
     def restart(self, level):
         """Take the present moment and FIFO level as the new reference (after configuring)."""
@@ -106,10 +110,19 @@ class GapCounter:
             lost = self._left + due - level
             if lost < 0:
                 lost = 0
-            self.lost += lost
-            self.overruns += 1
+            if lost > _MAX_LOST:
+                lost = _MAX_LOST
+            self.lost = sat_add(self.lost, lost)
+            self.unreported = sat_add(self.unreported, lost)
+            self.overruns = sat_add(self.overruns, 1)
         self._left = level
         return lost
+
+    def take(self):
+        """Frames lost since the previous take() (the application tells the detector of them)."""
+        v = self.unreported
+        self.unreported = 0
+        return v
 
     def taken(self, frames):
         """Record frames taken out of the FIFO since the last status read."""

@@ -35,6 +35,7 @@ from firmware_py.link import frames
 from firmware_py.codec import mpack
 from firmware_py.store.paramstore import ParamError
 from firmware_py.link import auth
+from firmware_py.dsp.counters import sat_add
 
 _ERR_TEXT = {
     frames.ERR_COBS: "frame is not valid COBS",
@@ -114,7 +115,7 @@ class Service:
             if k > 0:
                 self._request(k)
             elif k < 0:
-                self.errors += 1
+                self.errors = sat_add(self.errors, 1)
                 self._send({"seq": None, "ok": False, "err": "frame", "msg": _ERR_TEXT[k]})
 
     def push(self, msg, kind="features"):
@@ -155,7 +156,7 @@ class Service:
         return frame
 
     def _request(self, k):
-        self.frames_in += 1
+        self.frames_in = sat_add(self.frames_in, 1)
         req_bytes = bytes(self.rx.buf[0:k])
         if req_bytes == self._last_req:
             self.write(self._last_reply)
@@ -199,7 +200,7 @@ class Service:
             return self._err(seq, "fail", type(e).__name__ + ": " + str(e))
 
     def _err(self, seq, code, text):
-        self.errors += 1
+        self.errors = sat_add(self.errors, 1)
         return {"seq": seq, "ok": False, "err": code, "msg": text}
 
     def _chunk(self, req, blob, total):

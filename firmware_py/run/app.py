@@ -22,6 +22,7 @@ import micropython
 from micropython import const
 
 from firmware_py.codec import mpack
+from firmware_py.dsp.counters import sat_add
 from firmware_py.run import params as params_mod
 from firmware_py.run import param_check
 from firmware_py.detect.alarm import STATE_NAMES
@@ -106,6 +107,10 @@ class DeviceGateway(Gateway):
     def __init__(self, profile, store, snapshots, ticks_ms, latch=None):
         self.fault = ""
         self.quota = 0
+        self.lost_fifo = 0           # frames lost to sensor FIFO overruns (saturates)
+        self.lost_acquire = 0        # frames read but lost when acquire() raised (saturates)
+        self.acq_errors = 0          # exceptions in acquire(), since start
+        self.error = ""              # the first acquisition error, as text
         Gateway.__init__(self, profile, store, snapshots, ticks_ms, latch)
 
     def window(self):
@@ -124,6 +129,11 @@ class DeviceGateway(Gateway):
         r = Gateway.status(self)
         if self.fault:
             r["state"] = self.fault
+        # dropped, by reason: these two, the rest to a full ring
+        r["lost_fifo"] = self.lost_fifo
+        r["lost_acquire"] = self.lost_acquire
+        r["acq_errors"] = self.acq_errors
+        r["error"] = self.error
         return r
 
 
@@ -196,7 +206,9 @@ class App:
         self.healthy = False
         self.fresh = 0               # set by acquire() when frames arrived
         self.drv = None
-        self.lost_seen = 0           # driver's lost-frame count already passed to the gateway
+        self.acq_lost = 0            # frames acquire() read and could not feed (timer writes)
+        self.acq_errors = 0          # exceptions acquire() caught, since start (saturates)
+        self.acq_error = None        # the first of them, for status
         self.timer = None
         self.root = root
         self.boots = BootCounter(root + "/boots.txt", CRASH_LIMIT)
@@ -276,13 +288,21 @@ class App:
         drv = self.drv
         if drv is None:
             return 0
+        k = 0
         try:
             k = drv.read_into(self.block)
             if k:
                 self.gw.feed(self.block, k)
                 self.fresh = 1
             return k
-        except Exception:
+        except Exception as e:
+            # Never silent: the frames read and not fed (at most k; a failing read loses what the
+            # FIFO overrun count then shows) are counted, and the first error is kept for
+            # status. Binding the exception allocates nothing: this may run under the lock.
+            self.acq_lost = sat_add(self.acq_lost, k)
+            self.acq_errors = sat_add(self.acq_errors, 1)
+            if self.acq_error is None:
+                self.acq_error = e
             return 0
 
     # ---- the main loop ----
@@ -303,10 +323,7 @@ class App:
         if gw.reboot_wanted:
             self.reboot()
         if not self.safe and self.drv is not None:
-            lost = self.drv.gaps.lost - self.lost_seen  # FIFO overruns the driver counted
-            if lost:
-                self.lost_seen += lost
-                gw.lost_upstream(lost)                  # never silent: the detector is told
+            self._count_losses(gw)
             gw.quota = 1
             before = gw.windows
             gw.poll()
@@ -319,6 +336,23 @@ class App:
             self.boots.clear()
             self.healthy = True
         self.led.show(self.state(), now)
+
+    def _count_losses(self, gw):
+        """Tell the gateway (and so the detector and status) of every frame lost upstream of
+        the ring since the last pass, by reason, and of the first acquisition error."""
+        lost = self.drv.gaps.take()                     # FIFO overruns the driver counted
+        if lost:
+            gw.lost_fifo = sat_add(gw.lost_fifo, lost)
+            gw.lost_upstream(lost)
+        lost = self.acq_lost                            # read and reset with no jump between:
+        self.acq_lost = 0                               # the timer cannot split them
+        if lost:
+            gw.lost_acquire = sat_add(gw.lost_acquire, lost)
+            gw.lost_upstream(lost)
+        gw.acq_errors = self.acq_errors
+        e = self.acq_error
+        if e is not None and not gw.error:
+            gw.error = "acquire: %s: %s" % (type(e).__name__, e)
 
     def _serve(self):
         k = self.link.read_into(self._rx)

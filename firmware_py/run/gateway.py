@@ -24,6 +24,7 @@ from firmware_py.detect import alarm
 from firmware_py.run import params as params_mod
 from firmware_py.run import param_check
 from firmware_py.dsp.feature_index import F_RMS
+from firmware_py.dsp.counters import COUNT_MAX, sat_add
 
 FW_VERSION = "edgevib-0.1"
 
@@ -53,7 +54,9 @@ class Gateway:
         self.reboot_wanted = False
         self.pending_kind = None     # "alert"/"alarm": a snapshot to save after this window
         self.service = None          # set by the application: pushes the stream
-        self.dropped_seen = 0
+        self.dropped_seen = 0        # frames the detector has been told of (saturates)
+        self.unseen = 0              # frames the ring lost since the last window (timer writes)
+        self.unseen_up = 0           # frames lost upstream since the last window (main loop writes)
         self.lost_elsewhere = 0      # frames dropped outside the present ring: sensor FIFO, old rings
         self.windows = 0
         self.every = profile["analyse_every"]
@@ -67,6 +70,9 @@ class Gateway:
         self.raw_views = [mv[a * n:(a + 1) * n] for a in range(axes)]
         self.raw_valid = False
         self.gaps = array.array('i', bytes(4 * (profile["ring_windows"] + 1)))   # frames
+        # windows wraps at a multiple of len(gaps) (gap slots stay aligned) with windows +
+        # slots below 2**30: every counter here saturates or wraps below the small-int limit
+        self.wrap = len(self.gaps) * (COUNT_MAX // (2 * len(self.gaps)))
         self.raw_gap = 0             # frames lost just before the last processed window
         self.core, self.det = params_mod.build(store.params, profile)
         store.trial = self.trial_params          # no set is committed before it has run
@@ -104,12 +110,13 @@ class Gateway:
         ring = self.core.ring
         lost = ring.push(src, k, first)
         if lost:
+            self.unseen = sat_add(self.unseen, lost)
             self._lose(self.windows + ring.slots, lost)
 
     def _skip(self, k):
         ring = self.core.ring
         if self.left == ring.n:
-            self.skipped += 1                                  # its first frame
+            self.skipped = sat_add(self.skipped, 1)            # its first frame
         self._lose(self.windows + ring.filled // ring.n, k)   # before the next window formed
 
     def _next_window(self):
@@ -124,13 +131,16 @@ class Gateway:
         window. Allocation-free (called from the acquisition timer)."""
         ring = self.core.ring
         self.up_frames += frames        # lost frames are time that passed
-        self.lost_elsewhere += frames   # main loop only; ring.dropped belongs to the timer's push
+        self.uptime_s()                 # folded now: no window may come for a long while
+        self.lost_elsewhere = sat_add(self.lost_elsewhere, frames)   # main loop only
+        self.unseen_up = sat_add(self.unseen_up, frames)
         self._lose(self.windows + ring.filled // ring.n, frames)
 
     def _lose(self, w, frames):
         """Note frames lost just before window index w (allocation-free)."""
         g = self.gaps
-        g[w % len(g)] += frames
+        k = w % len(g)
+        g[k] = sat_add(g[k], frames)
 
     def window(self):
         """Run one waiting window through features and detector; False if none waits.
@@ -149,15 +159,19 @@ class Gateway:
         k = self.windows % len(g)
         self.raw_gap = g[k]
         g[k] = 0
-        total = ring.dropped + self.lost_elsewhere
-        d = total - self.dropped_seen
-        self.dropped_seen = total
+        d = self.unseen              # no jump between read and reset: a soft timer cannot split it
+        self.unseen = 0
+        d = sat_add(d, self.unseen_up)
+        self.unseen_up = 0
+        self.dropped_seen = sat_add(self.dropped_seen, d)
         det = self.det
         old = det.state
         new = det.step(core.feats, self.uptime_s(), d)
         if new != old and (new == alarm.ALERT or new == alarm.ALARM):
             self.pending_kind = new
         self.windows += 1
+        if self.windows == self.wrap:
+            self.windows = 0
         return True
 
     def poll(self):
@@ -172,7 +186,7 @@ class Gateway:
                 self.service.push(self.status())
             if self.raw_on and self.service is not None:
                 t = self.ticks_ms()
-                self.service.push_data("raw", {"w": self.windows - 1, "gap": self.raw_gap,
+                self.service.push_data("raw", {"w": (self.windows - 1) % self.wrap, "gap": self.raw_gap,
                                                "t_s": self.now_s(), "ms": t % 1000},
                                        bytes(self.raw))
 
@@ -202,7 +216,8 @@ class Gateway:
         return {"state": alarm.STATE_NAMES[det.state], "mode": det.mode,
                 "score_q8": det.score, "feature": det.feat, "zone": det.zone,
                 "features": list(self.core.feats), "windows": self.windows,
-                "dropped": self.core.ring.dropped + self.lost_elsewhere, "skipped": self.skipped,
+                "dropped": sat_add(self.core.ring.dropped, self.lost_elsewhere),
+                "skipped": self.skipped,
                 "events": self.snapshots.next_id,
                 "t_s": self.now_s()}
 
@@ -226,13 +241,14 @@ class Gateway:
             lost += g[i]
             g[i] = 0
         self._lose(self.windows, lost)
-        self.lost_elsewhere += self.core.ring.dropped     # the count outlives its ring
+        self.lost_elsewhere = sat_add(self.lost_elsewhere, self.core.ring.dropped)   # outlives its ring
         self._keep_latch()           # a window run outside poll() may have raised it
         del self.core, self.det   # free the old buffers first: the heap holds one set, not two
         gc.collect()
         self.core, self.det = params_mod.build(p, self.profile)
         self._relatch()              # a new set never clears an alarm nobody acknowledged
-        self.dropped_seen = self.lost_elsewhere
+        self.unseen = 0              # losses before the new detector existed are not its own
+        self.unseen_up = 0
         self.slot = 0                # the next frame starts a window in the new ring
         self.left = self.core.n
 

@@ -66,6 +66,8 @@ def validate(p, profile):
                     ("n", profile["window_n"]), ("axes", profile["axes"])):
         if p[k] != want:
             raise ValueError("'%s' is %s, this gateway has %s" % (k, p[k], want))
+    if "gateway" in p and not isinstance(p["gateway"], str):
+        raise ValueError("'gateway' (the id a set is bound to) must be a str")
     if p["version"] < 0 or p["counts_per_g"] < 1:
         raise ValueError("'version' must be >= 0 and 'counts_per_g' >= 1")
     bands = p.get("fc_bands")
