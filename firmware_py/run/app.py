@@ -163,7 +163,7 @@ class SafeGateway(DeviceGateway):
         return {"state": "safe", "mode": -1, "score_q8": 0, "feature": -1, "zone": 0,
                 "features": [], "windows": 0, "dropped": 0, "skipped": 0,
                 "events": self.snapshots.next_id,
-                "t_s": self.now_s()}
+                "t_s": self.now_s(), "param_crc": self.params.crc()}
 
     def stream(self, on):
         self.streaming = False

@@ -219,7 +219,7 @@ class Gateway:
                 "dropped": sat_add(self.core.ring.dropped, self.lost_elsewhere),
                 "skipped": self.skipped,
                 "events": self.snapshots.next_id,
-                "t_s": self.now_s()}
+                "t_s": self.now_s(), "param_crc": self.params.crc()}
 
     def stream(self, on):
         self.streaming = bool(on)

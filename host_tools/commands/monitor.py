@@ -34,6 +34,7 @@ class View:
     fw: str
     port: str
     version: int
+    crc: int              # identify's param_crc: the set this view describes
     axes: int
     scale: float          # m/s^2 per count
     alert_q8: int | None
@@ -136,7 +137,7 @@ def view_of(c, port: str) -> View:
     info = c.identify()
     p = committed_params(c)
     return View(board=info["board"], fw=info["fw"], port=port, version=info["param_version"],
-                axes=info["axes"], scale=m_s2_per_count(p), alert_q8=p.get("det_thr_alert_q8"),
+                crc=info["param_crc"], axes=info["axes"], scale=m_s2_per_count(p), alert_q8=p.get("det_thr_alert_q8"),
                 alarm_q8=p.get("det_thr_alarm_q8"))
 
 
@@ -156,6 +157,8 @@ def run(args: argparse.Namespace) -> int:
         try:
             while args.updates is None or shown < args.updates:
                 st = _next_status(c)
+                if st.get("param_crc", v.crc) != v.crc:     # a new set: version, limits, scale
+                    v = view_of(c, args.port)
                 if screen is not None:
                     screen.draw(render_block(st, v))
                 else:
