@@ -174,3 +174,30 @@ def test_signed_rollback_over_the_link(tmp_path):
     c.param_verify(len(build_image(body(3), KEY)))
     c.param_commit()
     assert c.rollback(KEY) == 1                       # the client signs for itself
+
+
+def test_stale_frame_errors_after_line_noise_do_not_use_up_the_tries(tmp_path):
+    # 2 kB of line noise with a 00 every 20 bytes: the device answers each damaged frame with a
+    # frame error (seq nil), about 100 of them, which wait at the host before its next request
+    c, gw, svc = in_memory(tmp_path)
+    noise = bytes((i * 37 + 11) % 255 + 1 if i % 20 else 0 for i in range(2041))   # ends on 00
+    c.link.transport.write(noise)
+    assert svc.errors >= 100
+    assert c.acknowledge() is True and c.acknowledge() is False     # two runs, both answered
+    assert c.link.frames_sent == 2                                  # no try used up by the noise
+
+
+def test_frame_errors_during_a_request_are_resent_without_using_a_try(tmp_path):
+    c, gw, svc = in_memory(tmp_path, timeout_s=0.05)
+    dev_send = svc.write
+    damaged = [0]
+
+    def noisy(frame):                  # 4 frames damaged in a row: more than the 3 tries
+        if damaged[0] < 4:
+            damaged[0] += 1
+            dev_send(b"\x01\x00")      # nothing a host can decode: an idle-line byte pattern
+            svc._send({"seq": None, "ok": False, "err": "frame", "msg": "frame CRC mismatch"})
+            return
+        dev_send(frame)
+    svc.write = noisy
+    assert c.status()["state"] == "alert"

@@ -55,8 +55,8 @@ class Link:
         out = bytearray(frames.wire_size(len(payload)))
         return bytes(out[:frames.encode(buf, len(payload), out)])
 
-    def _pump(self, timeout_s: float) -> None:
-        """Read what arrives within timeout_s and queue every good frame."""
+    def _pump(self, timeout_s: float) -> int:
+        """Read what arrives within timeout_s and queue every good frame; the bytes read."""
         data = self.transport.read(4096, timeout_s)
         for b in data:
             k = self._rx.push(b)
@@ -74,6 +74,7 @@ class Link:
                     self._ready.append(msg)
                 else:
                     self.bad_frames += 1
+        return len(data)
 
     def request(self, cmd: str, **args) -> dict:
         """Send cmd with args and return the reply's results (seq and ok removed). With a site
@@ -131,7 +132,8 @@ class Link:
     def _drain(self) -> None:
         """Drop replies that wait from before this request (stale frame errors, late replies);
         unsolicited pushes are kept."""
-        self._pump(0.0)
+        while self._pump(0.0):
+            pass
         self._ready.clear()
 
     def _take(self, seq: int):
