@@ -195,8 +195,7 @@ def test_frame_errors_during_a_request_are_resent_without_using_a_try(tmp_path):
     def noisy(frame):                  # 4 frames damaged in a row: more than the 3 tries
         if damaged[0] < 4:
             damaged[0] += 1
-            dev_send(b"\x01\x00")      # nothing a host can decode: an idle-line byte pattern
-            svc._send({"seq": None, "ok": False, "err": "frame", "msg": "frame CRC mismatch"})
+            dev_send(svc._encode({"seq": None, "ok": False, "err": "frame", "msg": "frame CRC mismatch"}))
             return
         dev_send(frame)
     svc.write = noisy

@@ -112,7 +112,8 @@ def render_line(st: dict, v: View) -> str:
 
     t = st.get("t_s")
     stamp = datetime.fromtimestamp(t, timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ") if isinstance(t, int) else "-"
-    return (f"{stamp} state={state} mode={mode} score={score} zone={zone} driver={driver.replace(' ', '.')} "
+    return (f"{stamp} set=v{v.version} state={state} mode={mode} score={score} zone={zone} "
+            f"driver={driver.replace(' ', '.')} "
             f"vel_mm_s={per_axis('vel', '.2f')} rms_m_s2={per_axis('rms', '.3f')} "
             f"peak_m_s2={per_axis('peak', '.3f')} crest={per_axis('crest', '.2f')} "
             f"kurt={per_axis('kurt', '.2f')} windows={st['windows']} dropped={st['dropped']} "
