@@ -164,8 +164,38 @@ def test_a_failing_bus_in_the_timer_callback_raises_nothing_and_shows(tmp_path):
     def broken(out):
         raise OSError(5)                 # EIO, as machine.SPI/I2C report a failed transfer
     rig.app.drv.read_into = broken
-    rig.run(STALL_MS * 1000 // BLOCK_US + 1)        # the timer keeps firing into the error
+    periods = STALL_MS * 1000 // BLOCK_US + 1
+    rig.run(periods)                                 # the timer keeps firing into the error
     assert rig.app.acquire() == 0 and rig.app.state() == "sensor_fault"
+    st = rig.ask(1, "status")                        # counted, and the first error surfaced
+    assert st["acq_errors"] == periods + 1 and st["error"] == "acquire: OSError: 5"
+    assert st["lost_acquire"] == 0                   # nothing was read, so nothing read was lost
+
+
+def test_frames_lost_when_acquisition_raises_are_counted_with_their_reason(tmp_path):
+    # a MemoryError while feeding (the heap locked by window(), or a set being rebuilt) loses
+    # the block just read: counted as dropped, told to the detector, and the error shown
+    rig = Rig(tmp_path)
+    rig.run(CYCLE)
+    gw = rig.app.gw
+    feed = gw.feed
+    failed = []
+
+    def failing(src, frames):
+        if len(failed) < 3:
+            failed.append(frames)
+            raise MemoryError("memory allocation failed, heap is locked")
+        feed(src, frames)
+    gw.feed = failing
+    told = gw.dropped_seen
+    rig.run(2 * CYCLE)
+    lost = sum(failed)                               # the three blocks read, about 16 frames each
+    assert len(failed) == 3 and lost >= 3 * PICO["fifo_watermark"]
+    st = rig.ask(1, "status")
+    assert st["lost_acquire"] == lost and st["acq_errors"] == 3
+    assert st["error"] == "acquire: MemoryError: memory allocation failed, heap is locked"
+    assert st["dropped"] == lost and st["lost_fifo"] == 0
+    assert gw.dropped_seen - told == lost            # and the detector was told
 
 
 def test_an_absent_sensor_gives_sensor_fault_and_a_working_link(tmp_path):
@@ -519,7 +549,7 @@ for w in range(%(windows)d):
 k0 = (gw.windows - 1) * %(cycle)d
 want = [m.sample(k, 0) for k in range(k0, k0 + 4)]
 emit([clean, gw.windows, gw.skipped, app.drv.gaps.lost, gw.core.ring.dropped, list(gw.raw[0:4]),
-      want])
+      want, app.acq_errors, app.acq_lost])
 """
 
 
@@ -528,8 +558,11 @@ def test_per_window_step_allocates_nothing_on_micropython():
     _stage_guest()
     res = run_guest(GUEST % {"profile": json.dumps(PICO), "cycle": EVERY * N,
                              "block_us": BLOCK_US, "windows": 3})
-    clean, windows, skipped, lost, dropped, head, want = res.out[0]
+    clean, windows, skipped, lost, dropped, head, want, acq_errors, acq_lost = res.out[0]
     assert clean, "a per-window step allocated under heap_lock"
+    # acquire() catches what it raises (it runs in the timer callback), so `clean` alone cannot
+    # see a MemoryError inside it: its own count can
+    assert acq_errors == 0 and acq_lost == 0
     assert windows == 3 and skipped == 3 * (EVERY - 1) and lost == 0 and dropped == 0
     assert head == want                         # the window holds the chip's samples
 

@@ -318,12 +318,13 @@ class App:
         """One pass of the main loop: link, one window (heap locked), its snapshot and stream,
         sample-flow check, boot counter, watchdog, LED."""
         now = self.ticks_ms()
+        if not self.safe and self.drv is not None:
+            self._count_losses(self.gw)      # before the link: status shows them at once
         self._serve()
         gw = self.gw
         if gw.reboot_wanted:
             self.reboot()
         if not self.safe and self.drv is not None:
-            self._count_losses(gw)
             gw.quota = 1
             before = gw.windows
             gw.poll()
