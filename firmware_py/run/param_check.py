@@ -137,12 +137,12 @@ def _run(core, det, profile):
     per = core.per
     for a in range(axes):              # inside the set's own sensor-health and running limits
         b = a * per
-        if f[b + fi.F_RMS] < det.flat:
-            f[b + fi.F_RMS] = det.flat
+        if f[b + fi.F_RMS] < det.flat_rms_q8:
+            f[b + fi.F_RMS] = det.flat_rms_q8
         f[b + fi.F_CLIP] = 0
-        f[b + fi.F_MEAN] = (det.dc_lo[a] >> 1) + (det.dc_hi[a] >> 1)
-        if f[b + fi.F_VEL] < det.idle_floor:
-            f[b + fi.F_VEL] = det.idle_floor
+        f[b + fi.F_MEAN] = (det.dc_lo_q8[a] >> 1) + (det.dc_hi_q8[a] >> 1)
+        if f[b + fi.F_VEL] < det.idle_vel_q16:
+            f[b + fi.F_VEL] = det.idle_vel_q16
     det.hold = 0                       # past the start-up hold-off: the scoring path runs
     _locked_step(det, f, 1)
     if det.learn(2):
