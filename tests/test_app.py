@@ -214,6 +214,39 @@ def boots(root):
     return int((root / "boots.txt").read_text())
 
 
+def pico_set(version, **changes):
+    """The Pico's factory set renumbered (and changed), as a committed image."""
+    from firmware_py.run import params as params_mod
+    p = params_mod.factory(PICO)
+    p.update(version=version, **changes)
+    return build_image(msgpack.packb(p))
+
+
+def test_a_set_that_fails_its_trial_at_boot_falls_back_to_the_previous_set(tmp_path):
+    good = pico_set(2)
+    bad = pico_set(3, det_axes=8, det_dc_lo_q8=[-1] * 8, det_dc_hi_q8=[1] * 8)   # crashes a window
+    (tmp_path / "params.old").write_bytes(good)
+    (tmp_path / "params.cur").write_bytes(bad)
+    rig = Rig(tmp_path)
+    assert not rig.app.safe and rig.app.gw.params.version == 2
+    assert (tmp_path / "params.bad").read_bytes() == bad and (tmp_path / "params.cur").read_bytes() == good
+    rig.run(CYCLE + 1)
+    assert rig.app.gw.windows >= 1
+
+
+def test_crashing_boots_on_a_set_roll_back_to_the_previous_set_before_safe_mode(tmp_path):
+    (tmp_path / "params.old").write_bytes(pico_set(2))
+    (tmp_path / "params.cur").write_bytes(pico_set(3))
+    (tmp_path / "boots.txt").write_text("%d\n" % CRASH_LIMIT)     # v3 crashed the board 3 times
+    rig = Rig(tmp_path)
+    assert not rig.app.safe and rig.app.gw.params.version == 2 and boots(tmp_path) == 1
+    assert (tmp_path / "params.bad").read_bytes() == pico_set(3)
+    # the previous set crashing too, with nothing before it: safe mode (on that set, kept)
+    (tmp_path / "boots.txt").write_text("%d\n" % CRASH_LIMIT)
+    rig = Rig(tmp_path)
+    assert rig.app.safe and rig.app.gw.params.version == 2
+
+
 def test_after_repeated_crashes_the_next_boot_is_safe_and_answers_identify(tmp_path):
     for i in range(CRASH_LIMIT):
         rig = Rig(tmp_path)                 # each boot dies before it has run healthy
