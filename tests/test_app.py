@@ -405,6 +405,35 @@ def test_main_with_a_refused_profile_stays_in_the_repl_without_a_watchdog(tmp_pa
     assert text.startswith("edgevib: not starting:") and "not valid JSON" in text
 
 
+def test_a_keyed_gateway_gives_no_start_up_window_into_the_repl(tmp_path, monkeypatch):
+    (tmp_path / "site.key").write_bytes(b"brackwater-site-key-0001")
+    console = StreamPair()
+    console.send(req(1, "identify"))
+    mach, sleeps, kbd, _ = run_main(tmp_path, monkeypatch, (ROOT / "boards" / "pico_adxl345.json")
+                                    .read_text(), console, 400)
+    assert 3000 not in sleeps and kbd[0] == -1             # Ctrl-C is data from the start
+    [r] = [m for m in replies([console.take()]) if "push" not in m]
+    assert r["ok"] and r["signed"] is True and r["nonce"]
+    # a refused profile does not fall through to the REPL either: it idles
+    mach, sleeps, kbd, text = run_main(tmp_path, monkeypatch, "{not json", StreamPair(), 5)
+    assert kbd == [-1] and sleeps == [1000] * 6 and mach.wdts == []
+    assert text.startswith("edgevib: not starting:")
+
+
+def test_boot_py_makes_ctrl_c_data_on_a_keyed_gateway(tmp_path, monkeypatch):
+    import micropython
+
+    from firmware_py.run import app as app_mod
+    kbd = []
+    monkeypatch.setattr(micropython, "kbd_intr", kbd.append, raising=False)
+    monkeypatch.setattr(micropython, "alloc_emergency_exception_buf", lambda n: None, raising=False)
+    app_mod.prepare(str(tmp_path))
+    assert kbd == []                                        # unkeyed: mpremote may interrupt
+    (tmp_path / "site.key").write_bytes(b"brackwater-site-key-0001")
+    app_mod.prepare(str(tmp_path))
+    assert kbd == [-1]
+
+
 def rotations(p):
     return {((p << k) | (p >> (16 - k))) & 0xFFFF for k in range(16)}
 
