@@ -33,7 +33,7 @@ def _text(v):
         return "%d" % v
     if isinstance(v, str):
         return v
-    if isinstance(v, (bytes, bytearray)):
+    if isinstance(v, bytes):             # MessagePack bin arrives as bytes
         return hexlify(v).decode()
     raise AuthError("a signed command's arguments are ints, bools, str or bytes")
 

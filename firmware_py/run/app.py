@@ -318,8 +318,9 @@ class App:
         """One pass of the main loop: link, one window (heap locked), its snapshot and stream,
         sample-flow check, boot counter, watchdog, LED."""
         now = self.ticks_ms()
-        if not self.safe and self.drv is not None:
-            self._count_losses(self.gw)      # before the link: status shows them at once
+        drv = self.drv
+        if not self.safe and drv is not None:
+            self._count_losses(drv, self.gw)  # before the link: status shows them at once
         self._serve()
         gw = self.gw
         if gw.reboot_wanted:
@@ -338,10 +339,10 @@ class App:
             self.healthy = True
         self.led.show(self.state(), now)
 
-    def _count_losses(self, gw):
+    def _count_losses(self, drv, gw):
         """Tell the gateway (and so the detector and status) of every frame lost upstream of
         the ring since the last pass, by reason, and of the first acquisition error."""
-        lost = self.drv.gaps.take()                     # FIFO overruns the driver counted
+        lost = drv.gaps.take()                          # FIFO overruns the driver counted
         if lost:
             gw.lost_fifo = sat_add(gw.lost_fifo, lost)
             gw.lost_upstream(lost)
