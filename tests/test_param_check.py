@@ -176,3 +176,28 @@ def test_host_commands_refuse_the_sets_with_one_line(tmp_path, capsys):
             err = capsys.readouterr().err
             assert err.count("\n") == 1 and says in err
         assert vg.gateway.params.source == "factory" and vg.gateway.windows > 0
+
+
+def test_a_board_with_room_for_one_set_tries_a_set_in_place_of_the_running_one(tmp_path, monkeypatch):
+    # The ESP32-S3 profile's heap budget (131072 bytes) holds its running set (92530 bytes by
+    # board.memory_need) but not a second feature core (88685 bytes, features.footprint_bytes):
+    # building beside it raises MemoryError, so the trial runs in the running set's place.
+    gw = gateway(tmp_path)
+    build = params_mod.build
+
+    def one_set_heap(p, profile):
+        if hasattr(gw, "core"):
+            raise MemoryError("memory allocation failed")
+        return build(p, profile)
+    monkeypatch.setattr(params_mod, "build", one_set_heap)
+    gw.feed(running(1), DESK["window_n"])
+    gw.poll()
+    assert stage(gw.params, desk_set(version=1))["version"] == 1      # proven in place
+    assert gw.det.thr_alert_q8 == params_mod.factory(DESK)["det_thr_alert_q8"]   # the committed set runs
+    with pytest.raises(ParamError, match="'det_axes' is 8"):
+        stage(gw.params, crashing_axes())
+    with pytest.raises(ParamError, match="det_k must be an int"):
+        stage(gw.params, desk_set(version=2, det_k=40))
+    gw.feed(running(2), DESK["window_n"])
+    gw.poll()
+    assert gw.windows == 2 and gw.params.source == "factory"       # still running, nothing lost but the ring

@@ -1,14 +1,14 @@
-# Accelerometer drivers: register access over machine.I2C / machine.SPI, the overrun
-# bookkeeping the drivers share, and the factory that opens the sensor a board profile names.
-# Everything a read touches is allocated in a constructor; reads allocate nothing, so a driver's
-# read_into() may run under micropython.heap_lock() or from a hard timer callback.
-from micropython import const
+"""Accelerometer drivers: register access over machine.I2C / machine.SPI, the overrun
+bookkeeping the drivers share, and the factory that opens the sensor a board profile names.
+Everything a read touches is allocated in a constructor; reads allocate nothing, so a driver's
+read_into() may run under micropython.heap_lock() or from a hard timer callback.
 
-from firmware_py.dsp.counters import sat_add
+Entry points: I2CRegs, SPIRegs, GapCounter, mean_frames(), open_sensor(), driver_module()."""
+from micropython import const
 
 _TICKS_MASK = const(0x3FFFFFFF)   # MicroPython ticks wrap at 2**30 (time.ticks_* docs)
 _MAX_GAP_US = const(60_000_000)   # gaps longer than this are clamped: 16 * gap stays < 2**30
-_MAX_LOST = const(0x3FFFFFFF)     # one estimate held below 2**30 (a corrupt FIFO level)
+_COUNT_MAX = const(0x3FFFFFFF)    # counters saturate here, below the small-int limit 2**30
 
 
 class I2CRegs:
@@ -110,11 +110,11 @@ class GapCounter:
             lost = self._left + due - level
             if lost < 0:
                 lost = 0
-            if lost > _MAX_LOST:
-                lost = _MAX_LOST
-            self.lost = sat_add(self.lost, lost)
-            self.unreported = sat_add(self.unreported, lost)
-            self.overruns = sat_add(self.overruns, 1)
+            if lost > _COUNT_MAX:
+                lost = _COUNT_MAX
+            self.lost = _sat_add(self.lost, lost)
+            self.unreported = _sat_add(self.unreported, lost)
+            self.overruns = _sat_add(self.overruns, 1)
         self._left = level
         return lost
 
@@ -127,6 +127,14 @@ class GapCounter:
     def taken(self, frames):
         """Record frames taken out of the FIFO since the last status read."""
         self._left -= frames
+
+
+def _sat_add(a, b):
+    """a + b held at _COUNT_MAX, never forming 2**30 (the rule of firmware_py/dsp/counters.py,
+    which drivers may not import: rooms of one layer stay apart, docs/architecture.md)."""
+    if b > _COUNT_MAX - a:
+        return _COUNT_MAX
+    return a + b
 
 
 def mean_frames(drv, blk, sums, skip, count):

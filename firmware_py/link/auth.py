@@ -1,17 +1,18 @@
-# Signed commands on a gateway that holds a site key (docs/protocol.md, "Signed commands").
-#
-# Entry points:
-#   SIGNED                the commands that change state or reveal raw data
-#   message(cmd, nonce, req) -> bytes   what a signature covers (host and device build it alike)
-#   Auth(key).check(cmd, req)           raise AuthError unless req carries a valid signature
-#   Auth.nonce                          the challenge the next signed command must name (str)
-#
-# A signature is HMAC-SHA256(key, message) with message
-#   "edgevib cmd <cmd> <nonce>" + " <name>=<value>" for every argument but seq, cmd and sig,
-#   in sorted name order; ints in decimal, bools as true/false, str as is, bytes in lower-case hex.
-# The nonce is 8 random bytes (hex), drawn at start-up and again after every accepted signed
-# command, so a captured command is refused the second time and after a reboot. Not per-window
-# code: allocates.
+"""Signed commands on a gateway that holds a site key (docs/protocol.md, "Signed commands").
+
+Entry points:
+  SIGNED                the commands that change state or reveal raw data
+  message(cmd, nonce, req) -> bytes   what a signature covers (host and device build it alike)
+  Auth(key).check(cmd, req)           raise AuthError unless req carries a valid signature
+  Auth.nonce                          the challenge the next signed command must name (str)
+
+A signature is HMAC-SHA256(key, message) with message
+  "edgevib cmd <cmd> <nonce>" + " <name>=<value>" for every argument but seq, cmd and sig,
+  in sorted name order; ints in decimal, bools as true/false, str as is, bytes in lower-case hex.
+The nonce is 8 random bytes (hex), drawn at start-up and again after every accepted signed
+command, so a captured command is refused the second time and after a reboot. Not per-window
+code: allocates.
+"""
 from binascii import hexlify
 
 from firmware_py.codec.hmac_sha256 import hmac_sha256, digest_equal

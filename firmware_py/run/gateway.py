@@ -1,22 +1,24 @@
-# The gateway application: samples in, features and detector per window, events and snapshots
-# out, and the object the link's command handler (service.py) drives. The same class runs on the
-# board (main.py feeds it from the accelerometer driver) and on the desk (the virtual gateway
-# feeds it from a recording), so what the host sees is what the device does.
-#
-# Per window (window()): FeatureCore.process, the raw copy and Detector.step allocate nothing and
-# may run with the heap locked. Saving a snapshot and answering the link allocate; poll() does
-# those after the window, outside any lock.
-#
-# Duty cycle (profile key analyse_every, K): of every K windows of frames only the first goes to
-# the ring and is analysed; feed() discards the other K - 1 on purpose and counts them in
-# `skipped` (windows), never in `dropped` (frames lost by accident, which the detector is told).
-#
-# Raw stream (raw_stream(True)): poll() pushes each window's raw counts with its index w and
-# `gap`, the frames missing just before it (ring full, the ring emptied by apply_params, or
-# skipped on purpose), so a host can tell contiguous windows from spliced ones. Frames lost when
-# the ring is full fall just before the first window not yet in it: index windows + slots, kept
-# in self.gaps at that index modulo slots + 1 (every index from the next window to that one is
-# distinct there); skipped frames fall before the next window the ring will form.
+"""The gateway application: samples in, features and detector per window, events and snapshots
+out, and the object the link's command handler (service.py) drives. The same class runs on the
+board (main.py feeds it from the accelerometer driver) and on the desk (the virtual gateway
+feeds it from a recording), so what the host sees is what the device does.
+
+Per window (window()): FeatureCore.process, the raw copy and Detector.step allocate nothing and
+may run with the heap locked. Saving a snapshot and answering the link allocate; poll() does
+those after the window, outside any lock.
+
+Duty cycle (profile key analyse_every, K): of every K windows of frames only the first goes to
+the ring and is analysed; feed() discards the other K - 1 on purpose and counts them in
+`skipped` (windows), never in `dropped` (frames lost by accident, which the detector is told).
+
+Raw stream (raw_stream(True)): poll() pushes each window's raw counts with its index w and
+`gap`, the frames missing just before it (ring full, the ring emptied by apply_params, or
+skipped on purpose), so a host can tell contiguous windows from spliced ones. Frames lost when
+the ring is full fall just before the first window not yet in it: index windows + slots, kept
+in self.gaps at that index modulo slots + 1 (every index from the next window to that one is
+distinct there); skipped frames fall before the next window the ring will form.
+
+Entry points: Gateway."""
 import array
 import gc
 
@@ -81,8 +83,21 @@ class Gateway:
         self._relatch()
 
     def trial_params(self, p):
-        """Raise ValueError unless set p runs on this board (firmware_py/run/param_check.py)."""
-        param_check.trial(p, self.profile)
+        """Raise ValueError unless set p runs on this board (firmware_py/run/param_check.py).
+
+        Beside the running set if the heap holds two; else in its place (a board sized for one
+        set, such as the ESP32-S3 profile): the running set is freed, p tried, and the committed
+        set built again, as a commit would (frames in the ring are lost, the latch is kept)."""
+        try:
+            param_check.trial(p, self.profile)
+            return
+        except MemoryError:
+            pass                     # no room to build p beside the running set
+        self._release()
+        try:
+            param_check.trial(p, self.profile)
+        finally:
+            self._adopt(self.params.params)
 
     # ---- samples and windows ----
     def feed(self, src, frames):
@@ -235,6 +250,11 @@ class Gateway:
         Allocates; the old buffers become garbage, collected here rather than mid-window. Frames
         waiting in the old ring are lost: the raw stream reports them before the next window.
         """
+        self._release()
+        self._adopt(p)
+
+    def _release(self):
+        """Free the running feature core and detector (their losses and latch kept)."""
         lost = self.core.ring.filled
         g = self.gaps
         for i in range(len(g)):
@@ -245,6 +265,9 @@ class Gateway:
         self._keep_latch()           # a window run outside poll() may have raised it
         del self.core, self.det   # free the old buffers first: the heap holds one set, not two
         gc.collect()
+
+    def _adopt(self, p):
+        """Build and run set p after _release()."""
         self.core, self.det = params_mod.build(p, self.profile)
         self._relatch()              # a new set never clears an alarm nobody acknowledged
         self.unseen = 0              # losses before the new detector existed are not its own

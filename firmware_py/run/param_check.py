@@ -1,23 +1,26 @@
-# Proof that a parameter set runs on this gateway, before anything commits it.
-#
-# Entry points:
-#   validate(p, profile)   raise ValueError with the reason unless every key has a usable type
-#                          and the keys agree with each other and with the board profile
-#   trial(p, profile)      validate, build the feature core and detector (params.build), and run
-#                          synthetic windows through them with micropython.heap_lock() held
-#
-# The store checks identity (board, fs_hz, n, axes); the detector's and feature core's
-# constructors check their own ranges. What neither can see is checked here: types (a None,
-# float, bool or nested list where an int or a list of ints belongs), small-int range (a value
-# past 2**30 is a heap object on a board and allocates under the lock), and the cross-key sizes
-# (det_axes against axes, det_bands against fc_bands, list lengths against det_feat and
-# det_modes). trial() then proves the window path itself: one window of a synthetic signal, and
-# one window whose features are moved inside the set's own healthy and running limits, so the
-# scoring path runs too, then one learning window. Any exception is a refusal.
-#
-# The same functions run on the device (store commit path, boot) and on the host (flash, deploy,
-# replay). Not per-window code: allocates a second feature core and detector, garbage on return
-# (the heap must hold two sets for a moment; boards.md sizes the heap for that).
+"""Proof that a parameter set runs on this gateway, before anything commits it.
+
+Entry points:
+  validate(p, profile)   raise ValueError with the reason unless every key has a usable type
+                         and the keys agree with each other and with the board profile
+  trial(p, profile)      validate, build the feature core and detector (params.build), and run
+                         synthetic windows through them with micropython.heap_lock() held
+
+The store checks identity (board, fs_hz, n, axes); the detector's and feature core's
+constructors check their own ranges. What neither can see is checked here: types (a None,
+float, bool or nested list where an int or a list of ints belongs), small-int range (a value
+past 2**30 is a heap object on a board and allocates under the lock), and the cross-key sizes
+(det_axes against axes, det_bands against fc_bands, list lengths against det_feat and
+det_modes). trial() then proves the window path itself: one window of a synthetic signal, and
+one window whose features are moved inside the set's own healthy and running limits, so the
+scoring path runs too, then one learning window. Any exception is a refusal.
+
+The same functions run on the device (store commit path, boot) and on the host (flash, deploy,
+replay). Not per-window code: allocates a second feature core and detector, garbage on return.
+A MemoryError while building (outside the lock) is passed on as such: the heap had no room for
+a second set, which says nothing about the set (Gateway.trial_params then tries it in place of
+the running one). Any other failure, and a MemoryError under the lock, is a ValueError.
+"""
 import array
 
 import micropython
@@ -89,6 +92,8 @@ def validate(p, profile):
             _int_list(p, k)
         elif not isinstance(v, str):
             _small(k, v)
+    for k in ("det_axes", "det_bands", "det_modes"):     # used below as counts
+        _small(k, p[k])
     if p["det_axes"] != p["axes"]:
         raise ValueError("'det_axes' is %s, the set has %d axes" % (p["det_axes"], p["axes"]))
     if p["det_bands"] != len(bands):
@@ -106,11 +111,16 @@ def validate(p, profile):
 
 
 def trial(p, profile):
-    """validate(p), build p on profile and run it; ValueError (or the build's own exception,
-    re-raised as ValueError) with the reason if any step fails. Allocates; frees what it built."""
+    """validate(p), build p on profile and run it; ValueError with the reason if any step
+    fails; MemoryError if the heap has no room to build it. Allocates; frees what it built."""
     validate(p, profile)
     try:
         core, det = params_mod.build(p, profile)
+    except (ValueError, MemoryError):
+        raise                  # the constructors' own reasons; no room is not a bad set
+    except Exception as e:
+        raise ValueError("the set does not build: %s %s" % (type(e).__name__, e))
+    try:
         _run(core, det, profile)
     except ValueError:
         raise

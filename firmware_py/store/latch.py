@@ -1,11 +1,12 @@
-# A latched, unacknowledged alarm kept on the filesystem, so that no flash, rollback, reboot or
-# power cut clears it: only an acknowledgement does (docs/engineer.md, docs/protocol.md).
-#
-# Entry point: LatchFile(path): load() -> reason (firmware_py.detect.alarm R_*; 0: none latched),
-# save(reason). The file holds one line "latched <reason> end". save() writes path.tmp, removes
-# path, renames path.tmp to path; load() reads path, else path.tmp, so a cut at any step leaves
-# the old or the new value readable (a half-written line lacks " end" and is not taken).
-# Start-up and after a window's state change only: allocates.
+"""A latched, unacknowledged alarm kept on the filesystem, so that no flash, rollback, reboot or
+power cut clears it: only an acknowledgement does (docs/engineer.md, docs/protocol.md).
+
+Entry point: LatchFile(path): load() -> reason (firmware_py.detect.alarm R_*; 0: none latched),
+save(reason). The file holds one line "latched <reason> end". save() writes path.tmp, removes
+path, renames path.tmp to path; load() reads path, else path.tmp, so a cut at any step leaves
+the old or the new value readable (a half-written line lacks " end" and is not taken).
+Start-up and after a window's state change only: allocates.
+"""
 import os
 
 
