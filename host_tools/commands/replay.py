@@ -30,8 +30,9 @@ import re
 import sys
 from pathlib import Path
 
-from host_tools.data.files import check_outputs, load_body, load_board
+from host_tools.data.files import check_outputs, load_body, load_board, require_existing
 from host_tools.errors import EdgevibError
+from host_tools.ops.param_gate import prove
 from host_tools.data.recording import atomic_write, read_stream
 from host_tools.twin.replay import ReplayResult, default_jobs, group_sources, replay, windows_csv
 from host_tools.data.units import m_s2_per_count
@@ -59,16 +60,21 @@ def _report_module():
 
 def run(args: argparse.Namespace) -> int:
     _, params = load_body(args.params)
+    if args.board is None and not isinstance(params["board"], str):
+        raise EdgevibError(f"{args.params}: 'board' must be a str")
     profile = load_board(args.board or _BOARDS / f"{params['board']}.json")
     for key, want in (("board", profile["name"]), ("fs_hz", profile["sample_rate_hz"]), ("n", profile["window_n"]),
                       ("axes", profile["axes"])):
         if params.get(key) != want:
             raise EdgevibError(f"{args.params}: {key} {params.get(key)!r} does not match board {profile['name']} ({want!r})")
+    prove(params, profile, args.params)
     if args.jobs < 1:
         raise EdgevibError("--jobs must be at least 1")
     sources = [Path(s) for s in args.recordings]
+    require_existing(sources)
     outs = [Path(p) for p in (args.json, args.windows_csv) if p]
-    check_outputs(outs + ([Path(args.report)] if args.report else []), sources)
+    inputs = sources + [Path(args.params)] + ([Path(args.board)] if args.board else [])
+    check_outputs(outs + ([Path(args.report)] if args.report else []), inputs)
     report = _report_module() if args.report else None
     groups = group_sources(sources)
     result = replay(groups, params, profile, jobs=args.jobs, progress=sys.stderr.isatty())

@@ -19,7 +19,7 @@ import firmware_py  # noqa: F401
 from firmware_py.codec import mpack
 from firmware_py.run import params as pm
 from host_tools.errors import EdgevibError
-from host_tools.data.files import DEFAULT_BOARD, check_outputs, load_board
+from host_tools.data.files import DEFAULT_BOARD, check_outputs, load_board, require_existing
 from host_tools.data.recording import atomic_write, read_stream
 from host_tools.data.units import m_s2_per_count
 from host_tools.twin.replay import default_jobs, group_sources
@@ -55,7 +55,8 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError(f"{out}: the parameter set is written as .msgpack; give a .msgpack name")
     paths = list(outputs(out))
     sources = [Path(s) for s in args.normal]
-    check_outputs(paths, sources)
+    require_existing(sources)
+    check_outputs(paths, sources + ([Path(args.board)] if args.board else []))
     if not args.false_alerts_per_month > 0:
         raise EdgevibError("--false-alerts-per-month must be a positive number")
     if not 0 <= args.version < 1 << 30:
