@@ -69,7 +69,7 @@ MIN_HOURS = 1.0           # less scored running time than this is thin training 
 _THR_MAX = 1 << 16        # the detector's limit on thresholds (Q8 spreads)
 _STEADY_MAX = 32          # the detector's most windows in the steadiness span
 HOLD_FLOOR_S = 1.0        # least hold-off once steady: the run-up itself is already unsteady and unscored
-HOLD_DEFAULT_S = 10.0     # hold-off when the data hold no start
+HOLD_DEFAULT_S = 3.0      # hold-off when the data hold no start: settling after the speed is steady
 _DAYS_30_S = 30 * 86400.0
 MODE_CRITERION = ("operating points by the shaft speed the device estimates (never by the health features): "
                   "sorted speeds cut at gaps wider than the steady tolerance, groups under 30 windows joined "
@@ -359,11 +359,11 @@ def _hold_off(feats: list[StreamFeatures], p: dict, every: int, window_s: float,
             "no start of the pump in the training data: the hold-off after a start is the default "
             f"{HOLD_DEFAULT_S:g} s; record a few starts to learn it"]
     rows = [sf.feats[m] for sf, m in zip(feats, settled)]
-    ops = [_op_of(sf, p)[0][m] for sf, m in zip(feats, settled)]
+    ops = [st.speed_q8[m] / 256.0 for st, m in zip(probe, settled)]
     allrows = np.concatenate(rows)
     if len(allrows) < MIN_WINDOWS:
         return int(HOLD_DEFAULT_S * 1000), f"{HOLD_DEFAULT_S:g} s (too few settled windows)", []
-    keys = modes_fit.fit(allrows, q, np.concatenate(ops), seed=seed)
+    keys = modes_fit.fit(allrows, q, np.concatenate(ops), q["det_speed_tol_q12"] / 4096.0, seed=seed)
     keys.pop("det_idle_vel_q16")
     scored = _run(_mute(_with(q, **keys)), feats, every)
     span = min(al.windows_for(p["det_steady_ms"], p["n"], p["fs_hz"], every), _STEADY_MAX)
@@ -561,7 +561,9 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         raise EdgevibError(f"only {n_use} steady running, healthy training windows; record more of the pump in normal duty (at least {MIN_WINDOWS})")
     if n_use * window_s < MIN_HOURS * 3600:
         warnings.append(f"only {n_use * window_s / 3600:.2f} h of steady running windows: thresholds and modes rest on little data")
-    speeds = [_op_of(sf, p)[0] for sf in feats]
+    # the device chooses the mode by the median speed of the steadiness span (det.speed_q8 of a
+    # scored window), so the modes are learned from the same quantity
+    speeds = [st.speed_q8 / 256.0 for st in probe]
 
     # held-out scores, by contiguous blocks of recordings; fold models and the full model
     rec_fold = _blocks(streams, folds)
