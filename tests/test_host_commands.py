@@ -158,7 +158,7 @@ def test_monitor_once_in_physical_units(idle_gateway, capsys):
     rc, out, err = run_cli(capsys, "monitor", "--port", idle_gateway.port, "--once")
     assert rc == 0 and out.count("\n") == 1
     f = _fields(out)
-    # 3 s of running: still in the factory set's hold-off (2 s steady, then 5 s), so idle
+    # 3 s of running: still in the factory set's hold-off (1 s steady, then 5 s), so idle
     assert f["state"] == "idle" and f["windows"] == "18" and f["dropped"] == "0"
     for axis, (amp, hz) in enumerate(SINES):
         a_peak = amp * M_S2_PER_COUNT
