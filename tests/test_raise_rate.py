@@ -23,8 +23,8 @@ def ar1_scores(n, seed):
 
 def rule_raises(c, thr):
     """Raises of the documented rule, written out independently of the device code: raise when at
-    least K of the last SPAN scores are >= thr (span full); clear when none of the last SPAN is
-    >= HYST * thr and at least one window was spent raised (dwell 1)."""
+    least K of the last SPAN scores are >= thr (span full); clear when at most SPAN - K of the
+    last SPAN are >= HYST * thr and at least one window was spent raised (dwell 1)."""
     over = np.convolve(c >= thr, np.ones(SPAN, int))[SPAN - 1:len(c)]
     above = np.convolve(c >= HYST * thr, np.ones(SPAN, int))[SPAN - 1:len(c)]
     raised, n, held = False, 0, 0
@@ -34,7 +34,7 @@ def rule_raises(c, thr):
                 raised, n, held = True, n + 1, 0
         else:
             held += 1
-            if a == 0 and held >= 1:
+            if a <= SPAN - K and held >= 1:
                 raised = False
     return n
 
