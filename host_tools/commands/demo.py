@@ -121,9 +121,9 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
 def scorecard_lines(work: Path, final: Path, scale: str, jobs: int | None) -> list[str]:
     """Write the evaluation histories at `scale` into work/scenarios, train, replay and score them;
     write work/scorecard.json and .txt; return the printed lines."""
-    from host_tools.commands.train import load_board
     from host_tools.data import scenarios as sc
-    from host_tools.ops.evaluate import evaluate_suite, to_json
+    from host_tools.data.files import load_board
+    from host_tools.report.evaluate import evaluate_suite, to_json
     from host_tools.report.scorecard import render_text
     j = max(1, min(jobs or (os.cpu_count() or 1), os.cpu_count() or 1))
     suite = sc.write_suite(work / "scenarios", scale=scale, jobs=j)

@@ -28,7 +28,7 @@ def _train_machine(folder: Path, profile: dict) -> tuple[dict, dict]:
     from host_tools.data.bearing import BearingGeometry
     from host_tools.data.recording import read_stream
     from host_tools.fit.training import train
-    from host_tools.twin.replay import m_s2_per_count
+    from host_tools.data.units import m_s2_per_count
     from firmware_py.run import params as pm
     scale = m_s2_per_count(pm.factory(profile))
     recs = read_stream(folder, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
