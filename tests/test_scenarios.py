@@ -179,3 +179,10 @@ def test_loose_mount_keeps_the_sensors_own_noise():
         assert _longest_run(bad[:, ax]) <= 2 * _longest_run(good[:, ax])
     # rattle spikes of a few g stand out of the healthy signal
     assert np.abs(bad - good).max() * h.machine.sensor.m_s2_per_count > 20.0
+
+
+@pytest.mark.parametrize("scale", sorted(sc.SCALES))
+def test_every_sensor_fault_span_holds_recordings(scale):
+    for h in sc.evaluation_suite(scale=scale):
+        for f in h.sensor_faults:
+            assert any(f.start_t_s <= r.t0_s < f.end_t_s for r in h.recordings), (scale, h.name)

@@ -654,7 +654,7 @@ SCALES = {
     "full": {"train_days": 2.5, "healthy_days": 3.0, "fault_days": 3.0, "sensor_days": 1.2, "interval_s": 1800.0,
              "long_s": 600.0, "changes_per_day": 1.0},
     # the demo's: one machine, shorter, hourly snapshots (a minute or so on two cores)
-    "demo": {"train_days": 1.5, "healthy_days": 1.0, "fault_days": 2.2, "sensor_days": 0.8, "interval_s": 3600.0,
+    "demo": {"train_days": 1.5, "healthy_days": 1.0, "fault_days": 2.2, "sensor_days": 1.3, "interval_s": 3600.0,
              "long_s": 120.0, "changes_per_day": 0.5, "machines": ("RW-1",)},
 }
 _FAULTS_OF = {"RW-1": MACHINE_FAULTS, "RW-2": ("bearing_outer_race", "looseness")}
@@ -681,6 +681,7 @@ def evaluation_suite(seed: int = 2027, scale: str = "full", machines: Sequence[s
             out.append(plan_history(f"{name}-{kind.replace('_', '-')}", name, seed + 10 + k, c["fault_days"], t_field,
                                     role="machine_fault", faults=(f,), **base))
         if name == machines[0]:
+            # the span starts `lead` into the history: sensor_days must exceed it to hold any of it
             for k, kind in enumerate(SENSOR_FAULTS):
                 a = t_field + lead
                 sf = SensorFault(kind, a, a + 0.5 * DAY_S)
