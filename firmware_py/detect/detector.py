@@ -623,7 +623,8 @@ class Detector:
                 self._set(self._base_state(), al.R_STOPPED)
             return self.state
         self.running = True
-        # the ISO zone of every running window (shown in status); the guard acts past the start
+        # the ISO zone on every running window, so status shows it during the hold-off too; the
+        # guard acts on it only past the start (below)
         self.zone = zone_of(vel, self.iso)
         if self.run_w < _BIG:
             self.run_w += 1
