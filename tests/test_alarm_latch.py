@@ -30,7 +30,8 @@ def _state(port):
 
 def test_flash_rollback_reboot_and_power_cut_keep_the_latched_alarm(tmp_path, capsys):
     state = tmp_path / "state"
-    with emulator(fault_recording(tmp_path / "f.wav"), state, speed=0) as vg:
+    # 30 s of zone D: longer than the factory set's hold-off and 20 s persistence span
+    with emulator(fault_recording(tmp_path / "f.wav", seconds=60.0), state, speed=0) as vg:
         assert vg.ended.wait(120)          # the recording is fed; the gateway idles, in alarm
         assert vg.gateway.det.state == alarm.ALARM
         reason = vg.gateway.det.alarm.reason
@@ -53,8 +54,9 @@ def test_flash_rollback_reboot_and_power_cut_keep_the_latched_alarm(tmp_path, ca
         finally:
             c.close()
     # power cut: a new emulator on the same files, now fed a healthy recording long enough for
-    # the alarm's clear conditions (start-up hold-off 10 windows, dwell 10: 6 s is 37 windows)
-    with emulator(sine_recording(tmp_path / "s.wav", seconds=6.0), state, speed=0) as vg:
+    # the alarm's clear conditions (factory set: 1 s steady and 5 s hold-off, a full 20 s span,
+    # and the 60 s dwell: 80 s is enough)
+    with emulator(sine_recording(tmp_path / "s.wav", seconds=80.0), state, speed=0) as vg:
         assert vg.ended.wait(120)
         assert vg.gateway.windows > 0 and _state(vg.port) == "alarm"
         assert vg.gateway.det.alarm.reason == reason
