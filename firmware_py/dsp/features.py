@@ -1,7 +1,12 @@
 # The feature core: per axis, each window of n int16 counts becomes the integer feature fields
 # of feature_index (scales documented there). All memory is allocated in the constructor; step()
 # allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
+#
+# Entry points: FeatureCore (step, process), check_config, footprint_bytes. The per-sample passes
+# (_scan, _shape) and the FFT stages are viper-compiled on the boards (firmware_py.viper_stand).
 import array
+
+import micropython
 from micropython import const
 
 from firmware_py.dsp import fft, tables
@@ -9,10 +14,19 @@ from firmware_py.dsp.feature_index import (
     F_BAND0, F_CLIP, F_CREST, F_KURT, F_MEAN, F_PEAK, F_RMS, F_VEL, LOG2_ZERO_Q8, per_axis)
 from firmware_py.dsp.fixmath import div_pow2, log2_q8, msb, sqrt_pow2
 from firmware_py.dsp.ring import SampleRing, footprint_bytes as _ring_bytes
+from firmware_py.viper_stand import ptr16, ptr32
 
 Y_BITS = const(13)      # windows are normalised so the peak's top bit is bit 13: |y| <= 2**14
 _MIN_N = const(64)
 _MAX_N = const(4096)
+# Window sums in FeatureCore.st (array('i')), written by _scan and _shape
+_S_SUM = const(0)       # sum of counts, |.| <= 2**27
+_S_MAX = const(1)       # largest count
+_S_MIN = const(2)       # smallest count
+_S_CLIP = const(3)      # counts at or beyond the converter's full-scale codes
+_S_SQ = const(4)        # sum(y*y >> (L-1)) < 2**29
+_S_S4 = const(5)        # sum(round(y*y / 2**14)**2 >> L) < 2**28
+_S_LEN = const(6)
 
 
 def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz):
@@ -35,6 +49,7 @@ def footprint_bytes(n, axes, ring_windows, n_bands):
     m = n >> 1
     tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * 257 + 3 * (m + 1)   # trig, hann, pos, log2, vel
     work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
+    work_b += 4 * _S_LEN + 4 * n_bands                                   # window sums, band bins
     return _ring_bytes(axes, n, ring_windows) + tables_b + work_b
 
 
@@ -64,13 +79,14 @@ class FeatureCore:
         self.vmant, self.vsh2, self.vel_exp = tables.velocity_weights(n, fs_hz, vel_lo_hz, vel_hi_hz)
         self.buf = array.array('i', bytes(4 * n))
         self.p = array.array('i', bytes(4 * (self.m + 1)))
-        pv = memoryview(self.p)
-        self.bands = [pv[b[0]:b[1]] for b in bands]
+        self.band_lo = array.array('H', [b[0] for b in bands])
+        self.band_hi = array.array('H', [b[1] for b in bands])
         self.n_bands = len(bands)
         # band mean square = 4/3 * 2**-2u * sum(p) (Hann power normalisation); 4/3 as log2, Q8
         self.log2_4_3 = 512 - log2_q8(3, self.log2_t)
         self.per = per_axis(self.n_bands)
         self.feats = array.array('i', bytes(4 * axes * self.per))
+        self.st = array.array('i', bytes(4 * _S_LEN))    # window sums, see _scan and _shape
         self.windows = 0
 
     def step(self):
@@ -96,23 +112,18 @@ class FeatureCore:
         n = self.n
         L = self.L
         f = self.feats
-        s = sum(win)                    # |s| <= 2**15 * n <= 2**27
-        mx = max(win)
-        mn = min(win)
+        st = self.st
+        _scan(win, n, self.adc_min, self.adc_max, st)
+        s = st[_S_SUM]                  # |s| <= 2**15 * n <= 2**27
+        mx = st[_S_MAX]
+        mn = st[_S_MIN]
         mean = (s + (n >> 1)) >> L      # rounded integer mean, counts
         pk = mx - mean
         if mean - mn > pk:
             pk = mean - mn              # peak of x - mean, counts, <= 65535
-        clip = 0
-        if mx >= self.adc_max or mn <= self.adc_min:
-            hi = self.adc_max
-            lo = self.adc_min
-            for v in win:
-                if v >= hi or v <= lo:
-                    clip += 1
         f[off + F_MEAN] = (s + (1 << (L - 9)) >> (L - 8)) if L > 8 else s << (8 - L)
         f[off + F_PEAK] = pk << 8
-        f[off + F_CLIP] = clip
+        f[off + F_CLIP] = st[_S_CLIP]
         if pk == 0:
             self._flat(off)
             return
@@ -120,23 +131,11 @@ class FeatureCore:
         u = Y_BITS - msb(pk)
         g = 1 << u if u > 0 else 1
         sh = -u if u < 0 else 0
-        buf = self.buf
-        hann = self.hann
-        pos = self.pos
-        s2 = L - 1
-        sq = 0                          # sum(y*y >> (L-1)) < 2**29
-        s4 = 0                          # sum(round(y*y / 2**14)**2 >> L) < 2**28
-        for i in range(n):
-            y = ((win[i] - mean) * g) >> sh
-            yy = y * y
-            sq += yy >> s2
-            r = (yy + 8192) >> 14
-            s4 += (r * r) >> L
-            buf[pos[i]] = (y * hann[i]) >> 15
+        _shape(win, n, L, mean, g, sh, self.hann, self.pos, self.buf, st)
         m = self.m
-        fft.cfft(buf, m, self.tw)
-        vs = fft.spectrum(buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p)
-        self._finish(off, pk, u, g, sh, sq, s4, vs)
+        fft.cfft(self.buf, m, self.tw)
+        vs = fft.spectrum(self.buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p)
+        self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
 
     def _finish(self, off, pk, u, g, sh, sq, s4, vs):
         """Features from the window sums (shared by the device and the host twin).
@@ -153,8 +152,10 @@ class FeatureCore:
         f[off + F_VEL] = sqrt_pow2(vs, 62 - 2 * self.vel_exp - 2 * u)
         t = self.log2_t
         c = self.log2_4_3 - 512 * u
+        bl = self.band_lo
+        bh = self.band_hi
         for b in range(self.n_bands):
-            ps = sum(self.bands[b])
+            ps = fft.power_sum(self.p, bl[b], bh[b])
             f[off + F_BAND0 + b] = log2_q8(ps, t) + c if ps > 0 else LOG2_ZERO_Q8
 
     def _flat(self, off):
@@ -169,3 +170,54 @@ class FeatureCore:
         p = self.p
         for k in range(self.m + 1):
             p[k] = 0
+
+
+@micropython.viper
+def _scan(win, n: int, adc_min: int, adc_max: int, st):
+    """Sum, largest, smallest and clipped count of n int16 counts (array('h') or its view) into
+    st[_S_SUM], st[_S_MAX], st[_S_MIN], st[_S_CLIP]. Counts; |sum| <= 2**15 * n <= 2**27."""
+    x = ptr16(win)
+    o = ptr32(st)
+    s = 0
+    mx = -32768
+    mn = 32767
+    c = 0
+    for i in range(n):
+        v = ((x[i] & 0xFFFF) ^ 0x8000) - 0x8000      # sign-extend (viper loads zero-extend)
+        s += v
+        if v > mx:
+            mx = v
+        if v < mn:
+            mn = v
+        if v >= adc_max or v <= adc_min:
+            c += 1
+    o[_S_SUM] = s
+    o[_S_MAX] = mx
+    o[_S_MIN] = mn
+    o[_S_CLIP] = c
+
+
+@micropython.viper
+def _shape(win, n: int, L: int, mean: int, g: int, sh: int, hann, pos, buf, st):
+    """The per-sample pass of a window of n = 2**L counts: y = ((x - mean) * g) >> sh (|y| <=
+    2**14, g = 2**u or 1, sh = -u or 0), its sums st[_S_SQ] = sum(y*y >> (L-1)) < 2**29 and
+    st[_S_S4] = sum(round(y*y / 2**14)**2 >> L) < 2**28, and the windowed sample
+    (y * hann[i]) >> 15 (Q15 Hann, |.| <= 2**14) into buf at its bit-reversed slot pos[i]."""
+    x = ptr16(win)
+    w = ptr16(hann)            # unsigned: a zero-extended load is the value
+    q = ptr16(pos)
+    b = ptr32(buf)
+    o = ptr32(st)
+    s2 = L - 1
+    sq = 0
+    s4 = 0
+    for i in range(n):
+        v = ((x[i] & 0xFFFF) ^ 0x8000) - 0x8000
+        y = ((v - mean) * g) >> sh
+        yy = y * y
+        sq += yy >> s2
+        r = (yy + 8192) >> 14
+        s4 += (r * r) >> L
+        b[q[i]] = (y * w[i]) >> 15
+    o[_S_SQ] = sq
+    o[_S_S4] = s4
