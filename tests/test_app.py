@@ -26,6 +26,9 @@ from firmware_py.run.app import CRASH_LIMIT, HEALTHY_MS, STALL_MS, App, StreamLi
 from firmware_py.dsp.feature_index import F_RMS
 from firmware_py.store.paramstore import build_image
 from host_tools.twin.mpy_guest import _stage, run_guest
+from host_tools.twin.mpy_unix import stage as unix_stage
+from tests.engines import ENGINES, run_cpython
+from host_tools.twin.mpy_unix import run_unix
 
 ROOT = Path(__file__).parent.parent
 PICO = board.load(str(ROOT / "boards" / "pico_adxl345.json"))
@@ -478,7 +481,8 @@ def test_frames_a_full_ring_cannot_take_are_still_dropped_and_told(tmp_path):
 
 def _stage_guest():
     chip_support.stage_models_in_guest()
-    shutil.copy(Path(__file__).parent / "app_machine.py", _stage() / "app_machine.py")
+    for root in (_stage(), unix_stage(True)):
+        shutil.copy(Path(__file__).parent / "app_machine.py", root / "app_machine.py")
 
 
 GUEST = """
@@ -522,10 +526,12 @@ emit([clean, gw.windows, gw.skipped, app.drv.gaps.lost, gw.core.ring.dropped, li
 """
 
 
-def test_per_window_step_allocates_nothing_on_micropython():
-    """driver read + feed (the timer's work) and gateway.window, each under heap_lock."""
+@ENGINES
+def test_per_window_step_allocates_nothing_on_micropython(run):
+    """driver read + feed (the timer's work) and gateway.window (features, detector), each under
+    heap_lock; on the unix port with the viper functions compiled."""
     _stage_guest()
-    res = run_guest(GUEST % {"profile": json.dumps(PICO), "cycle": EVERY * N,
+    res = run(GUEST % {"profile": json.dumps(PICO), "cycle": EVERY * N,
                              "block_us": BLOCK_US, "windows": 3})
     clean, windows, skipped, lost, dropped, head, want = res.out[0]
     assert clean, "a per-window step allocated under heap_lock"
@@ -550,7 +556,8 @@ gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3), l
 """
 
 
-def test_skipping_allocates_nothing_on_micropython():
+@ENGINES
+def test_skipping_allocates_nothing_on_micropython(run):
     """Gateway.feed with blocks straddling kept and skipped windows (3 axes, 1 in 3) and
     Gateway.window, each under heap_lock on MicroPython; the windows hold the right frames."""
     prof = dict(DESK, analyse_every=3)
@@ -577,7 +584,7 @@ while k < 4 * 3 * n:
         firsts.append([gw.raw[0], gw.raw[n], gw.raw[2 * n], gw.raw_gap])
 emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
 """) % {"profile": json.dumps(prof)}
-    ok, windows, skipped, dropped, firsts = run_guest(body).out[0]
+    ok, windows, skipped, dropped, firsts = run(body).out[0]
     assert ok, "feed or window allocated under heap_lock"
     n = prof["window_n"]
     assert windows == 4 and skipped == 4 * 2 and dropped == 0
@@ -586,7 +593,47 @@ emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
     assert firsts == want
 
 
-def test_windows_stay_allocation_free_with_the_wall_clock_set_on_micropython():
+def test_gateway_windows_are_the_same_on_cpython_and_both_micropythons():
+    """Blocks in the driver's format (37 interleaved 3-axis frames) through Gateway.feed and
+    Gateway.window (features, detector step), every call under heap_lock on the MicroPythons:
+    the features and detector states of every window equal CPython's, bit for bit, on the WASI
+    bytecode and on the unix port's viper code. The signal sweeps from one LSB to full scale,
+    with clipped stretches, so every window exercises other shifts of the normalisation."""
+    body = (_GUEST_GATEWAY + """
+src = array.array('h', bytes(2 * 3 * 37))
+k = 0
+def feed():
+    for j in range(37):
+        t = k + j
+        amp = 1 << ((t // n) %% 16)
+        for a in range(3):
+            v = ((t * (7 + 4 * a)) %% 61 - 30) * amp // 30 + (a - 1) * 3
+            src[3 * j + a] = 32767 if v > 32767 else (-32768 if v < -32768 else v)
+    gw.feed(src, 37)
+    return 37
+def window():
+    return gw.window()
+ok = True
+while k < 18 * n:
+    done, got = locked(feed)
+    ok = ok and done
+    k += got
+    done, ran = locked(window)
+    ok = ok and done
+    if ran:
+        emit([list(gw.core.feats), gw.det.state])
+emit(ok)
+""") % {"profile": json.dumps(DESK)}
+    want = run_cpython(body).out
+    assert len(want) == 18 + 1
+    for run in (run_guest, run_unix):
+        got = run(body).out
+        assert got[-1] is True, "feed or window allocated under heap_lock"
+        assert got == want
+
+
+@ENGINES
+def test_windows_stay_allocation_free_with_the_wall_clock_set_on_micropython(run):
     """Unix seconds are past 2**30 (a big int on a 32-bit port): with the clock set, the detector
     must still see only the gateway's own small seconds count, and wall times come out right."""
     body = (_GUEST_GATEWAY + """
@@ -606,7 +653,7 @@ for w in range(15):                            # 2.4 s of samples
     ok = ok and done and ran
 emit([ok, gw.windows, gw.uptime_s(), str(gw.now_s()), gw.det.t])
 """) % {"profile": json.dumps(DESK)}
-    ok, windows, up, now, det_t = run_guest(body).out[0]
+    ok, windows, up, now, det_t = run(body).out[0]
     assert ok, "a window allocated with the clock set"
     assert windows == 15 and up == 15 * DESK["window_n"] // DESK["sample_rate_hz"]
     assert int(now) == 1764633600 + up and det_t == up < 2**30
