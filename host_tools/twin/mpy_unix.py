@@ -50,11 +50,14 @@ def stage(emitters: bool = True) -> Path:
 def run_unix(body: str, emitters: bool = True, timeout_s: float = 300.0) -> UnixResult:
     """Run ``body`` (MicroPython source) in a fresh unix-port process; ``emit(v)`` returns v."""
     code = prelude(str(stage(emitters))) + textwrap.dedent(body)
-    try:
-        r = subprocess.run([sys.executable, "-c", _LAUNCH, "-X", "heapsize=" + _HEAP, "-c", code],
-                           capture_output=True, text=True, timeout=timeout_s)
-    except subprocess.TimeoutExpired:
-        raise GuestError(f"unix MicroPython did not finish within {timeout_s:g} s")
+    with tempfile.TemporaryDirectory(prefix="edgevib-unix-run-") as tmp:
+        script = Path(tmp) / "guest.py"          # a file: bodies can outgrow a command line
+        script.write_text(code)
+        try:
+            r = subprocess.run([sys.executable, "-c", _LAUNCH, "-X", "heapsize=" + _HEAP,
+                                str(script)], capture_output=True, text=True, timeout=timeout_s)
+        except subprocess.TimeoutExpired:
+            raise GuestError(f"unix MicroPython did not finish within {timeout_s:g} s")
     out, text = parse_output(r.stdout)
     if r.returncode:
         raise GuestError(f"unix MicroPython exited with code {r.returncode}: "
