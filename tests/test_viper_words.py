@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from firmware_py import drivers
-from firmware_py.dsp import features, fft, ring
+from firmware_py.dsp import features, fft, fixmath, ring, tables
 from tests.feature_helpers import device_features
 from tests.signals import adversarial
 from tests.test_viper_windows import FS, NS, _config
@@ -30,16 +30,44 @@ def test_viper_features_on_a_machine_word_equal_python_ints(bits, monkeypatch):
     fft_w, w_fft = load(fft, bits)
     feat_w, w_feat = load(features, bits)
     ring_w, w_ring = load(ring, bits)
+    fix_w, w_fix = load(fixmath, bits)
     for name in ("cfft", "spectrum", "power_sum"):
         monkeypatch.setattr(fft, name, getattr(fft_w, name))
+    for name in ("div_pow2", "log2_q8", "msb", "sqrt_pow2"):     # as features imported them
+        monkeypatch.setattr(features, name, getattr(fix_w, name))
     monkeypatch.setattr(features, "_scan", feat_w._scan)
     monkeypatch.setattr(features, "_shape", feat_w._shape)
     monkeypatch.setattr(ring, "gather16", ring_w.gather16)
     for n, adc, bands, x, want in runs:
         got, _ = device_features(x, n=n, fs=FS, bands=bands, adc=adc)
         assert np.array_equal(got, want), n
-    for w in (w_fft, w_feat, w_ring):
+    for w in (w_fft, w_feat, w_ring, w_fix):
         assert w.out_of_range == [] and w.bad_shifts == []
+
+
+@pytest.mark.parametrize("bits", [32, 64])
+def test_fixmath_on_a_machine_word_equals_python_ints(bits):
+    """Over each helper's documented domain (fixmath docstrings), at random and at the edges:
+    the same results on the word as on Python ints, no intermediate past int32, no shift count
+    past the word. math.isqrt is the outside reference for isqrt."""
+    import math
+    fix_w, word = load(fixmath, bits)
+    rng = np.random.default_rng(bits)
+    xs = [1, 2, 3, 2**29 - 1, 2**30 - 1] + [int(v) for v in rng.integers(1, 2**30, 400)]
+    xs += [int(2 ** rng.uniform(0, 30)) for _ in range(400)]
+    t = tables.log2_table()
+    for x in xs:
+        assert fix_w.msb(x) == fixmath.msb(x) == x.bit_length() - 1
+        assert fix_w.isqrt(x) == fixmath.isqrt(x) == math.isqrt(x)
+        assert fix_w.log2_q8(x, t) == fixmath.log2_q8(x, t)
+        e = int(rng.integers(-70, 31))
+        if fixmath.sqrt_pow2(x, e) < 2**30:
+            assert fix_w.sqrt_pow2(x, e) == fixmath.sqrt_pow2(x, e)
+        den = int(rng.integers(1, 2**29))
+        s = int(rng.integers(0, 22))
+        if (x << s) // den < 2**30:
+            assert fix_w.div_pow2(x, den, s) == fixmath.div_pow2(x, den, s) == (x << s) // den
+    assert word.out_of_range == [] and word.bad_shifts == []
 
 
 _PROBE = """

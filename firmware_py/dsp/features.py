@@ -97,6 +97,7 @@ class FeatureCore:
         self.ring.release()
         return True
 
+    @micropython.native
     def process(self):
         """As step(), but the window stays in the ring (ring.window(a) still reads it) until
         ring.release(): the caller may save it, e.g. as an event snapshot."""
@@ -108,6 +109,7 @@ class FeatureCore:
         self.windows += 1
         return True
 
+    @micropython.native
     def _axis(self, win, off):
         n = self.n
         L = self.L
@@ -137,6 +139,7 @@ class FeatureCore:
         vs = fft.spectrum(self.buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p)
         self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
 
+    @micropython.native
     def _finish(self, off, pk, u, g, sh, sq, s4, vs):
         """Features from the window sums (shared by the device and the host twin).
 

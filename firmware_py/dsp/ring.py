@@ -29,6 +29,7 @@ class SampleRing:
         self.filled = 0       # frames written and not yet released
         self.dropped = 0      # frames lost to a full ring, since start (never reset)
 
+    @micropython.native
     def push(self, src, frames, first=0):
         """Append `frames` interleaved frames from src (array('h')), from its frame `first` on.
 
