@@ -71,11 +71,11 @@ class FeatureCore:
         self.adc_min = adc_min
         self.adc_max = adc_max
         self.ring = SampleRing(axes, n, ring_windows)
-        self.cos_t, self.sin_t = tables.twiddles(n)
-        self.hann = tables.hann(n, self.cos_t)
+        self.cos_q15, self.sin_q15 = tables.twiddles(n)
+        self.hann_q15 = tables.hann(n, self.cos_q15)
         self.pos = tables.bitrev_positions(n)
-        self.tw = fft.radix4_twiddles(self.m, self.cos_t, self.sin_t)
-        self.log2_t = tables.log2_table()
+        self.tw_q15 = fft.radix4_twiddles(self.m, self.cos_q15, self.sin_q15)
+        self.log2_q15 = tables.log2_table()
         self.vmant, self.vsh2, self.vel_exp = tables.velocity_weights(n, fs_hz, vel_lo_hz, vel_hi_hz)
         self.buf = array.array('i', bytes(4 * n))
         self.p = array.array('i', bytes(4 * (self.m + 1)))
@@ -83,7 +83,7 @@ class FeatureCore:
         self.band_hi = array.array('H', [b[1] for b in bands])
         self.n_bands = len(bands)
         # band mean square = 4/3 * 2**-2u * sum(p) (Hann power normalisation); 4/3 as log2, Q8
-        self.log2_4_3 = 512 - log2_q8(3, self.log2_t)
+        self.log2_4_3_q8 = 512 - log2_q8(3, self.log2_q15)
         self.per = per_axis(self.n_bands)
         self.feats = array.array('i', bytes(4 * axes * self.per))
         self.st = array.array('i', bytes(4 * _S_LEN))    # window sums, see _scan and _shape
@@ -133,10 +133,10 @@ class FeatureCore:
         u = Y_BITS - msb(pk)
         g = 1 << u if u > 0 else 1
         sh = -u if u < 0 else 0
-        _shape(win, n, L, mean, g, sh, self.hann, self.pos, self.buf, st)
+        _shape(win, n, L, mean, g, sh, self.hann_q15, self.pos, self.buf, st)
         m = self.m
-        fft.cfft(self.buf, m, self.tw)
-        vs = fft.spectrum(self.buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p)
+        fft.cfft(self.buf, m, self.tw_q15)
+        vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p)
         self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
 
     @micropython.native
@@ -153,8 +153,8 @@ class FeatureCore:
         # kurtosis = mean(y**4) / mean(y**2)**2 = s4 * 2**28 / (sq/2)**2 = s4 * 2**30 / sq**2
         f[off + F_KURT] = div_pow2(div_pow2(s4, sq, 21), sq, 21)   # Q12
         f[off + F_VEL] = sqrt_pow2(vs, 62 - 2 * self.vel_exp - 2 * u)
-        t = self.log2_t
-        c = self.log2_4_3 - 512 * u
+        t = self.log2_q15
+        c = self.log2_4_3_q8 - 512 * u
         bl = self.band_lo
         bh = self.band_hi
         for b in range(self.n_bands):
