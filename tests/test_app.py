@@ -675,7 +675,7 @@ LOOP_SPEED = {          # simple integer loop iterations per second (sources in 
 }
 
 _BUDGET = _MIN_BUS + """
-import json, array
+import json, array, micropython
 import firmware_py
 from firmware_py.drivers import SPIRegs, GapCounter
 from app_machine import StandInMachine, StreamPair, StandInSelect
@@ -709,27 +709,106 @@ n = prof['window_n']
 src = array.array('h', bytes(2 * prof['axes'] * n))
 for i in range(len(src)):
     src[i] = ((i * 37) %% 2001) - 1000
-def acquire():
+from firmware_py.run.gateway import Gateway
+def acquire_raw():
     got = 0
     while got < n * prof['analyse_every']:      # one cycle: one window kept, the rest skipped
         got += app.acquire()
     gw.core.ring.release()
-def feed():
+def feed_raw():
     gw.feed(src, n)
     gw.core.ring.release()
-def window():
+def window_raw():
     gw.feed(src, n)
-    gw.quota = 1
-    gw.window()
+    Gateway.window(gw)                          # the lock is taken by the caller
+def locked_call(fn):
+    # with the heap locked, as on the board (where the viper calls allocate nothing): unlocked,
+    # bytecode calls with many arguments take their state from the heap, whose search for a free
+    # block costs in proportion to its clutter
+    micropython.heap_lock()
+    try:
+        fn()
+    finally:
+        micropython.heap_unlock()
+def acquire():
+    locked_call(acquire_raw)
+def feed():
+    locked_call(feed_raw)
+def window():
+    locked_call(window_raw)
 for w in range(%(windows)d):
     %(what)s()
 emit(gw.windows)
 """
 
 
+# The viper share: every call of a function that is @micropython.viper on the boards, recorded
+# during one cycle with its arguments and a copy of each array it is given, then replayed in the
+# same guest from those copies; the fuel difference between replaying with and without the
+# calls is what those functions cost as bytecode (nested calls count once, in their caller).
+_KERNELS = """
+KERNELS = (('firmware_py.dsp.fft', ('cfft', 'spectrum', 'power_sum')),
+           ('firmware_py.dsp.features', ('_scan', '_shape')),
+           ('firmware_py.dsp.fixmath', ('msb', 'isqrt', 'sqrt_pow2', 'div_pow2', 'log2_q8')),
+           ('firmware_py.dsp.ring', ('gather16',)),
+           ('firmware_py.drivers', ('unpack_words',)))
+import sys
+calls = []
+depth = [0]
+def recorder(fn):
+    def rec(*args):
+        if depth[0]:
+            return fn(*args)
+        snap = [a[:] if isinstance(a, array.array) else None for a in args]
+        depth[0] += 1
+        r = fn(*args)
+        depth[0] -= 1
+        calls.append((fn, args, snap))
+        return r
+    return rec
+wrapped = {}
+for mname, names in KERNELS:
+    for nm in names:
+        f = getattr(sys.modules[mname], nm)
+        wrapped[id(f)] = (f, recorder(f))
+for mname in list(sys.modules):
+    if mname.startswith('firmware_py'):
+        m = sys.modules[mname]
+        for attr in dir(m):
+            v = getattr(m, attr)
+            if id(v) in wrapped and wrapped[id(v)][0] is v:
+                setattr(m, attr, wrapped[id(v)][1])
+%(what)s_raw()
+for f, rec in wrapped.values():
+    for mname in list(sys.modules):
+        if mname.startswith('firmware_py'):
+            m = sys.modules[mname]
+            for attr in dir(m):
+                if getattr(m, attr) is rec:
+                    setattr(m, attr, f)
+def replay():
+    for fn, args, snap in calls:
+        for j in range(len(args)):
+            if snap[j] is not None:
+                args[j][:] = snap[j]
+        if RUN:
+            fn(*args)
+replay()
+emit(len(calls))
+"""
+
+# Viper against bytecode on the boards' MCUs: the MicroPython wiki's "about 16x" for an integer
+# array loop (FACTS: MicroPython wiki, a published figure). The unix port of the test suite
+# measures more for these functions (edgevib bench, mpy_viper_speedup for the whole path,
+# kernels alone higher); the armv6m code keeps most locals in memory, so the published figure,
+# the lower one, is the one the budget uses.
+VIPER_GAIN = 16
+
+
 def budget(profile):
     """(fuel of the timer's reads over one cycle of analyse_every windows, fuel of one
-    gateway.window()) for a profile."""
+    gateway.window(), the parts of each spent in the functions that are viper on the boards),
+    all as bytecode on the WASI MicroPython."""
     _stage_guest()
 
     def fuel(what, cycles, prof):
@@ -739,6 +818,11 @@ def budget(profile):
     def per_cycle(what, prof=profile):
         return fuel(what, 2, prof) - fuel(what, 1, prof)
 
+    def viper_part(what, prof=profile):
+        base = _BUDGET % {"profile": json.dumps(prof), "windows": 1, "what": what}
+        body = base + _KERNELS % {"what": what}
+        return (run_guest("RUN = True\n" + body).fuel - run_guest("RUN = False\n" + body).fuel)
+
     frames = profile["window_n"] * profile["analyse_every"]
     if profile["sensor"]["model"] == "adxl345":
         tx = (frames // 16) * 18     # per 16-frame read: FIFO_STATUS, INT_SOURCE, 16 frames
@@ -747,7 +831,9 @@ def budget(profile):
     stub = run_guest(_STUB_ONLY % (2 * tx)).fuel - run_guest(_STUB_ONLY % tx).fuel
     every_window = dict(profile, analyse_every=1)          # feed() keeps every window
     return (per_cycle("acquire") - stub,
-            per_cycle("window", every_window) - per_cycle("feed", every_window))
+            per_cycle("window", every_window) - per_cycle("feed", every_window),
+            viper_part("acquire"),
+            viper_part("window", every_window) - viper_part("feed", every_window))
 
 
 @functools.lru_cache(maxsize=1)
@@ -756,7 +842,7 @@ def loop_fuel():
     return (run_guest(body % 20000).fuel - run_guest(body % 10000).fuel) / 10000
 
 
-MIN_SPARE = 0.25        # "with clear margin": a quarter of the cycle spare at the slower end
+MIN_SPARE = 0.30        # "with clear margin": 30 % of the cycle spare at the slower end
 VERDICTS = ("yes", "tight", "depends", "no")
 BOARDS_MD = ROOT / "docs" / "boards.md"
 
@@ -779,33 +865,37 @@ def mega(cell):
 @pytest.mark.parametrize("row_id, profile, verdict", [
     ("pico_adxl345", PICO, "yes"),
     ("esp32s3_iis3dwb", ESP32S3, "yes"),
-    ("pico-3-axes-every-window", dict(PICO, axes=3, analyse_every=1), "no"),
-    ("pico-every-window", dict(PICO, analyse_every=1), "tight"),
+    ("pico-bytecode", dict(PICO, axes=3, analyse_every=1), "no"),
     ("esp32s3-every-window", dict(ESP32S3, analyse_every=1), "no"),
-    ("esp32s3-1-in-6", dict(ESP32S3, analyse_every=6), "tight"),
 ], ids=lambda v: v if isinstance(v, str) and v not in VERDICTS else "")
 def test_real_time_budget_verdicts_of_the_docs_hold(row_id, profile, verdict, record_property):
-    reads, window = budget(profile)
+    """Each row: bytecode fuel of the cycle (reads, window) and the part spent in the functions
+    that are viper on the boards, all deterministic; the board's cost takes that part at
+    1/VIPER_GAIN (row pico-bytecode: at full cost, the firmware without viper)."""
+    reads, window, v_reads, v_window = budget(profile)
     per_iter = loop_fuel()
     assert 800 < per_iter < 900          # ~856 measured for a loop in a function (task notes)
+    gain = 1 if row_id == "pico-bytecode" else VIPER_GAIN
+    cost = reads + window - (v_reads + v_window) * (1 - 1 / gain)   # board, in bytecode fuel
     speed = LOOP_SPEED[profile["mcu"]["family"]]
     period = profile["analyse_every"] * profile["window_n"] / profile["sample_rate_hz"]
-    best = (reads + window) / 1459 / speed
-    worst = (reads + window) / per_iter / speed
-    record_property("fuel", [reads, window])
-    print("%s: reads %.1f M + window %.1f M = %.1f M fuel per cycle; %.0f k - %.0f k loop "
-          "iterations; %.3f - %.3f s against %.1f ms; spare %.0f %% to %.0f %%"
-          % (row_id, reads / 1e6, window / 1e6, (reads + window) / 1e6,
-             (reads + window) / 1459e3, (reads + window) / per_iter / 1e3, best, worst,
-             period * 1e3, 100 * (1 - worst / period), 100 * (1 - best / period)))
+    best = cost / 1459 / speed
+    worst = cost / per_iter / speed
+    record_property("fuel", [reads, window, v_reads, v_window])
+    print("%s: reads %.1f M + window %.1f M, viper part %.1f M + %.1f M; board %.1f M fuel per "
+          "cycle; %.0f k - %.0f k loop iterations; %.3f - %.3f s against %.1f ms; spare %.0f %% "
+          "to %.0f %%" % (row_id, reads / 1e6, window / 1e6, v_reads / 1e6, v_window / 1e6,
+                          cost / 1e6, cost / 1459e3, cost / per_iter / 1e3, best, worst,
+                          period * 1e3, 100 * (1 - worst / period), 100 * (1 - best / period)))
     got = ("yes" if worst < (1 - MIN_SPARE) * period else "tight" if worst < period
            else "no" if best > period else "depends")
     assert got == verdict, "update docs/boards.md, Real-time budget"
     # The documented row says what was measured: fuel within 2 % (imports and lookups move the
     # read figures by about 1 % between test processes), the verdict, and its figures.
     cells = documented_row(row_id)
-    assert mega(cells[1]) == pytest.approx(reads, rel=0.02)
-    assert mega(cells[2]) == pytest.approx(window, rel=0.02)
+    for cell, fuel in zip(cells[1:5], (reads, window, v_reads, v_window)):
+        assert mega(cell) == pytest.approx(fuel, rel=0.02), cells
+    assert mega(cells[5]) == pytest.approx(cost, rel=0.02)
     assert cells[-1].startswith("**%s**" % verdict)
     figures = [float(x) for x in re.findall(r"(\d+(?:\.\d+)?) ?(?:%|x)", cells[-1])]
     if verdict in ("yes", "tight"):

@@ -89,12 +89,14 @@ PARAM_KEYS = (
 
 
 def default_feature_list(axes, n_bands):
-    """Scored features by default: every field of every axis but the mean and the clip count."""
+    """Scored features by default: every field of every axis but the mean, the clip count and the
+    sensor-run, speed, order and envelope fields (F_STUCK .. F_ENV_FTF), which a trained set
+    chooses for itself."""
     pa = fi.per_axis(n_bands)
     out = []
     for a in range(axes):
         for f in range(pa):
-            if f != fi.F_MEAN and f != fi.F_CLIP:
+            if f != fi.F_MEAN and f != fi.F_CLIP and not fi.F_STUCK <= f <= fi.F_ENV_FTF:
                 out.append(a * pa + f)
     return out
 

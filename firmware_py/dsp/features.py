@@ -2,6 +2,12 @@
 # of feature_index (scales documented there). All memory is allocated in the constructor; step()
 # allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
 #
+# Per window and axis: one pass over the samples (statistics, stuck and zero runs: _scan), a
+# second that normalises, windows and stores them bit-reversed (_shape), the FFT and power
+# spectrum (fft), the moments and band powers (_finish), then the shaft speed (speed), the order
+# amplitudes (orders) and the squared-envelope lines (envelope), each of which reads the spectrum
+# the FFT left.
+#
 # Entry points: FeatureCore (step, process), check_config, footprint_bytes. The per-sample passes
 # (_scan, _shape) and the FFT stages are viper-compiled on the boards (firmware_py.viper_stand).
 import array
@@ -9,9 +15,10 @@ import array
 import micropython
 from micropython import const
 
-from firmware_py.dsp import fft, tables
+from firmware_py.dsp import envelope, fft, orders, speed, tables
 from firmware_py.dsp.feature_index import (
-    F_BAND0, F_CLIP, F_CREST, F_KURT, F_MEAN, F_PEAK, F_RMS, F_VEL, LOG2_ZERO_Q8, per_axis)
+    F_BAND0, F_CLIP, F_CREST, F_ENV_FTF, F_KURT, F_MEAN, F_ORD_HALF, F_PEAK, F_RMS, F_SPEED,
+    F_SPEED_CONF, F_STUCK, F_VEL, F_ZERO, LOG2_ZERO_Q8, per_axis)
 from firmware_py.dsp.fixmath import div_pow2, log2_q8, msb, sqrt_pow2
 from firmware_py.dsp.ring import SampleRing, footprint_bytes as _ring_bytes
 from firmware_py.viper_stand import ptr16, ptr32
@@ -26,10 +33,13 @@ _S_MIN = const(2)       # smallest count
 _S_CLIP = const(3)      # counts at or beyond the converter's full-scale codes
 _S_SQ = const(4)        # sum(y*y >> (L-1)) < 2**29
 _S_S4 = const(5)        # sum(round(y*y / 2**14)**2 >> L) < 2**28
-_S_LEN = const(6)
+_S_STUCK = const(6)     # longest run of identical consecutive counts, samples
+_S_ZERO = const(7)      # longest run of counts exactly 0, samples (0: none)
+_S_LEN = const(8)
 
 
-def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz):
+def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz, speed_lo_q8=0, speed_hi_q8=0,
+                 vane=0, env_band=(), bear_q12=()):
     """Raise ValueError with the reason if the feature core cannot run this configuration."""
     if n < _MIN_N or n > _MAX_N or n & (n - 1):
         raise ValueError("window length must be a power of two from 64 to 4096")
@@ -37,20 +47,32 @@ def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz):
         raise ValueError("1 to 3 axes")
     if not 0 < vel_lo_hz < vel_hi_hz or 2 * vel_lo_hz >= fs_hz:
         raise ValueError("velocity band must satisfy 0 < lo < hi and lo below fs/2")
+    if fs_hz < 1 or fs_hz >= 1 << 20:
+        raise ValueError("sample rate must be 1 to 2**20 - 1 Hz")
     m = n >> 1
     for b in bands:
         if not 1 <= b[0] < b[1] <= m:
             raise ValueError("band bins must satisfy 1 <= lo < hi <= n/2")
+    speed.check_range(n, fs_hz, speed_lo_q8, speed_hi_q8)
+    orders.check_vane(n, fs_hz, vane, speed_hi_q8)
+    envelope.check_band(n, fs_hz, env_band, bear_q12, speed_hi_q8)
 
 
 def footprint_bytes(n, axes, ring_windows, n_bands):
     """Heap bytes the feature core's buffers and tables take (array payloads; object headers,
-    about 16 bytes each, come on top). Used by board profiles to check the heap budget."""
+    about 16 bytes each, come on top), the envelope's buffers included whether or not a set uses
+    them. Used by board profiles to check the heap budget."""
     m = n >> 1
     tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * 257 + 3 * (m + 1)   # trig, hann, pos, log2, vel
+    tw_b = 0                                                             # radix-4 twiddles
+    h = 2 if fft._odd_log2(m) else 1
+    while h < m:
+        tw_b += 4 * 6 * h
+        h *= 4
     work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
     work_b += 4 * _S_LEN + 4 * n_bands                                   # window sums, band bins
-    return _ring_bytes(axes, n, ring_windows) + tables_b + work_b
+    return (_ring_bytes(axes, n, ring_windows) + tables_b + tw_b + work_b
+            + envelope.buffer_bytes(n))
 
 
 class FeatureCore:
@@ -61,8 +83,9 @@ class FeatureCore:
     """
 
     def __init__(self, n, axes, fs_hz, adc_min, adc_max, bands=(), vel_lo_hz=10, vel_hi_hz=1000,
-                 ring_windows=2):
-        check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz)
+                 ring_windows=2, speed_lo_q8=0, speed_hi_q8=0, vane=0, env_band=(), bear_q12=()):
+        check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz, speed_lo_q8, speed_hi_q8, vane,
+                     env_band, bear_q12)
         self.n = n
         self.m = n >> 1
         self.L = msb(n)
@@ -87,6 +110,10 @@ class FeatureCore:
         self.per = per_axis(self.n_bands)
         self.feats = array.array('i', bytes(4 * axes * self.per))
         self.st = array.array('i', bytes(4 * _S_LEN))    # window sums, see _scan and _shape
+        self.speed = speed.SpeedEstimator(n, fs_hz, speed_lo_q8, speed_hi_q8, self.p)
+        self.orders = orders.OrderReader(vane, self.p, self.log2_q15)
+        self.env = envelope.Envelope(n, env_band, bear_q12, self.hann_q15, self.pos, self.tw_q15,
+                                     self.log2_q15)
         self.windows = 0
 
     def step(self):
@@ -126,6 +153,8 @@ class FeatureCore:
         f[off + F_MEAN] = (s + (1 << (L - 9)) >> (L - 8)) if L > 8 else s << (8 - L)
         f[off + F_PEAK] = pk << 8
         f[off + F_CLIP] = st[_S_CLIP]
+        f[off + F_STUCK] = st[_S_STUCK]
+        f[off + F_ZERO] = st[_S_ZERO]
         if pk == 0:
             self._flat(off)
             return
@@ -138,6 +167,9 @@ class FeatureCore:
         fft.cfft(self.buf, m, self.tw_q15)
         vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p)
         self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
+        f1 = self.speed.run(f, off)
+        self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
+        self.env.run(self.buf, f1, f, off)
 
     @micropython.native
     def _finish(self, off, pk, u, g, sh, sq, s4, vs):
@@ -162,12 +194,17 @@ class FeatureCore:
             f[off + F_BAND0 + b] = log2_q8(ps, t) + c if ps > 0 else LOG2_ZERO_Q8
 
     def _flat(self, off):
-        """A window with no variation at all (stuck output): no spectrum, zero features."""
+        """A window with no variation at all (stuck output): no spectrum, zero features (its one
+        run of n samples is already counted by _scan)."""
         f = self.feats
         f[off + F_RMS] = 0
         f[off + F_CREST] = 0
         f[off + F_KURT] = 0
         f[off + F_VEL] = 0
+        f[off + F_SPEED] = 0
+        f[off + F_SPEED_CONF] = 0
+        for j in range(F_ORD_HALF, F_ENV_FTF + 1):
+            f[off + j] = LOG2_ZERO_Q8
         for b in range(self.n_bands):
             f[off + F_BAND0 + b] = LOG2_ZERO_Q8
         p = self.p
@@ -178,13 +215,18 @@ class FeatureCore:
 @micropython.viper
 def _scan(win, n: int, adc_min: int, adc_max: int, st):
     """Sum, largest, smallest and clipped count of n int16 counts (array('h') or its view) into
-    st[_S_SUM], st[_S_MAX], st[_S_MIN], st[_S_CLIP]. Counts; |sum| <= 2**15 * n <= 2**27."""
+    st[_S_SUM], st[_S_MAX], st[_S_MIN], st[_S_CLIP] (counts; |sum| <= 2**15 * n <= 2**27), and
+    the longest runs of identical and of zero counts into st[_S_STUCK], st[_S_ZERO] (samples)."""
     x = ptr16(win)
     o = ptr32(st)
     s = 0
     mx = -32768
     mn = 32767
     c = 0
+    last = 65536                    # no int16 sample: the first one starts a run
+    run = 0                         # repeats of `last` so far (run length - 1)
+    rmax = 0                        # longest run - 1
+    zmax = 0                        # longest run of zeros (0: no zero seen)
     for i in range(n):
         v = ((x[i] & 0xFFFF) ^ 0x8000) - 0x8000      # sign-extend (viper loads zero-extend)
         s += v
@@ -194,10 +236,23 @@ def _scan(win, n: int, adc_min: int, adc_max: int, st):
             mn = v
         if v >= adc_max or v <= adc_min:
             c += 1
+        if v == last:
+            run += 1
+            if run > rmax:
+                rmax = run
+            if v == 0 and run >= zmax:
+                zmax = run + 1
+        else:
+            run = 0
+            last = v
+            if v == 0 and zmax == 0:
+                zmax = 1
     o[_S_SUM] = s
     o[_S_MAX] = mx
     o[_S_MIN] = mn
     o[_S_CLIP] = c
+    o[_S_STUCK] = rmax + 1
+    o[_S_ZERO] = zmax
 
 
 @micropython.viper

@@ -12,7 +12,8 @@
 #   (Z[k] + conj Z[m-k])/2 and (Z[k] - conj Z[m-k])/2, halved before the twiddle product for the
 #   same bound. Result: X[k] = DFT(x)[k] / m for k = 0..m, |X| <= 2**14 (the window sum bound).
 #   Power p[k] = re**2 + im**2 <= 2**28, and by Parseval sum(p) <= 1.5 * 2**28 < 2**30, so sums of
-#   any band of p never overflow.
+#   any band of p never overflow. spectrum leaves X itself in buf (packed real-FFT layout), which
+#   the envelope stage reads.
 # Floor shifts bias each stage by at most -1/2 LSB; that error is what the tests' tolerance derives from.
 #
 # Entry points: radix4_twiddles (set-up), cfft, spectrum, power_sum (per window, viper-compiled on
@@ -144,7 +145,11 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
     sum over k of |X[k] * w[k] / 2**15|**2 with w[k] = vmant[k] * 2**-(vsh2[k]/2) (the weighted
     power behind velocity r.m.s., tables.velocity_weights): each component is scaled by the
     mantissa (Q15, >= 2**14, so it keeps its precision), squared, then shifted right by vsh2[k].
-    The sum is < 2**30 like sum(p), since w < 2**15. Reads buf, does not change it.
+    The sum is < 2**30 like sum(p), since w < 2**15.
+
+    Overwrites buf with the spectrum X itself, in the packed real-FFT layout: X[k] for k = 1..m-1
+    at buf[2k] (re) and buf[2k+1] (im); buf[0] = X[0] and buf[1] = X[m] (both real). Each value
+    read from buf is consumed before its slot is written (k and m-k are done together).
 
     Each squared weighted component is below 2**29 (|X| <= 2**14, mantissa < 2**15), so a shift
     of 29 or more leaves 0: such bins are skipped, which keeps every shift count below 32 (the
@@ -163,6 +168,8 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
     xm = zr - zi                      # Nyquist: Re Z0 - Im Z0
     pw[0] = x0 * x0
     pw[m] = xm * xm
+    z[0] = x0
+    z[1] = xm
     v = (xm * vm[m]) >> 15
     vs = 0
     s = vh[m]
@@ -186,6 +193,8 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
         ti = (wr * oi - wi * orr) >> 15
         xr = er + ti                            # X[k] = E - jT
         xi = ei - tr
+        z[i] = xr
+        z[i + 1] = xi
         pw[k] = xr * xr + xi * xi
         s = vh[k]
         if s < 31:
@@ -193,8 +202,10 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
             vr = (xr * g) >> 15
             vi = (xi * g) >> 15
             vs += (vr * vr + vi * vi) >> s
-        xr = er - ti                            # X[m-k] = conj(E + jT); sign is lost in power
+        xr = er - ti                            # X[m-k] = conj(E + jT): (xr, -xi)
         xi = ei + tr
+        z[q] = xr
+        z[q + 1] = -xi
         pw[m - k] = xr * xr + xi * xi
         s = vh[m - k]
         if s < 31:
@@ -205,6 +216,7 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
     # k = m/2 pairs with itself: W = -j, so X = conj Z[m/2]
     ar = (z[m] << sx) >> sx
     ai = (z[m + 1] << sx) >> sx
+    z[m + 1] = -ai
     pw[hm] = ar * ar + ai * ai
     s = vh[hm]
     if s < 31:

@@ -18,7 +18,9 @@ from host_tools.data.units import STANDARD_GRAVITY_M_S2
 _SIG = 32          # HMAC-SHA256 bytes in a signed image (docs/protocol.md, "Image")
 _CRC = 4
 MIN_KEY_BYTES = 16
-FIELD_NAMES = ("mean", "rms", "peak", "crest", "kurt", "clip", "vel")   # feature_index order
+FIELD_NAMES = ("mean", "rms", "peak", "crest", "kurt", "clip", "vel", "stuck", "zero", "speed",
+               "speed_conf", "ord_0.5x", "ord_1x", "ord_2x", "ord_3x", "ord_vane", "env_bpfo",
+               "env_bpfi", "env_bsf", "env_ftf")   # feature_index order
 
 
 @contextlib.contextmanager

@@ -51,7 +51,13 @@ from host_tools.data.recording import Recording, read_stream
 
 _CHUNK_WINDOWS = 512   # windows per call of the feature twin: keeps its temporaries in cache (measured fastest)
 _FIELD_NAMES = {fi.F_MEAN: "mean", fi.F_RMS: "accel_rms", fi.F_PEAK: "peak", fi.F_CREST: "crest",
-                fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms"}
+                fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms",
+                fi.F_STUCK: "stuck_run", fi.F_ZERO: "zero_run", fi.F_SPEED: "speed",
+                fi.F_SPEED_CONF: "speed_confidence", fi.F_ORD_HALF: "order_0.5x",
+                fi.F_ORD_1X: "order_1x", fi.F_ORD_2X: "order_2x", fi.F_ORD_3X: "order_3x",
+                fi.F_ORD_VANE: "order_vane_pass", fi.F_ENV_BPFO: "envelope_bpfo",
+                fi.F_ENV_BPFI: "envelope_bpfi", fi.F_ENV_BSF: "envelope_bsf",
+                fi.F_ENV_FTF: "envelope_ftf"}
 
 
 # --- set-up from a parameter set ----------------------------------------------------------------
@@ -59,9 +65,11 @@ _FIELD_NAMES = {fi.F_MEAN: "mean", fi.F_RMS: "accel_rms", fi.F_PEAK: "peak", fi.
 def twin_for(params: dict, profile: dict) -> FeatureTwin:
     """The numpy twin of the feature core that parameter set `params` builds on board `profile`."""
     s = profile["sensor"]
+    o = pm.feature_options(params)
     cfg = TwinConfig(params["n"], params["fs_hz"], s["adc_min"], s["adc_max"],
                      tuple((b[0], b[1]) for b in params["fc_bands"]),
-                     params["fc_vel_hz"][0], params["fc_vel_hz"][1])
+                     params["fc_vel_hz"][0], params["fc_vel_hz"][1], o["speed_lo_q8"],
+                     o["speed_hi_q8"], o["vane"], o["env_band"], o["bear_q12"])
     return FeatureTwin(cfg, params["axes"])
 
 
