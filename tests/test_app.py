@@ -466,12 +466,13 @@ def test_frames_a_full_ring_cannot_take_are_still_dropped_and_told(tmp_path):
     gw, told = duty_gateway(tmp_path, prof)
     k_every, n, slots = prof["analyse_every"], prof["window_n"], prof["ring_windows"]
     frames = (slots + 1) * k_every * n               # one analysed window more than the ring
-    gw.feed(frames_from(0, frames, 1), frames)       # nothing processed meanwhile
+    axes = prof["axes"]
+    gw.feed(frames_from(0, frames, axes), frames)    # nothing processed meanwhile
     assert gw.core.ring.dropped == n and gw.skipped == (slots + 1) * (k_every - 1)
     while gw.window():
         pass
     assert gw.windows == slots and sum(told) == n and told[0] == n   # drops, not skips
-    gw.feed(frames_from(frames, n, 1), n)
+    gw.feed(frames_from(frames, n, axes), n)
     # before it: the skipped windows of the last kept cycle, the analysed window that was
     # lost, and the skipped windows of that cycle
     assert gw.window() and gw.raw_gap == (k_every - 1) * n + n + (k_every - 1) * n
