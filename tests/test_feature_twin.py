@@ -15,11 +15,11 @@ CONFIGS = [
     dict(n=2048, fs=6667, bands=(), adc=(-32768, 32767), vel=(10, 1000)),
     # with speed, orders and envelope: every new stage on every path
     dict(n=64, fs=1000, bands=((1, 4),), adc=(-32768, 32767), vel=(2, 400), speed=(50 * 256, 70 * 256),
-         vane=2, env_band=(10, 30), bear=(10240, 11469, 6144, 1638)),
+         vane=2, env_band=(10, 26), bear=(10240, 11469, 6144, 1638)),
     dict(n=512, fs=3200, bands=((2, 9), (40, 256)), adc=(-32768, 32767), vel=(10, 1000),
          speed=(20 * 256, 60 * 256), vane=6, env_band=(100, 200), bear=BEAR),
     dict(n=1024, fs=26667, bands=((1, 100),), adc=(-2048, 2047), vel=(10, 1000),
-         speed=(80 * 256, 400 * 256), vane=5, env_band=(200, 480), bear=BEAR),
+         speed=(80 * 256, 400 * 256), vane=5, env_band=(200, 456), bear=BEAR),
     dict(n=2048, fs=6667, bands=(), adc=(-32768, 32767), vel=(10, 1000), speed=(12 * 256, 22 * 256),
          vane=7, env_band=(600, 1024), bear=BEAR),
 ]

@@ -4,6 +4,7 @@ of the band-passed signal, on simulated bearing impacts at a known BPFO ringing 
 Each tolerance is derived from the fixed-point error bounds of the FFT (stated beside it)."""
 import array
 import math
+import types
 
 import numpy as np
 import scipy.signal
@@ -82,12 +83,19 @@ def test_order_amplitude_reads_a_tone_mean_square():
         assert abs(f[0, fi.F_ORD_1X] / 256 - math.log2(A * A / 2)) <= 1.3e-3 + 1e-3 + 2 / 256
 
 
+def _spectrum_only_core():
+    """A FeatureCore whose envelope stage asks for X but does not run (so X stays in buf)."""
+    fc = FeatureCore(N, 1, FS, -32768, 32767)
+    fc.env = types.SimpleNamespace(on=True, run=lambda *args: None)
+    return fc
+
+
 def test_spectrum_buffer_holds_the_complex_spectrum():
-    # fft.spectrum leaves X itself in the FFT buffer (packed: X[0], X[m] real in slots 0 and 1),
-    # which the envelope stage reads: against numpy.fft.rfft, within the per-component bound
+    # fft.spectrum leaves X itself in the FFT buffer (packed: X[0], X[m] real in slots 0 and 1)
+    # when the envelope needs it: against numpy.fft.rfft, within the per-component bound
     rng = np.random.default_rng(5)
     x = np.round(rng.normal(0, 3000, N)).astype(np.int16)
-    fc = FeatureCore(N, 1, FS, -32768, 32767)
+    fc = _spectrum_only_core()
     fc.ring.push(array.array("h", x.tobytes()), N)
     fc.process()
     y, _, hann = _normalised(x, fc)
@@ -124,8 +132,8 @@ def _bearing_impacts(f1, windows, rng, slip=0.01):
 
 def _device_spectrum(x):
     """The device's own spectrum X (complex, k = 0..m-1; packed X[m] dropped) of window x, from a
-    core without the envelope stage (fft.spectrum leaves X in the FFT buffer)."""
-    fc = FeatureCore(N, 1, FS, -32768, 32767)
+    core whose envelope stage does not run (fft.spectrum leaves X in the FFT buffer)."""
+    fc = _spectrum_only_core()
     fc.ring.push(array.array("h", x.tobytes()), N)
     fc.process()
     b = np.array(fc.buf, dtype=float)

@@ -64,11 +64,7 @@ def footprint_bytes(n, axes, ring_windows, n_bands):
     them. Used by board profiles to check the heap budget."""
     m = n >> 1
     tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * 257 + 3 * (m + 1)   # trig, hann, pos, log2, vel
-    tw_b = 0                                                             # radix-4 twiddles
-    h = 2 if fft._odd_log2(m) else 1
-    while h < m:
-        tw_b += 4 * 6 * h
-        h *= 4
+    tw_b = fft.twiddle_bytes(m)                                          # radix-4 twiddles
     work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
     work_b += 4 * _S_LEN + 4 * n_bands                                   # window sums, band bins
     return (_ring_bytes(axes, n, ring_windows) + tables_b + tw_b + work_b
@@ -112,7 +108,8 @@ class FeatureCore:
         self.st = array.array('i', bytes(4 * _S_LEN))    # window sums, see _scan and _shape
         self.speed = speed.SpeedEstimator(n, fs_hz, speed_lo_q8, speed_hi_q8, self.p)
         self.orders = orders.OrderReader(vane, self.p, self.log2_q15)
-        self.env = envelope.Envelope(n, env_band, bear_q12, self.hann_q15, self.pos, self.tw_q15,
+        self.env = envelope.Envelope(n, fs_hz, env_band, bear_q12, speed_hi_q8, self.hann_q15,
+                                     self.pos, self.tw_q15, self.cos_q15, self.sin_q15,
                                      self.log2_q15)
         self.windows = 0
 
@@ -165,7 +162,8 @@ class FeatureCore:
         _shape(win, n, L, mean, g, sh, self.hann_q15, self.pos, self.buf, st)
         m = self.m
         fft.cfft(self.buf, m, self.tw_q15)
-        vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p)
+        vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p,
+                          self.env.on)
         self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
         f1 = self.speed.run(f, off)
         self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)

@@ -47,6 +47,16 @@ def radix4_twiddles(m, cos_t, sin_t):
     return _array_i(tw)
 
 
+def twiddle_bytes(m):
+    """Bytes of radix4_twiddles(m, ...): six ints per j of every radix-4 stage."""
+    b = 0
+    h = 2 if _odd_log2(m) else 1
+    while h < m:
+        b += 4 * 6 * h
+        h *= 4
+    return b
+
+
 def _array_i(values):
     import array
     return array.array('i', values)
@@ -138,7 +148,7 @@ def cfft(buf, m: int, tw):
 
 
 @micropython.viper
-def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
+def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p, keep_x: int) -> int:
     """Split the complex FFT in buf into the real spectrum of the window.
 
     Writes the power p[k] = |X[k]|**2 for k = 0..m (array('i'), m + 1 entries) and returns
@@ -147,9 +157,10 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
     mantissa (Q15, >= 2**14, so it keeps its precision), squared, then shifted right by vsh2[k].
     The sum is < 2**30 like sum(p), since w < 2**15.
 
-    Overwrites buf with the spectrum X itself, in the packed real-FFT layout: X[k] for k = 1..m-1
-    at buf[2k] (re) and buf[2k+1] (im); buf[0] = X[0] and buf[1] = X[m] (both real). Each value
-    read from buf is consumed before its slot is written (k and m-k are done together).
+    With keep_x, overwrites buf with the spectrum X itself, in the packed real-FFT layout: X[k]
+    for k = 1..m-1 at buf[2k] (re) and buf[2k+1] (im); buf[0] = X[0] and buf[1] = X[m] (both
+    real). Each value read from buf is consumed before its slot is written (k and m-k are done
+    together). Without it buf is left as it was (the stores cost a few per cent of the window).
 
     Each squared weighted component is below 2**29 (|X| <= 2**14, mantissa < 2**15), so a shift
     of 29 or more leaves 0: such bins are skipped, which keeps every shift count below 32 (the
@@ -168,8 +179,9 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
     xm = zr - zi                      # Nyquist: Re Z0 - Im Z0
     pw[0] = x0 * x0
     pw[m] = xm * xm
-    z[0] = x0
-    z[1] = xm
+    if keep_x:
+        z[0] = x0
+        z[1] = xm
     v = (xm * vm[m]) >> 15
     vs = 0
     s = vh[m]
@@ -193,8 +205,9 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
         ti = (wr * oi - wi * orr) >> 15
         xr = er + ti                            # X[k] = E - jT
         xi = ei - tr
-        z[i] = xr
-        z[i + 1] = xi
+        if keep_x:
+            z[i] = xr
+            z[i + 1] = xi
         pw[k] = xr * xr + xi * xi
         s = vh[k]
         if s < 31:
@@ -204,8 +217,9 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
             vs += (vr * vr + vi * vi) >> s
         xr = er - ti                            # X[m-k] = conj(E + jT): (xr, -xi)
         xi = ei + tr
-        z[q] = xr
-        z[q + 1] = -xi
+        if keep_x:
+            z[q] = xr
+            z[q + 1] = -xi
         pw[m - k] = xr * xr + xi * xi
         s = vh[m - k]
         if s < 31:
@@ -216,7 +230,8 @@ def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p) -> int:
     # k = m/2 pairs with itself: W = -j, so X = conj Z[m/2]
     ar = (z[m] << sx) >> sx
     ai = (z[m + 1] << sx) >> sx
-    z[m + 1] = -ai
+    if keep_x:
+        z[m + 1] = -ai
     pw[hm] = ar * ar + ai * ai
     s = vh[hm]
     if s < 31:

@@ -30,10 +30,10 @@ def check_vane(n, fs_hz, vane, hi_q8):
 class OrderReader:
     """Main-lobe power at the orders of the 1x estimate, from the power spectrum p."""
 
-    def __init__(self, vane, p, log2_t):
+    def __init__(self, vane, p, log2_q15):
         self.vane = vane
         self.p = p
-        self.log2_t = log2_t
+        self.log2_q15 = log2_q15
 
     def run(self, f1_q8, c, f, off):
         """f1_q8: 1x in bins Q8 (0: none); c: log2 Q8 turning a bin sum into counts**2 (the
@@ -56,4 +56,4 @@ class OrderReader:
         p = self.p
         k = x_q8 >> 8
         s = p[k - 1] + p[k] + p[k + 1] + p[k + 2]
-        return log2_q8(s, self.log2_t) + c if s > 0 else LOG2_ZERO_Q8
+        return log2_q8(s, self.log2_q15) + c if s > 0 else LOG2_ZERO_Q8

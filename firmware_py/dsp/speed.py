@@ -78,15 +78,15 @@ class SpeedEstimator:
         self.fs_hz = fs_hz
         self.L = msb(n)
         self.on = hi_q8 > 0
-        self.c_lo = bins_q2(lo_q8, n, fs_hz, True) if self.on else 0
-        self.c_hi = bins_q2(hi_q8, n, fs_hz, False) if self.on else 0
-        self.b_lo = bins_q(lo_q8, n, fs_hz, 8, True)     # the range in bins Q8
-        self.b_hi = bins_q(hi_q8, n, fs_hz, 8, False)
+        self.c_lo_q2 = bins_q2(lo_q8, n, fs_hz, True) if self.on else 0
+        self.c_hi_q2 = bins_q2(hi_q8, n, fs_hz, False) if self.on else 0
+        self.b_lo_q8 = bins_q(lo_q8, n, fs_hz, 8, True)     # the range in bins Q8
+        self.b_hi_q8 = bins_q(hi_q8, n, fs_hz, 8, False)
         # the bins any family lobe can reach: confidence is the family's share of their power
-        a = ((self.c_lo + 2) >> 2) - 3
-        b = ((3 * self.c_hi + 2) >> 2) + 3
+        a = ((self.c_lo_q2 + 2) >> 2) - 3
+        b = ((3 * self.c_hi_q2 + 2) >> 2) + 3
         self.reach = memoryview(p)[a:b + 1] if self.on else memoryview(p)[0:0]
-        self.fq = [0, 0, 0, 0]      # per harmonic 1..3: peak position, bins Q8
+        self.fq_q8 = [0, 0, 0, 0]      # per harmonic 1..3: peak position, bins Q8
         self.pw = [0, 0, 0, 0]      # per harmonic: 3-bin lobe power at the peak
 
     def run(self, f, off):
@@ -96,7 +96,7 @@ class SpeedEstimator:
         p = self.p
         best = -1
         cb = 0
-        for c in range(self.c_lo, self.c_hi + 1):
+        for c in range(self.c_lo_q2, self.c_hi_q2 + 1):
             j = (2 * c + 2) >> 2
             s = p[j - 1] + p[j] + p[j + 1]
             j = (3 * c + 2) >> 2
@@ -112,7 +112,7 @@ class SpeedEstimator:
         self._harmonic(2, (2 * cb + 2) >> 2)
         self._harmonic(3, (3 * cb + 2) >> 2)
         pw = self.pw
-        fq = self.fq
+        fq = self.fq_q8
         hs = 1                          # the strongest harmonic
         if pw[2] > pw[hs]:
             hs = 2
@@ -121,18 +121,18 @@ class SpeedEstimator:
         sh = msb(pw[hs]) - 7
         if sh < 0:
             sh = 0
-        fs = fq[hs]
+        fr = fq[hs]
         # 8-bit weights (128..255 for the strongest), 0 for a harmonic off h * f_s / s by more
         # than half a bin (compared times s: all terms < 3 * 2**19)
-        w1 = pw[1] >> sh if _near(hs * fq[1] - fs, 128 * hs) else 0
-        w2 = pw[2] >> sh if _near(hs * fq[2] - 2 * fs, 128 * hs) else 0
-        w3 = pw[3] >> sh if _near(hs * fq[3] - 3 * fs, 128 * hs) else 0
+        w1 = pw[1] >> sh if _near(hs * fq[1] - fr, 128 * hs) else 0
+        w2 = pw[2] >> sh if _near(hs * fq[2] - 2 * fr, 128 * hs) else 0
+        w3 = pw[3] >> sh if _near(hs * fq[3] - 3 * fr, 128 * hs) else 0
         den = w1 + 4 * w2 + 9 * w3
         f1 = (w1 * fq[1] + 2 * w2 * fq[2] + 3 * w3 * fq[3] + (den >> 1)) // den
-        if f1 < self.b_lo:              # keep the estimate inside the range
-            f1 = self.b_lo
-        elif f1 > self.b_hi:
-            f1 = self.b_hi
+        if f1 < self.b_lo_q8:              # keep the estimate inside the range
+            f1 = self.b_lo_q8
+        elif f1 > self.b_hi_q8:
+            f1 = self.b_hi_q8
         f[off + F_SPEED] = mul_shift(f1, self.fs_hz, self.L)
         fam = pw[1] + pw[2] + pw[3]     # < 3.5 * 2**28: lobes overlap by one bin at most
         tot = sum(self.reach)           # <= 1.5 * 2**28
@@ -159,18 +159,18 @@ class SpeedEstimator:
         hi = p[k + 1]
         self.pw[h] = lo + top + hi
         if top == 0:
-            self.fq[h] = k << 8
+            self.fq_q8[h] = k << 8
             return
         e = 28 - msb(top)               # top * 2**e < 2**29: magnitudes < 2**15, >= 14 bits
         a0 = sqrt_pow2(top, e)
         if hi >= lo:
             a1 = sqrt_pow2(hi, e)
             d = (((2 * a1 - a0) << 9) // (a1 + a0) + 1) >> 1     # bins Q8, rounded
-            self.fq[h] = (k << 8) + d
+            self.fq_q8[h] = (k << 8) + d
         else:
             a1 = sqrt_pow2(lo, e)
             d = (((2 * a1 - a0) << 9) // (a1 + a0) + 1) >> 1
-            self.fq[h] = (k << 8) - d
+            self.fq_q8[h] = (k << 8) - d
 
 
 def _near(d, lim):

@@ -74,10 +74,25 @@ def factory(profile):
 
 def feature_options(p):
     """The speed, order and envelope options of set p as FeatureCore keywords, with the
-    defaults of sets that predate them (no speed estimate, no vane, no envelope)."""
-    return {"speed_lo_q8": p.get("fc_speed_lo_q8", 0), "speed_hi_q8": p.get("fc_speed_hi_q8", 0),
-            "vane": p.get("fc_vane", 0), "env_band": tuple(p.get("fc_env_band", ())),
-            "bear_q12": tuple(p.get("fc_bear_q12", ()))}
+    defaults of sets that predate them (no speed estimate, no vane, no envelope). ValueError
+    names the key whose type is wrong; FeatureCore then checks the values."""
+    return {"speed_lo_q8": _int(p, "fc_speed_lo_q8"), "speed_hi_q8": _int(p, "fc_speed_hi_q8"),
+            "vane": _int(p, "fc_vane"), "env_band": _ints(p, "fc_env_band"),
+            "bear_q12": _ints(p, "fc_bear_q12")}
+
+
+def _int(p, key):
+    v = p.get(key, 0)
+    if not isinstance(v, int) or isinstance(v, bool):
+        raise ValueError("%s must be an integer" % key)
+    return v
+
+
+def _ints(p, key):
+    v = p.get(key, ())
+    if not isinstance(v, (list, tuple)) or not all(isinstance(x, int) and not isinstance(x, bool) for x in v):
+        raise ValueError("%s must be a list of integers" % key)
+    return tuple(v)
 
 
 def feature_core(p, profile):

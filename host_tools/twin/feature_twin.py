@@ -64,34 +64,42 @@ class FeatureTwin:
         vm, vs, self.vel_exp = tables.velocity_weights(n, cfg.fs_hz, cfg.vel_lo_hz, cfg.vel_hi_hz)
         self.vmant = np.array(vm, dtype=np.int32)
         self.vsh2 = np.array(vs, dtype=np.int32)
-        self.stages = self._stage_twiddles(fft.radix4_twiddles(self.m, cos_t, sin_t))
+        self.stages = self._stage_twiddles(fft.radix4_twiddles(self.m, cos_t, sin_t), self.m)
         self.log2_4_3_q8 = 512 - log2_q8(3, tables.log2_table())
         self.per = per_axis(len(cfg.bands))
         # speed.SpeedEstimator's range, quarter bins, and the bins its confidence sums
         self.speed_on = cfg.speed_hi_q8 > 0
         if self.speed_on:
-            self.c_lo = speed.bins_q2(cfg.speed_lo_q8, n, cfg.fs_hz, True)
-            self.c_hi = speed.bins_q2(cfg.speed_hi_q8, n, cfg.fs_hz, False)
-            self.b_lo = speed.bins_q(cfg.speed_lo_q8, n, cfg.fs_hz, 8, True)
-            self.b_hi = speed.bins_q(cfg.speed_hi_q8, n, cfg.fs_hz, 8, False)
-            self.reach = (((self.c_lo + 2) >> 2) - 3, ((3 * self.c_hi + 2) >> 2) + 4)
-        # envelope.Envelope's set-up
-        self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4
-        h = self.hann_q15[0::2].astype(np.int64) >> 1
-        self.w2 = (h * h) >> 14
-        self.w2sum = int(self.w2.sum())
-        self.env_c_ms = 2048 - log2_q8(35, tables.log2_table())
-        self.cpos = self.pos[0::2] // 2          # bit-reversed slot of complex point c
+            self.c_lo_q2 = speed.bins_q2(cfg.speed_lo_q8, n, cfg.fs_hz, True)
+            self.c_hi_q2 = speed.bins_q2(cfg.speed_hi_q8, n, cfg.fs_hz, False)
+            self.b_lo_q8 = speed.bins_q(cfg.speed_lo_q8, n, cfg.fs_hz, 8, True)
+            self.b_hi_q8 = speed.bins_q(cfg.speed_hi_q8, n, cfg.fs_hz, 8, False)
+            self.reach = (((self.c_lo_q2 + 2) >> 2) - 3, ((3 * self.c_hi_q2 + 2) >> 2) + 4)
+        # envelope.Envelope's set-up: M points, the window and bit-reversed slots at a stride
+        self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4 and cfg.speed_hi_q8 > 0
+        if self.env_on:
+            mz = envelope.points(n, cfg.fs_hz, cfg.env_band, cfg.bear_q12, cfg.speed_hi_q8)
+            st = self.m // mz
+            tw = fft.radix4_twiddles(mz, [cos_t[k * st] for k in range(mz + 1)],
+                                     [sin_t[k * st] for k in range(mz + 1)])
+            self.env_mz = mz
+            self.env_stages = self._stage_twiddles(tw, mz)
+            h = self.hann_q15[:: n // mz].astype(np.int64) >> 1
+            self.w2_q14 = (h * h) >> 14
+            self.w2sum_q14 = int(self.w2_q14.sum())
+            self.cpos = self.pos[:: 2 * st] // 2          # bit-reversed slot of complex point c
+            self.env_c_ms_q8 = 2048 - log2_q8(35, tables.log2_table())
 
     # --- set-up -------------------------------------------------------------------------------
 
-    def _stage_twiddles(self, tw):
-        """Split fft.radix4_twiddles' flat table into (h, w2, w1, w3) per stage, each w an
-        (cos, sin) pair of int32 arrays over j = 0..h-1."""
+    @staticmethod
+    def _stage_twiddles(tw, m):
+        """Split fft.radix4_twiddles' flat table for an m-point cfft into (h, w2, w1, w3) per
+        stage, each w an (cos, sin) pair of int32 arrays over j = 0..h-1."""
         tw = np.array(tw, dtype=np.int32).reshape(-1, 6)
         out, t = [], 0
-        h = 2 if fft._odd_log2(self.m) else 1
-        while h < self.m:
+        h = 2 if fft._odd_log2(m) else 1
+        while h < m:
             rows = tw[t:t + h]
             t += h
             out.append((h, (rows[:, 0], rows[:, 1]), (rows[:, 2], rows[:, 3]), (rows[:, 4], rows[:, 5])))
@@ -173,15 +181,16 @@ class FeatureTwin:
             p[dead] = 0
         return p
 
-    def _cfft(self, re, im):
-        """fft.cfft over all windows: re, im (windows, m) in bit-reversed order."""
+    def _cfft(self, re, im, stages=None):
+        """fft.cfft over all windows: re, im (windows, m) in bit-reversed order; stages from
+        _stage_twiddles for that m (the window's own m-point FFT by default)."""
         wn, m = re.shape
         if fft._odd_log2(m):
             r2, i2 = re.reshape(wn, m // 2, 2), im.reshape(wn, m // 2, 2)
             ur, ui, xr, xi = r2[:, :, 0], i2[:, :, 0], r2[:, :, 1], i2[:, :, 1]
             re = np.stack(((ur + xr) >> 1, (ur - xr) >> 1), axis=2).reshape(wn, m)
             im = np.stack(((ui + xi) >> 1, (ui - xi) >> 1), axis=2).reshape(wn, m)
-        for h, (w2r, w2i), (w1r, w1i), (w3r, w3i) in self.stages:
+        for h, (w2r, w2i), (w1r, w1i), (w3r, w3i) in (self.stages if stages is None else stages):
             r4 = re.reshape(wn, m // (4 * h), 4, h)
             i4 = im.reshape(wn, m // (4 * h), 4, h)
             xr, xi = r4[:, :, 1], i4[:, :, 1]
@@ -266,7 +275,7 @@ class FeatureTwin:
             f[:, F_SPEED_CONF] = 0
             return np.zeros(wn, dtype=np.int64)
         p = p.astype(np.int64)
-        c = np.arange(self.c_lo, self.c_hi + 1)
+        c = np.arange(self.c_lo_q2, self.c_hi_q2 + 1)
         s = np.zeros((wn, c.size), dtype=np.int64)
         for h in (2, 3):
             j = (h * c + 2) >> 2
@@ -293,13 +302,13 @@ class FeatureTwin:
         hs = np.where(pw[1] > pw[0], 2, 1)
         hs = np.where(pw[2] > np.choose(hs - 1, pw), 3, hs)
         top = np.choose(hs - 1, pw)
-        fs = np.choose(hs - 1, fq)
+        fr = np.choose(hs - 1, fq)
         sh = np.maximum(_msb(np.maximum(top, 1)) - 7, 0)
-        w1, w2, w3 = ((pw[h - 1] >> sh) * (np.abs(hs * fq[h - 1] - h * fs) <= 128 * hs)
+        w1, w2, w3 = ((pw[h - 1] >> sh) * (np.abs(hs * fq[h - 1] - h * fr) <= 128 * hs)
                       for h in (1, 2, 3))
         den = np.maximum(w1 + 4 * w2 + 9 * w3, 1)
         f1 = (w1 * fq[0] + 2 * w2 * fq[1] + 3 * w3 * fq[2] + (den >> 1)) // den
-        f1 = np.clip(f1, self.b_lo, self.b_hi)
+        f1 = np.clip(f1, self.b_lo_q8, self.b_hi_q8)
         fam = pw[0] + pw[1] + pw[2]
         tot = p[:, self.reach[0]:self.reach[1]].sum(axis=1)
         conf = np.where(tot > 0, (fam << 8) // np.maximum(tot, 1), 0)
@@ -330,7 +339,7 @@ class FeatureTwin:
         f[:, fields] = LOG2_ZERO_Q8
         if not self.env_on:
             return
-        m = self.m
+        m = self.env_mz
         lo, hi = self.cfg.env_band
         br, bi = xr[:, lo:hi].astype(np.int64), xi[:, lo:hi].astype(np.int64)
         mx = np.maximum(np.abs(br).max(axis=1), np.abs(bi).max(axis=1))
@@ -343,20 +352,20 @@ class FeatureTwin:
         slots = self.cpos[: hi - lo]
         er[:, slots] = (br * g) >> sh
         ei[:, slots] = -((bi * g) >> sh)
-        zr, zi = self._cfft(er.astype(np.int32), ei.astype(np.int32))
+        zr, zi = self._cfft(er.astype(np.int32), ei.astype(np.int32), self.env_stages)
         s = zr.astype(np.int64) ** 2 + zi.astype(np.int64) ** 2
         top = s.max(axis=1)
         w = _msb(np.maximum(top, 1)) - envelope._S_TOP
         s = (s << np.maximum(-w, 0)[:, None]) >> np.maximum(w, 0)[:, None]
         tot = s.sum(axis=1)
-        eq = (((tot << 15) // self.w2sum) + 1) >> 1
-        d = s - ((eq[:, None] * self.w2 + 8192) >> 14)
+        eq = (((tot << 15) // self.w2sum_q14) + 1) >> 1
+        d = s - ((eq[:, None] * self.w2_q14 + 8192) >> 14)
         dr = np.empty_like(d)
         dr[:, self.cpos] = d
-        Dr, Di = self._cfft(dr.astype(np.int32), np.zeros_like(dr, dtype=np.int32))
+        Dr, Di = self._cfft(dr.astype(np.int32), np.zeros_like(dr, dtype=np.int32), self.env_stages)
         pe = Dr.astype(np.int64) ** 2 + Di.astype(np.int64) ** 2
         live = (f1 > 0) & (mx > 0) & (top > 0) & (eq > 0)
-        c = self.env_c_ms - 2 * _log2_q8(np.maximum(eq, 1), self.log2_q15)
+        c = self.env_c_ms_q8 - 2 * _log2_q8(np.maximum(eq, 1), self.log2_q15)
         rows = np.arange(wn)[:, None]
         for j, o in enumerate(self.cfg.bear_q12):
             x = (f1 * o) >> 12
