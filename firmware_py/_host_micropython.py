@@ -1,6 +1,8 @@
-# CPython stand-in for the parts of MicroPython's `micropython` module that device code uses.
-# Never imported on a board. The code emitters' decorators leave a function as it is: under
-# CPython it runs as Python, with firmware_py.viper_stand standing in for viper's pointer casts.
+"""CPython stand-in for the parts of MicroPython's `micropython` module that device code uses.
+Never imported on a board. The code emitters' decorators leave a function as it is: under CPython
+it runs as Python, with firmware_py.viper_stand standing in for viper's pointer casts.
+
+Entry points: const(), heap_lock(), heap_unlock(), viper(), native()."""
 
 
 def const(x):

@@ -1,8 +1,8 @@
-# Integer helpers for the per-window path: every argument, intermediate and result is a small
-# int (|v| < 2**30), so nothing here allocates on a 32-bit MicroPython port, and each fits a
-# viper machine word: the functions are viper-compiled on the boards (firmware_py.viper_stand).
-#
-# Entry points: msb, isqrt, sqrt_pow2, div_pow2, log2_q8.
+"""Integer helpers for the per-window path: every argument, intermediate and result is a small
+int (|v| < 2**30), so nothing here allocates on a 32-bit MicroPython port, and each fits a
+viper machine word: the functions are viper-compiled on the boards (firmware_py.viper_stand).
+
+Entry points: msb(), isqrt(), sqrt_pow2(), div_pow2(), log2_q8()."""
 import micropython
 from micropython import const
 

@@ -1,16 +1,17 @@
-# Sample ring: per-axis int16 counts, fed in blocks as a sensor FIFO delivers them.
-#
-# The ring holds a whole number of windows ("slots"), so a window never wraps and each slot has a
-# memoryview made once at start: the feature stage reads it with no copy and no allocation.
-# Samples that arrive while the ring is full of unprocessed windows are counted as dropped, never
-# written over data still waiting: the loss is always visible (dropped counters).
-#
-# Entry points: SampleRing (push, ready, window, copy_window, release), gather16 (the viper copy
-# loop both use), footprint_bytes.
+"""Sample ring: per-axis int16 counts, fed in blocks as a sensor FIFO delivers them.
+
+The ring holds a whole number of windows ("slots"), so a window never wraps and each slot has a
+memoryview made once at start: the feature stage reads it with no copy and no allocation.
+Samples that arrive while the ring is full of unprocessed windows are counted as dropped, never
+written over data still waiting: the loss is always visible (dropped counters).
+
+Entry points: SampleRing (push, ready, window, copy_window, release), gather16() (the viper copy
+loop both use), footprint_bytes()."""
 import array
 
 import micropython
 
+from firmware_py.dsp.counters import sat_add
 from firmware_py.viper_stand import ptr16
 
 
@@ -27,7 +28,7 @@ class SampleRing:
         self.w = 0            # next frame to write
         self.r = 0            # slot of the oldest unprocessed window
         self.filled = 0       # frames written and not yet released
-        self.dropped = 0      # frames lost to a full ring, since start (never reset)
+        self.dropped = 0      # frames lost to a full ring, since start (saturates at 2**30 - 1)
 
     @micropython.native
     def push(self, src, frames, first=0):
@@ -45,7 +46,8 @@ class SampleRing:
         self.w = end
         self.filled += take
         lost = frames - take
-        self.dropped += lost
+        if lost:
+            self.dropped = sat_add(self.dropped, lost)
         return lost
 
     def ready(self):
