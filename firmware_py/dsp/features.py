@@ -1,11 +1,13 @@
-# The feature core: per axis, each window of n int16 counts becomes the integer feature fields
-# of feature_index (scales documented there). All memory is allocated in the constructor; step()
-# allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
-#
-# Per window and axis: one pass over the samples (statistics, stuck and zero runs, window and
-# bit-reversed store), the FFT and power spectrum (fft), the moments and band powers (_finish),
-# then the shaft speed (speed), the order amplitudes (orders) and the squared-envelope lines
-# (envelope), each of which reads the spectrum the FFT left.
+"""The feature core: per axis, each window of n int16 counts becomes the integer feature fields
+of feature_index (scales documented there). All memory is allocated in the constructor; step()
+allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
+
+Per window and axis: one pass over the samples (statistics, stuck and zero runs, window and
+bit-reversed store), the FFT and power spectrum (fft), the moments and band powers (_finish),
+then the shaft speed (speed), the order amplitudes (orders) and the squared-envelope lines
+(envelope), each of which reads the spectrum the FFT left.
+
+Entry points: check_config(), footprint_bytes(), FeatureCore."""
 import array
 from micropython import const
 

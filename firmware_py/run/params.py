@@ -1,19 +1,21 @@
-# The parameter set: one MessagePack map that configures a gateway (docs/parameters in
-# docs/protocol.md and docs/detector.md). Keys:
-#   version, board, fs_hz, n, axes      identity: the store refuses a set built for another gateway
-#   counts_per_g                        sensor scale the set was trained with (int)
-#   fc_bands                            band-power bands, [[lo_bin, hi_bin), ...] (feature core)
-#   fc_vel_hz                           [lo, hi] band of velocity r.m.s., Hz (10-1000 by default)
-#   fc_speed_lo_q8, fc_speed_hi_q8      1x search range, Hz Q8 (both 0 or absent: no speed estimate,
-#                                       so no order or envelope fields either)
-#   fc_vane                             vane count of the impeller (0 or absent: no vane-pass field)
-#   fc_env_band                         [lo_bin, hi_bin) of the envelope's band ([] or absent: none)
-#   fc_bear_q12                         bearing defect orders [bpfo, bpfi, bsf, ftf], shaft orders
-#                                       Q12 (host_tools/data/bearing.py; [] or absent: none)
-# The feature core (firmware_py/dsp/features.check_config) refuses a set it cannot run, with the
-# reason; every fc_ key added after the first sets has a default that keeps those sets valid.
-#   det_*                               the detector's keys (firmware_py/detect/detector.py PARAM_KEYS)
-# Device and host build the feature core and the detector from a set with the same functions here.
+"""The parameter set: one MessagePack map that configures a gateway (docs/parameters in
+docs/protocol.md and docs/detector.md). Keys:
+  version, board, fs_hz, n, axes      identity: the store refuses a set built for another gateway
+  counts_per_g                        sensor scale the set was trained with (int)
+  fc_bands                            band-power bands, [[lo_bin, hi_bin), ...] (feature core)
+  fc_vel_hz                           [lo, hi] band of velocity r.m.s., Hz (10-1000 by default)
+  fc_speed_lo_q8, fc_speed_hi_q8      1x search range, Hz Q8 (both 0 or absent: no speed estimate,
+                                      so no order or envelope fields either)
+  fc_vane                             vane count of the impeller (0 or absent: no vane-pass field)
+  fc_env_band                         [lo_bin, hi_bin) of the envelope's band ([] or absent: none)
+  fc_bear_q12                         bearing defect orders [bpfo, bpfi, bsf, ftf], shaft orders
+                                      Q12 (host_tools/data/bearing.py; [] or absent: none)
+The feature core (firmware_py/dsp/features.check_config) refuses a set it cannot run, with the
+reason; every fc_ key added after the first sets has a default that keeps those sets valid.
+  det_*                               the detector's keys (firmware_py/detect/detector.py PARAM_KEYS)
+Device and host build the feature core and the detector from a set with the same functions here.
+
+Entry points: vel_per_mm_s(), default_bands(), factory(), feature_core(), build()."""
 from firmware_py.detect import detector
 from firmware_py.dsp.features import FeatureCore
 
@@ -68,7 +70,7 @@ def factory(profile):
     p = {"version": 0, "board": profile["name"], "fs_hz": fs, "n": n, "axes": axes,
          "counts_per_g": s["counts_per_g"], "fc_bands": bands, "fc_vel_hz": [10, hi]}
     p.update(detector.default_params(axes, len(bands), vel_per_mm_s(s["counts_per_g"]),
-                                     full_scale=s["adc_max"]))
+                                     full_scale=s["adc_max"], n=n, fs_hz=fs))
     return p
 
 
@@ -105,5 +107,6 @@ def feature_core(p, profile):
 
 
 def build(p, profile):
-    """(FeatureCore, Detector) for parameter set p on the board of profile."""
-    return feature_core(p, profile), detector.Detector(p)
+    """(FeatureCore, Detector) for parameter set p on the board of profile; the detector's time
+    base is one analysed window in the profile's analyse_every."""
+    return feature_core(p, profile), detector.Detector(p, profile["analyse_every"])

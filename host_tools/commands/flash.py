@@ -13,43 +13,23 @@ import argparse
 import sys
 import time
 
-import msgpack
-
 import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import build_image
+from host_tools.data.files import load_body
 from host_tools.link.device_link import connected, read_key
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
+from host_tools.ops.param_gate import profile_for, prove
 
 HELP = "upload a parameter set to a gateway, verify, commit and read it back"
-_REQUIRED = ("version", "board", "fs_hz", "n", "axes")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("params", metavar="PARAMS.msgpack", help="parameter set body (a MessagePack map)")
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
     p.add_argument("--key-file", metavar="K", help="site key file: sign the set (its bytes are the key)")
-
-
-def load_body(path: str) -> tuple[bytes, dict]:
-    """The file's bytes and the map they decode to; EdgevibError unless a usable set body."""
-    try:
-        with open(path, "rb") as f:
-            data = f.read()
-    except OSError as e:
-        raise EdgevibError(f"{path}: cannot read ({e.strerror})") from None
-    try:
-        body = msgpack.unpackb(data, raw=False, strict_map_key=False)
-    except Exception as e:   # msgpack raises several types for malformed input
-        raise EdgevibError(f"{path}: not a MessagePack value ({type(e).__name__}: {e})") from None
-    if not isinstance(body, dict):
-        raise EdgevibError(f"{path}: a parameter set is a MessagePack map, this is a {type(body).__name__}")
-    for k in _REQUIRED:
-        if k not in body:
-            raise EdgevibError(f"{path}: parameter set has no '{k}'")
-    if not isinstance(body["version"], int) or isinstance(body["version"], bool):
-        raise EdgevibError(f"{path}: 'version' must be an int")
-    return data, body
+    p.add_argument("--bind", action="store_true",
+                   help="bind the set to this one gateway (its id goes into the signed body)")
 
 
 def flash(c, image: bytes, progress=None) -> dict:
@@ -81,16 +61,25 @@ def flash(c, image: bytes, progress=None) -> dict:
 
 def run(args: argparse.Namespace) -> int:
     data, body = load_body(args.params)
+    profile = profile_for(body)
+    if profile is not None:        # a board the host knows: prove the set runs before sending
+        prove(body, profile, args.params)
     key = read_key(args.key_file)
-    image = build_image(data, key)
-    with connected(args.port) as c:
+    with connected(args.port, key=key) as c:
+        if args.bind:
+            gid = c.identify().get("gateway_id")
+            if not isinstance(gid, str):
+                raise EdgevibError(f"the gateway on {args.port} has no id to bind the set to")
+            body["gateway"] = gid
+            data = msgpack.packb(body, use_bin_type=True)
+        image = build_image(data, key)
         if sys.stderr.isatty():
             from tqdm import tqdm
             with tqdm(total=len(image), unit="B", unit_scale=True, desc="upload", leave=False) as bar:
                 r = flash(c, image, progress=lambda done, total: bar.update(done - bar.n))
         else:
             r = flash(c, image)
-    signed = ", signed" if key else ""
+    signed = (", signed" if key else "") + (", bound to this gateway" if args.bind else "")
     print(f"flashed version {r['version']} (CRC 0x{r['crc']:08x}, {r['bytes']} bytes{signed}) "
           f"to {args.port} in {r['seconds']:.2f} s; read back identical")
     return 0

@@ -23,22 +23,19 @@ are rendered in memory and each moved into place whole.
 from __future__ import annotations
 
 import argparse
-import csv
 import importlib
 import importlib.util
-import io
 import json
 import re
 import sys
 from pathlib import Path
 
-import numpy as np
-
-from host_tools.commands.flash import load_body
-from host_tools.commands.train import check_outputs, load_board
+from host_tools.data.files import check_outputs, load_body, load_board, require_existing
 from host_tools.errors import EdgevibError
+from host_tools.ops.param_gate import prove
 from host_tools.data.recording import atomic_write, read_stream
-from host_tools.twin.replay import ReplayResult, default_jobs, group_sources, m_s2_per_count, replay
+from host_tools.twin.replay import ReplayResult, default_jobs, group_sources, replay, windows_csv
+from host_tools.data.units import m_s2_per_count
 
 HELP = "replay recordings through the device detector: events, per-window states, scores and features"
 _BOARDS = Path(__file__).resolve().parents[2] / "boards"
@@ -55,20 +52,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="streams replayed at once (default: the cores available)")
 
 
-def windows_csv(result: ReplayResult) -> str:
-    """One row per window: stream (name), then every per-window column of the result."""
-    cols = {k: v for k, v in result.windows.items() if k != "stream"}
-    buf = io.StringIO()
-    out = csv.writer(buf, lineterminator="\n")
-    out.writerow(["stream", *cols])
-    names = np.array(result.streams, dtype=object)[result.windows["stream"]]
-    data = [names.tolist()] + [v.tolist() for v in cols.values()]
-    fmt = ["{}"] + ["{:.3f}" if k == "t_s" else "{:.6g}" for k in cols]   # t_s: ms on a Unix clock
-    for row in zip(*data):
-        out.writerow([f.format(v) if isinstance(v, float) else v for f, v in zip(fmt, row)])
-    return buf.getvalue()
-
-
 def _report_module():
     if importlib.util.find_spec("host_tools.report.replay_report") is None:
         raise EdgevibError("report module missing")
@@ -77,16 +60,21 @@ def _report_module():
 
 def run(args: argparse.Namespace) -> int:
     _, params = load_body(args.params)
+    if args.board is None and not isinstance(params["board"], str):
+        raise EdgevibError(f"{args.params}: 'board' must be a str")
     profile = load_board(args.board or _BOARDS / f"{params['board']}.json")
     for key, want in (("board", profile["name"]), ("fs_hz", profile["sample_rate_hz"]), ("n", profile["window_n"]),
                       ("axes", profile["axes"])):
         if params.get(key) != want:
             raise EdgevibError(f"{args.params}: {key} {params.get(key)!r} does not match board {profile['name']} ({want!r})")
+    prove(params, profile, args.params)
     if args.jobs < 1:
         raise EdgevibError("--jobs must be at least 1")
     sources = [Path(s) for s in args.recordings]
+    require_existing(sources)
     outs = [Path(p) for p in (args.json, args.windows_csv) if p]
-    check_outputs(outs + ([Path(args.report)] if args.report else []), sources)
+    inputs = sources + [Path(args.params)] + ([Path(args.board)] if args.board else [])
+    check_outputs(outs + ([Path(args.report)] if args.report else []), inputs)
     report = _report_module() if args.report else None
     groups = group_sources(sources)
     result = replay(groups, params, profile, jobs=args.jobs, progress=sys.stderr.isatty())

@@ -16,13 +16,13 @@ from pathlib import Path
 import msgpack
 
 import firmware_py  # noqa: F401
-from firmware_py.run import board
 from firmware_py.codec import mpack
 from firmware_py.run import params as pm
-from host_tools.check.commission import DEFAULT_BOARD
 from host_tools.errors import EdgevibError
-from host_tools.data.recording import atomic_write, read_stream, sidecar_path
-from host_tools.twin.replay import default_jobs, group_sources, m_s2_per_count
+from host_tools.data.files import DEFAULT_BOARD, check_outputs, load_board, require_existing
+from host_tools.data.recording import atomic_write, read_stream
+from host_tools.data.units import m_s2_per_count
+from host_tools.twin.replay import default_jobs, group_sources
 from host_tools.fit.training import report_text, train
 
 HELP = "train a parameter set on healthy recordings: baseline, operating modes, thresholds for a false-alert target"
@@ -49,33 +49,14 @@ def outputs(out: Path) -> tuple[Path, Path, Path]:
     return out, out.with_suffix(".json"), out.with_suffix(".report.txt")
 
 
-def load_board(path: str | Path | None) -> dict:
-    try:
-        return board.load(str(path or DEFAULT_BOARD))
-    except board.BoardError as e:
-        raise EdgevibError(f"board profile {e}") from None
-
-
-def check_outputs(paths: list[Path], sources: list[Path]) -> None:
-    """Refuse outputs that would overwrite an input (recording or sidecar) or have no folder."""
-    inputs: set[Path] = set()
-    for s in sources:
-        files = [q for q in s.iterdir()] if s.is_dir() else [s, sidecar_path(s)]
-        inputs.update(q.resolve() for q in files)
-    for o in paths:
-        if o.resolve() in inputs:
-            raise EdgevibError(f"{o}: would overwrite an input; choose another name")
-        if not o.parent.is_dir():
-            raise EdgevibError(f"{o}: folder {o.parent} does not exist")
-
-
 def run(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.suffix.lower() != ".msgpack":
         raise EdgevibError(f"{out}: the parameter set is written as .msgpack; give a .msgpack name")
     paths = list(outputs(out))
     sources = [Path(s) for s in args.normal]
-    check_outputs(paths, sources)
+    require_existing(sources)
+    check_outputs(paths, sources + ([Path(args.board)] if args.board else []))
     if not args.false_alerts_per_month > 0:
         raise EdgevibError("--false-alerts-per-month must be a positive number")
     if not 0 <= args.version < 1 << 30:

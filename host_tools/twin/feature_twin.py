@@ -10,6 +10,8 @@ division give the same bits).
 
 Windows are consecutive, non-overlapping runs of n samples from the start of the recording, as
 the device's ring delivers them.
+
+Entry points: TwinConfig, FeatureTwin.
 """
 from __future__ import annotations
 
