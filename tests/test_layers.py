@@ -12,7 +12,7 @@ from pathlib import Path
 ROOT = Path(__file__).parent.parent
 
 # rank of each room: a module may import its own room or any room of a LOWER rank
-FIRMWARE_LAYERS = {"_host_micropython": 0, "codec": 0, "dsp": 0, "drivers": 0,
+FIRMWARE_LAYERS = {"viper_stand": -1, "_host_micropython": 0, "codec": 0, "dsp": 0, "drivers": 0,
                    "detect": 1, "store": 1, "link": 2, "run": 3}
 HOST_LAYERS = {"errors": 0, "data": 1, "link": 2, "twin": 2, "fit": 3, "check": 3,
                "report": 4, "ops": 4, "commands": 5, "cli": 6}
