@@ -124,7 +124,7 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
 
     from firmware_py.run import params as pm
     from host_tools.commands.replay import windows_csv
-    from host_tools.commands.train import load_board
+    from host_tools.data.param_files import load_board
     from host_tools.data.recording import read_stream
     from host_tools.twin.replay import m_s2_per_count, replay
     from host_tools.report.replay_report import detections, false_raises, pump_faults, write_report

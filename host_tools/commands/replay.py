@@ -34,8 +34,8 @@ from pathlib import Path
 
 import numpy as np
 
-from host_tools.commands.flash import load_body
-from host_tools.commands.train import check_outputs, load_board
+from host_tools.commands.train import check_outputs
+from host_tools.data.param_files import load_body, load_board
 from host_tools.errors import EdgevibError
 from host_tools.data.recording import atomic_write, read_stream
 from host_tools.twin.replay import ReplayResult, default_jobs, group_sources, m_s2_per_count, replay

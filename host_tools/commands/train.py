@@ -13,23 +13,16 @@ import argparse
 import json
 from pathlib import Path
 
-import msgpack
-
 import firmware_py  # noqa: F401
-from firmware_py.run import board
-from firmware_py.codec import mpack
 from firmware_py.run import params as pm
 from host_tools.check.commission import DEFAULT_BOARD
+from host_tools.data.param_files import encode_set, load_board
 from host_tools.errors import EdgevibError
 from host_tools.data.recording import atomic_write, read_stream, sidecar_path
 from host_tools.twin.replay import default_jobs, group_sources, m_s2_per_count
 from host_tools.fit.training import report_text, train
 
 HELP = "train a parameter set on healthy recordings: baseline, operating modes, thresholds for a false-alert target"
-# The gateway's parameter store holds images up to 8192 bytes (firmware_py.store.paramstore, cap);
-# an image is the body plus 5 bytes of head, 32 of signature and 4 of CRC.
-_STORE_CAP = 8192
-_IMAGE_EXTRA = 5 + 32 + 4
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -47,13 +40,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def outputs(out: Path) -> tuple[Path, Path, Path]:
     """PARAMS.msgpack, its summary PARAMS.json and report PARAMS.report.txt."""
     return out, out.with_suffix(".json"), out.with_suffix(".report.txt")
-
-
-def load_board(path: str | Path | None) -> dict:
-    try:
-        return board.load(str(path or DEFAULT_BOARD))
-    except board.BoardError as e:
-        raise EdgevibError(f"board profile {e}") from None
 
 
 def check_outputs(paths: list[Path], sources: list[Path]) -> None:
@@ -86,12 +72,7 @@ def run(args: argparse.Namespace) -> int:
                for g in group_sources(sources)]
     params, summary = train(streams, profile, args.false_alerts_per_month, seed=args.seed, version=args.version,
                             jobs=max(1, args.jobs))
-    body = msgpack.packb(params, use_bin_type=True)
-    if mpack.unpackb(body) != params:   # the device's own decoder must read it back unchanged
-        raise EdgevibError("internal: the encoded parameter set does not decode to itself")
-    if len(body) + _IMAGE_EXTRA > _STORE_CAP:
-        raise EdgevibError(f"the parameter set is {len(body)} bytes, more than a gateway's store holds")
-    pm.build(params, profile)
+    body = encode_set(params, profile)
     text = report_text(summary)
     rendered = [body, (json.dumps(summary, indent=1) + "\n").encode(), text.encode()]
     for path, data in zip(paths, rendered):

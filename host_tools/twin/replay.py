@@ -290,16 +290,24 @@ def replay_stream(recs: Sequence[Recording], params: dict, profile: dict, name: 
     Returns {"name", "events", "windows", "summary", "recordings"} (the parts of a ReplayResult)."""
     check_recordings(recs, params)
     sf = stream_features(recs, twin_for(params, profile))
+    return stream_result(sf, params, name, [str(r.path) for r in recs], recs[0].axes, recs[0].m_s2_per_count)
+
+
+def stream_result(sf: StreamFeatures, params: dict, name: str, paths: Sequence[str], axis_names: Sequence[str],
+                  scale: float) -> dict[str, Any]:
+    """What replay_stream returns, from the stream's features: a fresh Detector stepped over them in
+    order. paths: the stream's recordings (sf.rec indexes them); scale: their m/s^2 per count.
+    The features may come from several calls of stream_features over runs of recordings split at
+    gaps (their rows concatenated, rec offset to index `paths`): the result is the same."""
     det = Detector(params)
     steps = step_detector(det, sf.feats)
-    axis_names = recs[0].axes
     events = [{
         "stream": name, "t_s": float(sf.t_s[w]), "from": al.STATE_NAMES[old], "to": al.STATE_NAMES[new],
         "reason": al.REASON_NAMES[reason], "mode": mode if mode >= 0 else None,
         "feature": feature_name(feat, params, axis_names) if feat >= 0 else None, "score": score / 256.0,
     } for w, old, new, reason, mode, feat, score in steps.events]
     names = [feature_name(j, params, axis_names) for j in range(params["axes"] * fi.per_axis(len(params["fc_bands"])))]
-    paths = [str(r.path) for r in recs]
+    paths = list(paths)
     windows = {
         "recording": np.array(paths, dtype=object)[sf.rec],
         "t_s": sf.t_s,
@@ -308,10 +316,10 @@ def replay_stream(recs: Sequence[Recording], params: dict, profile: dict, name: 
         "mode": steps.mode.astype(np.int64),
         "feature": np.array(names + [""], dtype=object)[steps.feat],
     }
-    windows.update(physical_columns(sf.feats, params, recs[0].m_s2_per_count, axis_names))
+    windows.update(physical_columns(sf.feats, params, scale, axis_names))
     window_s = params["n"] / params["fs_hz"]
     return {"name": name, "events": events, "windows": windows, "recordings": paths,
-            "summary": _stream_summary(sf.t_s, steps, events, len(recs), window_s)}
+            "summary": _stream_summary(sf.t_s, steps, events, len(paths), window_s)}
 
 
 def _replay_worker(source: Any, params: dict, profile: dict, name: str) -> dict[str, Any]:
