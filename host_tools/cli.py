@@ -28,6 +28,7 @@ COMMANDS = {
     "rollback": "rollback",
     "ack": "ack",
     "learn": "learn",
+    "fleet": "fleet",
 }
 
 

@@ -1,6 +1,7 @@
 """The fleet folder: one sub-folder per gateway, each with its recordings, captures, parameter set and manifest.
 
-Entry points: init_fleet(root, name), add_gateway(root, gateway, manifest), gateways(root),
+Entry points: init_fleet(root, name), add_gateway(root, gateway, manifest), install_set(folder, ...),
+gateways(root),
 read_manifest(folder), recording_spans(files), filing_folder(root, gateway, kind).
 
     FLEET/
@@ -127,6 +128,20 @@ def add_gateway(root: str | os.PathLike, gateway: str, manifest: dict[str, Any],
         atomic_write(folder / PARAMS_SUMMARY, (json.dumps(params_summary, indent=1) + "\n").encode())
     atomic_write(folder / MANIFEST, (json.dumps(manifest, indent=1) + "\n").encode())
     return folder
+
+
+def install_set(folder: str | os.PathLike, params_body: bytes, params_summary: dict | None, since: date) -> None:
+    """Record in gateway folder `folder` that a parameter set went onto the gateway on `since`:
+    params.msgpack (and params.json when given) replaced whole, params_since in the manifest set."""
+    f = Path(folder)
+    path = f / MANIFEST
+    raw = json.loads(path.read_text(encoding="utf-8"))
+    read_manifest(f)
+    raw["params_since"] = since.isoformat()
+    atomic_write(f / PARAMS, params_body)
+    if params_summary is not None:
+        atomic_write(f / PARAMS_SUMMARY, (json.dumps(params_summary, indent=1) + "\n").encode())
+    atomic_write(path, (json.dumps(raw, indent=1) + "\n").encode())
 
 
 def gateways(root: str | os.PathLike) -> list[Path]:
