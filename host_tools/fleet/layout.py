@@ -33,6 +33,7 @@ import json
 import math
 import os
 import re
+import struct
 from dataclasses import dataclass, field
 from datetime import date, datetime, timezone
 from pathlib import Path
@@ -287,8 +288,8 @@ def _span(p: Path) -> Span:
             from host_tools.data.recording import read_recording
             r = read_recording(p)
             frames, rate_hz = r.n_frames, r.sample_rate_hz
-    except (ValueError, KeyError, OSError) as e:
-        raise EdgevibError(f"{p}: cannot read the recording's header ({e})") from None
+    except (ValueError, KeyError, OSError, EOFError, struct.error) as e:
+        raise EdgevibError(f"{p}: cannot read the recording's header ({type(e).__name__}: {e})") from None
     return Span(p, float(t0), frames, rate_hz)
 
 

@@ -87,7 +87,8 @@ def plot_overview(rows: Sequence[dict], origin_s: float) -> bytes:
 def plot_drift(rows: Sequence[dict], origin_s: float) -> bytes:
     """Weekly median score over the healthy level, one small panel per pump."""
     plt = _pyplot()
-    cols = 4
+    from matplotlib.ticker import MaxNLocator
+    cols = min(4, len(rows))
     nrow = -(-len(rows) // cols)
     fig, axs = plt.subplots(nrow, cols, figsize=(11, 0.6 + 1.9 * nrow), sharex=True, sharey=True,
                             layout="constrained", squeeze=False)
@@ -100,12 +101,13 @@ def plot_drift(rows: Sequence[dict], origin_s: float) -> bytes:
         if len(wk):
             ax.plot(wk[:, 0] + 1, wk[:, 1], "o-", color=INK, ms=3, lw=1.2)
         ax.set_ylim(0.5, top * 1.2)
+        ax.xaxis.set_major_locator(MaxNLocator(integer=True))
         ax.set_title(_label(r), fontsize=9, loc="left", color=_SEV_COLOURS[r["severity"]] if r["severity"] >= 3 else INK)
         _style(ax)
     for ax in axs.flat[len(rows):]:
         ax.set_visible(False)
     fig.supxlabel(f"week since {_origin_text(origin_s)}")
-    fig.supylabel("median score / healthy median (ratio, log)")
+    fig.supylabel("score / healthy (ratio)")
     fig.suptitle(f"How far each pump sits from its learned normal, week by week (dashed: {DRIFT_FLAG:g} x, flagged)",
                  color=INK, x=0.01, ha="left")
     data = _png(fig)
