@@ -16,6 +16,8 @@ def run(args) -> int:
     figures = bench.device_figures()
     figures.update(bench.host_figures())
     figures.update(bench.workflow_figures())
+    from host_tools.fleet.throughput import fleet_figures
+    figures.update(fleet_figures())
     figures["targets_met"] = bench.met(figures)
     if args.json:
         print(json.dumps(figures, indent=2))
