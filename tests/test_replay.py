@@ -68,7 +68,10 @@ def test_replay_gives_the_device_detectors_events_exactly(trained):
     assert [al.STATE_NAMES.index(s) for s in res.windows["state"]] == states
     assert np.array_equal(np.rint(res.windows["score"] * 256).astype(int), scores)
     t = res.windows["t_s"]
-    want = [{"stream": res.streams[0], "t_s": float(t[w]), "from": al.STATE_NAMES[o], "to": al.STATE_NAMES[nw],
+    t0 = {str(r.path): r.t0_s for r in recs}
+    rec = res.windows["recording"]
+    want = [{"stream": res.streams[0], "t_s": float(t[w]), "recording": rec[w], "offset_s": float(t[w]) - t0[rec[w]],
+             "from": al.STATE_NAMES[o], "to": al.STATE_NAMES[nw],
              "reason": al.REASON_NAMES[rs], "mode": m if m >= 0 else None,
              "feature": feature_name(f, trained, recs[0].axes) if f >= 0 else None, "score": s / 256}
             for w, o, nw, rs, m, f, s in events]
@@ -128,7 +131,8 @@ def test_replay_command_writes_json_and_csv(tmp_path, capsys, trained):
     doc = json.loads(out.read_text())
     assert set(doc) == {"sample_rate_hz", "streams", "events", "summary"}
     assert doc["sample_rate_hz"] == FS
-    assert set(doc["events"][0]) == {"stream", "t_s", "from", "to", "reason", "mode", "feature", "score"}
+    assert set(doc["events"][0]) == {"stream", "t_s", "recording", "offset_s", "from", "to", "reason", "mode", "feature",
+                                     "score"}
     rows = list(csv.DictReader(io.StringIO(wcsv.read_text())))
     assert len(rows) == doc["summary"]["total"]["windows"]
     for col in ("t_s", "state", "score", "mode", "accel_rms_m_s2", "velocity_rms_mm_s", "zone", "kurtosis_z"):

@@ -49,7 +49,7 @@ from host_tools.data import units
 from host_tools.check.commission import HANN_ENBW_BINS, line_names
 from host_tools.errors import EdgevibError
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
-from host_tools.data.recording import Recording, read_recording
+from host_tools.data.recording import Recording, RecordingFile, open_recording
 from host_tools.twin.replay import feature_name as replay_feature_name
 
 MAX_SPECTRA = 16          # spectrum plots per report; the events table still lists every event
@@ -226,7 +226,7 @@ def clock_for(origin: float, t_last: float, since: str = "the first recording") 
 # --- recordings -----------------------------------------------------------------------------------
 
 def _load(recordings: Sequence[Recording | str | os.PathLike], p: dict) -> list[Recording]:
-    recs = [r if isinstance(r, Recording) else read_recording(r, m_s2_per_count=units.STANDARD_GRAVITY_M_S2
+    recs = [r if isinstance(r, (Recording, RecordingFile)) else open_recording(r, m_s2_per_count=units.STANDARD_GRAVITY_M_S2
                                                               / p["counts_per_g"]) for r in recordings]
     if not recs:
         raise EdgevibError("report: no recordings given")
@@ -442,7 +442,7 @@ class _WindowSamples:
         self.t0 = np.array([_t0(r) for r in recs])
         cfg = TwinConfig(self.n, int(p["fs_hz"]), -32768, 32767, tuple((b[0], b[1]) for b in p["fc_bands"]),
                          *p["fc_vel_hz"])
-        self.twin = FeatureTwin(cfg, recs[0].counts.shape[1])
+        self.twin = FeatureTwin(cfg, len(recs[0].axes))
 
     def _index(self, t_end_s: float) -> int:
         """Index of the recording that holds (the middle of) the window ending at t_end_s, -1 none."""
@@ -461,7 +461,7 @@ class _WindowSamples:
         start = int(round((t_end_s - self.t0[i]) * self.fs)) - self.n
         if start < 0 or start + self.n > r.n_frames:
             return None
-        return r.counts[start:start + self.n], r.m_s2_per_count
+        return r.read_counts(start, start + self.n), r.m_s2_per_count
 
     def mean_square(self, t_ends: Sequence[float]) -> np.ndarray | None:
         """Mean square per bin, (m/s^2)^2, per axis (axes, m+1), averaged over the live windows
@@ -480,18 +480,24 @@ class _WindowSamples:
 
 def event_windows(ev: dict, w: Windows, p: dict) -> tuple[list[float], list[float]]:
     """End times of the windows at the event (the persistence window: det_n windows ending at
-    the event's, within one snapshot) and just before it: the SPECTRUM_WINDOWS latest running
-    windows (not idle or sensor fault) before those, in the event's mode when it has one and
-    such windows exist, so that the comparison is at the same operating point."""
+    the event's, within one snapshot) and before it: the SPECTRUM_WINDOWS latest healthy windows
+    (state normal) of the event's operating mode, from any earlier recording. Windows of the
+    event's own run of recordings come only when no earlier one has any (a snapshot taken as the
+    fault grows looks like the event itself); windows of another mode only when its own has none."""
     i = min(int(np.searchsorted(w.t_s, float(ev["t_s"]) - 1e-6)), len(w.t_s) - 1)
     window_s = p["n"] / float(p["fs_hz"])
+    joined = np.flatnonzero(np.diff(w.t_s[:i + 1]) >= 1.5 * window_s)
+    run_start = int(joined[-1]) + 1 if len(joined) else 0          # first window of the event's run
     at = [i]
-    while len(at) < int(p.get("det_n", 5)) and at[0] > 0 and w.t_s[at[0]] - w.t_s[at[0] - 1] < 1.5 * window_s:
+    while len(at) < int(p.get("det_n", 5)) and at[0] > run_start:
         at.insert(0, at[0] - 1)
-    running = np.flatnonzero((w.state[:at[0]] != IDLE) & (w.state[:at[0]] != SENSOR_FAULT))
+    healthy = np.flatnonzero(w.state[:at[0]] == NORMAL)
     mode = ev.get("mode")
-    same = running[w.mode[running] == mode] if mode is not None and mode >= 0 else running[:0]
-    before = (same if len(same) else running)[-SPECTRUM_WINDOWS:]
+    same = healthy[w.mode[healthy] == mode] if mode is not None and mode >= 0 else healthy
+    for pick in (same[same < run_start], same, healthy[healthy < run_start], healthy):
+        if len(pick):
+            break
+    before = pick[-SPECTRUM_WINDOWS:]
     return [float(w.t_s[j]) for j in before], [float(w.t_s[j]) for j in at]
 
 
