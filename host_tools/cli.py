@@ -18,6 +18,7 @@ from host_tools.errors import EdgevibError
 COMMANDS = {
     "bench": "bench",
     "check": "check",
+    "compare": "compare",
     "demo": "demo",
     "deploy": "deploy",
     "replay": "replay",

@@ -200,8 +200,21 @@ class RecordingFile:
     def read_counts(self, start: int = 0, stop: int | None = None) -> np.ndarray:
         """int16 counts (frames x axes) of frames start..stop-1; refused where the conversion
         would clip or meets a NaN (EdgevibError naming the file and frame)."""
-        return _to_counts(self.path, self.samples[start:stop], self.is_float, self.m_s2_per_unit,
+        start, stop, _ = slice(start, stop).indices(self.n_frames)
+        return _to_counts(self.path, self._frames(start, stop), self.is_float, self.m_s2_per_unit,
                           self.m_s2_per_count, start)
+
+    def _frames(self, start: int, stop: int) -> np.ndarray:
+        """Samples of frames start..stop-1. From a file, they are read into a new array rather
+        than touched through the memory map: pages touched in a map stay in the process's resident
+        memory, which would then grow with the length read."""
+        s = self.samples
+        if isinstance(s, np.memmap) and s.filename and s.flags.c_contiguous and stop > start:
+            cols = s.shape[1]
+            with open(s.filename, "rb") as f:
+                f.seek(s.offset + start * cols * s.dtype.itemsize)
+                return np.fromfile(f, dtype=s.dtype, count=(stop - start) * cols).reshape(-1, cols)
+        return s[start:stop]
 
     def load(self) -> Recording:
         """The whole recording, converted."""

@@ -628,14 +628,24 @@ def write_report(out_dir: str | os.PathLike, result: Any, params: dict,
     stream: which stream of the result the recordings are (needed only when it holds several).
     """
     out = Path(out_dir)
+    check_report_folder(out)
+    recs = _load(recordings, params)
+    files, page = render(result, params, recs, ground_truth, stream)
+    return write_page(out, files, page)
+
+
+def check_report_folder(out: Path) -> None:
+    """Refuse a report folder that is a file, holds other files, or has no parent folder."""
     if out.exists() and not out.is_dir():
         raise EdgevibError(f"{out}: exists and is not a folder")
     if out.is_dir() and any(out.iterdir()) and not (out / "index.html").is_file():
         raise EdgevibError(f"{out}: folder holds other files and no earlier report; choose an empty or new folder")
     if not out.parent.is_dir():
         raise EdgevibError(f"{out}: folder {out.parent} does not exist")
-    recs = _load(recordings, params)
-    files, page = render(result, params, recs, ground_truth, stream)
+
+
+def write_page(out: Path, files: dict[str, bytes], page: str) -> Path:
+    """Write files and index.html into a staging folder beside out, then swap it in whole."""
     tmp = staging_folder(out)
     try:
         for name, data in files.items():
