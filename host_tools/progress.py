@@ -1,4 +1,5 @@
-"""Progress of long work, one helper for every command: progress_bar(total, unit, label).
+"""Progress of long work, one helper for every command: progress_bar(total, unit, label) (a
+context manager) or start(...) (the same object, closed by the caller).
 
 On a terminal (stderr is a tty) a tqdm bar; otherwise a quiet line at every tenth of the work
 (`replay: 30% (1500/5000 windows)`), counted in work done, never on a timer, so logs stay short
@@ -52,21 +53,24 @@ class _Off:
         pass
 
 
-class progress_bar:
-    """Context manager giving an object with update(k): a bar, quiet lines or nothing.
+def start(total: int, unit: str, label: str, enabled: bool = True, out: TextIO | None = None) -> Any:
+    """An object with update(k) and close(): a tqdm bar on a terminal, a line at each tenth of
+    the total otherwise, nothing when enabled is False or output is quiet.
+    total: units of work expected; unit: their name ("windows", "steps"); label: the work."""
+    out = out if out is not None else sys.stderr
+    if not enabled or _QUIET:
+        return _Off()
+    if out.isatty():
+        from tqdm import tqdm
+        return tqdm(total=total, unit=unit, desc=label, file=out, leave=False, dynamic_ncols=True)
+    return _Lines(total, unit, label, out)
 
-    total: units of work expected; unit: their name ("windows", "streams", "steps");
-    label: what is being done. enabled=False (or --quiet) gives nothing."""
+
+class progress_bar:
+    """start() as a context manager: `with progress_bar(n, "windows", "replay") as bar: bar.update(k)`."""
 
     def __init__(self, total: int, unit: str, label: str, enabled: bool = True, out: TextIO | None = None):
-        out = out if out is not None else sys.stderr
-        if not enabled or _QUIET:
-            self._bar: Any = _Off()
-        elif out.isatty():
-            from tqdm import tqdm
-            self._bar = tqdm(total=total, unit=unit, desc=label, file=out, leave=False, dynamic_ncols=True)
-        else:
-            self._bar = _Lines(total, unit, label, out)
+        self._bar = start(total, unit, label, enabled, out)
 
     def __enter__(self):
         return self._bar

@@ -7,6 +7,8 @@ Every recording file has a sidecar beside it: same stem, extension `.json` (`pum
     sample_rate_hz  required for CSV without a time column and for .npy; optional for WAV
                     (WAV stores an integer rate; a sidecar value may refine it but must round to it)
     m_s2_per_count  optional  the device counts scale to convert to (see "Counts" below)
+    full_scale      optional  the sensor's full scale in the file's units (e.g. 4095 for 13-bit
+                    data stored as int16, 16.0 for float data in g)
     t0_s            optional  start time of the first frame, seconds on the gateway's clock
     rpm             optional  shaft speed, r/min (null when unknown or changing)
     vane_count      optional  impeller vanes (names the vane-pass line)
@@ -32,8 +34,9 @@ range) run on each stretch as it is read, so a long file is refused where its fi
 
 Counts: the device works on int16 counts (frames x axes) and a scale `m_s2_per_count`. The
 counts scale is, in order of precedence: the caller's `m_s2_per_count` (for example the scale a
-parameter set was trained on), the sidecar's `m_s2_per_count`, and for integer data the file's own
-unit (counts = samples unchanged). Float data with none of these is refused, since there is no
+parameter set was trained on), the sidecar's `m_s2_per_count`, the sidecar's `full_scale` (full
+scale = 32767 counts), and for integer data the file's own unit (counts = samples unchanged).
+Float data with none of these is refused, since there is no
 honest way to guess a sensor's resolution. Conversion is counts = round-half-even(sample *
 m_s2_per_unit / m_s2_per_count); a value that would fall outside -32768..32767 is refused (not
 saturated), because silently clipped data would pass for a sensor at full scale.
@@ -141,9 +144,12 @@ def open_recording(
     axes = _axis_names(p, meta.get("axes"), data.shape[1])
     scale = m_s2_per_count if m_s2_per_count is not None else meta.get("m_s2_per_count")
     if scale is None:
-        if is_float:
-            raise EdgevibError(f"{p}: float samples need m_s2_per_count (the counts scale) in the sidecar")
-        scale = meta["m_s2_per_unit"]
+        if meta.get("full_scale") is not None:
+            scale = meta["full_scale"] * meta["m_s2_per_unit"] / _INT16_MAX
+        elif is_float:
+            raise EdgevibError(f"{p}: float samples need full_scale or m_s2_per_count (the counts scale) in the sidecar")
+        else:
+            scale = meta["m_s2_per_unit"]
     return RecordingFile(
         path=p, samples=data, is_float=is_float, m_s2_per_unit=float(meta["m_s2_per_unit"]),
         m_s2_per_count=float(scale), sample_rate_hz=rate, axes=axes, t0_s=meta.get("t0_s"),
@@ -371,7 +377,7 @@ def _is_number(v: Any) -> bool:
 def _validate_sidecar(sp: Path, meta: dict[str, Any]) -> None:
     if "m_s2_per_unit" not in meta:
         raise EdgevibError(f"{sp}: sidecar lacks m_s2_per_unit (m/s^2 per sample unit)")
-    for key in ("m_s2_per_unit", "sample_rate_hz", "m_s2_per_count"):
+    for key in ("m_s2_per_unit", "sample_rate_hz", "m_s2_per_count", "full_scale"):
         v = meta.get(key)
         if v is not None and not (_is_number(v) and v > 0):
             raise EdgevibError(f"{sp}: {key} must be a positive number, got {v!r}")

@@ -48,6 +48,7 @@ from firmware_py.detect.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSO
 from host_tools.data import units
 from host_tools.check.commission import HANN_ENBW_BINS, line_names
 from host_tools.errors import EdgevibError
+from host_tools.progress import progress_bar
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.data.recording import Recording, RecordingFile, open_recording
 from host_tools.twin.replay import feature_name as replay_feature_name
@@ -170,7 +171,9 @@ def detections(events: Sequence[dict], faults: Sequence[dict]) -> list[dict]:
                     if f["start_t0_s"] <= e["t_s"] <= f["end_t0_s"] and state_code(e["to"]) in wanted), None)
         out.append({**f, "detected_t_s": None if hit is None else float(hit["t_s"]),
                     "delay_s": None if hit is None else float(hit["t_s"]) - f["start_t0_s"],
-                    "detected_as": None if hit is None else f"{hit['to']} ({hit['reason']})"})
+                    "detected_as": None if hit is None else f"{hit['to']} ({hit['reason']})",
+                    "recording": None if hit is None else hit.get("recording"),
+                    "offset_s": None if hit is None else hit.get("offset_s")})
     return out
 
 
@@ -603,17 +606,35 @@ def _table(head: Sequence[str], rows: Sequence[Sequence[str]], num: Sequence[int
     return f"<table><tr>{h}</tr>{body}</table>"
 
 
-def _summary_rows(summary: Any, clock: Clock) -> list[list[str]]:
-    """One row per item; times (keys ending in t_s or _t_s) as the tables show them."""
+SUMMARY_LABELS = {
+    "recordings": "recordings", "windows": "windows analysed", "observed_s": "time analysed",
+    "t_first_s": "first window ends", "t_last_s": "last window ends", "windows_per_state": "time per state",
+    "alerts": "alerts raised", "alarms": "alarms raised", "sensor_faults": "sensor faults raised",
+    "first_alert_t_s": "first alert", "first_alarm_t_s": "first alarm",
+    "first_sensor_fault_t_s": "first sensor fault", "events_lost": "events lost (event ring overflowed)",
+    "streams": "streams",
+}
+
+
+def _summary_rows(summary: Any, clock: Clock, window_s: float) -> list[list[str]]:
+    """One row per item with a readable label; times as the tables show them, durations in
+    minutes, hours or days, time per state from the windows per state."""
     if not isinstance(summary, dict):
         return [["summary", _esc(summary)]] if summary else []
     rows = []
     for k, v in summary.items():
-        if k.endswith("t_s") and isinstance(v, (int, float)) and not isinstance(v, bool):
+        if v is None:
+            text = "none"
+        elif k.endswith("t_s") and isinstance(v, (int, float)) and not isinstance(v, bool):
             text = clock.label(float(v))
+        elif k == "observed_s":
+            text = _duration(float(v))
+        elif k == "windows_per_state" and isinstance(v, dict):
+            text = ", ".join(f"{name.replace('_', ' ')} {_duration(n * window_s)}" for name, n in v.items() if n) or "none"
         else:
             text = json.dumps(v, sort_keys=True) if isinstance(v, (dict, list)) else str(v)
-        rows.append([_esc(k), _esc(text if len(text) < 400 else text[:400] + " ...")])
+        label = SUMMARY_LABELS.get(k, k.replace("_", " "))
+        rows.append([_esc(label), _esc(text if len(text) < 400 else text[:400] + " ...")])
     return rows
 
 
@@ -699,24 +720,29 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
     axes = recs[0].axes
     who = " - ".join(x for x in (plant, machine) if x) or str(recs[0].path.parent)
 
-    files = {"score.png": plot_score(w, p, clock, window_s, faults, events, f"{who}: detector score"),
-             "velocity.png": plot_velocity(w, p, clock, window_s, faults, f"{who}: velocity r.m.s. and ISO zones")}
-    src = _WindowSamples(recs, p)
     raising = [i for i, e in enumerate(events) if state_code(e["to"]) in _RAISES]
     # machine raises before sensor faults when there are more than the plots allowed
     chosen = sorted(sorted(raising, key=lambda i: state_code(events[i]["to"]) == SENSOR_FAULT)[:MAX_SPECTRA])
-    spectra: dict[int, str] = {}
-    for i in chosen:
-        name = f"spectrum_{len(spectra) + 1:02d}.png"
-        files[name] = plot_event_spectrum(events[i], i + 1, w, p, src, clock, axes)
-        spectra[i] = name
+    with progress_bar(2 + len(chosen), "plots", "report") as bar:
+        files = {"score.png": plot_score(w, p, clock, window_s, faults, events, f"{who}: detector score")}
+        bar.update(1)
+        files["velocity.png"] = plot_velocity(w, p, clock, window_s, faults, f"{who}: velocity r.m.s. and ISO zones")
+        bar.update(1)
+        src = _WindowSamples(recs, p)
+        spectra: dict[int, str] = {}
+        for i in chosen:
+            name = f"spectrum_{len(spectra) + 1:02d}.png"
+            files[name] = plot_event_spectrum(events[i], i + 1, w, p, src, clock, axes)
+            spectra[i] = name
+            bar.update(1)
 
     parts = [f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{_esc(who)}: replay report</title>"
              f"<style>{_CSS}</style></head><body>",
              f"<h1>{_esc(who)}: replay report</h1>",
              f'<p class=sub>{len(recs)} recording(s), {len(w.t_s)} windows of {p["n"]} samples at '
              f'{float(p["fs_hz"]):g} Hz, from {_esc(clock.label(t_first))} to {_esc(clock.label(t_last))}; '
-             f'parameter set version {_esc(p.get("version", "?"))} for board {_esc(p.get("board", "?"))}.</p>',
+             f'parameter set version {_esc(p.get("version", "?"))} for board {_esc(p.get("board", "?"))}. '
+             f'Time origin of every plot and table: {_esc(clock.axis_label())}.</p>',
              '<p class=caution>Advisory condition monitoring only: not a machinery-protection or safety '
              'shutdown system. A window in <b>normal</b> resembles what was learned as normal; it is no '
              'guarantee that the machine is healthy.</p>']
@@ -741,7 +767,7 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
                         f"sensor faults, up to {MAX_SPECTRA} plots)." if left else "") + "</p>")
         parts += [f'<img id="spectrum-{i + 1}" src="{name}" alt="spectrum around event {i + 1}">'
                   for i, name in spectra.items()]
-    rows = _summary_rows(summary, clock)
+    rows = _summary_rows(summary, clock, window_s)
     if rows:
         parts += ["<h2>Replay summary</h2>", _table(("item", "value"), rows)]
     parts.append("</body></html>\n")
