@@ -85,11 +85,15 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     """Run the demo into folder `work` (paths are printed as they will be under `final`);
     returns the summary lines. Prints the commissioning check as it goes."""
     from host_tools.data import demo_scenario as ds
+    from host_tools.progress import start
+    bar = start(3, "steps", "demo")          # data, check, pumps
     gt_path = ds.write_scenario(work / "data", seed=seed, days=days, training_days=training_days,
                                 interval_s=interval_s)
     truth = json.loads(gt_path.read_text())
+    bar.update(1)
     first = Path("data") / truth["files"]["P-101"]["training"][0]
     print(commissioning_text(work / first, final / first), end="")
+    bar.update(1)
     pumps = sorted(truth["files"])
     jobs = max(1, min(jobs or len(pumps), len(pumps), os.cpu_count() or 1))
     if jobs == 1:
@@ -97,6 +101,8 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     else:
         with ProcessPoolExecutor(max_workers=jobs) as pool:
             results = list(pool.map(pump_run, [work] * len(pumps), pumps, [truth] * len(pumps)))
+    bar.update(1)
+    bar.close()
     lines = ["", "Summary (invented demo data: Brackwater pumping station)"]
     for r in results:
         lines += summary_lines(r, truth, final)
@@ -124,7 +130,7 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
 
     from firmware_py.run import params as pm
     from host_tools.commands.replay import windows_csv
-    from host_tools.data.param_files import load_board
+    from host_tools.data.analysis import load_board
     from host_tools.data.recording import read_stream
     from host_tools.twin.replay import m_s2_per_count, replay
     from host_tools.report.replay_report import detections, false_raises, pump_faults, write_report
@@ -168,8 +174,10 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
             "detections": detections(result.events, faults)}
 
 
-def _when(t_s: float, start: float) -> str:
-    return f"day {(t_s - start) / 86400.0:.2f}"
+def _when(t_s: float, start: float, recording: str | None = None, offset_s: float | None = None) -> str:
+    """UTC time (with the recording and offset when it is an event's), and the scenario day."""
+    from host_tools.data.times import moment
+    return f"{moment(t_s, recording, offset_s)}, day {(t_s - start) / 86400.0:.2f} of the scenario"
 
 
 def _delay(s: float) -> str:
@@ -192,7 +200,7 @@ def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
         out.append(f"  training: {len(r['warnings'])} warning(s) in {final / r['pump'] / 'params.json'}, the first: "
                    f"{r['warnings'][0]}")
     for e in fr["alerts"]:
-        out.append(f"    false alert: {_when(e['t_s'], start)}, {e['from']} -> {e['to']} ({e['reason']}, {e.get('feature') or '-'})")
+        out.append(f"    false alert: {_when(e['t_s'], start, e.get('recording'), e.get('offset_s'))}, {e['from']} -> {e['to']} ({e['reason']}, {e.get('feature') or '-'})")
     if not r["detections"]:
         out.append("  no seeded fault in this span")
     for d in r["detections"]:
@@ -200,7 +208,8 @@ def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
         if d["detected_t_s"] is None:
             out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): NOT detected")
         else:
-            out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): detected {_when(d['detected_t_s'], start)} "
+            out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): detected "
+                       f"{_when(d['detected_t_s'], start, d.get('recording'), d.get('offset_s'))} "
                        f"as {d['detected_as']}, {_delay(d['delay_s'])} after it began")
     folder = final / r["pump"]
     out.append(f"  report: {folder / 'report' / 'index.html'}")

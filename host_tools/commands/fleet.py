@@ -20,7 +20,8 @@ and the rest completes; the exit status is then 2.
   one page DIR/index.html: a row per pump, most severe first (host_tools.fleet.review and page),
   with a link to each pump's report DIR/<gateway>/report/index.html. DIR/review.json: the rows.
 --since/--until (UTC dates) limit the recordings replayed to those starting in [since, until).
-Progress: a bar on a terminal, a line at every tenth otherwise; --quiet turns it off. --json prints
+Progress: a bar on a terminal, a line at every tenth otherwise, counted in Dask tasks done;
+--quiet turns it off. --json prints
 the written JSON instead of the summary lines.
 """
 from __future__ import annotations
@@ -51,7 +52,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                    help="train: target expected false alerts per 30 days of running (default 1)")
     p.add_argument("--seed", type=int, default=0, help="train: k-means seed (default 0)")
     p.add_argument("--json", action="store_true", help="print the JSON written instead of the summary lines")
-    p.add_argument("--quiet", action="store_true", help="no progress output")
     g = p.add_argument_group("init: add a gateway")
     g.add_argument("--name", help="init: the fleet's name (default: the folder's name)")
     g.add_argument("--gateway", metavar="ID", help="gateway id (its folder name)")
@@ -87,10 +87,10 @@ def run(args: argparse.Namespace) -> int:
     try:
         with engine.cluster(args.scheduler, args.workers) as client:
             if args.action == "train":
-                doc, lines = runs.train_fleet(client, Path(args.fleet), tmp, args.false_alerts_per_month, args.seed, args.quiet)
+                doc, lines = runs.train_fleet(client, Path(args.fleet), tmp, args.false_alerts_per_month, args.seed)
             else:
                 doc, lines = runs.replay_fleet(client, Path(args.fleet), tmp, since, until, args.action == "review",
-                                          args.reports or args.action == "review", args.quiet)
+                                          args.reports or args.action == "review")
         swap_in(tmp, out)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)

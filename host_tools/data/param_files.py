@@ -2,23 +2,19 @@
 
 Entry points: load_body(path) reads a PARAMS.msgpack body, encode_set(params, profile) turns a set
 into the body bytes a gateway's store takes (refusing one that would not fit or not decode),
-load_board(path) reads a board profile, board_path(name) finds boards/<name>.json. Used by the
-train, replay and flash commands and by the fleet tools.
+Used by the train, replay and flash commands and by the fleet tools.
 """
 from __future__ import annotations
 
 import os
-from pathlib import Path
 
 import msgpack
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.codec import mpack
-from firmware_py.run import board
 from firmware_py.run import params as pm
 from host_tools.errors import EdgevibError
 
-BOARDS = Path(__file__).resolve().parents[2] / "boards"
 _REQUIRED = ("version", "board", "fs_hz", "n", "axes")
 # The gateway's parameter store holds images up to 8192 bytes (firmware_py.store.paramstore, cap);
 # an image is the body plus 5 bytes of head, 32 of signature and 4 of CRC.
@@ -57,17 +53,3 @@ def encode_set(params: dict, profile: dict) -> bytes:
         raise EdgevibError(f"the parameter set is {len(body)} bytes, more than a gateway's store holds")
     pm.build(params, profile)
     return body
-
-
-def load_board(path: str | os.PathLike | None) -> dict:
-    """The board profile at `path` (None: the default desk profile)."""
-    from host_tools.check.commission import DEFAULT_BOARD
-    try:
-        return board.load(str(path or DEFAULT_BOARD))
-    except board.BoardError as e:
-        raise EdgevibError(f"board profile {e}") from None
-
-
-def board_path(name: str) -> Path:
-    """boards/<name>.json of the project."""
-    return BOARDS / f"{name}.json"

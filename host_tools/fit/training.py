@@ -53,7 +53,8 @@ from firmware_py.detect.iso_zones import ZONE_C
 from host_tools.fit import modes_fit, tail_fit
 from host_tools.data import units
 from host_tools.errors import EdgevibError
-from host_tools.data.recording import Recording
+from host_tools.progress import start
+from host_tools.data.recording import Recording, RecordingFile
 from host_tools.twin.replay import (
     StreamFeatures, check_recordings, m_s2_per_count, physical_columns, step_detector, stream_features,
     twin_for)
@@ -72,8 +73,8 @@ MODE_CRITERION = ("k-means (k-means++ seeding, 10 starts) in the detector's stan
 
 
 def _streams(recordings: Sequence[Any]) -> list[list[Recording]]:
-    """A flat list of Recording is one stream; a list of lists is several."""
-    if recordings and all(isinstance(r, Recording) for r in recordings):
+    """A flat list of Recording (or RecordingFile) is one stream; a list of lists is several."""
+    if recordings and all(isinstance(r, (Recording, RecordingFile)) for r in recordings):
         streams = [list(recordings)]
     else:
         streams = [list(s) for s in recordings]
@@ -193,13 +194,14 @@ def score_threshold(scores: np.ndarray, windows_30: float, k: int, n: int, targe
 
 
 def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: float = 1.0, seed: int = 0,
-          version: int = 1, folds: int = FOLDS, jobs: int = 1) -> tuple[dict, dict]:
+          version: int = 1, folds: int = FOLDS, jobs: int = 1, progress: bool = False) -> tuple[dict, dict]:
     """A parameter set trained on healthy recordings of one gateway, and a JSON-able summary.
 
     recordings: Recording objects (one stream) or lists of them (one per stream), read at the
     board's counts scale (m/s^2 per count = g / counts_per_g). profile: board profile dict.
     false_alerts_per_month: target expected false alerts per 30 days of running. seed: k-means.
     version: the set's version. folds: held-out blocks. jobs: processes for the k-means fits.
+    progress: show the stages done (host_tools.progress).
     """
     if not false_alerts_per_month > 0:
         raise EdgevibError("the false-alert target must be a positive number per 30 days")
@@ -210,7 +212,9 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         check_recordings(s, base)
     warnings: list[str] = []
     twin = twin_for(base, profile)
+    bar = start(4, "stages", "train", enabled=progress)   # features, probe, fits, thresholds
     feats = [stream_features(s, twin) for s in streams]
+    bar.update(1)
     allf = np.concatenate([sf.feats for sf in feats])
     pa = fi.per_axis(len(base["fc_bands"]))
     axes = base["axes"]
@@ -237,6 +241,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
 
     # which windows the device scores, and which of those are fit for training (zone A/B)
     probe = _run(_probe_model(p), feats)
+    bar.update(1)
     scored = [st.mode >= 0 for st in probe]
     vel = [sf.feats[:, fi.F_VEL::pa][:, :axes].max(1) for sf in feats]
     zone_c = [v >= p["det_iso_bounds"][ZONE_C - 1] for v in vel]
@@ -260,6 +265,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     rows = np.concatenate([sf.feats[u] for sf, u in zip(feats, use)])
     # the fold models and the model from every usable window are independent fits
     fits = _fit_all([r for _, r in fold_rows] + [rows], p, seed, jobs)
+    bar.update(1)
     held: list[np.ndarray] = []
     fold_sets = []
     for (f, _), keys in zip(fold_rows, fits):
@@ -346,6 +352,8 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         "warnings": warnings,
         "caution": "advisory condition monitoring, not machinery protection; an all-clear is no guarantee",
     }
+    bar.update(1)
+    bar.close()
     return p, summary
 
 

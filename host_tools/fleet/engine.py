@@ -1,8 +1,8 @@
 """Where fleet work runs: a Dask cluster, local by default or an existing one, and progress over it.
 
 Entry points: cluster(scheduler=None, workers=None, processes=True) is a context manager giving a
-dask.distributed Client; watch(futures, what, quiet) waits for futures with progress and returns
-them once each has finished or failed; failure(future) is the one-line reason a future failed.
+dask.distributed Client; watch(futures, what, quiet) waits for futures, with progress, until each
+has finished or failed; failure(future) is the one-line reason a future failed.
 
 - No scheduler address: a LocalCluster on this machine, one single-threaded worker process per
   core (the feature and detector work is numpy plus the detector's Python loop, which holds the
@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import logging
 import os
-import sys
 from contextlib import contextmanager
 from typing import Iterator, Sequence
 
@@ -56,27 +55,18 @@ def cluster(scheduler: str | None = None, workers: int | None = None, processes:
 
 
 def watch(futures: Sequence, what: str, quiet: bool = False) -> list:
-    """Wait until every future has finished or failed, showing progress: a tqdm bar on a
-    terminal, otherwise a line at every tenth (none with quiet). Returns the futures."""
+    """Wait until every future has finished or failed, with the shared progress display
+    (host_tools.progress: a bar on a terminal, a line at every tenth otherwise; off when quiet or
+    `edgevib --quiet`), counting tasks as Dask's as_completed hands them back. Returns the futures."""
     from distributed import as_completed
 
-    total = len(futures)
-    if total == 0:
+    from host_tools.progress import progress_bar
+
+    if not futures:
         return []
-    bar = None
-    if not quiet and sys.stderr.isatty():
-        from tqdm import tqdm
-        bar = tqdm(total=total, unit="task", desc=what, file=sys.stderr)
-    done, shown = 0, 0
-    for _ in as_completed(futures):
-        done += 1
-        if bar is not None:
+    with progress_bar(len(futures), "tasks", what, enabled=not quiet) as bar:
+        for _ in as_completed(futures):
             bar.update(1)
-        elif not quiet and (done * 10 // total > shown or done == total):
-            shown = done * 10 // total
-            print(f"{what}: {done}/{total} tasks done", file=sys.stderr, flush=True)
-    if bar is not None:
-        bar.close()
     return list(futures)
 
 

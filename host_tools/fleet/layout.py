@@ -30,19 +30,15 @@ Recordings are never modified here; filing writes new files into archive/ or cap
 from __future__ import annotations
 
 import json
-import math
 import os
 import re
-import struct
 from dataclasses import dataclass, field
 from datetime import date, datetime, timezone
 from pathlib import Path
-from typing import Any, Iterable, Sequence
-
-import numpy as np
+from typing import Any
 
 from host_tools.data.bearing import BearingGeometry
-from host_tools.data.recording import RECORDING_SUFFIXES, atomic_write, sidecar_path
+from host_tools.data.recording import RECORDING_SUFFIXES, atomic_write
 from host_tools.errors import EdgevibError
 
 FLEET_FILE = "fleet.json"
@@ -229,85 +225,10 @@ def filing_folder(root: str | os.PathLike, gateway: str, kind: str) -> Path:
     return out
 
 
-# --- recording spans, read cheaply (sidecar and file header only) ---------------------------------
-
-@dataclass(frozen=True)
-class Span:
-    """One recording's place in time: path, t0_s (s, the recordings' clock), frames and rate (Hz)."""
-
-    path: Path
-    t0_s: float
-    frames: int
-    rate_hz: float
-
-    @property
-    def end_s(self) -> float:
-        return self.t0_s + self.frames / self.rate_hz
-
+# --- recordings ---------------------------------------------------------------------------------
 
 def recording_files(folder: Path) -> list[Path]:
     """The recordings in `folder` (not recursive), by name; none when it does not exist."""
     if not folder.is_dir():
         return []
     return sorted(q for q in folder.iterdir() if q.suffix.lower() in RECORDING_SUFFIXES and q.is_file())
-
-
-def recording_spans(files: Iterable[Path]) -> list[Span]:
-    """The spans of `files` in t0_s order, read from sidecars and headers (WAV memory-mapped, .npy
-    opened memory-mapped; CSV read whole). Refuses a recording without t0_s or that overlaps the one
-    before it: one line naming the file."""
-    spans = [_span(p) for p in files]
-    spans.sort(key=lambda s: s.t0_s)
-    for a, b in zip(spans, spans[1:]):
-        if b.t0_s < a.end_s - 0.5 / b.rate_hz:
-            raise EdgevibError(f"{b.path}: starts at t0_s={b.t0_s:g} s, before {a.path.name} ends")
-    return spans
-
-
-def _span(p: Path) -> Span:
-    sp = sidecar_path(p)
-    try:
-        meta = json.loads(sp.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise EdgevibError(f"{p}: missing sidecar {sp.name}") from None
-    except (ValueError, UnicodeDecodeError) as e:
-        raise EdgevibError(f"{sp}: sidecar is not valid JSON ({e})") from None
-    t0 = meta.get("t0_s") if isinstance(meta, dict) else None
-    if not isinstance(t0, (int, float)) or isinstance(t0, bool) or not math.isfinite(t0):
-        raise EdgevibError(f"{p}: sidecar has no t0_s, needed to place it in the gateway's archive")
-    suffix = p.suffix.lower()
-    try:
-        if suffix == ".wav":
-            from scipy.io import wavfile
-            rate, data = wavfile.read(p, mmap=True)
-            frames, rate_hz = int(data.shape[0]), float(meta.get("sample_rate_hz") or rate)
-        elif suffix == ".npy":
-            frames = int(np.load(p, mmap_mode="r").shape[0])
-            rate_hz = float(meta["sample_rate_hz"])
-        else:
-            from host_tools.data.recording import read_recording
-            r = read_recording(p)
-            frames, rate_hz = r.n_frames, r.sample_rate_hz
-    except (ValueError, KeyError, OSError, EOFError, struct.error) as e:
-        raise EdgevibError(f"{p}: cannot read the recording's header ({type(e).__name__}: {e})") from None
-    return Span(p, float(t0), frames, rate_hz)
-
-
-def chunks(spans: Sequence[Span], frames_per_chunk: int) -> list[list[Span]]:
-    """Consecutive recordings grouped into chunks of about frames_per_chunk frames. A chunk ends
-    only where the next recording does not follow on without a gap (within half a sample), so
-    windows that straddle gap-free recordings stay inside one chunk, as the device's ring delivers
-    them; a gap-free run longer than frames_per_chunk stays whole."""
-    out: list[list[Span]] = []
-    cur: list[Span] = []
-    size = 0
-    for s in spans:
-        joined = bool(cur) and abs(s.t0_s - cur[-1].end_s) < 0.5 / s.rate_hz
-        if cur and not joined and size >= frames_per_chunk:
-            out.append(cur)
-            cur, size = [], 0
-        cur.append(s)
-        size += s.frames
-    if cur:
-        out.append(cur)
-    return out

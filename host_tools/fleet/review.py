@@ -1,6 +1,6 @@
 """What the fleet review says about each pump, from its replay: the row of the fleet page.
 
-Entry points: digest(result, healthy, work_info, origin_s) is the task that boils one gateway's
+Entry points: digest(result, healthy, info, origin_s) is the task that boils one gateway's
 replay down to its row (JSON-able, small, so a year of windows never travels to the client);
 severity(row) ranks a row; SEVERITIES names the ranks.
 
@@ -8,10 +8,10 @@ A row holds:
 - state_now: the detector state of the last replayed window, with its time and the velocity
   r.m.s. (mm/s, largest axis) and ISO zone of that window;
 - events: the transitions into alert, alarm or sensor_fault over the period;
-- alert rate: transitions into alert or alarm per 30 days of running (windows in normal, alert or
-  alarm), counted as training counts its held-out check (host_tools.fit.training), against the
-  expected false alerts per 30 days from the set's training summary. Every alert counts, a real
-  fault's too: a rate far above the expectation means faults or a set that no longer fits;
+- alert rate: alerts raised per 30 days of running, as `edgevib compare` counts it
+  (host_tools.twin.compare.rates), against the expected false alerts per 30 days from the set's
+  training summary. Every alert counts, a real fault's too: a rate far above the expectation
+  means faults, or a set that no longer fits;
 - drift: the median detector score (spreads of the nearest learned mode) of the scored windows of
   the last DRIFT_DAYS of the period, divided by the median score of the same set on the pump's own
   healthy recordings (healthy/), or, without those, on the first DRIFT_DAYS of the period. 1 means
@@ -40,18 +40,18 @@ SEVERITIES = {5: "unreadable", 4: "alarm", 3: "alert", 2: "look", 1: "quiet"}
 _RAISES = ("alert", "alarm", "sensor_fault")
 
 
-def digest(result: dict[str, Any], healthy: dict[str, Any] | None, info: dict[str, Any], origin_s: float) -> dict[str, Any]:
-    """One gateway's row (task). result: its archive replay (host_tools.twin.replay.replay_stream's
-    dict); healthy: the replay of its healthy recordings with the same set, or None. info: gateway,
+def digest(result: Any, healthy: Any, info: dict[str, Any], origin_s: float) -> dict[str, Any]:
+    """One gateway's row (task). result: its archive replay (a one-stream ReplayResult of
+    host_tools.twin.replay); healthy: the replay of its healthy recordings with the same set, or
+    None. info: gateway,
     pump, site, board, overhauls and params_since (ISO dates or None), params version, expected
     false alerts per 30 days (or None), window_s, report (link). origin_s: the page's day 0 (Unix s)."""
-    w = result["windows"]
+    from host_tools.twin.compare import rates
+    w = result.windows
     t, state, score, mode = w["t_s"], w["state"], w["score"], w["mode"]
     window_s = info["window_s"]
-    events = [e for e in result["events"] if e["to"] in _RAISES]
-    running = int(np.isin(state, ("normal", "alert", "alarm")).sum())
-    alerts = sum(e["to"] in ("alert", "alarm") for e in result["events"])
-    per30 = alerts * (30 * _DAY_S / window_s) / running if running else None
+    events = [e for e in result.events if e["to"] in _RAISES]
+    rate = rates(result, window_s, info.get("expected_per_30_days"))
     t_last = float(t[-1])
     ref, ref_name = _reference(healthy, t, score, mode)
     recent = (mode >= 0) & (t > t_last - DRIFT_DAYS * _DAY_S)
@@ -74,14 +74,14 @@ def digest(result: dict[str, Any], healthy: dict[str, Any] | None, info: dict[st
     row = {k: info.get(k) for k in ("gateway", "pump", "site", "board", "params_version", "params_since", "report")}
     row.update({
         "error": None,
-        "windows": int(len(t)), "recordings": len(result["recordings"]),
+        "windows": int(len(t)), "recordings": len(result.recordings[0]),
         "t_first_s": float(t[0]), "t_last_s": t_last,
         "state_now": str(state[-1]), "velocity_now_mm_s": float(w["velocity_rms_mm_s"][-1]), "zone_now": str(w["zone"][-1]),
         "events": [{k: e[k] for k in ("t_s", "from", "to", "reason", "feature", "score")} for e in events],
         "alerts": sum(e["to"] == "alert" for e in events), "alarms": sum(e["to"] == "alarm" for e in events),
         "sensor_faults": sum(e["to"] == "sensor_fault" for e in events),
-        "running_h": running * window_s / 3600.0,
-        "alerts_per_30_days": per30,
+        "running_h": rate["running_s"] / 3600.0,
+        "alerts_per_30_days": rate["observed_per_30_days"],
         "expected_per_30_days": info.get("expected_per_30_days"),
         "drift": drift, "drift_reference": ref_name, "drift_weeks": weeks,
         "params_age_days": age, "last_overhaul": last_oh,
@@ -135,7 +135,7 @@ def severity(row: dict[str, Any]) -> tuple[int, list[str]]:
 def _reference(healthy: dict | None, t: np.ndarray, score: np.ndarray, mode: np.ndarray) -> tuple[float | None, str]:
     """Median score of the reference windows, and what they are."""
     if healthy is not None:
-        hw = healthy["windows"]
+        hw = healthy.windows
         sel = hw["mode"] >= 0
         if sel.any():
             return float(np.median(hw["score"][sel])) or None, "its healthy recordings"

@@ -20,17 +20,19 @@ def replay_fleet(client, fleet: Path, out: Path, since: float | None, until: flo
     """Replay (and with `review`, review) every gateway into folder out; (JSON document, lines)."""
     from host_tools.fleet import engine, layout, page, work
     from host_tools.fleet import review as rv
+    from host_tools.twin import replay
     from host_tools.data.recording import atomic_write
 
-    plans = work.plan(fleet, since, until, healthy=review)
+    plans = plan(client, fleet, quiet, since_s=since, until_s=until, healthy=review)
     live = [w for w in plans if w.error is None and w.chunks]
     for w in plans:
         if w.error is None and not w.chunks:
             w.error = f"{w.folder / layout.ARCHIVE}: no recordings in the period"
     origin = _origin(live)
+    track = replay.TRACK_COLUMNS + ("zone",)
     watched, final = [], {}
     for w in live:
-        feats, res = work.submit_replay(client, w)
+        feats, res = work.submit_replay(client, w, columns=track)
         watched += feats + [res]
         link = rep = None
         if reports:
@@ -39,8 +41,8 @@ def replay_fleet(client, fleet: Path, out: Path, since: float | None, until: flo
             link = f"{_safe(w.gateway)}/report/index.html"
         if review:
             healthy = None
-            if w.healthy:
-                hf, healthy = work.submit_replay(client, w, kind="healthy")
+            if w.healthy_chunks:
+                hf, healthy = work.submit_replay(client, w, kind="healthy", columns=track)
                 watched += hf + [healthy]
             dig = client.submit(rv.digest, res, healthy, work.review_info(w, link), origin)
             watched.append(dig)
@@ -63,7 +65,8 @@ def replay_fleet(client, fleet: Path, out: Path, since: float | None, until: flo
             continue
         r = res.result()
         samples += w.samples
-        gateways[w.gateway] = {"summary": r["summary"], "events": r["events"], "recordings": len(r["recordings"])}
+        gateways[w.gateway] = {"summary": r.summary["streams"][w.gateway], "events": r.events,
+                               "recordings": len(r.recordings[0])}
         if dig is not None:
             rows.append(dig.result())
     doc: dict[str, Any] = {"fleet": layout.read_fleet(fleet).get("name"), "samples": samples,
@@ -93,11 +96,11 @@ def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet:
     from host_tools.fleet import engine, layout, work
     from host_tools.data.recording import atomic_write
 
-    plans = work.plan(fleet, need_params=False, healthy=True)
+    plans = plan(client, fleet, quiet, need_params=False, healthy=True)
     futs = {}
     for w in plans:
         if w.error is None:
-            paths = [p for c in w.healthy for p in c]
+            paths = w.healthy_paths
             version = (w.params["version"] + 1) if w.params else 1
             futs[w.gateway] = client.submit(work.train_gateway, w.gateway, paths, w.profile, str(out / _safe(w.gateway)),
                                             target, seed, version, key=f"train-{w.gateway}")
@@ -125,14 +128,28 @@ def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet:
     return doc, lines
 
 
+def plan(client, fleet: Path, quiet: bool, **options: Any) -> list:
+    """Every gateway of the fleet read and checked, one planning task per gateway (host_tools.fleet.work.plan_gateway)."""
+    from host_tools.fleet import engine, layout, work
+
+    folders = layout.gateways(fleet)
+    futs = [client.submit(work.plan_gateway, str(f), pure=False, **options) for f in folders]
+    engine.watch(futs, "fleet planning", quiet)
+    out = []
+    for f, fut in zip(folders, futs):
+        why = engine.failure(fut)
+        out.append(work.GatewayWork(f.name, f, error=why) if why else fut.result())
+    return out
+
+
 def _safe(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", name)
 
 
 def _origin(live) -> float:
     """Day 0 of the page's plots: 00:00 UTC of the day of the earliest recording replayed."""
-    from host_tools.fleet.layout import date_t_s, recording_spans
-    firsts = [recording_spans([Path(w.chunks[0][0])])[0].t0_s for w in live]
+    from host_tools.fleet.layout import date_t_s
+    firsts = [float(w.chunks[0].t_s[0]) for w in live]
     t = min(firsts) if firsts else 0.0
     return date_t_s(datetime.fromtimestamp(t, timezone.utc).date())
 

@@ -1,56 +1,68 @@
-"""Fleet work as Dask tasks: what each gateway needs, and the task graph that does it.
+"""Fleet work as Dask tasks: what each gateway needs, and the tasks that do it.
 
-Entry points: plan(root, ...) reads every gateway folder (manifest, parameter set, recording spans)
-into a list of GatewayWork, each with its own error line when its folder is broken;
-submit_replay(client, work, kind) submits one gateway's replay and returns the future of its
-result; chunk_features and gateway_result are the two kinds of replay task; train_gateway is the
-training task.
+Entry points: plan_gateway(folder, ...) is the task that reads one gateway folder (manifest,
+parameter set, its recordings opened and cut into chunks) into a GatewayWork; submit_replay(client,
+w, params, kind) submits one gateway's replay and returns the future of its ReplayResult;
+chunk_features and gateway_pass are the two kinds of replay task; train_gateway trains one
+gateway; write_pump_report writes one pump's replay report.
 
 The replay of one gateway is
-    chunk_features(chunk 0) ... chunk_features(chunk k)   in parallel, anywhere in the cluster
-               \\__________________|__________________/
-                          gateway_result                one detector pass in time order
-A chunk is a run of the gateway's recordings (host_tools.fleet.layout.chunks: split only at gaps,
-so no window straddles two chunks); its features are those of host_tools.twin.replay's
-stream_features, and gateway_result steps one fresh device Detector over the chunks' features in
-time order with replay.stream_result. That is exactly what `edgevib replay` does with the same
-recordings in one process, so the results are identical; only where the work runs differs. Many
-chunks of many gateways keep every worker busy, and one long archive is many feature tasks rather
-than one long one.
 
-A broken recording fails its chunk's task with the reader's one-line EdgevibError, which fails
-that gateway's result and nothing else.
+    chunk_features(chunk 0)  ...  chunk_features(chunk k)     in parallel, anywhere in the cluster
+               \\__________________|_________________/
+                          gateway_pass                        one detector pass in time order
+
+built from host_tools.twin.replay's streaming pieces: the chunks are replay.plan_chunks of the
+gateway's stream (with FLEET_CHUNK_WINDOWS windows each, so a task is a second or so of work),
+their samples are read with replay.read_chunk and turned into features by the set's feature twin,
+and gateway_pass steps one replay.StreamReplay (one device Detector, state carried) over the
+chunks' features in order, then replay.assemble makes its ReplayResult. That is what `edgevib
+replay` does with the same recordings in one process, so the results are identical; only where
+the work runs differs. Many chunks of many gateways keep every worker busy, and one long archive is
+many feature tasks rather than one long one.
+
+A broken recording or folder fails its own task with a one-line EdgevibError, which fails that
+gateway's result and nothing else.
 """
 from __future__ import annotations
 
 import json
-import uuid
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Sequence
 
 import numpy as np
 
-import firmware_py  # noqa: F401  (installs the micropython stand-in)
-from firmware_py.dsp import feature_index as fi
-
-from host_tools.data.param_files import board_path, encode_set, load_board, load_body
-from host_tools.data.recording import atomic_write, read_stream
+from host_tools.data.analysis import BOARDS, load_board, profile_for_set, scale_of
+from host_tools.data.param_files import encode_set, load_body
+from host_tools.data.recording import atomic_write, open_recording, open_stream
 from host_tools.errors import EdgevibError
 from host_tools.fleet import layout
 from host_tools.twin.replay import (
-    StreamFeatures, check_recordings, m_s2_per_count, stream_features, stream_result, twin_for)
+    ChunkPlan, ReplayResult, StreamFeatures, StreamReplay, assemble, m_s2_per_count, plan_chunks, read_chunk, twin_for)
 
-# Frames per feature task: about 5.5 min of one gateway's data at 3200 Hz, a second or so of work,
-# small next to the scheduler's cost per task and big enough that a year's archive is ~10^5 tasks.
-FRAMES_PER_CHUNK = 1 << 20
+# Windows per feature task: 8192 windows of 512 samples are 4.2 M frames, about 22 min of one
+# gateway's data at 3200 Hz and a second or so of work: small next to the scheduler's few
+# milliseconds per task, and a year of 10 s snapshots every 10 minutes (about 3.3 M windows) is
+# about 400 tasks per gateway.
+FLEET_CHUNK_WINDOWS = 8192
+
+
+@dataclass
+class ChunkTask:
+    """One feature task: samples to read as (path, first frame, end frame) pieces, the end times
+    t_s (s) and owning recordings rec (index into the gateway's paths) of its windows."""
+
+    pieces: list[tuple[str, int, int]]
+    t_s: np.ndarray
+    rec: np.ndarray
 
 
 @dataclass
 class GatewayWork:
-    """One gateway's share of a fleet run. error: why its folder cannot be used (then nothing else
-    is set). chunks and healthy: recording paths per chunk of archive/ and healthy/, time order.
-    samples: frames x axes of the archive chunks (the replay's input size)."""
+    """One gateway's share of a fleet run. paths/chunks: archive/ recordings in time order and the
+    feature tasks over them; healthy_paths/healthy_chunks: the same for healthy/ (when asked).
+    samples: frames x axes of the archive recordings replayed. error: why the folder cannot be used."""
 
     gateway: str
     folder: Path
@@ -58,42 +70,43 @@ class GatewayWork:
     params: dict | None = None
     params_summary: dict | None = None
     profile: dict | None = None
-    chunks: list[list[str]] = field(default_factory=list)
-    healthy: list[list[str]] = field(default_factory=list)
+    paths: list[str] = field(default_factory=list)
+    chunks: list[ChunkTask] = field(default_factory=list)
+    healthy_paths: list[str] = field(default_factory=list)
+    healthy_chunks: list[ChunkTask] = field(default_factory=list)
     samples: int = 0
     error: str | None = None
 
 
-def plan(root: str | Path, since_s: float | None = None, until_s: float | None = None,
-         params_root: str | Path | None = None, need_params: bool = True, healthy: bool = False,
-         frames_per_chunk: int = FRAMES_PER_CHUNK) -> list[GatewayWork]:
-    """Every gateway of fleet `root`, read and checked. since_s/until_s: keep recordings that
-    start in [since_s, until_s) (Unix s). params_root: take params.msgpack from
-    params_root/<gateway>/ instead of the gateway folder. need_params: a gateway without a set is
-    an error. healthy: also plan the healthy/ recordings."""
-    out = []
-    for folder in layout.gateways(root):
-        w = GatewayWork(folder.name, folder)
-        try:
-            _fill(w, since_s, until_s, Path(params_root) / folder.name if params_root else folder,
-                  need_params, healthy, frames_per_chunk)
-        except EdgevibError as e:
-            w = GatewayWork(folder.name, folder, error=str(e))
-        out.append(w)
-    return out
+def plan_gateway(folder: str, since_s: float | None = None, until_s: float | None = None,
+                 params_dir: str | None = None, need_params: bool = True, healthy: bool = False,
+                 chunk_windows: int = FLEET_CHUNK_WINDOWS) -> GatewayWork:
+    """Read and check one gateway folder (task; never raises: a broken folder gives
+    GatewayWork.error). since_s/until_s: keep recordings that start in [since_s, until_s) (Unix
+    s). params_dir: take params.msgpack from there instead of the gateway folder. need_params: a
+    gateway without a set is an error. healthy: also plan the healthy/ recordings."""
+    f = Path(folder)
+    w = GatewayWork(f.name, f)
+    try:
+        _fill(w, since_s, until_s, Path(params_dir) if params_dir else f, need_params, healthy, chunk_windows)
+    except EdgevibError as e:
+        return GatewayWork(f.name, f, error=str(e))
+    return w
 
 
 def _fill(w: GatewayWork, since_s, until_s, params_dir: Path, need_params: bool, healthy: bool,
-          frames_per_chunk: int) -> None:
+          chunk_windows: int) -> None:
     w.manifest = layout.read_manifest(w.folder)
-    w.profile = load_board(board_path(w.manifest.board))
+    board_file = BOARDS / f"{w.manifest.board}.json"
+    if not board_file.is_file():
+        raise EdgevibError(f"{w.folder / layout.MANIFEST}: no profile for board {w.manifest.board!r} in {BOARDS}")
     pfile = params_dir / layout.PARAMS
     if pfile.is_file():
         _, w.params = load_body(pfile)
-        for key, want in (("board", w.profile["name"]), ("fs_hz", w.profile["sample_rate_hz"]),
-                          ("n", w.profile["window_n"]), ("axes", w.profile["axes"])):
-            if w.params.get(key) != want:
-                raise EdgevibError(f"{pfile}: {key} {w.params.get(key)!r} does not match board {w.manifest.board} ({want!r})")
+        try:
+            w.profile = profile_for_set(w.params, board_file)
+        except EdgevibError as e:
+            raise EdgevibError(f"{pfile}: {e}") from None
         sfile = params_dir / layout.PARAMS_SUMMARY
         if sfile.is_file():
             try:
@@ -102,89 +115,74 @@ def _fill(w: GatewayWork, since_s, until_s, params_dir: Path, need_params: bool,
                 raise EdgevibError(f"{sfile}: not valid JSON ({e})") from None
     elif need_params:
         raise EdgevibError(f"{pfile}: no parameter set")
-    spans = layout.recording_spans(layout.recording_files(w.folder / layout.ARCHIVE))
-    spans = [s for s in spans if (since_s is None or s.t0_s >= since_s) and (until_s is None or s.t0_s < until_s)]
-    w.chunks = [[str(s.path) for s in c] for c in layout.chunks(spans, frames_per_chunk)]
-    w.samples = sum(s.frames for s in spans) * w.profile["axes"]
+    else:
+        w.profile = load_board(board_file)
+    fs, scale = w.profile["sample_rate_hz"], scale_of(w.profile)
+    files = layout.recording_files(w.folder / layout.ARCHIVE)
+    if files:
+        recs = [r for r in open_stream(files, fs, scale)
+                if (since_s is None or (r.t0_s or 0.0) >= since_s) and (until_s is None or (r.t0_s or 0.0) < until_s)]
+        if recs:
+            w.paths, w.chunks = _chunk_tasks(recs, w.profile, chunk_windows)
+            w.samples = sum(r.n_frames for r in recs) * w.profile["axes"]
     if healthy:
-        hs = layout.recording_spans(layout.recording_files(w.folder / layout.HEALTHY))
-        w.healthy = [[str(s.path) for s in c] for c in layout.chunks(hs, frames_per_chunk)]
+        files = layout.recording_files(w.folder / layout.HEALTHY)
+        if files:
+            w.healthy_paths, w.healthy_chunks = _chunk_tasks(open_stream(files, fs, scale), w.profile, chunk_windows)
+
+
+def _chunk_tasks(recs: Sequence[Any], profile: dict, chunk_windows: int) -> tuple[list[str], list[ChunkTask]]:
+    paths = [str(r.path) for r in recs]
+    plans = plan_chunks(recs, profile["window_n"], float(profile["sample_rate_hz"]), chunk_windows)
+    return paths, [ChunkTask([(paths[i], a, b) for i, a, b in pl.pieces], pl.t_s, pl.rec) for pl in plans]
 
 
 # --- replay tasks ---------------------------------------------------------------------------------
 
-@dataclass
-class ChunkFeatures:
-    """Features of one chunk (rec indexes paths), with what the gateway pass checks across chunks."""
-
-    sf: StreamFeatures
-    paths: list[str]
-    axes: tuple[str, ...]
-    scale: float
-    machine: str | None
+def chunk_features(task: ChunkTask, params: dict, profile: dict) -> StreamFeatures:
+    """Read one chunk's samples at the set's rate and scale and compute their features (task)."""
+    files = [open_recording(p, params["fs_hz"], m_s2_per_count(params)) for p, _, _ in task.pieces]
+    local = ChunkPlan(0, task.t_s, task.rec, [(k, a, b) for k, (_, a, b) in enumerate(task.pieces)])
+    return StreamFeatures(twin_for(params, profile).features(read_chunk(files, local)), task.t_s, task.rec)
 
 
-def chunk_features(paths: Sequence[str], params: dict, profile: dict) -> ChunkFeatures:
-    """Read one chunk's recordings at the set's rate and scale and compute their features (task)."""
-    recs = read_stream(list(paths), expected_rate_hz=params["fs_hz"], m_s2_per_count=m_s2_per_count(params))
-    check_recordings(recs, params)
-    twin = twin_for(params, profile)
-    machine = next((r.machine for r in recs if r.machine), None)
-    try:
-        sf = stream_features(recs, twin)
-    except EdgevibError:
-        # stream_features refuses only runs with no whole window; within a gateway's stream such
-        # recordings simply give no windows (chunks never split a gap-free run).
-        width = params["axes"] * fi.per_axis(len(params["fc_bands"]))
-        sf = StreamFeatures(np.zeros((0, width), np.int32), np.zeros(0), np.zeros(0, np.int64))
-    return ChunkFeatures(sf, [str(r.path) for r in recs], recs[0].axes, recs[0].m_s2_per_count, machine)
+def gateway_pass(name: str, paths: Sequence[str], params: dict, profile: dict, columns: Sequence[str] | None,
+                 *features: StreamFeatures) -> ReplayResult:
+    """One detector pass over a gateway's chunk features in time order (task): the ReplayResult of
+    one stream, keeping the per-window `columns` (None: all)."""
+    sr = StreamReplay(list(paths), params, profile, name)
+    cols: dict[str, list[np.ndarray]] = {}
+    for sf in features:
+        for k, v in sr.step(sf).columns(columns).items():
+            cols.setdefault(k, []).append(v)
+    return assemble([sr], [cols])
 
 
-def gateway_result(name: str, params: dict, *parts: ChunkFeatures) -> dict[str, Any]:
-    """One detector pass over the chunks' features in time order (task); what
-    host_tools.twin.replay.replay_stream returns for the same recordings."""
-    if not parts:
-        raise EdgevibError(f"{name}: no recordings to replay")
-    first = parts[0]
-    for p in parts[1:]:
-        if p.axes != first.axes:
-            raise EdgevibError(f"{p.paths[0]}: axes {list(p.axes)} differ from {first.paths[0]} {list(first.axes)}")
-        if first.machine and p.machine and p.machine != first.machine:
-            raise EdgevibError(f"{p.paths[0]}: machine {p.machine!r} differs from {first.paths[0]} ({first.machine!r})")
-    offsets = np.cumsum([0] + [len(p.paths) for p in parts[:-1]])
-    if sum(len(p.sf.t_s) for p in parts) == 0:
-        raise EdgevibError(f"{first.paths[0]}: the stream is shorter than one window of {params['n']} samples")
-    sf = StreamFeatures(np.concatenate([p.sf.feats for p in parts]), np.concatenate([p.sf.t_s for p in parts]),
-                        np.concatenate([p.sf.rec + o for p, o in zip(parts, offsets)]))
-    paths = [q for p in parts for q in p.paths]
-    return stream_result(sf, params, name, paths, first.axes, first.scale)
-
-
-def submit_replay(client, w: GatewayWork, params: dict | None = None, kind: str = "archive", tag: str | None = None):
+def submit_replay(client, w: GatewayWork, params: dict | None = None, kind: str = "archive",
+                  columns: Sequence[str] | None = None, profile: dict | None = None):
     """Submit the replay of gateway w's archive (kind "archive") or healthy recordings ("healthy")
-    with `params` (default its own set); returns (feature futures, result future)."""
+    with `params` (default its own set); returns (feature futures, result future). Feature tasks
+    of the same chunk and set are shared (Dask names them by their inputs)."""
     p = params if params is not None else w.params
-    tag = tag or uuid.uuid4().hex[:8]
-    chunk_list = w.chunks if kind == "archive" else w.healthy
-    feats = [client.submit(chunk_features, c, p, w.profile, key=f"features-{w.gateway}-{kind}-{i}-{tag}")
-             for i, c in enumerate(chunk_list)]
-    res = client.submit(gateway_result, w.gateway, p, *feats, key=f"replay-{w.gateway}-{kind}-{tag}")
+    prof = profile if profile is not None else w.profile
+    tasks, paths = (w.chunks, w.paths) if kind == "archive" else (w.healthy_chunks, w.healthy_paths)
+    feats = [client.submit(chunk_features, t, p, prof, pure=True) for t in tasks]
+    res = client.submit(gateway_pass, w.gateway, paths, p, prof, None if columns is None else tuple(columns),
+                        *feats, pure=True)
     return feats, res
 
 
-# --- training task --------------------------------------------------------------------------------
+# --- training and reports -------------------------------------------------------------------------
 
 def train_gateway(gateway: str, paths: Sequence[str], profile: dict, out_dir: str, false_alerts_per_month: float,
                   seed: int, version: int) -> dict[str, Any]:
     """Train a set on one gateway's healthy recordings (one stream) and write out_dir/params.msgpack,
     params.json and params.report.txt, each whole (task). Returns what the fleet summary shows."""
-    from firmware_py.run import params as pm
     from host_tools.fit.training import report_text, train
 
     if not paths:
         raise EdgevibError(f"{gateway}: no healthy recordings in {layout.HEALTHY}/ to train on")
-    scale = m_s2_per_count(pm.factory(profile))
-    recs = read_stream(list(paths), expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
+    recs = open_stream(list(paths), expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale_of(profile))
     params, summary = train([recs], profile, false_alerts_per_month, seed=seed, version=version)
     body = encode_set(params, profile)
     out = Path(out_dir)
@@ -199,13 +197,11 @@ def train_gateway(gateway: str, paths: Sequence[str], profile: dict, out_dir: st
             "warnings": summary.get("warnings", [])}
 
 
-# --- review tasks ---------------------------------------------------------------------------------
-
-def write_pump_report(out_dir: str, result: dict[str, Any], params: dict) -> str:
-    """The pump's own replay report (host_tools.report.replay_report) into out_dir (task); returns its page."""
+def write_pump_report(out_dir: str, result: ReplayResult, params: dict) -> str:
+    """The pump's own replay report (host_tools.report.replay_report) into out_dir (task); its page."""
     from host_tools.report.replay_report import write_report
     Path(out_dir).parent.mkdir(parents=True, exist_ok=True)
-    return str(write_report(out_dir, result, params, result["recordings"]))
+    return str(write_report(out_dir, result, params, result.recordings[0]))
 
 
 def review_info(w: GatewayWork, report: str | None) -> dict[str, Any]:
