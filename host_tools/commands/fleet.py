@@ -1,4 +1,4 @@
-"""`edgevib fleet init|replay|train|review FLEET`: the single-pump commands over every gateway of a fleet, through Dask.
+"""`edgevib fleet init|replay|train|compare|review FLEET`: the single-pump commands over every gateway of a fleet, through Dask.
 
 FLEET is a fleet folder (host_tools.fleet.layout; docs/engineer.md, "A fleet"). Every action but
 init runs on a Dask cluster: by default a local one with a worker process per core, nothing to set
@@ -16,6 +16,9 @@ and the rest completes; the exit status is then 2.
 - train FLEET --out DIR: a set per gateway from its healthy/ recordings, into DIR/<gateway>/
   params.msgpack, params.json, params.report.txt (the gateways' own sets are left alone); version
   one above the set in use. DIR/train.json: per gateway the thresholds or its error.
+- compare FLEET --candidates CANDS --out DIR: per gateway, the set in use against
+  CANDS/<gateway>/params.msgpack over its archive (host_tools.twin.compare, as `edgevib compare`):
+  DIR/<gateway>/compare/index.html and DIR/compare.json. Nothing is flashed.
 - review FLEET --out DIR: replay as above plus the healthy recordings (the drift reference), and
   one page DIR/index.html: a row per pump, most severe first (host_tools.fleet.review and page),
   with a link to each pump's report DIR/<gateway>/report/index.html. DIR/review.json: the rows.
@@ -35,8 +38,8 @@ from typing import Any
 
 from host_tools.errors import EdgevibError
 
-HELP = "run replay, train or review over every gateway of a fleet folder, in parallel through Dask"
-_ACTIONS = ("init", "replay", "train", "review")
+HELP = "run replay, train, compare or review over every gateway of a fleet folder, in parallel through Dask"
+_ACTIONS = ("init", "replay", "train", "compare", "review")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -47,6 +50,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--workers", type=int, metavar="N", help="local cluster: worker processes (default: one per core)")
     p.add_argument("--since", metavar="YYYY-MM-DD", help="replay recordings starting on or after this UTC date")
     p.add_argument("--until", metavar="YYYY-MM-DD", help="replay recordings starting before this UTC date")
+    p.add_argument("--candidates", metavar="DIR", help="compare: the sets to compare with, DIR/<gateway>/params.msgpack (as `fleet train` writes them)")
     p.add_argument("--reports", action="store_true", help="replay: also write each gateway's replay report")
     p.add_argument("--false-alerts-per-month", type=float, default=1.0, metavar="X",
                    help="train: target expected false alerts per 30 days of running (default 1)")
@@ -77,6 +81,8 @@ def run(args: argparse.Namespace) -> int:
     _check_out(out, Path(args.fleet))
     if args.workers is not None and args.workers < 1:
         raise EdgevibError("--workers must be at least 1")
+    if args.action == "compare" and not (args.candidates and Path(args.candidates).is_dir()):
+        raise EdgevibError("fleet compare: give --candidates DIR, a folder with <gateway>/params.msgpack (e.g. from `fleet train`)")
     if args.action == "train" and not args.false_alerts_per_month > 0:
         raise EdgevibError("--false-alerts-per-month must be a positive number")
     since = _day(args.since, "--since")
@@ -86,7 +92,9 @@ def run(args: argparse.Namespace) -> int:
     tmp = staging_folder(out)
     try:
         with engine.cluster(args.scheduler, args.workers) as client:
-            if args.action == "train":
+            if args.action == "compare":
+                doc, lines = runs.compare_fleet(client, Path(args.fleet), Path(args.candidates), tmp, since, until)
+            elif args.action == "train":
                 doc, lines = runs.train_fleet(client, Path(args.fleet), tmp, args.false_alerts_per_month, args.seed)
             else:
                 doc, lines = runs.replay_fleet(client, Path(args.fleet), tmp, since, until, args.action == "review",
@@ -165,7 +173,7 @@ def _check_out(out: Path, fleet: Path) -> None:
         raise EdgevibError(f"{out}: outputs go outside the fleet folder (recordings are never touched)")
     if out.exists() and not out.is_dir():
         raise EdgevibError(f"{out}: exists and is not a folder")
-    if out.is_dir() and any(out.iterdir()) and not any((out / n).is_file() for n in ("replay.json", "train.json", "review.json")):
+    if out.is_dir() and any(out.iterdir()) and not any((out / n).is_file() for n in ("replay.json", "train.json", "compare.json", "review.json")):
         raise EdgevibError(f"{out}: folder holds other files and no earlier fleet run; choose an empty or new folder")
     if not out.parent.is_dir():
         raise EdgevibError(f"{out}: folder {out.parent} does not exist")

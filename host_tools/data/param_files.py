@@ -2,11 +2,14 @@
 
 Entry points: load_body(path) reads a PARAMS.msgpack body, encode_set(params, profile) turns a set
 into the body bytes a gateway's store takes (refusing one that would not fit or not decode),
+expected_rate(path) reads the expected false-alert rate from the training summary beside a set.
 Used by the train, replay and flash commands and by the fleet tools.
 """
 from __future__ import annotations
 
+import json
 import os
+from pathlib import Path
 
 import msgpack
 
@@ -53,3 +56,15 @@ def encode_set(params: dict, profile: dict) -> bytes:
         raise EdgevibError(f"the parameter set is {len(body)} bytes, more than a gateway's store holds")
     pm.build(params, profile)
     return body
+
+
+def expected_rate(path: str | os.PathLike) -> float | None:
+    """Expected false alerts per 30 days from the training summary beside the set at `path`
+    (PARAMS.json beside PARAMS.msgpack), if there is one."""
+    side = Path(path).with_suffix(".json")
+    try:
+        doc = json.loads(side.read_text(encoding="utf-8"))
+        v = doc["thresholds"]["expected_false_alerts_per_30_days"]
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+    return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else None

@@ -1,7 +1,8 @@
 """Fleet runs on a Dask client: replay (or review) and train every gateway of a fleet folder.
 
-Entry points: replay_fleet(client, fleet, out, since, until, review, reports, quiet) and
-train_fleet(client, fleet, out, target, seed, quiet); each writes into folder `out` and returns
+Entry points: replay_fleet(client, fleet, out, since, until, review, reports, quiet),
+compare_fleet(client, fleet, candidates, out, since, until, quiet) and train_fleet(client, fleet,
+out, target, seed, quiet); each writes into folder `out` and returns
 (the JSON document written, summary lines). What they write is described with the `edgevib fleet`
 command (host_tools.commands.fleet), which, like `edgevib demo --fleet`, calls them.
 """
@@ -91,6 +92,63 @@ def replay_fleet(client, fleet: Path, out: Path, since: float | None, until: flo
     return doc, lines
 
 
+def compare_fleet(client, fleet: Path, candidates: Path, out: Path, since: float | None, until: float | None,
+                  quiet: bool = False) -> tuple[dict, list[str]]:
+    """Per gateway, its set in use against the candidate candidates/<gateway>/params.msgpack over
+    its archive: out/<gateway>/compare/index.html, and out/compare.json; (JSON document, lines).
+    Feature tasks are shared by the two sets when their features are the same."""
+    from host_tools.data.analysis import profile_for_set
+    from host_tools.data.param_files import expected_rate, load_body
+    from host_tools.fleet import engine, layout, work
+    from host_tools.twin.compare import SetUnderTest
+    from host_tools.twin.replay import TRACK_COLUMNS
+    from host_tools.data.recording import atomic_write
+    from host_tools.errors import EdgevibError
+
+    plans = plan(client, fleet, quiet, since_s=since, until_s=until)
+    futs, watched = {}, []
+    for w in plans:
+        if w.error is None and not w.chunks:
+            w.error = f"{w.folder / layout.ARCHIVE}: no recordings in the period"
+        if w.error:
+            continue
+        cand = candidates / w.gateway / layout.PARAMS
+        try:
+            if not cand.is_file():
+                raise EdgevibError(f"{cand}: no candidate set for this gateway")
+            _, new = load_body(cand)
+            new_profile = profile_for_set(new, work.BOARDS / f"{w.manifest.board}.json")
+        except EdgevibError as e:
+            w.error = str(e)
+            continue
+        sets = [SetUnderTest("in use", w.params, w.profile, expected_rate(w.folder / layout.PARAMS)),
+                SetUnderTest("candidate", new, new_profile, expected_rate(cand))]
+        res = []
+        for s in sets:
+            feats, r = work.submit_replay(client, w, s.params, columns=TRACK_COLUMNS, profile=s.profile)
+            watched += feats + [r]
+            res.append(r)
+        futs[w.gateway] = client.submit(work.compare_gateway, str(out / _safe(w.gateway) / "compare"), res, sets)
+        watched.append(futs[w.gateway])
+    engine.watch(watched, "fleet compare", quiet)
+    errors = {w.gateway: w.error for w in plans if w.error}
+    done = {}
+    for g, f in futs.items():
+        why = engine.failure(f)
+        if why:
+            errors[g] = why
+        else:
+            done[g] = f.result()
+    doc = {"fleet": layout.read_fleet(fleet).get("name"), "candidates": str(candidates),
+           "gateways": {g: d["comparison"] for g, d in done.items()}, "errors": errors}
+    atomic_write(out / "compare.json", (json.dumps(doc, indent=1) + "\n").encode())
+    lines = [f"{g}: {d['line'].removeprefix('compare: ')}" for g, d in sorted(done.items())]
+    lines += [f"{g}: ERROR {e}" for g, e in sorted(errors.items())]
+    lines.append(f"{len(done)} of {len(plans)} gateways compared; a page per gateway in <out>/<gateway>/compare/; "
+                 "nothing was flashed")
+    return doc, lines
+
+
 def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet: bool = False) -> tuple[dict, list[str]]:
     """Train a set per gateway from its healthy/ recordings into out/<gateway>/; (JSON document, lines)."""
     from host_tools.fleet import engine, layout, work
@@ -149,7 +207,7 @@ def _safe(name: str) -> str:
 def _origin(live) -> float:
     """Day 0 of the page's plots: 00:00 UTC of the day of the earliest recording replayed."""
     from host_tools.fleet.layout import date_t_s
-    firsts = [float(w.chunks[0].t_s[0]) for w in live]
+    firsts = [float(w.chunks[0].chunks[0][1][0]) for w in live]
     t = min(firsts) if firsts else 0.0
     return date_t_s(datetime.fromtimestamp(t, timezone.utc).date())
 

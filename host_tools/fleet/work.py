@@ -50,12 +50,13 @@ FLEET_CHUNK_WINDOWS = 8192
 
 @dataclass
 class ChunkTask:
-    """One feature task: samples to read as (path, first frame, end frame) pieces, the end times
-    t_s (s) and owning recordings rec (index into the gateway's paths) of its windows."""
+    """One feature task: consecutive chunks of replay.plan_chunks, each as (pieces, t_s, rec):
+    samples to read as (path, first frame, end frame) pieces, the end times t_s (s) and owning
+    recordings rec (index into the gateway's paths) of its windows. Chunks never span a gap, so
+    an archive of snapshots has one chunk per snapshot; a task takes as many as make
+    FLEET_CHUNK_WINDOWS windows."""
 
-    pieces: list[tuple[str, int, int]]
-    t_s: np.ndarray
-    rec: np.ndarray
+    chunks: list[tuple[list[tuple[str, int, int]], np.ndarray, np.ndarray]]
 
 
 @dataclass
@@ -133,17 +134,36 @@ def _fill(w: GatewayWork, since_s, until_s, params_dir: Path, need_params: bool,
 
 def _chunk_tasks(recs: Sequence[Any], profile: dict, chunk_windows: int) -> tuple[list[str], list[ChunkTask]]:
     paths = [str(r.path) for r in recs]
-    plans = plan_chunks(recs, profile["window_n"], float(profile["sample_rate_hz"]), chunk_windows)
-    return paths, [ChunkTask([(paths[i], a, b) for i, a, b in pl.pieces], pl.t_s, pl.rec) for pl in plans]
+    tasks: list[ChunkTask] = []
+    size = chunk_windows
+    for pl in plan_chunks(recs, profile["window_n"], float(profile["sample_rate_hz"]), chunk_windows):
+        if size >= chunk_windows:
+            tasks.append(ChunkTask([]))
+            size = 0
+        tasks[-1].chunks.append(([(paths[i], a, b) for i, a, b in pl.pieces], pl.t_s, pl.rec))
+        size += len(pl.t_s)
+    return paths, tasks
 
 
 # --- replay tasks ---------------------------------------------------------------------------------
 
+# The keys of a set that its features depend on (host_tools.twin.replay.twin_for, m_s2_per_count).
+FEATURE_KEYS = ("n", "fs_hz", "axes", "counts_per_g", "fc_bands", "fc_vel_hz")
+
+
 def chunk_features(task: ChunkTask, params: dict, profile: dict) -> StreamFeatures:
-    """Read one chunk's samples at the set's rate and scale and compute their features (task)."""
-    files = [open_recording(p, params["fs_hz"], m_s2_per_count(params)) for p, _, _ in task.pieces]
-    local = ChunkPlan(0, task.t_s, task.rec, [(k, a, b) for k, (_, a, b) in enumerate(task.pieces)])
-    return StreamFeatures(twin_for(params, profile).features(read_chunk(files, local)), task.t_s, task.rec)
+    """Read one chunk's samples at the set's rate and scale and compute their features (task).
+    params needs only FEATURE_KEYS."""
+    twin = twin_for(params, profile)
+    scale = m_s2_per_count(params)
+    feats = []
+    for pieces, t_s, rec in task.chunks:
+        files = [open_recording(p, params["fs_hz"], scale) for p, _, _ in pieces]
+        local = ChunkPlan(0, t_s, rec, [(k, a, b) for k, (_, a, b) in enumerate(pieces)])
+        feats.append(twin.features(read_chunk(files, local)))
+    # each window's features depend on its own samples only: joining chunks changes nothing
+    return StreamFeatures(np.concatenate(feats), np.concatenate([c[1] for c in task.chunks]),
+                          np.concatenate([c[2] for c in task.chunks]))
 
 
 def gateway_pass(name: str, paths: Sequence[str], params: dict, profile: dict, columns: Sequence[str] | None,
@@ -166,10 +186,23 @@ def submit_replay(client, w: GatewayWork, params: dict | None = None, kind: str 
     p = params if params is not None else w.params
     prof = profile if profile is not None else w.profile
     tasks, paths = (w.chunks, w.paths) if kind == "archive" else (w.healthy_chunks, w.healthy_paths)
-    feats = [client.submit(chunk_features, t, p, prof, pure=True) for t in tasks]
+    fkeys = {k: p[k] for k in FEATURE_KEYS}     # two sets with the same features share these tasks
+    feats = [client.submit(chunk_features, t, fkeys, prof, pure=True) for t in tasks]
     res = client.submit(gateway_pass, w.gateway, paths, p, prof, None if columns is None else tuple(columns),
                         *feats, pure=True)
     return feats, res
+
+
+def compare_gateway(out_dir: str, results: Sequence[ReplayResult], sets: Sequence[Any]) -> dict[str, Any]:
+    """Compare a gateway's replays with its set in use and a candidate (host_tools.twin.compare.
+    compare_results), write the comparison page into out_dir (task); the comparison's JSON and
+    its summary line."""
+    from host_tools.report.compare_report import summary_line, write_compare_report
+    from host_tools.twin.compare import compare_results
+    c = compare_results(list(results), list(sets))
+    Path(out_dir).parent.mkdir(parents=True, exist_ok=True)
+    write_compare_report(out_dir, c)
+    return {"comparison": c.to_json(), "line": summary_line(c)}
 
 
 # --- training and reports -------------------------------------------------------------------------
