@@ -212,6 +212,19 @@ def date_t_s(d: date) -> float:
     return datetime(d.year, d.month, d.day, tzinfo=timezone.utc).timestamp()
 
 
+def filing_target(out: str | None, fleet: str | None, gateway: str | None, kind: str, option: str) -> Path | None:
+    """Where `record` (kind archive) or `events` (kind captures) writes: `out` as given, or with
+    --fleet and --gateway the gateway's folder of that kind (None then means: name a file in it).
+    option: the command's own output option, for the message when neither or both are given."""
+    if fleet is None and gateway is None:
+        if out is None:
+            raise EdgevibError(f"give {option}, or --fleet FLEET --gateway ID to file into a fleet folder")
+        return Path(out)
+    if out is not None or fleet is None or gateway is None:
+        raise EdgevibError(f"give either {option} or both --fleet and --gateway")
+    return filing_folder(fleet, gateway, kind)
+
+
 def filing_folder(root: str | os.PathLike, gateway: str, kind: str) -> Path:
     """Where `record` (kind archive) or `events` (kind captures) files into for `gateway`; refuses
     a fleet or gateway that does not exist."""
