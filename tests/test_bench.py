@@ -11,7 +11,8 @@ def test_bench_json_has_every_figure_and_the_deterministic_ones_hold():
     fig = json.loads(out)
     for key in ("mpy_loop_equiv_per_sample", "mpy_naive_float_ratio", "core_heap_bytes",
                 "allocs_per_window", "host_msamples_per_s", "host_vs_numpy_rfft_ratio",
-                "train_s_per_hour", "replay_msamples_per_s"):
+                "train_s_per_hour", "replay_msamples_per_s", "fleet_replay_msamples_per_s_1_worker",
+                "fleet_replay_msamples_per_s_all_cores", "fleet_scaling_ratio"):
         assert key in fig
     assert fig["allocs_per_window"] == 0
     assert fig["window_runs_with_heap_locked"] is True

@@ -116,6 +116,8 @@ def test_broken_gateway_folders_fail_alone(fleet, tmp_path):
         assert doc["gateways"][g]["summary"] == alone.summary["streams"][g]
     page = (out / "index.html").read_text()
     assert "bad-recording" in page and "unreadable" in page
+    for png in ("overview.png", "drift.png", "rates.png"):
+        assert (out / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and f'src="{png}"' in page   # PNG signature (RFC 2083)
     assert json.loads((out / "review.json").read_text())["errors"] == doc["errors"]
 
 
@@ -167,3 +169,18 @@ def test_manifest_is_checked(tmp_path):
             layout.add_gateway(root, "g2", bad)
         assert words in str(e.value) and "gateway.json" in str(e.value)
     assert not (root / "g2").exists()      # nothing half-made
+
+
+def test_severity_ranks_follow_the_rules():
+    from host_tools.fleet.review import severity
+    quiet = {"state_now": "normal", "alarms": 0, "alerts": 0, "sensor_faults": 0, "params_before_overhaul": False,
+             "last_overhaul": "2025-01-01", "drift": 1.1, "expected_per_30_days": 1.0, "alerts_per_30_days": 0.0}
+    assert severity(quiet) == (1, [])
+    assert severity(dict(quiet, params_before_overhaul=True))[0] == 2
+    assert severity(dict(quiet, drift=2.5))[0] == 2
+    assert severity(dict(quiet, alerts_per_30_days=3.5))[0] == 2      # over three times the expected 1
+    assert severity(dict(quiet, alerts_per_30_days=2.9))[0] == 1
+    assert severity(dict(quiet, alerts=1))[0] == 3
+    assert severity(dict(quiet, state_now="sensor_fault"))[0] == 3
+    assert severity(dict(quiet, state_now="alarm", alarms=1))[0] == 4
+    assert severity({"error": "x: broken"}) == (5, ["x: broken"])

@@ -17,7 +17,7 @@ from datetime import date
 from pathlib import Path
 
 
-def fleet_figures(pumps: int = 12, days: float = 2.0, interval_s: float = 10800.0) -> dict:
+def fleet_figures(pumps: int = 8, days: float = 2.0, interval_s: float = 10800.0) -> dict:
     """fleet_replay_msamples_per_s_1_worker, ..._all_cores, the cores, and their ratio."""
     from firmware_py.run import params as pm
     from host_tools.data import demo_fleet as dfl
