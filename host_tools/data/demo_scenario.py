@@ -321,6 +321,7 @@ def snapshot_sidecar(sc: Scenario, snap: Snapshot) -> dict:
     rpm = sc.speed_rpm(p.name, np.array([snap.t0_s, snap.t0_s + snap.duration_s]))
     return {
         "m_s2_per_unit": M_S2_PER_COUNT,
+        "full_scale": ADC_MAX,
         "sample_rate_hz": float(FS_HZ),
         "t0_s": snap.t0_s,
         "rpm": float(rpm[0]) if rpm[0] == rpm[1] else None,
