@@ -190,7 +190,7 @@ class Gateway:
     def status(self):
         det = self.det
         return {"state": alarm.STATE_NAMES[det.state], "mode": det.mode,
-                "score_q8": det.score, "feature": det.feat, "zone": det.zone,
+                "score_q8": det.score_q8, "feature": det.feat, "zone": det.zone,
                 "features": list(self.core.feats), "windows": self.windows,
                 "dropped": self.core.ring.dropped + self.lost_elsewhere, "skipped": self.skipped,
                 "events": self.snapshots.next_id,

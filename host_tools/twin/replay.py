@@ -230,7 +230,7 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     """Step `det` over the rows of feats (windows, features), window w given the clock first_w + w.
 
     The loop is the detector's own code; it only reads the results and drains the event ring.
-    Reading det.score when det.mode is -1 gives 0, as the device reports it.
+    Reading det.score_q8 when det.mode is -1 gives 0, as the device reports it.
     """
     rows = feats.tolist()
     st: list[int] = []
@@ -242,13 +242,13 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     put_s, put_c, put_m, put_f = st.append, sc.append, md.append, ft.append
     for w, row in enumerate(rows, first_w):
         put_s(step(row, w, 0))
-        put_c(det.score)
+        put_c(det.score_q8)
         put_m(det.mode)
         put_f(det.feat)
         while ring.count:
             k = ring.pop()
             ev.append((ring.t[k], ring.old[k], ring.new[k], ring.reason[k], ring.mode[k],
-                       ring.feat[k], ring.score[k]))
+                       ring.feat[k], ring.score_q8[k]))
     return Steps(np.array(st, np.int8), np.array(sc, np.int32), np.array(md, np.int8),
                  np.array(ft, np.int16), ev, ring.lost)
 
