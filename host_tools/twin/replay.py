@@ -465,7 +465,8 @@ def stream_names(streams: Sequence[Any]) -> list[str]:
 
 def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, progress: bool = False,
            names: Sequence[str] | None = None, keep_windows: bool = True,
-           on_chunk: Callable[[int, ReplayChunk], None] | None = None) -> ReplayResult:
+           on_chunk: Callable[[int, ReplayChunk], None] | None = None,
+           chunk_windows: int = CHUNK_WINDOWS) -> ReplayResult:
     """Replay every stream with the device detector; see the module docstring.
 
     streams: each a source as StreamReplay takes it. The streams replay one after another; jobs > 1
@@ -473,7 +474,7 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     stream uses every core. progress: a bar or progress lines by windows (host_tools.progress).
     keep_windows: keep every per-window column (False: only TRACK_COLUMNS, about 30 bytes a window,
     for plots). on_chunk(stream index, chunk) is called with every chunk in order, e.g. to write
-    rows out as they come.
+    rows out as they come. chunk_windows: windows per chunk (the results do not depend on it).
     """
     if not streams:
         raise EdgevibError("no recordings to replay")
@@ -488,7 +489,7 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     with progress_bar(sum(r.n_windows for r in runs), "windows", "replay", enabled=progress) as bar:
         for i, r in enumerate(runs):
             cols: dict[str, list[np.ndarray]] = {}
-            for ch in r.chunks(jobs=jobs):
+            for ch in r.chunks(jobs=jobs, chunk_windows=chunk_windows):
                 got = ch.columns(None if keep_windows else TRACK_COLUMNS)
                 keys = keys or list(got)
                 for k, v in got.items():
