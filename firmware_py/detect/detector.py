@@ -30,7 +30,7 @@ from firmware_py.detect import alarm as al
 from firmware_py.detect.alarm import Alarm
 from firmware_py.detect.event_ring import EventRing
 from firmware_py.detect.iso_zones import zone_of, bounds_in_vel_units, ZONE_C
-from firmware_py.detect.modes import ModeModel, KMAX, DMAX, Z_LIM, is_log_field, transform, clamp
+from firmware_py.detect.modes import ModeModel, KMAX, DMAX, is_log_field, transform, clamp
 from firmware_py.dsp.tables import log2_table
 from firmware_py.detect.welford import Welford, N_MAX
 from firmware_py.dsp.fixmath import sqrt_pow2

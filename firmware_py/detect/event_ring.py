@@ -1,5 +1,7 @@
-# Fixed-size ring of detector events (state transitions), preallocated arrays, no allocation.
-# When the ring is full the oldest event is overwritten and `lost` counts it.
+"""Fixed-size ring of detector events (state transitions), preallocated arrays, no allocation.
+When the ring is full the oldest event is overwritten and `lost` counts it.
+
+Entry points: EventRing."""
 from array import array
 
 

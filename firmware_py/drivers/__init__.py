@@ -1,7 +1,9 @@
-# Accelerometer drivers: register access over machine.I2C / machine.SPI, the overrun
-# bookkeeping the drivers share, and the factory that opens the sensor a board profile names.
-# Everything a read touches is allocated in a constructor; reads allocate nothing, so a driver's
-# read_into() may run under micropython.heap_lock() or from a hard timer callback.
+"""Accelerometer drivers: register access over machine.I2C / machine.SPI, the overrun
+bookkeeping the drivers share, and the factory that opens the sensor a board profile names.
+Everything a read touches is allocated in a constructor; reads allocate nothing, so a driver's
+read_into() may run under micropython.heap_lock() or from a hard timer callback.
+
+Entry points: I2CRegs, SPIRegs, GapCounter, mean_frames(), open_sensor(), driver_module()."""
 from micropython import const
 
 _TICKS_MASK = const(0x3FFFFFFF)   # MicroPython ticks wrap at 2**30 (time.ticks_* docs)

@@ -1,6 +1,8 @@
-# The feature core: per axis, each window of n int16 counts becomes the integer feature fields
-# of feature_index (scales documented there). All memory is allocated in the constructor; step()
-# allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
+"""The feature core: per axis, each window of n int16 counts becomes the integer feature fields
+of feature_index (scales documented there). All memory is allocated in the constructor; step()
+allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
+
+Entry points: check_config(), footprint_bytes(), FeatureCore."""
 import array
 from micropython import const
 

@@ -18,7 +18,8 @@ import firmware_py  # noqa: F401
 from firmware_py.dsp import feature_index as fi
 from firmware_py.store.snapshots import parse
 from host_tools.data import units
-from host_tools.link.device_link import committed_params, connected, m_s2_per_count, raw_frames
+from host_tools.data.units import m_s2_per_count
+from host_tools.link.device_link import committed_params, connected, raw_frames
 from host_tools.progress import progress_bar
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused

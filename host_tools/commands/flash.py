@@ -12,44 +12,21 @@ from __future__ import annotations
 import argparse
 import time
 
-import msgpack
-
 import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import build_image
+from host_tools.data.files import load_body
 from host_tools.link.device_link import connected, read_key
 from host_tools.progress import progress_bar
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
 
 HELP = "upload a parameter set to a gateway, verify, commit and read it back"
-_REQUIRED = ("version", "board", "fs_hz", "n", "axes")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("params", metavar="PARAMS.msgpack", help="parameter set body (a MessagePack map)")
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
     p.add_argument("--key-file", metavar="K", help="site key file: sign the set (its bytes are the key)")
-
-
-def load_body(path: str) -> tuple[bytes, dict]:
-    """The file's bytes and the map they decode to; EdgevibError unless a usable set body."""
-    try:
-        with open(path, "rb") as f:
-            data = f.read()
-    except OSError as e:
-        raise EdgevibError(f"{path}: cannot read ({e.strerror})") from None
-    try:
-        body = msgpack.unpackb(data, raw=False, strict_map_key=False)
-    except Exception as e:   # msgpack raises several types for malformed input
-        raise EdgevibError(f"{path}: not a MessagePack value ({type(e).__name__}: {e})") from None
-    if not isinstance(body, dict):
-        raise EdgevibError(f"{path}: a parameter set is a MessagePack map, this is a {type(body).__name__}")
-    for k in _REQUIRED:
-        if k not in body:
-            raise EdgevibError(f"{path}: parameter set has no '{k}'")
-    if not isinstance(body["version"], int) or isinstance(body["version"], bool):
-        raise EdgevibError(f"{path}: 'version' must be an int")
-    return data, body
 
 
 def flash(c, image: bytes, progress=None) -> dict:

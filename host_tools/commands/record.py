@@ -23,7 +23,8 @@ from pathlib import Path
 
 import numpy as np
 
-from host_tools.link.device_link import committed_params, connected, m_s2_per_count, raw_frames
+from host_tools.data.units import m_s2_per_count
+from host_tools.link.device_link import committed_params, connected, raw_frames
 from host_tools.progress import start
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.data.recording import write_wav

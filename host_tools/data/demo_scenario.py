@@ -33,6 +33,8 @@ The first 7 days of both pumps are healthy and form the training set; the rest i
 
 Deterministic: one seed fixes the whole scenario; each snapshot draws from its own generator
 seeded by (seed, pump, time), so any snapshot can be made alone and comes out the same.
+
+Entry points: PumpSpec, Fault, Snapshot, Scenario, build_scenario(), synthesize(), snapshot_sidecar(), snapshot_set(), write_scenario(), ground_truth().
 """
 from __future__ import annotations
 

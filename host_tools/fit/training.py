@@ -53,11 +53,12 @@ from firmware_py.detect.detector import Detector
 from firmware_py.detect.iso_zones import ZONE_C
 from host_tools.fit import modes_fit, tail_fit
 from host_tools.data import units
+from host_tools.data.units import m_s2_per_count
 from host_tools.errors import EdgevibError
 from host_tools.progress import start
 from host_tools.data.recording import Recording, RecordingFile
 from host_tools.twin.replay import (
-    StreamFeatures, check_recordings, m_s2_per_count, physical_columns, step_detector, stream_features,
+    StreamFeatures, check_recordings, physical_columns, step_detector, stream_features,
     twin_for)
 
 FOLDS = 3                 # held-out blocks of recordings (each model is fitted on the others)

@@ -9,6 +9,8 @@ The window path is measured with the heap locked, as the device runs it. That ma
 not only for memory: unlocked, MicroPython puts each large function frame on the heap, and the
 allocator's search for a free block then costs in proportion to the heap's clutter; locked, frames
 go on the stack.
+
+Entry points: loop_fuel(), device_figures(), host_figures(), workflow_figures(), met().
 """
 from __future__ import annotations
 

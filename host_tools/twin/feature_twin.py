@@ -8,6 +8,8 @@ elementwise stages exactly and int64 the sums and the wider exact divisions.
 
 Windows are consecutive, non-overlapping runs of n samples from the start of the recording, as
 the device's ring delivers them.
+
+Entry points: TwinConfig, FeatureTwin.
 """
 from __future__ import annotations
 

@@ -28,6 +28,8 @@ no guarantee that the machine is healthy.
 """
 from __future__ import annotations
 
+import csv
+import io
 import math
 import os
 from collections import deque
@@ -44,15 +46,13 @@ from firmware_py.dsp import feature_index as fi
 from firmware_py.run import params as pm
 from firmware_py.detect.detector import Detector
 from firmware_py.detect.iso_zones import ZONE_NAMES, zone_of
-from host_tools.data import units
+from host_tools.data.units import band_hz, feature_name, m_s2_per_count
 from host_tools.errors import EdgevibError
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.data.recording import Recording, RecordingFile, open_stream
 from host_tools.progress import progress_bar
 
 CHUNK_WINDOWS = 512   # windows per chunk: the feature twin's temporaries stay in cache (measured fastest)
-_FIELD_NAMES = {fi.F_MEAN: "mean", fi.F_RMS: "accel_rms", fi.F_PEAK: "peak", fi.F_CREST: "crest",
-                fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms"}
 
 
 # --- set-up from a parameter set ----------------------------------------------------------------
@@ -64,29 +64,6 @@ def twin_for(params: dict, profile: dict) -> FeatureTwin:
                      tuple((b[0], b[1]) for b in params["fc_bands"]),
                      params["fc_vel_hz"][0], params["fc_vel_hz"][1])
     return FeatureTwin(cfg, params["axes"])
-
-
-def m_s2_per_count(params: dict) -> float:
-    """Counts scale (m/s^2 per count) of the sensor the set was trained for."""
-    return units.STANDARD_GRAVITY_M_S2 / params["counts_per_g"]
-
-
-def band_hz(params: dict, b: int) -> tuple[float, float]:
-    """Edges (Hz) of band b of the set: bins [lo, hi) of an n-point spectrum at fs_hz."""
-    lo, hi = params["fc_bands"][b]
-    df = params["fs_hz"] / params["n"]
-    return lo * df, hi * df
-
-
-def feature_name(flat: int, params: dict, axis_names: Sequence[str]) -> str:
-    """Readable name of flat feature index `flat`, e.g. "velocity_rms axis z", "band 50-100 Hz axis x"."""
-    pa = fi.per_axis(len(params["fc_bands"]))
-    a, f = divmod(flat, pa)
-    axis = axis_names[a] if a < len(axis_names) else str(a)
-    if f >= fi.F_BAND0:
-        lo, hi = band_hz(params, f - fi.F_BAND0)
-        return f"band {lo:g}-{hi:g} Hz axis {axis}"
-    return f"{_FIELD_NAMES[f]} axis {axis}"
 
 
 def check_recordings(recs: Sequence[Recording], params: dict) -> None:
@@ -543,3 +520,29 @@ def default_jobs() -> int:
         return len(os.sched_getaffinity(0))
     except AttributeError:
         return os.cpu_count() or 1
+
+
+def csv_header(cols: dict[str, np.ndarray]) -> str:
+    """The header row of a windows CSV: stream, then the columns' names."""
+    return ",".join(["stream", *cols]) + "\n"
+
+
+def csv_rows(stream: str, cols: dict[str, np.ndarray]) -> str:
+    """CSV rows (no header) of per-window columns of one stream, stream name first."""
+    buf = io.StringIO()
+    out = csv.writer(buf, lineterminator="\n")
+    fmt = ["{}"] + ["{:.3f}" if k == "t_s" else "{:.6g}" for k in cols]   # t_s: ms on a Unix clock
+    data = [[stream] * len(cols["t_s"])] + [v.tolist() for v in cols.values()]
+    for row in zip(*data):
+        out.writerow([f.format(v) if isinstance(v, float) else v for f, v in zip(fmt, row)])
+    return buf.getvalue()
+
+
+def windows_csv(result: ReplayResult) -> str:
+    """One row per window: stream (name), then every per-window column of the result."""
+    cols = {k: v for k, v in result.windows.items() if k != "stream"}
+    parts = [csv_header(cols)]
+    for i, name in enumerate(result.streams):
+        mine = result.windows["stream"] == i
+        parts.append(csv_rows(name, {k: v[mine] for k, v in cols.items()}))
+    return "".join(parts)
