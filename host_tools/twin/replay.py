@@ -435,6 +435,17 @@ def stream_name(source: Any) -> str:
     return f"{p.parent.name}/{base}" if p.parent.name else base
 
 
+def replay_stream(recs: Sequence[Any], params: dict, profile: dict, name: str = "stream") -> dict[str, Any]:
+    """Replay one stream with a fresh Detector, keeping every per-window column.
+
+    Returns {"name", "events", "windows", "summary", "recordings"} (the parts of a ReplayResult)."""
+    sr = StreamReplay(recs, params, profile, name)
+    parts = [ch.columns() for ch in sr.chunks()]
+    windows = {k: np.concatenate([c[k] for c in parts]) for k in parts[0]}
+    return {"name": name, "events": sr.events, "windows": windows, "recordings": sr.paths,
+            "summary": sr.summary()}
+
+
 def stream_names(streams: Sequence[Any]) -> list[str]:
     """Distinct names of streams (stream_name, with #2, #3, ... for repeats)."""
     return _unique([stream_name(s) for s in streams])
