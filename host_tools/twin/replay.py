@@ -5,6 +5,16 @@ is then stepped through the device's own Detector, one window at a time, exactly
 does. Nothing here re-implements a detector rule: states, scores, modes and events are the
 device's.
 
+Entry points. replay(streams, params, profile, jobs, ...) -> ReplayResult for one or more streams;
+StreamReplay(source, params, profile, name).chunks(jobs) for one stream, a ReplayChunk at a time
+(its events, its per-window columns), with sr.events and sr.summary() at the end: the form for
+callers that must not hold a recording's windows (memory stays one chunk per job, whatever the
+length). Chunks are CHUNK_WINDOWS whole windows of one gap-free segment, read from the files as
+they are needed (host_tools.data.recording.RecordingFile.read_counts); jobs > 1 computes the
+features of that many chunks at once in worker processes while this process steps the detector
+in order, so the result is the same as one pass for any jobs and chunk size (tests prove it).
+replay_stream(recs, ...) keeps every column of one stream; windows_csv / csv_rows write them.
+
 Streams. The recordings of one gateway form one stream, in t0_s order, with one Detector whose
 state carries from one recording to the next (a latched alarm stays latched, an alert stays
 raised until it clears, the persistence evidence and any start-up hold-off carry over).
