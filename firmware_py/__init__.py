@@ -1,6 +1,6 @@
-# edgevib device core. MicroPython subset, also importable by CPython (the host runs it unchanged).
-# Under CPython there is no `micropython` module; install a stand-in so device modules can say
-# `from micropython import const` exactly as they do on the board.
+"""edgevib device core. MicroPython subset, also importable by CPython (the host runs it unchanged).
+Under CPython there is no `micropython` module; install a stand-in so device modules can say
+`from micropython import const` exactly as they do on the board."""
 try:
     import micropython  # noqa: F401
 except ImportError:

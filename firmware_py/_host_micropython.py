@@ -1,5 +1,7 @@
-# CPython stand-in for the parts of MicroPython's `micropython` module that device code uses.
-# Never imported on a board.
+"""CPython stand-in for the parts of MicroPython's `micropython` module that device code uses.
+Never imported on a board.
+
+Entry points: const(), heap_lock(), heap_unlock()."""
 
 
 def const(x):

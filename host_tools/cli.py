@@ -4,6 +4,8 @@ Each command module defines HELP (one line), add_arguments(parser) and run(args)
 `--quiet` (before or after the command name) turns progress output off (host_tools.progress).
 Only the module of the command being run is imported (all of them for the top-level help), so
 start-up stays quick and one command's import trouble cannot break another.
+
+Entry points: main().
 """
 from __future__ import annotations
 

@@ -1,6 +1,8 @@
 """One exception family for everything the user can get wrong or the link can fail at.
 
 The command line turns any of these into a single line on stderr and a non-zero exit.
+
+Entry points: EdgevibError, LinkError.
 """
 
 

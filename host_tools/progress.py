@@ -38,7 +38,8 @@ class _Lines:
         tenth = self.done * _STEPS // self.total if self.total else _STEPS
         if tenth > self.shown:
             self.shown = tenth
-            print(f"{self.label}: {min(100, tenth * 100 // _STEPS)}% ({self.done}/{self.total} {self.unit})",
+            pct = min(100, self.done * 100 // self.total) if self.total else 100
+            print(f"{self.label}: {pct}% ({self.done}/{self.total} {self.unit})",
                   file=self.out, flush=True)
 
     def close(self) -> None:

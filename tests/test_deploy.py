@@ -1,6 +1,7 @@
 """`edgevib deploy`: the dry run builds a .mpy for every device module with mpy-cross and prints
 the mpremote copy; bad boards and bad parameter files are refused in one line (exit 2); a
 module MicroPython cannot compile stops the build and leaves no build folder."""
+import os
 import shlex
 import subprocess
 import sys
@@ -27,6 +28,13 @@ def test_dry_run_builds_every_module_and_lists_the_copies(tmp_path, capsys):
     modules = deploy.device_modules()
     assert "firmware_py/run/app.py" in modules and "firmware_py/drivers/adxl345.py" in modules
     assert not any(m.endswith("_host_micropython.py") for m in modules)
+    # every module of every room (subpackage), listed here by walking the folders independently
+    on_disk = {f"{d}/{f}".replace(str(ROOT) + "/", "") for d, _, fs in os.walk(ROOT / "firmware_py")
+               if "__pycache__" not in d for f in fs if f.endswith(".py") and f != "_host_micropython.py"}
+    assert set(modules) == on_disk
+    rooms = {m.split("/")[1] for m in on_disk if m.count("/") == 2}
+    assert rooms >= {"dsp", "detect", "codec", "link", "store", "run", "drivers"}
+    assert all(f"firmware_py/{r}/__init__.py" in modules for r in rooms)
     for rel in modules:
         mpy = build / (rel[:-3] + ".mpy")
         data = mpy.read_bytes()

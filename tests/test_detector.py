@@ -54,7 +54,7 @@ def events(det):
         i = e.pop()
         if i < 0:
             return out
-        out.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score[i]))
+        out.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score_q8[i]))
 
 
 def running(det):
@@ -81,7 +81,7 @@ def test_gaussian_tail_three_spreads():
     for i, v in enumerate(x.tolist()):
         f[fi.F_BAND0] = v
         det.step(f, i, 0)
-        over += det.score >= 3 * 256
+        over += det.score_q8 >= 3 * 256
     p = 2 * stats.norm.sf(2.995)
     assert abs(over - n * p) <= 3 * np.sqrt(n * p * (1 - p))
     assert 2 * stats.norm.sf(3) == pytest.approx(0.0027, abs=5e-5)   # the table value itself
@@ -108,7 +108,7 @@ def test_mahalanobis_tail_matches_chi_square():
     for i, row in enumerate(x.tolist()):
         f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", row)
         det.step(f, i, 0)
-        over += det.score >= round(thr * 256)
+        over += det.score_q8 >= round(thr * 256)
     assert abs(over - 0.01 * n) <= 3 * np.sqrt(n * 0.01 * 0.99) + 0.002 * n
 
 
@@ -126,7 +126,7 @@ def test_nearest_mode_and_driving_feature():
     det.step(f, 0, 0)
     assert det.mode == 1
     expect = np.hypot((5.2 - 5) / 0.5, (4.6 - 5) / 2)
-    assert abs(det.score / 256 - expect) < 0.02
+    assert abs(det.score_q8 / 256 - expect) < 0.02
     assert det.feat == b0            # (0.2 / 0.5) beats (0.4 / 2)
     f[b0], f[b1] = 10, 150
     det.step(f, 1, 0)
@@ -230,11 +230,11 @@ def test_idle_follows_the_largest_axis_velocity_not_the_acceleration():
             f[a * PA + fi.F_VEL] = v
         return det.step(f, 0, 0)
     # acceleration near a MEMS sensor's noise (0.4 counts r.m.s.), velocity of a running pump
-    assert step(VEL_PER_MM_S, 0, 100) == N and det.bb == VEL_PER_MM_S
+    assert step(VEL_PER_MM_S, 0, 100) == N and det.bb_vel_q16 == VEL_PER_MM_S
     # strong acceleration (4000 counts r.m.s.), velocity under the floor on both axes: stopped
-    assert step(IDLE - 1, IDLE - 2, 4000 << 8) == ID and det.bb == IDLE - 1
+    assert step(IDLE - 1, IDLE - 2, 4000 << 8) == ID and det.bb_vel_q16 == IDLE - 1
     # the floor itself counts as running, on whichever axis reaches it
-    assert step(0, IDLE, 100) == N and det.bb == IDLE
+    assert step(0, IDLE, 100) == N and det.bb_vel_q16 == IDLE
     # the default: 0.05 mm/s in F_VEL units of the calibration given, to the unit
     assert abs(default_params(1, 1, VEL_PER_MM_S)["det_idle_vel_q16"] - 0.05 * VEL_PER_MM_S) < 1
 
@@ -319,5 +319,5 @@ def test_fixed_point_score_against_a_float_reference():
         z = np.clip((u - mean_q4 / 16) / (sd_q4 / 16), -32, 32)
         dist = np.sqrt((((z - c / 256) / (s / 256)) ** 2).sum(1))
         ref = dist.min()
-        assert abs(det.score / 256 - ref) <= 0.02 * np.sqrt(d) + d / 256 / max(ref, 1)
+        assert abs(det.score_q8 / 256 - ref) <= 0.02 * np.sqrt(d) + d / 256 / max(ref, 1)
         assert dist[det.mode] <= ref + 0.04 * np.sqrt(d)   # nearest, up to a near tie

@@ -82,8 +82,8 @@ def test_learning_finds_the_operating_modes_and_then_monitors():
     assert det.state == al.NORMAL and not det.learning
     assert det.model.k == 2
     d = det.d
-    assert det.thr_alert == (CHI_Q8[d - 1] * 320) >> 8
-    assert det.thr_alarm == (det.thr_alert * 384) >> 8
+    assert det.thr_alert_q8 == (CHI_Q8[d - 1] * 320) >> 8
+    assert det.thr_alarm_q8 == (det.thr_alert_q8 * 384) >> 8
     # the two centroids lie about two baseline spreads apart or more on the r.m.s. of axis 0
     c = det.model.c_q8
     j = list(det.idx).index(fi.F_RMS)
@@ -219,8 +219,8 @@ def test_export_round_trip():
     p.update(det.export())
     twin = Detector(p)
     w = mixed(300, rng)
-    a = [(det.step(f, i, 0), det.score, det.mode, det.feat) for i, f in enumerate(w)]
-    b = [(twin.step(f, i, 0), twin.score, twin.mode, twin.feat) for i, f in enumerate(w)]
+    a = [(det.step(f, i, 0), det.score_q8, det.mode, det.feat) for i, f in enumerate(w)]
+    b = [(twin.step(f, i, 0), twin.score_q8, twin.mode, twin.feat) for i, f in enumerate(w)]
     assert [x[1:] for x in a] == [x[1:] for x in b]
 
 

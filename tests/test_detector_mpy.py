@@ -90,7 +90,7 @@ def run_all():
             det.stop_learning(i)
         det.step(f, i, dropped[i])
         out[4 * i] = det.state
-        out[4 * i + 1] = det.score
+        out[4 * i + 1] = det.score_q8
         out[4 * i + 2] = det.mode
         out[4 * i + 3] = det.feat
     return det.events.pending()
@@ -102,7 +102,7 @@ while True:
     if k < 0:
         break
     e = det.events
-    ev.append([e.t[k], e.old[k], e.new[k], e.reason[k], e.mode[k], e.feat[k], e.score[k]])
+    ev.append([e.t[k], e.old[k], e.new[k], e.reason[k], e.mode[k], e.feat[k], e.score_q8[k]])
 emit([ok, list(out), ev, det.model.k, det.events.lost])
 """
 
@@ -185,7 +185,7 @@ def run_all():
             det.ack(i)
         det.step(f, i, i)
         out[4 * i] = det.state
-        out[4 * i + 1] = det.score
+        out[4 * i + 1] = det.score_q8
         for a in range(2):
             if f[a * PA + fi.F_VEL] == BIG:
                 f[a * PA + fi.F_VEL] = BIG - 1
@@ -193,7 +193,7 @@ def run_all():
             twin.learn(i)
         twin.step(f, i, i)
         out[4 * i + 2] = twin.state
-        out[4 * i + 3] = twin.score
+        out[4 * i + 3] = twin.score_q8
     return twin.model.k
 
 emit([locked(run_all), list(out), det.export(), twin.export()])

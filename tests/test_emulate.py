@@ -159,7 +159,7 @@ def test_power_cut_mid_upload_keeps_the_old_set(tmp_path):
             info = c.identify()
             assert info["param_version"] == 1 and info["param_source"] == "cur"
             assert c.param_read() == v1
-            assert vg.gateway.det.thr_alert == 5 * 256      # the detector runs the old set
+            assert vg.gateway.det.thr_alert_q8 == 5 * 256      # the detector runs the old set
         finally:
             c.close()
 

@@ -94,7 +94,7 @@ def test_power_spectrum_against_numpy_rfft():
         mean = (int(x.astype(np.int64).sum()) + n // 2) >> (n.bit_length() - 1)
         pk = max(int(x.max()) - mean, mean - int(x.min()))
         y = (x.astype(float) - mean) * 2.0 ** (13 - (pk.bit_length() - 1))
-        X = np.fft.rfft(y * np.array(fc.hann) / 32768) / (n // 2)
+        X = np.fft.rfft(y * np.array(fc.hann_q15) / 32768) / (n // 2)
         err = np.abs(np.sqrt(p) - np.abs(X))
         assert err.max() <= math.sqrt(2) * _bound_per_component(n // 2), (n, err.max())
         # typical error is far below the worst case: total SNR

@@ -20,7 +20,7 @@ import pytest
 
 from host_tools.data import demo_fleet as dfl
 from host_tools.data.analysis import load_board
-from host_tools.data.param_files import encode_set
+from host_tools.data.files import encode_set
 from host_tools.data.recording import read_stream
 from host_tools.fleet import engine, layout, runs, work
 from host_tools.twin.replay import m_s2_per_count, replay

@@ -50,7 +50,7 @@ def test_flash_verifies_commits_and_reads_back(idle_gateway, tmp_path, capsys):
     crc = binascii.crc32(image[:-4])            # reference CRC-32 (zlib/binascii, IEEE 802.3)
     assert rc == 0 and err == ""
     assert f"flashed version 1 (CRC 0x{crc:08x}, {len(image)} bytes)" in out
-    assert vg.gateway.det.thr_alert == 6 * 256            # the running detector took the new set
+    assert vg.gateway.det.thr_alert_q8 == 6 * 256            # the running detector took the new set
     c = Client.open(vg.port)
     try:
         assert c.param_read() == image
@@ -96,7 +96,7 @@ def test_link_cut_mid_upload_never_half_applies(tmp_path, capsys):
         c = Client.open(vg.port, timeout_s=0.3, retries=0)
         with pytest.raises(LinkError):
             flash_cmd.flash(c, v2_image, progress=lambda done, total: c.link.transport.close())
-        assert vg.gateway.params.version == 1 and vg.gateway.det.thr_alert == 5 * 256
+        assert vg.gateway.params.version == 1 and vg.gateway.det.thr_alert_q8 == 5 * 256
         # The gateway loses power during a second attempt's upload.
         c = Client.open(vg.port, timeout_s=0.3, retries=0)
         with pytest.raises(LinkError):
@@ -112,7 +112,7 @@ def test_link_cut_mid_upload_never_half_applies(tmp_path, capsys):
         # and a whole upload afterwards goes through
         (tmp_path / "v2.msgpack").write_bytes(param_body(2, det_thr_alert_q8=3 * 256))
         rc, out, err = run_cli(capsys, "flash", tmp_path / "v2.msgpack", "--port", vg.port)
-        assert rc == 0 and "flashed version 2" in out and vg.gateway.det.thr_alert == 3 * 256
+        assert rc == 0 and "flashed version 2" in out and vg.gateway.det.thr_alert_q8 == 3 * 256
 
 
 def test_rollback(idle_gateway, tmp_path, capsys):

@@ -54,11 +54,11 @@ def by_hand(recs, p):
             core.ring.push(array("h", r.counts[k * n:(k + 1) * n].ravel().tolist()), n)
             assert core.step()
             states.append(det.step(core.feats, w, 0))
-            scores.append(det.score)
+            scores.append(det.score_q8)
             while det.events.count:
                 i = det.events.pop()
                 e = det.events
-                events.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score[i]))
+                events.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score_q8[i]))
             w += 1
     assert axes == recs[0].counts.shape[1]
     return states, scores, events

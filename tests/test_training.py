@@ -99,7 +99,7 @@ def test_threshold_meets_false_alert_target_on_held_out_scores(phi):
         z[0] = e[0]
         for i in range(1, count):
             z[i] = phi * z[i - 1] + math.sqrt(1 - phi * phi) * e[i]
-        return np.floor(256 * np.sqrt((z * z).sum(1))).astype(np.int64)   # Q8, as det.score
+        return np.floor(256 * np.sqrt((z * z).sum(1))).astype(np.int64)   # Q8, as det.score_q8
 
     windows_30, target = 2.0e5, 100.0     # a fast clock, so held-out onsets are countable
     thr, ch = score_threshold(scores(40000), windows_30, k, n, target)

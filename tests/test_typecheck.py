@@ -68,6 +68,13 @@ def test_all_of_firmware_py_type_checks_against_the_micropython_stubs(typeshed):
     assert r.returncode == 0, r.stdout + r.stderr
 
 
+def test_every_room_is_a_package_the_type_check_reaches():
+    """mypy -p firmware_py follows packages only: every folder holding device modules needs an __init__.py."""
+    folders = {p.parent for p in FIRMWARE.rglob("*.py") if "__pycache__" not in p.parts}
+    assert len(folders) >= 8                       # firmware_py and its seven rooms
+    assert all((f / "__init__.py").is_file() for f in folders)
+
+
 def test_board_and_drivers_type_check(typeshed):
     targets = ["firmware_py/run/board.py", "firmware_py/drivers"]
     r = mypy(typeshed, targets, ROOT)

@@ -1,7 +1,9 @@
-# COBS, Consistent Overhead Byte Stuffing (S. Cheshire and M. Baker, "Consistent Overhead Byte
-# Stuffing", SIGCOMM 1997 / IEEE/ACM Trans. Networking 1999). Removes every 00 from a block so a
-# single 00 can delimit frames on the wire; the delimiter itself is the framer's job, not ours.
-# Both functions work on caller-owned buffers and allocate nothing.
+"""COBS, Consistent Overhead Byte Stuffing (S. Cheshire and M. Baker, "Consistent Overhead Byte
+Stuffing", SIGCOMM 1997 / IEEE/ACM Trans. Networking 1999). Removes every 00 from a block so a
+single 00 can delimit frames on the wire; the delimiter itself is the framer's job, not ours.
+Both functions work on caller-owned buffers and allocate nothing.
+
+Entry points: max_encoded(), encode(), decode()."""
 from micropython import const
 
 _MAX_RUN = const(0xFF)   # a code byte of FF means "254 data bytes follow, no implied zero"

@@ -1,8 +1,10 @@
-# CRC-32/ISO-HDLC (the IEEE 802.3 CRC): reflected polynomial 0xEDB88320, init and xorout
-# 0xFFFFFFFF; check value of ASCII "123456789" is 0xCBF43926 (RevEng CRC catalogue).
-# A 32-bit register does not fit a MicroPython small int (|v| < 2**30), so the register is kept
-# as two 16-bit halves and the 256-entry table is split into low and high halves. No value ever
-# reaches 2**30 and nothing allocates after import.
+"""CRC-32/ISO-HDLC (the IEEE 802.3 CRC): reflected polynomial 0xEDB88320, init and xorout
+0xFFFFFFFF; check value of ASCII "123456789" is 0xCBF43926 (RevEng CRC catalogue).
+A 32-bit register does not fit a MicroPython small int (|v| < 2**30), so the register is kept
+as two 16-bit halves and the 256-entry table is split into low and high halves. No value ever
+reaches 2**30 and nothing allocates after import.
+
+Entry points: crc32_into(), crc32_ok()."""
 from array import array
 from micropython import const
 

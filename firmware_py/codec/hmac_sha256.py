@@ -1,5 +1,7 @@
-# HMAC-SHA256 (RFC 2104 construction over SHA-256; test vectors RFC 4231). MicroPython ships
-# hashlib.sha256 but no hmac module. Not on the per-window path: allocates freely.
+"""HMAC-SHA256 (RFC 2104 construction over SHA-256; test vectors RFC 4231). MicroPython ships
+hashlib.sha256 but no hmac module. Not on the per-window path: allocates freely.
+
+Entry points: hmac_sha256(), digest_equal()."""
 import hashlib
 
 _BLOCK = 64   # SHA-256 block size in bytes (FIPS 180-4)

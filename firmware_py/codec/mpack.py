@@ -1,9 +1,11 @@
-# A small MessagePack (msgpack.org specification) encoder and decoder for the types the link and
-# the parameter store use: nil, bool, int (every width), str, bin, array, map. No float, no ext:
-# device values are fixed-point ints. Ints take the smallest encoding, as the reference library
-# does. Maps are written with their keys sorted, so the same dict gives the same bytes on every
-# port (MicroPython dicts have no insertion order); keys must therefore be all str or all int.
-# The encoder writes into a caller-owned buffer; headers and small ints allocate nothing.
+"""A small MessagePack (msgpack.org specification) encoder and decoder for the types the link and
+the parameter store use: nil, bool, int (every width), str, bin, array, map. No float, no ext:
+device values are fixed-point ints. Ints take the smallest encoding, as the reference library
+does. Maps are written with their keys sorted, so the same dict gives the same bytes on every
+port (MicroPython dicts have no insertion order); keys must therefore be all str or all int.
+The encoder writes into a caller-owned buffer; headers and small ints allocate nothing.
+
+Entry points: MpackError, Writer, packb(), Reader, unpackb()."""
 from array import array
 from micropython import const
 

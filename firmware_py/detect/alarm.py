@@ -1,5 +1,7 @@
-# Detector states, event reasons, and the alert/alarm logic: raise on k of the last n windows,
-# clear with hysteresis and a minimum dwell, latch an alarm until it is acknowledged.
+"""Detector states, event reasons, and the alert/alarm logic: raise on k of the last n windows,
+clear with hysteresis and a minimum dwell, latch an alarm until it is acknowledged.
+
+Entry points: KofN, Alarm."""
 from micropython import const
 from firmware_py.detect.iso_zones import ZONE_C, ZONE_D
 

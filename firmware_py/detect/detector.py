@@ -12,14 +12,14 @@ API
         feats   array('i') laid out as firmware_py.dsp.feature_index (axes x per_axis(n_bands))
         t_s     int, seconds (any epoch, < 2**30); only copied into events
         dropped samples dropped since the previous window
-      after it: det.state, det.score (Q8 spreads of the nearest mode, 0 without a model),
+      after it: det.state, det.score_q8 (Q8 spreads of the nearest mode, 0 without a model),
       det.mode (nearest mode, -1 none), det.feat (flat feature index that drove the score or the
-      guard or the fault, -1 none), det.zone (ISO zone 0..3 = A..D), det.bb (broadband level:
-      the largest axis F_VEL, counts/s Q16, the quantity of the idle floor and the ISO guard).
+      guard or the fault, -1 none), det.zone (ISO zone 0..3 = A..D), det.bb_vel_q16 (broadband level:
+      largest axis F_VEL, counts/s Q16, the quantity of the idle floor and the ISO guard).
     det.ack(t_s)       acknowledge a latched alarm; det.learn(t_s) start learning (False if
                        refused: alarm latched or sensor fault); det.stop_learning(t_s) abandon it
     det.events         EventRing (firmware_py/detect/event_ring.py): i = det.events.pop() -> slot or -1;
-                       read det.events.t[i], old[i], new[i], reason[i], mode[i], feat[i], score[i]
+                       read det.events.t[i], old[i], new[i], reason[i], mode[i], feat[i], score_q8[i]
     det.export()       the learned model as parameter keys (allocates; not for the window path)
     States and reasons: firmware_py/detect/alarm.py (STATE_NAMES, REASON_NAMES).
 """
@@ -30,7 +30,7 @@ from firmware_py.detect import alarm as al
 from firmware_py.detect.alarm import Alarm
 from firmware_py.detect.event_ring import EventRing
 from firmware_py.detect.iso_zones import zone_of, bounds_in_vel_units, ZONE_C
-from firmware_py.detect.modes import ModeModel, KMAX, DMAX, Z_LIM, is_log_field, transform, clamp
+from firmware_py.detect.modes import ModeModel, KMAX, DMAX, is_log_field, transform, clamp
 from firmware_py.dsp.tables import log2_table
 from firmware_py.detect.welford import Welford, N_MAX
 from firmware_py.dsp.fixmath import sqrt_pow2
@@ -169,38 +169,38 @@ class Detector:
             if not 0 <= self.idx[j] < self.nf:
                 raise ValueError("det_feat index %d outside the feature vector" % self.idx[j])
             self.logf[j] = 1 if is_log_field(self.idx[j] % self.pa) else 0
-        self.sd_floor = _int(p, "det_sd_floor_q4", 1, 1 << 16)
-        self.s_floor = _int(p, "det_s_floor_q8", 1, 1 << 12)
+        self.sd_floor_q4 = _int(p, "det_sd_floor_q4", 1, 1 << 16)
+        self.s_floor_q8 = _int(p, "det_s_floor_q8", 1, 1 << 12)
         self.model = ModeModel(d)
         self.model.load(p["det_base_mean_q4"], p["det_base_sd_q4"], _int(p, "det_modes", 0, KMAX),
-                        p["det_mode_c_q8"], p["det_mode_s_q8"], self.sd_floor, self.s_floor)
+                        p["det_mode_c_q8"], p["det_mode_s_q8"], self.sd_floor_q4, self.s_floor_q8)
         self.cand = ModeModel(d)                  # the model being learned
         self.mean0_q4 = array("i", self.model.mean_q4)  # trained baseline, the drift anchor
-        self.thr_alert = _int(p, "det_thr_alert_q8", 1, 1 << 16)
-        self.thr_alarm = _int(p, "det_thr_alarm_q8", 1, 1 << 16)
-        self.hyst = _int(p, "det_hyst_q8", 1, 256)
+        self.thr_alert_q8 = _int(p, "det_thr_alert_q8", 1, 1 << 16)
+        self.thr_alarm_q8 = _int(p, "det_thr_alarm_q8", 1, 1 << 16)
+        self.hyst_q8 = _int(p, "det_hyst_q8", 1, 256)
         self.alarm = Alarm(_int(p, "det_k", 1, 30), _int(p, "det_n", 1, 30),
                            _int(p, "det_dwell", 0, 1 << 20))
-        self.idle_floor = _int(p, "det_idle_vel_q16", 0, _BIG)
+        self.idle_vel_q16 = _int(p, "det_idle_vel_q16", 0, _BIG)
         self.startup_n = _int(p, "det_startup_n", 0, 1 << 20)
         self.iso = _ints(p, "det_iso_bounds", 3)
         if not 0 < self.iso[0] <= self.iso[1] <= self.iso[2]:
             raise ValueError("det_iso_bounds must be positive and ascending")
-        self.flat = _int(p, "det_flat_rms_q8", 0, _BIG)
+        self.flat_rms_q8 = _int(p, "det_flat_rms_q8", 0, _BIG)
         self.clip_max = _int(p, "det_clip_max", 0, _BIG)
-        self.dc_lo = _ints(p, "det_dc_lo_q8", axes)
-        self.dc_hi = _ints(p, "det_dc_hi_q8", axes)
+        self.dc_lo_q8 = _ints(p, "det_dc_lo_q8", axes)
+        self.dc_hi_q8 = _ints(p, "det_dc_hi_q8", axes)
         self.drop_max = _int(p, "det_drop_max", 0, _BIG)
         self.fault_k = _int(p, "det_fault_k", 1, 1 << 20)
         self.base_n = _int(p, "det_learn_base_n", 2, N_MAX)
         self.mode_n = _int(p, "det_learn_mode_n", 1, N_MAX)
         r = _int(p, "det_learn_radius_q8", 1, 2048)
-        self.r2d = ((r * r) >> 8) * d             # squared radius times d, Q8 spreads squared
+        self.r2d_q8 = ((r * r) >> 8) * d          # squared radius times d, Q8 spreads squared
         self.min_n = _int(p, "det_learn_min_n", 1, N_MAX)
-        self.margin = _int(p, "det_learn_margin_q8", 256, 1 << 12)
-        self.alarm_ratio = _int(p, "det_learn_alarm_q8", 256, 1 << 12)
+        self.margin_q8 = _int(p, "det_learn_margin_q8", 256, 1 << 12)
+        self.alarm_ratio_q8 = _int(p, "det_learn_alarm_q8", 256, 1 << 12)
         self.drift_shift = _int(p, "det_drift_shift", 0, 20)
-        self.drift_max = _int(p, "det_drift_max_q8", 0, 1 << 10)
+        self.drift_max_q8 = _int(p, "det_drift_max_q8", 0, 1 << 10)
         self.events = EventRing(_int(p, "det_event_n", 1, 4096))
         self.tab = log2_table()
         self.u = array("i", bytes(4 * d))
@@ -211,7 +211,7 @@ class Detector:
         self.phase = 0
         self.seen = 0                             # windows learned in this phase
         self.ck = 0                               # modes opened so far in phase 2
-        self.min_bb = _BIG
+        self.min_bb_vel_q16 = _BIG
         self.fault_bad = 0
         self.fault_good = 0
         self.fault = False
@@ -221,17 +221,17 @@ class Detector:
         self.hold = self.startup_n
         self.state = al.IDLE
         self.t = 0
-        self.score = 0
+        self.score_q8 = 0
         self.mode = -1
         self.feat = -1
         self.zone = 0
-        self.bb = 0
+        self.bb_vel_q16 = 0
 
     # -- events ---------------------------------------------------------------------------------
     def _set(self, new, reason):
         """Enter state new (if it differs), logging the event with this window's figures."""
         if new != self.state:
-            self.events.put(self.t, self.state, new, reason, self.mode, self.feat, self.score)
+            self.events.put(self.t, self.state, new, reason, self.mode, self.feat, self.score_q8)
             self.state = new
 
     def _base_state(self):
@@ -265,7 +265,7 @@ class Detector:
         self.phase = 0
         self.seen = 0
         self.ck = 0
-        self.min_bb = _BIG
+        self.min_bb_vel_q16 = _BIG
         self._set(al.LEARNING, al.R_LEARN_START)
         return True
 
@@ -283,7 +283,7 @@ class Detector:
         pa = self.pa
         for a in range(self.axes):
             b = a * pa
-            if f[b + fi.F_RMS] < self.flat:
+            if f[b + fi.F_RMS] < self.flat_rms_q8:
                 self.fault_reason = al.R_FLAT
                 self.fault_feat = b + fi.F_RMS
                 return True
@@ -292,7 +292,7 @@ class Detector:
                 self.fault_feat = b + fi.F_CLIP
                 return True
             m = f[b + fi.F_MEAN]
-            if m < self.dc_lo[a] or m > self.dc_hi[a]:
+            if m < self.dc_lo_q8[a] or m > self.dc_hi_q8[a]:
                 self.fault_reason = al.R_DC
                 self.fault_feat = b + fi.F_MEAN
                 return True
@@ -305,7 +305,7 @@ class Detector:
     def step(self, f, t_s, dropped):
         """One window: features f, time t_s (s), dropped samples. Returns the state."""
         self.t = t_s
-        self.score = 0
+        self.score_q8 = 0
         self.mode = -1
         self.feat = -1
         pa = self.pa
@@ -337,8 +337,8 @@ class Detector:
             if f[a * pa + fi.F_VEL] > vel:
                 vel = f[a * pa + fi.F_VEL]
                 vf = a * pa + fi.F_VEL
-        self.bb = vel
-        if vel < self.idle_floor:
+        self.bb_vel_q16 = vel
+        if vel < self.idle_vel_q16:
             self.running = False
             self.hold = self.startup_n
             self.alarm.reset()
@@ -364,14 +364,14 @@ class Detector:
         m = self.model
         if m.k > 0:
             m.standardise(self.u, self.z)
-            self.score = m.score(self.z)
+            self.score_q8 = m.score(self.z)
             self.mode = m.mode
             self.feat = self.idx[m.drive]
         if self.zone >= ZONE_C:
             self.feat = vf
-        s = self.score
-        clr = (self.thr_alert * self.hyst) >> 8
-        self.alarm.update(1 if s >= self.thr_alert else 0, 1 if s >= self.thr_alarm else 0,
+        s = self.score_q8
+        clr = (self.thr_alert_q8 * self.hyst_q8) >> 8
+        self.alarm.update(1 if s >= self.thr_alert_q8 else 0, 1 if s >= self.thr_alarm_q8 else 0,
                           1 if s >= clr else 0, self.zone)
         self._set(self._base_state(), self.alarm.reason)
         if self.drift_shift and self.state == al.NORMAL and s < clr and m.k > 0:
@@ -388,7 +388,7 @@ class Detector:
         for j in range(self.d):
             off_q4 = (clamp(self.z[j] - m.c_q8[b + j], 2048) * m.sd_q4[j]) >> 8
             mu = m.mean_q4[j] + ((off_q4 + (1 << sh >> 1)) >> sh)
-            lim = (self.drift_max * m.sd_q4[j]) >> 8
+            lim = (self.drift_max_q8 * m.sd_q4[j]) >> 8
             m.mean_q4[j] = self.mean0_q4[j] + clamp(mu - self.mean0_q4[j], lim)
 
     # -- learning -------------------------------------------------------------------------------
@@ -406,15 +406,15 @@ class Detector:
         if self.phase == 0:
             for j in range(d):
                 self.wb.add(j, self.u[j])
-            if self.bb < self.min_bb:
-                self.min_bb = self.bb
+            if self.bb_vel_q16 < self.min_bb_vel_q16:
+                self.min_bb_vel_q16 = self.bb_vel_q16
             self.seen += 1
             if self.seen >= self.base_n:
                 c = self.cand
                 for j in range(d):
                     c.mean_q4[j] = self.wb.mean_q(j, 4)
                     sd = sqrt_pow2(self.wb.var(j), 8)
-                    c.sd_q4[j] = sd if sd > self.sd_floor else self.sd_floor
+                    c.sd_q4[j] = sd if sd > self.sd_floor_q4 else self.sd_floor_q4
                 self.phase = 1
                 self.seen = 0
             return
@@ -433,7 +433,7 @@ class Detector:
             if best < 0 or s < best:
                 best = s
                 best_m = m
-        if (best < 0 or best > self.r2d) and self.ck < KMAX:
+        if (best < 0 or best > self.r2d_q8) and self.ck < KMAX:
             best_m = self.ck
             self.ck += 1
         b = best_m * d
@@ -460,14 +460,14 @@ class Detector:
                 for j in range(d):
                     c.c_q8[k * d + j] = wm.mean_q(m * d + j, 0)
                     s = sqrt_pow2(wm.var(m * d + j), 0)
-                    c.s_q8[k * d + j] = s if s > self.s_floor else self.s_floor
+                    c.s_q8[k * d + j] = s if s > self.s_floor_q8 else self.s_floor_q8
                 k += 1
         c.k = k
-        self.thr_alert = (CHI_Q8[d - 1] * self.margin) >> 8
-        self.thr_alarm = (self.thr_alert * self.alarm_ratio) >> 8
-        f = self.min_bb >> 2                      # a quarter of the quietest learned window
-        if f > self.idle_floor:
-            self.idle_floor = f
+        self.thr_alert_q8 = (CHI_Q8[d - 1] * self.margin_q8) >> 8
+        self.thr_alarm_q8 = (self.thr_alert_q8 * self.alarm_ratio_q8) >> 8
+        f = self.min_bb_vel_q16 >> 2              # a quarter of the quietest learned window
+        if f > self.idle_vel_q16:
+            self.idle_vel_q16 = f
         self.cand = self.model
         self.model = c
         for j in range(d):
@@ -484,6 +484,6 @@ class Detector:
             "det_base_mean_q4": list(m.mean_q4), "det_base_sd_q4": list(m.sd_q4),
             "det_modes": m.k, "det_mode_c_q8": list(m.c_q8)[:kd],
             "det_mode_s_q8": list(m.s_q8)[:kd],
-            "det_thr_alert_q8": self.thr_alert, "det_thr_alarm_q8": self.thr_alarm,
-            "det_idle_vel_q16": self.idle_floor,
+            "det_thr_alert_q8": self.thr_alert_q8, "det_thr_alarm_q8": self.thr_alarm_q8,
+            "det_idle_vel_q16": self.idle_vel_q16,
         }

@@ -1,11 +1,13 @@
-# Fixed-size ring of detector events (state transitions), preallocated arrays, no allocation.
-# When the ring is full the oldest event is overwritten and `lost` counts it.
+"""Fixed-size ring of detector events (state transitions), preallocated arrays, no allocation.
+When the ring is full the oldest event is overwritten and `lost` counts it.
+
+Entry points: EventRing."""
 from array import array
 
 
 class EventRing:
     """cap events; slot i holds t[i] (s), old[i], new[i] (states), reason[i], mode[i]
-    (-1 none), feat[i] (flat feature index, -1 none), score[i] (Q8 spreads).
+    (-1 none), feat[i] (flat feature index, -1 none), score_q8[i] (Q8 spreads).
 
     Drain: `i = ring.pop()` gives the oldest slot (or -1 if empty); read the arrays at i before
     the next put().
@@ -20,12 +22,12 @@ class EventRing:
         self.reason = array("i", z)
         self.mode = array("i", z)
         self.feat = array("i", z)
-        self.score = array("i", z)
+        self.score_q8 = array("i", z)
         self.head = 0     # next slot to write
         self.count = 0    # events held
         self.lost = 0     # events overwritten unread (saturates)
 
-    def put(self, t, old, new, reason, mode, feat, score):
+    def put(self, t, old, new, reason, mode, feat, score_q8):
         i = self.head
         self.t[i] = t
         self.old[i] = old
@@ -33,7 +35,7 @@ class EventRing:
         self.reason[i] = reason
         self.mode[i] = mode
         self.feat[i] = feat
-        self.score[i] = score
+        self.score_q8[i] = score_q8
         i += 1
         self.head = 0 if i == self.cap else i
         if self.count == self.cap:

@@ -1,14 +1,16 @@
-# Absolute vibration-severity guard: broadband velocity r.m.s. placed in the evaluation zones
-# A-D of ISO 10816-3 / ISO 20816-3 (machine groups 1 and 2, rigid and flexible foundations).
-#
-# SOURCE: ISO 10816-3 zone boundaries, FROM MEMORY, not checked against the standard
-# (a figure recalled by the team, unconfirmed). Confirm against the purchased standard
-# (or the site's own acceptance limits) before relying on them; the parameter set may carry any
-# other boundaries, this table is only the default.
-#
-# Units: boundaries here are mm/s r.m.s. x 100 (hundredths of mm/s, so 2.3 mm/s -> 230).
-# On the device the guard compares F_VEL (velocity r.m.s., counts/s, Q16) against boundaries the
-# host has already converted into those units (bounds_in_vel_units); the device never sees mm/s.
+"""Absolute vibration-severity guard: broadband velocity r.m.s. placed in the evaluation zones
+A-D of ISO 10816-3 / ISO 20816-3 (machine groups 1 and 2, rigid and flexible foundations).
+
+SOURCE: ISO 10816-3 zone boundaries, FROM MEMORY, not checked against the standard
+(a figure recalled by the team, unconfirmed). Confirm against the purchased standard
+(or the site's own acceptance limits) before relying on them; the parameter set may carry any
+other boundaries, this table is only the default.
+
+Units: boundaries here are mm/s r.m.s. x 100 (hundredths of mm/s, so 2.3 mm/s -> 230).
+On the device the guard compares F_VEL (velocity r.m.s., counts/s, Q16) against boundaries the
+host has already converted into those units (bounds_in_vel_units); the device never sees mm/s.
+
+Entry points: bounds_in_vel_units(), zone_of()."""
 from micropython import const
 
 ZONE_A = const(0)   # newly commissioned machines

@@ -1,11 +1,13 @@
-# Operating-mode model: features brought to a common log scale, standardised against the
-# baseline, and scored by the distance to the nearest mode in units of that mode's spread.
-#
-# Scales (all ints):
-#   u  transformed feature, log2 Q8 (256 per octave), clamped to +-U_LIM
-#   z  standardised feature, Q8 baseline spreads (256 = one baseline standard deviation), +-Z_LIM
-#   centroids c_q8 in z units (Q8); per-mode spreads s_q8 in z units (Q8, floored when built)
-#   score: sqrt(sum_j ((z_j - c_mj) / s_mj)**2), Q8 mode spreads (a diagonal Mahalanobis distance)
+"""Operating-mode model: features brought to a common log scale, standardised against the
+baseline, and scored by the distance to the nearest mode in units of that mode's spread.
+
+Scales (all ints):
+  u  transformed feature, log2 Q8 (256 per octave), clamped to +-U_LIM
+  z  standardised feature, Q8 baseline spreads (256 = one baseline standard deviation), +-Z_LIM
+  centroids c_q8 in z units (Q8); per-mode spreads s_q8 in z units (Q8, floored when built)
+  score: sqrt(sum_j ((z_j - c_mj) / s_mj)**2), Q8 mode spreads (a diagonal Mahalanobis distance)
+
+Entry points: is_log_field(), ModeModel, clamp(), transform()."""
 from array import array
 from micropython import const
 from firmware_py.dsp import feature_index as fi

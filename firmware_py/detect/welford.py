@@ -1,6 +1,8 @@
-# Running mean and population variance of many integer channels, Welford's method in exact
-# integer form: allocation-free and with no growing sums, so a large constant offset costs no
-# precision (the update works on differences from the running mean only).
+"""Running mean and population variance of many integer channels, Welford's method in exact
+integer form: allocation-free and with no growing sums, so a large constant offset costs no
+precision (the update works on differences from the running mean only).
+
+Entry points: Welford."""
 from array import array
 from micropython import const
 

@@ -1,7 +1,9 @@
-# Accelerometer drivers: register access over machine.I2C / machine.SPI, the overrun
-# bookkeeping the drivers share, and the factory that opens the sensor a board profile names.
-# Everything a read touches is allocated in a constructor; reads allocate nothing, so a driver's
-# read_into() may run under micropython.heap_lock() or from a hard timer callback.
+"""Accelerometer drivers: register access over machine.I2C / machine.SPI, the overrun
+bookkeeping the drivers share, and the factory that opens the sensor a board profile names.
+Everything a read touches is allocated in a constructor; reads allocate nothing, so a driver's
+read_into() may run under micropython.heap_lock() or from a hard timer callback.
+
+Entry points: I2CRegs, SPIRegs, GapCounter, mean_frames(), open_sensor(), driver_module()."""
 from micropython import const
 
 _TICKS_MASK = const(0x3FFFFFFF)   # MicroPython ticks wrap at 2**30 (time.ticks_* docs)
@@ -75,9 +77,9 @@ class GapCounter:
 
     def __init__(self, ticks_us, period_q4):
         self._ticks = ticks_us
-        self._period = period_q4
+        self._period_q4 = period_q4
         self._t = ticks_us()
-        self._carry = 0          # Q4 us not yet worth a whole frame
+        self._carry_q4 = 0          # Q4 us not yet worth a whole frame
         self._left = 0           # frames left in the FIFO after the previous read
         self.lost = 0            # frames lost since start (never reset)
         self.overruns = 0        # status reads that showed an overrun, since start
@@ -85,7 +87,7 @@ class GapCounter:
     def restart(self, level):
         """Take the present moment and FIFO level as the new reference (after configuring)."""
         self._t = self._ticks()
-        self._carry = 0
+        self._carry_q4 = 0
         self._left = level
 
     def account(self, level, overrun):
@@ -98,9 +100,9 @@ class GapCounter:
         self._t = now
         if gap > _MAX_GAP_US:
             gap = _MAX_GAP_US
-        q = gap * 16 + self._carry
-        due = q // self._period
-        self._carry = q - due * self._period
+        q = gap * 16 + self._carry_q4
+        due = q // self._period_q4
+        self._carry_q4 = q - due * self._period_q4
         lost = 0
         if overrun:
             lost = self._left + due - level

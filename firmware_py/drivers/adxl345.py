@@ -1,7 +1,9 @@
-# Analog Devices ADXL345 3-axis accelerometer: full resolution (3.9 mg/LSB, 256 LSB/g typ.),
-# up to 3200 Hz output data rate, 32-level FIFO in stream mode drained at its watermark.
-# Register map and bit names: ADXL345 Data Sheet, Rev. G, Table 19 "Register Map" and the
-# "Register Definitions" section (revision letter from memory).
+"""Analog Devices ADXL345 3-axis accelerometer: full resolution (3.9 mg/LSB, 256 LSB/g typ.),
+up to 3200 Hz output data rate, 32-level FIFO in stream mode drained at its watermark.
+Register map and bit names: ADXL345 Data Sheet, Rev. G, Table 19 "Register Map" and the
+"Register Definitions" section (revision letter from memory).
+
+Entry points: rate_code(), range_code(), check_profile(), block_frames(), footprint_bytes(), ADXL345."""
 from micropython import const
 
 from firmware_py.drivers import GapCounter, mean_frames

@@ -1,8 +1,10 @@
-# STMicroelectronics IIS3DWB 3-axis wide-band vibration sensor: 26.667 kHz output data rate
-# (about 6 kHz bandwidth), +-2/4/8/16 g, 16-bit, 3 KB FIFO (512 words of tag + 6 data bytes),
-# SPI only. Register map and bit names: ST datasheet DS12569 "IIS3DWB", section "Register
-# mapping" and "Register description" (document number and revision Rev 6 from memory); the
-# same names as ST's reference driver iis3dwb_reg.h (github.com/STMicroelectronics/iis3dwb-pid).
+"""STMicroelectronics IIS3DWB 3-axis wide-band vibration sensor: 26.667 kHz output data rate
+(about 6 kHz bandwidth), +-2/4/8/16 g, 16-bit, 3 KB FIFO (512 words of tag + 6 data bytes),
+SPI only. Register map and bit names: ST datasheet DS12569 "IIS3DWB", section "Register
+mapping" and "Register description" (document number and revision Rev 6 from memory); the
+same names as ST's reference driver iis3dwb_reg.h (github.com/STMicroelectronics/iis3dwb-pid).
+
+Entry points: fs_code(), counts_per_g(), check_profile(), block_frames(), footprint_bytes(), IIS3DWB."""
 from micropython import const
 
 from firmware_py.drivers import GapCounter, mean_frames

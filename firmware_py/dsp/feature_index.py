@@ -1,6 +1,8 @@
-# Layout and fixed-point scales of the feature vector: one block of fields per axis, axis-major.
-# Every value is a small int (|v| < 2**30). Physical units come only at report time, through the
-# calibration (host_tools/data/units.py on the host); the scale of each field is fixed here.
+"""Layout and fixed-point scales of the feature vector: one block of fields per axis, axis-major.
+Every value is a small int (|v| < 2**30). Physical units come only at report time, through the
+calibration (host_tools/data/units.py on the host); the scale of each field is fixed here.
+
+Entry points: per_axis()."""
 from micropython import const
 
 F_MEAN = const(0)    # DC offset of the window, counts, Q8 (value / 256 = counts)

@@ -1,6 +1,8 @@
-# The feature core: per axis, each window of n int16 counts becomes the integer feature fields
-# of feature_index (scales documented there). All memory is allocated in the constructor; step()
-# allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
+"""The feature core: per axis, each window of n int16 counts becomes the integer feature fields
+of feature_index (scales documented there). All memory is allocated in the constructor; step()
+allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
+
+Entry points: check_config(), footprint_bytes(), FeatureCore."""
 import array
 from micropython import const
 
@@ -56,11 +58,11 @@ class FeatureCore:
         self.adc_min = adc_min
         self.adc_max = adc_max
         self.ring = SampleRing(axes, n, ring_windows)
-        self.cos_t, self.sin_t = tables.twiddles(n)
-        self.hann = tables.hann(n, self.cos_t)
+        self.cos_q15, self.sin_q15 = tables.twiddles(n)
+        self.hann_q15 = tables.hann(n, self.cos_q15)
         self.pos = tables.bitrev_positions(n)
-        self.tw = fft.radix4_twiddles(self.m, self.cos_t, self.sin_t)
-        self.log2_t = tables.log2_table()
+        self.tw_q15 = fft.radix4_twiddles(self.m, self.cos_q15, self.sin_q15)
+        self.log2_q15 = tables.log2_table()
         self.vmant, self.vsh2, self.vel_exp = tables.velocity_weights(n, fs_hz, vel_lo_hz, vel_hi_hz)
         self.buf = array.array('i', bytes(4 * n))
         self.p = array.array('i', bytes(4 * (self.m + 1)))
@@ -68,7 +70,7 @@ class FeatureCore:
         self.bands = [pv[b[0]:b[1]] for b in bands]
         self.n_bands = len(bands)
         # band mean square = 4/3 * 2**-2u * sum(p) (Hann power normalisation); 4/3 as log2, Q8
-        self.log2_4_3 = 512 - log2_q8(3, self.log2_t)
+        self.log2_4_3_q8 = 512 - log2_q8(3, self.log2_q15)
         self.per = per_axis(self.n_bands)
         self.feats = array.array('i', bytes(4 * axes * self.per))
         self.windows = 0
@@ -121,7 +123,7 @@ class FeatureCore:
         g = 1 << u if u > 0 else 1
         sh = -u if u < 0 else 0
         buf = self.buf
-        hann = self.hann
+        hann = self.hann_q15
         pos = self.pos
         s2 = L - 1
         sq = 0                          # sum(y*y >> (L-1)) < 2**29
@@ -134,8 +136,8 @@ class FeatureCore:
             s4 += (r * r) >> L
             buf[pos[i]] = (y * hann[i]) >> 15
         m = self.m
-        fft.cfft(buf, m, self.tw)
-        vs = fft.spectrum(buf, m, self.cos_t, self.sin_t, self.vmant, self.vsh2, self.p)
+        fft.cfft(buf, m, self.tw_q15)
+        vs = fft.spectrum(buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p)
         self._finish(off, pk, u, g, sh, sq, s4, vs)
 
     def _finish(self, off, pk, u, g, sh, sq, s4, vs):
@@ -151,8 +153,8 @@ class FeatureCore:
         # kurtosis = mean(y**4) / mean(y**2)**2 = s4 * 2**28 / (sq/2)**2 = s4 * 2**30 / sq**2
         f[off + F_KURT] = div_pow2(div_pow2(s4, sq, 21), sq, 21)   # Q12
         f[off + F_VEL] = sqrt_pow2(vs, 62 - 2 * self.vel_exp - 2 * u)
-        t = self.log2_t
-        c = self.log2_4_3 - 512 * u
+        t = self.log2_q15
+        c = self.log2_4_3_q8 - 512 * u
         for b in range(self.n_bands):
             ps = sum(self.bands[b])
             f[off + F_BAND0 + b] = log2_q8(ps, t) + c if ps > 0 else LOG2_ZERO_Q8

@@ -1,19 +1,35 @@
-# Fixed-point FFT of a real window, through an n/2-point complex FFT, in place.
-#
-# Scaling, stated once for all functions here:
-# - Input: buf (array('i'), n ints) holds the windowed real samples x[i] in bit-reversed complex
-#   order (tables.bitrev_positions), |x| <= 2**14, as complex points z[c] = x[2c] + j*x[2c+1].
-# - cfft: m = n/2 points, decimation in time: radix-4 stages (one radix-2 stage first when log2(m)
-#   is odd). A radix-2 stage halves its outputs (>> 1), a radix-4 stage quarters them (>> 2,
-#   floor), so after the last stage buf holds Z[k] / m, where Z is the exact DFT of z. Each output
-#   is at most the largest input in magnitude, so |component| <= 2**14 * sqrt(2) < 23171
-#   throughout and a twiddle product (Q15, |w| <= 2**15) stays below 23171 * 2**15 < 2**30.
-# - spectrum: the real-FFT split X[k] = E[k] - j*W**k*O[k], with E, O the halves
-#   (Z[k] + conj Z[m-k])/2 and (Z[k] - conj Z[m-k])/2, halved before the twiddle product for the
-#   same bound. Result: X[k] = DFT(x)[k] / m for k = 0..m, |X| <= 2**14 (the window sum bound).
-#   Power p[k] = re**2 + im**2 <= 2**28, and by Parseval sum(p) <= 1.5 * 2**28 < 2**30, so sums of
-#   any band of p never overflow.
-# Floor shifts bias each stage by at most -1/2 LSB; that error is what the tests' tolerance derives from.
+"""Fixed-point FFT of a real window, through an n/2-point complex FFT, in place.
+
+Scaling, stated once for all functions here:
+- Input: buf (array('i'), n ints) holds the windowed real samples x[i] in bit-reversed complex
+  order (tables.bitrev_positions), |x| <= 2**14, as complex points z[c] = x[2c] + j*x[2c+1].
+- cfft: m = n/2 points, decimation in time: radix-4 stages (one radix-2 stage first when log2(m)
+  is odd). A radix-2 stage halves its outputs (>> 1), a radix-4 stage quarters them (>> 2,
+  floor), so after the last stage buf holds Z[k] / m, where Z is the exact DFT of z. Each output
+  is at most the largest input in magnitude, so |component| <= 2**14 * sqrt(2) < 23171
+  throughout and a twiddle product (Q15, |w| <= 2**15) stays below 23171 * 2**15 < 2**30.
+- spectrum: the real-FFT split X[k] = E[k] - j*W**k*O[k], with E, O the halves
+  (Z[k] + conj Z[m-k])/2 and (Z[k] - conj Z[m-k])/2, halved before the twiddle product for the
+  same bound. Result: X[k] = DFT(x)[k] / m for k = 0..m, |X| <= 2**14 (the window sum bound).
+  Power p[k] = re**2 + im**2 <= 2**28, and by Parseval sum(p) <= 1.5 * 2**28 < 2**30, so sums of
+  any band of p never overflow.
+Floor shifts bias each stage by at most -1/2 LSB; that error is what the tests' tolerance derives from.
+
+What X holds, per window size (the feature core takes n = 64..4096, powers of two). x is Q0
+(windowed counts, |x| <= 2**14); X[k] and buf are in the same Q0 units divided by m, so
+multiplying by m (shifting left by the bits to restore) gives the exact DFT up to the floor error;
+p[k] = |X[k]|**2 = |DFT(x)[k]|**2 / m**2.
+
+        n      m  cfft stages            X[k] (k = 0..m)    bits to restore (log2 m)
+       64     32  1 radix-2 + 2 radix-4  DFT(x)[k] / 32      5
+      128     64  3 radix-4              DFT(x)[k] / 64      6
+      256    128  1 radix-2 + 3 radix-4  DFT(x)[k] / 128     7
+      512    256  4 radix-4              DFT(x)[k] / 256     8
+     1024    512  1 radix-2 + 4 radix-4  DFT(x)[k] / 512     9
+     2048   1024  5 radix-4              DFT(x)[k] / 1024   10
+     4096   2048  1 radix-2 + 5 radix-4  DFT(x)[k] / 2048   11
+
+Entry points: radix4_twiddles(), cfft(), spectrum()."""
 
 
 def radix4_twiddles(m, cos_t, sin_t):

@@ -1,5 +1,7 @@
-# Integer helpers for the per-window path: every argument, intermediate and result is a small
-# int (|v| < 2**30), so nothing here allocates on a 32-bit MicroPython port.
+"""Integer helpers for the per-window path: every argument, intermediate and result is a small
+int (|v| < 2**30), so nothing here allocates on a 32-bit MicroPython port.
+
+Entry points: msb(), isqrt(), sqrt_pow2(), div_pow2(), log2_q8()."""
 from micropython import const
 
 _LOG2_FRAC = const(7)    # mantissa bits used for interpolation between log2 table entries

@@ -1,9 +1,11 @@
-# Sample ring: per-axis int16 counts, fed in blocks as a sensor FIFO delivers them.
-#
-# The ring holds a whole number of windows ("slots"), so a window never wraps and each slot has a
-# memoryview made once at start: the feature stage reads it with no copy and no allocation.
-# Samples that arrive while the ring is full of unprocessed windows are counted as dropped, never
-# written over data still waiting: the loss is always visible (dropped counters).
+"""Sample ring: per-axis int16 counts, fed in blocks as a sensor FIFO delivers them.
+
+The ring holds a whole number of windows ("slots"), so a window never wraps and each slot has a
+memoryview made once at start: the feature stage reads it with no copy and no allocation.
+Samples that arrive while the ring is full of unprocessed windows are counted as dropped, never
+written over data still waiting: the loss is always visible (dropped counters).
+
+Entry points: SampleRing, footprint_bytes()."""
 import array
 
 

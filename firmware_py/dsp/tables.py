@@ -1,9 +1,11 @@
-# Constant tables of the feature core, built once at start-up with exact integer arithmetic.
-#
-# Why integers: rp2 and esp32 builds of MicroPython use single-precision floats, so a table made
-# with math.cos would differ by a bit here and there from the host's. Built from integers (Python's
-# arbitrary-precision ints, MicroPython's mpz, the default on the supported ports) every engine gets
-# the same bits, which is what lets the host twin be bit-identical. Start-up may allocate freely.
+"""Constant tables of the feature core, built once at start-up with exact integer arithmetic.
+
+Why integers: rp2 and esp32 builds of MicroPython use single-precision floats, so a table made
+with math.cos would differ by a bit here and there from the host's. Built from integers (Python's
+arbitrary-precision ints, MicroPython's mpz, the default on the supported ports) every engine gets
+the same bits, which is what lets the host twin be bit-identical. Start-up may allocate freely.
+
+Entry points: twiddles(), hann(), bitrev_positions(), log2_table(), velocity_weights()."""
 import array
 
 # pi * 2**60, rounded down (hex digits of pi: 3.243F6A8885A308D3...; checked by a Machin-formula test)

@@ -1,7 +1,9 @@
-# Link frames: COBS( payload + CRC-32 of the payload, little-endian ), then one 00 delimiter.
-# The payload is one MessagePack value (see docs/protocol.md). The receiver collects bytes up to
-# the next 00 in a fixed buffer and decodes in place; garbage, bad CRCs and oversize frames are
-# dropped and it resynchronises on the next 00. Nothing here allocates after construction.
+"""Link frames: COBS( payload + CRC-32 of the payload, little-endian ), then one 00 delimiter.
+The payload is one MessagePack value (see docs/protocol.md). The receiver collects bytes up to
+the next 00 in a fixed buffer and decodes in place; garbage, bad CRCs and oversize frames are
+dropped and it resynchronises on the next 00. Nothing here allocates after construction.
+
+Entry points: wire_size(), encode(), Receiver."""
 from micropython import const
 from firmware_py.codec import cobs
 from firmware_py.codec.crc32 import crc32_into, crc32_ok

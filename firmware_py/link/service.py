@@ -29,6 +29,8 @@ While streaming, the gateway calls push(msg) with a dict (for example its status
 an unsolicited {push: "features", ...} frame, and push_data("raw", fields, blob) to send a blob
 too large for one frame as {push: "raw", ...fields, total, off, data} chunks. Handling a request and push() allocate (dicts,
 strings, the reply copy): call them from the main loop, outside heap-locked per-window code.
+
+Entry points: Service.
 """
 from micropython import const
 from firmware_py.link import frames

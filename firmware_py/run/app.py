@@ -1,21 +1,23 @@
-# The device application: board profile -> accelerometer driver -> Gateway -> Service over a
-# serial link, with the watchdog, the boot counter, safe mode and the status LED. main.py on the
-# board calls main(); tests drive App.step() with stand-ins for `machine` and the link.
-#
-# Acquisition runs from a periodic soft machine.Timer (every fifo_watermark frames): the feature
-# and detector work of one window takes far longer than the sensor FIFO lasts (10 ms on the
-# ADXL345, 19.2 ms on the IIS3DWB), so polling between windows would overrun it. A soft callback
-# runs from MicroPython's scheduler between bytecodes, never inside a bus transfer or a
-# collection; it only calls read_into and SampleRing.push, which allocate nothing, so it may
-# run while window() holds the heap lock. The ring is single producer (the callback) and single
-# consumer (window()); the callback runs to completion, and the consumer's one shared update
-# (SampleRing.release: `filled -= n`, one statement without a jump) is not split by a soft
-# callback: the VM runs scheduled callbacks at jump instructions (py/vm.c, from memory). A hard
-# timer could split it, so it is not used.
-#
-# Per main-loop pass (step()): the link is served (allocates), then at most one window runs with
-# the heap locked, then its snapshot and stream pushes (allocate), the LED and the watchdog.
-# One window per pass keeps the link answered when processing falls behind the sensor.
+"""The device application: board profile -> accelerometer driver -> Gateway -> Service over a
+serial link, with the watchdog, the boot counter, safe mode and the status LED. main.py on the
+board calls main(); tests drive App.step() with stand-ins for `machine` and the link.
+
+Acquisition runs from a periodic soft machine.Timer (every fifo_watermark frames): the feature
+and detector work of one window takes far longer than the sensor FIFO lasts (10 ms on the
+ADXL345, 19.2 ms on the IIS3DWB), so polling between windows would overrun it. A soft callback
+runs from MicroPython's scheduler between bytecodes, never inside a bus transfer or a
+collection; it only calls read_into and SampleRing.push, which allocate nothing, so it may
+run while window() holds the heap lock. The ring is single producer (the callback) and single
+consumer (window()); the callback runs to completion, and the consumer's one shared update
+(SampleRing.release: `filled -= n`, one statement without a jump) is not split by a soft
+callback: the VM runs scheduled callbacks at jump instructions (py/vm.c, from memory). A hard
+timer could split it, so it is not used.
+
+Per main-loop pass (step()): the link is served (allocates), then at most one window runs with
+the heap locked, then its snapshot and stream pushes (allocate), the LED and the watchdog.
+One window per pass keeps the link answered when processing falls behind the sensor.
+
+Entry points: elapsed_ms(), StreamLink, DeviceGateway, SafeGateway, App, prepare(), main()."""
 import array
 import os
 

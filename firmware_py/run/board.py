@@ -1,7 +1,9 @@
-# Board profiles (boards/*.json): what hardware the gateway runs on and how its memory is sized.
-# load() reads one on the device with the json module, checks every field and refuses, with the
-# reason, a profile that is malformed or whose buffers cannot fit its heap budget. Start-up only:
-# it allocates freely. All values are integers (no floats needed to read or check a profile).
+"""Board profiles (boards/*.json): what hardware the gateway runs on and how its memory is sized.
+load() reads one on the device with the json module, checks every field and refuses, with the
+reason, a profile that is malformed or whose buffers cannot fit its heap budget. Start-up only:
+it allocates freely. All values are integers (no floats needed to read or check a profile).
+
+Entry points: BoardError, check(), memory_need(), load()."""
 from micropython import const
 
 _FAMILIES = ("rp2040", "esp32s3", "host")

@@ -1,22 +1,24 @@
-# The gateway application: samples in, features and detector per window, events and snapshots
-# out, and the object the link's command handler (service.py) drives. The same class runs on the
-# board (main.py feeds it from the accelerometer driver) and on the desk (the virtual gateway
-# feeds it from a recording), so what the host sees is what the device does.
-#
-# Per window (window()): FeatureCore.process, the raw copy and Detector.step allocate nothing and
-# may run with the heap locked. Saving a snapshot and answering the link allocate; poll() does
-# those after the window, outside any lock.
-#
-# Duty cycle (profile key analyse_every, K): of every K windows of frames only the first goes to
-# the ring and is analysed; feed() discards the other K - 1 on purpose and counts them in
-# `skipped` (windows), never in `dropped` (frames lost by accident, which the detector is told).
-#
-# Raw stream (raw_stream(True)): poll() pushes each window's raw counts with its index w and
-# `gap`, the frames missing just before it (ring full, the ring emptied by apply_params, or
-# skipped on purpose), so a host can tell contiguous windows from spliced ones. Frames lost when
-# the ring is full fall just before the first window not yet in it: index windows + slots, kept
-# in self.gaps at that index modulo slots + 1 (every index from the next window to that one is
-# distinct there); skipped frames fall before the next window the ring will form.
+"""The gateway application: samples in, features and detector per window, events and snapshots
+out, and the object the link's command handler (service.py) drives. The same class runs on the
+board (main.py feeds it from the accelerometer driver) and on the desk (the virtual gateway
+feeds it from a recording), so what the host sees is what the device does.
+
+Per window (window()): FeatureCore.process, the raw copy and Detector.step allocate nothing and
+may run with the heap locked. Saving a snapshot and answering the link allocate; poll() does
+those after the window, outside any lock.
+
+Duty cycle (profile key analyse_every, K): of every K windows of frames only the first goes to
+the ring and is analysed; feed() discards the other K - 1 on purpose and counts them in
+`skipped` (windows), never in `dropped` (frames lost by accident, which the detector is told).
+
+Raw stream (raw_stream(True)): poll() pushes each window's raw counts with its index w and
+`gap`, the frames missing just before it (ring full, the ring emptied by apply_params, or
+skipped on purpose), so a host can tell contiguous windows from spliced ones. Frames lost when
+the ring is full fall just before the first window not yet in it: index windows + slots, kept
+in self.gaps at that index modulo slots + 1 (every index from the next window to that one is
+distinct there); skipped frames fall before the next window the ring will form.
+
+Entry points: Gateway."""
 import array
 import gc
 
@@ -190,7 +192,7 @@ class Gateway:
     def status(self):
         det = self.det
         return {"state": alarm.STATE_NAMES[det.state], "mode": det.mode,
-                "score_q8": det.score, "feature": det.feat, "zone": det.zone,
+                "score_q8": det.score_q8, "feature": det.feat, "zone": det.zone,
                 "features": list(self.core.feats), "windows": self.windows,
                 "dropped": self.core.ring.dropped + self.lost_elsewhere, "skipped": self.skipped,
                 "events": self.snapshots.next_id,

@@ -1,11 +1,13 @@
-# The parameter set: one MessagePack map that configures a gateway (docs/parameters in
-# docs/protocol.md and docs/detector.md). Keys:
-#   version, board, fs_hz, n, axes      identity: the store refuses a set built for another gateway
-#   counts_per_g                        sensor scale the set was trained with (int)
-#   fc_bands                            band-power bands, [[lo_bin, hi_bin), ...] (feature core)
-#   fc_vel_hz                           [lo, hi] band of velocity r.m.s., Hz (10-1000 by default)
-#   det_*                               the detector's keys (firmware_py/detect/detector.py PARAM_KEYS)
-# Device and host build the feature core and the detector from a set with the same functions here.
+"""The parameter set: one MessagePack map that configures a gateway (docs/parameters in
+docs/protocol.md and docs/detector.md). Keys:
+  version, board, fs_hz, n, axes      identity: the store refuses a set built for another gateway
+  counts_per_g                        sensor scale the set was trained with (int)
+  fc_bands                            band-power bands, [[lo_bin, hi_bin), ...] (feature core)
+  fc_vel_hz                           [lo, hi] band of velocity r.m.s., Hz (10-1000 by default)
+  det_*                               the detector's keys (firmware_py/detect/detector.py PARAM_KEYS)
+Device and host build the feature core and the detector from a set with the same functions here.
+
+Entry points: vel_per_mm_s(), default_bands(), factory(), feature_core(), build()."""
 from firmware_py.detect import detector
 from firmware_py.dsp.features import FeatureCore
 

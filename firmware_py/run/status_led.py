@@ -1,6 +1,8 @@
-# Status LED: one blink code per gateway state, so a technician at the pump can read the state
-# without a laptop. Each code is 16 steps of 125 ms (a 2 s cycle), most significant bit first,
-# LED on where the bit is set. Our own design; the table is in docs/boards.md.
+"""Status LED: one blink code per gateway state, so a technician at the pump can read the state
+without a laptop. Each code is 16 steps of 125 ms (a 2 s cycle), most significant bit first,
+LED on where the bit is set. Our own design; the table is in docs/boards.md.
+
+Entry points: level(), StatusLed."""
 from micropython import const
 
 _STEP_MS = const(125)

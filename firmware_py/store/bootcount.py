@@ -1,8 +1,10 @@
-# Consecutive unhealthy boots, kept in a small text file (one decimal number), so a gateway that
-# keeps crashing falls back to safe mode instead of resetting forever. A boot counts until the
-# application has run healthy for a while and calls clear(); a deliberate reboot clears first.
-# A file that cannot be read counts as 0 (a cut while writing leaves it empty: the gateway then
-# tries normal running once more rather than locking itself out). Start-up only: allocates.
+"""Consecutive unhealthy boots, kept in a small text file (one decimal number), so a gateway that
+keeps crashing falls back to safe mode instead of resetting forever. A boot counts until the
+application has run healthy for a while and calls clear(); a deliberate reboot clears first.
+A file that cannot be read counts as 0 (a cut while writing leaves it empty: the gateway then
+tries normal running once more rather than locking itself out). Start-up only: allocates.
+
+Entry points: BootCounter."""
 
 
 class BootCounter:

@@ -1,15 +1,17 @@
-# Parameter sets on the device filesystem, committed atomically, with the previous set kept.
-#
-# Image (the file, and what the link carries):
-#   "EVP1"  flags(1: bit0 = signed)  body = MessagePack map  [HMAC-SHA256 of all before, 32]
-#   CRC-32 of all before, 4 bytes little-endian
-# The body holds at least version (int), board (str), fs_hz (int, Hz), n (window length,
-# samples) and axes (int, count); other keys belong to the detector and are passed through.
-#
-# Files: CUR (the committed set), OLD (the one before, for rollback), NEW (staging during a
-# commit or rollback). Every step below is one file write or one rename/remove, and boot() turns
-# any state a power cut can leave into a valid set; the argument is in docs/protocol.md.
-# Uses only os.stat/os.rename/os.remove and open(), which MicroPython has. Not per-window code.
+"""Parameter sets on the device filesystem, committed atomically, with the previous set kept.
+
+Image (the file, and what the link carries):
+  "EVP1"  flags(1: bit0 = signed)  body = MessagePack map  [HMAC-SHA256 of all before, 32]
+  CRC-32 of all before, 4 bytes little-endian
+The body holds at least version (int), board (str), fs_hz (int, Hz), n (window length,
+samples) and axes (int, count); other keys belong to the detector and are passed through.
+
+Files: CUR (the committed set), OLD (the one before, for rollback), NEW (staging during a
+commit or rollback). Every step below is one file write or one rename/remove, and boot() turns
+any state a power cut can leave into a valid set; the argument is in docs/protocol.md.
+Uses only os.stat/os.rename/os.remove and open(), which MicroPython has. Not per-window code.
+
+Entry points: ParamError, build_image(), rollback_message(), ParamStore."""
 import os
 from micropython import const
 from firmware_py.codec import mpack

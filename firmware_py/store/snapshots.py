@@ -1,12 +1,14 @@
-# Event snapshots: on each transition into alert or alarm the application saves the raw window
-# and its features, in a bounded ring of files (oldest overwritten) for the engineer to pull.
-#
-# File "ev<slot>.bin":  MessagePack map {id, t, kind, fs_hz, n, axes, features: [int]}
-#                       then the raw window, int16 little-endian counts, axis-major
-#                       (n samples of axis 0, then axis 1, ...), then CRC-32 of all before (LE).
-# Ids increase across reboots (the ring is scanned at start). A cut while saving loses at most
-# that one snapshot: the file is written under a temporary name and renamed into its slot.
-# Not per-window code: runs once per event and allocates.
+"""Event snapshots: on each transition into alert or alarm the application saves the raw window
+and its features, in a bounded ring of files (oldest overwritten) for the engineer to pull.
+
+File "ev<slot>.bin":  MessagePack map {id, t, kind, fs_hz, n, axes, features: [int]}
+                      then the raw window, int16 little-endian counts, axis-major
+                      (n samples of axis 0, then axis 1, ...), then CRC-32 of all before (LE).
+Ids increase across reboots (the ring is scanned at start). A cut while saving loses at most
+that one snapshot: the file is written under a temporary name and renamed into its slot.
+Not per-window code: runs once per event and allocates.
+
+Entry points: parse(), SnapshotRing."""
 import os
 from micropython import const
 from firmware_py.codec import mpack

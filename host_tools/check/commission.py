@@ -31,20 +31,18 @@ from firmware_py.run import board
 from firmware_py.detect import iso_zones
 from firmware_py.dsp.feature_index import F_PEAK, F_VEL
 from host_tools.data import units
+from host_tools.data.files import DEFAULT_BOARD
+from host_tools.data.lines import line_names
 from host_tools.errors import EdgevibError
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.data.recording import Recording
 
 VERDICTS = ("ok", "check", "problem")   # in rising order of concern
-DEFAULT_BOARD = Path(__file__).resolve().parents[2] / "boards" / "desk.json"
 DEFAULT_N = 512
 VEL_BAND_HZ = (10, 1000)   # broadband velocity band of ISO 10816-1 for machines above 600 r/min (from memory)
 ISO_MIN_RPM = 600          # below this the ISO 10816-3 band starts at 2 Hz (from memory)
 G_M_S2 = units.STANDARD_GRAVITY_M_S2
 INT16_MIN, INT16_MAX = -32768, 32767   # full scale when no board says otherwise: the counts' own limits
-
-# Hann window (periodic, as tables.hann): equivalent noise bandwidth 1.5 bins (common practice).
-HANN_ENBW_BINS = 1.5
 
 # Zero-g offset a low-cost MEMS accelerometer may show: up to about 150 mg (datasheets of such
 # parts quote tens of mg to about 150 mg; from memory). Beyond it the axis is tilted or drifting.
@@ -118,11 +116,18 @@ def settings_from_board(path: str | Path | None, **zones: Any) -> CheckSettings:
         p = board.load(str(path))
     except board.BoardError as e:
         raise EdgevibError(f"board profile {e}") from None
+    return settings_from_profile(p, **zones)
+
+
+def settings_from_profile(p: dict, compare_board: bool = True, **zones: Any) -> CheckSettings:
+    """Settings from a checked profile dict. compare_board False (a profile built from the
+    recording itself): window and full scale only, no rate or scale to compare with."""
     s = p["sensor"]
     return CheckSettings(
-        n=p["window_n"], expected_rate_hz=float(p["sample_rate_hz"]), adc_min=s["adc_min"],
-        adc_max=s["adc_max"], expected_m_s2_per_count=G_M_S2 / s["counts_per_g"],
-        board_name=p["name"], **zones)
+        n=p["window_n"], expected_rate_hz=float(p["sample_rate_hz"]) if compare_board else None,
+        adc_min=s["adc_min"], adc_max=s["adc_max"],
+        expected_m_s2_per_count=G_M_S2 / s["counts_per_g"] if compare_board else None,
+        board_name=p["name"] if compare_board else None, **zones)
 
 
 @dataclass
@@ -337,23 +342,6 @@ def _lines(ms: np.ndarray, df: float, rpm: float | None, vanes: int | None, max_
         order = f / (rpm / 60.0) if rpm else None
         out.append(Line(f, level, level / (2 * math.pi * f) * 1000.0, order, _name(f, rpm, vanes, df)))
     return out
-
-
-def line_names(rpm: float | None, vanes: int | None) -> dict[int, str]:
-    """Orders of shaft speed the check can name: 1x-3x, and with a vane count the vane pass,
-    its +-1x sidebands and its second harmonic with its sidebands."""
-    if not rpm:
-        return {}
-    names: dict[int, list[str]] = {h: [f"{h}x"] for h in (1, 2, 3)}
-    if vanes:
-        for order, name in ((vanes, "vane pass"), (vanes - 1, "vane pass - 1x"), (vanes + 1, "vane pass + 1x"),
-                            (2 * vanes, "2x vane pass"), (2 * vanes - 1, "2x vane pass - 1x"),
-                            (2 * vanes + 1, "2x vane pass + 1x")):
-            if order >= 1:
-                labels = names.setdefault(order, [])
-                # the vane pass itself outranks a plain harmonic of the same order
-                labels.insert(0 if order in (vanes, 2 * vanes) else len(labels), name)
-    return {o: " / ".join(v) for o, v in names.items()}
 
 
 def _name(f: float, rpm: float | None, vanes: int | None, df: float) -> str:

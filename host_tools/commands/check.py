@@ -15,26 +15,22 @@ from pathlib import Path
 import numpy as np
 
 from host_tools.check.commission import (
-    DEFAULT_BOARD, G_M_S2, HANN_ENBW_BINS, CheckResult, check_recording, iso_zone_bounds, lowest_bin,
-    settings_from_board)
+    G_M_S2, CheckResult, check_recording, iso_zone_bounds, lowest_bin, settings_from_board,
+    settings_from_profile)
+from host_tools.check.check_text import render_text
+from host_tools.data.lines import HANN_ENBW_BINS
 from host_tools.errors import EdgevibError
-from host_tools.data.recording import atomic_write, read_recording, sidecar_path
+from host_tools.data.analysis import desk_profile, scale_of
+from host_tools.data.recording import atomic_write, open_recording, read_recording, sidecar_path
 
 HELP = "commissioning check of a recording: rate, offset, clipping, flatline, noise, lines, ISO zone"
-
-CAUTION = (
-    "This check is advisory condition monitoring, not a machinery protection or safety shutdown\n"
-    "system; an all-clear is no guarantee. Fitting or adjusting a sensor on running machinery\n"
-    "needs lock-out and the site's procedures: do it only with the machine made safe."
-)
-
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("recording", metavar="REC", help="recording (.wav, .csv or .npy with its sidecar .json)")
     p.add_argument("--plot", metavar="FILE.png", help="draw the averaged spectrum with the named lines")
     p.add_argument("--json", metavar="FILE", help="also write the report as JSON")
     p.add_argument("--board", metavar="PROFILE.json",
-                   help=f"board profile to compare with (default {DEFAULT_BOARD.name} when present)")
+                   help="board profile of the gateway to compare with (default: settings from the recording)")
     p.add_argument("--rpm", type=float, help="shaft speed in r/min (overrides the sidecar)")
     p.add_argument("--vanes", type=int, metavar="N", help="impeller vane count (overrides the sidecar)")
     p.add_argument("--group", type=int, choices=(1, 2), default=2,
@@ -58,8 +54,13 @@ def run(args: argparse.Namespace) -> int:
     if args.rpm is not None and not args.rpm >= 0:
         raise EdgevibError("--rpm must be a number >= 0")
     zones, source = _zones(args)
-    settings = settings_from_board(args.board, zones_mm_s=zones, zones_source=source)
-    rec = read_recording(args.recording)
+    if args.board:
+        settings = settings_from_board(args.board, zones_mm_s=zones, zones_source=source)
+        rec = read_recording(args.recording)
+    else:   # no gateway named: settings from the recording itself (host_tools.data.analysis)
+        prof = desk_profile([open_recording(args.recording)])
+        settings = settings_from_profile(prof, compare_board=False, zones_mm_s=zones, zones_source=source)
+        rec = read_recording(args.recording, m_s2_per_count=scale_of(prof))
     result = check_recording(rec, settings, rpm=args.rpm, vane_count=args.vanes, max_lines=args.lines)
     rendered = []
     if args.json:
@@ -93,41 +94,6 @@ def _zones(args: argparse.Namespace) -> tuple[tuple[float, float, float], str]:
     if len(b) != 3 or not 0 < b[0] < b[1] < b[2]:
         raise EdgevibError(f"--zones {args.zones!r}: give three rising numbers in mm/s, as 1.4,2.8,4.5")
     return (b[0], b[1], b[2]), "site limits given with --zones"
-
-
-# --- text ----------------------------------------------------------------------------------------
-
-def render_text(r: CheckResult) -> str:
-    """The readable report: header, one row per item, the lines per axis, verdict, caution."""
-    out = [f"Commissioning check: {Path(r.recording).name}"]
-    who = ", ".join(x for x in (r.plant, r.machine) if x)
-    if who:
-        out.append(f"  {who}")
-    out.append(f"  {r.duration_s:.1f} s at {r.sample_rate_hz:g} Hz, axes {', '.join(r.axes)}; "
-               f"{r.windows} windows of {r.n} samples (Hann)")
-    speed = f"{r.rpm:g} r/min" if r.rpm is not None else "rpm unknown"
-    vanes = f"{r.vane_count} vanes" if r.vane_count else "vane count unknown"
-    board = f"board {r.settings.board_name}" if r.settings.board_name else "no board profile"
-    z = r.settings.zones_mm_s
-    out.append(f"  {speed}, {vanes}; {board}; zones {z[0]:g}/{z[1]:g}/{z[2]:g} mm/s: {r.settings.zones_source}")
-    out.append("")
-    out.append(f"  {'verdict':<8} {'item':<12} {'axis':<4} {'value':<40} explanation")
-    for i in r.items:
-        out.append(f"  {i.verdict:<8} {i.name:<12} {i.axis or '-':<4} {i.value:<40} {i.explanation}")
-    out.append("")
-    out.append("Strongest spectral lines (acceleration and velocity r.m.s.; order = multiple of shaft speed)")
-    out.append(f"  {'axis':<4} {'Hz':>8} {'order':>6} {'m/s^2':>8} {'mm/s':>7}  name")
-    for sp in r.spectra:
-        if not sp.lines:
-            out.append(f"  {sp.axis:<4} {'none':>8}")
-        for ln in sp.lines:
-            order = f"{ln.order:.2f}" if ln.order is not None else "-"
-            out.append(f"  {sp.axis:<4} {ln.freq_hz:8.1f} {order:>6} {ln.level_m_s2:8.3g} {ln.velocity_mm_s:7.3g}  {ln.name}")
-    out.append("")
-    out.append(f"Overall: {r.overall.upper()}: {r.summary}")
-    out.append("")
-    out.append(CAUTION)
-    return "\n".join(out) + "\n"
 
 
 # --- plot ----------------------------------------------------------------------------------------

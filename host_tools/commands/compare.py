@@ -17,14 +17,14 @@ import json
 import sys
 from pathlib import Path
 
-from host_tools.data.param_files import expected_rate, load_body
-from host_tools.commands.train import check_outputs
 from host_tools.data.analysis import profile_for_set
+from host_tools.data.files import check_outputs, expected_rate, load_body
 from host_tools.data.recording import atomic_write, open_stream
 from host_tools.errors import EdgevibError
 from host_tools.report.compare_report import comparison_text, write_compare_report
 from host_tools.twin.compare import SetUnderTest, compare
-from host_tools.twin.replay import default_jobs, group_sources, m_s2_per_count, stream_names
+from host_tools.data.units import m_s2_per_count
+from host_tools.twin.replay import default_jobs, group_sources, stream_names
 
 HELP = "replay recordings through two parameter sets and show side by side what each would have done"
 

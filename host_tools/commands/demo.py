@@ -133,7 +133,7 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
 def commissioning_text(path: Path, shown: Path) -> str:
     """The commissioning check of one recording, as `edgevib check` prints it (the command line
     shown with the path `shown`)."""
-    from host_tools.commands.check import render_text
+    from host_tools.check.check_text import render_text
     from host_tools.check.commission import check_recording, settings_from_board
     from host_tools.data.recording import read_recording
     rec = read_recording(path)
@@ -146,10 +146,11 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
     import msgpack
 
     from firmware_py.run import params as pm
-    from host_tools.commands.replay import windows_csv
-    from host_tools.data.analysis import load_board
+    from host_tools.data.files import load_board
+    from host_tools.twin.replay import windows_csv
     from host_tools.data.recording import read_stream
-    from host_tools.twin.replay import m_s2_per_count, replay
+    from host_tools.data.units import m_s2_per_count
+    from host_tools.twin.replay import replay
     from host_tools.report.replay_report import detections, false_raises, pump_faults, write_report
     from host_tools.fit.training import train
 

@@ -21,7 +21,9 @@ import firmware_py  # noqa: F401
 from firmware_py.dsp import feature_index as fi
 from firmware_py.store.snapshots import parse
 from host_tools.data import units
-from host_tools.link.device_link import committed_params, connected, m_s2_per_count, raw_frames
+from host_tools.data.units import m_s2_per_count
+from host_tools.link.device_link import committed_params, connected, raw_frames
+from host_tools.progress import progress_bar
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
 from host_tools.data.recording import write_wav
@@ -76,6 +78,18 @@ def save_event(out: Path, img: bytes, scale: float, board: str) -> Path:
     return write_wav(out / f"event_{meta['id']:05d}_{meta['kind']}.wav", raw_frames(raw, n, axes), fs, sidecar)
 
 
+def _pull(c, e: dict, out: Path, scale: float, board: str, saved: list, gone: list) -> None:
+    """Read event e from the gateway and save it (saved), or note it was overwritten (gone)."""
+    try:
+        img = c.event_read(e["id"])
+    except DeviceRefused as err:
+        if err.code != "missing":
+            raise
+        gone.append(e["id"])
+        return
+    saved.append(save_event(out, img, scale, board))
+
+
 def run(args: argparse.Namespace) -> int:
     from host_tools.fleet.layout import CAPTURES, filing_target
     out = filing_target(args.out, args.fleet, args.gateway, CAPTURES, "--out DIR")
@@ -87,15 +101,10 @@ def run(args: argparse.Namespace) -> int:
         listed = c.event_list()
         out.mkdir(parents=True, exist_ok=True)
         saved, gone = [], []
-        for e in listed:
-            try:
-                img = c.event_read(e["id"])
-            except DeviceRefused as err:
-                if err.code != "missing":
-                    raise
-                gone.append(e["id"])
-                continue
-            saved.append(save_event(out, img, scale, board))
+        with progress_bar(len(listed), "events", "events") as bar:
+            for e in listed:
+                _pull(c, e, out, scale, board, saved, gone)
+                bar.update(1)
     kinds = Counter(p.stem.rsplit("_", 1)[1] for p in saved)
     detail = ", ".join(f"{v} {k}" for k, v in sorted(kinds.items()))
     print(f"pulled {len(saved)} event snapshots from {args.port} into {out}" + (f" ({detail})" if detail else ""))

@@ -114,7 +114,7 @@ def run(args: argparse.Namespace) -> int:
 # --- init ------------------------------------------------------------------------------------------
 
 def _init(args: argparse.Namespace) -> int:
-    from host_tools.data.param_files import load_body
+    from host_tools.data.files import load_body
     from host_tools.fleet import layout
     root = layout.init_fleet(args.fleet, args.name or Path(args.fleet).resolve().name)
     if not args.gateway:

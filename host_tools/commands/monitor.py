@@ -18,7 +18,7 @@ import firmware_py  # noqa: F401
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect.iso_zones import ZONE_NAMES
 from host_tools.data import units
-from host_tools.link.device_link import committed_params, connected, feature_name, m_s2_per_count
+from host_tools.link.device_link import committed_params, connected
 from host_tools.errors import EdgevibError, LinkError
 
 HELP = "live view of a gateway: state, mode, score, ISO zone and the main features"
@@ -38,6 +38,7 @@ class View:
     scale: float          # m/s^2 per count
     alert_q8: int | None
     alarm_q8: int | None
+    params: dict          # the committed parameter set (band edges, for feature names)
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -73,10 +74,14 @@ def _axis_rows(st: dict, v: View) -> list[dict]:
 
 def _head(st: dict, v: View) -> tuple[str, str, str, str, str]:
     """state, mode, score, zone and driving feature as display strings."""
-    per = len(st["features"]) // v.axes if st["features"] else 1
     mode = "-" if st["mode"] < 0 else str(st["mode"])
     zone = ZONE_NAMES[st["zone"]] if 0 <= st["zone"] < len(ZONE_NAMES) else "?"
-    return st["state"], mode, f"{st['score_q8'] / 256:.2f}", zone, feature_name(st["feature"], per)
+    return st["state"], mode, f"{st['score_q8'] / 256:.2f}", zone, _feature(st["feature"], v)
+
+
+def _feature(flat: int, v: View) -> str:
+    """The driving feature as units.feature_name names it everywhere; '-' for none."""
+    return "-" if flat < 0 else units.feature_name(flat, v.params, _AXES)
 
 
 def render_block(st: dict, v: View) -> list[str]:
@@ -135,8 +140,8 @@ def view_of(c, port: str) -> View:
     info = c.identify()
     p = committed_params(c)
     return View(board=info["board"], fw=info["fw"], port=port, version=info["param_version"],
-                axes=info["axes"], scale=m_s2_per_count(p), alert_q8=p.get("det_thr_alert_q8"),
-                alarm_q8=p.get("det_thr_alarm_q8"))
+                axes=info["axes"], scale=units.m_s2_per_count(p), alert_q8=p.get("det_thr_alert_q8"),
+                alarm_q8=p.get("det_thr_alarm_q8"), params=p)
 
 
 def run(args: argparse.Namespace) -> int:

@@ -26,7 +26,9 @@ from pathlib import Path
 
 import numpy as np
 
-from host_tools.link.device_link import committed_params, connected, m_s2_per_count, raw_frames
+from host_tools.data.units import m_s2_per_count
+from host_tools.link.device_link import committed_params, connected, raw_frames
+from host_tools.progress import start
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.data.recording import write_wav
 
@@ -136,6 +138,7 @@ def run(args: argparse.Namespace) -> int:
         first = c.link.request("raw", on=True)["w"]
         col = _Collector(n, axes, fs, first, math.ceil(frames_wanted / n))
         t_start = time.monotonic()
+        bar = start(math.ceil(frames_wanted / n), "windows", "record")
         try:
             last = time.monotonic()
             while not col.done:
@@ -148,7 +151,9 @@ def run(args: argparse.Namespace) -> int:
                 if m.get("push") == "raw":
                     last = time.monotonic()
                     col.chunk(m)
+                    bar.update(1)
         finally:
+            bar.close()
             try:
                 c.link.request("raw", on=False)
             except LinkError:

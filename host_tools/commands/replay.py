@@ -26,25 +26,22 @@ one sub-folder per stream when there are several). Files follow the umask.
 from __future__ import annotations
 
 import argparse
-import csv
 import importlib
 import importlib.util
-import io
 import json
 import re
 from pathlib import Path
 from typing import Any, BinaryIO
 
-import numpy as np
 
-from host_tools.data.param_files import load_body
-from host_tools.commands.train import check_outputs
 from host_tools.data.analysis import profile_for_set
+from host_tools.data.files import check_outputs, load_body
 from host_tools.data.recording import atomic_open, atomic_write, open_stream
 from host_tools.data.times import moment
 from host_tools.errors import EdgevibError
-from host_tools.twin.replay import (ReplayChunk, ReplayResult, default_jobs, group_sources, m_s2_per_count, replay,
-                                   stream_names)
+from host_tools.data.units import m_s2_per_count
+from host_tools.twin.replay import (ReplayChunk, ReplayResult, csv_header, csv_rows, default_jobs, group_sources,
+                                   replay, stream_names)
 
 HELP = "replay recordings through the device detector: events, per-window states, scores and features"
 
@@ -59,31 +56,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--report", metavar="DIR", help="write the HTML report into DIR")
     p.add_argument("--jobs", type=int, default=default_jobs(), metavar="J",
                    help="processes computing features (default: the cores available)")
-
-
-def csv_rows(stream: str, cols: dict[str, np.ndarray]) -> str:
-    """CSV rows (no header) of per-window columns of one stream, stream name first."""
-    buf = io.StringIO()
-    out = csv.writer(buf, lineterminator="\n")
-    fmt = ["{}"] + ["{:.3f}" if k == "t_s" else "{:.6g}" for k in cols]   # t_s: ms on a Unix clock
-    data = [[stream] * len(cols["t_s"])] + [v.tolist() for v in cols.values()]
-    for row in zip(*data):
-        out.writerow([f.format(v) if isinstance(v, float) else v for f, v in zip(fmt, row)])
-    return buf.getvalue()
-
-
-def csv_header(cols: dict[str, np.ndarray]) -> str:
-    return ",".join(["stream", *cols]) + "\n"
-
-
-def windows_csv(result: ReplayResult) -> str:
-    """One row per window: stream (name), then every per-window column of the result."""
-    cols = {k: v for k, v in result.windows.items() if k != "stream"}
-    parts = [csv_header(cols)]
-    for i, name in enumerate(result.streams):
-        mine = result.windows["stream"] == i
-        parts.append(csv_rows(name, {k: v[mine] for k, v in cols.items()}))
-    return "".join(parts)
 
 
 class CsvSink:

@@ -14,10 +14,10 @@ import json
 from pathlib import Path
 
 import firmware_py  # noqa: F401
-from host_tools.data.param_files import encode_set
 from host_tools.errors import EdgevibError
-from host_tools.data.analysis import desk_profile, load_board, scale_of
-from host_tools.data.recording import atomic_write, open_stream, sidecar_path
+from host_tools.data.analysis import desk_profile, scale_of
+from host_tools.data.files import check_outputs, encode_set, load_board
+from host_tools.data.recording import atomic_write, open_stream
 from host_tools.progress import note
 from host_tools.twin.replay import default_jobs, group_sources
 from host_tools.fit.training import report_text, train
@@ -41,19 +41,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def outputs(out: Path) -> tuple[Path, Path, Path]:
     """PARAMS.msgpack, its summary PARAMS.json and report PARAMS.report.txt."""
     return out, out.with_suffix(".json"), out.with_suffix(".report.txt")
-
-
-def check_outputs(paths: list[Path], sources: list[Path]) -> None:
-    """Refuse outputs that would overwrite an input (recording or sidecar) or have no folder."""
-    inputs: set[Path] = set()
-    for s in sources:
-        files = [q for q in s.iterdir()] if s.is_dir() else [s, sidecar_path(s)]
-        inputs.update(q.resolve() for q in files)
-    for o in paths:
-        if o.resolve() in inputs:
-            raise EdgevibError(f"{o}: would overwrite an input; choose another name")
-        if not o.parent.is_dir():
-            raise EdgevibError(f"{o}: folder {o.parent} does not exist")
 
 
 def run(args: argparse.Namespace) -> int:

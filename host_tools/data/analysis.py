@@ -32,10 +32,10 @@ from typing import Any, Sequence
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.run import board
 from host_tools.data import units
+from host_tools.data.files import DEFAULT_BOARD, load_board
 from host_tools.errors import EdgevibError
 
-BOARDS = Path(__file__).resolve().parents[2] / "boards"
-DESK_BOARD = BOARDS / "desk.json"
+BOARDS = DEFAULT_BOARD.parent
 RECORDING_BOARD = "recording"
 MIN_RATE_HZ = 2560          # 2.56 x 1000 Hz: the 10-1000 Hz band with the usual anti-alias margin (common practice)
 RESOLVE_BINS = 3            # 1x at this bin or above (see the module docstring)
@@ -43,14 +43,6 @@ DESK_WINDOW_S = 0.16        # desk board: 512 samples at 3200 Hz
 MIN_N, MAX_N = 512, 4096    # MAX_N: the feature core's largest window (firmware_py.dsp.features)
 _INT16_FULL = 32767
 _FORMAT_FULL = {"int16": 32767, "int32": 2**31 - 1, "int64": 2**31 - 1}
-
-
-def load_board(path: str | Path | None) -> dict:
-    """A board profile from its JSON file (the desk board when path is None), checked."""
-    try:
-        return board.load(str(path or DESK_BOARD))
-    except board.BoardError as e:
-        raise EdgevibError(f"board profile {e}") from None
 
 
 def check_rate(path: Any, rate_hz: float) -> int:
@@ -153,4 +145,4 @@ def profile_for_set(params: dict, board_path: str | Path | None, recs: Sequence[
 
 
 def _desk_template() -> dict:
-    return copy.deepcopy(json.loads(DESK_BOARD.read_text(encoding="utf-8")))
+    return copy.deepcopy(json.loads(DEFAULT_BOARD.read_text(encoding="utf-8")))

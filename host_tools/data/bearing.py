@@ -12,6 +12,8 @@ rolling elements n, the ball diameter d, the pitch diameter D and the contact an
 
 The formulas assume the inner ring turns with the shaft and the outer ring is fixed. Real
 bearings slip by about 1-2 %, so measured lines sit slightly below these (common practice).
+
+Entry points: BearingGeometry, DefectOrders, defect_orders().
 """
 from __future__ import annotations
 

@@ -33,6 +33,8 @@ The first 7 days of both pumps are healthy and form the training set; the rest i
 
 Deterministic: one seed fixes the whole scenario; each snapshot draws from its own generator
 seeded by (seed, pump, time), so any snapshot can be made alone and comes out the same.
+
+Entry points: PumpSpec, Fault, Snapshot, Scenario, build_scenario(), synthesize(), snapshot_sidecar(), snapshot_set(), write_scenario(), ground_truth().
 """
 from __future__ import annotations
 
@@ -325,6 +327,7 @@ def snapshot_sidecar(sc: Scenario, snap: Snapshot) -> dict:
     rpm = sc.speed_rpm(p.name, np.array([snap.t0_s, snap.t0_s + snap.duration_s]))
     return {
         "m_s2_per_unit": M_S2_PER_COUNT,
+        "full_scale": ADC_MAX,
         "sample_rate_hz": float(FS_HZ),
         "t0_s": snap.t0_s,
         "rpm": float(rpm[0]) if rpm[0] == rpm[1] else None,

@@ -34,9 +34,9 @@ range) run on each stretch as it is read, so a long file is refused where its fi
 
 Counts: the device works on int16 counts (frames x axes) and a scale `m_s2_per_count`. The
 counts scale is, in order of precedence: the caller's `m_s2_per_count` (for example the scale a
-parameter set was trained on), the sidecar's `m_s2_per_count`, the sidecar's `full_scale` (full
-scale = 32767 counts), and for integer data the file's own unit (counts = samples unchanged).
-Float data with none of these is refused, since there is no
+parameter set was trained on), the sidecar's `m_s2_per_count`, for integer data the file's own
+unit (counts = samples unchanged), for float data the sidecar's `full_scale` (full scale = 32767
+counts). Float data with none of these is refused, since there is no
 honest way to guess a sensor's resolution. Conversion is counts = round-half-even(sample *
 m_s2_per_unit / m_s2_per_count); a value that would fall outside -32768..32767 is refused (not
 saturated), because silently clipped data would pass for a sensor at full scale.
@@ -145,12 +145,12 @@ def open_recording(
     axes = _axis_names(p, meta.get("axes"), data.shape[1])
     scale = m_s2_per_count if m_s2_per_count is not None else meta.get("m_s2_per_count")
     if scale is None:
-        if meta.get("full_scale") is not None:
-            scale = meta["full_scale"] * meta["m_s2_per_unit"] / _INT16_MAX
-        elif is_float:
-            raise EdgevibError(f"{p}: float samples need full_scale or m_s2_per_count (the counts scale) in the sidecar")
-        else:
+        if not is_float:
             scale = meta["m_s2_per_unit"]
+        elif meta.get("full_scale") is not None:
+            scale = meta["full_scale"] * meta["m_s2_per_unit"] / _INT16_MAX
+        else:
+            raise EdgevibError(f"{p}: float samples need full_scale or m_s2_per_count (the counts scale) in the sidecar")
     return RecordingFile(
         path=p, samples=data, is_float=is_float, m_s2_per_unit=float(meta["m_s2_per_unit"]),
         m_s2_per_count=float(scale), sample_rate_hz=rate, axes=axes, t0_s=meta.get("t0_s"),

@@ -36,6 +36,8 @@ false-alert rate can exceed the one computed here; replaying healthy recordings 
 detector is the check on that (extremal-index declustering would be the next refinement).
 A threshold set this way is a statistical estimate from the training data, not a guarantee: edgevib
 is advisory condition monitoring, not machinery protection.
+
+Entry points: TailFit, ThresholdChoice, fit_tail(), fire_prob(), onset_prob(), window_prob_for_rate(), choose_threshold().
 """
 from __future__ import annotations
 

@@ -39,6 +39,7 @@ edgevib is advisory condition monitoring, not machinery protection or a safety s
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from concurrent.futures import ProcessPoolExecutor
 from typing import Any, Sequence
 
@@ -52,11 +53,12 @@ from firmware_py.detect.detector import Detector
 from firmware_py.detect.iso_zones import ZONE_C
 from host_tools.fit import modes_fit, tail_fit
 from host_tools.data import units
+from host_tools.data.units import m_s2_per_count
 from host_tools.errors import EdgevibError
 from host_tools.progress import start
 from host_tools.data.recording import Recording, RecordingFile
 from host_tools.twin.replay import (
-    StreamFeatures, check_recordings, m_s2_per_count, physical_columns, step_detector, stream_features,
+    StreamFeatures, check_recordings, physical_columns, step_detector, stream_features,
     twin_for)
 
 FOLDS = 3                 # held-out blocks of recordings (each model is fitted on the others)
@@ -201,7 +203,8 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     board's counts scale (m/s^2 per count = g / counts_per_g). profile: board profile dict.
     false_alerts_per_month: target expected false alerts per 30 days of running. seed: k-means.
     version: the set's version. folds: held-out blocks. jobs: processes for the k-means fits.
-    progress: show the stages done (host_tools.progress).
+    progress: show the steps done (host_tools.progress).
+    The steps are the module docstring's; each warning found on the way goes into the summary.
     """
     if not false_alerts_per_month > 0:
         raise EdgevibError("the false-alert target must be a positive number per 30 days")
@@ -211,21 +214,81 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     for s in streams:
         check_recordings(s, base)
     warnings: list[str] = []
-    twin = twin_for(base, profile)
-    bar = start(4, "stages", "train", enabled=progress)   # features, probe, fits, thresholds
-    feats = [stream_features(s, twin) for s in streams]
+    bar = start(6, "steps", "train", enabled=progress)
+    data = _features(streams, base, profile, warnings)
     bar.update(1)
-    allf = np.concatenate([sf.feats for sf in feats])
-    pa = fi.per_axis(len(base["fc_bands"]))
-    axes = base["axes"]
+    p, health = _sensor_health(data, base, profile, warnings)
+    bar.update(1)
+    use = _usable_windows(data, p, warnings)
+    bar.update(1)
+    p, held = _held_out_scores(data, use, p, folds, seed, jobs, warnings)
+    bar.update(1)
+    p, thr = _thresholds(held.scores, p, data.windows_30, false_alerts_per_month, warnings)
+    bar.update(1)
+    table = _held_out_check(data, use, held, p, thr, false_alerts_per_month, warnings)
+    bar.update(1)
+    bar.close()
+    return p, _summary(data, p, health, use, held, thr, table, false_alerts_per_month, warnings)
+
+
+@dataclass
+class _Data:
+    """The training streams, their feature windows and the set's window geometry."""
+    streams: list[list[Recording]]
+    feats: list[StreamFeatures]
+    allf: np.ndarray              # every window's features, the streams one after another
+    pa: int                       # features per axis
+    axes: int
+    window_s: float               # seconds per window
+    windows_30: float             # windows in 30 days
+    scale: float                  # m/s^2 per count
+    axis_names: Sequence[str]
+    machines: list[str]
+
+
+@dataclass
+class _Health:
+    """Sensor-health limits and the idle floor (step 2 and 3)."""
+    dc_lo: list[int]              # Q8 counts, per axis
+    dc_hi: list[int]              # Q8 counts, per axis
+    idle: int                     # det_idle_vel_q16: counts/s Q16
+    idle_rule: str
+
+
+@dataclass
+class _Use:
+    """Which windows the device scores, and which of those train (step 4)."""
+    scored: list[np.ndarray]      # per stream, bool per window
+    use: list[np.ndarray]         # per stream: scored and in ISO zone A or B
+    n_zone_c: int
+    n_use: int
+
+
+@dataclass
+class _Held:
+    """Held-out scores and the fold models that made them (step 6)."""
+    scores: np.ndarray            # Q8 spreads
+    fold_sets: list[tuple[int, dict]]
+    win_fold: list[np.ndarray]    # per stream, the fold of each window
+    n_folds: int
+    rows: np.ndarray              # every usable window's features
+
+
+def _features(streams: list[list[Recording]], base: dict, profile: dict, warnings: list[str]) -> _Data:
+    """Step 1: every stream's feature windows through the numpy twin of the device feature core."""
+    twin = twin_for(base, profile)
+    feats = [stream_features(s, twin) for s in streams]
     window_s = base["n"] / base["fs_hz"]
-    scale = m_s2_per_count(base)
-    axis_names = streams[0][0].axes
     machines = sorted({r.machine for s in streams for r in s if r.machine})
     if len(machines) > 1:
         warnings.append(f"training recordings name several machines ({', '.join(machines)}); a parameter set is for one gateway")
+    return _Data(streams, feats, np.concatenate([sf.feats for sf in feats]), fi.per_axis(len(base["fc_bands"])),
+                 base["axes"], window_s, _DAYS_30_S / window_s, m_s2_per_count(base), streams[0][0].axes, machines)
 
-    # sensor health and the idle floor
+
+def _sensor_health(data: _Data, base: dict, profile: dict, warnings: list[str]) -> tuple[dict, _Health]:
+    """Steps 2 and 3: the healthy DC range, clipping and flatline warnings, and the idle floor."""
+    allf, pa, axes = data.allf, data.pa, data.axes
     dc_lo, dc_hi = _dc_range(allf, base, profile)
     clipped = int((allf[:, fi.F_CLIP::pa][:, :axes] > 0).any(1).sum())
     if clipped:
@@ -234,16 +297,19 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     if flat:
         warnings.append(f"{flat} training windows look like a stuck sensor (r.m.s. under the flatline floor)")
     bb = allf[:, fi.F_VEL::pa][:, :axes].max(1).astype(np.float64)
-    rpm = np.concatenate([np.array([np.nan if r.rpm is None else r.rpm for r in s])[sf.rec] for s, sf in zip(streams, feats)])
-    idle, idle_rule, w = _idle_floor(bb, rpm, scale)
+    rpm = np.concatenate([np.array([np.nan if r.rpm is None else r.rpm for r in s])[sf.rec]
+                          for s, sf in zip(data.streams, data.feats)])
+    idle, idle_rule, w = _idle_floor(bb, rpm, data.scale)
     warnings += w
     p = _with(base, det_dc_lo_q8=dc_lo, det_dc_hi_q8=dc_hi, det_clip_max=0, det_idle_vel_q16=idle)
+    return p, _Health(dc_lo, dc_hi, idle, idle_rule)
 
-    # which windows the device scores, and which of those are fit for training (zone A/B)
-    probe = _run(_probe_model(p), feats)
-    bar.update(1)
+
+def _usable_windows(data: _Data, p: dict, warnings: list[str]) -> _Use:
+    """Step 4: the windows the device scores, and of those the ones in ISO zone A or B."""
+    probe = _run(_probe_model(p), data.feats)
     scored = [st.mode >= 0 for st in probe]
-    vel = [sf.feats[:, fi.F_VEL::pa][:, :axes].max(1) for sf in feats]
+    vel = [sf.feats[:, fi.F_VEL::data.pa][:, :data.axes].max(1) for sf in data.feats]
     zone_c = [v >= p["det_iso_bounds"][ZONE_C - 1] for v in vel]
     use = [s & ~z for s, z in zip(scored, zone_c)]
     n_zone_c = int(sum((s & z).sum() for s, z in zip(scored, zone_c)))
@@ -252,39 +318,48 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     n_use = int(sum(u.sum() for u in use))
     if n_use < MIN_WINDOWS:
         raise EdgevibError(f"only {n_use} running, healthy training windows; record more of the pump in normal duty (at least {MIN_WINDOWS})")
-    if n_use * window_s < MIN_HOURS * 3600:
-        warnings.append(f"only {n_use * window_s / 3600:.2f} h of running windows: thresholds and modes rest on little data")
+    if n_use * data.window_s < MIN_HOURS * 3600:
+        warnings.append(f"only {n_use * data.window_s / 3600:.2f} h of running windows: thresholds and modes rest on little data")
+    return _Use(scored, use, n_zone_c, n_use)
 
-    # held-out scores, by contiguous blocks of recordings
-    rec_fold = _blocks(streams, folds)
+
+def _held_out_scores(data: _Data, use: _Use, p: dict, folds: int, seed: int, jobs: int,
+                     warnings: list[str]) -> tuple[dict, _Held]:
+    """Steps 5 and 6: the model from every usable window, and healthy scores held out by block."""
+    feats = data.feats
+    rec_fold = _blocks(data.streams, folds)
     win_fold = [rf[sf.rec] for rf, sf in zip(rec_fold, feats)]
     n_folds = len(np.unique(np.concatenate(rec_fold)))
-    fold_rows = [(f, np.concatenate([sf.feats[u & (wf != f)] for sf, u, wf in zip(feats, use, win_fold)]))
+    fold_rows = [(f, np.concatenate([sf.feats[u & (wf != f)] for sf, u, wf in zip(feats, use.use, win_fold)]))
                  for f in range(n_folds if n_folds > 1 else 0)]
     fold_rows = [(f, r) for f, r in fold_rows if len(r) >= MIN_WINDOWS]
-    rows = np.concatenate([sf.feats[u] for sf, u in zip(feats, use)])
+    rows = np.concatenate([sf.feats[u] for sf, u in zip(feats, use.use)])
     # the fold models and the model from every usable window are independent fits
     fits = _fit_all([r for _, r in fold_rows] + [rows], p, seed, jobs)
-    bar.update(1)
     held: list[np.ndarray] = []
     fold_sets = []
     for (f, _), keys in zip(fold_rows, fits):
         pf = _with(p, **keys)
         fold_sets.append((f, pf))
-        for st, u, wf in zip(_run(_mute(pf), feats), use, win_fold):
+        for st, u, wf in zip(_run(_mute(pf), feats), use.use, win_fold):
             held.append(st.score_q8[u & (wf == f)])
     held_scores = np.concatenate(held) if held else np.zeros(0)
     if n_folds < 2:
         warnings.append("a single recording: thresholds come from the model's own training windows (optimistic)")
     p = _with(p, **fits[-1])
-    k_of, n_of = p["det_k"], p["det_n"]
-    windows_30 = _DAYS_30_S / window_s
     if n_folds < 2:
-        held_scores = np.concatenate([st.score_q8[u] for st, u in zip(_run(_mute(p), feats), use)])
+        held_scores = np.concatenate([st.score_q8[u] for st, u in zip(_run(_mute(p), feats), use.use)])
+    return p, _Held(held_scores, fold_sets, win_fold, n_folds, rows)
+
+
+def _thresholds(held_scores: np.ndarray, p: dict, windows_30: float, target: float,
+                warnings: list[str]) -> tuple[dict, dict[str, Any]]:
+    """Step 6: alert and alarm thresholds from the tail of the held-out scores, or the chi-square rule."""
+    k_of, n_of = p["det_k"], p["det_n"]
     thr: dict[str, Any]
     try:
-        alert, ch = score_threshold(held_scores, windows_30, k_of, n_of, false_alerts_per_month)
-        alarm_t, ch2 = score_threshold(held_scores, windows_30, k_of, n_of, false_alerts_per_month / ALARM_RATE_RATIO)
+        alert, ch = score_threshold(held_scores, windows_30, k_of, n_of, target)
+        alarm_t, ch2 = score_threshold(held_scores, windows_30, k_of, n_of, target / ALARM_RATE_RATIO)
         alarm = min(max(alarm_t, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
         thr = {"method": "generalised Pareto tail of held-out healthy scores (peaks over threshold)",
                "expected_false_alerts_per_30_days": ch.false_alerts_per_30_days,
@@ -302,21 +377,27 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         thr = {"method": "the device's chi-square rule (too few scores for a tail fit)",
                "expected_false_alerts_per_30_days": None, "range_95_per_30_days": None}
         warnings.append(f"{e}: alert threshold from the device's conservative chi-square rule")
-    p = _with(p, det_thr_alert_q8=alert, det_thr_alarm_q8=alarm)
+    return _with(p, det_thr_alert_q8=alert, det_thr_alarm_q8=alarm), thr
 
-    # checks: held-out replay with the chosen thresholds, and the set on its own training data
+
+def _held_out_check(data: _Data, use: _Use, held: _Held, p: dict, thr: dict[str, Any], target: float,
+                    warnings: list[str]) -> list[dict[str, Any]]:
+    """Step 7: fold models replay their blocks with the chosen thresholds (into thr), and the
+    set replays its own training data; returns the mode table."""
+    feats, windows_30 = data.feats, data.windows_30
+    alert, alarm = p["det_thr_alert_q8"], p["det_thr_alarm_q8"]
     held_alerts, held_windows = 0, 0
-    for f, pf in fold_sets:
+    for f, pf in held.fold_sets:
         pf = _with(pf, det_thr_alert_q8=alert, det_thr_alarm_q8=alarm)
-        for st, sf, u, wf in zip(_run(pf, feats), feats, use, win_fold):
+        for st, sf, u, wf in zip(_run(pf, feats), feats, use.use, held.win_fold):
             held_windows += int((u & (wf == f)).sum())
             held_alerts += sum(1 for e in st.events if e[2] in (al.ALERT, al.ALARM) and wf[e[0]] == f)
     own = _run(p, feats)
     own_alerts = sum(1 for st in own for e in st.events if e[2] in (al.ALERT, al.ALARM))
     if own_alerts:
         warnings.append(f"the trained set raises {own_alerts} alerts on its own training data: check that the data is healthy")
-    modes = np.concatenate([st.mode[u] for st, u in zip(own, use)])
-    table = _mode_table(rows, modes, p["det_modes"], p, scale, axis_names)
+    modes = np.concatenate([st.mode[u] for st, u in zip(own, use.use)])
+    table = _mode_table(held.rows, modes, p["det_modes"], p, data.scale, data.axis_names)
     for m in table:
         if m["windows"] < MIN_MODE_WINDOWS:
             warnings.append(f"mode {m['mode']} rests on {m['windows']} windows only (fewer than {MIN_MODE_WINDOWS})")
@@ -324,37 +405,42 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         "windows": held_windows, "alerts": held_alerts,
         "per_30_days": held_alerts * windows_30 / held_windows if held_windows else None}
     if held_windows and held_alerts and thr.get("expected_false_alerts_per_30_days") is not None and \
-            held_alerts * windows_30 / held_windows > 3 * max(false_alerts_per_month, thr["expected_false_alerts_per_30_days"]):
+            held_alerts * windows_30 / held_windows > 3 * max(target, thr["expected_false_alerts_per_30_days"]):
         warnings.append(f"held-out replay raised {held_alerts} alerts in {held_windows} windows, more than the tail fit expects "
                         "(correlated windows, or training data that is not all healthy)")
+    return table
 
-    n_windows = int(len(allf))
-    n_scored = int(sum(s.sum() for s in scored))
-    summary = {
+
+def _summary(data: _Data, p: dict, health: _Health, use: _Use, held: _Held, thr: dict[str, Any],
+             table: list[dict[str, Any]], target: float, warnings: list[str]) -> dict[str, Any]:
+    """The JSON-able training summary (what report_text prints)."""
+    window_s, scale = data.window_s, data.scale
+    alert, alarm = p["det_thr_alert_q8"], p["det_thr_alarm_q8"]
+    n_windows = int(len(data.allf))
+    n_scored = int(sum(s.sum() for s in use.scored))
+    return {
         "board": p["board"], "version": p["version"], "fs_hz": p["fs_hz"], "n": p["n"], "window_s": window_s,
-        "streams": len(streams), "recordings": sum(len(s) for s in streams), "machines": machines,
+        "streams": len(data.streams), "recordings": sum(len(s) for s in data.streams), "machines": data.machines,
         "windows": {"total": n_windows, "not_scored": n_windows - n_scored, "scored": n_scored,
-                    "iso_zone_c_or_d": n_zone_c, "used": n_use, "held_out_scores": int(len(held_scores))},
-        "hours": {"recorded": n_windows * window_s / 3600, "running_used": n_use * window_s / 3600},
-        "idle_floor": {"q16_counts_per_s": idle, "mm_s": units.velocity_mm_s(idle, scale), "rule": idle_rule},
-        "sensor": {"dc_lo_m_s2": [v / 256 * scale for v in dc_lo], "dc_hi_m_s2": [v / 256 * scale for v in dc_hi],
+                    "iso_zone_c_or_d": use.n_zone_c, "used": use.n_use, "held_out_scores": int(len(held.scores))},
+        "hours": {"recorded": n_windows * window_s / 3600, "running_used": use.n_use * window_s / 3600},
+        "idle_floor": {"q16_counts_per_s": health.idle, "mm_s": units.velocity_mm_s(health.idle, scale),
+                       "rule": health.idle_rule},
+        "sensor": {"dc_lo_m_s2": [v / 256 * scale for v in health.dc_lo], "dc_hi_m_s2": [v / 256 * scale for v in health.dc_hi],
                    "clip_max": 0, "flat_rms_m_s2": p["det_flat_rms_q8"] / 256 * scale,
                    "rule": f"observed window means widened by their own range each side, at least +-{DC_MARGIN_G} g, within +-7/8 full scale"},
         "modes": {"k": p["det_modes"], "criterion": MODE_CRITERION, "features": len(p["det_feat"]), "table": table},
         "thresholds": {
             "alert_q8": alert, "alarm_q8": alarm, "alert": alert / 256, "alarm": alarm / 256,
             "clear": (alert * p["det_hyst_q8"] >> 8) / 256, "units": "spreads of the nearest mode",
-            "persistence": f"{k_of} of {n_of} windows", "target_false_alerts_per_30_days": false_alerts_per_month,
+            "persistence": f"{p['det_k']} of {p['det_n']} windows", "target_false_alerts_per_30_days": target,
             "alarm_rule": f"the tail point for {ALARM_RATE_RATIO:g} times fewer false alarms than alerts, at least "
                           f"{p['det_learn_alarm_q8'] / 256:g} x the alert threshold",
-            "validation": f"{n_folds}-fold by recording (contiguous blocks in time order), held-out scores from the device detector",
-            "windows_per_30_days": windows_30, **thr},
+            "validation": f"{held.n_folds}-fold by recording (contiguous blocks in time order), held-out scores from the device detector",
+            "windows_per_30_days": data.windows_30, **thr},
         "warnings": warnings,
         "caution": "advisory condition monitoring, not machinery protection; an all-clear is no guarantee",
     }
-    bar.update(1)
-    bar.close()
-    return p, summary
 
 
 def report_text(summary: dict) -> str:

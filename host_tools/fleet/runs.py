@@ -98,7 +98,7 @@ def compare_fleet(client, fleet: Path, candidates: Path, out: Path, since: float
     its archive: out/<gateway>/compare/index.html, and out/compare.json; (JSON document, lines).
     Feature tasks are shared by the two sets when their features are the same."""
     from host_tools.data.analysis import profile_for_set
-    from host_tools.data.param_files import expected_rate, load_body
+    from host_tools.data.files import expected_rate, load_body
     from host_tools.fleet import engine, layout, work
     from host_tools.twin.compare import SetUnderTest
     from host_tools.twin.replay import TRACK_COLUMNS

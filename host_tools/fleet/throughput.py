@@ -22,7 +22,7 @@ def fleet_figures(pumps: int = 8, days: float = 2.0, interval_s: float = 10800.0
     from firmware_py.run import params as pm
     from host_tools.data import demo_fleet as dfl
     from host_tools.data.analysis import load_board
-    from host_tools.data.param_files import encode_set
+    from host_tools.data.files import encode_set
     from host_tools.data.recording import read_stream
     from host_tools.fit.training import train
     from host_tools.fleet import engine, layout, runs

@@ -34,7 +34,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from host_tools.data.analysis import BOARDS, load_board, profile_for_set, scale_of
-from host_tools.data.param_files import encode_set, load_body
+from host_tools.data.files import encode_set, load_body
 from host_tools.data.recording import atomic_write, open_recording, open_stream
 from host_tools.errors import EdgevibError
 from host_tools.fleet import layout

@@ -1,5 +1,8 @@
 """One method per device command (docs/protocol.md). Methods never touch bytes on the wire;
-multi-chunk transfers (parameter sets, events, raw windows) are reassembled here."""
+multi-chunk transfers (parameter sets, events, raw windows) are reassembled here.
+
+Entry points: Client.
+"""
 from __future__ import annotations
 
 import hmac

@@ -1,5 +1,5 @@
 """What the host commands share about a connected gateway: opening it by --port, the site key
-file, the committed parameter set and its counts scale, and raw windows as numpy frames."""
+file, the committed parameter set, and raw windows as numpy frames."""
 from __future__ import annotations
 
 import contextlib
@@ -9,16 +9,13 @@ import msgpack
 import numpy as np
 
 import firmware_py  # noqa: F401
-from firmware_py.dsp import feature_index as fi
 from firmware_py.store.paramstore import FLAG_SIGNED, MAGIC
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import Client
-from host_tools.data.units import STANDARD_GRAVITY_M_S2
 
 _SIG = 32          # HMAC-SHA256 bytes in a signed image (docs/protocol.md, "Image")
 _CRC = 4
 MIN_KEY_BYTES = 16
-FIELD_NAMES = ("mean", "rms", "peak", "crest", "kurt", "clip", "vel")   # feature_index order
 
 
 @contextlib.contextmanager
@@ -61,26 +58,8 @@ def committed_params(c: Client) -> dict:
     return image_body(c.param_read())
 
 
-def m_s2_per_count(params: dict) -> float:
-    """Acceleration of one count (m/s^2) from the set's counts_per_g (ISO 80000-3 gravity)."""
-    cpg = params.get("counts_per_g")
-    if not isinstance(cpg, int) or cpg <= 0:
-        raise LinkError("the gateway's parameter set has no counts_per_g (sensor scale)")
-    return STANDARD_GRAVITY_M_S2 / cpg
-
-
 def raw_frames(raw: bytes, n: int, axes: int) -> np.ndarray:
     """Raw window bytes (int16 little-endian counts, axis-major) as int16 frames x axes."""
     if len(raw) != 2 * n * axes:
         raise LinkError(f"raw window of {len(raw)} bytes, expected {2 * n * axes} ({n} x {axes} axes)")
     return np.frombuffer(raw, dtype="<i2").reshape(axes, n).T.astype(np.int16)
-
-
-def feature_name(index: int, per_axis: int, axis_names: tuple[str, ...] = ("x", "y", "z")) -> str:
-    """Readable name of a flat feature index (axis * per_axis + field), e.g. 'y vel', 'x band2'."""
-    if index < 0:
-        return "-"
-    a, f = divmod(index, per_axis)
-    axis = axis_names[a] if a < len(axis_names) else f"a{a}"
-    return f"{axis} {FIELD_NAMES[f] if f < fi.N_FIXED else 'band%d' % (f - fi.N_FIXED)}"
-

@@ -7,6 +7,8 @@ commands run.
 The build is made in a temporary folder and moved into place whole, so a failed compile leaves
 no half-built folder. Everything the board gets is checked on the host first: the profile with
 firmware_py.run.board, a parameter set with the store's own rules and the device's own builder.
+
+Entry points: Plan, board_profile(), parameter_image(), device_modules(), plan(), show(), build_files(), wait_for_port(), copy_to_board().
 """
 from __future__ import annotations
 

@@ -46,12 +46,11 @@ from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import iso_zones
 from firmware_py.detect.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSOR_FAULT, STATE_NAMES
 from host_tools.data import units
-from host_tools.check.commission import HANN_ENBW_BINS, line_names
+from host_tools.data.lines import HANN_ENBW_BINS, line_names
 from host_tools.errors import EdgevibError
 from host_tools.progress import progress_bar
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.data.recording import Recording, RecordingFile, open_recording
-from host_tools.twin.replay import feature_name as replay_feature_name
 
 MAX_SPECTRA = 16          # spectrum plots per report; the events table still lists every event
 SPECTRUM_WINDOWS = 8      # running windows averaged before the event
@@ -256,7 +255,7 @@ def _feature_text(feat: Any, p: dict, axes: Sequence[str]) -> str:
     """An event's feature: the replay gives a name; a flat index is named as the replay names it."""
     if feat is None or (not isinstance(feat, str) and int(feat) < 0):
         return "-"
-    return feat if isinstance(feat, str) else replay_feature_name(int(feat), p, axes)
+    return feat if isinstance(feat, str) else units.feature_name(int(feat), p, axes)
 
 
 # --- plots ----------------------------------------------------------------------------------------

@@ -8,6 +8,8 @@ elementwise stages exactly and int64 the sums and the wider exact divisions.
 
 Windows are consecutive, non-overlapping runs of n samples from the start of the recording, as
 the device's ring delivers them.
+
+Entry points: TwinConfig, FeatureTwin.
 """
 from __future__ import annotations
 
@@ -48,14 +50,14 @@ class FeatureTwin:
         cos_t, sin_t = tables.twiddles(n)           # the device's own tables, built the same way
         self.cos = np.array(cos_t, dtype=np.int32)
         self.sin = np.array(sin_t, dtype=np.int32)
-        self.hann = np.array(tables.hann(n, cos_t), dtype=np.int32)
+        self.hann_q15 = np.array(tables.hann(n, cos_t), dtype=np.int32)
         self.pos = np.array(tables.bitrev_positions(n), dtype=np.intp)
-        self.log2_t = np.array(tables.log2_table(), dtype=np.int64)
+        self.log2_q15 = np.array(tables.log2_table(), dtype=np.int64)
         vm, vs, self.vel_exp = tables.velocity_weights(n, cfg.fs_hz, cfg.vel_lo_hz, cfg.vel_hi_hz)
         self.vmant = np.array(vm, dtype=np.int32)
         self.vsh2 = np.array(vs, dtype=np.int32)
         self.stages = self._stage_twiddles(fft.radix4_twiddles(self.m, cos_t, sin_t))
-        self.log2_4_3 = 512 - log2_q8(3, tables.log2_table())
+        self.log2_4_3_q8 = 512 - log2_q8(3, tables.log2_table())
         self.per = per_axis(len(cfg.bands))
 
     # --- set-up -------------------------------------------------------------------------------
@@ -126,7 +128,7 @@ class FeatureTwin:
         r = (yy + 8192) >> 14
         s4 = ((r * r) >> L).sum(axis=1, dtype=np.int64)
         buf = np.empty_like(y)
-        buf[:, self.pos] = (y * self.hann) >> 15
+        buf[:, self.pos] = (y * self.hann_q15) >> 15
         re, im = self._cfft(buf[:, 0::2].copy(), buf[:, 1::2].copy())
         p, vs = self._spectrum(re, im)
         self._finish(f, pk, u, g.astype(np.int64), sh.astype(np.int64), sq, s4, vs, p)
@@ -211,10 +213,10 @@ class FeatureTwin:
         f[:, F_CREST] = ((pk * g) >> sh << 20) // np.maximum(rms_y_q8, 1)
         f[:, F_KURT] = (((s4 << 21) // sq1) << 21) // sq1
         f[:, F_VEL] = _sqrt_pow2(vs, 62 - 2 * self.vel_exp - 2 * u)
-        c = self.log2_4_3 - 512 * u
+        c = self.log2_4_3_q8 - 512 * u
         for b, (lo, hi) in enumerate(self.cfg.bands):
             ps = p[:, lo:hi].sum(axis=1, dtype=np.int64)
-            f[:, F_BAND0 + b] = np.where(ps > 0, _log2_q8(np.maximum(ps, 1), self.log2_t) + c,
+            f[:, F_BAND0 + b] = np.where(ps > 0, _log2_q8(np.maximum(ps, 1), self.log2_q15) + c,
                                          LOG2_ZERO_Q8)
 
 

@@ -4,6 +4,8 @@ In the guest, ``emit(v)`` sends a JSON value back and ``locked(fn)`` calls ``fn(
 locked, reporting whether it tried to allocate. The guest sees a read-only copy of ``firmware_py``
 at ``/input`` and can ``import firmware_py.x``. Its fuel (wasmtime instruction budget) is
 deterministic, so it serves as a cost count.
+
+Entry points: GuestError, GuestResult, run_guest().
 """
 from __future__ import annotations
 

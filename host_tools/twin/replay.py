@@ -5,6 +5,16 @@ is then stepped through the device's own Detector, one window at a time, exactly
 does. Nothing here re-implements a detector rule: states, scores, modes and events are the
 device's.
 
+Entry points. replay(streams, params, profile, jobs, ...) -> ReplayResult for one or more streams;
+StreamReplay(source, params, profile, name).chunks(jobs) for one stream, a ReplayChunk at a time
+(its events, its per-window columns), with sr.events and sr.summary() at the end: the form for
+callers that must not hold a recording's windows (memory stays one chunk per job, whatever the
+length). Chunks are CHUNK_WINDOWS whole windows of one gap-free segment, read from the files as
+they are needed (host_tools.data.recording.RecordingFile.read_counts); jobs > 1 computes the
+features of that many chunks at once in worker processes while this process steps the detector
+in order, so the result is the same as one pass for any jobs and chunk size (tests prove it).
+replay_stream(recs, ...) keeps every column of one stream; windows_csv / csv_rows write them.
+
 Streams. The recordings of one gateway form one stream, in t0_s order, with one Detector whose
 state carries from one recording to the next (a latched alarm stays latched, an alert stays
 raised until it clears, the persistence evidence and any start-up hold-off carry over).
@@ -28,6 +38,8 @@ no guarantee that the machine is healthy.
 """
 from __future__ import annotations
 
+import csv
+import io
 import math
 import os
 from collections import deque
@@ -44,15 +56,13 @@ from firmware_py.dsp import feature_index as fi
 from firmware_py.run import params as pm
 from firmware_py.detect.detector import Detector
 from firmware_py.detect.iso_zones import ZONE_NAMES, zone_of
-from host_tools.data import units
+from host_tools.data.units import band_hz, feature_name, m_s2_per_count
 from host_tools.errors import EdgevibError
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.data.recording import Recording, RecordingFile, open_stream
 from host_tools.progress import progress_bar
 
 CHUNK_WINDOWS = 512   # windows per chunk: the feature twin's temporaries stay in cache (measured fastest)
-_FIELD_NAMES = {fi.F_MEAN: "mean", fi.F_RMS: "accel_rms", fi.F_PEAK: "peak", fi.F_CREST: "crest",
-                fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms"}
 
 
 # --- set-up from a parameter set ----------------------------------------------------------------
@@ -64,29 +74,6 @@ def twin_for(params: dict, profile: dict) -> FeatureTwin:
                      tuple((b[0], b[1]) for b in params["fc_bands"]),
                      params["fc_vel_hz"][0], params["fc_vel_hz"][1])
     return FeatureTwin(cfg, params["axes"])
-
-
-def m_s2_per_count(params: dict) -> float:
-    """Counts scale (m/s^2 per count) of the sensor the set was trained for."""
-    return units.STANDARD_GRAVITY_M_S2 / params["counts_per_g"]
-
-
-def band_hz(params: dict, b: int) -> tuple[float, float]:
-    """Edges (Hz) of band b of the set: bins [lo, hi) of an n-point spectrum at fs_hz."""
-    lo, hi = params["fc_bands"][b]
-    df = params["fs_hz"] / params["n"]
-    return lo * df, hi * df
-
-
-def feature_name(flat: int, params: dict, axis_names: Sequence[str]) -> str:
-    """Readable name of flat feature index `flat`, e.g. "velocity_rms axis z", "band 50-100 Hz axis x"."""
-    pa = fi.per_axis(len(params["fc_bands"]))
-    a, f = divmod(flat, pa)
-    axis = axis_names[a] if a < len(axis_names) else str(a)
-    if f >= fi.F_BAND0:
-        lo, hi = band_hz(params, f - fi.F_BAND0)
-        return f"band {lo:g}-{hi:g} Hz axis {axis}"
-    return f"{_FIELD_NAMES[f]} axis {axis}"
 
 
 def check_recordings(recs: Sequence[Recording], params: dict) -> None:
@@ -230,7 +217,7 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     """Step `det` over the rows of feats (windows, features), window w given the clock first_w + w.
 
     The loop is the detector's own code; it only reads the results and drains the event ring.
-    Reading det.score when det.mode is -1 gives 0, as the device reports it.
+    Reading det.score_q8 when det.mode is -1 gives 0, as the device reports it.
     """
     rows = feats.tolist()
     st: list[int] = []
@@ -242,13 +229,13 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     put_s, put_c, put_m, put_f = st.append, sc.append, md.append, ft.append
     for w, row in enumerate(rows, first_w):
         put_s(step(row, w, 0))
-        put_c(det.score)
+        put_c(det.score_q8)
         put_m(det.mode)
         put_f(det.feat)
         while ring.count:
             k = ring.pop()
             ev.append((ring.t[k], ring.old[k], ring.new[k], ring.reason[k], ring.mode[k],
-                       ring.feat[k], ring.score[k]))
+                       ring.feat[k], ring.score_q8[k]))
     return Steps(np.array(st, np.int8), np.array(sc, np.int32), np.array(md, np.int8),
                  np.array(ft, np.int16), ev, ring.lost)
 
@@ -458,6 +445,17 @@ def stream_name(source: Any) -> str:
     return f"{p.parent.name}/{base}" if p.parent.name else base
 
 
+def replay_stream(recs: Sequence[Any], params: dict, profile: dict, name: str = "stream") -> dict[str, Any]:
+    """Replay one stream with a fresh Detector, keeping every per-window column.
+
+    Returns {"name", "events", "windows", "summary", "recordings"} (the parts of a ReplayResult)."""
+    sr = StreamReplay(recs, params, profile, name)
+    parts = [ch.columns() for ch in sr.chunks()]
+    windows = {k: np.concatenate([c[k] for c in parts]) for k in parts[0]}
+    return {"name": name, "events": sr.events, "windows": windows, "recordings": sr.paths,
+            "summary": sr.summary()}
+
+
 def stream_names(streams: Sequence[Any]) -> list[str]:
     """Distinct names of streams (stream_name, with #2, #3, ... for repeats)."""
     return _unique([stream_name(s) for s in streams])
@@ -465,7 +463,8 @@ def stream_names(streams: Sequence[Any]) -> list[str]:
 
 def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, progress: bool = False,
            names: Sequence[str] | None = None, keep_windows: bool = True,
-           on_chunk: Callable[[int, ReplayChunk], None] | None = None) -> ReplayResult:
+           on_chunk: Callable[[int, ReplayChunk], None] | None = None,
+           chunk_windows: int = CHUNK_WINDOWS) -> ReplayResult:
     """Replay every stream with the device detector; see the module docstring.
 
     streams: each a source as StreamReplay takes it. The streams replay one after another; jobs > 1
@@ -473,7 +472,7 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     stream uses every core. progress: a bar or progress lines by windows (host_tools.progress).
     keep_windows: keep every per-window column (False: only TRACK_COLUMNS, about 30 bytes a window,
     for plots). on_chunk(stream index, chunk) is called with every chunk in order, e.g. to write
-    rows out as they come.
+    rows out as they come. chunk_windows: windows per chunk (the results do not depend on it).
     """
     if not streams:
         raise EdgevibError("no recordings to replay")
@@ -487,7 +486,7 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     with progress_bar(sum(r.n_windows for r in runs), "windows", "replay", enabled=progress) as bar:
         for i, r in enumerate(runs):
             cols: dict[str, list[np.ndarray]] = {}
-            for ch in r.chunks(jobs=jobs):
+            for ch in r.chunks(jobs=jobs, chunk_windows=chunk_windows):
                 got = ch.columns(None if keep_windows else TRACK_COLUMNS)
                 for k, v in got.items():
                     cols.setdefault(k, []).append(v)
@@ -547,3 +546,29 @@ def default_jobs() -> int:
         return len(os.sched_getaffinity(0))
     except AttributeError:
         return os.cpu_count() or 1
+
+
+def csv_header(cols: dict[str, np.ndarray]) -> str:
+    """The header row of a windows CSV: stream, then the columns' names."""
+    return ",".join(["stream", *cols]) + "\n"
+
+
+def csv_rows(stream: str, cols: dict[str, np.ndarray]) -> str:
+    """CSV rows (no header) of per-window columns of one stream, stream name first."""
+    buf = io.StringIO()
+    out = csv.writer(buf, lineterminator="\n")
+    fmt = ["{}"] + ["{:.3f}" if k == "t_s" else "{:.6g}" for k in cols]   # t_s: ms on a Unix clock
+    data = [[stream] * len(cols["t_s"])] + [v.tolist() for v in cols.values()]
+    for row in zip(*data):
+        out.writerow([f.format(v) if isinstance(v, float) else v for f, v in zip(fmt, row)])
+    return buf.getvalue()
+
+
+def windows_csv(result: ReplayResult) -> str:
+    """One row per window: stream (name), then every per-window column of the result."""
+    cols = {k: v for k, v in result.windows.items() if k != "stream"}
+    parts = [csv_header(cols)]
+    for i, name in enumerate(result.streams):
+        mine = result.windows["stream"] == i
+        parts.append(csv_rows(name, {k: v[mine] for k, v in cols.items()}))
+    return "".join(parts)

@@ -24,6 +24,8 @@ as against a board.
   stream's window indices show the loss.
 
 Run it in a thread for tests (start() / stop()), or in the foreground with run().
+
+Entry points: load_profile(), VirtualGateway.
 """
 from __future__ import annotations
 

@@ -1,9 +1,9 @@
-"""Parameter set files and board profiles on the host: read, check, encode.
+"""Files the commands read and write: parameter-set bodies, board profiles, and output paths.
 
-Entry points: load_body(path) reads a PARAMS.msgpack body, encode_set(params, profile) turns a set
-into the body bytes a gateway's store takes (refusing one that would not fit or not decode),
-expected_rate(path) reads the expected false-alert rate from the training summary beside a set.
-Used by the train, replay and flash commands and by the fleet tools.
+Entry points: load_body(path) -> (bytes, map), encode_set(params, profile) -> the body bytes a
+gateway's store takes, expected_rate(path) -> the expected false alerts per 30 days from the
+training summary beside a set, load_board(path) -> profile, check_outputs(paths, sources) refuses
+outputs that would overwrite an input; DEFAULT_BOARD.
 """
 from __future__ import annotations
 
@@ -13,19 +13,22 @@ from pathlib import Path
 
 import msgpack
 
-import firmware_py  # noqa: F401  (installs the micropython stand-in)
+import firmware_py  # noqa: F401  (installs the micropython stand-in the device modules import)
 from firmware_py.codec import mpack
+from firmware_py.run import board
 from firmware_py.run import params as pm
+from host_tools.data.recording import sidecar_path
 from host_tools.errors import EdgevibError
 
-_REQUIRED = ("version", "board", "fs_hz", "n", "axes")
+DEFAULT_BOARD = Path(__file__).resolve().parents[2] / "boards" / "desk.json"
+_REQUIRED = ("version", "board", "fs_hz", "n", "axes")   # keys every parameter-set body holds
 # The gateway's parameter store holds images up to 8192 bytes (firmware_py.store.paramstore, cap);
 # an image is the body plus 5 bytes of head, 32 of signature and 4 of CRC.
 _STORE_CAP = 8192
 _IMAGE_EXTRA = 5 + 32 + 4
 
 
-def load_body(path: str | os.PathLike) -> tuple[bytes, dict]:
+def load_body(path: str) -> tuple[bytes, dict]:
     """The file's bytes and the map they decode to; EdgevibError unless a usable set body."""
     try:
         with open(path, "rb") as f:
@@ -68,3 +71,24 @@ def expected_rate(path: str | os.PathLike) -> float | None:
     except (OSError, ValueError, KeyError, TypeError):
         return None
     return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else None
+
+
+def load_board(path: str | Path | None) -> dict:
+    """The board profile at path (default DEFAULT_BOARD); EdgevibError with the reason if unusable."""
+    try:
+        return board.load(str(path or DEFAULT_BOARD))
+    except board.BoardError as e:
+        raise EdgevibError(f"board profile {e}") from None
+
+
+def check_outputs(paths: list[Path], sources: list[Path]) -> None:
+    """Refuse outputs that would overwrite an input (recording or sidecar) or have no folder."""
+    inputs: set[Path] = set()
+    for s in sources:
+        files = [q for q in s.iterdir()] if s.is_dir() else [s, sidecar_path(s)]
+        inputs.update(q.resolve() for q in files)
+    for o in paths:
+        if o.resolve() in inputs:
+            raise EdgevibError(f"{o}: would overwrite an input; choose another name")
+        if not o.parent.is_dir():
+            raise EdgevibError(f"{o}: folder {o.parent} does not exist")
