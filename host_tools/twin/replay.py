@@ -552,7 +552,10 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     """
     if not streams:
         raise EdgevibError("no recordings to replay")
-    pm.build(params, profile)  # refuse a set that the device could not build, before any work
+    try:
+        pm.build(params, profile)  # refuse a set that the device could not build, before any work
+    except ValueError as e:
+        raise EdgevibError(f"the parameter set cannot be built for board {profile['name']}: {e}") from None
     names = list(names) if names is not None else stream_names(streams)
     runs = [StreamReplay(s, params, profile, names[i]) for i, s in enumerate(streams)]
     keys = None
