@@ -733,7 +733,7 @@ def mega(cell):
     ("pico_adxl345", PICO, "yes"),
     ("esp32s3_iis3dwb", ESP32S3, "yes"),
     ("pico-3-axes-every-window", dict(PICO, axes=3, analyse_every=1), "no"),
-    ("pico-every-window", dict(PICO, analyse_every=1), "tight"),
+    ("pico-every-window", dict(PICO, analyse_every=1), "depends"),
     ("esp32s3-every-window", dict(ESP32S3, analyse_every=1), "no"),
     ("esp32s3-1-in-6", dict(ESP32S3, analyse_every=6), "tight"),
 ], ids=lambda v: v if isinstance(v, str) and v not in VERDICTS else "")

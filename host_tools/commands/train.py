@@ -17,7 +17,7 @@ import firmware_py  # noqa: F401
 from host_tools.errors import EdgevibError
 from host_tools.data.analysis import desk_profile, scale_of
 from host_tools.data.files import check_outputs, encode_set, load_board
-from host_tools.data.recording import atomic_write, open_stream
+from host_tools.data.recording import atomic_write, open_stream, read_stream
 from host_tools.progress import note
 from host_tools.twin.replay import default_jobs, group_sources
 from host_tools.fit.training import report_text, train
@@ -60,7 +60,7 @@ def run(args: argparse.Namespace) -> int:
     else:   # analysis settings from the recordings themselves (host_tools.data.analysis)
         profile = desk_profile([r for g in groups for r in open_stream(g)])
     scale = scale_of(profile)
-    streams = [open_stream(g, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale) for g in groups]
+    streams = [read_stream(g, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale) for g in groups]
     note(f"train: {sum(len(s) for s in streams)} recordings, {profile['sample_rate_hz']} Hz, windows of "
          f"{profile['window_n']} samples, {profile['axes']} axes (board {profile['name']})")
     params, summary = train(streams, profile, args.false_alerts_per_month, seed=args.seed, version=args.version,

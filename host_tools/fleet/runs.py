@@ -234,4 +234,4 @@ def _row_line(r: dict) -> str:
     head = f"{SEVERITIES[r['severity']]:<10} {r['gateway']}"
     if r.get("error"):
         return f"{head}: ERROR {r['error']}"
-    return f"{head}: {r['pump']} ({r['site']}) {r['state_now']} now; " + ("; ".join(r["reasons"]) or "nothing to note")
+    return f"{head}: {r['pump']} ({r['site']}): " + ("; ".join(r["reasons"]) or f"{r['state_now']} now, nothing to note")

@@ -136,7 +136,8 @@ def _chunk_tasks(recs: Sequence[Any], profile: dict, chunk_windows: int) -> tupl
     paths = [str(r.path) for r in recs]
     tasks: list[ChunkTask] = []
     size = chunk_windows
-    for pl in plan_chunks(recs, profile["window_n"], float(profile["sample_rate_hz"]), chunk_windows):
+    for pl in plan_chunks(recs, profile["window_n"], float(profile["sample_rate_hz"]), chunk_windows,
+                          int(profile["analyse_every"])):
         if size >= chunk_windows:
             tasks.append(ChunkTask([]))
             size = 0

@@ -44,7 +44,7 @@ import numpy as np
 import firmware_py  # noqa: F401  (installs the micropython stand-in the device modules import)
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import iso_zones
-from firmware_py.detect.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSOR_FAULT, STATE_NAMES
+from firmware_py.detect.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSOR_FAULT, STATE_NAMES, UNSCORED, windows_for
 from host_tools.data import units
 from host_tools.data.lines import HANN_ENBW_BINS, line_names
 from host_tools.errors import EdgevibError
@@ -68,8 +68,9 @@ STATE_COLOURS = {
     IDLE: "#cfd5dc",          # pale slate
     SENSOR_FAULT: "#7356a3",  # violet
     LEARNING: "#4f88b4",      # steel blue
+    UNSCORED: "#a7b89a",      # lichen: running, health not judged (an operating point never learned)
 }
-_DRAW_ORDER = (IDLE, NORMAL, LEARNING, ALERT, SENSOR_FAULT, ALARM)   # later is drawn on top
+_DRAW_ORDER = (IDLE, NORMAL, UNSCORED, LEARNING, ALERT, SENSOR_FAULT, ALARM)   # later is drawn on top
 FAULT_COLOURS = {"bearing_outer_race": "#c7662f", "cavitation": "#2f86c7", "loose_cable": "#8a4fb0"}
 _RAISES = (ALERT, ALARM, SENSOR_FAULT)
 # Which new state counts as having seen each seeded fault of the demo scenario.
@@ -480,9 +481,15 @@ class _WindowSamples:
         return np.array(out)
 
 
+def at_windows(p: dict) -> int:
+    """Windows shown at an event: the persistence span in windows (one window analysed in each),
+    at most SPECTRUM_WINDOWS."""
+    return min(windows_for(int(p["det_persist_ms"]), int(p["n"]), int(p["fs_hz"]), 1), SPECTRUM_WINDOWS)
+
+
 def event_windows(ev: dict, w: Windows, p: dict) -> tuple[list[float], list[float]]:
-    """End times of the windows at the event (the persistence window: det_n windows ending at
-    the event's, within one snapshot) and before it: the SPECTRUM_WINDOWS latest healthy windows
+    """End times of the windows at the event (the persistence span, at most SPECTRUM_WINDOWS of
+    its windows ending at the event's, within one snapshot) and before it: the SPECTRUM_WINDOWS latest healthy windows
     (state normal) of the event's operating mode, from any earlier recording. Windows of the
     event's own run of recordings come only when no earlier one has any (a snapshot taken as the
     fault grows looks like the event itself); windows of another mode only when its own has none."""
@@ -491,7 +498,7 @@ def event_windows(ev: dict, w: Windows, p: dict) -> tuple[list[float], list[floa
     joined = np.flatnonzero(np.diff(w.t_s[:i + 1]) >= 1.5 * window_s)
     run_start = int(joined[-1]) + 1 if len(joined) else 0          # first window of the event's run
     at = [i]
-    while len(at) < int(p.get("det_n", 5)) and at[0] > run_start:
+    while len(at) < at_windows(p) and at[0] > run_start:
         at.insert(0, at[0] - 1)
     healthy = np.flatnonzero(w.state[:at[0]] == NORMAL)
     mode = ev.get("mode")
@@ -750,7 +757,8 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
     parts += ["<h2>Score</h2>",
               "<p>Each point is one evaluated window (idle, held-off and sensor-fault windows are not scored). "
               "The band above shows the state; an alert needs the score over its threshold on "
-              f'{p.get("det_k", "k")} of the last {p.get("det_n", "n")} windows.</p>',
+              f'{int(p.get("det_persist_q8", 205)) * 100 // 256} % of the windows of the last '
+              f'{int(p.get("det_persist_ms", 20000)) / 1000:g} s of running.</p>',
               '<img src="score.png" alt="score over time with thresholds">',
               "<p>An alarm stays latched until it is acknowledged on the gateway; a replay acknowledges nothing, "
               "so once raised it stays to the end.</p>",

@@ -7,7 +7,7 @@ with host_tools.twin.replay (streaming, bounded memory: only the score track is 
 
 Matching. A raising event (into alert, alarm or sensor_fault) of one set is matched with one of
 the other set in the same stream, into the same state, whose time differs by at most the longer
-persistence span of the two sets (det_n windows of n / fs_hz seconds): within that span the two
+persistence span of the two sets (det_persist_ms): within that span the two
 detectors are looking at the same evidence, so the raise is the same finding. Raises are paired
 in time order, each at most once; the rest are "only in" their set.
 
@@ -73,8 +73,8 @@ class Comparison:
 
 
 def persistence_s(params: dict) -> float:
-    """The set's persistence span: det_n windows of n / fs_hz seconds."""
-    return int(params.get("det_n", 1)) * params["n"] / float(params["fs_hz"])
+    """The set's persistence span, seconds (det_persist_ms), at least one window."""
+    return max(int(params["det_persist_ms"]) / 1000.0, params["n"] / float(params["fs_hz"]))
 
 
 def match_raises(a: Sequence[dict], b: Sequence[dict], tolerance_s: float) -> tuple[list[tuple[dict, dict]], list[dict], list[dict]]:

@@ -54,7 +54,7 @@ import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.detect import alarm as al
 from firmware_py.dsp import feature_index as fi
 from firmware_py.run import params as pm
-from firmware_py.detect.detector import Detector
+from firmware_py.detect.detector import Detector, WHY_NAMES
 from firmware_py.detect.iso_zones import ZONE_NAMES, zone_of
 from host_tools.data.units import band_hz, feature_name, m_s2_per_count
 from host_tools.errors import EdgevibError
@@ -70,9 +70,11 @@ CHUNK_WINDOWS = 512   # windows per chunk: the feature twin's temporaries stay i
 def twin_for(params: dict, profile: dict) -> FeatureTwin:
     """The numpy twin of the feature core that parameter set `params` builds on board `profile`."""
     s = profile["sensor"]
+    o = pm.feature_options(params)
     cfg = TwinConfig(params["n"], params["fs_hz"], s["adc_min"], s["adc_max"],
                      tuple((b[0], b[1]) for b in params["fc_bands"]),
-                     params["fc_vel_hz"][0], params["fc_vel_hz"][1])
+                     params["fc_vel_hz"][0], params["fc_vel_hz"][1], o["speed_lo_q8"],
+                     o["speed_hi_q8"], o["vane"], o["env_band"], o["bear_q12"])
     return FeatureTwin(cfg, params["axes"])
 
 
@@ -104,7 +106,8 @@ class StreamFeatures:
 @dataclass
 class ChunkPlan:
     """One chunk of a stream: windows first_w.. (index in the stream), their end times t_s and
-    owning recordings rec, and the samples to read as (recording index, start, stop) pieces."""
+    owning recordings rec, and the samples to read as (recording index, start, stop) pieces,
+    whose frames joined in order are the chunk's windows."""
 
     first_w: int
     t_s: np.ndarray
@@ -112,12 +115,17 @@ class ChunkPlan:
     pieces: list[tuple[int, int, int]]
 
 
-def plan_chunks(recs: Sequence[Any], n: int, fs: float, chunk_windows: int = CHUNK_WINDOWS) -> list[ChunkPlan]:
-    """Cut a stream (Recording or RecordingFile, in time order) into chunks of whole windows.
+def plan_chunks(recs: Sequence[Any], n: int, fs: float, chunk_windows: int = CHUNK_WINDOWS,
+                every: int = 1) -> list[ChunkPlan]:
+    """Cut a stream (Recording or RecordingFile, in time order) into chunks of analysed windows.
 
     Gap-free recordings form one segment, read as one run of samples; a chunk never spans two
-    segments, and every chunk holds chunk_windows windows except the last of each segment. The
-    plan holds no samples: its size is a few numbers per window."""
+    segments, and every chunk holds chunk_windows windows except the last of each segment.
+    every: the board's analyse_every. The gateway analyses the first window of every cycle of
+    `every` windows and discards the others (firmware_py/run/gateway.py, feed), counting cycles
+    from the first frame it is fed; a segment is fed from its first frame, so its windows 0,
+    every, 2 every, ... are the ones analysed, each keeping its own end time. The plan holds no
+    samples: its size is a few numbers per window."""
     if not recs:
         raise EdgevibError("no recordings to replay")
     plans: list[ChunkPlan] = []
@@ -131,16 +139,16 @@ def plan_chunks(recs: Sequence[Any], n: int, fs: float, chunk_windows: int = CHU
             ends.append(ends[-1] + recs[j].n_frames)
             j += 1
         starts = [0] + ends[:-1]
-        w = ends[-1] // n
-        for c in range(0, w, chunk_windows):
-            k = min(chunk_windows, w - c)
-            w_end = (np.arange(c, c + k) + 1) * n
-            lo, hi = c * n, (c + k) * n
+        kept = np.arange(0, ends[-1] // n, every)
+        for c in range(0, len(kept), chunk_windows):
+            wins = kept[c:c + chunk_windows]
+            w_end = (wins + 1) * n
+            spans = [(wins[0] * n, w_end[-1])] if every == 1 else [(a * n, (a + 1) * n) for a in wins.tolist()]
             pieces = [(i + r, max(lo, starts[r]) - starts[r], min(hi, ends[r]) - starts[r])
-                      for r in range(len(ends)) if starts[r] < hi and ends[r] > lo]
+                      for lo, hi in spans for r in range(len(ends)) if starts[r] < hi and ends[r] > lo]
             plans.append(ChunkPlan(w0, t0 + w_end / fs, i + np.searchsorted(np.asarray(ends), w_end, side="left"),
                                    pieces))
-            w0 += k
+            w0 += len(wins)
         i = j
     if not plans:
         raise EdgevibError(f"{recs[0].path}: the stream is shorter than one window of {n} samples")
@@ -154,13 +162,13 @@ def read_chunk(recs: Sequence[Any], plan: ChunkPlan) -> np.ndarray:
 
 
 def feature_chunks(recs: Sequence[Any], twin: FeatureTwin, jobs: int = 1,
-                   chunk_windows: int = CHUNK_WINDOWS) -> Iterator[StreamFeatures]:
+                   chunk_windows: int = CHUNK_WINDOWS, every: int = 1) -> Iterator[StreamFeatures]:
     """Features of a stream chunk by chunk, in stream order.
 
     jobs > 1: the chunks' features are computed in that many worker processes, at most 2 * jobs
     chunks in flight (memory stays bounded), and handed back in order. Each window depends only
     on its own samples, so the result is the same for every jobs and chunk_windows."""
-    plans = plan_chunks(recs, twin.n, float(twin.cfg.fs_hz), chunk_windows)
+    plans = plan_chunks(recs, twin.n, float(twin.cfg.fs_hz), chunk_windows, every)
     if jobs <= 1:
         for pl in plans:
             yield StreamFeatures(twin.features(read_chunk(recs, pl)), pl.t_s, pl.rec)
@@ -190,10 +198,10 @@ def _worker_features(counts: np.ndarray) -> np.ndarray:
     return _TWIN.features(counts)
 
 
-def stream_features(recs: Sequence[Any], twin: FeatureTwin) -> StreamFeatures:
-    """Features of every window of a stream at once (feature_chunks, joined): for training and
-    tests, which need them all."""
-    parts = list(feature_chunks(recs, twin))
+def stream_features(recs: Sequence[Any], twin: FeatureTwin, every: int = 1) -> StreamFeatures:
+    """Features of every analysed window of a stream at once (feature_chunks, joined): for
+    training and tests, which need them all. every: the board's analyse_every (plan_chunks)."""
+    parts = list(feature_chunks(recs, twin, every=every))
     return StreamFeatures(np.concatenate([p.feats for p in parts]), np.concatenate([p.t_s for p in parts]),
                           np.concatenate([p.rec for p in parts]))
 
@@ -203,7 +211,10 @@ def stream_features(recs: Sequence[Any], twin: FeatureTwin) -> StreamFeatures:
 @dataclass
 class Steps:
     """What the detector did per window (index w = its clock), and its events as raw ints:
-    (w, old, new, reason, mode, feat, score_q8)."""
+    (w, old, new, reason, mode, feat, score_q8). why: firmware_py.detect.detector W_* (0 scored);
+    pushed: 1 where the window added to the persistence evidence; resets: the detector's count of
+    evidence resets after the window (a change marks a new evidence sequence); speed_q8: the
+    operating-point speed (Hz Q8, 0 none)."""
 
     state: np.ndarray
     score_q8: np.ndarray
@@ -211,6 +222,10 @@ class Steps:
     feat: np.ndarray
     events: list[tuple[int, int, int, int, int, int, int]]
     lost: int
+    why: np.ndarray
+    pushed: np.ndarray
+    resets: np.ndarray
+    speed_q8: np.ndarray
 
 
 def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
@@ -220,24 +235,45 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     Reading det.score_q8 when det.mode is -1 gives 0, as the device reports it.
     """
     rows = feats.tolist()
-    st: list[int] = []
-    sc: list[int] = []
-    md: list[int] = []
-    ft: list[int] = []
+    n = len(rows)
+    st = np.empty(n, np.int8)
+    sc = np.empty(n, np.int32)
+    md = np.empty(n, np.int8)
+    ft = np.empty(n, np.int16)
+    wy = np.empty(n, np.int8)
+    pu = np.empty(n, np.int8)
+    rs = np.empty(n, np.int32)
+    sp = np.empty(n, np.int32)
     ev: list[tuple[int, int, int, int, int, int, int]] = []
     step, ring = det.step, det.events
-    put_s, put_c, put_m, put_f = st.append, sc.append, md.append, ft.append
-    for w, row in enumerate(rows, first_w):
-        put_s(step(row, w, 0))
-        put_c(det.score_q8)
-        put_m(det.mode)
-        put_f(det.feat)
+    for i, row in enumerate(rows):
+        st[i] = step(row, first_w + i, 0)
+        sc[i] = det.score_q8
+        md[i] = det.mode
+        ft[i] = det.feat
+        wy[i] = det.why
+        pu[i] = det.pushed
+        rs[i] = det.resets
+        sp[i] = det.speed_q8
         while ring.count:
             k = ring.pop()
             ev.append((ring.t[k], ring.old[k], ring.new[k], ring.reason[k], ring.mode[k],
                        ring.feat[k], ring.score_q8[k]))
-    return Steps(np.array(st, np.int8), np.array(sc, np.int32), np.array(md, np.int8),
-                 np.array(ft, np.int16), ev, ring.lost)
+    return Steps(st, sc, md, ft, ev, ring.lost, wy, pu, rs, sp)
+
+
+def evidence_sequences(steps: Steps, select: np.ndarray | None = None) -> list[np.ndarray]:
+    """The combined scores (Q8) of the windows that entered the persistence evidence, cut where
+    the detector forgot it (a stop, a sensor fault): each piece is what the device's span saw in
+    one go. select: a boolean mask of windows to keep (others cut the sequence too)."""
+    keep = steps.pushed.astype(bool)
+    if select is not None:
+        keep &= select
+    idx = np.flatnonzero(keep)
+    if len(idx) == 0:
+        return []
+    cut = np.flatnonzero((np.diff(idx) > 1) | (np.diff(steps.resets[idx]) != 0)) + 1
+    return [steps.score_q8[g].astype(np.float64) for g in np.split(idx, cut)]
 
 
 # --- physical features --------------------------------------------------------------------------
@@ -333,6 +369,10 @@ class ReplayChunk:
         out = {k: f() for k, f in cols.items() if names is None or k in names}
         phys = physical_columns(sf.feats, sr.params, sr.m_s2_per_count, sr.axis_names)
         out.update((k, v) for k, v in phys.items() if names is None or k in names)
+        if names is None or "not_scored" in names:
+            out["not_scored"] = np.array(WHY_NAMES, dtype=object)[st.why]
+        if names is None or "speed_hz" in names:
+            out["speed_hz"] = st.speed_q8 / 256.0
         return out
 
 
@@ -360,9 +400,11 @@ class StreamReplay:
         self.params = params
         self.name = name if name is not None else stream_name(source)
         self.twin = twin_for(params, profile)
-        self.window_s = params["n"] / params["fs_hz"]
-        self.n_windows = sum(len(p.t_s) for p in plan_chunks(recs, params["n"], float(params["fs_hz"])))
-        self.detector = Detector(params)
+        self.every = int(profile["analyse_every"])
+        self.window_s = params["n"] * self.every / params["fs_hz"]     # time each analysed window stands for
+        self.n_windows = sum(len(p.t_s) for p in plan_chunks(recs, params["n"], float(params["fs_hz"]),
+                                                             every=self.every))
+        self.detector = Detector(params, self.every)
         self.events: list[dict[str, Any]] = []
         self.paths = [str(r.path) for r in recs]
         self.axis_names = recs[0].axes
@@ -370,6 +412,8 @@ class StreamReplay:
         self.feature_names = [feature_name(j, params, self.axis_names)
                               for j in range(params["axes"] * fi.per_axis(len(params["fc_bands"])))]
         self._state_windows = np.zeros(len(al.STATE_NAMES), np.int64)
+        self._why_windows = np.zeros(len(WHY_NAMES), np.int64)
+        self._pushed = 0
         self._done = 0
         self._t_first: float | None = None
         self._t_last: float | None = None
@@ -377,7 +421,7 @@ class StreamReplay:
 
     def chunks(self, jobs: int = 1, chunk_windows: int = CHUNK_WINDOWS) -> Iterator[ReplayChunk]:
         """Replay the stream, one ReplayChunk at a time (features of jobs chunks at once)."""
-        for sf in feature_chunks(self.recs, self.twin, jobs, chunk_windows):
+        for sf in feature_chunks(self.recs, self.twin, jobs, chunk_windows, self.every):
             yield self.step(sf)
 
     def step(self, sf: StreamFeatures) -> ReplayChunk:
@@ -395,6 +439,8 @@ class StreamReplay:
                 "feature": feature_name(feat, p, self.axis_names) if feat >= 0 else None, "score": score / 256.0})
         self.events.extend(events)
         self._state_windows += np.bincount(steps.state.astype(np.int64), minlength=len(al.STATE_NAMES))
+        self._why_windows += np.bincount(steps.why.astype(np.int64), minlength=len(WHY_NAMES))
+        self._pushed += int(steps.pushed.sum())
         self._done += len(sf.t_s)
         if len(sf.t_s):
             self._t_first = float(sf.t_s[0]) if self._t_first is None else self._t_first
@@ -406,34 +452,64 @@ class StreamReplay:
         """The stream's summary (keys in the module docstring of host_tools.commands.replay)."""
         ev = self.events
         first = {to: next((e["t_s"] for e in ev if e["to"] == to), None) for to in ("alert", "alarm", "sensor_fault")}
+        raises = sum(e["to"] in ("alert", "alarm") and e["from"] not in ("alert", "alarm") for e in ev)
+        running_h = self._pushed * self.window_s / 3600.0
         return {
             "recordings": len(self.recs),
             "windows": self._done,
             "observed_s": float(self._done * self.window_s),
+            "running_h": running_h,
             "t_first_s": self._t_first,
             "t_last_s": self._t_last,
             "windows_per_state": {name: int(self._state_windows[i]) for i, name in enumerate(al.STATE_NAMES)},
+            "windows_by_scoring": {name: int(self._why_windows[i]) for i, name in enumerate(WHY_NAMES)},
             "alerts": sum(e["to"] == "alert" for e in ev),
             "alarms": sum(e["to"] == "alarm" for e in ev),
+            "raises": raises,
             "sensor_faults": sum(e["to"] == "sensor_fault" for e in ev),
             "first_alert_t_s": first["alert"],
             "first_alarm_t_s": first["alarm"],
             "first_sensor_fault_t_s": first["sensor_fault"],
             "events_lost": self._lost,
+            "promise": promise_check(raises, running_h, self.params),
         }
 
 
-def _total(summaries: list[dict]) -> dict:
+def promise_check(raises: int, running_h: float, params: dict) -> dict[str, Any] | None:
+    """The training's promise (fit_promise_milli: expected false raises per 30 days of running,
+    and its 95 % range, in thousandths) beside what a replay observed, with a verdict: "agrees"
+    when the count lies within the Poisson 2.5-97.5 % quantiles of the range's ends over the
+    running hours replayed (scipy.stats.poisson), "more than promised" or "fewer than promised"
+    otherwise. None when the set holds no promise. Raises on a replay of healthy running are
+    false by definition; on a faulty machine they are what the detector is for."""
+    pm_ = params.get("fit_promise_milli")
+    if not pm_ or running_h <= 0:
+        return None
+    from scipy.stats import poisson
+    rate, lo, hi = (v / 1000.0 for v in pm_)
+    lo_n = poisson.ppf(0.025, lo * running_h / 720.0)
+    hi_n = poisson.ppf(0.975, hi * running_h / 720.0)
+    verdict = "agrees" if lo_n <= raises <= hi_n else ("more than promised" if raises > hi_n else "fewer than promised")
+    return {"promised_per_30_days": rate, "range_95_per_30_days": [lo, hi],
+            "observed_raises": raises, "running_h": running_h,
+            "observed_per_30_days": raises * 720.0 / running_h,
+            "expected_raises": rate * running_h / 720.0, "verdict": verdict}
+
+
+def _total(summaries: list[dict], params: dict) -> dict:
     out: dict[str, Any] = {"streams": len(summaries)}
-    for key in ("recordings", "windows", "alerts", "alarms", "sensor_faults", "events_lost"):
+    for key in ("recordings", "windows", "alerts", "alarms", "raises", "sensor_faults", "events_lost"):
         out[key] = sum(s[key] for s in summaries)
     out["observed_s"] = sum(s["observed_s"] for s in summaries)
+    out["running_h"] = sum(s["running_h"] for s in summaries)
     out["windows_per_state"] = {name: sum(s["windows_per_state"][name] for s in summaries) for name in al.STATE_NAMES}
+    out["windows_by_scoring"] = {name: sum(s["windows_by_scoring"][name] for s in summaries) for name in WHY_NAMES}
     for key in ("t_first_s", "first_alert_t_s", "first_alarm_t_s", "first_sensor_fault_t_s"):
         vals = [s[key] for s in summaries if s[key] is not None]
         out[key] = min(vals) if vals else None
     vals = [s["t_last_s"] for s in summaries if s["t_last_s"] is not None]
     out["t_last_s"] = max(vals) if vals else None
+    out["promise"] = promise_check(out["raises"], out["running_h"], params)
     return out
 
 
@@ -476,7 +552,10 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     """
     if not streams:
         raise EdgevibError("no recordings to replay")
-    pm.build(params, profile)  # refuse a set that the device could not build, before any work
+    try:
+        pm.build(params, profile)  # refuse a set that the device could not build, before any work
+    except ValueError as e:
+        raise EdgevibError(f"the parameter set cannot be built for board {profile['name']}: {e}") from None
     names = list(names) if names is not None else stream_names(streams)
     runs = [StreamReplay(s, params, profile, names[i]) for i, s in enumerate(streams)]
     for r in runs[1:]:
@@ -508,7 +587,7 @@ def assemble(runs: Sequence[StreamReplay], parts: Sequence[dict[str, list[np.nda
     return ReplayResult(
         sample_rate_hz=float(runs[0].params["fs_hz"]), streams=[r.name for r in runs],
         events=[e for r in runs for e in r.events], windows=windows,
-        summary={"streams": {r.name: sm for r, sm in zip(runs, summaries)}, "total": _total(summaries)},
+        summary={"streams": {r.name: sm for r, sm in zip(runs, summaries)}, "total": _total(summaries, runs[0].params)},
         recordings=[r.paths for r in runs])
 
 
