@@ -17,7 +17,7 @@ from datetime import date
 from pathlib import Path
 
 
-def fleet_figures(pumps: int = 8, days: float = 2.0, interval_s: float = 10800.0) -> dict:
+def fleet_figures(pumps: int = 8, days: float = 4.0, interval_s: float = 10800.0) -> dict:
     """fleet_replay_msamples_per_s_1_worker, ..._all_cores, the cores, and their ratio."""
     from firmware_py.run import params as pm
     from host_tools.data import demo_fleet as dfl
@@ -31,7 +31,7 @@ def fleet_figures(pumps: int = 8, days: float = 2.0, interval_s: float = 10800.0
     cores = engine.local_cores()
     with tempfile.TemporaryDirectory() as tmp:
         root = Path(tmp) / "fleet"
-        sc = dfl.build_fleet_scenario(days=days, training_days=1.0, interval_s=interval_s, pumps=pumps)
+        sc = dfl.build_fleet_scenario(days=days, training_days=3.0, interval_s=interval_s, pumps=pumps)
         layout.init_fleet(root, "bench fleet")
         profile = load_board(None)
         for p in sc.pumps:

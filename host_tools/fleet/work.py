@@ -38,6 +38,7 @@ from host_tools.data.files import encode_set, load_body
 from host_tools.data.recording import atomic_write, open_recording, open_stream
 from host_tools.errors import EdgevibError
 from host_tools.fleet import layout
+from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.twin.replay import (
     ChunkPlan, ReplayResult, StreamFeatures, StreamReplay, assemble, m_s2_per_count, plan_chunks, read_chunk, twin_for)
 
@@ -148,18 +149,13 @@ def _chunk_tasks(recs: Sequence[Any], profile: dict, chunk_windows: int) -> tupl
 
 # --- replay tasks ---------------------------------------------------------------------------------
 
-# The keys of a set that its features depend on (host_tools.twin.replay.twin_for, m_s2_per_count).
-FEATURE_KEYS = ("n", "fs_hz", "axes", "counts_per_g", "fc_bands", "fc_vel_hz")
-
-
-def chunk_features(task: ChunkTask, params: dict, profile: dict) -> StreamFeatures:
-    """Read one chunk's samples at the set's rate and scale and compute their features (task).
-    params needs only FEATURE_KEYS."""
-    twin = twin_for(params, profile)
-    scale = m_s2_per_count(params)
+def chunk_features(task: ChunkTask, cfg: TwinConfig, axes: int, scale: float) -> StreamFeatures:
+    """Read one chunk's samples at the rate of feature configuration `cfg` (twin_for of the set)
+    and counts scale `scale` (m/s^2 per count), and compute their features (task)."""
+    twin = FeatureTwin(cfg, axes)
     feats = []
     for pieces, t_s, rec in task.chunks:
-        files = [open_recording(p, params["fs_hz"], scale) for p, _, _ in pieces]
+        files = [open_recording(p, cfg.fs_hz, scale) for p, _, _ in pieces]
         local = ChunkPlan(0, t_s, rec, [(k, a, b) for k, (_, a, b) in enumerate(pieces)])
         feats.append(twin.features(read_chunk(files, local)))
     # each window's features depend on its own samples only: joining chunks changes nothing
@@ -187,8 +183,8 @@ def submit_replay(client, w: GatewayWork, params: dict | None = None, kind: str 
     p = params if params is not None else w.params
     prof = profile if profile is not None else w.profile
     tasks, paths = (w.chunks, w.paths) if kind == "archive" else (w.healthy_chunks, w.healthy_paths)
-    fkeys = {k: p[k] for k in FEATURE_KEYS}     # two sets with the same features share these tasks
-    feats = [client.submit(chunk_features, t, fkeys, prof, pure=True) for t in tasks]
+    cfg = twin_for(p, prof).cfg      # what the features depend on: two sets alike in it share these tasks
+    feats = [client.submit(chunk_features, t, cfg, p["axes"], m_s2_per_count(p), pure=True) for t in tasks]
     res = client.submit(gateway_pass, w.gateway, paths, p, prof, None if columns is None else tuple(columns),
                         *feats, pure=True)
     return feats, res
