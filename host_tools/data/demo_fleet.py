@@ -86,10 +86,11 @@ def manifest(sc: ds.Scenario, pump: str, board: str) -> dict[str, Any]:
             "params_since": None, "note": "invented demo data"}
 
 
-def write_pump(root: str | os.PathLike, sc: ds.Scenario, pump: str) -> int:
-    """Write one pump's snapshots into its gateway folder: training days into healthy/, the rest into
-    archive/. Returns the number of files written. Runs as a task of `edgevib demo --fleet`."""
-    folder = Path(root) / gateway_id(pump)
+def write_pump(root: str | os.PathLike, sc: ds.Scenario, pump: str, folder: str | os.PathLike | None = None) -> int:
+    """Write one pump's snapshots into its gateway folder (root/gateway_id(pump), or `folder`):
+    training days into healthy/, the rest into archive/. Returns the number of files written. Runs
+    as a task of `edgevib demo --fleet`."""
+    folder = Path(folder) if folder is not None else Path(root) / gateway_id(pump)
     n = 0
     for snap in sc.snapshots:
         if snap.pump != pump:
