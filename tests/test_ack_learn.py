@@ -17,7 +17,7 @@ def test_ack_reports_an_alarm_whose_cause_persists(tmp_path, capsys):
 
 def test_ack_without_alarm_and_learning_start_stop(tmp_path, capsys):
     with emulator(sine_recording(tmp_path / "s.wav", seconds=3.0), tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(10)
+        assert vg.ended.wait(120)
         rc, out, _ = run_cli(capsys, "ack", "--port", vg.port)
         assert rc == 0 and out.startswith("no alarm was latched")
         rc, out, _ = run_cli(capsys, "learn", "--start", "--port", vg.port)
@@ -26,6 +26,8 @@ def test_ack_without_alarm_and_learning_start_stop(tmp_path, capsys):
         rc, out, _ = run_cli(capsys, "learn", "--stop", "--port", vg.port)
         assert rc == 0 and out.startswith("learning stopped")
         assert not vg.gateway.det.learning
+        rc, out, _ = run_cli(capsys, "learn", "--stop", "--port", vg.port)   # again: not learning
+        assert rc == 0 and out.startswith("the gateway was not learning")
 
 
 def test_learn_needs_start_or_stop(capsys):

@@ -91,7 +91,7 @@ def test_rate_below_band_and_missing_folder_are_refused_clearly(tmp_path, capsys
     out = tmp_path / "p.msgpack"
     assert main(["train", str(tmp_path / "no_such_folder"), "--out", str(out)]) == 2
     err = capsys.readouterr().err
-    assert err.count("\n") == 1 and "no such file or folder" in err and "format ''" not in err
+    assert err.count("\n") == 1 and "no such recording or folder" in err and "format ''" not in err
 
 
 def test_a_set_for_another_board_is_refused_with_the_reason():

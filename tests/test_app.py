@@ -21,7 +21,7 @@ from tests.test_service import replies, req
 from chipmodels.adxl345 import ADXL345Model
 
 import firmware_py  # noqa: F401
-from firmware_py.run import board, status_led
+from firmware_py.run import board, params, status_led
 from firmware_py.run.app import CRASH_LIMIT, HEALTHY_MS, STALL_MS, App, StreamLink
 from firmware_py.dsp.feature_index import F_RMS
 from firmware_py.store.paramstore import build_image
@@ -114,7 +114,9 @@ def test_an_alarm_saves_event_snapshots_and_shows_on_the_led(tmp_path):
     v_x = AMP[0] * 9.80665 / 256 / (2 * math.pi * F_HZ[0]) / math.sqrt(2) * 1000
     assert v_x > 4.5
     rig = Rig(tmp_path)
-    for _ in range(20):                      # start-up hold-off (10 windows), then k of n
+    fac = params.factory(PICO)               # start-up hold-off, then the persistence span
+    period_ms = 1000 * EVERY * N // FS
+    for _ in range((fac["det_hold_ms"] + fac["det_persist_ms"]) // period_ms + 4):
         rig.run(CYCLE)
         if rig.app.state() == "alarm":
             break
@@ -164,8 +166,38 @@ def test_a_failing_bus_in_the_timer_callback_raises_nothing_and_shows(tmp_path):
     def broken(out):
         raise OSError(5)                 # EIO, as machine.SPI/I2C report a failed transfer
     rig.app.drv.read_into = broken
-    rig.run(STALL_MS * 1000 // BLOCK_US + 1)        # the timer keeps firing into the error
+    periods = STALL_MS * 1000 // BLOCK_US + 1
+    rig.run(periods)                                 # the timer keeps firing into the error
     assert rig.app.acquire() == 0 and rig.app.state() == "sensor_fault"
+    st = rig.ask(1, "status")                        # counted, and the first error surfaced
+    assert st["acq_errors"] == periods + 1 and st["error"] == "acquire: OSError: 5"
+    assert st["lost_acquire"] == 0                   # nothing was read, so nothing read was lost
+
+
+def test_frames_lost_when_acquisition_raises_are_counted_with_their_reason(tmp_path):
+    # a MemoryError while feeding (the heap locked by window(), or a set being rebuilt) loses
+    # the block just read: counted as dropped, told to the detector, and the error shown
+    rig = Rig(tmp_path)
+    rig.run(CYCLE)
+    gw = rig.app.gw
+    feed = gw.feed
+    failed = []
+
+    def failing(src, frames):
+        if len(failed) < 3:
+            failed.append(frames)
+            raise MemoryError("memory allocation failed, heap is locked")
+        feed(src, frames)
+    gw.feed = failing
+    told = gw.dropped_seen
+    rig.run(2 * CYCLE)
+    lost = sum(failed)                               # the three blocks read, about 16 frames each
+    assert len(failed) == 3 and lost >= 3 * PICO["fifo_watermark"]
+    st = rig.ask(1, "status")
+    assert st["lost_acquire"] == lost and st["acq_errors"] == 3
+    assert st["error"] == "acquire: MemoryError: memory allocation failed, heap is locked"
+    assert st["dropped"] == lost and st["lost_fifo"] == 0
+    assert gw.dropped_seen - told == lost            # and the detector was told
 
 
 def test_an_absent_sensor_gives_sensor_fault_and_a_working_link(tmp_path):
@@ -182,6 +214,39 @@ def test_an_absent_sensor_gives_sensor_fault_and_a_working_link(tmp_path):
 
 def boots(root):
     return int((root / "boots.txt").read_text())
+
+
+def pico_set(version, **changes):
+    """The Pico's factory set renumbered (and changed), as a committed image."""
+    from firmware_py.run import params as params_mod
+    p = params_mod.factory(PICO)
+    p.update(version=version, **changes)
+    return build_image(msgpack.packb(p))
+
+
+def test_a_set_that_fails_its_trial_at_boot_falls_back_to_the_previous_set(tmp_path):
+    good = pico_set(2)
+    bad = pico_set(3, det_axes=8, det_dc_lo_q8=[-1] * 8, det_dc_hi_q8=[1] * 8)   # crashes a window
+    (tmp_path / "params.old").write_bytes(good)
+    (tmp_path / "params.cur").write_bytes(bad)
+    rig = Rig(tmp_path)
+    assert not rig.app.safe and rig.app.gw.params.version == 2
+    assert (tmp_path / "params.bad").read_bytes() == bad and (tmp_path / "params.cur").read_bytes() == good
+    rig.run(CYCLE + 1)
+    assert rig.app.gw.windows >= 1
+
+
+def test_crashing_boots_on_a_set_roll_back_to_the_previous_set_before_safe_mode(tmp_path):
+    (tmp_path / "params.old").write_bytes(pico_set(2))
+    (tmp_path / "params.cur").write_bytes(pico_set(3))
+    (tmp_path / "boots.txt").write_text("%d\n" % CRASH_LIMIT)     # v3 crashed the board 3 times
+    rig = Rig(tmp_path)
+    assert not rig.app.safe and rig.app.gw.params.version == 2 and boots(tmp_path) == 1
+    assert (tmp_path / "params.bad").read_bytes() == pico_set(3)
+    # the previous set crashing too, with nothing before it: safe mode (on that set, kept)
+    (tmp_path / "boots.txt").write_text("%d\n" % CRASH_LIMIT)
+    rig = Rig(tmp_path)
+    assert rig.app.safe and rig.app.gw.params.version == 2
 
 
 def test_after_repeated_crashes_the_next_boot_is_safe_and_answers_identify(tmp_path):
@@ -256,16 +321,17 @@ def test_bad_or_missing_parameters_still_run_the_factory_set(tmp_path, content):
     assert seen == {0, 1}
 
 
-def test_a_committed_set_the_detector_refuses_does_not_stop_the_gateway(tmp_path):
+def test_a_set_the_detector_refuses_is_refused_before_commit_and_the_gateway_runs_on(tmp_path):
     rig = Rig(tmp_path)
     img = identity_only_set(4)
     assert rig.ask(1, "param_write", off=0, data=img)["ok"]
-    assert rig.ask(2, "param_verify", size=len(img))["ok"]
+    r = rig.ask(2, "param_verify", size=len(img))
+    assert r["ok"] is False and r["err"] == "refused" and "does not run" in r["msg"]
     r = rig.ask(3, "param_commit")
-    assert r["ok"] is False                               # the build failed after the commit
+    assert r["ok"] is False and "nothing verified" in r["msg"]       # nothing half-applied
     rig.run(N // 16 + 1)
     assert rig.app.gw.windows >= 1
-    assert rig.app.gw.params.source == "factory" and (tmp_path / "params.bad").exists()
+    assert rig.app.gw.params.source == "factory" and not (tmp_path / "params.cur").exists()
 
 
 class StopLoop(Exception):
@@ -339,6 +405,35 @@ def test_main_with_a_refused_profile_stays_in_the_repl_without_a_watchdog(tmp_pa
     mach, sleeps, kbd, text = run_main(tmp_path, monkeypatch, "{not json", StreamPair(), 0)
     assert mach.wdts == [] and kbd == [] and sleeps == []
     assert text.startswith("edgevib: not starting:") and "not valid JSON" in text
+
+
+def test_a_keyed_gateway_gives_no_start_up_window_into_the_repl(tmp_path, monkeypatch):
+    (tmp_path / "site.key").write_bytes(b"brackwater-site-key-0001")
+    console = StreamPair()
+    console.send(req(1, "identify"))
+    mach, sleeps, kbd, _ = run_main(tmp_path, monkeypatch, (ROOT / "boards" / "pico_adxl345.json")
+                                    .read_text(), console, 400)
+    assert 3000 not in sleeps and kbd[0] == -1             # Ctrl-C is data from the start
+    [r] = [m for m in replies([console.take()]) if "push" not in m]
+    assert r["ok"] and r["signed"] is True and r["nonce"]
+    # a refused profile does not fall through to the REPL either: it idles
+    mach, sleeps, kbd, text = run_main(tmp_path, monkeypatch, "{not json", StreamPair(), 5)
+    assert kbd == [-1] and sleeps == [1000] * 6 and mach.wdts == []
+    assert text.startswith("edgevib: not starting:")
+
+
+def test_boot_py_makes_ctrl_c_data_on_a_keyed_gateway(tmp_path, monkeypatch):
+    import micropython
+
+    from firmware_py.run import app as app_mod
+    kbd = []
+    monkeypatch.setattr(micropython, "kbd_intr", kbd.append, raising=False)
+    monkeypatch.setattr(micropython, "alloc_emergency_exception_buf", lambda n: None, raising=False)
+    app_mod.prepare(str(tmp_path))
+    assert kbd == []                                        # unkeyed: mpremote may interrupt
+    (tmp_path / "site.key").write_bytes(b"brackwater-site-key-0001")
+    app_mod.prepare(str(tmp_path))
+    assert kbd == [-1]
 
 
 def rotations(p):
@@ -518,7 +613,7 @@ for w in range(%(windows)d):
 k0 = (gw.windows - 1) * %(cycle)d
 want = [m.sample(k, 0) for k in range(k0, k0 + 4)]
 emit([clean, gw.windows, gw.skipped, app.drv.gaps.lost, gw.core.ring.dropped, list(gw.raw[0:4]),
-      want])
+      want, app.acq_errors, app.acq_lost])
 """
 
 
@@ -527,8 +622,11 @@ def test_per_window_step_allocates_nothing_on_micropython():
     _stage_guest()
     res = run_guest(GUEST % {"profile": json.dumps(PICO), "cycle": EVERY * N,
                              "block_us": BLOCK_US, "windows": 3})
-    clean, windows, skipped, lost, dropped, head, want = res.out[0]
+    clean, windows, skipped, lost, dropped, head, want, acq_errors, acq_lost = res.out[0]
     assert clean, "a per-window step allocated under heap_lock"
+    # acquire() catches what it raises (it runs in the timer callback), so `clean` alone cannot
+    # see a MemoryError inside it: its own count can
+    assert acq_errors == 0 and acq_lost == 0
     assert windows == 3 and skipped == 3 * (EVERY - 1) and lost == 0 and dropped == 0
     assert head == want                         # the window holds the chip's samples
 

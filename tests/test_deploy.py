@@ -116,7 +116,7 @@ def test_parameters_go_to_params_cur_checked(tmp_path, capsys):
 @pytest.mark.parametrize("content, says", [
     (b"\x93\x01\x02\x03", "neither a parameter image nor a MessagePack map"),
     ("other-board", "set is for board 'p-102'"),
-    ("no-detector", "the detector cannot run this set"),
+    ("no-detector", "parameter set refused: set has no 'counts_per_g'"),
 ])
 def test_bad_parameters_are_refused_before_the_build(content, says, tmp_path, capsys):
     _, profile = deploy.board_profile(PICO)

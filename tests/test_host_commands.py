@@ -29,7 +29,7 @@ KEY = b"brackwater site key, pumps P-101 and P-102"
 def idle_gateway(tmp_path):
     """A virtual gateway that has played 3 s of sines and now idles, answering the link."""
     with emulator(sine_recording(tmp_path / "s.wav", seconds=3.0), tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(10)
+        assert vg.ended.wait(120)
         yield vg
 
 
@@ -76,14 +76,14 @@ def test_flash_refusals_are_one_line_and_change_nothing(idle_gateway, tmp_path, 
     assert rc == 2 and out == "" and _one_line(err) and "set is for board 'pico-adxl345'" in err
     slow = _set_file(tmp_path / "rate.msgpack", 2, fs_hz=1600)
     rc, out, err = run_cli(capsys, "flash", slow, "--port", vg.port)
-    assert rc == 2 and _one_line(err) and "1600 Hz" in err
+    assert rc == 2 and _one_line(err) and "'fs_hz' is 1600, this gateway has 3200" in err
     (tmp_path / "list.msgpack").write_bytes(b"\x93\x01\x02\x03")          # [1, 2, 3]
     rc, out, err = run_cli(capsys, "flash", tmp_path / "list.msgpack", "--port", vg.port)
     assert rc == 2 and _one_line(err) and "is a list" in err
     rc, out, err = run_cli(capsys, "flash", tmp_path / "missing.msgpack", "--port", vg.port)
     assert rc == 2 and _one_line(err) and "cannot read" in err
     rc, out, err = run_cli(capsys, "flash", good, "--port", str(tmp_path / "no-such-port"))
-    assert rc == 3 and _one_line(err) and "cannot open serial port" in err
+    assert rc == 2 and _one_line(err) and "cannot open serial port" in err      # bad input: 2
     c = Client.open(vg.port)
     try:
         assert c.identify()["param_version"] == 1 and c.param_read() == build_image(good.read_bytes())
@@ -257,11 +257,12 @@ def test_record_splits_at_missed_windows_and_never_splices(tmp_path, capsys, mon
                                "--out", tmp_path / "got.wav")
     finally:
         vg.stop()
-    assert rc == 0, err
+    # less than asked for is never exit 0 (link trouble: 3); what arrived is still written
+    assert rc == 3 and _one_line(err), err
     parts = sorted(tmp_path.glob("got*.wav"))
-    found = re.search(r"^missed (\d+) windows", out, re.M)
+    found = re.search(r"missed (\d+) windows", err)
     missed = int(found.group(1)) if found else 0
-    assert missed > 0 and len(parts) >= 2 and f"written as {len(parts)} gap-free parts" in out
+    assert missed > 0 and len(parts) >= 2 and f"written as {len(parts)} gap-free parts" in err
     total = 0
     for p in parts:
         got = read_recording(p)
@@ -382,7 +383,7 @@ def _on_a_terminal(*argv):
             break
         text += chunk
     os.close(master)
-    return proc.wait(20), text.decode(errors="replace")
+    return proc.wait(120), text.decode(errors="replace")
 
 
 def test_terminal_views(idle_gateway, tmp_path):

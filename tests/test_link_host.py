@@ -7,7 +7,7 @@ import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import ParamStore, build_image
 from firmware_py.link.service import Service
 from firmware_py.store.snapshots import SnapshotRing, parse
-from host_tools.errors import LinkError
+from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import Client, DeviceRefused, Link, open_transport
 from host_tools.link.transport import PtyTransport, memory_pair
 from tests.test_service import BOARD, FakeGateway, body
@@ -88,9 +88,11 @@ def test_transport_names():
     loop = open_transport("loop:")
     loop.write(b"abc")
     assert loop.read(10, 0.1) == b"abc" and loop.read(10, 0.01) == b""
-    with pytest.raises(LinkError, match="unknown port option 'speed=9'"):
+    # bad port names are bad input (exit 2, docs/protocol.md "Exit status"), not a link failure
+    with pytest.raises(EdgevibError, match="unknown port option 'speed=9'") as e:
         open_transport("serial:/dev/null?speed=9")
-    with pytest.raises(LinkError, match="cannot open serial port /nonexistent/tty"):
+    assert not isinstance(e.value, LinkError) and e.value.exit_status == 2
+    with pytest.raises(EdgevibError, match="cannot open serial port /nonexistent/tty"):
         open_transport("/nonexistent/tty")
 
 
@@ -172,3 +174,29 @@ def test_signed_rollback_over_the_link(tmp_path):
     c.param_verify(len(build_image(body(3), KEY)))
     c.param_commit()
     assert c.rollback(KEY) == 1                       # the client signs for itself
+
+
+def test_stale_frame_errors_after_line_noise_do_not_use_up_the_tries(tmp_path):
+    # 2 kB of line noise with a 00 every 20 bytes: the device answers each damaged frame with a
+    # frame error (seq nil), about 100 of them, which wait at the host before its next request
+    c, gw, svc = in_memory(tmp_path)
+    noise = bytes((i * 37 + 11) % 255 + 1 if i % 20 else 0 for i in range(2041))   # ends on 00
+    c.link.transport.write(noise)
+    assert svc.errors >= 100
+    assert c.acknowledge() is True and c.acknowledge() is False     # two runs, both answered
+    assert c.link.frames_sent == 2                                  # no try used up by the noise
+
+
+def test_frame_errors_during_a_request_are_resent_without_using_a_try(tmp_path):
+    c, gw, svc = in_memory(tmp_path, timeout_s=0.05)
+    dev_send = svc.write
+    damaged = [0]
+
+    def noisy(frame):                  # 4 frames damaged in a row: more than the 3 tries
+        if damaged[0] < 4:
+            damaged[0] += 1
+            dev_send(svc._encode({"seq": None, "ok": False, "err": "frame", "msg": "frame CRC mismatch"}))
+            return
+        dev_send(frame)
+    svc.write = noisy
+    assert c.status()["state"] == "alert"

@@ -274,7 +274,7 @@ class Detector:
         self.iso = _ints(p, "det_iso_bounds", 3)
         if not 0 < self.iso[0] <= self.iso[1] <= self.iso[2]:
             raise ValueError("det_iso_bounds must be positive and ascending")
-        self.flat_q8 = _int(p, "det_flat_rms_q8", 0, _BIG)
+        self.flat_rms_q8 = _int(p, "det_flat_rms_q8", 0, _BIG)
         self.clip_max = _int(p, "det_clip_max", 0, _BIG)
         self.dc_lo_q8 = _ints(p, "det_dc_lo_q8", axes)
         self.dc_hi_q8 = _ints(p, "det_dc_hi_q8", axes)
@@ -429,7 +429,7 @@ class Detector:
         pa = self.pa
         for a in range(self.axes):
             b = a * pa
-            if f[b + fi.F_RMS] < self.flat_q8:
+            if f[b + fi.F_RMS] < self.flat_rms_q8:
                 self.fault_reason = al.R_FLAT
                 self.fault_feat = b + fi.F_RMS
                 return True

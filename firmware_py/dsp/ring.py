@@ -8,6 +8,8 @@ written over data still waiting: the loss is always visible (dropped counters).
 Entry points: SampleRing, footprint_bytes()."""
 import array
 
+from firmware_py.dsp.counters import sat_add
+
 
 class SampleRing:
     def __init__(self, axes, n, slots):
@@ -22,7 +24,7 @@ class SampleRing:
         self.w = 0            # next frame to write
         self.r = 0            # slot of the oldest unprocessed window
         self.filled = 0       # frames written and not yet released
-        self.dropped = 0      # frames lost to a full ring, since start (never reset)
+        self.dropped = 0      # frames lost to a full ring, since start (saturates at 2**30 - 1)
 
     def push(self, src, frames, first=0):
         """Append `frames` interleaved frames from src (array('h')), from its frame `first` on.
@@ -53,7 +55,8 @@ class SampleRing:
         self.w = w
         self.filled += take
         lost = frames - take
-        self.dropped += lost
+        if lost:
+            self.dropped = sat_add(self.dropped, lost)
         return lost
 
     def ready(self):

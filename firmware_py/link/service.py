@@ -36,6 +36,8 @@ from micropython import const
 from firmware_py.link import frames
 from firmware_py.codec import mpack
 from firmware_py.store.paramstore import ParamError
+from firmware_py.link import auth
+from firmware_py.dsp.counters import sat_add
 
 _ERR_TEXT = {
     frames.ERR_COBS: "frame is not valid COBS",
@@ -44,6 +46,8 @@ _ERR_TEXT = {
     frames.ERR_SHORT: "frame too short",
 }
 _MARGIN = const(96)   # reply bytes besides a data chunk (seq, ok, total, off, keys)
+_INT_MAX = const(0x3FFFFFFF)   # int arguments: small ints on a board unless a command says
+_T_MAX = 0xFFFFFFFF            # clock: seconds since 1970 up to 2106 (a big int: not per window)
 
 
 class _ArgError(Exception):
@@ -54,8 +58,9 @@ class _Missing(Exception):
     pass
 
 
-def _arg(req, name, kind, default=None):
-    """req[name] checked against kind (int, str, bool or bytes); default if optional."""
+def _arg(req, name, kind, default=None, lo=0, hi=_INT_MAX):
+    """req[name] checked against kind (int, str, bool or bytes), an int also against lo..hi;
+    default if optional."""
     if name not in req:
         if default is not None:
             return default
@@ -69,6 +74,8 @@ def _arg(req, name, kind, default=None):
         ok = isinstance(v, kind)
     if not ok:
         raise _ArgError("argument '%s' must be %s" % (name, kind.__name__))
+    if kind is int and not lo <= v <= hi:
+        raise _ArgError("argument '%s' must be from %d to %d" % (name, lo, hi))
     return v
 
 
@@ -86,6 +93,7 @@ class Service:
         self._last_req = None
         self._last_reply = None
         self._raw = None                          # capture being read out
+        self.auth = auth.Auth(gateway.params.key)  # signed commands when a site key is held
         self.frames_in = 0
         self.errors = 0
         self._cmds = {
@@ -109,7 +117,7 @@ class Service:
             if k > 0:
                 self._request(k)
             elif k < 0:
-                self.errors += 1
+                self.errors = sat_add(self.errors, 1)
                 self._send({"seq": None, "ok": False, "err": "frame", "msg": _ERR_TEXT[k]})
 
     def push(self, msg, kind="features"):
@@ -150,7 +158,7 @@ class Service:
         return frame
 
     def _request(self, k):
-        self.frames_in += 1
+        self.frames_in = sat_add(self.frames_in, 1)
         req_bytes = bytes(self.rx.buf[0:k])
         if req_bytes == self._last_req:
             self.write(self._last_reply)
@@ -173,7 +181,10 @@ class Service:
             fn = self._cmds.get(cmd) if isinstance(cmd, str) else None
             if fn is None:
                 return self._err(seq, "unknown", "unknown command %s" % repr(cmd))
+            self.auth.check(cmd, req)
             r = fn(req)
+            if self.auth.key and cmd in auth.SIGNED:
+                r["nonce"] = self.auth.nonce      # the challenge for the next signed command
             r["seq"] = seq
             r["ok"] = True
             return r
@@ -185,18 +196,18 @@ class Service:
             return self._err(seq, "refused", str(e))
         except _Missing as e:
             return self._err(seq, "missing", str(e))
+        except auth.AuthError as e:
+            return self._err(seq, "auth", str(e))
         except Exception as e:   # a gateway fault must still produce a reply
             return self._err(seq, "fail", type(e).__name__ + ": " + str(e))
 
     def _err(self, seq, code, text):
-        self.errors += 1
+        self.errors = sat_add(self.errors, 1)
         return {"seq": seq, "ok": False, "err": code, "msg": text}
 
     def _chunk(self, req, blob, total):
         off = _arg(req, "off", int, 0)
         k = _arg(req, "len", int, self.chunk)
-        if off < 0 or k < 0:
-            raise _ArgError("'off' and 'len' must not be negative")
         if k > self.chunk:
             k = self.chunk
         return {"total": total, "off": off, "data": bytes(blob[off:off + k])}
@@ -209,6 +220,9 @@ class Service:
         r["param_crc"] = ps.crc()
         r["param_source"] = ps.source
         r["param_previous"] = ps.previous_version()
+        r["gateway_id"] = ps.gateway_id
+        r["nonce"] = self.auth.nonce
+        r["signed"] = bool(ps.key)               # True: the commands in auth.SIGNED need a sig
         return r
 
     def _status(self, req):
@@ -270,7 +284,7 @@ class Service:
         return self._chunk(req, self._raw, len(self._raw))
 
     def _clock(self, req):
-        self.gw.set_clock(_arg(req, "t", int))
+        self.gw.set_clock(_arg(req, "t", int, None, 0, _T_MAX))
         return {}
 
     def _reboot(self, req):

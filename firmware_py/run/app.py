@@ -19,15 +19,17 @@ One window per pass keeps the link answered when processing falls behind the sen
 
 Entry points: elapsed_ms(), StreamLink, DeviceGateway, SafeGateway, App, prepare(), main()."""
 import array
-import os
 
 import micropython
 from micropython import const
 
 from firmware_py.codec import mpack
+from firmware_py.dsp.counters import sat_add
 from firmware_py.run import params as params_mod
+from firmware_py.run import param_check
 from firmware_py.detect.alarm import STATE_NAMES
 from firmware_py.store.bootcount import BootCounter
+from firmware_py.store.latch import LatchFile
 from firmware_py.drivers import driver_module, open_sensor
 from firmware_py.run.gateway import Gateway
 from firmware_py.store.paramstore import ParamStore
@@ -46,6 +48,25 @@ _RX_CHUNK = const(64)             # link bytes handled per pass
 # Timer ids: the rp2 port has virtual timers only (-1), the esp32 port hardware timers 0..3
 # (port quick-reference pages, from memory).
 _TIMER_ID = {"rp2040": -1, "esp32s3": 0}
+
+
+def site_key(root):
+    """The site key (bytes) from root/site.key, or None: then unsigned sets are accepted."""
+    try:
+        with open(root + "/site.key", "rb") as f:
+            k = f.read()
+        return k or None
+    except OSError:
+        return None
+
+
+def gateway_id(machine):
+    """This board's id as hex (machine.unique_id(): the flash or chip serial), or None."""
+    try:
+        from binascii import hexlify
+        return hexlify(machine.unique_id()).decode()
+    except (AttributeError, OSError, TypeError):
+        return None
 
 
 def elapsed_ms(now, then):
@@ -85,10 +106,14 @@ class DeviceGateway(Gateway):
     `quota` windows per poll(), and `fault` (a state name such as "sensor_fault", or "" for
     none) reported as the state while the application sees no samples."""
 
-    def __init__(self, profile, store, snapshots, ticks_ms):
+    def __init__(self, profile, store, snapshots, ticks_ms, latch=None):
         self.fault = ""
         self.quota = 0
-        Gateway.__init__(self, profile, store, snapshots, ticks_ms)
+        self.lost_fifo = 0           # frames lost to sensor FIFO overruns (saturates)
+        self.lost_acquire = 0        # frames read but lost when acquire() raised (saturates)
+        self.acq_errors = 0          # exceptions in acquire(), since start
+        self.error = ""              # the first acquisition error, as text
+        Gateway.__init__(self, profile, store, snapshots, ticks_ms, latch)
 
     def window(self):
         if self.quota <= 0:
@@ -106,6 +131,11 @@ class DeviceGateway(Gateway):
         r = Gateway.status(self)
         if self.fault:
             r["state"] = self.fault
+        # dropped, by reason: these two, the rest to a full ring
+        r["lost_fifo"] = self.lost_fifo
+        r["lost_acquire"] = self.lost_acquire
+        r["acq_errors"] = self.acq_errors
+        r["error"] = self.error
         return r
 
 
@@ -126,6 +156,7 @@ class SafeGateway(DeviceGateway):
         self.windows = 0
         self.fault = "safe"
         self.quota = 0
+        store.trial = self.trial_params          # a set committed in safe mode must run too
 
     def uptime_s(self):
         return self.ticks_ms() // 1000   # no samples in safe mode; the loop is short-lived
@@ -134,7 +165,7 @@ class SafeGateway(DeviceGateway):
         return {"state": "safe", "mode": -1, "score_q8": 0, "feature": -1, "zone": 0,
                 "features": [], "windows": 0, "dropped": 0, "skipped": 0,
                 "events": self.snapshots.next_id,
-                "t_s": self.now_s()}
+                "t_s": self.now_s(), "param_crc": self.params.crc()}
 
     def stream(self, on):
         self.streaming = False
@@ -177,10 +208,13 @@ class App:
         self.healthy = False
         self.fresh = 0               # set by acquire() when frames arrived
         self.drv = None
-        self.lost_seen = 0           # driver's lost-frame count already passed to the gateway
+        self.acq_lost = 0            # frames acquire() read and could not feed (timer writes)
+        self.acq_errors = 0          # exceptions acquire() caught, since start (saturates)
+        self.acq_error = None        # the first of them, for status
         self.timer = None
         self.root = root
         self.boots = BootCounter(root + "/boots.txt", CRASH_LIMIT)
+        self.latch = LatchFile(root + "/alarm.latch")   # survives flash, rollback, reboot, power
         self.safe = self.boots.start()
         # The watchdog starts before anything that could hang (sensor, files); it cannot be
         # stopped once started.
@@ -192,8 +226,15 @@ class App:
         n = profile["window_n"]
         axes = profile["axes"]
         factory = mpack.packb(params_mod.factory(profile))
-        store = ParamStore(root, profile["name"], fs, n, axes, factory, self._site_key())
+        store = ParamStore(root, profile["name"], fs, n, axes, factory, site_key(root),
+                           gateway_id=gateway_id(machine))
         snaps = SnapshotRing(root, SNAPSHOT_SLOTS, fs, n, axes)
+        if self.safe and store.source == "cur" and store.previous_version() is not None:
+            # Crashing boots on a set that has a previous one: the set goes aside and the
+            # previous set gets a fresh count; safe mode only if that one crashes too.
+            store.quarantine()
+            self.boots.clear()
+            self.safe = self.boots.start()
         if self.safe:
             self.gw = SafeGateway(profile, store, snaps, ticks_ms)
         else:
@@ -204,35 +245,18 @@ class App:
             self._start_sensor(sensor, ticks_us)
 
     # ---- start-up ----
-    def _site_key(self):
-        """The site key (bytes) from root/site.key, or None: then unsigned sets are accepted."""
-        try:
-            with open(self.root + "/site.key", "rb") as f:
-                k = f.read()
-            return k or None
-        except OSError:
-            return None
-
     def _gateway(self, store, snaps):
         """A running DeviceGateway on the committed set; a set the store accepts but the
-        feature core or detector refuses is moved aside (params.bad) and the store boots the
-        one before it, or the factory set, which always builds."""
+        feature core or detector refuses, or that fails its trial run (param_check), is moved
+        aside (params.bad) and the store boots the one before it, or the factory set."""
         while True:
             try:
-                return DeviceGateway(self.profile, store, snaps, self.ticks_ms)
+                param_check.trial(store.params, self.profile)
+                return DeviceGateway(self.profile, store, snaps, self.ticks_ms, self.latch)
             except Exception:
                 if store.source == "factory":
                     raise
-                self._quarantine(store)
-
-    def _quarantine(self, store):
-        bad = self.root + "/params.bad"
-        try:
-            os.remove(bad)
-        except OSError:
-            pass
-        os.rename(store.cur, bad)
-        store.boot()
+                store.quarantine()
 
     def _start_sensor(self, sensor, ticks_us):
         p = self.profile
@@ -266,13 +290,21 @@ class App:
         drv = self.drv
         if drv is None:
             return 0
+        k = 0
         try:
             k = drv.read_into(self.block)
             if k:
                 self.gw.feed(self.block, k)
                 self.fresh = 1
             return k
-        except Exception:
+        except Exception as e:
+            # Never silent: the frames read and not fed (at most k; a failing read loses what the
+            # FIFO overrun count then shows) are counted, and the first error is kept for
+            # status. Binding the exception allocates nothing: this may run under the lock.
+            self.acq_lost = sat_add(self.acq_lost, k)
+            self.acq_errors = sat_add(self.acq_errors, 1)
+            if self.acq_error is None:
+                self.acq_error = e
             return 0
 
     # ---- the main loop ----
@@ -288,15 +320,14 @@ class App:
         """One pass of the main loop: link, one window (heap locked), its snapshot and stream,
         sample-flow check, boot counter, watchdog, LED."""
         now = self.ticks_ms()
+        drv = self.drv
+        if not self.safe and drv is not None:
+            self._count_losses(drv, self.gw)  # before the link: status shows them at once
         self._serve()
         gw = self.gw
         if gw.reboot_wanted:
             self.reboot()
         if not self.safe and self.drv is not None:
-            lost = self.drv.gaps.lost - self.lost_seen  # FIFO overruns the driver counted
-            if lost:
-                self.lost_seen += lost
-                gw.lost_upstream(lost)                  # never silent: the detector is told
             gw.quota = 1
             before = gw.windows
             gw.poll()
@@ -310,6 +341,23 @@ class App:
             self.healthy = True
         self.led.show(self.state(), now)
 
+    def _count_losses(self, drv, gw):
+        """Tell the gateway (and so the detector and status) of every frame lost upstream of
+        the ring since the last pass, by reason, and of the first acquisition error."""
+        lost = drv.gaps.take()                          # FIFO overruns the driver counted
+        if lost:
+            gw.lost_fifo = sat_add(gw.lost_fifo, lost)
+            gw.lost_upstream(lost)
+        lost = self.acq_lost                            # read and reset with no jump between:
+        self.acq_lost = 0                               # the timer cannot split them
+        if lost:
+            gw.lost_acquire = sat_add(gw.lost_acquire, lost)
+            gw.lost_upstream(lost)
+        gw.acq_errors = self.acq_errors
+        e = self.acq_error
+        if e is not None and not gw.error:
+            gw.error = "acquire: %s: %s" % (type(e).__name__, e)
+
     def _serve(self):
         k = self.link.read_into(self._rx)
         if k:
@@ -318,7 +366,7 @@ class App:
             if not self.safe and not hasattr(gw, "det"):
                 # A committed set that cannot be built left the gateway without a detector: run
                 # the set before it, or the factory set, in a new gateway (keeping the clock).
-                self._quarantine(gw.params)
+                gw.params.quarantine()
                 self.gw = self._gateway(gw.params, gw.snapshots)
                 self.gw.clock_base = gw.clock_base
                 self.gw.service = self.service
@@ -345,28 +393,39 @@ class App:
             sleep_ms(1)
 
 
-def prepare():
-    """For boot.py: room to report an exception raised in the timer callback."""
+def prepare(root=""):
+    """For boot.py: room to report an exception raised in the timer callback; on a gateway that
+    holds a site key, Ctrl-C is data from the first moment (no way into the REPL)."""
     micropython.alloc_emergency_exception_buf(128)
+    if site_key(root):
+        micropython.kbd_intr(-1)
 
 
 def main(root="", board_file="/board.json", grace_ms=GRACE_MS):
     """For main.py: a start-up window in which Ctrl-C reaches the REPL (for mpremote and
-    `edgevib deploy`), then the link takes the USB console and the gateway runs for good."""
+    `edgevib deploy`), then the link takes the USB console and the gateway runs for good.
+    With a site key there is no window and main() never returns to the REPL (the key and the
+    sets would be readable there; docs/protocol.md, "Threat model")."""
     import machine
     import select
     import sys
     import time
     from firmware_py.run import board
+    keyed = site_key(root) is not None
+    if keyed:
+        micropython.kbd_intr(-1)
     try:
         profile = board.load(board_file)
     except board.BoardError as e:
-        print("edgevib: not starting:", e)       # stays in the REPL, no watchdog started
-        return
+        print("edgevib: not starting:", e)       # no watchdog started
+        while keyed:                             # keyed: never fall through to the REPL
+            time.sleep_ms(1000)
+        return                                   # unkeyed: stays in the REPL
     led = StatusLed(None if profile["led_pin"] is None
                     else machine.Pin(profile["led_pin"], machine.Pin.OUT, value=1))
     led.show("starting", 0)
-    time.sleep_ms(grace_ms)
+    if not keyed:
+        time.sleep_ms(grace_ms)
     micropython.kbd_intr(-1)         # frames are binary: byte 0x03 must not interrupt
     link = StreamLink(sys.stdin.buffer, sys.stdout.buffer, select)
     App(machine, profile, root, link, time.ticks_ms, time.ticks_us).run(time.sleep_ms)

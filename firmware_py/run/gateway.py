@@ -24,7 +24,9 @@ import gc
 
 from firmware_py.detect import alarm
 from firmware_py.run import params as params_mod
+from firmware_py.run import param_check
 from firmware_py.dsp.feature_index import F_RMS
+from firmware_py.dsp.counters import COUNT_MAX, sat_add
 
 FW_VERSION = "edgevib-0.1"
 
@@ -40,7 +42,7 @@ class Gateway:
     so its window path never makes a big int; wall-clock times are clock_base + up_s, formed
     only outside the heap lock (status, snapshots, pushes)."""
 
-    def __init__(self, profile, store, snapshots, ticks_ms):
+    def __init__(self, profile, store, snapshots, ticks_ms, latch=None):
         self.profile = profile
         self.params = store
         self.snapshots = snapshots
@@ -54,7 +56,9 @@ class Gateway:
         self.reboot_wanted = False
         self.pending_kind = None     # "alert"/"alarm": a snapshot to save after this window
         self.service = None          # set by the application: pushes the stream
-        self.dropped_seen = 0
+        self.dropped_seen = 0        # frames the detector has been told of (saturates)
+        self.unseen = 0              # frames the ring lost since the last window (timer writes)
+        self.unseen_up = 0           # frames lost upstream since the last window (main loop writes)
         self.lost_elsewhere = 0      # frames dropped outside the present ring: sensor FIFO, old rings
         self.windows = 0
         self.every = profile["analyse_every"]
@@ -68,8 +72,32 @@ class Gateway:
         self.raw_views = [mv[a * n:(a + 1) * n] for a in range(axes)]
         self.raw_valid = False
         self.gaps = array.array('i', bytes(4 * (profile["ring_windows"] + 1)))   # frames
+        # windows wraps at a multiple of len(gaps) (gap slots stay aligned) with windows +
+        # slots below 2**30: every counter here saturates or wraps below the small-int limit
+        self.wrap = len(self.gaps) * (COUNT_MAX // (2 * len(self.gaps)))
         self.raw_gap = 0             # frames lost just before the last processed window
         self.core, self.det = params_mod.build(store.params, profile)
+        store.trial = self.trial_params          # no set is committed before it has run
+        self.latch = latch           # LatchFile, or None: the latched alarm lives in RAM only
+        self.latched = latch.load() if latch is not None else 0   # reason, 0 none
+        self._relatch()
+
+    def trial_params(self, p):
+        """Raise ValueError unless set p runs on this board (firmware_py/run/param_check.py).
+
+        Beside the running set if the heap holds two; else in its place (a board sized for one
+        set, such as the ESP32-S3 profile): the running set is freed, p tried, and the committed
+        set built again, as a commit would (frames in the ring are lost, the latch is kept)."""
+        try:
+            param_check.trial(p, self.profile)
+            return
+        except MemoryError:
+            pass                     # no room to build p beside the running set
+        self._release()
+        try:
+            param_check.trial(p, self.profile)
+        finally:
+            self._adopt(self.params.params)
 
     # ---- samples and windows ----
     def feed(self, src, frames):
@@ -97,12 +125,13 @@ class Gateway:
         ring = self.core.ring
         lost = ring.push(src, k, first)
         if lost:
+            self.unseen = sat_add(self.unseen, lost)
             self._lose(self.windows + ring.slots, lost)
 
     def _skip(self, k):
         ring = self.core.ring
         if self.left == ring.n:
-            self.skipped += 1                                  # its first frame
+            self.skipped = sat_add(self.skipped, 1)            # its first frame
         self._lose(self.windows + ring.filled // ring.n, k)   # before the next window formed
 
     def _next_window(self):
@@ -117,13 +146,16 @@ class Gateway:
         window. Allocation-free (called from the acquisition timer)."""
         ring = self.core.ring
         self.up_frames += frames        # lost frames are time that passed
-        self.lost_elsewhere += frames   # main loop only; ring.dropped belongs to the timer's push
+        self.uptime_s()                 # folded now: no window may come for a long while
+        self.lost_elsewhere = sat_add(self.lost_elsewhere, frames)   # main loop only
+        self.unseen_up = sat_add(self.unseen_up, frames)
         self._lose(self.windows + ring.filled // ring.n, frames)
 
     def _lose(self, w, frames):
         """Note frames lost just before window index w (allocation-free)."""
         g = self.gaps
-        g[w % len(g)] += frames
+        k = w % len(g)
+        g[k] = sat_add(g[k], frames)
 
     def window(self):
         """Run one waiting window through features and detector; False if none waits.
@@ -142,20 +174,25 @@ class Gateway:
         k = self.windows % len(g)
         self.raw_gap = g[k]
         g[k] = 0
-        total = ring.dropped + self.lost_elsewhere
-        d = total - self.dropped_seen
-        self.dropped_seen = total
+        d = self.unseen              # no jump between read and reset: a soft timer cannot split it
+        self.unseen = 0
+        d = sat_add(d, self.unseen_up)
+        self.unseen_up = 0
+        self.dropped_seen = sat_add(self.dropped_seen, d)
         det = self.det
         old = det.state
         new = det.step(core.feats, self.uptime_s(), d)
         if new != old and (new == alarm.ALERT or new == alarm.ALARM):
             self.pending_kind = new
         self.windows += 1
+        if self.windows == self.wrap:
+            self.windows = 0
         return True
 
     def poll(self):
         """Process every waiting window, then do the work that allocates: snapshots, stream."""
         while self.window():
+            self._keep_latch()
             if self.pending_kind is not None:
                 kind = alarm.STATE_NAMES[self.pending_kind]
                 self.pending_kind = None
@@ -164,7 +201,7 @@ class Gateway:
                 self.service.push(self.status())
             if self.raw_on and self.service is not None:
                 t = self.ticks_ms()
-                self.service.push_data("raw", {"w": self.windows - 1, "gap": self.raw_gap,
+                self.service.push_data("raw", {"w": (self.windows - 1) % self.wrap, "gap": self.raw_gap,
                                                "t_s": self.now_s(), "ms": t % 1000},
                                        bytes(self.raw))
 
@@ -194,9 +231,10 @@ class Gateway:
         return {"state": alarm.STATE_NAMES[det.state], "mode": det.mode,
                 "score_q8": det.score_q8, "feature": det.feat, "zone": det.zone,
                 "features": list(self.core.feats), "windows": self.windows,
-                "dropped": self.core.ring.dropped + self.lost_elsewhere, "skipped": self.skipped,
+                "dropped": sat_add(self.core.ring.dropped, self.lost_elsewhere),
+                "skipped": self.skipped,
                 "events": self.snapshots.next_id,
-                "t_s": self.now_s()}
+                "t_s": self.now_s(), "param_crc": self.params.crc()}
 
     def stream(self, on):
         self.streaming = bool(on)
@@ -212,24 +250,55 @@ class Gateway:
         Allocates; the old buffers become garbage, collected here rather than mid-window. Frames
         waiting in the old ring are lost: the raw stream reports them before the next window.
         """
+        self._release()
+        self._adopt(p)
+
+    def _release(self):
+        """Free the running feature core and detector (their losses and latch kept)."""
         lost = self.core.ring.filled
         g = self.gaps
         for i in range(len(g)):
             lost += g[i]
             g[i] = 0
         self._lose(self.windows, lost)
-        self.lost_elsewhere += self.core.ring.dropped     # the count outlives its ring
+        self.lost_elsewhere = sat_add(self.lost_elsewhere, self.core.ring.dropped)   # outlives its ring
+        self._keep_latch()           # a window run outside poll() may have raised it
         del self.core, self.det   # free the old buffers first: the heap holds one set, not two
         gc.collect()
+
+    def _adopt(self, p):
+        """Build and run set p after _release()."""
         self.core, self.det = params_mod.build(p, self.profile)
-        self.dropped_seen = self.lost_elsewhere
+        self._relatch()              # a new set never clears an alarm nobody acknowledged
+        self.unseen = 0              # losses before the new detector existed are not its own
+        self.unseen_up = 0
         self.slot = 0                # the next frame starts a window in the new ring
         self.left = self.core.n
 
     def acknowledge(self):
         latched = self.det.state == alarm.ALARM
         self.det.ack(self.uptime_s())
+        self._keep_latch()
         return latched
+
+    # ---- the latched alarm, kept in the state file (firmware_py/store/latch.py) ----
+    def _keep_latch(self):
+        """Save the latch when it changed: an alarm raised and not acknowledged, or cleared."""
+        a = self.det.alarm
+        r = a.reason if a.level == alarm.ALARM and not a.acked else 0
+        if r != self.latched:
+            self.latched = r
+            if self.latch is not None:
+                self.latch.save(r)
+
+    def _relatch(self):
+        """Put a latched alarm (self.latched, its reason) back into a freshly built detector."""
+        if self.latched:
+            det = self.det
+            det.alarm.level = alarm.ALARM
+            det.alarm.reason = self.latched
+            det.alarm.acked = False
+            det.state = alarm.ALARM
 
     def learn(self, on):
         if on:

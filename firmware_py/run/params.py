@@ -70,7 +70,7 @@ def factory(profile):
     p = {"version": 0, "board": profile["name"], "fs_hz": fs, "n": n, "axes": axes,
          "counts_per_g": s["counts_per_g"], "fc_bands": bands, "fc_vel_hz": [10, hi]}
     p.update(detector.default_params(axes, len(bands), vel_per_mm_s(s["counts_per_g"]),
-                                     full_scale=s["adc_max"]))
+                                     full_scale=s["adc_max"], n=n, fs_hz=fs))
     return p
 
 

@@ -71,17 +71,21 @@ class ParamStore:
     the encoded MessagePack body used when no valid file exists (first boot); it must itself be
     a valid set for this gateway. key, if given, is
     the site key: only signed sets with a higher version are accepted, and rollback is signed.
+    gateway_id (str), if given, names this gateway: a set whose body has a 'gateway' key runs only
+    on the gateway of that id (the key is inside the signed body, so a signed set cannot be moved).
     """
 
-    def __init__(self, root, board, fs_hz, n, axes, factory, key=None, cap=8192):
+    def __init__(self, root, board, fs_hz, n, axes, factory, key=None, cap=8192, gateway_id=None):
         self.cur = root + "/params.cur"
         self.old = root + "/params.old"
         self.new = root + "/params.new"
+        self.bad = root + "/params.bad"   # a committed set that would not run, kept to inspect
         self.board = board
         self.fs_hz = fs_hz
         self.n = n
         self.axes = axes
         self.key = key
+        self.gateway_id = gateway_id   # str naming this gateway; a set with 'gateway' must match
         self.cap = cap
         self._factory = build_image(factory)
         self._stage = bytearray(cap)
@@ -90,6 +94,7 @@ class ParamStore:
         self.params = None
         self.image = b""         # committed image; boot() always sets it
         self.source = None       # which file the running set came from: cur, new, old, factory
+        self.trial = None        # trial(params): raise ValueError unless the set runs (param_check)
         self.boot()
 
     # ---- checking ----
@@ -134,6 +139,9 @@ class ParamStore:
             raise ParamError("set is for windows of %d samples, this gateway uses %d" % (p["n"], self.n))
         if p["axes"] != self.axes:
             raise ParamError("set is for %d axes, this gateway has %d" % (p["axes"], self.axes))
+        g = p.get("gateway")
+        if g is not None and g != self.gateway_id:
+            raise ParamError("set is bound to gateway %s, this is %s" % (g, self.gateway_id))
         if strict and self.key and self.version is not None and p["version"] <= self.version:
             raise ParamError("version %d is not newer than committed %d" % (p["version"], self.version))
         return p
@@ -184,6 +192,14 @@ class ParamStore:
         self._adopt((self.check(self._factory, len(self._factory), False), self._factory), "factory")
         return self.params
 
+    def quarantine(self):
+        """Move the committed set aside (params.bad) and boot the one before it, or the
+        factory set: for a set that passed every check and still failed on this gateway."""
+        _remove(self.bad)
+        if _exists(self.cur):
+            os.rename(self.cur, self.bad)
+        return self.boot()
+
     # ---- staging and commit ----
     def stage_write(self, off, data):
         """Append a chunk of an image; offset 0 starts a new one. Chunks must be contiguous."""
@@ -204,8 +220,14 @@ class ParamStore:
         self._pending = None
         if size != self._staged:
             raise ParamError("have %d bytes staged, expected %d" % (self._staged, size))
-        self._pending = self.check(self._stage, size, True)
-        return self._pending
+        p = self.check(self._stage, size, True)
+        if self.trial is not None:
+            try:
+                self.trial(p)
+            except ValueError as e:
+                raise ParamError("set does not run on this gateway: " + str(e))
+        self._pending = p
+        return p
 
     def staged_crc(self):
         """CRC-32 trailer of the staged image, as an int."""

@@ -7,17 +7,18 @@ from __future__ import annotations
 
 import argparse
 
-from host_tools.link.device_link import connected
+from host_tools.link.device_link import add_key_argument, connected, read_key
 
 HELP = "acknowledge a latched alarm on a gateway"
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    add_key_argument(p)
 
 
 def run(args: argparse.Namespace) -> int:
-    with connected(args.port) as c:
+    with connected(args.port, key=read_key(args.key_file)) as c:
         latched = c.acknowledge()
         state = c.status()["state"]
     if not latched:

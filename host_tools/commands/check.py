@@ -44,9 +44,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     inputs = {Path(args.recording).resolve(), sidecar_path(args.recording).resolve()}
+    if args.board:
+        inputs.add(Path(args.board).resolve())
     for path, suffix in ((args.json, None), (args.plot, ".png")):
         if path is not None:
             _check_output(Path(path), suffix, inputs)
+            inputs.add(Path(path).resolve())       # --json and --plot may not name one file
     if args.lines < 1:
         raise EdgevibError("--lines must be at least 1")
     if args.vanes is not None and args.vanes < 1:
@@ -75,7 +78,7 @@ def run(args: argparse.Namespace) -> int:
 
 def _check_output(path: Path, suffix: str | None, inputs: set[Path]) -> None:
     if path.resolve() in inputs:
-        raise EdgevibError(f"{path}: would overwrite the recording or its sidecar; choose another name")
+        raise EdgevibError(f"{path}: would overwrite an input or another output; choose another name")
     if suffix and path.suffix.lower() != suffix:
         raise EdgevibError(f"{path}: the plot is written as PNG: give a {suffix} file name")
     if not path.parent.is_dir():

@@ -19,7 +19,7 @@ from firmware_py.dsp import feature_index as fi
 from firmware_py.store.snapshots import parse
 from host_tools.data import units
 from host_tools.data.units import m_s2_per_count
-from host_tools.link.device_link import committed_params, connected, raw_frames
+from host_tools.link.device_link import add_key_argument, committed_params, connected, raw_frames, read_key
 from host_tools.progress import progress_bar
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
@@ -31,6 +31,7 @@ AXIS_NAMES = ("x", "y", "z")
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    add_key_argument(p)
     p.add_argument("--out", required=True, metavar="DIR", help="folder for the snapshots (made if missing)")
 
 
@@ -89,7 +90,7 @@ def run(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise EdgevibError(f"{out}: exists and is not a folder")
-    with connected(args.port) as c:
+    with connected(args.port, key=read_key(args.key_file)) as c:
         board = c.identify()["board"]
         scale = m_s2_per_count(committed_params(c))
         listed = c.event_list()

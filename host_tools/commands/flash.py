@@ -19,6 +19,7 @@ from host_tools.link.device_link import connected, read_key
 from host_tools.progress import progress_bar
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
+from host_tools.ops.param_gate import profile_for, prove
 
 HELP = "upload a parameter set to a gateway, verify, commit and read it back"
 
@@ -27,6 +28,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("params", metavar="PARAMS.msgpack", help="parameter set body (a MessagePack map)")
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
     p.add_argument("--key-file", metavar="K", help="site key file: sign the set (its bytes are the key)")
+    p.add_argument("--bind", action="store_true",
+                   help="bind the set to this one gateway (its id goes into the signed body)")
 
 
 def flash(c, image: bytes, progress=None) -> dict:
@@ -58,9 +61,18 @@ def flash(c, image: bytes, progress=None) -> dict:
 
 def run(args: argparse.Namespace) -> int:
     data, body = load_body(args.params)
+    profile = profile_for(body)
+    if profile is not None:        # a board the host knows: prove the set runs before sending
+        prove(body, profile, args.params)
     key = read_key(args.key_file)
-    image = build_image(data, key)
-    with connected(args.port) as c:
+    with connected(args.port, key=key) as c:
+        if args.bind:
+            gid = c.identify().get("gateway_id")
+            if not isinstance(gid, str):
+                raise EdgevibError(f"the gateway on {args.port} has no id to bind the set to")
+            body["gateway"] = gid
+            data = msgpack.packb(body, use_bin_type=True)
+        image = build_image(data, key)
         with progress_bar(len(image), "bytes", "upload") as bar:
             sent = [0]
 
@@ -68,7 +80,7 @@ def run(args: argparse.Namespace) -> int:
                 bar.update(done - sent[0])
                 sent[0] = done
             r = flash(c, image, progress=advance)
-    signed = ", signed" if key else ""
+    signed = (", signed" if key else "") + (", bound to this gateway" if args.bind else "")
     print(f"flashed version {r['version']} (CRC 0x{r['crc']:08x}, {r['bytes']} bytes{signed}) "
           f"to {args.port} in {r['seconds']:.2f} s; read back identical")
     return 0

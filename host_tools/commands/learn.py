@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import argparse
 
-from host_tools.link.device_link import connected
+from host_tools.link.device_link import add_key_argument, connected, read_key
 from host_tools.errors import EdgevibError
 
 HELP = "start or stop learning this pump's normal on the gateway"
@@ -19,10 +19,16 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     g.add_argument("--start", action="store_true", help="start learning (baseline, then operating modes)")
     g.add_argument("--stop", action="store_true", help="abandon learning; the model in use stays")
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    add_key_argument(p)
 
 
 def run(args: argparse.Namespace) -> int:
-    with connected(args.port) as c:
+    with connected(args.port, key=read_key(args.key_file)) as c:
+        if args.stop:
+            was = c.status()["state"]
+            if was != "learning":
+                print(f"the gateway was not learning (it is {was}); nothing to stop")
+                return 0
         c.learn(bool(args.start))
         state = c.status()["state"]
     if args.start and state != "learning":

@@ -18,7 +18,7 @@ import firmware_py  # noqa: F401
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect.iso_zones import ZONE_NAMES
 from host_tools.data import units
-from host_tools.link.device_link import committed_params, connected
+from host_tools.link.device_link import add_key_argument, committed_params, connected, read_key
 from host_tools.errors import EdgevibError, LinkError
 
 HELP = "live view of a gateway: state, mode, score, ISO zone and the main features"
@@ -34,6 +34,7 @@ class View:
     fw: str
     port: str
     version: int
+    crc: int              # identify's param_crc: the set this view describes
     axes: int
     scale: float          # m/s^2 per count
     alert_q8: int | None
@@ -43,6 +44,7 @@ class View:
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    add_key_argument(p)
     p.add_argument("--once", action="store_true", help="print one status and exit")
     p.add_argument("--updates", type=int, metavar="N", help="stop after N updates (default: until Ctrl-C)")
 
@@ -115,7 +117,8 @@ def render_line(st: dict, v: View) -> str:
 
     t = st.get("t_s")
     stamp = datetime.fromtimestamp(t, timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ") if isinstance(t, int) else "-"
-    return (f"{stamp} state={state} mode={mode} score={score} zone={zone} driver={driver.replace(' ', '.')} "
+    return (f"{stamp} set=v{v.version} state={state} mode={mode} score={score} zone={zone} "
+            f"driver={driver.replace(' ', '.')} "
             f"vel_mm_s={per_axis('vel', '.2f')} rms_m_s2={per_axis('rms', '.3f')} "
             f"peak_m_s2={per_axis('peak', '.3f')} crest={per_axis('crest', '.2f')} "
             f"kurt={per_axis('kurt', '.2f')} windows={st['windows']} dropped={st['dropped']} "
@@ -140,7 +143,7 @@ def view_of(c, port: str) -> View:
     info = c.identify()
     p = committed_params(c)
     return View(board=info["board"], fw=info["fw"], port=port, version=info["param_version"],
-                axes=info["axes"], scale=units.m_s2_per_count(p), alert_q8=p.get("det_thr_alert_q8"),
+                crc=info["param_crc"], axes=info["axes"], scale=units.m_s2_per_count(p), alert_q8=p.get("det_thr_alert_q8"),
                 alarm_q8=p.get("det_thr_alarm_q8"), params=p)
 
 
@@ -148,7 +151,7 @@ def run(args: argparse.Namespace) -> int:
     if args.updates is not None and args.updates < 1:
         raise EdgevibError("--updates must be at least 1")
     out = sys.stdout
-    with connected(args.port) as c:
+    with connected(args.port, key=read_key(args.key_file)) as c:
         v = view_of(c, args.port)
         if args.once:
             st = c.status()
@@ -160,6 +163,8 @@ def run(args: argparse.Namespace) -> int:
         try:
             while args.updates is None or shown < args.updates:
                 st = _next_status(c)
+                if st.get("param_crc", v.crc) != v.crc:     # a new set: version, limits, scale
+                    v = view_of(c, args.port)
                 if screen is not None:
                     screen.draw(render_block(st, v))
                 else:

@@ -24,7 +24,7 @@ from pathlib import Path
 import numpy as np
 
 from host_tools.data.units import m_s2_per_count
-from host_tools.link.device_link import committed_params, connected, raw_frames
+from host_tools.link.device_link import add_key_argument, committed_params, connected, raw_frames, read_key
 from host_tools.progress import start
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.data.recording import write_wav
@@ -45,6 +45,7 @@ class Part:
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
+    add_key_argument(p)
     p.add_argument("--seconds", type=float, required=True, metavar="S", help="how long to record")
     p.add_argument("--out", required=True, metavar="REC.wav", help="output WAV (sidecar REC.json beside it)")
 
@@ -122,7 +123,7 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError(f"{out}: --out must name a .wav file")
     if not out.parent.is_dir():
         raise EdgevibError(f"{out.parent}: no such folder")
-    with connected(args.port) as c:
+    with connected(args.port, key=read_key(args.key_file)) as c:
         info = c.identify()
         scale = m_s2_per_count(committed_params(c))
         n, axes, fs = info["n"], info["axes"], info["fs_hz"]
@@ -159,9 +160,10 @@ def run(args: argparse.Namespace) -> int:
     rate_kb = total_frames * axes * 2 / 1000 / elapsed if elapsed > 0 else float("inf")
     print(f"recorded {total_frames / fs:.3f} s ({total_frames} frames x {axes} axes) from {args.port} "
           f"into {names}; {rate_kb:.1f} kB/s over the link")
-    if col.missed:
-        print(f"missed {col.missed} windows ({col.missed * n / fs:.3f} s): written as {len(written)} "
-              "gap-free parts, never joined across a gap")
+    if col.missed:       # less than asked for is never a success (exit 3: the link lost them)
+        raise LinkError(f"missed {col.missed} windows ({col.missed * n / fs:.3f} s) of the "
+                        f"{args.seconds:g} s asked for: written as {len(written)} gap-free parts, "
+                        "never joined across a gap")
     return 0
 
 

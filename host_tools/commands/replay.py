@@ -35,10 +35,11 @@ from typing import Any, BinaryIO
 
 
 from host_tools.data.analysis import profile_for_set
-from host_tools.data.files import check_outputs, load_body
+from host_tools.data.files import check_outputs, load_body, require_existing
 from host_tools.data.recording import atomic_open, atomic_write, open_stream
 from host_tools.data.times import moment
 from host_tools.errors import EdgevibError
+from host_tools.ops.param_gate import prove
 from host_tools.data.units import m_s2_per_count
 from host_tools.twin.replay import (ReplayChunk, ReplayResult, csv_header, csv_rows, default_jobs, group_sources,
                                    replay, stream_names)
@@ -87,14 +88,19 @@ def open_sources(paths: list[str], params: dict) -> tuple[list[list[Any]], list[
 
 def run(args: argparse.Namespace) -> int:
     _, params = load_body(args.params)
+    if args.board is None and not isinstance(params["board"], str):
+        raise EdgevibError(f"{args.params}: 'board' must be a str")
     if args.jobs < 1:
         raise EdgevibError("--jobs must be at least 1")
     sources = [Path(s) for s in args.recordings]
+    require_existing(sources)
     outs = [Path(p) for p in (args.json, args.windows_csv) if p]
-    check_outputs(outs + ([Path(args.report)] if args.report else []), sources)
+    inputs = sources + [Path(args.params)] + ([Path(args.board)] if args.board else [])
+    check_outputs(outs + ([Path(args.report)] if args.report else []), inputs)
     report = _report_module() if args.report else None
     streams, _ = open_sources(args.recordings, params)
     profile = profile_for_set(params, args.board, streams[0])
+    prove(params, profile, args.params)
     if args.windows_csv:
         with atomic_open(Path(args.windows_csv)) as f:
             names = stream_names(streams)

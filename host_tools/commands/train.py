@@ -20,7 +20,7 @@ from firmware_py.codec import mpack
 from firmware_py.run import params as pm
 from host_tools.errors import EdgevibError
 from host_tools.data.analysis import desk_profile, scale_of
-from host_tools.data.files import check_outputs, load_board
+from host_tools.data.files import check_outputs, load_board, require_existing
 from host_tools.data.recording import atomic_write, open_stream, read_stream
 from host_tools.progress import note
 from host_tools.twin.replay import default_jobs, group_sources
@@ -57,7 +57,8 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError(f"{out}: the parameter set is written as .msgpack; give a .msgpack name")
     paths = list(outputs(out))
     sources = [Path(s) for s in args.normal]
-    check_outputs(paths, sources)
+    require_existing(sources)
+    check_outputs(paths, sources + ([Path(args.board)] if args.board else []))
     if not args.false_alerts_per_month > 0:
         raise EdgevibError("--false-alerts-per-month must be a positive number")
     if not 0 <= args.version < 1 << 30:

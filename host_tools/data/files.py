@@ -1,6 +1,7 @@
 """Files the commands read and write: parameter-set bodies, board profiles, and output paths.
 
-Entry points: load_body(path) -> (bytes, map), load_board(path) -> profile, check_outputs(paths,
+Entry points: load_body(path) -> (bytes, map), load_board(path) -> profile, require_existing(paths)
+refuses recordings or folders that are not there, check_outputs(paths,
 sources) refuses outputs that would overwrite an input; DEFAULT_BOARD.
 """
 from __future__ import annotations
@@ -45,6 +46,13 @@ def load_board(path: str | Path | None) -> dict:
         return board.load(str(path or DEFAULT_BOARD))
     except board.BoardError as e:
         raise EdgevibError(f"board profile {e}") from None
+
+
+def require_existing(sources: list[Path]) -> None:
+    """One clear line for a recording or folder that is not there."""
+    for s in sources:
+        if not s.exists():
+            raise EdgevibError(f"{s}: no such recording or folder")
 
 
 def check_outputs(paths: list[Path], sources: list[Path]) -> None:

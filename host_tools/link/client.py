@@ -20,8 +20,9 @@ class Client:
         self.link = link
 
     @classmethod
-    def open(cls, port: str, timeout_s: float = 1.0, retries: int = 2) -> "Client":
-        return cls(Link(open_transport(port), timeout_s, retries))
+    def open(cls, port: str, timeout_s: float = 1.0, retries: int = 2,
+             key: bytes | None = None) -> "Client":
+        return cls(Link(open_transport(port), timeout_s, retries, key))
 
     def close(self) -> None:
         self.link.close()

@@ -19,13 +19,20 @@ MIN_KEY_BYTES = 16
 
 
 @contextlib.contextmanager
-def connected(port: str, timeout_s: float = 1.0) -> Iterator[Client]:
-    """A Client on port (a serial path or transport name), closed on leaving."""
-    c = Client.open(port, timeout_s=timeout_s)
+def connected(port: str, timeout_s: float = 1.0, key: bytes | None = None) -> Iterator[Client]:
+    """A Client on port (a serial path or transport name), closed on leaving; with the site
+    key, the commands a keyed gateway wants signed are signed (firmware_py/link/auth.py)."""
+    c = Client.open(port, timeout_s=timeout_s, key=key)
     try:
         yield c
     finally:
         c.close()
+
+
+def add_key_argument(p) -> None:
+    """--key-file for a command that a keyed gateway wants signed."""
+    p.add_argument("--key-file", metavar="K",
+                   help="site key file: sign the command for a gateway that holds the key")
 
 
 def read_key(path: str | None) -> bytes | None:

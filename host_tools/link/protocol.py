@@ -4,31 +4,40 @@ are MessagePack through the reference `msgpack` library. Raises LinkError on any
 from __future__ import annotations
 
 import collections
+import hmac
 import os
 import time
 
 import msgpack
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in the device modules import)
-from firmware_py.link import frames
+from firmware_py.link import auth, frames
 from host_tools.errors import LinkError
 
 MAX_PAYLOAD = 65536   # the host accepts larger frames than any device sends
+FREE_RESENDS = 4      # resends after a frame-error reply that do not use up a try
 
 
 class DeviceRefused(LinkError):
-    """The device answered with an error reply; .code is its err field (see docs/protocol.md)."""
+    """The device answered with an error reply; .code is its err field (see docs/protocol.md).
+
+    The gateway answered, so the request was wrong (bad argument, refused set, missing event,
+    wrong or missing signature): exit status 2, like any bad input. Only "fail" (the gateway
+    raised doing it) and "frame" (damaged on the wire) are device or link trouble: 3."""
 
     def __init__(self, cmd: str, code: str, msg: str):
         super().__init__(f"gateway refused {cmd}: {msg}")
         self.code = code
+        self.exit_status = 3 if code in ("fail", "frame") else 2
 
 
 class Link:
     """Request/reply over transport. timeout_s per attempt, retries extra attempts."""
 
-    def __init__(self, transport, timeout_s: float = 1.0, retries: int = 2):
+    def __init__(self, transport, timeout_s: float = 1.0, retries: int = 2, key: bytes | None = None):
         self.transport = transport
+        self.key = key            # site key: commands in firmware_py.link.auth.SIGNED are signed
+        self._nonce: str | None = None
         self.timeout_s = timeout_s
         self.retries = retries
         self._rx = frames.Receiver(MAX_PAYLOAD)
@@ -46,8 +55,8 @@ class Link:
         out = bytearray(frames.wire_size(len(payload)))
         return bytes(out[:frames.encode(buf, len(payload), out)])
 
-    def _pump(self, timeout_s: float) -> None:
-        """Read what arrives within timeout_s and queue every good frame."""
+    def _pump(self, timeout_s: float) -> int:
+        """Read what arrives within timeout_s and queue every good frame; the bytes read."""
         data = self.transport.read(4096, timeout_s)
         for b in data:
             k = self._rx.push(b)
@@ -65,19 +74,49 @@ class Link:
                     self._ready.append(msg)
                 else:
                     self.bad_frames += 1
+        return len(data)
 
     def request(self, cmd: str, **args) -> dict:
-        """Send cmd with args and return the reply's results (seq and ok removed)."""
+        """Send cmd with args and return the reply's results (seq and ok removed). With a site
+        key, a command in auth.SIGNED is signed over the device's current nonce; a nonce that
+        went stale (another client's signed command) is fetched again once."""
+        if self.key and cmd in auth.SIGNED:
+            try:
+                return self._signed(cmd, args)
+            except DeviceRefused as e:
+                if e.code != "auth":
+                    raise
+                self._nonce = None
+                return self._signed(cmd, args)
+        return self._exchange(cmd, args)
+
+    def _signed(self, cmd: str, args: dict) -> dict:
+        if self._nonce is None:
+            self._nonce = self._exchange("identify", {})["nonce"]
+        sig = hmac.new(self.key, auth.message(cmd, self._nonce, args), "sha256").digest()
+        self._nonce = None
+        r = self._exchange(cmd, {**args, "sig": sig})
+        self._nonce = r.pop("nonce", None)
+        return r
+
+    def _exchange(self, cmd: str, args: dict) -> dict:
+        """One request, its retries, and the reply for its sequence number only."""
         self._seq = self._seq % 0xFFFF + 1
         seq = self._seq
         frame = self._frame({"seq": seq, "cmd": cmd, **args})
-        for _ in range(self.retries + 1):
+        self._drain()
+        tries, free = 0, FREE_RESENDS
+        while tries < self.retries + 1:
+            tries += 1
             self.transport.write(frame)
             self.frames_sent += 1
             deadline = time.monotonic() + self.timeout_s
             while True:
                 reply = self._take(seq)
                 if reply == "resend":
+                    if free > 0:         # a damaged frame: resend, not counted as a try
+                        free -= 1
+                        tries -= 1
                     break
                 if reply is not None:
                     if not reply.get("ok"):
@@ -90,9 +129,16 @@ class Link:
         raise LinkError(f"no reply to {cmd} after {self.retries + 1} tries "
                         f"({self.timeout_s:g} s each)")
 
+    def _drain(self) -> None:
+        """Drop replies that wait from before this request (stale frame errors, late replies);
+        unsolicited pushes are kept."""
+        while self._pump(0.0):
+            pass
+        self._ready.clear()
+
     def _take(self, seq: int):
         """The queued reply for seq, "resend" if the device reported a damaged frame, or None.
-        Replies to older requests (late duplicates) are dropped."""
+        Replies to other sequence numbers (late duplicates) are dropped."""
         while self._ready:
             msg = self._ready.popleft()
             if msg.get("seq") == seq:

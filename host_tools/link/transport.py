@@ -13,7 +13,8 @@ import select
 import threading
 import tty
 
-from host_tools.errors import LinkError
+from host_tools.errors import EdgevibError, LinkError
+from host_tools.link.port_lock import PortBusy, PortLock
 
 DEFAULT_BAUD = 115200
 
@@ -24,10 +25,16 @@ class SerialTransport:
     def __init__(self, path: str, baud: int = DEFAULT_BAUD):
         import serial
 
+        self._lock = PortLock(path).acquire()        # PortBusy (exit 2) if another client has it
         try:
-            self._port = serial.Serial(path, baudrate=baud, timeout=0)
-        except (serial.SerialException, OSError) as e:
-            raise LinkError(f"cannot open serial port {path}: {e}") from e
+            # exclusive: a POSIX flock on the port itself (pyserial); Windows ports are exclusive
+            extra = {"exclusive": True} if os.name == "posix" else {}
+            self._port = serial.Serial(path, baudrate=baud, timeout=0, **extra)
+        except (serial.SerialException, OSError, ValueError) as e:
+            self._lock.release()
+            if "exclusive" in str(e) or "lock" in str(e).lower():
+                raise PortBusy(f"port {path} in use by another program ({e})") from None
+            raise EdgevibError(f"cannot open serial port {path}: {e}") from None
         self.port = path
 
     def write(self, data: bytes) -> None:
@@ -50,6 +57,7 @@ class SerialTransport:
 
     def close(self) -> None:
         self._port.close()
+        self._lock.release()
 
 
 class PtyTransport:
@@ -136,8 +144,8 @@ def open_transport(name: str):
         for item in query.split("&"):
             key, _, value = item.partition("=")
             if key != "baud" or not value.isdigit():
-                raise LinkError(f"unknown port option '{item}' in {name} (only baud=N)")
+                raise EdgevibError(f"unknown port option '{item}' in {name} (only baud=N)")
             baud = int(value)
     if not path:
-        raise LinkError(f"no port named in '{name}'")
+        raise EdgevibError(f"no port named in '{name}'")
     return SerialTransport(path, baud)

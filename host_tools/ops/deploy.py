@@ -81,7 +81,7 @@ def parameter_image(path: Path, profile: dict) -> bytes:
     store would accept it for this board and the feature core and detector can run it."""
     import msgpack
 
-    from firmware_py.run import params as params_mod
+    from firmware_py.run import param_check, params as params_mod
     from firmware_py.store.paramstore import MAGIC, ParamError, ParamStore, build_image
 
     try:
@@ -105,9 +105,9 @@ def parameter_image(path: Path, profile: dict) -> bytes:
         except ParamError as e:
             raise EdgevibError(f"{path}: {e}")
     try:
-        params_mod.build(p, profile)
-    except (ValueError, KeyError, TypeError) as e:
-        raise EdgevibError(f"{path}: the detector cannot run this set ({e})")
+        param_check.trial(p, profile)
+    except ValueError as e:
+        raise EdgevibError(f"{path}: parameter set refused: {e}") from None
     return data
 
 
@@ -149,8 +149,13 @@ def build_files(pl: Plan, param_image: bytes | None, echo=print) -> list[Path]:
     """Run the compile steps into a fresh folder and move it to pl.build whole. Returns the
     .mpy files. EdgevibError naming the module if mpy-cross refuses one."""
     parent = pl.build.parent
-    parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix="." + pl.build.name + ".", dir=parent))
+    if pl.build.exists() and not pl.build.is_dir():
+        raise EdgevibError(f"{pl.build}: exists and is not a folder")
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix="." + pl.build.name + ".", dir=parent))
+    except OSError as e:
+        raise EdgevibError(f"{pl.build}: cannot make the build folder ({e.strerror})") from None
     try:
         reals = []
         for cmd in pl.compile_cmds:

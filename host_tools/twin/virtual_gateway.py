@@ -33,6 +33,7 @@ import array
 import errno
 import os
 import select
+import sys
 import termios
 import threading
 import time
@@ -47,6 +48,7 @@ from firmware_py.codec import mpack
 from firmware_py.run.gateway import Gateway
 from firmware_py.store.paramstore import ParamStore
 from firmware_py.link.service import Service
+from firmware_py.store.latch import LatchFile
 from firmware_py.store.snapshots import SnapshotRing
 from host_tools.errors import EdgevibError
 from host_tools.data.recording import read_recording
@@ -66,6 +68,22 @@ def load_profile(path: str | os.PathLike | None) -> dict:
         return board.load(str(path or DESK_BOARD))
     except board.BoardError as e:
         raise EdgevibError(f"board profile {e}") from None
+
+
+def _gateway_id(state_dir: str) -> str:
+    """The virtual gateway's id, as a board's unique id: drawn once, kept in state_dir/gateway.id."""
+    path = os.path.join(state_dir, "gateway.id")
+    try:
+        with open(path) as f:
+            gid = f.read().strip()
+        if gid:
+            return gid
+    except OSError:
+        pass
+    gid = os.urandom(8).hex()
+    with open(path, "w") as f:
+        f.write(gid + "\n")
+    return gid
 
 
 class VirtualGateway:
@@ -96,6 +114,7 @@ class VirtualGateway:
             os.makedirs(self.state_dir, exist_ok=True)
         except OSError as e:
             raise EdgevibError(f"{state_dir}: cannot make the state folder ({e.strerror})") from None
+        self.gateway_id = _gateway_id(self.state_dir)
         self.speed = float(speed)
         self.loop = loop
         self.key = key
@@ -106,6 +125,7 @@ class VirtualGateway:
         self.boot_pos = 0             # recording frame at which the current gateway booted
         self.boots = 0
         self.push_dropped = 0
+        self.faults: list[str] = []   # exceptions the gateway raised, as the board would report
         self.ended = threading.Event()     # the recording has been fed to its end (once)
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
@@ -125,11 +145,11 @@ class VirtualGateway:
         """Start the firmware on the files in state_dir, as a board does at power-up."""
         p = self.profile
         store = ParamStore(self.state_dir, p["name"], self.fs, p["window_n"], p["axes"],
-                           self._factory, key=self.key, cap=PARAM_CAP)
+                           self._factory, key=self.key, cap=PARAM_CAP, gateway_id=self.gateway_id)
         snaps = SnapshotRing(self.state_dir, SNAPSHOT_SLOTS, self.fs, p["window_n"], p["axes"])
         self.boot_fed = self.fed
         self.boot_pos = self.pos
-        gw = Gateway(p, store, snaps, self._ticks_ms)
+        gw = Gateway(p, store, snaps, self._ticks_ms, LatchFile(os.path.join(self.state_dir, "alarm.latch")))
         gw.clock_base = int(self.t0_s + self.pos / self.fs)
         gw.service = Service(gw, self._write)
         self.gateway = gw
@@ -153,13 +173,26 @@ class VirtualGateway:
         self.pos += k
         self.fed += k
         gw = self.gateway
-        gw.feed(src, k)
         self._drop_pushes = len(self._tx) > PUSH_BACKLOG    # for every push of these windows
         try:
+            gw.feed(src, k)
             gw.poll()
+        except Exception as e:        # what resets a board: reported, and the gateway restarts
+            self._fault(e)
         finally:
             self._drop_pushes = False
         return True
+
+    def _fault(self, e: Exception) -> None:
+        """The window path raised: report it, move a committed set aside (the factory set always
+        runs), and boot again on the files, as the board's reset and fall-back would."""
+        what = f"{type(e).__name__}: {e}"
+        self.faults.append(what)
+        print(f"virtual gateway: the gateway raised {what}; restarting", file=sys.stderr)
+        store = self.gateway.params
+        if store.source != "factory":
+            store.quarantine()
+        self._boot()
 
     # ---- the link ----
     def _link(self, timeout_s: float) -> None:
@@ -180,6 +213,9 @@ class VirtualGateway:
                 data = b""
             if data:
                 self.gateway.service.receive(data)
+                if not hasattr(self.gateway, "det"):
+                    # a committed set that could not be built (App._serve does the same)
+                    self._fault(RuntimeError("the committed set could not be built"))
                 if self.gateway.reboot_wanted:
                     self._flush()
                     self._boot()
