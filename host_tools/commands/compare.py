@@ -18,9 +18,10 @@ import sys
 from pathlib import Path
 
 from host_tools.data.analysis import profile_for_set
-from host_tools.data.files import check_outputs, expected_rate, load_body
+from host_tools.data.files import check_outputs, expected_rate, load_body, require_existing
 from host_tools.data.recording import atomic_write, open_stream
 from host_tools.errors import EdgevibError
+from host_tools.ops.param_gate import prove
 from host_tools.report.compare_report import comparison_text, write_compare_report
 from host_tools.twin.compare import SetUnderTest, compare
 from host_tools.data.units import m_s2_per_count
@@ -44,14 +45,18 @@ def run(args: argparse.Namespace) -> int:
     if args.jobs < 1:
         raise EdgevibError("--jobs must be at least 1")
     sources = [Path(s) for s in args.recordings]
+    require_existing(sources)
     outs = [Path(args.json)] if args.json and args.json != "-" else []
-    check_outputs(outs + ([Path(args.report)] if args.report else []), sources)
+    inputs = sources + [Path(args.old), Path(args.new)] + ([Path(args.board)] if args.board else [])
+    check_outputs(outs + ([Path(args.report)] if args.report else []), inputs)
     groups = group_sources(sources)
     sets, streams = [], []
     for path in (Path(args.old), Path(args.new)):
         _, params = load_body(str(path))
         recs = [open_stream(g, expected_rate_hz=params["fs_hz"], m_s2_per_count=m_s2_per_count(params)) for g in groups]
-        sets.append(SetUnderTest(path.name, params, profile_for_set(params, args.board, recs[0]), expected_rate(path)))
+        profile = profile_for_set(params, args.board, recs[0])
+        prove(params, profile, str(path))
+        sets.append(SetUnderTest(path.name, params, profile, expected_rate(path)))
         streams.append(recs)
     c = compare((streams[0], streams[1]), sets, jobs=args.jobs, progress=True, names=stream_names(streams[0]))
     doc = (json.dumps(c.to_json(), indent=1) + "\n").encode()

@@ -88,6 +88,8 @@ def open_sources(paths: list[str], params: dict) -> tuple[list[list[Any]], list[
 
 def run(args: argparse.Namespace) -> int:
     _, params = load_body(args.params)
+    if args.board is None and not isinstance(params["board"], str):
+        raise EdgevibError(f"{args.params}: 'board' must be a str")
     if args.jobs < 1:
         raise EdgevibError("--jobs must be at least 1")
     sources = [Path(s) for s in args.recordings]
