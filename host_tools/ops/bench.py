@@ -353,9 +353,13 @@ def host_figures(seconds: float = 60.0, repeat: int = 5) -> dict:
     }
 
 
-def workflow_figures() -> dict:
-    """Training time per hour of 3200 Hz recording and end-to-end replay throughput (reading the
-    files, features, device detector, events), on one core, on a small invented demo scenario."""
+STREAM_MINUTES = 20.0   # length of the long single stream replayed by stream_figures
+
+
+def workflow_figures(stream_minutes: float = STREAM_MINUTES) -> dict:
+    """Training time per hour of 3200 Hz recording and replay throughput on a small invented demo
+    scenario (snapshots: reading the files, features, device detector, events, on one core); then
+    stream_figures on one long stream made of the same field data."""
     import json
     import tempfile
     from pathlib import Path
@@ -379,15 +383,80 @@ def workflow_figures() -> dict:
         t0 = time.perf_counter()
         res = replay.replay([field], p, profile)           # reads the files itself
         replay_s = time.perf_counter() - t0
-        frames = sum(r.n_frames for r in read_stream(field))
+        field_recs = read_stream(field)
+        frames = sum(r.n_frames for r in field_recs)
         axes = profile["axes"]
-    return {
-        "train_s_per_hour": round(train_s / hours, 1),
-        # samples are per axis: a 3-axis frame at 3200 Hz is 3 samples
-        "replay_msamples_per_s": round(frames * axes / replay_s / 1e6, 2),
-        "replay_x_real_time": round(frames / replay_s / profile["sample_rate_hz"]),
-        "replay_windows": int(res.summary["total"]["windows"]),
-    }
+        figures = {
+            "train_s_per_hour": round(train_s / hours, 1),
+            # samples are per axis: a 3-axis frame at 3200 Hz is 3 samples
+            "replay_snapshots_msamples_per_s": round(frames * axes / replay_s / 1e6, 2),
+            "replay_snapshots_windows": int(res.summary["total"]["windows"]),
+        }
+        figures.update(stream_figures(d, p, field_recs, stream_minutes))
+    return figures
+
+
+# Replays one recording in this child process, then prints windows, seconds and peak RSS (VmHWM,
+# KiB: the process's own peak since exec; ru_maxrss would carry the parent's across fork).
+_STREAM_CHILD = """
+import sys, time, msgpack
+from host_tools.data.analysis import profile_for_set
+from host_tools.data.recording import open_stream
+from host_tools.twin.replay import m_s2_per_count, replay
+p = msgpack.unpackb(open(sys.argv[1], "rb").read(), raw=False)
+recs = open_stream(sys.argv[2], p["fs_hz"], m_s2_per_count(p))
+t0 = time.perf_counter()
+res = replay([recs], p, profile_for_set(p, None, recs), jobs=int(sys.argv[3]), keep_windows=False)
+dt = time.perf_counter() - t0
+hwm = next(line.split()[1] for line in open("/proc/self/status") if line.startswith("VmHWM:"))
+print(res.summary["total"]["windows"], dt, hwm)
+"""
+
+
+def stream_figures(folder, p: dict, field_recs: list, minutes: float = STREAM_MINUTES) -> dict:
+    """One long stream (the field snapshots joined end to end, `minutes` long, one WAV file)
+    replayed in a fresh process with 1 and with 2 jobs (features of chunks in worker processes,
+    the detector in order), next to numpy.fft.rfft over the same windows, in the same run:
+    throughput (M samples/s, samples per axis), peak RSS of the replaying process (MB) and the
+    ratio of replay time to the rfft time."""
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    import msgpack
+
+    from host_tools.data.recording import open_stream, write_wav
+    fs, n = p["fs_hz"], p["n"]
+    frames = int(minutes * 60 * fs)
+    pool = np.concatenate([r.counts for r in field_recs])
+    counts = np.resize(pool, (frames, pool.shape[1]))             # repeats the field data
+    folder = Path(folder)
+    wav = write_wav(folder / "long_stream.wav", counts, fs,
+                    {"m_s2_per_unit": field_recs[0].m_s2_per_count, "t0_s": field_recs[0].t0_s})
+    del counts, pool
+    (folder / "set.msgpack").write_bytes(msgpack.packb(p))
+    root = Path(__file__).resolve().parents[2]
+    out: dict = {}
+    for jobs in (1, 2):
+        got = subprocess.run([sys.executable, "-c", _STREAM_CHILD, str(folder / "set.msgpack"), str(wav), str(jobs)],
+                             capture_output=True, text=True, check=True, cwd=str(root)).stdout.split()
+        windows, seconds, kib = int(got[0]), float(got[1]), int(got[2])
+        suffix = "" if jobs == 1 else "_2_jobs"
+        out["replay_msamples_per_s" + suffix] = round(windows * n * p["axes"] / seconds / 1e6, 2)
+        out["replay_peak_rss_mb" + suffix] = round(kib / 1024, 1)
+        out["replay_stream_s" + suffix] = round(seconds, 2)
+    rec = open_stream(wav)[0]
+    t0 = time.perf_counter()
+    step = 512 * n                                                # the replay's chunk of windows
+    for k in range(0, (frames // n) * n, step):
+        x = rec.read_counts(k, min(k + step, (frames // n) * n)).astype(np.float64)
+        np.fft.rfft(x.T.reshape(p["axes"], -1, n), axis=2)
+    rfft_s = time.perf_counter() - t0
+    out.update({"replay_stream_minutes": minutes, "replay_stream_windows": frames // n,
+                "numpy_rfft_same_windows_s": round(rfft_s, 3),
+                "replay_vs_numpy_rfft_ratio": round(out["replay_stream_s"] / rfft_s, 1),
+                "replay_x_real_time": round(frames / fs / out["replay_stream_s"])})
+    return out
 
 
 TARGETS = {
@@ -398,6 +467,7 @@ TARGETS = {
     "host_msamples_per_s": (">=", 5),
     "host_vs_numpy_rfft_ratio": ("<=", 20),
     "replay_msamples_per_s": (">=", 4),
+    "replay_peak_rss_mb": ("<=", 400),
 }
 
 
