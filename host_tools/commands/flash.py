@@ -13,6 +13,8 @@ import argparse
 import sys
 import time
 
+import msgpack
+
 import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import build_image
 from host_tools.data.files import load_body
