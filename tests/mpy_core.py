@@ -6,10 +6,12 @@ import numpy as np
 from host_tools.twin.mpy_guest import run_guest
 
 
-def guest_features(windows, n, fs, bands=(), adc=(-32768, 32767), vel=(10, 1000), axes=1):
+def guest_features(windows, n, fs, bands=(), adc=(-32768, 32767), vel=(10, 1000), axes=1,
+                   speed=(0, 0), vane=0, env_band=(), bear_q12=()):
     """Feed each window (int16, n frames x axes) to a FeatureCore in the guest, stepping with the
     heap locked. Returns (features per window, whether every step ran without allocating,
-    core heap bytes from gc.mem_alloc around construction).
+    core heap bytes from gc.mem_alloc around construction). speed, vane, env_band, bear_q12 as
+    tests.feature_helpers.device_features.
 
     All work sits in functions and module level stays shallow, so gc.collect() from module
     level is safe in this guest (host_tools.twin.mpy_guest explains the collector's blind spot).
@@ -19,7 +21,8 @@ def guest_features(windows, n, fs, bands=(), adc=(-32768, 32767), vel=(10, 1000)
 import array, binascii, gc
 from firmware_py.dsp.features import FeatureCore
 def build():
-    return FeatureCore({n}, {axes}, {fs}, {adc[0]}, {adc[1]}, bands={list(bands)!r}, vel_lo_hz={vel[0]}, vel_hi_hz={vel[1]})
+    return FeatureCore({n}, {axes}, {fs}, {adc[0]}, {adc[1]}, bands={list(bands)!r}, vel_lo_hz={vel[0]}, vel_hi_hz={vel[1]},
+                       speed_lo_q8={speed[0]}, speed_hi_q8={speed[1]}, vane={vane}, env_band={tuple(env_band)!r}, bear_q12={tuple(bear_q12)!r})
 def feed(fc):
     data = array.array('h', binascii.unhexlify({binascii.hexlify(blob).decode()!r}))
     src = array.array('h', bytes(2 * {n * axes}))

@@ -3,8 +3,9 @@ from tests.test_emulate import emulator, fault_recording, run_cli, sine_recordin
 
 
 def test_ack_reports_an_alarm_whose_cause_persists(tmp_path, capsys):
-    # the recording ends in ISO zone D (12 mm/s): an alarm on any table of ISO 10816-3
-    with emulator(fault_recording(tmp_path / "f.wav"), tmp_path / "state", speed=0) as vg:
+    # the recording ends in ISO zone D (12 mm/s) for 30 s, more than the factory set's 20 s
+    # persistence span after its hold-off: an alarm on any table of ISO 10816-3
+    with emulator(fault_recording(tmp_path / "f.wav", seconds=60.0), tmp_path / "state", speed=0) as vg:
         assert vg.ended.wait(120)
         assert vg.gateway.det.state == 2                      # alarm, latched
         rc, out, err = run_cli(capsys, "ack", "--port", vg.port)

@@ -3,7 +3,7 @@ import math
 
 import pytest
 
-from host_tools.data.bearing import BEARING_6205, BearingGeometry, defect_orders
+from host_tools.data.bearing import BEARING_6205, BearingGeometry, defect_orders, orders_q12
 from host_tools.errors import EdgevibError
 
 
@@ -49,3 +49,16 @@ def test_frequencies_hz_scale_with_speed():
 def test_bad_geometry_rejected(args):
     with pytest.raises(EdgevibError, match="bearing"):
         BearingGeometry(*args)
+
+
+def test_parameter_set_orders_are_the_handbook_formulas_in_q12():
+    # fc_bear_q12 of the 6205 (9 balls, d = 7.94 mm, D = 39.04 mm, phi = 0) against the kinematic
+    # formulas written out here (rolling-bearing literature, e.g. T. A. Harris, "Rolling Bearing
+    # Analysis"; common practice): Q12 rounding leaves at most half an LSB, 1/8192 of an order.
+    n, d, D = 9, 7.94, 39.04
+    r = d / D
+    want = [n / 2 * (1 - r), n / 2 * (1 + r), D / (2 * d) * (1 - r * r), (1 - r) / 2]
+    got = orders_q12(BEARING_6205)
+    assert all(isinstance(v, int) for v in got)
+    for g, w in zip(got, want):
+        assert abs(g / 4096 - w) <= 0.5 / 4096

@@ -1,34 +1,42 @@
-"""Detector behaviour under CPython: score statistics, alarm logic, idle, sensor health, events."""
+"""Detector behaviour under CPython: score statistics, persistence in running time, escalation,
+idle and steadiness, operating points, sensor health, events."""
 from array import array
 
 import numpy as np
 import pytest
-from scipy import stats
+from scipy import integrate, stats
 
 import firmware_py  # noqa: F401
 from firmware_py.detect import alarm as al
 from firmware_py.dsp import feature_index as fi
+from firmware_py.detect import detector as dt
 from firmware_py.detect.detector import Detector, default_params
 
 PA = fi.per_axis(1)
 VEL_PER_MM_S = 6680          # F_VEL units per mm/s (a 1 mg/count sensor: 65536 / 9.81)
 IDLE = VEL_PER_MM_S // 4     # idle floor of these tests: 0.25 mm/s
-N, NO, AL, ID, SF, LE = al.NORMAL, al.ALERT, al.ALARM, al.IDLE, al.SENSOR_FAULT, al.LEARNING
+W_MS = 160                   # one window: 512 samples at 3200 Hz
+N, NO, AL, ID, SF, LE, US = (al.NORMAL, al.ALERT, al.ALARM, al.IDLE, al.SENSOR_FAULT, al.LEARNING,
+                             al.UNSCORED)
 
 
 def params(**kw):
     """One axis, one band; the model: one mode, one feature (the band power, log2 Q8), baseline
-    1000 +- 100, so a band value of 1000 + 100 s scores s spreads exactly. Idle under 0.25 mm/s."""
+    1000 +- 100, so a band value of 1000 + 100 s scores s spreads exactly. Idle under 0.25 mm/s.
+    Persistence: 3 of the last 5 windows (800 ms, 0.6); escalation after 4 windows in alert;
+    dwell 4 windows; hold-off 1 window; steadiness over 1 window (so any window is steady)."""
     p = default_params(1, 1, VEL_PER_MM_S)
     p.update(det_feat=[fi.F_BAND0], det_base_mean_q4=[1000 * 16], det_base_sd_q4=[100 * 16],
              det_modes=1, det_mode_c_q8=[0], det_mode_s_q8=[256], det_thr_alert_q8=3 * 256,
-             det_thr_alarm_q8=6 * 256, det_hyst_q8=205, det_k=3, det_n=5, det_dwell=4,
-             det_startup_n=0, det_idle_vel_q16=IDLE, det_fault_k=2)
+             det_thr_alarm_q8=6 * 256, det_hyst_q8=205, det_persist_ms=5 * W_MS,
+             det_persist_q8=154, det_escalate_ms=4 * W_MS, det_dwell_ms=4 * W_MS,
+             det_hold_ms=0, det_steady_ms=0, det_idle_vel_q16=IDLE, det_fault_k=2)
     p.update(kw)
     return p
 
 
-def win(score=0.0, rms=4000, vel=1.0, mean=0, clip=0, band=None):
+def win(score=0.0, rms=4000, vel=1.0, mean=0, clip=0, band=None, speed=0, conf=0, stuck=1,
+        zero=0):
     """A feature vector scoring `score` spreads, velocity vel mm/s, r.m.s. rms (Q8 counts)."""
     f = array("i", bytes(4 * PA))
     f[fi.F_MEAN] = mean
@@ -38,6 +46,11 @@ def win(score=0.0, rms=4000, vel=1.0, mean=0, clip=0, band=None):
     f[fi.F_KURT] = 3 << 12
     f[fi.F_CLIP] = clip
     f[fi.F_VEL] = int(vel * VEL_PER_MM_S)
+    f[fi.F_STUCK] = stuck
+    f[fi.F_ZERO] = zero
+    f[fi.F_SPEED] = int(speed * 256)
+    f[fi.F_SPEED_CONF] = conf
+    f[fi.F_ORD_VANE] = fi.LOG2_ZERO_Q8
     f[fi.F_BAND0] = 1000 + round(score * 100) if band is None else band
     return f
 
@@ -57,11 +70,15 @@ def events(det):
         out.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score_q8[i]))
 
 
-def running(det):
-    """Step quiet running windows through the start-up hold-off."""
-    for _ in range(det.startup_n + 1):
-        det.step(win(0), 0, 0)
-    assert det.state == N
+def running(det, **kw):
+    """Step quiet running windows until the detector is out of its start-up hold-off and its
+    evidence span is full (a rule is judged on a full span only)."""
+    score = kw.pop("score", 0)
+    for _ in range(200):
+        det.step(win(score, **kw), 0, 0)
+        if det.state != ID and det.alarm.ev.filled == det.alarm.ev.span:
+            break
+    assert det.state in (N, US)
     events(det)
     return det
 
@@ -89,40 +106,78 @@ def test_gaussian_tail_three_spreads():
     assert over == int((np.abs(x - 1000) >= 300).sum())
 
 
-def test_mahalanobis_tail_matches_chi_square():
-    # d independent standard normal features: score**2 is chi-square with d degrees of freedom
-    # (scipy.stats.chi2); at the 1 % point the exceedance must be 1 % within binomial error.
-    d, n = 4, 40_000
-    p = default_params(1, 4, VEL_PER_MM_S)
-    feat = [fi.F_BAND0 + j for j in range(d)]
-    p.update(det_feat=feat, det_base_mean_q4=[0] * d, det_base_sd_q4=[200 * 16] * d,
-             det_modes=1, det_mode_c_q8=[0] * d, det_mode_s_q8=[256] * d, det_startup_n=0,
+def _gauss_params(d, zlam_q8):
+    p = default_params(1, d, VEL_PER_MM_S)
+    p.update(det_feat=[fi.F_BAND0 + j for j in range(d)], det_base_mean_q4=[0] * d,
+             det_base_sd_q4=[200 * 16] * d, det_modes=1, det_mode_c_q8=[0] * d,
+             det_mode_s_q8=[256] * d, det_hold_ms=0, det_steady_ms=0, det_zlam_q8=zlam_q8,
              det_idle_vel_q16=IDLE, det_thr_alert_q8=1 << 16, det_thr_alarm_q8=1 << 16)
-    det = Detector(p)
-    thr = np.sqrt(stats.chi2.isf(0.01, d))
-    x = np.rint(200 * np.random.default_rng(9).standard_normal((n, d))).astype(int)
-    f = array("i", bytes(4 * fi.per_axis(4)))
+    return p
+
+
+def _gauss_scores(d, n, zlam_q8, seed):
+    det = Detector(_gauss_params(d, zlam_q8))
+    x = np.rint(200 * np.random.default_rng(seed).standard_normal((n, d))).astype(int)
+    f = array("i", bytes(4 * fi.per_axis(d)))
     f[fi.F_RMS] = 4000
     f[fi.F_VEL] = VEL_PER_MM_S        # running: 1 mm/s
-    over = 0
+    f[fi.F_STUCK] = 1
+    det.step(f, 0, 0)                 # the start: out of the hold-off at once
+    assert det.state == N
+    out = np.empty(n, np.int64)
     for i, row in enumerate(x.tolist()):
         f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", row)
         det.step(f, i, 0)
-        over += det.score_q8 >= round(thr * 256)
+        out[i] = det.score_q8
+    return out
+
+
+def test_mahalanobis_tail_matches_chi_square():
+    # d independent standard normal features: score**2 is chi-square with d degrees of freedom
+    # (scipy.stats.chi2); at the 1 % point the exceedance must be 1 % within binomial error.
+    # With the per-feature channel at weight 1 (zlam 256) the combined score is the distance,
+    # since no single term can exceed the root of their sum.
+    d, n = 4, 40_000
+    thr = np.sqrt(stats.chi2.isf(0.01, d))
+    over = int((_gauss_scores(d, n, 256, 9) >= round(thr * 256)).sum())
     assert abs(over - 0.01 * n) <= 3 * np.sqrt(n * 0.01 * 0.99) + 0.002 * n
 
 
-def test_nearest_mode_and_driving_feature():
+def test_combined_score_tail_against_its_analytic_value():
+    # Two independent standard normal features, per-feature channel weighted lam = 1.2: the
+    # combined score max(sqrt(z1^2 + z2^2), lam * max|z|) stays under T exactly when z lies in
+    # the disc of radius T and in the square |z_j| < T / lam. Its probability is a double
+    # integral of the bivariate normal density over that intersection (scipy.integrate.dblquad,
+    # the analytic reference); the detector's exceedance on 60 000 Gaussian windows must match it
+    # within 3 binomial standard deviations plus the quantisation of z (1/200 spread: a shift of
+    # 1/400 spread moves the probability by at most 2 * density(T) * perimeter / 400).
+    d, n, lam = 2, 60_000, 1.2
+    t = 3.0
+    a = t / lam
+    inside, _ = integrate.dblquad(
+        lambda y, x: stats.norm.pdf(x) * stats.norm.pdf(y), -a, a,
+        lambda x: -min(a, np.sqrt(max(t * t - x * x, 0.0))), lambda x: min(a, np.sqrt(max(t * t - x * x, 0.0))))
+    p = 1.0 - inside
+    # neither channel alone: the disc alone gives chi2 (d = 2), the square alone the max |z|
+    assert p > stats.chi2.sf(t * t, 2) and p > 1 - (1 - 2 * stats.norm.sf(a)) ** 2
+    over = int((_gauss_scores(d, n, round(lam * 256), 11) >= round(t * 256)).sum())
+    quant = n * 2 * stats.norm.pdf(a) * 8 * a / 400
+    assert abs(over - n * p) <= 3 * np.sqrt(n * p * (1 - p)) + quant
+
+
+def test_nearest_mode_without_operating_points_and_driving_feature():
     p = default_params(1, 2, VEL_PER_MM_S)
     b0, b1 = fi.F_BAND0, fi.F_BAND0 + 1
     p.update(det_feat=[b0, b1], det_base_mean_q4=[0, 0], det_base_sd_q4=[1600, 1600],
              det_modes=2, det_mode_c_q8=[0, 0, 1280, 1280], det_mode_s_q8=[256, 256, 128, 512],
-             det_startup_n=0, det_idle_vel_q16=IDLE)
+             det_hold_ms=0, det_steady_ms=0, det_idle_vel_q16=IDLE, det_zlam_q8=0)
     det = Detector(p)
     f = array("i", bytes(4 * fi.per_axis(2)))
     f[fi.F_RMS] = 4000
     f[fi.F_VEL] = VEL_PER_MM_S
+    f[fi.F_STUCK] = 1
     f[b0], f[b1] = 520, 460           # z = (5.2, 4.6): mode 1 at (5, 5) with spreads 0.5, 2
+    det.step(f, 0, 0)
     det.step(f, 0, 0)
     assert det.mode == 1
     expect = np.hypot((5.2 - 5) / 0.5, (4.6 - 5) / 2)
@@ -133,26 +188,107 @@ def test_nearest_mode_and_driving_feature():
     assert (det.mode, det.feat) == (0, b1)
 
 
-# -- alarm logic ----------------------------------------------------------------------------
+# -- operating points -----------------------------------------------------------------------
 
-def test_k_of_n_persistence():
+def op_params(**kw):
+    """Two modes told apart by speed only: 24-26 Hz (centroid 0) and 14-16 Hz (centroid +5)."""
+    p = params(det_modes=2, det_mode_c_q8=[0, 1280], det_mode_s_q8=[256, 256],
+               det_op_speed_q8=[24 * 256, 26 * 256, 14 * 256, 16 * 256], det_op_load_q8=[],
+               det_conf_min_q8=100)
+    p.update(kw)
+    return p
+
+
+def test_the_operating_point_chooses_the_mode_not_the_health_features():
+    det = running(Detector(op_params()), speed=25, conf=200)
+    # a window that looks exactly like mode 1 (5 spreads) while running at mode 0's speed is
+    # scored against mode 0: 5 spreads over, not 0 from the nearest mode
+    run(det, [5], speed=25, conf=200)
+    assert det.mode == 0 and det.score_q8 == 5 * 256
+    det2 = running(Detector(op_params()), speed=15, conf=200, score=5)
+    run(det2, [5], speed=15, conf=200)
+    assert det2.mode == 1 and det2.score_q8 == 0
+
+
+def test_off_point_is_not_scored_never_alerts_and_the_guard_still_acts():
+    det = running(Detector(op_params()), speed=25, conf=200)
+    # 20 Hz lies in no mode: not scored, state unscored after the hold-off, however high
+    states = run(det, [9] * 8, speed=20, conf=200)
+    assert set(states) == {US} and det.why == dt.W_OFF_POINT and det.score_q8 == 0
+    assert det.n_why[dt.W_OFF_POINT] == 8
+    assert events(det) == [(0, N, US, al.R_UNKNOWN_POINT, -1, -1, 0)]
+    # the ISO guard still raises on it (zone C, 3.0 mm/s, group 2 rigid from memory)
+    assert run(det, [9] * 5, speed=20, conf=200, vel=3.0)[-1] == NO
+    assert events(det)[-1][3] == al.R_ISO_C
+    # a weak speed estimate (confidence under det_conf_min_q8) is not scored either
+    det = running(Detector(op_params()), speed=25, conf=200)
+    assert run(det, [9] * 3, speed=25, conf=50) == [US] * 3 and det.why == dt.W_NO_SPEED
+    assert run(det, [0], speed=25, conf=200) == [N]
+    assert events(det)[-1][1:4] == (US, N, al.R_KNOWN_POINT)
+
+
+def test_speed_change_and_run_down_are_not_scored():
+    # steadiness over 4 windows, speed tolerance 2 % (82 in Q12), hold-off 3 windows
+    p = op_params(det_steady_ms=4 * W_MS, det_hold_ms=3 * W_MS, det_speed_tol_q12=82)
+    det = Detector(p)
+    # start: idle through the run-up (speed rising 2 Hz per window), then steady for the hold
+    up = [10, 12, 14, 16, 18, 20, 22, 24, 25, 25, 25, 25, 25, 25, 25]
+    st = [det.step(win(9, speed=s, conf=200), i, 0) for i, s in enumerate(up)]
+    # steady when the medians of the span's halves agree: [24, 25 | 25, 25] at the 11th window
+    # (the upper median of two is the larger); 3 steady windows later, scored
+    assert st[:12] == [ID] * 12 and st[12] == N
+    assert det.n_why[dt.W_UNSTEADY] > 0 and det.score_q8 == 9 * 256
+    # run-down: speed falling window by window, the level too: not scored, never raises
+    det2 = running(Detector(p), speed=25, conf=200)
+    down = [24, 22, 20, 18, 16, 14, 12]
+    st = [det2.step(win(9, speed=s, conf=200, vel=1.0 - 0.1 * i), i, 0) for i, s in enumerate(down)]
+    assert NO not in st and det2.n_why[dt.W_RUNDOWN] >= 5
+
+
+# -- persistence and escalation in running time --------------------------------------------
+
+def test_k_of_span_persistence():
     det = running(Detector(params()))
     assert run(det, [4, 0, 0, 0, 4, 0, 0, 0, 4, 0, 0, 0]) == [N] * 12   # never 3 in 5
     assert run(det, [4, 0, 4, 0, 4], 20) == [N, N, N, N, NO]             # 3 of the last 5
-    ev = events(det)
-    assert ev == [(24, N, NO, al.R_SCORE, 0, fi.F_BAND0, 4 * 256)]
+    assert events(det) == [(24, N, NO, al.R_SCORE, 0, fi.F_BAND0, 4 * 256)]
+
+
+def test_span_is_running_time_on_any_board():
+    # 20 s of persistence: 125 windows of 0.16 s, or 13 when one window in 10 is analysed
+    assert Detector(params(det_persist_ms=20000)).alarm.ev.span == 125
+    assert Detector(params(det_persist_ms=20000), every=10).alarm.ev.span == 13
+    assert al.windows_for(20000, 512, 3200, 10) == 13 and al.windows_for(1, 512, 3200, 1) == 1
+
+
+def test_a_single_burst_never_raises_nor_latches():
+    det = running(Detector(params()))
+    # one window far over the alarm threshold, twice: the rule needs 3 of 5
+    assert run(det, [50, 0, 0, 0, 0, 0, 50, 0, 0]) == [N] * 9
+    # a short burst raises at most an alert, never an alarm: escalation needs 4 windows in alert
+    assert run(det, [50, 50, 50, 0, 0, 0, 0, 0, 0, 0], 20)[2] == NO
+    assert AL not in [e[2] for e in events(det)]
+
+
+def test_alert_escalates_to_alarm_only_after_persisting():
+    det = running(Detector(params()))
+    st = run(det, [7] * 10)
+    # alert at the third window; the alarm rule holds from then on, but 4 windows in alert first
+    # (the raising one and three more)
+    assert st[:3] == [N, N, NO] and st[3:6] == [NO] * 3 and st[6] == AL
+    assert [e[3] for e in events(det)] == [al.R_SCORE, al.R_ESCALATE]
 
 
 def test_clear_needs_hysteresis_and_dwell():
-    det = running(Detector(params(det_dwell=8)))
+    det = running(Detector(params(det_dwell_ms=8 * W_MS)))
     run(det, [4, 4, 4])
     assert det.state == NO
     # 2.5 spreads is under the alert threshold but over the clear one (0.8 x 3 = 2.4): holds
     assert run(det, [2.5] * 12, 10) == [NO] * 12
-    # five windows under 2.4, but the dwell (8 windows in the state) is already met: clears on
+    # five windows under 2.4, and the dwell (8 windows in the state) is already met: clears on
     # the fifth clean window, not before
     assert run(det, [2.3] * 5, 30) == [NO] * 4 + [N]
-    det2 = running(Detector(params(det_dwell=8)))
+    det2 = running(Detector(params(det_dwell_ms=8 * W_MS)))
     run(det2, [4, 4, 4])
     # dwell longer than the clean run: clears only when 8 windows have passed in alert
     assert run(det2, [0] * 8, 10) == [NO] * 7 + [N]
@@ -161,26 +297,21 @@ def test_clear_needs_hysteresis_and_dwell():
 
 def test_alarm_latches_until_acknowledged():
     det = running(Detector(params()))
-    run(det, [7, 7, 7])
+    run(det, [7] * 8)
     assert det.state == AL
     assert run(det, [0] * 20, 10) == [AL] * 20                  # stays latched
     assert det.ack(40) == N
     ev = events(det)
-    assert [e[1:4] for e in ev] == [(N, AL, al.R_SCORE), (AL, N, al.R_ACK)]
-    assert ev[1][0] == 40
+    assert [e[1:4] for e in ev] == [(N, NO, al.R_SCORE), (NO, AL, al.R_ESCALATE), (AL, N, al.R_ACK)]
+    assert ev[2][0] == 40
 
 
 def test_ack_before_the_condition_clears():
     det = running(Detector(params()))
-    run(det, [7, 7, 7, 7])
+    run(det, [7] * 8)
     assert det.ack(5) == AL                                     # acknowledged, still over
     assert run(det, [7, 7, 0, 0, 0, 0, 0], 6) == [AL] * 6 + [N]
     assert [e[1:4] for e in events(det)][-1] == (AL, N, al.R_CLEAR)
-
-
-def test_alert_escalates_to_alarm():
-    det = running(Detector(params()))
-    assert run(det, [4, 4, 4, 7, 7, 7]) == [N, N, NO, NO, NO, AL]
 
 
 def test_iso_guard_overrides_the_learned_score():
@@ -189,23 +320,24 @@ def test_iso_guard_overrides_the_learned_score():
     assert run(det, [0] * 3, vel=3.0) == [N, N, NO]
     ev = events(det)[-1]
     assert ev[1:4] == (N, NO, al.R_ISO_C) and ev[5] == fi.F_VEL
+    # zone D raises an alarm on its own persistence, without the escalation time
     assert run(det, [0] * 3, 10, vel=4.6) == [NO, NO, AL]
     assert events(det)[-1][3] == al.R_ISO_D
     # no learned model at all: the guard still acts
     det = running(Detector(params(det_modes=0, det_mode_c_q8=[], det_mode_s_q8=[])))
-    assert run(det, [9] * 4, vel=1.0) == [N] * 4
-    assert run(det, [0] * 3, 10, vel=5.0) == [N, N, AL]
+    assert run(det, [9] * 6, vel=1.0) == [N] * 6 and det.why == dt.W_NO_MODEL
+    assert run(det, [0] * 5, 10, vel=5.0)[-1] == AL
 
 
 # -- idle and start-up ----------------------------------------------------------------------
 
-def test_idle_no_alarm_and_start_up_hold_off():
-    det = running(Detector(params(det_startup_n=4)))
+def test_idle_no_alarm_and_start_up_hold_off_in_seconds():
+    det = running(Detector(params(det_hold_ms=4 * W_MS)))
     # stopped: broadband velocity under the floor; a high score is not evaluated
     assert run(det, [9] * 5, vel=0.1) == [ID] * 5
     assert events(det)[0][1:4] == (N, ID, al.R_STOPPED)
-    # restart transient: 4 windows held off, then normal; the transient never alerts
-    assert run(det, [9, 9, 9, 9, 0, 0, 0, 0], 10) == [ID, ID, ID, N, N, N, N, N]
+    # restart transient: 3 windows held off, then normal; the transient never alerts
+    assert run(det, [9, 9, 9, 0, 0, 0, 0, 0], 10) == [ID, ID, ID, N, N, N, N, N]
     assert [e[1:4] for e in events(det)] == [(ID, N, al.R_STARTED)]
 
 
@@ -214,13 +346,13 @@ def test_alert_drops_to_idle_but_a_latched_alarm_stays():
     run(det, [4, 4, 4])
     assert run(det, [0], vel=0.1) == [ID]
     det = running(Detector(params()))
-    run(det, [7, 7, 7])
+    run(det, [7] * 8)
     assert run(det, [0, 0], vel=0.1) == [AL, AL]
 
 
 def test_idle_follows_the_largest_axis_velocity_not_the_acceleration():
     p = default_params(2, 1, VEL_PER_MM_S)
-    p.update(det_startup_n=0, det_idle_vel_q16=IDLE)
+    p.update(det_hold_ms=0, det_steady_ms=0, det_idle_vel_q16=IDLE)
     det = Detector(p)
     f = array("i", bytes(4 * 2 * PA))
 
@@ -253,19 +385,32 @@ def test_sensor_faults_never_alert(kw, reason, feat):
     ev = events(det)
     assert ev == [(1, N, SF, reason, -1, feat, 0)]
     # two good windows to leave; then the start-up hold-off (2 windows here) before normal
-    det2 = running(Detector(params(det_startup_n=2)))
+    det2 = running(Detector(params(det_hold_ms=2 * W_MS)))
     run(det2, [0, 0], **kw)
     assert run(det2, [0] * 5, 10) == [SF, ID, ID, N, N]
 
 
+@pytest.mark.parametrize("kw,feat", [({"stuck": 45}, fi.F_STUCK), ({"zero": 45}, fi.F_ZERO)])
+def test_a_dropout_run_is_a_sensor_fault_at_once_before_any_score(kw, feat):
+    # the default limit, 44 samples: one window with a longer run is a dropout, even one that
+    # would score 9 spreads and sit in zone D
+    assert default_params(1, 1, VEL_PER_MM_S)["det_stuck_max"] == [44]
+    det = running(Detector(params()))
+    assert run(det, [9], vel=9.0, **kw) == [SF]
+    assert events(det) == [(0, N, SF, al.R_DROPOUT, -1, feat, 0)]
+    assert run(det, [0, 0, 0], 5) == [SF, ID, N]
+    det = running(Detector(params()))
+    assert run(det, [0] * 3, stuck=44, zero=44) == [N] * 3    # at the limit: healthy
+
+
 def test_dropped_samples_fault():
     det = running(Detector(params(det_drop_max=5)))
-    assert [det.step(win(0), i, d) for i, d in enumerate([5, 6, 6, 0, 0])] == [N, N, SF, SF, N]
+    assert [det.step(win(0), i, d) for i, d in enumerate([5, 6, 6, 0, 0, 0])] == [N, N, SF, SF, ID, N]
 
 
 def test_latched_alarm_survives_a_sensor_fault():
     det = running(Detector(params()))
-    run(det, [7, 7, 7])
+    run(det, [7] * 8)
     assert run(det, [0, 0], clip=9) == [AL, SF]
     assert run(det, [0, 0], 5) == [SF, AL]
 
@@ -273,7 +418,7 @@ def test_latched_alarm_survives_a_sensor_fault():
 # -- events ---------------------------------------------------------------------------------
 
 def test_event_ring_overwrites_the_oldest():
-    det = running(Detector(params(det_event_n=4, det_dwell=0, det_k=1, det_n=1)))
+    det = running(Detector(params(det_event_n=4, det_dwell_ms=0, det_persist_ms=W_MS)))
     run(det, [4, 0] * 5)                                          # 10 transitions
     assert det.events.lost == 6
     ev = events(det)
@@ -283,11 +428,13 @@ def test_event_ring_overwrites_the_oldest():
 
 def test_missing_parameter_is_refused():
     p = params()
-    del p["det_k"]
+    del p["det_persist_ms"]
     with pytest.raises(ValueError):
         Detector(p)
     with pytest.raises(ValueError):
         Detector(params(det_mode_c_q8=[0, 0]))
+    with pytest.raises(ValueError):
+        Detector(op_params(det_op_speed_q8=[26 * 256, 24 * 256, 14 * 256, 16 * 256]))
 
 
 def test_fixed_point_score_against_a_float_reference():
@@ -307,17 +454,21 @@ def test_fixed_point_score_against_a_float_reference():
         p = default_params(1, 8, VEL_PER_MM_S)
         p.update(det_feat=feat, det_base_mean_q4=mean_q4.tolist(), det_base_sd_q4=sd_q4.tolist(),
                  det_modes=k, det_mode_c_q8=c.ravel().tolist(), det_mode_s_q8=s.ravel().tolist(),
-                 det_startup_n=0, det_idle_vel_q16=IDLE, det_thr_alert_q8=1 << 16,
-                 det_thr_alarm_q8=1 << 16)
+                 det_hold_ms=0, det_steady_ms=0, det_idle_vel_q16=IDLE, det_thr_alert_q8=1 << 16,
+                 det_thr_alarm_q8=1 << 16, det_zlam_q8=0)
         det = Detector(p)
         f = array("i", bytes(4 * pa))
         f[fi.F_RMS] = 4000
         f[fi.F_VEL] = VEL_PER_MM_S
+        f[fi.F_STUCK] = 1
         u = np.clip(np.rint(mean_q4 / 16 + rng.normal(0, 3, d) * sd_q4 / 16), -8191, 8191)
         f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", u.astype(int).tolist())
         det.step(f, trial, 0)
         z = np.clip((u - mean_q4 / 16) / (sd_q4 / 16), -32, 32)
-        dist = np.sqrt((((z - c / 256) / (s / 256)) ** 2).sum(1))
+        t = (z - c / 256) / (s / 256)
+        dist = np.sqrt((t ** 2).sum(1))
         ref = dist.min()
         assert abs(det.score_q8 / 256 - ref) <= 0.02 * np.sqrt(d) + d / 256 / max(ref, 1)
         assert dist[det.mode] <= ref + 0.04 * np.sqrt(d)   # nearest, up to a near tie
+        # the per-feature channel of the chosen mode: its largest |t|, to the same budget
+        assert abs(det.zmax_q8 / 256 - np.abs(t[det.mode]).max()) <= 0.02 + 1 / 64

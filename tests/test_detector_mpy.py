@@ -23,7 +23,12 @@ PA = fi.per_axis(NB)
 NF = AXES * PA
 NW = 1300
 p = default_params(AXES, NB, 6680)
-p["det_startup_n"] = 5
+p["det_hold_ms"] = 800                      # windows of 160 ms: hold-off 5, steadiness over 4
+p["det_steady_ms"] = 640
+p["det_persist_ms"] = 800                   # raise on 3 of 5, escalate after 4 in alert
+p["det_persist_q8"] = 154
+p["det_escalate_ms"] = 640
+p["det_dwell_ms"] = 1600
 p["det_learn_base_n"] = 200
 p["det_learn_mode_n"] = 300
 p["det_learn_min_n"] = 20
@@ -53,6 +58,9 @@ for i in range(NW):
         feats[b + fi.F_CREST] = 14336 + noise(600)
         feats[b + fi.F_KURT] = 12288 + noise(600)
         feats[b + fi.F_VEL] = (6000, 12000)[pt] + noise(300)
+        feats[b + fi.F_STUCK] = 2
+        feats[b + fi.F_SPEED] = (5120, 6400)[pt] + noise(40)     # 20 or 25 Hz, Q8
+        feats[b + fi.F_SPEED_CONF] = 200
         for k in range(NB):
             feats[b + fi.F_BAND0 + k] = (1800, 2300)[pt] - 300 * k + noise(20)
     if 600 <= i < 620:                        # pump stopped: velocity under the idle floor
@@ -153,16 +161,21 @@ d = len(p["det_feat"])
 # sensor checks and idle floor opened wide so that absurd values reach the scoring path;
 # the model at its own extremes: tiny spreads, centroids at the clamp
 p.update(det_flat_rms_q8=0, det_clip_max=BIG, det_dc_lo_q8=[-BIG, -BIG], det_dc_hi_q8=[BIG, BIG],
-         det_drop_max=BIG, det_idle_vel_q16=0, det_startup_n=0, det_sd_floor_q4=1, det_s_floor_q8=1,
+         det_drop_max=BIG, det_idle_vel_q16=0, det_hold_ms=0, det_sd_floor_q4=1, det_s_floor_q8=1,
+         det_stuck_max=[BIG, BIG], det_zero_max=[BIG, BIG], det_steady_ms=640, det_conf_min_q8=0,
+         det_op_speed_q8=[(-1) ** m * BIG if j else -BIG for m in range(8) for j in range(2)],
+         det_op_load_q8=[-BIG, BIG] * 8, det_zlam_q8=4096,
          det_base_mean_q4=[(-1) ** j * BIG for j in range(d)], det_base_sd_q4=[1] * d,
          det_modes=8, det_mode_c_q8=[(-1) ** (j + m) * BIG for m in range(8) for j in range(d)],
          det_mode_s_q8=[1] * (8 * d), det_thr_alert_q8=1, det_thr_alarm_q8=2, det_drift_shift=1,
          det_drift_max_q8=1024, det_learn_base_n=40, det_learn_mode_n=60, det_learn_min_n=1,
-         det_learn_radius_q8=1, det_learn_margin_q8=4096, det_learn_alarm_q8=4096, det_dwell=0)
+         det_learn_op_q12=1, det_learn_margin_q8=4096, det_learn_alarm_q8=4096, det_dwell_ms=0,
+         det_persist_ms=160)
 det = Detector(p)
 # a twin that learns from the same absurd stream: no model yet and the guard out of reach, so
 # nothing latches and learning runs to its end
-p.update(det_iso_bounds=[BIG, BIG, BIG], det_modes=0, det_mode_c_q8=[], det_mode_s_q8=[])
+p.update(det_iso_bounds=[BIG, BIG, BIG], det_modes=0, det_mode_c_q8=[], det_mode_s_q8=[],
+         det_op_speed_q8=[], det_op_load_q8=[], det_steady_ms=0)
 twin = Detector(p)
 VALS = (0, 1, 2, BIG, BIG - 1, 1 << 29, fi.LOG2_ZERO_Q8, -BIG, -1)
 NW = 400
@@ -216,21 +229,32 @@ from firmware_py.dsp import feature_index as fi
 PA = fi.per_axis(4)
 p = default_params(3, 4, 6680)
 d = len(p["det_feat"])
-p["det_startup_n"] = 0
+p["det_hold_ms"] = 0
+p["det_steady_ms"] = 5120 if CASE == "monitor" else 0   # monitor: the longest span, 3 medians
+p["det_conf_min_q8"] = 0
+p["det_persist_ms"] = 800
+p["det_escalate_ms"] = 160
 p["det_modes"] = 8
+p["det_op_speed_q8"] = [0, (1 << 30) - 1] * 8   # every mode's range holds any speed: the dearest
+                                                # choice scans all 8
 p["det_mode_c_q8"] = [(m * 37 + j * 11) % 512 - 256 for m in range(8) for j in range(d)]
 p["det_mode_s_q8"] = [256] * (8 * d)
 p["det_learn_base_n"] = 2
-p["det_learn_radius_q8"] = 1
+p["det_learn_op_q12"] = 1
 det = Detector(p)
 f = array("i", bytes(4 * 3 * PA))
 for a in range(3):
     f[a * PA + fi.F_RMS] = 4000
     f[a * PA + fi.F_VEL] = 6000 if CASE != "idle" else 100
+    f[a * PA + fi.F_SPEED] = 6400
+    f[a * PA + fi.F_SPEED_CONF] = 200
+for i in range(40 if CASE == "monitor" else 0):   # warm-up: the steadiness span full first
+    det.step(f, i, 0)
 if CASE == "learning":
     det.learn(0)
     for i in range(10):                 # baseline done, 8 modes open: the dearest phase
         f[fi.F_BAND0] = 400 * i
+        f[fi.F_SPEED] = 4000 + 400 * i
         det.step(f, i, 0)
 def steps():
     for i in range(N):

@@ -21,7 +21,13 @@ from tests.test_training import _write as write_recordings
 
 @pytest.fixture(scope="module")
 def trained():
-    return train(healthy_stream(seed=11, per_point=8), PROFILE)[0]
+    """A trained set with short time keys (a board setting a user may change), so that the 2-s
+    recordings below reach every state: steadiness over 2 windows, hold-off 3, raise on 3 of 5,
+    escalate after 5 windows in alert."""
+    p = train(healthy_stream(seed=11, per_point=3), PROFILE)[0]
+    p.update(det_steady_ms=320, det_hold_ms=480, det_persist_ms=800, det_persist_q8=154,
+             det_escalate_ms=800, det_dwell_ms=800)
+    return p
 
 
 def field_stream(seed=12, t_start=100000.0):

@@ -1,21 +1,34 @@
 """edgevib detector: one per device, the same code on the host for replay and training.
 
-Per window the caller passes the feature vector and gets back the detector state; the detector
-checks sensor health first, then whether the machine runs, then scores the window against the
-learned operating modes and the ISO 10816-3 velocity guard, and runs the alert/alarm logic.
+Per window the caller passes the feature vector and gets back the detector state. In order:
+1. sensor health (a dropout run, flatline, clipping, DC offset, lost samples): sensor_fault,
+   decided before anything about the machine;
+2. running? (largest axis velocity against the idle floor), and steady? (speed estimate and
+   level over the last det_steady_ms; a run-up, a speed change and a run-down are not steady);
+   after a start, idle until steady for det_hold_ms;
+3. the operating point (speed from the signal, and a load proxy) chooses the mode, never the
+   health features; a point in no trained mode is not scored (state unscored, reason
+   unknown_point); the ISO 10816-3 velocity guard acts on every running window;
+4. the score within that mode: max(distance to the mode, weighted largest single |z|);
+5. alert when det_persist_q8 of the last det_persist_ms of evaluated windows are over; alarm
+   only after the alert persisted det_escalate_ms (or ISO zone D); latched until acknowledged.
 Integer-only and allocation-free in step(), ack() and learn() (checked under heap_lock on
 MicroPython); every array is made once, in the constructor, from the parameter set.
 
 API
-    det = Detector(params)          # params: dict, keys in PARAM_KEYS below (default_params())
+    det = Detector(params, every=1)  # params: dict, keys in PARAM_KEYS (default_params());
+                                     # every: the board's analyse_every (the time base)
     state = det.step(feats, t_s, dropped)
         feats   array('i') laid out as firmware_py.dsp.feature_index (axes x per_axis(n_bands))
         t_s     int, seconds (any epoch, < 2**30); only copied into events
         dropped samples dropped since the previous window
-      after it: det.state, det.score_q8 (Q8 spreads of the nearest mode, 0 without a model),
-      det.mode (nearest mode, -1 none), det.feat (flat feature index that drove the score or the
-      guard or the fault, -1 none), det.zone (ISO zone 0..3 = A..D), det.bb_vel_q16 (broadband level:
-      largest axis F_VEL, counts/s Q16, the quantity of the idle floor and the ISO guard).
+      after it: det.state; det.score_q8 (combined score, Q8 spreads, 0 when not scored), det.dist_q8
+      and det.zmax_q8 (its two channels, Q8 spreads); det.mode (-1 none); det.feat (flat feature
+      index that drove the score, the guard or the fault, -1 none); det.zone (ISO zone 0..3 =
+      A..D); det.bb_vel_q16 (largest axis F_VEL, counts/s Q16); det.why (W_* below: why not scored, 0
+      scored) and det.n_why (count per W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8),
+      det.load_q8 (log2 Q8): the operating point; det.pushed (1 if the window added to the
+      persistence evidence) and det.resets (times that evidence was forgotten).
     det.ack(t_s)       acknowledge a latched alarm; det.learn(t_s) start learning (False if
                        refused: alarm latched or sensor fault); det.stop_learning(t_s) abandon it
     det.events         EventRing (firmware_py/detect/event_ring.py): i = det.events.pop() -> slot or -1;
@@ -27,13 +40,13 @@ from array import array
 from micropython import const
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import alarm as al
-from firmware_py.detect.alarm import Alarm
+from firmware_py.detect.alarm import Alarm, windows_for, SPAN_MAX
 from firmware_py.detect.event_ring import EventRing
 from firmware_py.detect.iso_zones import zone_of, bounds_in_vel_units, ZONE_C
 from firmware_py.detect.modes import ModeModel, KMAX, DMAX, is_log_field, transform, clamp
 from firmware_py.dsp.tables import log2_table
 from firmware_py.detect.welford import Welford, N_MAX
-from firmware_py.dsp.fixmath import sqrt_pow2
+from firmware_py.dsp.fixmath import sqrt_pow2, log2_q8
 
 # sqrt of the chi-square upper quantile at p = 1e-4 for d = 1..64 degrees of freedom, Q8
 # (scipy.stats.chi2.isf(1e-4, d); tests/test_detector_learning.py recomputes it). For d
@@ -47,8 +60,11 @@ CHI_Q8 = (996, 1099, 1176, 1241, 1299, 1351, 1399, 1444, 1487, 1527, 1565, 1601,
 _BIG = const(0x3FFFFFFF)
 
 # The detector's keys in the parameter set (formats and defaults: docs/detector.md). Kept as
-# names only: on the device, comments cost nothing and strings cost RAM.
+# names only: on the device, comments cost nothing and strings cost RAM. Times are in ms of the
+# machine's running time and become analysed windows in the constructor (window length n / fs_hz
+# times the board's analyse_every), so a rule means the same on any board.
 PARAM_KEYS = (
+    "n", "fs_hz",           # window length (samples) and sample rate (Hz): the time base
     "det_axes",             # axes in the feature vector
     "det_bands",            # band powers per axis
     "det_feat",             # flat feature indices scored (<= 64), axis * per_axis + field
@@ -57,14 +73,23 @@ PARAM_KEYS = (
     "det_modes",            # number of operating modes k (0 = no model: ISO guard only)
     "det_mode_c_q8",        # k x d centroids, mode-major, Q8 baseline spreads
     "det_mode_s_q8",        # k x d per-mode spreads, Q8 baseline spreads
-    "det_thr_alert_q8",     # score at or over which a window counts toward an alert, Q8 spreads
-    "det_thr_alarm_q8",     # score at or over which a window counts toward an alarm, Q8 spreads
+    "det_op_speed_q8",      # k x 2 speed range [lo, hi] of each mode, Hz Q8 ([] = no operating point)
+    "det_op_load_q8",       # k x 2 load-proxy range [lo, hi] of each mode, log2 Q8 ([] = not used)
+    "det_conf_min_q8",      # least F_SPEED_CONF for a usable speed estimate, Q8 (256 = 1)
+    "det_zlam_q8",          # weight of the per-feature channel in the combined score, Q8
+    "det_thr_alert_q8",     # combined score at or over which a window counts toward an alert, Q8
+    "det_thr_alarm_q8",     # combined score at or over which a window counts toward an alarm, Q8
     "det_hyst_q8",          # clear threshold as a fraction of det_thr_alert_q8, Q8 (205 = 0.8)
-    "det_k",                # windows over threshold, of the last det_n, that raise
-    "det_n",                # persistence window length (<= 30)
-    "det_dwell",            # least windows in alert or alarm before it can clear
+    "det_persist_ms",       # evidence span: raise on det_persist_q8 of the windows of this span
+    "det_persist_q8",       # fraction of the span's windows that must be over, Q8 (205 = 0.8)
+    "det_escalate_ms",      # least time in alert before the score can make it an alarm
+    "det_dwell_ms",         # least time in alert or alarm before it can clear
     "det_idle_vel_q16",     # idle when the largest axis F_VEL is under this, counts/s Q16
-    "det_startup_n",        # windows held off after the machine starts (no scoring, no learning)
+    "det_hold_ms",          # steady running needed after a start or a transient before scoring
+    "det_hold_max_ms",      # a start leaves idle after this even if never steady (guard on)
+    "det_steady_ms",        # span over which speed and level steadiness are judged
+    "det_speed_tol_q12",    # steady: speed max - min over the span at most this x speed, Q12
+    "det_level_tol_q8",     # steady: broadband level falls by at most this over the span, log2 Q8
     "det_iso_group",        # ISO 10816-3 machine group (1 or 2), for the record
     "det_iso_found",        # foundation, 'rigid' or 'flexible', for the record
     "det_iso_bounds",       # zone boundaries A/B, B/C, C/D in F_VEL units (counts/s Q16)
@@ -73,12 +98,14 @@ PARAM_KEYS = (
     "det_dc_lo_q8",         # per axis, least healthy F_MEAN, Q8 counts
     "det_dc_hi_q8",         # per axis, greatest healthy F_MEAN, Q8 counts
     "det_drop_max",         # sensor: more dropped samples than this in one window is a fault
+    "det_stuck_max",        # per axis, longest healthy run of identical samples (F_STUCK), samples
+    "det_zero_max",         # per axis, longest healthy run of zero samples (F_ZERO), samples
     "det_fault_k",          # consecutive bad (good) windows to enter (leave) sensor_fault
     "det_sd_floor_q4",      # least baseline spread, log2 Q8 units, Q4
     "det_s_floor_q8",       # least per-mode spread, Q8 baseline spreads
     "det_learn_base_n",     # learning: windows for the baseline (phase 1, <= 65535)
     "det_learn_mode_n",     # learning: windows for the operating modes (phase 2, <= 65535)
-    "det_learn_radius_q8",  # learning: new-mode radius, r.m.s. per feature, Q8 spreads
+    "det_learn_op_q12",     # learning: new mode when the speed is this fraction from every mode, Q12
     "det_learn_min_n",      # learning: modes with fewer windows are dropped
     "det_learn_margin_q8",  # learning: alert threshold = CHI_Q8[d-1] * margin, Q8
     "det_learn_alarm_q8",   # learning: alarm threshold = alert threshold * this, Q8
@@ -87,45 +114,83 @@ PARAM_KEYS = (
     "det_event_n",          # capacity of the event ring
 )
 
+# why a window was not scored (det.why; 0 = scored); det.n_why counts each, saturating
+W_SCORED = const(0)
+W_IDLE = const(1)          # stopped
+W_HOLD = const(2)          # starting, or settling after a transient: not yet steady for the hold-off
+W_UNSTEADY = const(3)      # speed or level changing (a speed change, a run-up)
+W_RUNDOWN = const(4)       # speed or level falling: a run-down
+W_NO_SPEED = const(5)      # no confident speed estimate to choose a mode by
+W_OFF_POINT = const(6)     # the operating point lies in no trained mode
+W_FAULT = const(7)         # sensor fault
+W_LEARN = const(8)         # learning
+W_NO_MODEL = const(9)      # no trained model (ISO guard only)
+WHY_NAMES = ("scored", "idle", "hold", "unsteady", "rundown", "no_speed", "off_point",
+             "sensor_fault", "learning", "no_model")
+_STEADY_MAX = const(32)    # most windows in the steadiness span
+_SPEED_MAX = const(1 << 17)  # speeds are taken as at most 512 Hz (Q8): tol_q12 * speed < 2**29
+# Longest healthy run of identical samples before training has measured the sensor. A run of L
+# identical samples takes L - 1 coincidences in a row; if each happens with probability q, a
+# window of n samples holds such a run with probability at most n q**(L - 1). For white Gaussian
+# noise of sigma counts quantised to whole counts q = sum_k P(k)**2 ~ 1 / (2 sqrt(pi) sigma)
+# (0.28 at 1 count); a sensor as quiet as half a count has q ~ 0.5. With q = 0.5, n = 512 and
+# the 1.6e7 windows of 30 days at 0.16 s, L - 1 = log2(512 * 1.6e7 * 1000) = 43 keeps a false
+# dropout under once in a thousand months. Training replaces it per axis from measured q
+# (host_tools/fit/sensor_fit.py).
+_RUN_DEFAULT = const(44)
+
 
 def default_feature_list(axes, n_bands):
-    """Scored features by default: every field of every axis but the mean and the clip count."""
+    """Scored features by default: every field of every axis but the mean, the clip count and the
+    sensor-run, speed, order and envelope fields (F_STUCK .. F_ENV_FTF), which a trained set
+    chooses for itself."""
     pa = fi.per_axis(n_bands)
     out = []
     for a in range(axes):
         for f in range(pa):
-            if f != fi.F_MEAN and f != fi.F_CLIP:
+            if f != fi.F_MEAN and f != fi.F_CLIP and not fi.F_STUCK <= f <= fi.F_ENV_FTF:
                 out.append(a * pa + f)
     return out
 
 
-def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", full_scale=32767):
+def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", full_scale=32767,
+                   n=512, fs_hz=3200):
     """A conservative parameter set with no model yet (run learn() on the device, or train).
 
     vel_per_mm_s: F_VEL units (counts/s Q16) per mm/s, from the calibration. full_scale: the
-    converter's full scale in counts; the healthy DC range defaults to +-7/8 of it. The default
-    guard is group 2 rigid, the lowest boundaries of the table (the cautious choice). The default
-    idle floor is 0.05 mm/s, 1/28 of the lowest zone A/B boundary (1.4 mm/s): low enough that a
+    converter's full scale in counts; the healthy DC range defaults to +-7/8 of it. n, fs_hz: the
+    window (samples) and sample rate (Hz), the time base of every _ms key. The default guard is
+    group 2 rigid, the lowest boundaries of the table (the cautious choice). The default idle
+    floor is 0.05 mm/s, 1/28 of the lowest zone A/B boundary (1.4 mm/s): low enough that a
     running pump is not taken for a stopped one, so the guard is not blinded before training (the
     cautious side); a noisy MEMS sensor on a stopped pump may read more (an ADXL345 about
-    0.13-0.39 mm/s in the demo) and show running until trained or learned.
+    0.13-0.39 mm/s in the demo) and show running until trained or learned. Sensor dropout:
+    _RUN_DEFAULT (see there) until training measures the sensor.
     """
     feat = default_feature_list(axes, n_bands)
     dc = (full_scale * 7 // 8) << 8
+    stuck = _RUN_DEFAULT
     return {
+        "n": n, "fs_hz": fs_hz,
         "det_axes": axes, "det_bands": n_bands, "det_feat": feat,
         "det_base_mean_q4": [0] * len(feat), "det_base_sd_q4": [256] * len(feat),
         "det_modes": 0, "det_mode_c_q8": [], "det_mode_s_q8": [],
+        "det_op_speed_q8": [], "det_op_load_q8": [], "det_conf_min_q8": 64,
+        "det_zlam_q8": 256,
         "det_thr_alert_q8": 5 * 256, "det_thr_alarm_q8": 8 * 256, "det_hyst_q8": 205,
-        "det_k": 3, "det_n": 5, "det_dwell": 10,
-        "det_idle_vel_q16": vel_per_mm_s // 20, "det_startup_n": 10,   # 0.05 mm/s
+        "det_persist_ms": 20000, "det_persist_q8": 205, "det_escalate_ms": 300000,
+        "det_dwell_ms": 60000,
+        "det_idle_vel_q16": vel_per_mm_s // 20,   # 0.05 mm/s
+        "det_hold_ms": 5000, "det_hold_max_ms": 60000, "det_steady_ms": 2000,
+        "det_speed_tol_q12": 123, "det_level_tol_q8": 128,
         "det_iso_group": group, "det_iso_found": foundation,
         "det_iso_bounds": bounds_in_vel_units(group, foundation, vel_per_mm_s),
         "det_flat_rms_q8": 64, "det_clip_max": 0,
         "det_dc_lo_q8": [-dc] * axes, "det_dc_hi_q8": [dc] * axes,
-        "det_drop_max": 0, "det_fault_k": 3,
+        "det_drop_max": 0, "det_stuck_max": [stuck] * axes, "det_zero_max": [stuck] * axes,
+        "det_fault_k": 3,
         "det_sd_floor_q4": 128, "det_s_floor_q8": 64,
-        "det_learn_base_n": 300, "det_learn_mode_n": 600, "det_learn_radius_q8": 320,
+        "det_learn_base_n": 300, "det_learn_mode_n": 600, "det_learn_op_q12": 205,
         "det_learn_min_n": 30, "det_learn_margin_q8": 320, "det_learn_alarm_q8": 384,
         "det_drift_shift": 0, "det_drift_max_q8": 128,
         "det_event_n": 32,
@@ -151,12 +216,17 @@ def _ints(p, key, n):
 
 
 class Detector:
-    """See the module docstring."""
+    """See the module docstring. every: the board's analyse_every (one window in `every` is
+    analysed), so the _ms keys become the right number of analysed windows."""
 
-    def __init__(self, p):
+    def __init__(self, p, every=1):
         for key in PARAM_KEYS:
             if key not in p:
                 raise ValueError("parameter set lacks " + key)
+        n = _int(p, "n", 1, 1 << 20)
+        fs = _int(p, "fs_hz", 1, 1 << 20)
+        if not isinstance(every, int) or every < 1:
+            raise ValueError("analyse_every must be an int >= 1")
         axes = self.axes = _int(p, "det_axes", 1, 8)
         self.pa = fi.per_axis(_int(p, "det_bands", 0, 64))
         self.nf = axes * self.pa
@@ -171,18 +241,36 @@ class Detector:
             self.logf[j] = 1 if is_log_field(self.idx[j] % self.pa) else 0
         self.sd_floor_q4 = _int(p, "det_sd_floor_q4", 1, 1 << 16)
         self.s_floor_q8 = _int(p, "det_s_floor_q8", 1, 1 << 12)
+        k = _int(p, "det_modes", 0, KMAX)
         self.model = ModeModel(d)
-        self.model.load(p["det_base_mean_q4"], p["det_base_sd_q4"], _int(p, "det_modes", 0, KMAX),
+        self.model.load(p["det_base_mean_q4"], p["det_base_sd_q4"], k,
                         p["det_mode_c_q8"], p["det_mode_s_q8"], self.sd_floor_q4, self.s_floor_q8)
+        # operating points: speed (and load proxy) range per mode, k x 2, Hz Q8 and log2 Q8
+        self.op_speed_q8 = array("i", bytes(8 * KMAX))
+        self.op_load_q8 = array("i", bytes(8 * KMAX))
+        self.op_on = self._load_op(p, k)
         self.cand = ModeModel(d)                  # the model being learned
         self.mean0_q4 = array("i", self.model.mean_q4)  # trained baseline, the drift anchor
+        self.conf_min_q8 = _int(p, "det_conf_min_q8", 0, 256)
+        self.zlam_q8 = _int(p, "det_zlam_q8", 0, 1 << 12)
         self.thr_alert_q8 = _int(p, "det_thr_alert_q8", 1, 1 << 16)
         self.thr_alarm_q8 = _int(p, "det_thr_alarm_q8", 1, 1 << 16)
         self.hyst_q8 = _int(p, "det_hyst_q8", 1, 256)
-        self.alarm = Alarm(_int(p, "det_k", 1, 30), _int(p, "det_n", 1, 30),
-                           _int(p, "det_dwell", 0, 1 << 20))
+        span = windows_for(_int(p, "det_persist_ms", 1, _BIG), n, fs, every)
+        if span > SPAN_MAX:
+            raise ValueError("det_persist_ms spans more than %d analysed windows" % SPAN_MAX)
+        kq = _int(p, "det_persist_q8", 1, 256)
+        kw = (kq * span + 128) >> 8
+        self.alarm = Alarm(span, kw if kw > 0 else 1,
+                           windows_for(_int(p, "det_escalate_ms", 0, _BIG), n, fs, every),
+                           windows_for(_int(p, "det_dwell_ms", 0, _BIG), n, fs, every))
         self.idle_vel_q16 = _int(p, "det_idle_vel_q16", 0, _BIG)
-        self.startup_n = _int(p, "det_startup_n", 0, 1 << 20)
+        self.hold_w = windows_for(_int(p, "det_hold_ms", 0, _BIG), n, fs, every)
+        self.hold_max_w = windows_for(_int(p, "det_hold_max_ms", 0, _BIG), n, fs, every)
+        m = windows_for(_int(p, "det_steady_ms", 0, _BIG), n, fs, every)
+        self.steady_m = m if m < _STEADY_MAX else _STEADY_MAX
+        self.speed_tol_q12 = _int(p, "det_speed_tol_q12", 0, 4096)
+        self.level_tol_q8 = _int(p, "det_level_tol_q8", 0, 1 << 16)
         self.iso = _ints(p, "det_iso_bounds", 3)
         if not 0 < self.iso[0] <= self.iso[1] <= self.iso[2]:
             raise ValueError("det_iso_bounds must be positive and ascending")
@@ -191,11 +279,12 @@ class Detector:
         self.dc_lo_q8 = _ints(p, "det_dc_lo_q8", axes)
         self.dc_hi_q8 = _ints(p, "det_dc_hi_q8", axes)
         self.drop_max = _int(p, "det_drop_max", 0, _BIG)
+        self.stuck_max = _ints(p, "det_stuck_max", axes)
+        self.zero_max = _ints(p, "det_zero_max", axes)
         self.fault_k = _int(p, "det_fault_k", 1, 1 << 20)
         self.base_n = _int(p, "det_learn_base_n", 2, N_MAX)
         self.mode_n = _int(p, "det_learn_mode_n", 1, N_MAX)
-        r = _int(p, "det_learn_radius_q8", 1, 2048)
-        self.r2d_q8 = ((r * r) >> 8) * d          # squared radius times d, Q8 spreads squared
+        self.learn_op_q12 = _int(p, "det_learn_op_q12", 1, 4096)
         self.min_n = _int(p, "det_learn_min_n", 1, N_MAX)
         self.margin_q8 = _int(p, "det_learn_margin_q8", 256, 1 << 12)
         self.alarm_ratio_q8 = _int(p, "det_learn_alarm_q8", 256, 1 << 12)
@@ -207,6 +296,15 @@ class Detector:
         self.z = array("i", bytes(4 * d))
         self.wb = Welford(d)                      # learning phase 1: baseline
         self.wm = Welford(d * KMAX)               # learning phase 2: per-mode statistics
+        self.lop_q8 = array("i", bytes(8 * KMAX))   # learning: per mode speed lo, hi, Hz Q8
+        self.lsp = Welford(KMAX)                  # learning: per mode mean speed (Hz Q8 >> 3)
+        self.l_op = False                         # learning modes by operating point
+        self.ring_speed_q8 = array("i", bytes(4 * _STEADY_MAX))   # Hz Q8, 0 = no estimate
+        self.ring_level_q8 = array("i", bytes(4 * _STEADY_MAX))   # log2 of F_VEL, Q8
+        self.sort_q8 = array("i", bytes(4 * _STEADY_MAX))         # scratch for medians, Hz Q8
+        self.ring_i = 0
+        self.ring_n = 0
+        self.n_why = array("i", bytes(4 * len(WHY_NAMES)))
         self.learning = False
         self.phase = 0
         self.seen = 0                             # windows learned in this phase
@@ -218,14 +316,52 @@ class Detector:
         self.fault_reason = 0
         self.fault_feat = -1
         self.running = False                      # broadband velocity at or over the idle floor
-        self.hold = self.startup_n
+        self.starting = True                      # since the start: idle until steady
+        self.run_w = 0                            # windows running since the start
+        self.steady_w = 0                         # consecutive steady running windows
+        self.off_w = 0                            # consecutive windows off every trained point
+        self.off_reason = 0
         self.state = al.IDLE
         self.t = 0
-        self.score_q8 = 0
+        self.score_q8 = 0                            # combined score, Q8 spreads (0 when not scored)
+        self.dist_q8 = 0                             # distance to the mode, Q8 spreads
+        self.zmax_q8 = 0                             # largest single-feature |z|, Q8 spreads
         self.mode = -1
         self.feat = -1
         self.zone = 0
         self.bb_vel_q16 = 0
+        self.why = W_IDLE
+        self.pushed = 0                           # 1 when this window added to the evidence
+        self.resets = 0                           # times the evidence was forgotten (saturates)
+        self.speed_q8 = 0                         # operating point of this window: Hz Q8
+        self.conf_q8 = 0
+        self.load_q8 = 0                          # load proxy, log2 Q8 (see _operating_point)
+        self.op_axis = 0
+
+    def _load_op(self, p, k):
+        """Fill the operating-point ranges; True if the set has them (modes chosen by speed)."""
+        sp = p["det_op_speed_q8"]
+        ld = p["det_op_load_q8"]
+        if len(sp) == 0:
+            if len(ld):
+                raise ValueError("det_op_load_q8 needs det_op_speed_q8")
+            return False
+        v = _ints(p, "det_op_speed_q8", 2 * k)
+        for i in range(2 * k):
+            self.op_speed_q8[i] = clamp(v[i], _SPEED_MAX)   # so centres and gaps stay small ints
+        if len(ld):
+            v = _ints(p, "det_op_load_q8", 2 * k)
+            for i in range(2 * k):
+                self.op_load_q8[i] = v[i]
+        else:
+            for m in range(k):
+                self.op_load_q8[2 * m] = -_BIG
+                self.op_load_q8[2 * m + 1] = _BIG
+        for m in range(k):
+            if self.op_speed_q8[2 * m] > self.op_speed_q8[2 * m + 1] or \
+                    self.op_load_q8[2 * m] > self.op_load_q8[2 * m + 1]:
+                raise ValueError("operating-point ranges must be [lo, hi] with lo <= hi")
+        return True
 
     # -- events ---------------------------------------------------------------------------------
     def _set(self, new, reason):
@@ -235,13 +371,22 @@ class Detector:
             self.state = new
 
     def _base_state(self):
-        """State when no overlay (fault, learning) holds: a latched alarm, idle, or the level."""
+        """State when no overlay (fault, learning) holds: a latched alarm, idle, the level, or
+        unscored (running steadily off every trained operating point, the level normal)."""
         lv = self.alarm.level
         if lv == al.ALARM:
             return al.ALARM
-        if not self.running or self.hold > 0:
+        if not self.running or self.starting:
             return al.IDLE
+        if lv == al.NORMAL and self.off_w >= self.hold_w:
+            return al.UNSCORED
         return lv
+
+    def _forget(self):
+        """Forget the persistence evidence (stop, fault, learning)."""
+        self.alarm.reset()
+        if self.resets < _BIG:
+            self.resets += 1
 
     # -- commands -------------------------------------------------------------------------------
     def ack(self, t_s):
@@ -258,9 +403,10 @@ class Detector:
         self.t = t_s
         if self.alarm.level == al.ALARM or self.fault:
             return False
-        self.alarm.reset()
+        self._forget()
         self.wb.reset()
         self.wm.reset()
+        self.lsp.reset()
         self.learning = True
         self.phase = 0
         self.seen = 0
@@ -287,6 +433,14 @@ class Detector:
                 self.fault_reason = al.R_FLAT
                 self.fault_feat = b + fi.F_RMS
                 return True
+            if f[b + fi.F_STUCK] > self.stuck_max[a]:
+                self.fault_reason = al.R_DROPOUT
+                self.fault_feat = b + fi.F_STUCK
+                return True
+            if f[b + fi.F_ZERO] > self.zero_max[a]:
+                self.fault_reason = al.R_DROPOUT
+                self.fault_feat = b + fi.F_ZERO
+                return True
             if f[b + fi.F_CLIP] > self.clip_max:
                 self.fault_reason = al.R_CLIP
                 self.fault_feat = b + fi.F_CLIP
@@ -302,31 +456,153 @@ class Detector:
             return True
         return False
 
+    def _count(self, why):
+        self.why = why
+        if self.n_why[why] < _BIG:
+            self.n_why[why] += 1
+
+    def _operating_point(self, f):
+        """Speed (Hz Q8), its confidence (Q8) and the load proxy (log2 Q8) of this window, from
+        the axis with the most confident speed estimate. Load proxy: the vane-pass line's power
+        less 4 log2 of the speed, log2 Q8. By the pump affinity laws pressure pulsation, and so
+        the force and acceleration at vane pass, grow as speed squared (power as speed**4), so
+        what remains after dividing by speed**4 follows the hydraulic duty (flow against the
+        best-efficiency point), and none of the five mechanical faults acts on that line
+        (docs/detector.md, Operating point)."""
+        pa = self.pa
+        best = 0
+        conf = -1
+        for a in range(self.axes):
+            c = f[a * pa + fi.F_SPEED_CONF]
+            if c > conf and f[a * pa + fi.F_SPEED] > 0:
+                conf = c
+                best = a
+        self.op_axis = best
+        b = best * pa
+        sp = f[b + fi.F_SPEED]
+        sp = sp if sp < _SPEED_MAX else _SPEED_MAX
+        self.speed_q8 = sp if sp > 0 and conf >= 0 else 0
+        self.conf_q8 = conf if conf > 0 else 0
+        v = clamp(f[b + fi.F_ORD_VANE], 1 << 28)
+        if sp > 0 and v > fi.LOG2_ZERO_Q8:
+            self.load_q8 = v - 4 * log2_q8(sp, self.tab)
+        else:
+            self.load_q8 = -_BIG
+
+    def _steadiness(self, level_q8):
+        """Push this window's speed and level into the steadiness span; W_SCORED (0) if the
+        machine runs steadily, else why not: W_NO_SPEED (under half the span has a confident
+        speed estimate), W_RUNDOWN (the newer half's median speed under the older half's by
+        more than the tolerance, or the level fallen by more than its tolerance across the span)
+        or W_UNSTEADY (the halves' medians apart by more than the tolerance, or the span not yet
+        full). Medians, not extremes: a single window's estimate can miss by a bin, and the median
+        of a span ignores such misses. Sets speed_q8 to the span's median (the operating point).
+        Without operating points only the level is judged."""
+        i = self.ring_i
+        sp = self.speed_q8 if self.conf_q8 >= self.conf_min_q8 else 0
+        self.ring_speed_q8[i] = sp
+        self.ring_level_q8[i] = level_q8
+        m = self.steady_m
+        i += 1
+        self.ring_i = i if i < m else 0
+        if self.ring_n < m:
+            self.ring_n += 1
+            if self.ring_n < m:
+                return W_UNSTEADY
+        oldest = self.ring_i                      # the slot written m - 1 windows ago is next
+        if self.ring_level_q8[oldest] - level_q8 > self.level_tol_q8:
+            return W_RUNDOWN
+        if not self.op_on:
+            return W_SCORED
+        h = m >> 1
+        mid = self._median(oldest, m)
+        self.speed_q8 = mid
+        if mid == 0:
+            return W_NO_SPEED
+        if h == 0:
+            return W_SCORED
+        old = self._median(oldest, h)
+        new = self._median(oldest + h, m - h)
+        tol = (self.speed_tol_q12 * mid) >> 12
+        if old - new > tol:
+            return W_RUNDOWN
+        if new - old > tol or old == 0 or new == 0:
+            return W_UNSTEADY
+        return W_SCORED
+
+    def _median(self, first, count):
+        """Median of the confident speeds (Hz Q8) in count ring slots from first (modulo the span),
+        0 if fewer than half of them are confident. Insertion sort into a scratch array: count
+        <= 32, allocation-free."""
+        t = self.sort_q8
+        m = self.steady_m
+        k = 0
+        for j in range(count):
+            v = self.ring_speed_q8[(first + j) % m]
+            if v > 0:
+                i = k
+                while i > 0 and t[i - 1] > v:
+                    t[i] = t[i - 1]
+                    i -= 1
+                t[i] = v
+                k += 1
+        if 2 * k < count or k == 0:
+            return 0
+        return t[k >> 1]
+
+    def _choose_mode(self):
+        """The trained mode whose operating-point range holds this window's speed and load
+        (the nearest speed centre if several do); -1 if none."""
+        sp = self.speed_q8
+        ld = self.load_q8
+        best = -1
+        gap = _BIG
+        for m in range(self.model.k):
+            lo = self.op_speed_q8[2 * m]
+            hi = self.op_speed_q8[2 * m + 1]
+            if lo <= sp <= hi and self.op_load_q8[2 * m] <= ld <= self.op_load_q8[2 * m + 1]:
+                g = sp - (lo >> 1) - (hi >> 1)
+                g = g if g >= 0 else -g
+                if g < gap:
+                    gap = g
+                    best = m
+        return best
+
     def step(self, f, t_s, dropped):
         """One window: features f, time t_s (s), dropped samples. Returns the state."""
         self.t = t_s
         self.score_q8 = 0
+        self.dist_q8 = 0
+        self.zmax_q8 = 0
         self.mode = -1
         self.feat = -1
+        self.pushed = 0
         pa = self.pa
-        # sensor health comes first: a bad window is never scored
+        # sensor health comes first: a bad window is never scored. A dropout run is conclusive
+        # on its own (its threshold is set for a false call once in a thousand months), so it
+        # enters sensor_fault at once; the other checks need fault_k windows in a row.
         if self._sensor_bad(f, dropped):
+            self._count(W_FAULT)
             self.fault_good = 0
-            self.fault_bad += 1 if self.fault_bad < self.fault_k else 0
+            if self.fault_reason == al.R_DROPOUT:
+                self.fault_bad = self.fault_k
+            elif self.fault_bad < self.fault_k:
+                self.fault_bad += 1
             if self.fault_bad >= self.fault_k and not self.fault:
                 self.fault = True
                 self.feat = self.fault_feat
                 self.learning = False             # abandoned: the old model stays
-                self.alarm.reset()
+                self._forget()
                 self._set(al.SENSOR_FAULT, self.fault_reason)
             return self.state
         self.fault_bad = 0
         if self.fault:
+            self._count(W_FAULT)
             self.fault_good += 1
             if self.fault_good < self.fault_k:
                 return self.state
             self.fault = False
-            self.hold = self.startup_n            # treat like a restart: no transient alert
+            self._restart()                       # treat like a restart: no transient alert
             self._set(self._base_state(), al.R_SENSOR_OK)
             return self.state
         # machine running? broadband level = largest axis velocity r.m.s.: the 1/f weighting
@@ -339,52 +615,109 @@ class Detector:
                 vf = a * pa + fi.F_VEL
         self.bb_vel_q16 = vel
         if vel < self.idle_vel_q16:
+            self._count(W_IDLE)
             self.running = False
-            self.hold = self.startup_n
-            self.alarm.reset()
+            self._restart()
+            self._forget()
             if not self.learning:
                 self._set(self._base_state(), al.R_STOPPED)
             return self.state
         self.running = True
-        if self.hold > 0:
-            self.hold -= 1
-            if self.hold > 0:
+        # the ISO zone on every running window, so status shows it during the hold-off too; the
+        # guard acts on it only past the start (below)
+        self.zone = zone_of(vel, self.iso)
+        if self.run_w < _BIG:
+            self.run_w += 1
+        self._operating_point(f)
+        st = self._steadiness(log2_q8(vel if vel > 1 else 1, self.tab))
+        if st == W_SCORED:
+            if self.steady_w < _BIG:
+                self.steady_w += 1
+        else:
+            self.steady_w = 0
+        if self.starting:
+            if self.steady_w < self.hold_w and self.run_w < self.hold_max_w:
+                self._count(W_HOLD if st == W_SCORED else st)
                 return self.state
+            self.starting = False
             if not self.learning:
                 self._set(self._base_state(), al.R_STARTED)
-            return self.state
-        if self.state == al.IDLE:
-            self._set(self._base_state(), al.R_STARTED)
-        # the ISO guard: the same largest axis velocity
-        self.zone = zone_of(vel, self.iso)
-        transform(f, self.idx, self.logf, self.u, self.d, self.tab)
         if self.learning:
-            self._learn_step(vf)
+            self._learn_step(f, vf, st)
             return self.state
-        m = self.model
-        if m.k > 0:
-            m.standardise(self.u, self.z)
-            self.score_q8 = m.score(self.z)
-            self.mode = m.mode
-            self.feat = self.idx[m.drive]
+        m = -1
+        why = st
+        if st == W_SCORED and self.steady_w < self.hold_w:
+            why = W_HOLD
+        elif st == W_SCORED:
+            if self.model.k == 0:
+                why = W_NO_MODEL
+            elif self.op_on:
+                m = self._choose_mode()
+                why = W_SCORED if m >= 0 else W_OFF_POINT
+            else:
+                transform(f, self.idx, self.logf, self.u, self.d, self.tab)
+                self.model.standardise(self.u, self.z)
+                m = self.model.nearest(self.z)
+        if why == W_OFF_POINT or why == W_NO_SPEED:
+            if self.off_w < _BIG:
+                self.off_w += 1
+            self.off_reason = al.R_UNKNOWN_POINT if why == W_OFF_POINT else al.R_NO_SPEED
+        elif why == W_SCORED:
+            self.off_w = 0
+        self._count(why)
+        if m >= 0:
+            self._score(f, m)
         if self.zone >= ZONE_C:
             self.feat = vf
         s = self.score_q8
         clr = (self.thr_alert_q8 * self.hyst_q8) >> 8
+        lv = self.alarm.level
         self.alarm.update(1 if s >= self.thr_alert_q8 else 0, 1 if s >= self.thr_alarm_q8 else 0,
                           1 if s >= clr else 0, self.zone)
-        self._set(self._base_state(), self.alarm.reason)
-        if self.drift_shift and self.state == al.NORMAL and s < clr and m.k > 0:
+        self.pushed = 1
+        if self.alarm.level != lv:
+            reason = self.alarm.reason
+        elif self.off_w >= self.hold_w:
+            reason = self.off_reason
+        else:
+            reason = al.R_KNOWN_POINT
+        self._set(self._base_state(), reason)
+        if self.drift_shift and self.state == al.NORMAL and m >= 0 and s < clr:
             self._drift()
         return self.state
 
+    def _restart(self):
+        """The machine stopped (or the sensor came back): idle until steady again."""
+        self.starting = True
+        self.run_w = 0
+        self.steady_w = 0
+        self.off_w = 0
+        self.ring_n = 0
+        self.ring_i = 0
+
+    def _score(self, f, m):
+        """Score this window against mode m: the distance and the per-feature channel, combined
+        as score = max(dist, zmax * zlam / 256), Q8 spreads (zlam: docs/detector.md, Score).
+        zmax <= 32767 and zlam <= 4096, so the product stays < 2**27."""
+        md = self.model
+        transform(f, self.idx, self.logf, self.u, self.d, self.tab)
+        md.standardise(self.u, self.z)
+        dist = md.distance(self.z, m)
+        zc = (md.zmax_q8 * self.zlam_q8) >> 8
+        self.dist_q8 = dist
+        self.zmax_q8 = md.zmax_q8
+        self.score_q8 = dist if dist >= zc else zc
+        self.mode = m
+        self.feat = self.idx[md.drive]
+
     def _drift(self):
-        """Move the baseline mean a 2**-shift step along this window's offset from its nearest
-        mode (so every mode shifts together), staying within drift_max spreads of the trained
-        mean. The offset is clamped to 8 spreads so that offset * sd_q4 < 2**28."""
+        """Move the baseline mean a 2**-shift step along this window's offset from its mode (so
+        every mode shifts together), staying within drift_max spreads of the trained mean. The
+        offset is clamped to 8 spreads so that offset * sd_q4 < 2**28."""
         m = self.model
         sh = self.drift_shift
-        b = m.mode * self.d
+        b = self.mode * self.d
         for j in range(self.d):
             off_q4 = (clamp(self.z[j] - m.c_q8[b + j], 2048) * m.sd_q4[j]) >> 8
             mu = m.mean_q4[j] + ((off_q4 + (1 << sh >> 1)) >> sh)
@@ -392,16 +725,24 @@ class Detector:
             m.mean_q4[j] = self.mean0_q4[j] + clamp(mu - self.mean0_q4[j], lim)
 
     # -- learning -------------------------------------------------------------------------------
-    def _learn_step(self, vf):
-        """One running window while learning. The ISO guard still acts: zone C or D windows are
-        not learned, and if they raise an alert or alarm, learning is abandoned."""
+    def _learn_step(self, f, vf, st):
+        """One running window while learning. Only steady windows past the hold-off are learned;
+        the ISO guard still acts: zone C or D windows are not learned, and if they raise an alert
+        or alarm, learning is abandoned."""
         if self.zone >= ZONE_C:
             self.feat = vf
+            self.pushed = 1
             if self.alarm.update(0, 0, 0, self.zone) != al.NORMAL:
                 self.learning = False
                 self._set(self._base_state(), self.alarm.reason)
             return
         self.alarm.update(0, 0, 0, self.zone)
+        self.pushed = 1
+        if st != W_SCORED or self.steady_w < self.hold_w:
+            self._count(W_HOLD if st == W_SCORED else st)
+            return
+        self._count(W_LEARN)
+        transform(f, self.idx, self.logf, self.u, self.d, self.tab)
         d = self.d
         if self.phase == 0:
             for j in range(d):
@@ -421,21 +762,10 @@ class Detector:
         c = self.cand
         z = self.z
         c.standardise(self.u, z)
+        best_m = self._learn_mode()
+        if best_m < 0:
+            return
         wm = self.wm
-        best = -1
-        best_m = 0
-        for m in range(self.ck):
-            b = m * d
-            s = 0
-            for j in range(d):
-                t = z[j] - wm.mi[b + j]           # |t| < 2**14, so t*t < 2**28
-                s += (t * t) >> 8
-            if best < 0 or s < best:
-                best = s
-                best_m = m
-        if (best < 0 or best > self.r2d_q8) and self.ck < KMAX:
-            best_m = self.ck
-            self.ck += 1
         b = best_m * d
         for j in range(d):
             wm.add(b + j, z[j])
@@ -443,12 +773,55 @@ class Detector:
         if self.seen >= self.mode_n:
             self._learn_finish()
 
+    def _learn_mode(self):
+        """Phase 2: the mode this window is learned into, by operating point; -1 if not learned.
+
+        The first window decides: with a speed estimate, modes are operating points (a window
+        joins the mode whose mean speed is within det_learn_op_q12 of its own, or opens a new
+        one; windows without a speed are not learned); without one, a single mode and no
+        operating points. Speeds are learned as Hz Q8 >> 3 (|x| <= 8191, Welford's input)."""
+        sp = self.speed_q8 if self.conf_q8 >= self.conf_min_q8 else 0
+        if self.ck == 0:
+            self.l_op = sp > 0
+        lop = self.lop_q8
+        if not self.l_op:
+            if self.ck == 0:
+                self.ck = 1
+            return 0
+        if sp == 0:
+            return -1
+        x = sp >> 3
+        x = x if x < 8191 else 8191
+        best = -1
+        gap = _BIG
+        for m in range(self.ck):
+            g = x - self.lsp.mi[m]
+            g = g if g >= 0 else -g
+            if g < gap:
+                gap = g
+                best = m
+        if (best < 0 or gap > (self.learn_op_q12 * x) >> 12) and self.ck < KMAX:
+            best = self.ck
+            self.ck += 1
+            lop[2 * best] = sp
+            lop[2 * best + 1] = sp
+        self.lsp.add(best, x)
+        b = 2 * best
+        if sp < lop[b]:
+            lop[b] = sp
+        if sp > lop[b + 1]:
+            lop[b + 1] = sp
+        return best
+
     def _learn_finish(self):
-        """Keep the modes with at least min_n windows (the largest if none has), set
-        conservative thresholds, put the new model in use."""
+        """Keep the modes with at least min_n windows (the largest if none has), widen their
+        speed ranges by half the new-mode distance (modes learned on the device are told apart
+        by speed alone: the load proxy is left open), set conservative thresholds, put the new
+        model in use."""
         c = self.cand
         wm = self.wm
         d = self.d
+        lop = self.lop_q8
         top = 0
         for m in range(self.ck):
             if wm.n[m * d] > wm.n[top * d]:
@@ -461,11 +834,17 @@ class Detector:
                     c.c_q8[k * d + j] = wm.mean_q(m * d + j, 0)
                     s = sqrt_pow2(wm.var(m * d + j), 0)
                     c.s_q8[k * d + j] = s if s > self.s_floor_q8 else self.s_floor_q8
+                w = (self.learn_op_q12 * lop[2 * m + 1]) >> 13
+                self.op_speed_q8[2 * k] = lop[2 * m] - w
+                self.op_speed_q8[2 * k + 1] = lop[2 * m + 1] + w
+                self.op_load_q8[2 * k] = -_BIG
+                self.op_load_q8[2 * k + 1] = _BIG
                 k += 1
         c.k = k
+        self.op_on = self.l_op
         self.thr_alert_q8 = (CHI_Q8[d - 1] * self.margin_q8) >> 8
         self.thr_alarm_q8 = (self.thr_alert_q8 * self.alarm_ratio_q8) >> 8
-        f = self.min_bb_vel_q16 >> 2              # a quarter of the quietest learned window
+        f = self.min_bb_vel_q16 >> 2                      # a quarter of the quietest learned window
         if f > self.idle_vel_q16:
             self.idle_vel_q16 = f
         self.cand = self.model
@@ -473,17 +852,20 @@ class Detector:
         for j in range(d):
             self.mean0_q4[j] = c.mean_q4[j]
         self.learning = False
-        self.alarm.reset()
+        self._forget()
         self._set(self._base_state(), al.R_LEARN_DONE)
 
     def export(self):
         """The model and thresholds in use (baseline means as drifted), as parameter keys."""
         m = self.model
         kd = m.k * self.d
+        op = self.op_on
         return {
             "det_base_mean_q4": list(m.mean_q4), "det_base_sd_q4": list(m.sd_q4),
             "det_modes": m.k, "det_mode_c_q8": list(m.c_q8)[:kd],
             "det_mode_s_q8": list(m.s_q8)[:kd],
+            "det_op_speed_q8": list(self.op_speed_q8)[:2 * m.k] if op else [],
+            "det_op_load_q8": list(self.op_load_q8)[:2 * m.k] if op else [],   # +-(2**30 - 1) = open
             "det_thr_alert_q8": self.thr_alert_q8, "det_thr_alarm_q8": self.thr_alarm_q8,
             "det_idle_vel_q16": self.idle_vel_q16,
         }

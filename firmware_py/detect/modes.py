@@ -5,7 +5,8 @@ Scales (all ints):
   u  transformed feature, log2 Q8 (256 per octave), clamped to +-U_LIM
   z  standardised feature, Q8 baseline spreads (256 = one baseline standard deviation), +-Z_LIM
   centroids c_q8 in z units (Q8); per-mode spreads s_q8 in z units (Q8, floored when built)
-  score: sqrt(sum_j ((z_j - c_mj) / s_mj)**2), Q8 mode spreads (a diagonal Mahalanobis distance)
+  distance: sqrt(sum_j ((z_j - c_mj) / s_mj)**2), Q8 mode spreads (a diagonal Mahalanobis distance)
+  zmax: max_j |z_j - c_mj| / s_mj, Q8 mode spreads (the per-feature channel)
 
 Entry points: is_log_field(), ModeModel, clamp(), transform()."""
 from array import array
@@ -40,6 +41,7 @@ class ModeModel:
         self.s_q8 = array("i", bytes(4 * d * KMAX))
         self.mode = -1         # nearest mode of the last score(), -1 if no model
         self.drive = -1        # index j (0..d-1) of the feature that contributed most, -1 none
+        self.zmax_q8 = 0       # largest single-feature |z - c| / s of the last distance(), Q8
 
     def load(self, mean_q4, sd_q4, k, c_q8, s_q8, sd_floor_q4, s_floor_q8):
         """Fill from parameter lists, flooring the spreads. Start-up only."""
@@ -63,12 +65,9 @@ class ModeModel:
         for j in range(self.d):
             z[j] = clamp((((u[j] << 4) - self.mean_q4[j]) << 8) // self.sd_q4[j], Z_LIM)
 
-    def score(self, z):
-        """Distance of z to the nearest mode, Q8 mode spreads; sets mode and drive. 0 if k == 0.
-
-        Each term ((z - c) << 8) // s is clamped to +-_D_LIM, its square >> 8 is < 2**22, and the
-        sum over d <= 64 terms (Q8 spreads squared) stays < 2**28.
-        """
+    def nearest(self, z):
+        """The mode whose centroid is nearest to z in its own spreads (-1 if k == 0): the legacy
+        choice for a model without operating points (a set learned without a speed estimate)."""
         d = self.d
         best = -1
         best_m = -1
@@ -81,19 +80,29 @@ class ModeModel:
             if best < 0 or s < best:
                 best = s
                 best_m = m
-        self.mode = best_m
-        self.drive = -1
-        if best_m < 0:
-            return 0
-        b = best_m * d
+        return best_m
+
+    def distance(self, z, m):
+        """Distance of z to mode m, Q8 mode spreads; sets mode, drive and zmax_q8 (the largest
+        single-feature |z - c| / s, Q8 mode spreads: the per-feature channel).
+
+        Each term ((z - c) << 8) // s is clamped to +-_D_LIM, its square >> 8 is < 2**22, and the
+        sum over d <= 64 terms (Q8 spreads squared) stays < 2**28.
+        """
+        d = self.d
+        b = m * d
+        s = 0
         top = -1
         for j in range(d):
             t = clamp(((z[j] - self.c_q8[b + j]) << 8) // self.s_q8[b + j], _D_LIM)
+            s += (t * t) >> 8
             t = t if t >= 0 else -t
             if t > top:
                 top = t
                 self.drive = j
-        return sqrt_pow2(best, 8)
+        self.mode = m
+        self.zmax_q8 = top
+        return sqrt_pow2(s, 8)
 
 
 def clamp(x, lim):

@@ -1,6 +1,7 @@
 """Layout and fixed-point scales of the feature vector: one block of fields per axis, axis-major.
 Every value is a small int (|v| < 2**30). Physical units come only at report time, through the
 calibration (host_tools/data/units.py on the host); the scale of each field is fixed here.
+docs/fixed-point.md derives each bound.
 
 Entry points: per_axis()."""
 from micropython import const
@@ -12,8 +13,37 @@ F_CREST = const(3)   # crest factor peak / r.m.s., Q12 (sine: 1.414 -> 5793)
 F_KURT = const(4)    # kurtosis m4 / m2**2 (Pearson, not excess), Q12 (Gaussian: 3.0 -> 12288)
 F_CLIP = const(5)    # samples at or beyond the converter's full scale, count
 F_VEL = const(6)     # velocity r.m.s. in the 10-1000 Hz band (band edges from the params), counts/s, Q16
-F_BAND0 = const(7)   # first band power: log2 of the band's mean square in counts**2, Q8
-N_FIXED = const(7)   # fields before the band powers
+F_STUCK = const(7)   # longest run of identical consecutive raw samples (any value), samples (1..n)
+F_ZERO = const(8)    # longest run of consecutive raw samples exactly 0, samples (0..n)
+# Shaft frequency (1x), Hz Q8, within the set's speed range: the harmonic sum over 1x..3x of the
+# power spectrum picks the family, each harmonic's peak is interpolated between bins (Hann
+# two-bin ratio) and the three are combined by least squares (firmware_py/dsp/speed.py).
+# 0 = no estimate (speed range off in the set, flat window, or no power in the range).
+F_SPEED = const(9)
+# Confidence of F_SPEED, Q8, 0..256: the power of the chosen family (the 3-bin main lobes at the
+# 1x, 2x and 3x peaks) over all power in the bins the search could reach (from one bin below the
+# lowest 1x candidate to three above the highest 3x one), times 256. 256: nothing but the family
+# there; white noise alone reads about 9 bins' share of that span.
+F_SPEED_CONF = const(10)
+# Order amplitudes: log2 of the mean square (counts**2), Q8, of the Hann main lobe (the 4 bins
+# within 2 bins of order x F_SPEED, summed, so the leakage of the window is accounted for; a
+# tone of amplitude A reads log2(A**2 / 2)). Same scale as the band powers (firmware_py/dsp/orders.py).
+F_ORD_HALF = const(11)   # 0.5x
+F_ORD_1X = const(12)     # 1x
+F_ORD_2X = const(13)     # 2x
+F_ORD_3X = const(14)     # 3x
+F_ORD_VANE = const(15)   # vane pass, fc_vane x 1x (LOG2_ZERO_Q8 when the set has no vane count)
+# Squared-envelope spectrum lines of the band fc_env_band at the bearing defect orders
+# fc_bear_q12 x F_SPEED (firmware_py/dsp/envelope.py). Reference: the squared envelope's own mean
+# (its DC). Value = log2(mean square of the line / mean**2), Q8: a squared envelope
+# mean * (1 + mu cos(2 pi f t)) reads log2(mu**2 / 2) at f (mu = 1: -256). Independent of the
+# signal level and the band's gain. LOG2_ZERO_Q8 when the set has no band or no bearing.
+F_ENV_BPFO = const(16)   # outer-race ball pass
+F_ENV_BPFI = const(17)   # inner-race ball pass
+F_ENV_BSF = const(18)    # ball spin (1x BSF: the line at 2x BSF is read by nothing here)
+F_ENV_FTF = const(19)    # cage (fundamental train)
+F_BAND0 = const(20)  # first band power: log2 of the band's mean square in counts**2, Q8
+N_FIXED = const(20)  # fields before the band powers
 
 # Log2 value stored for a band with no power at all (log2 of zero); -64 in Q8.
 LOG2_ZERO_Q8 = const(-16384)
@@ -25,6 +55,8 @@ Q_CREST = const(12)
 Q_KURT = const(12)
 Q_VEL = const(16)
 Q_LOG2 = const(8)
+Q_SPEED = const(8)
+Q_SPEED_CONF = const(8)
 
 
 def per_axis(n_bands):

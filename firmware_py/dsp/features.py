@@ -2,13 +2,19 @@
 of feature_index (scales documented there). All memory is allocated in the constructor; step()
 allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
 
+Per window and axis: one pass over the samples (statistics, stuck and zero runs, window and
+bit-reversed store), the FFT and power spectrum (fft), the moments and band powers (_finish),
+then the shaft speed (speed), the order amplitudes (orders) and the squared-envelope lines
+(envelope), each of which reads the spectrum the FFT left.
+
 Entry points: check_config(), footprint_bytes(), FeatureCore."""
 import array
 from micropython import const
 
-from firmware_py.dsp import fft, tables
+from firmware_py.dsp import envelope, fft, orders, speed, tables
 from firmware_py.dsp.feature_index import (
-    F_BAND0, F_CLIP, F_CREST, F_KURT, F_MEAN, F_PEAK, F_RMS, F_VEL, LOG2_ZERO_Q8, per_axis)
+    F_BAND0, F_CLIP, F_CREST, F_ENV_FTF, F_KURT, F_MEAN, F_ORD_HALF, F_PEAK, F_RMS, F_SPEED,
+    F_SPEED_CONF, F_STUCK, F_VEL, F_ZERO, LOG2_ZERO_Q8, per_axis)
 from firmware_py.dsp.fixmath import div_pow2, log2_q8, msb, sqrt_pow2
 from firmware_py.dsp.ring import SampleRing, footprint_bytes as _ring_bytes
 
@@ -17,7 +23,8 @@ _MIN_N = const(64)
 _MAX_N = const(4096)
 
 
-def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz):
+def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz, speed_lo_q8=0, speed_hi_q8=0,
+                 vane=0, env_band=(), bear_q12=()):
     """Raise ValueError with the reason if the feature core cannot run this configuration."""
     if n < _MIN_N or n > _MAX_N or n & (n - 1):
         raise ValueError("window length must be a power of two from 64 to 4096")
@@ -25,19 +32,27 @@ def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz):
         raise ValueError("1 to 3 axes")
     if not 0 < vel_lo_hz < vel_hi_hz or 2 * vel_lo_hz >= fs_hz:
         raise ValueError("velocity band must satisfy 0 < lo < hi and lo below fs/2")
+    if fs_hz < 1 or fs_hz >= 1 << 20:
+        raise ValueError("sample rate must be 1 to 2**20 - 1 Hz")
     m = n >> 1
     for b in bands:
         if not 1 <= b[0] < b[1] <= m:
             raise ValueError("band bins must satisfy 1 <= lo < hi <= n/2")
+    speed.check_range(n, fs_hz, speed_lo_q8, speed_hi_q8)
+    orders.check_vane(n, fs_hz, vane, speed_hi_q8)
+    envelope.check_band(n, fs_hz, env_band, bear_q12, speed_hi_q8)
 
 
 def footprint_bytes(n, axes, ring_windows, n_bands):
     """Heap bytes the feature core's buffers and tables take (array payloads; object headers,
-    about 16 bytes each, come on top). Used by board profiles to check the heap budget."""
+    about 16 bytes each, come on top), the envelope's buffers included whether or not a set uses
+    them. Used by board profiles to check the heap budget."""
     m = n >> 1
     tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * 257 + 3 * (m + 1)   # trig, hann, pos, log2, vel
+    tw_b = fft.twiddle_bytes(m)                                          # radix-4 twiddles
     work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
-    return _ring_bytes(axes, n, ring_windows) + tables_b + work_b
+    return (_ring_bytes(axes, n, ring_windows) + tables_b + tw_b + work_b
+            + envelope.buffer_bytes(n))
 
 
 class FeatureCore:
@@ -48,8 +63,9 @@ class FeatureCore:
     """
 
     def __init__(self, n, axes, fs_hz, adc_min, adc_max, bands=(), vel_lo_hz=10, vel_hi_hz=1000,
-                 ring_windows=2):
-        check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz)
+                 ring_windows=2, speed_lo_q8=0, speed_hi_q8=0, vane=0, env_band=(), bear_q12=()):
+        check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz, speed_lo_q8, speed_hi_q8, vane,
+                     env_band, bear_q12)
         self.n = n
         self.m = n >> 1
         self.L = msb(n)
@@ -73,6 +89,11 @@ class FeatureCore:
         self.log2_4_3_q8 = 512 - log2_q8(3, self.log2_q15)
         self.per = per_axis(self.n_bands)
         self.feats = array.array('i', bytes(4 * axes * self.per))
+        self.speed = speed.SpeedEstimator(n, fs_hz, speed_lo_q8, speed_hi_q8, self.p)
+        self.orders = orders.OrderReader(vane, self.p, self.log2_q15)
+        self.env = envelope.Envelope(n, fs_hz, env_band, bear_q12, speed_hi_q8, self.hann_q15,
+                                     self.pos, self.tw_q15, self.cos_q15, self.sin_q15,
+                                     self.log2_q15)
         self.windows = 0
 
     def step(self):
@@ -116,7 +137,7 @@ class FeatureCore:
         f[off + F_PEAK] = pk << 8
         f[off + F_CLIP] = clip
         if pk == 0:
-            self._flat(off)
+            self._flat(off, mx)
             return
         # normalise: y = (x - mean) * 2**u, peak's top bit at Y_BITS
         u = Y_BITS - msb(pk)
@@ -128,17 +149,39 @@ class FeatureCore:
         s2 = L - 1
         sq = 0                          # sum(y*y >> (L-1)) < 2**29
         s4 = 0                          # sum(round(y*y / 2**14)**2 >> L) < 2**28
+        last = 65536                    # no int16 sample: the first one starts a run
+        run = 0                         # repeats of `last` so far (run length - 1)
+        rmax = 0                        # longest run - 1
+        zmax = 0                        # longest run of zeros (0: no zero seen)
         for i in range(n):
-            y = ((win[i] - mean) * g) >> sh
+            v = win[i]
+            if v == last:
+                run += 1
+                if run > rmax:
+                    rmax = run
+                if not v and run >= zmax:
+                    zmax = run + 1
+            else:
+                run = 0
+                last = v
+                if not v and not zmax:
+                    zmax = 1
+            y = ((v - mean) * g) >> sh
             yy = y * y
             sq += yy >> s2
             r = (yy + 8192) >> 14
             s4 += (r * r) >> L
             buf[pos[i]] = (y * hann[i]) >> 15
+        f[off + F_STUCK] = rmax + 1
+        f[off + F_ZERO] = zmax
         m = self.m
         fft.cfft(buf, m, self.tw_q15)
-        vs = fft.spectrum(buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p)
+        vs = fft.spectrum(buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p,
+                          self.env.on)
         self._finish(off, pk, u, g, sh, sq, s4, vs)
+        f1 = self.speed.run(f, off)
+        self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
+        self.env.run(buf, f1, f, off)
 
     def _finish(self, off, pk, u, g, sh, sq, s4, vs):
         """Features from the window sums (shared by the device and the host twin).
@@ -159,13 +202,20 @@ class FeatureCore:
             ps = sum(self.bands[b])
             f[off + F_BAND0 + b] = log2_q8(ps, t) + c if ps > 0 else LOG2_ZERO_Q8
 
-    def _flat(self, off):
-        """A window with no variation at all (stuck output): no spectrum, zero features."""
+    def _flat(self, off, v):
+        """A window with no variation at all, every sample v (stuck output): no spectrum, zero
+        features, one run of n samples."""
         f = self.feats
         f[off + F_RMS] = 0
         f[off + F_CREST] = 0
         f[off + F_KURT] = 0
         f[off + F_VEL] = 0
+        f[off + F_STUCK] = self.n
+        f[off + F_ZERO] = 0 if v else self.n
+        f[off + F_SPEED] = 0
+        f[off + F_SPEED_CONF] = 0
+        for j in range(F_ORD_HALF, F_ENV_FTF + 1):
+            f[off + j] = LOG2_ZERO_Q8
         for b in range(self.n_bands):
             f[off + F_BAND0 + b] = LOG2_ZERO_Q8
         p = self.p

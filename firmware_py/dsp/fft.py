@@ -12,7 +12,8 @@ Scaling, stated once for all functions here:
   (Z[k] + conj Z[m-k])/2 and (Z[k] - conj Z[m-k])/2, halved before the twiddle product for the
   same bound. Result: X[k] = DFT(x)[k] / m for k = 0..m, |X| <= 2**14 (the window sum bound).
   Power p[k] = re**2 + im**2 <= 2**28, and by Parseval sum(p) <= 1.5 * 2**28 < 2**30, so sums of
-  any band of p never overflow.
+  any band of p never overflow. spectrum leaves X itself in buf (packed real-FFT layout), which
+  the envelope stage reads.
 Floor shifts bias each stage by at most -1/2 LSB; that error is what the tests' tolerance derives from.
 
 What X holds, per window size (the feature core takes n = 64..4096, powers of two). x is Q0
@@ -54,6 +55,16 @@ def radix4_twiddles(m, cos_t, sin_t):
                     tw.append(-sin_t[i - m])
         h *= 4
     return _array_i(tw)
+
+
+def twiddle_bytes(m):
+    """Bytes of radix4_twiddles(m, ...): six ints per j of every radix-4 stage."""
+    b = 0
+    h = 2 if _odd_log2(m) else 1
+    while h < m:
+        b += 4 * 6 * h
+        h *= 4
+    return b
 
 
 def _array_i(values):
@@ -140,14 +151,19 @@ def cfft(buf, m, tw):
         h *= 4
 
 
-def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
+def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p, keep_x):
     """Split the complex FFT in buf into the real spectrum of the window.
 
     Writes the power p[k] = |X[k]|**2 for k = 0..m (array('i'), m + 1 entries) and returns
     sum over k of |X[k] * w[k] / 2**15|**2 with w[k] = vmant[k] * 2**-(vsh2[k]/2) (the weighted
     power behind velocity r.m.s., tables.velocity_weights): each component is scaled by the
     mantissa (Q15, >= 2**14, so it keeps its precision), squared, then shifted right by vsh2[k].
-    The sum is < 2**30 like sum(p), since w < 2**15. Reads buf, does not change it.
+    The sum is < 2**30 like sum(p), since w < 2**15.
+
+    With keep_x, overwrites buf with the spectrum X itself, in the packed real-FFT layout: X[k]
+    for k = 1..m-1 at buf[2k] (re) and buf[2k+1] (im); buf[0] = X[0] and buf[1] = X[m] (both
+    real). Each value read from buf is consumed before its slot is written (k and m-k are done
+    together). Without it buf is left as it was (the stores cost a few per cent of the window).
     """
     zr = buf[0]
     zi = buf[1]
@@ -155,6 +171,9 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
     xm = zr - zi                      # Nyquist: Re Z0 - Im Z0
     p[0] = x0 * x0
     p[m] = xm * xm
+    if keep_x:
+        buf[0] = x0
+        buf[1] = xm
     v = (xm * vmant[m]) >> 15
     vs = (v * v) >> vsh2[m]
     hm = m >> 1
@@ -175,13 +194,19 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
         ti = (wr * oi - wi * orr) >> 15
         xr = er + ti                            # X[k] = E - jT
         xi = ei - tr
+        if keep_x:
+            buf[i] = xr
+            buf[i + 1] = xi
         p[k] = xr * xr + xi * xi
         g = vmant[k]
         vr = (xr * g) >> 15
         vi = (xi * g) >> 15
         vs += (vr * vr + vi * vi) >> vsh2[k]
-        xr = er - ti                            # X[m-k] = conj(E + jT); sign is lost in power
+        xr = er - ti                            # X[m-k] = conj(E + jT): (xr, -xi)
         xi = ei + tr
+        if keep_x:
+            buf[q] = xr
+            buf[q + 1] = -xi
         p[m - k] = xr * xr + xi * xi
         g = vmant[m - k]
         vr = (xr * g) >> 15
@@ -190,6 +215,8 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p):
     # k = m/2 pairs with itself: W = -j, so X = conj Z[m/2]
     ar = buf[m]
     ai = buf[m + 1]
+    if keep_x:
+        buf[m + 1] = -ai
     p[hm] = ar * ar + ai * ai
     g = vmant[hm]
     vr = (ar * g) >> 15

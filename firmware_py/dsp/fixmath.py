@@ -100,3 +100,16 @@ def log2_q8(x, table_q15):
     t0 = table_q15[i]
     lin = t0 + (((table_q15[i + 1] - t0) * f) >> _LOG2_FRAC)    # Q15, < 2**15
     return (e << 8) + ((lin + 64) >> 7)
+
+
+def mul_shift(a, b, s):
+    """floor(a * b / 2**s) for 0 <= a < 2**20, 0 <= b < 2**20, s >= 0, if the result is < 2**30.
+
+    b is split into 10-bit halves, so each partial product is below 2**30:
+    floor((a*bh*2**10 + a*bl) / 2**s) = floor((a*bh + floor(a*bl / 2**10)) / 2**(s-10)) for s >= 10.
+    """
+    lo = a * (b & 1023)
+    hi = a * (b >> 10)
+    if s >= 10:
+        return (hi + (lo >> 10)) >> (s - 10)
+    return (hi << (10 - s)) + (lo >> s)

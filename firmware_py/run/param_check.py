@@ -153,7 +153,8 @@ def _run(core, det, profile):
         f[b + fi.F_MEAN] = (det.dc_lo_q8[a] >> 1) + (det.dc_hi_q8[a] >> 1)
         if f[b + fi.F_VEL] < det.idle_vel_q16:
             f[b + fi.F_VEL] = det.idle_vel_q16
-    det.hold = 0                       # past the start-up hold-off: the scoring path runs
+    det.starting = False               # past the start-up hold-off, steady: the scoring path runs
+    det.steady_w = det.hold_w
     _locked_step(det, f, 1)
     if det.learn(2):
         _locked_step(det, f, 3)

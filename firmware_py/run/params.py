@@ -4,6 +4,14 @@ docs/protocol.md and docs/detector.md). Keys:
   counts_per_g                        sensor scale the set was trained with (int)
   fc_bands                            band-power bands, [[lo_bin, hi_bin), ...] (feature core)
   fc_vel_hz                           [lo, hi] band of velocity r.m.s., Hz (10-1000 by default)
+  fc_speed_lo_q8, fc_speed_hi_q8      1x search range, Hz Q8 (both 0 or absent: no speed estimate,
+                                      so no order or envelope fields either)
+  fc_vane                             vane count of the impeller (0 or absent: no vane-pass field)
+  fc_env_band                         [lo_bin, hi_bin) of the envelope's band ([] or absent: none)
+  fc_bear_q12                         bearing defect orders [bpfo, bpfi, bsf, ftf], shaft orders
+                                      Q12 (host_tools/data/bearing.py; [] or absent: none)
+The feature core (firmware_py/dsp/features.check_config) refuses a set it cannot run, with the
+reason; every fc_ key added after the first sets has a default that keeps those sets valid.
   det_*                               the detector's keys (firmware_py/detect/detector.py PARAM_KEYS)
 Device and host build the feature core and the detector from a set with the same functions here.
 
@@ -62,8 +70,31 @@ def factory(profile):
     p = {"version": 0, "board": profile["name"], "fs_hz": fs, "n": n, "axes": axes,
          "counts_per_g": s["counts_per_g"], "fc_bands": bands, "fc_vel_hz": [10, hi]}
     p.update(detector.default_params(axes, len(bands), vel_per_mm_s(s["counts_per_g"]),
-                                     full_scale=s["adc_max"]))
+                                     full_scale=s["adc_max"], n=n, fs_hz=fs))
     return p
+
+
+def feature_options(p):
+    """The speed, order and envelope options of set p as FeatureCore keywords, with the
+    defaults of sets that predate them (no speed estimate, no vane, no envelope). ValueError
+    names the key whose type is wrong; FeatureCore then checks the values."""
+    return {"speed_lo_q8": _int(p, "fc_speed_lo_q8"), "speed_hi_q8": _int(p, "fc_speed_hi_q8"),
+            "vane": _int(p, "fc_vane"), "env_band": _ints(p, "fc_env_band"),
+            "bear_q12": _ints(p, "fc_bear_q12")}
+
+
+def _int(p, key):
+    v = p.get(key, 0)
+    if not isinstance(v, int) or isinstance(v, bool):
+        raise ValueError("%s must be an integer" % key)
+    return v
+
+
+def _ints(p, key):
+    v = p.get(key, ())
+    if not isinstance(v, (list, tuple)) or not all(isinstance(x, int) and not isinstance(x, bool) for x in v):
+        raise ValueError("%s must be a list of integers" % key)
+    return tuple(v)
 
 
 def feature_core(p, profile):
@@ -72,9 +103,10 @@ def feature_core(p, profile):
     return FeatureCore(p["n"], p["axes"], p["fs_hz"], s["adc_min"], s["adc_max"],
                        bands=[(b[0], b[1]) for b in p["fc_bands"]],
                        vel_lo_hz=p["fc_vel_hz"][0], vel_hi_hz=p["fc_vel_hz"][1],
-                       ring_windows=profile["ring_windows"])
+                       ring_windows=profile["ring_windows"], **feature_options(p))
 
 
 def build(p, profile):
-    """(FeatureCore, Detector) for parameter set p on the board of profile."""
-    return feature_core(p, profile), detector.Detector(p)
+    """(FeatureCore, Detector) for parameter set p on the board of profile; the detector's time
+    base is one analysed window in the profile's analyse_every."""
+    return feature_core(p, profile), detector.Detector(p, profile["analyse_every"])

@@ -48,14 +48,15 @@ from pathlib import Path
 import numpy as np
 from scipy import signal
 
+from host_tools.data import pump_physics as ph
 from host_tools.data.bearing import BEARING_6205, BearingGeometry, defect_orders
 from host_tools.data.recording import write_wav
 
 FS_HZ = 3200
-G_M_S2 = 9.80665  # standard gravity (CGPM 1901; common practice)
-COUNTS_PER_G = 256  # ADXL345 full resolution (datasheet; as in the board profiles)
-M_S2_PER_COUNT = G_M_S2 / COUNTS_PER_G
-ADC_MIN, ADC_MAX = -4096, 4095  # +-16 g in 13 bits
+G_M_S2 = ph.G_M_S2
+COUNTS_PER_G = int(ph.ADXL345.counts_per_g)  # ADXL345 full resolution (pump_physics.ADXL345)
+M_S2_PER_COUNT = ph.ADXL345.m_s2_per_count
+ADC_MIN, ADC_MAX = ph.ADXL345.adc_min, ph.ADXL345.adc_max  # +-16 g in 13 bits
 AXES = ("x", "y", "z")
 PLANT = "Brackwater pumping station"
 DEFAULT_SEED = 2026
@@ -68,8 +69,8 @@ TOP_RPM = OPERATING_RPM[0]
 RAMP_RPM_PER_S = 150.0
 START_T0_S = datetime(2026, 3, 2, tzinfo=timezone.utc).timestamp()  # invented start date
 BEARING_SLIP = 0.01  # rolling elements lag the kinematic rate by about 1 % (common practice)
-# Noise density per axis (x, y, z), ug/sqrt(Hz): near the ADXL345's datasheet figures (from memory).
-SENSOR_NOISE_UG_RTHZ = (290.0, 290.0, 430.0)
+# Noise density per axis (x, y, z), ug/sqrt(Hz): the ADXL345's (pump_physics.ADXL345, from memory).
+SENSOR_NOISE_UG_RTHZ = ph.ADXL345.noise_ug_rthz
 _DAY_S = 86400.0
 
 
@@ -285,20 +286,12 @@ def _bearing_impacts(sc: Scenario, p: PumpSpec, t0: float, theta: np.ndarray, rp
     at = np.searchsorted(passes, k + 0.02 * rng.standard_normal(len(k)))  # slip jitter, ~2 % of a period
     at = at[(at > 0) & (at < len(out))]
     out[at] = _BEARING_END_M_S2 * sev * (rpm[at] / TOP_RPM) * (1.0 + 0.2 * rng.standard_normal(len(at)))
-    # Two-pole resonator; numerator sin(wd) makes a unit impulse ring with a peak near 1.
-    w = 2 * np.pi * p.resonance_hz / FS_HZ
-    r = math.exp(-w / (2.0 * p.resonance_q))
-    return signal.lfilter([math.sin(w)], [1.0, -2.0 * r * math.cos(w), r * r], out)
+    return ph.Resonator(p.resonance_hz, p.resonance_q, FS_HZ).next(out)
 
 
 def _cavitation(rng: np.random.Generator, n: int, cav: float) -> np.ndarray:
     """Cavitation noise (m/s^2): a raised floor above 400 Hz plus random bursts of it."""
-    gate = np.zeros(n + 1)
-    starts = rng.integers(0, n, rng.poisson(30.0 * n / FS_HZ))
-    ends = np.minimum(starts + (rng.exponential(0.008, len(starts)) * FS_HZ).astype(int) + 1, n)
-    np.add.at(gate, starts, 1.0)
-    np.add.at(gate, ends, -1.0)
-    bursts = np.cumsum(gate[:n]) > 0
+    bursts = ph.bursts(rng, n, FS_HZ, 30.0, 0.008)
     noise = signal.sosfilt(_CAV_SOS, rng.standard_normal((n + 1024, 3)), axis=0)[1024:]
     noise /= noise.std()
     return noise * (cav * (0.25 + 1.5 * bursts))[:, None]

@@ -17,7 +17,13 @@ from host_tools.errors import EdgevibError
 
 STANDARD_GRAVITY_M_S2 = 9.80665   # ISO 80000-3 standard acceleration of free fall
 FIELD_NAMES = {fi.F_MEAN: "mean", fi.F_RMS: "accel_rms", fi.F_PEAK: "peak", fi.F_CREST: "crest",
-               fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms"}
+               fi.F_KURT: "kurtosis", fi.F_CLIP: "clipped", fi.F_VEL: "velocity_rms",
+               fi.F_STUCK: "stuck_run", fi.F_ZERO: "zero_run", fi.F_SPEED: "speed",
+               fi.F_SPEED_CONF: "speed_confidence", fi.F_ORD_HALF: "order_0.5x",
+               fi.F_ORD_1X: "order_1x", fi.F_ORD_2X: "order_2x", fi.F_ORD_3X: "order_3x",
+               fi.F_ORD_VANE: "order_vane_pass", fi.F_ENV_BPFO: "envelope_bpfo",
+               fi.F_ENV_BPFI: "envelope_bpfi", fi.F_ENV_BSF: "envelope_bsf",
+               fi.F_ENV_FTF: "envelope_ftf"}
 
 
 def m_s2_per_count(params: dict) -> float:

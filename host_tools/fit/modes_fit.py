@@ -6,6 +6,7 @@ the model the host fits is exactly in the space the device scores in.
 """
 from __future__ import annotations
 
+import math
 from array import array
 
 import numpy as np
@@ -21,6 +22,7 @@ from firmware_py.dsp.tables import log2_table
 # Kaufman and Rousseeuw's reading of the average silhouette ("Finding Groups in Data", 1990;
 # from memory): 0.25 or less means no substantial structure, so one mode is kept.
 SILHOUETTE_MIN = 0.25
+MIN_MODE_N = 30         # a speed group with fewer windows joins its neighbour
 _SIL_SAMPLE = 2000      # the silhouette is O(n**2): score it on at most this many rows
 
 
@@ -137,17 +139,57 @@ def transformed(feats: np.ndarray, params: dict) -> np.ndarray:
     return out
 
 
-def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | None = None,
-        seed: int = 0) -> dict:
-    """Baseline, operating modes and thresholds from healthy running windows (rows of raw
-    feature vectors). Returns the detector keys to merge into the parameter set.
+def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KMAX) -> tuple[int, np.ndarray]:
+    """Operating modes from the shaft speed alone, by the gaps between speeds: sorted speeds are
+    cut wherever two neighbours lie more than `gap` (a fraction of the speed) apart, groups with
+    fewer than min_n windows join their nearer neighbour, and while more than k_max remain the
+    two nearest merge. A continuum of speeds (a drive trimmed slowly) stays one mode; distinct
+    set points, with no speeds between them, become modes. Returns (k, label per window),
+    numbered by rising speed."""
+    x = np.log(np.asarray(speed_hz, dtype=float))
+    order = np.argsort(x, kind="stable")
+    xs = x[order]
+    cuts = [0] + [i + 1 for i in np.flatnonzero(np.diff(xs) > math.log1p(gap))] + [len(xs)]
+    groups = [[a, b] for a, b in zip(cuts[:-1], cuts[1:])]
 
-    The baseline is the device's fixed-point Welford; z is standardised by the device's code; the
-    modes are k-means in z (Q8) with k chosen by the silhouette; each mode's spread is its
-    members' standard deviation per feature, floored at det_s_floor_q8. The alert threshold is
-    the chi-square tail point of the device (CHI_Q8, p = 1e-4) times the margin. The idle floor
-    (det_idle_vel_q16, counts/s Q16) is a quarter of the quietest window's broadband velocity
-    (largest axis F_VEL), as the device's own learning sets it, and never under the set's.
+    def centre(g):
+        return float(np.median(xs[g[0]:g[1]]))
+    while len(groups) > 1:
+        sizes = [b - a for a, b in groups]
+        small = int(np.argmin(sizes))
+        if sizes[small] >= min_n and len(groups) <= k_max:
+            break
+        if sizes[small] >= min_n:       # too many modes: merge the two nearest
+            d = [centre(groups[i + 1]) - centre(groups[i]) for i in range(len(groups) - 1)]
+            i = int(np.argmin(d))
+        else:                           # too small: into its nearer neighbour
+            i = small - 1 if small == len(groups) - 1 or (
+                small > 0 and centre(groups[small]) - centre(groups[small - 1]) <
+                centre(groups[small + 1]) - centre(groups[small])) else small
+        groups[i] = [groups[i][0], groups[i + 1][1]]
+        del groups[i + 1]
+    lab = np.empty(len(x), int)
+    for m, (a, b) in enumerate(groups):
+        lab[order[a:b]] = m
+    return len(groups), lab
+
+
+def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
+        k_max: int = dm.KMAX, margin_q8: int | None = None, seed: int = 0) -> dict:
+    """Baseline, operating modes and conservative thresholds from healthy running windows (rows
+    of raw feature vectors). Returns the detector keys to merge into the parameter set.
+
+    Modes come from the operating point, never from the health features: with speed_hz (the
+    device's speed estimate of each window, Hz), speed_modes() groups the windows at gaps wider
+    than twice speed_tol (the steady tolerance, at least 1 %), and each mode's speed range
+    (det_op_speed_q8) is its windows' range widened by that much each side; the load proxy is left open (docs/detector.md, Operating
+    point). Without speed_hz: one mode and no operating points. The baseline is the device's
+    fixed-point Welford; z is standardised by the device's code; each mode's centroid and spread
+    are its members' mean and standard deviation per feature, the spread floored at
+    det_s_floor_q8. Thresholds: the chi-square tail point of the device (CHI_Q8, p = 1e-4) times
+    the margin (training replaces them with the fitted raise rate). The idle floor
+    (det_idle_vel_q16, counts/s Q16) is a quarter of the quietest window's broadband velocity, as
+    the device's own learning sets it, and never under the set's.
     """
     u = transformed(feats, params)
     d = u.shape[1]
@@ -167,13 +209,18 @@ def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | 
     for r, row in enumerate(u):
         model.standardise(array("i", row.tolist()), zb)
         z[r] = zb
-    k, _ = choose_k(z, k_max, seed)
-    if k > 1:
-        centers, lab, _ = kmeans(z, k, seed=seed)
+    op: list[int] = []
+    if speed_hz is not None:
+        widen = 2.0 * max(speed_tol, 0.01)
+        k, lab = speed_modes(speed_hz, widen, MIN_MODE_N, k_max)
+        for m in range(k):
+            sp = np.asarray(speed_hz)[lab == m]
+            op += [int(math.floor(sp.min() * (1 - widen) * 256)), int(math.ceil(sp.max() * (1 + widen) * 256))]
     else:
-        centers, lab = z.mean(0)[None], np.zeros(len(z), int)
+        k, lab = 1, np.zeros(len(z), int)
     floor = params["det_s_floor_q8"]
-    spread = np.array([z[lab == m].std(0) if (lab == m).any() else np.zeros(d) for m in range(k)])
+    centers = np.array([z[lab == m].mean(0) for m in range(k)])
+    spread = np.array([z[lab == m].std(0) for m in range(k)])
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
     alert = (CHI_Q8[d - 1] * margin) >> 8
     return {
@@ -182,6 +229,7 @@ def fit(feats: np.ndarray, params: dict, k_max: int = dm.KMAX, margin_q8: int | 
         "det_modes": int(k),
         "det_mode_c_q8": [int(v) for v in np.clip(np.rint(centers), -dm.Z_LIM, dm.Z_LIM).ravel()],
         "det_mode_s_q8": [int(v) for v in np.clip(np.rint(spread), floor, dm.Z_LIM).ravel()],
+        "det_op_speed_q8": op, "det_op_load_q8": [],
         "det_thr_alert_q8": int(alert),
         "det_thr_alarm_q8": int((alert * params["det_learn_alarm_q8"]) >> 8),
         "det_idle_vel_q16": idle,

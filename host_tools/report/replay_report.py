@@ -44,7 +44,7 @@ import numpy as np
 import firmware_py  # noqa: F401  (installs the micropython stand-in the device modules import)
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import iso_zones
-from firmware_py.detect.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSOR_FAULT, STATE_NAMES
+from firmware_py.detect.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSOR_FAULT, STATE_NAMES, UNSCORED, windows_for
 from host_tools.data import units
 from host_tools.data.lines import HANN_ENBW_BINS, line_names
 from host_tools.errors import EdgevibError
@@ -67,8 +67,9 @@ STATE_COLOURS = {
     IDLE: "#cfd5dc",          # pale slate
     SENSOR_FAULT: "#7356a3",  # violet
     LEARNING: "#4f88b4",      # steel blue
+    UNSCORED: "#a7b89a",      # lichen: running, health not judged (an operating point never learned)
 }
-_DRAW_ORDER = (IDLE, NORMAL, LEARNING, ALERT, SENSOR_FAULT, ALARM)   # later is drawn on top
+_DRAW_ORDER = (IDLE, NORMAL, UNSCORED, LEARNING, ALERT, SENSOR_FAULT, ALARM)   # later is drawn on top
 FAULT_COLOURS = {"bearing_outer_race": "#c7662f", "cavitation": "#2f86c7", "loose_cable": "#8a4fb0"}
 _RAISES = (ALERT, ALARM, SENSOR_FAULT)
 # Which new state counts as having seen each seeded fault of the demo scenario.
@@ -477,15 +478,21 @@ class _WindowSamples:
         return np.array(out)
 
 
+def at_windows(p: dict) -> int:
+    """Windows shown at an event: the persistence span in windows (one window analysed in each),
+    at most SPECTRUM_WINDOWS."""
+    return min(windows_for(int(p["det_persist_ms"]), int(p["n"]), int(p["fs_hz"]), 1), SPECTRUM_WINDOWS)
+
+
 def event_windows(ev: dict, w: Windows, p: dict) -> tuple[list[float], list[float]]:
-    """End times of the windows at the event (the persistence window: det_n windows ending at
-    the event's, within one snapshot) and just before it: the SPECTRUM_WINDOWS latest running
+    """End times of the windows at the event (the persistence span, at most SPECTRUM_WINDOWS of
+    its windows ending at the event's, within one snapshot) and just before it: the SPECTRUM_WINDOWS latest running
     windows (not idle or sensor fault) before those, in the event's mode when it has one and
     such windows exist, so that the comparison is at the same operating point."""
     i = min(int(np.searchsorted(w.t_s, float(ev["t_s"]) - 1e-6)), len(w.t_s) - 1)
     window_s = p["n"] / float(p["fs_hz"])
     at = [i]
-    while len(at) < int(p.get("det_n", 5)) and at[0] > 0 and w.t_s[at[0]] - w.t_s[at[0] - 1] < 1.5 * window_s:
+    while len(at) < at_windows(p) and at[0] > 0 and w.t_s[at[0]] - w.t_s[at[0] - 1] < 1.5 * window_s:
         at.insert(0, at[0] - 1)
     running = np.flatnonzero((w.state[:at[0]] != IDLE) & (w.state[:at[0]] != SENSOR_FAULT))
     mode = ev.get("mode")
@@ -708,7 +715,8 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
     parts += ["<h2>Score</h2>",
               "<p>Each point is one evaluated window (idle, held-off and sensor-fault windows are not scored). "
               "The band above shows the state; an alert needs the score over its threshold on "
-              f'{p.get("det_k", "k")} of the last {p.get("det_n", "n")} windows.</p>',
+              f'{int(p.get("det_persist_q8", 205)) * 100 // 256} % of the windows of the last '
+              f'{int(p.get("det_persist_ms", 20000)) / 1000:g} s of running.</p>',
               '<img src="score.png" alt="score over time with thresholds">',
               "<p>An alarm stays latched until it is acknowledged on the gateway; a replay acknowledges nothing, "
               "so once raised it stays to the end.</p>",

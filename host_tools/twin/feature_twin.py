@@ -3,8 +3,10 @@
 firmware_py.dsp.features is the truth; this module must give bit-identical features for every window,
 which the tests prove against it under CPython and under a real MicroPython. Every elementwise
 operation below mirrors one line of firmware_py (features._axis, fft.cfft, fft.spectrum,
-features._finish, fixmath); all values stay below 2**30 in magnitude there, so int32 holds the
-elementwise stages exactly and int64 the sums and the wider exact divisions.
+features._finish, speed, orders, envelope, fixmath); all values stay below 2**30 in magnitude
+there, so int32 holds the elementwise stages exactly and int64 the sums and the wider exact
+divisions (fixmath.mul_shift and div_pow2 are exact floors, so a plain int64 product and floor
+division give the same bits).
 
 Windows are consecutive, non-overlapping runs of n samples from the start of the recording, as
 the device's ring delivers them.
@@ -17,9 +19,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from firmware_py.dsp import fft, tables
+from firmware_py.dsp import envelope, fft, speed, tables
 from firmware_py.dsp.feature_index import (
-    F_BAND0, F_CLIP, F_CREST, F_KURT, F_MEAN, F_PEAK, F_RMS, F_VEL, LOG2_ZERO_Q8, per_axis)
+    F_BAND0, F_CLIP, F_CREST, F_ENV_BPFO, F_ENV_FTF, F_KURT, F_MEAN, F_ORD_1X, F_ORD_2X, F_ORD_3X,
+    F_ORD_HALF, F_ORD_VANE, F_PEAK, F_RMS, F_SPEED, F_SPEED_CONF, F_STUCK, F_VEL, F_ZERO,
+    LOG2_ZERO_Q8, per_axis)
 from firmware_py.dsp.features import Y_BITS, check_config
 from firmware_py.dsp.fixmath import log2_q8
 
@@ -34,13 +38,19 @@ class TwinConfig:
     bands: tuple = ()
     vel_lo_hz: int = 10
     vel_hi_hz: int = 1000
+    speed_lo_q8: int = 0
+    speed_hi_q8: int = 0
+    vane: int = 0
+    env_band: tuple = ()
+    bear_q12: tuple = ()
 
 
 class FeatureTwin:
     """Vectorised FeatureCore: features(counts) -> int32 array (windows, axes * per_axis)."""
 
     def __init__(self, cfg: TwinConfig, axes: int = 1):
-        check_config(cfg.n, axes, cfg.fs_hz, cfg.bands, cfg.vel_lo_hz, cfg.vel_hi_hz)
+        check_config(cfg.n, axes, cfg.fs_hz, cfg.bands, cfg.vel_lo_hz, cfg.vel_hi_hz,
+                     cfg.speed_lo_q8, cfg.speed_hi_q8, cfg.vane, cfg.env_band, cfg.bear_q12)
         self.cfg = cfg
         self.axes = axes
         n = cfg.n
@@ -56,19 +66,42 @@ class FeatureTwin:
         vm, vs, self.vel_exp = tables.velocity_weights(n, cfg.fs_hz, cfg.vel_lo_hz, cfg.vel_hi_hz)
         self.vmant = np.array(vm, dtype=np.int32)
         self.vsh2 = np.array(vs, dtype=np.int32)
-        self.stages = self._stage_twiddles(fft.radix4_twiddles(self.m, cos_t, sin_t))
+        self.stages = self._stage_twiddles(fft.radix4_twiddles(self.m, cos_t, sin_t), self.m)
         self.log2_4_3_q8 = 512 - log2_q8(3, tables.log2_table())
         self.per = per_axis(len(cfg.bands))
+        # speed.SpeedEstimator's range, quarter bins, and the bins its confidence sums
+        self.speed_on = cfg.speed_hi_q8 > 0
+        if self.speed_on:
+            self.c_lo_q2 = speed.bins_q2(cfg.speed_lo_q8, n, cfg.fs_hz, True)
+            self.c_hi_q2 = speed.bins_q2(cfg.speed_hi_q8, n, cfg.fs_hz, False)
+            self.b_lo_q8 = speed.bins_q(cfg.speed_lo_q8, n, cfg.fs_hz, 8, True)
+            self.b_hi_q8 = speed.bins_q(cfg.speed_hi_q8, n, cfg.fs_hz, 8, False)
+            self.reach = (((self.c_lo_q2 + 2) >> 2) - 3, ((3 * self.c_hi_q2 + 2) >> 2) + 4)
+        # envelope.Envelope's set-up: M points, the window and bit-reversed slots at a stride
+        self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4 and cfg.speed_hi_q8 > 0
+        if self.env_on:
+            mz = envelope.points(n, cfg.fs_hz, cfg.env_band, cfg.bear_q12, cfg.speed_hi_q8)
+            st = self.m // mz
+            tw = fft.radix4_twiddles(mz, [cos_t[k * st] for k in range(mz + 1)],
+                                     [sin_t[k * st] for k in range(mz + 1)])
+            self.env_mz = mz
+            self.env_stages = self._stage_twiddles(tw, mz)
+            h = self.hann_q15[:: n // mz].astype(np.int64) >> 1
+            self.w2_q14 = (h * h) >> 14
+            self.w2sum_q14 = int(self.w2_q14.sum())
+            self.cpos = self.pos[:: 2 * st] // 2          # bit-reversed slot of complex point c
+            self.env_c_ms_q8 = 2048 - log2_q8(35, tables.log2_table())
 
     # --- set-up -------------------------------------------------------------------------------
 
-    def _stage_twiddles(self, tw):
-        """Split fft.radix4_twiddles' flat table into (h, w2, w1, w3) per stage, each w an
-        (cos, sin) pair of int32 arrays over j = 0..h-1."""
+    @staticmethod
+    def _stage_twiddles(tw, m):
+        """Split fft.radix4_twiddles' flat table for an m-point cfft into (h, w2, w1, w3) per
+        stage, each w an (cos, sin) pair of int32 arrays over j = 0..h-1."""
         tw = np.array(tw, dtype=np.int32).reshape(-1, 6)
         out, t = [], 0
-        h = 2 if fft._odd_log2(self.m) else 1
-        while h < self.m:
+        h = 2 if fft._odd_log2(m) else 1
+        while h < m:
             rows = tw[t:t + h]
             t += h
             out.append((h, (rows[:, 0], rows[:, 1]), (rows[:, 2], rows[:, 3]), (rows[:, 4], rows[:, 5])))
@@ -118,6 +151,7 @@ class FeatureTwin:
         f[:, F_MEAN] = (s + (1 << (L - 9)) >> (L - 8)) if L > 8 else s << (8 - L)
         f[:, F_PEAK] = pk << 8
         f[:, F_CLIP] = clip
+        f[:, F_STUCK], f[:, F_ZERO] = _runs(x)
         live = pk > 0
         u = np.where(live, Y_BITS - _msb(np.maximum(pk, 1)), 0)
         g = (1 << np.maximum(u, 0)).astype(np.int32)
@@ -130,8 +164,11 @@ class FeatureTwin:
         buf = np.empty_like(y)
         buf[:, self.pos] = (y * self.hann_q15) >> 15
         re, im = self._cfft(buf[:, 0::2].copy(), buf[:, 1::2].copy())
-        p, vs = self._spectrum(re, im)
+        p, vs, xr, xi = self._spectrum(re, im)
         self._finish(f, pk, u, g.astype(np.int64), sh.astype(np.int64), sq, s4, vs, p)
+        f1 = self._speed(p, f)
+        self._orders(p, f1, self.log2_4_3_q8 - 512 * u, f)
+        self._envelope(xr, xi, f1, f)
         # a flat window: no spectrum, zero features (features._flat)
         dead = ~live
         if dead.any():
@@ -139,19 +176,23 @@ class FeatureTwin:
             f[dead, F_CREST] = 0
             f[dead, F_KURT] = 0
             f[dead, F_VEL] = 0
+            f[dead, F_SPEED] = 0
+            f[dead, F_SPEED_CONF] = 0
+            f[dead, F_ORD_HALF:F_ENV_FTF + 1] = LOG2_ZERO_Q8
             f[dead, F_BAND0:] = LOG2_ZERO_Q8
             p[dead] = 0
         return p
 
-    def _cfft(self, re, im):
-        """fft.cfft over all windows: re, im (windows, m) in bit-reversed order."""
+    def _cfft(self, re, im, stages=None):
+        """fft.cfft over all windows: re, im (windows, m) in bit-reversed order; stages from
+        _stage_twiddles for that m (the window's own m-point FFT by default)."""
         wn, m = re.shape
         if fft._odd_log2(m):
             r2, i2 = re.reshape(wn, m // 2, 2), im.reshape(wn, m // 2, 2)
             ur, ui, xr, xi = r2[:, :, 0], i2[:, :, 0], r2[:, :, 1], i2[:, :, 1]
             re = np.stack(((ur + xr) >> 1, (ur - xr) >> 1), axis=2).reshape(wn, m)
             im = np.stack(((ui + xi) >> 1, (ui - xi) >> 1), axis=2).reshape(wn, m)
-        for h, (w2r, w2i), (w1r, w1i), (w3r, w3i) in self.stages:
+        for h, (w2r, w2i), (w1r, w1i), (w3r, w3i) in (self.stages if stages is None else stages):
             r4 = re.reshape(wn, m // (4 * h), 4, h)
             i4 = im.reshape(wn, m // (4 * h), 4, h)
             xr, xi = r4[:, :, 1], i4[:, :, 1]
@@ -178,10 +219,14 @@ class FeatureTwin:
         hm = m // 2
         wn = re.shape[0]
         p = np.empty((wn, m + 1), dtype=np.int32)
+        xre = np.zeros((wn, m + 1), dtype=np.int32)     # X[k], k = 0..m (fft.spectrum leaves it in buf)
+        xim = np.zeros((wn, m + 1), dtype=np.int32)
         vmant, vsh2 = self.vmant, self.vsh2
         zr, zi = re[:, 0], im[:, 0]
         x0 = zr + zi
         xm = zr - zi
+        xre[:, 0] = x0
+        xre[:, m] = xm
         p[:, 0] = x0 * x0
         p[:, m] = xm * xm
         v = (xm * vmant[m]) >> 15
@@ -193,17 +238,21 @@ class FeatureTwin:
         wr, wi = self.cos[k], self.sin[k]
         tr = (wr * orr + wi * oi) >> 15
         ti = (wr * oi - wi * orr) >> 15
-        for xr, xi, kk in ((er + ti, ei - tr, k), (er - ti, ei + tr, m - k)):
+        for xr, xi, kk, sg in ((er + ti, ei - tr, k, 1), (er - ti, ei + tr, m - k, -1)):
+            xre[:, kk] = xr
+            xim[:, kk] = sg * xi
             p[:, kk] = xr * xr + xi * xi
             g = vmant[kk]
             vr, vi = (xr * g) >> 15, (xi * g) >> 15
             vs += ((vr * vr + vi * vi) >> vsh2[kk]).sum(axis=1, dtype=np.int64)
         ar, ai = re[:, hm], im[:, hm]
+        xre[:, hm] = ar
+        xim[:, hm] = -ai
         p[:, hm] = ar * ar + ai * ai
         g = vmant[hm]
         vr, vi = (ar * g) >> 15, (ai * g) >> 15
         vs += (vr * vr + vi * vi) >> vsh2[hm]
-        return p, vs
+        return p, vs, xre, xim
 
     def _finish(self, f, pk, u, g, sh, sq, s4, vs, p):
         """features._finish over all windows (zero-peak windows are overwritten by the caller)."""
@@ -220,7 +269,130 @@ class FeatureTwin:
                                          LOG2_ZERO_Q8)
 
 
+    def _speed(self, p, f):
+        """speed.SpeedEstimator.run over all windows; returns 1x in bins Q8 (int64, 0: none)."""
+        wn = p.shape[0]
+        if not self.speed_on:
+            f[:, F_SPEED] = 0
+            f[:, F_SPEED_CONF] = 0
+            return np.zeros(wn, dtype=np.int64)
+        p = p.astype(np.int64)
+        c = np.arange(self.c_lo_q2, self.c_hi_q2 + 1)
+        s = np.zeros((wn, c.size), dtype=np.int64)
+        for h in (2, 3):
+            j = (h * c + 2) >> 2
+            s += p[:, j - 1] + p[:, j] + p[:, j + 1]
+        j = (c + 2) >> 2
+        s = (s >> 1) + p[:, j - 1] + p[:, j] + p[:, j + 1]
+        best = s.max(axis=1)
+        cb = c[s.argmax(axis=1)]                    # first largest, as the device's strict >
+        fq, pw = [], []
+        rows = np.arange(wn)[:, None]
+        for h in (1, 2, 3):
+            ch = (h * cb + 2) >> 2
+            cand = ch[:, None] + np.arange(-2, 3)
+            k = cand[rows[:, 0], p[rows, cand].argmax(axis=1)]
+            top = p[rows[:, 0], k]
+            lo = p[rows[:, 0], k - 1]
+            hi = p[rows[:, 0], k + 1]
+            pw.append(lo + top + hi)
+            e = 28 - _msb(np.maximum(top, 1))
+            a0 = _sqrt_pow2(top, e)
+            a1 = _sqrt_pow2(np.where(hi >= lo, hi, lo), e)
+            d = ((((2 * a1 - a0) << 9) // np.maximum(a1 + a0, 1)) + 1) >> 1
+            fq.append(np.where(top == 0, k << 8, np.where(hi >= lo, (k << 8) + d, (k << 8) - d)))
+        hs = np.where(pw[1] > pw[0], 2, 1)
+        hs = np.where(pw[2] > np.choose(hs - 1, pw), 3, hs)
+        top = np.choose(hs - 1, pw)
+        fr = np.choose(hs - 1, fq)
+        sh = np.maximum(_msb(np.maximum(top, 1)) - 7, 0)
+        w1, w2, w3 = ((pw[h - 1] >> sh) * (np.abs(hs * fq[h - 1] - h * fr) <= 128 * hs)
+                      for h in (1, 2, 3))
+        den = np.maximum(w1 + 4 * w2 + 9 * w3, 1)
+        f1 = (w1 * fq[0] + 2 * w2 * fq[1] + 3 * w3 * fq[2] + (den >> 1)) // den
+        f1 = np.clip(f1, self.b_lo_q8, self.b_hi_q8)
+        fam = pw[0] + pw[1] + pw[2]
+        tot = p[:, self.reach[0]:self.reach[1]].sum(axis=1)
+        conf = np.where(tot > 0, (fam << 8) // np.maximum(tot, 1), 0)
+        live = best > 0
+        f[:, F_SPEED] = np.where(live, (f1 * self.cfg.fs_hz) >> self.L, 0)
+        f[:, F_SPEED_CONF] = np.where(live, np.minimum(conf, 256), 0)
+        return np.where(live, f1, 0)
+
+    def _orders(self, p, f1, c, f):
+        """orders.OrderReader.run over all windows (c: log2 offset per window)."""
+        p = p.astype(np.int64)
+        rows = np.arange(p.shape[0])
+        live = f1 > 0
+        vane = self.cfg.vane
+        for field, x in ((F_ORD_HALF, f1 >> 1), (F_ORD_1X, f1), (F_ORD_2X, 2 * f1),
+                         (F_ORD_3X, 3 * f1), (F_ORD_VANE, vane * f1)):
+            if field == F_ORD_VANE and not vane:
+                f[:, field] = LOG2_ZERO_Q8
+                continue
+            k = np.where(live, x >> 8, 1)
+            s = p[rows, k - 1] + p[rows, k] + p[rows, k + 1] + p[rows, k + 2]
+            f[:, field] = np.where(live & (s > 0), _log2_q8(np.maximum(s, 1), self.log2_q15) + c,
+                                   LOG2_ZERO_Q8)
+
+    def _envelope(self, xr, xi, f1, f):
+        """envelope.Envelope.run over all windows, from the spectra X (re, im: windows, m+1)."""
+        fields = slice(F_ENV_BPFO, F_ENV_FTF + 1)
+        f[:, fields] = LOG2_ZERO_Q8
+        if not self.env_on:
+            return
+        m = self.env_mz
+        lo, hi = self.cfg.env_band
+        br, bi = xr[:, lo:hi].astype(np.int64), xi[:, lo:hi].astype(np.int64)
+        mx = np.maximum(np.abs(br).max(axis=1), np.abs(bi).max(axis=1))
+        u = 13 - _msb(np.maximum(mx, 1))
+        g = (1 << np.maximum(u, 0))[:, None]
+        sh = (u < 0).astype(np.int64)[:, None]
+        wn = xr.shape[0]
+        er = np.zeros((wn, m), dtype=np.int64)
+        ei = np.zeros((wn, m), dtype=np.int64)
+        slots = self.cpos[: hi - lo]
+        er[:, slots] = (br * g) >> sh
+        ei[:, slots] = -((bi * g) >> sh)
+        zr, zi = self._cfft(er.astype(np.int32), ei.astype(np.int32), self.env_stages)
+        s = zr.astype(np.int64) ** 2 + zi.astype(np.int64) ** 2
+        top = s.max(axis=1)
+        w = _msb(np.maximum(top, 1)) - envelope._S_TOP
+        s = (s << np.maximum(-w, 0)[:, None]) >> np.maximum(w, 0)[:, None]
+        tot = s.sum(axis=1)
+        eq = (((tot << 15) // self.w2sum_q14) + 1) >> 1
+        d = s - ((eq[:, None] * self.w2_q14 + 8192) >> 14)
+        dr = np.empty_like(d)
+        dr[:, self.cpos] = d
+        Dr, Di = self._cfft(dr.astype(np.int32), np.zeros_like(dr, dtype=np.int32), self.env_stages)
+        pe = Dr.astype(np.int64) ** 2 + Di.astype(np.int64) ** 2
+        live = (f1 > 0) & (mx > 0) & (top > 0) & (eq > 0)
+        c = self.env_c_ms_q8 - 2 * _log2_q8(np.maximum(eq, 1), self.log2_q15)
+        rows = np.arange(wn)[:, None]
+        for j, o in enumerate(self.cfg.bear_q12):
+            x = (f1 * o) >> 12
+            k0 = np.maximum((x >> 8) - 2, 0)
+            ks = k0[:, None] + np.arange(6)
+            inside = ks <= ((x >> 8) + 3)[:, None]
+            sl = (pe[rows, np.minimum(ks, m - 1)] * inside).sum(axis=1)
+            f[:, F_ENV_BPFO + j] = np.where(live & (sl > 0),
+                                            _log2_q8(np.maximum(sl, 1), self.log2_q15) + c,
+                                            LOG2_ZERO_Q8)
+
+
 # --- fixmath, vectorised: each gives exactly what its firmware_py.dsp.fixmath namesake gives ---------
+
+def _runs(x):
+    """Longest run of equal consecutive samples and longest run of zeros per row of x (the
+    per-sample pass of features._axis): run length at i = i - start of its run + 1."""
+    n = x.shape[1]
+    i = np.arange(n)
+    starts = np.ones(x.shape, dtype=bool)
+    starts[:, 1:] = x[:, 1:] != x[:, :-1]
+    first = np.maximum.accumulate(np.where(starts, i, 0), axis=1)
+    length = i - first + 1
+    return length.max(axis=1), np.where(x == 0, length, 0).max(axis=1)
+
 
 def _msb(x):
     """fixmath.msb for positive int64 arrays (< 2**53: frexp is exact there)."""

@@ -44,7 +44,7 @@ import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.detect import alarm as al
 from firmware_py.dsp import feature_index as fi
 from firmware_py.run import params as pm
-from firmware_py.detect.detector import Detector
+from firmware_py.detect.detector import Detector, WHY_NAMES
 from firmware_py.detect.iso_zones import ZONE_NAMES, zone_of
 from host_tools.data.units import band_hz, feature_name, m_s2_per_count
 from host_tools.errors import EdgevibError
@@ -58,9 +58,11 @@ _CHUNK_WINDOWS = 512   # windows per call of the feature twin: keeps its tempora
 def twin_for(params: dict, profile: dict) -> FeatureTwin:
     """The numpy twin of the feature core that parameter set `params` builds on board `profile`."""
     s = profile["sensor"]
+    o = pm.feature_options(params)
     cfg = TwinConfig(params["n"], params["fs_hz"], s["adc_min"], s["adc_max"],
                      tuple((b[0], b[1]) for b in params["fc_bands"]),
-                     params["fc_vel_hz"][0], params["fc_vel_hz"][1])
+                     params["fc_vel_hz"][0], params["fc_vel_hz"][1], o["speed_lo_q8"],
+                     o["speed_hi_q8"], o["vane"], o["env_band"], o["bear_q12"])
     return FeatureTwin(cfg, params["axes"])
 
 
@@ -88,10 +90,14 @@ class StreamFeatures:
     rec: np.ndarray
 
 
-def stream_features(recs: Sequence[Recording], twin: FeatureTwin) -> StreamFeatures:
-    """Features of consecutive n-sample windows over a stream, joining gap-free recordings.
+def stream_features(recs: Sequence[Recording], twin: FeatureTwin, every: int = 1) -> StreamFeatures:
+    """Features of the windows the device analyses over a stream, joining gap-free recordings.
 
-    The whole windows of every segment are stacked and run through the twin in chunks of
+    every: the board's analyse_every. The gateway analyses the first window of every cycle of
+    `every` windows and discards the others (firmware_py/run/gateway.py, feed), counting cycles
+    from the first frame it is fed; a recording segment (gap-free recordings joined) is fed from
+    its first frame, so its windows 0, every, 2 every, ... are the ones analysed, each keeping
+    its own end time. The selected windows are stacked and run through the twin in chunks of
     _CHUNK_WINDOWS (each window depends only on its own samples, so this is the same as one call
     per segment, with less overhead per call)."""
     n, fs = twin.n, float(twin.cfg.fs_hz)
@@ -108,8 +114,10 @@ def stream_features(recs: Sequence[Recording], twin: FeatureTwin) -> StreamFeatu
         w = ends[-1] // n
         if w:
             counts = parts[0] if len(parts) == 1 else np.concatenate(parts)
-            blocks.append(counts[:w * n])
-            w_end = (np.arange(w) + 1) * n
+            keep = np.arange(0, w, every)
+            wins = counts[:w * n].reshape(w, n, counts.shape[1])[keep]
+            blocks.append(wins.reshape(-1, counts.shape[1]))
+            w_end = (keep + 1) * n
             times.append(t0 + w_end / fs)
             owner.append(i + np.searchsorted(np.asarray(ends), w_end, side="left"))
         i = j
@@ -128,7 +136,10 @@ def stream_features(recs: Sequence[Recording], twin: FeatureTwin) -> StreamFeatu
 @dataclass
 class Steps:
     """What the detector did per window (index w = its clock), and its events as raw ints:
-    (w, old, new, reason, mode, feat, score_q8)."""
+    (w, old, new, reason, mode, feat, score_q8). why: firmware_py.detect.detector W_* (0 scored);
+    pushed: 1 where the window added to the persistence evidence; resets: the detector's count of
+    evidence resets after the window (a change marks a new evidence sequence); speed_q8: the
+    operating-point speed (Hz Q8, 0 none)."""
 
     state: np.ndarray
     score_q8: np.ndarray
@@ -136,6 +147,10 @@ class Steps:
     feat: np.ndarray
     events: list[tuple[int, int, int, int, int, int, int]]
     lost: int
+    why: np.ndarray
+    pushed: np.ndarray
+    resets: np.ndarray
+    speed_q8: np.ndarray
 
 
 def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
@@ -145,24 +160,45 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     Reading det.score_q8 when det.mode is -1 gives 0, as the device reports it.
     """
     rows = feats.tolist()
-    st: list[int] = []
-    sc: list[int] = []
-    md: list[int] = []
-    ft: list[int] = []
+    n = len(rows)
+    st = np.empty(n, np.int8)
+    sc = np.empty(n, np.int32)
+    md = np.empty(n, np.int8)
+    ft = np.empty(n, np.int16)
+    wy = np.empty(n, np.int8)
+    pu = np.empty(n, np.int8)
+    rs = np.empty(n, np.int32)
+    sp = np.empty(n, np.int32)
     ev: list[tuple[int, int, int, int, int, int, int]] = []
     step, ring = det.step, det.events
-    put_s, put_c, put_m, put_f = st.append, sc.append, md.append, ft.append
-    for w, row in enumerate(rows, first_w):
-        put_s(step(row, w, 0))
-        put_c(det.score_q8)
-        put_m(det.mode)
-        put_f(det.feat)
+    for i, row in enumerate(rows):
+        st[i] = step(row, first_w + i, 0)
+        sc[i] = det.score_q8
+        md[i] = det.mode
+        ft[i] = det.feat
+        wy[i] = det.why
+        pu[i] = det.pushed
+        rs[i] = det.resets
+        sp[i] = det.speed_q8
         while ring.count:
             k = ring.pop()
             ev.append((ring.t[k], ring.old[k], ring.new[k], ring.reason[k], ring.mode[k],
                        ring.feat[k], ring.score_q8[k]))
-    return Steps(np.array(st, np.int8), np.array(sc, np.int32), np.array(md, np.int8),
-                 np.array(ft, np.int16), ev, ring.lost)
+    return Steps(st, sc, md, ft, ev, ring.lost, wy, pu, rs, sp)
+
+
+def evidence_sequences(steps: Steps, select: np.ndarray | None = None) -> list[np.ndarray]:
+    """The combined scores (Q8) of the windows that entered the persistence evidence, cut where
+    the detector forgot it (a stop, a sensor fault): each piece is what the device's span saw in
+    one go. select: a boolean mask of windows to keep (others cut the sequence too)."""
+    keep = steps.pushed.astype(bool)
+    if select is not None:
+        keep &= select
+    idx = np.flatnonzero(keep)
+    if len(idx) == 0:
+        return []
+    cut = np.flatnonzero((np.diff(idx) > 1) | (np.diff(steps.resets[idx]) != 0)) + 1
+    return [steps.score_q8[g].astype(np.float64) for g in np.split(idx, cut)]
 
 
 # --- physical features --------------------------------------------------------------------------
@@ -228,35 +264,67 @@ class ReplayResult:
                 "summary": self.summary}
 
 
-def _stream_summary(t_s: np.ndarray, steps: Steps, events: list[dict], n_recs: int, window_s: float) -> dict:
+def promise_check(raises: int, running_h: float, params: dict) -> dict[str, Any] | None:
+    """The training's promise (fit_promise_milli: expected false raises per 30 days of running,
+    and its 95 % range, in thousandths) beside what a replay observed, with a verdict: "agrees"
+    when the count lies within the Poisson 2.5-97.5 % quantiles of the range's ends over the
+    running hours replayed (scipy.stats.poisson), "more than promised" or "fewer than promised"
+    otherwise. None when the set holds no promise. Raises on a replay of healthy running are
+    false by definition; on a faulty machine they are what the detector is for."""
+    pm_ = params.get("fit_promise_milli")
+    if not pm_ or running_h <= 0:
+        return None
+    from scipy.stats import poisson
+    rate, lo, hi = (v / 1000.0 for v in pm_)
+    lo_n = poisson.ppf(0.025, lo * running_h / 720.0)
+    hi_n = poisson.ppf(0.975, hi * running_h / 720.0)
+    verdict = "agrees" if lo_n <= raises <= hi_n else ("more than promised" if raises > hi_n else "fewer than promised")
+    return {"promised_per_30_days": rate, "range_95_per_30_days": [lo, hi],
+            "observed_raises": raises, "running_h": running_h,
+            "observed_per_30_days": raises * 720.0 / running_h,
+            "expected_raises": rate * running_h / 720.0, "verdict": verdict}
+
+
+def _stream_summary(t_s: np.ndarray, steps: Steps, events: list[dict], n_recs: int, window_s: float,
+                    params: dict) -> dict:
     counts = np.bincount(steps.state.astype(np.int64), minlength=len(al.STATE_NAMES))
+    why = np.bincount(steps.why.astype(np.int64), minlength=len(WHY_NAMES))
     first = {to: next((e["t_s"] for e in events if e["to"] == to), None) for to in ("alert", "alarm", "sensor_fault")}
+    raises = sum(e["to"] in ("alert", "alarm") and e["from"] not in ("alert", "alarm") for e in events)
+    running_h = float(steps.pushed.sum()) * window_s / 3600.0
     return {
         "recordings": n_recs,
         "windows": int(len(t_s)),
         "observed_s": float(len(t_s) * window_s),
+        "running_h": running_h,
         "t_first_s": float(t_s[0]) if len(t_s) else None,
         "t_last_s": float(t_s[-1]) if len(t_s) else None,
         "windows_per_state": {name: int(counts[i]) for i, name in enumerate(al.STATE_NAMES)},
+        "windows_by_scoring": {name: int(why[i]) for i, name in enumerate(WHY_NAMES)},
         "alerts": sum(e["to"] == "alert" for e in events),
         "alarms": sum(e["to"] == "alarm" for e in events),
+        "raises": raises,
         "sensor_faults": sum(e["to"] == "sensor_fault" for e in events),
         "first_alert_t_s": first["alert"],
         "first_alarm_t_s": first["alarm"],
         "first_sensor_fault_t_s": first["sensor_fault"],
         "events_lost": int(steps.lost),
+        "promise": promise_check(raises, running_h, params),
     }
 
 
-def _total(summaries: list[dict]) -> dict:
+def _total(summaries: list[dict], params: dict) -> dict:
     out: dict[str, Any] = {"streams": len(summaries)}
-    for key in ("recordings", "windows", "alerts", "alarms", "sensor_faults", "events_lost"):
+    for key in ("recordings", "windows", "alerts", "alarms", "raises", "sensor_faults", "events_lost"):
         out[key] = sum(s[key] for s in summaries)
     out["observed_s"] = sum(s["observed_s"] for s in summaries)
+    out["running_h"] = sum(s["running_h"] for s in summaries)
     out["windows_per_state"] = {name: sum(s["windows_per_state"][name] for s in summaries) for name in al.STATE_NAMES}
+    out["windows_by_scoring"] = {name: sum(s["windows_by_scoring"][name] for s in summaries) for name in WHY_NAMES}
     for key in ("first_alert_t_s", "first_alarm_t_s", "first_sensor_fault_t_s"):
         vals = [s[key] for s in summaries if s[key] is not None]
         out[key] = min(vals) if vals else None
+    out["promise"] = promise_check(out["raises"], out["running_h"], params)
     return out
 
 
@@ -265,8 +333,9 @@ def replay_stream(recs: Sequence[Recording], params: dict, profile: dict, name: 
 
     Returns {"name", "events", "windows", "summary", "recordings"} (the parts of a ReplayResult)."""
     check_recordings(recs, params)
-    sf = stream_features(recs, twin_for(params, profile))
-    det = Detector(params)
+    every = profile["analyse_every"]
+    sf = stream_features(recs, twin_for(params, profile), every)
+    det = Detector(params, every)
     steps = step_detector(det, sf.feats)
     axis_names = recs[0].axes
     events = [{
@@ -285,9 +354,11 @@ def replay_stream(recs: Sequence[Recording], params: dict, profile: dict, name: 
         "feature": np.array(names + [""], dtype=object)[steps.feat],
     }
     windows.update(physical_columns(sf.feats, params, recs[0].m_s2_per_count, axis_names))
-    window_s = params["n"] / params["fs_hz"]
+    window_s = params["n"] * every / params["fs_hz"]
+    windows["not_scored"] = np.array(WHY_NAMES, dtype=object)[steps.why]
+    windows["speed_hz"] = steps.speed_q8 / 256.0
     return {"name": name, "events": events, "windows": windows, "recordings": paths,
-            "summary": _stream_summary(sf.t_s, steps, events, len(recs), window_s)}
+            "summary": _stream_summary(sf.t_s, steps, events, len(recs), window_s, params)}
 
 
 def _replay_worker(source: Any, params: dict, profile: dict, name: str) -> dict[str, Any]:
@@ -348,7 +419,7 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     return ReplayResult(
         sample_rate_hz=float(params["fs_hz"]), streams=names,
         events=[e for p in done for e in p["events"]], windows=windows,
-        summary={"streams": {p["name"]: p["summary"] for p in done}, "total": _total(summaries)},
+        summary={"streams": {p["name"]: p["summary"] for p in done}, "total": _total(summaries, params)},
         recordings=[p["recordings"] for p in done])
 
 

@@ -1,0 +1,201 @@
+"""The rate of false raises under the persistence rule, on correlated windows.
+
+The detector raises an alert when at least k of the last L evaluated windows score at or over the
+threshold T (firmware_py/detect/alarm.py). Equivalently: when the k-th largest score of the last L
+windows, the raise statistic
+
+    S_t = k-th largest of c_{t-L+1} .. c_t            (k = L: the smallest score in the span)
+
+reaches T. So the event that raises is an upcrossing of S, and its rate is what a user plans on.
+Windows of a healthy pump are strongly correlated (slow process variation: levels that wander
+over tens of seconds), so per-window exceedances come in clusters and a rate computed from the
+per-window tail as if windows were independent is wrong by a large factor.
+
+Method (peaks over threshold on clusters of S; Coles 2001, "An Introduction to Statistical
+Modeling of Extreme Values", sec. 5.3, runs declustering; from memory):
+1. S is computed on held-out healthy sequences (a sequence is a run of evaluated windows with no
+   evidence reset between them, as the device's span sees them; S exists from the L-th window).
+2. At or over a level u, exceedances of S closer than r = L windows belong to one cluster (runs
+   declustering with the span as the run length: the span still holds evidence from the last
+   exceedance); each cluster's peak Y is one independent event. u is the highest level with at
+   least MIN_CLUSTERS clusters. At the high thresholds that matter the device's own clear rule
+   (all of the span under hyst * T) separates its alerts in the same way; at low levels it
+   merges clusters into one long alert, so the cluster count errs high (the cautious side).
+3. Cluster peaks over u follow a generalised Pareto distribution (maximum likelihood,
+   scipy.stats.genpareto); clusters arrive as a Poisson process of rate lambda_u = N_c / H (H the
+   held-out running hours). The raise rate at T > u is lambda_u * P(Y > T), which gives T for a
+   target rate.
+4. Confidence: the effective number of independent stretches is N_c (clusters), not the window
+   count; the variance of the log rate is 1 / N_c (Poisson count) plus the delta-method variance
+   of the GPD tail (host_tools.fit.tail_fit.TailFit.log_exceedance_se with N_c excesses).
+5. Support: a promise whose 95 % upper limit is more than SUPPORT_RATIO times the stated rate
+   extrapolates further than the data can carry. The rate is then raised, along a log grid, to the
+   least rate the data support, the threshold is set for it, and training warns.
+
+The extremal index of S above u (Ferro and Segers, "Inference for clusters of extreme values",
+JRSS B 65, 2003, intervals estimator) is reported beside the cluster count as a check: N_c is close
+to theta * (number of exceedances).
+
+Entry points: fit() (the cluster tail from held-out sequences), promise() (threshold and stated
+rate for a target), raise_statistic(), clusters(), extremal_index().
+
+edgevib is advisory condition monitoring, not machinery protection: a stated rate is a statistical
+estimate from the training data, not a guarantee.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+from scipy.optimize import brentq
+from scipy.stats import genpareto
+
+from host_tools.errors import EdgevibError
+from host_tools.fit.tail_fit import TailFit
+
+MIN_CLUSTERS = 30        # fewer clusters leave the tail's shape too uncertain to fit
+LEAST_CLUSTERS = 12      # below this no fit is attempted at all
+SUPPORT_RATIO = 3.0      # the 95 % upper limit may be at most this times the stated rate
+_LEVELS = (0.995, 0.99, 0.98, 0.97, 0.95, 0.9, 0.8, 0.7, 0.6, 0.5)
+_Z95 = 1.959964
+_CHUNK = 1 << 22          # values partitioned at once
+
+
+def raise_statistic(c: np.ndarray, span: int, k: int) -> np.ndarray:
+    """S_t, the k-th largest of the last `span` values of c, for t = span-1 .. len(c)-1."""
+    c = np.asarray(c, dtype=np.float64)
+    if len(c) < span:
+        return np.zeros(0)
+    w = np.lib.stride_tricks.sliding_window_view(c, span)
+    step = max(1, _CHUNK // span)           # rows per chunk: bounded memory for long sequences
+    return np.concatenate([np.partition(w[i:i + step], span - k, axis=1)[:, span - k]
+                           for i in range(0, len(w), step)])
+
+
+def clusters(s: np.ndarray, u: float, run: int) -> np.ndarray:
+    """Peaks of the clusters of s at or over u: exceedances less than `run` apart share one."""
+    idx = np.flatnonzero(s >= u)
+    if len(idx) == 0:
+        return np.zeros(0)
+    cut = np.flatnonzero(np.diff(idx) >= run) + 1
+    return np.array([s[g].max() for g in np.split(idx, cut)])
+
+
+def extremal_index(s: np.ndarray, u: float) -> float | None:
+    """Ferro and Segers' (2003) intervals estimator of the extremal index of s above u; None
+    with fewer than two exceedances."""
+    t = np.diff(np.flatnonzero(s >= u)).astype(np.float64)
+    if len(t) < 1:
+        return None
+    n = len(t) + 1
+    if t.max() <= 2:
+        th = 2.0 * t.sum() ** 2 / ((n - 1) * (t * t).sum())
+    else:
+        th = 2.0 * (t - 1).sum() ** 2 / ((n - 1) * ((t - 1) * (t - 2)).sum())
+    return float(min(1.0, th))
+
+
+@dataclass(frozen=True)
+class RateFit:
+    """Cluster peaks of the raise statistic over u, their Poisson rate and GPD tail."""
+
+    u: float                 # level, score units
+    clusters: int            # N_c: independent stretches above u
+    exceedances: int         # windows of S above u
+    hours: float             # held-out running hours
+    theta: float | None      # extremal index (Ferro and Segers), a check on N_c
+    tail: TailFit            # GPD of the cluster peaks (tail_fraction 1: conditional on a cluster)
+    s_max: float             # the largest S seen
+
+    @property
+    def rate_u_per_h(self) -> float:
+        return self.clusters / self.hours
+
+    def rate_per_h(self, x: float) -> float:
+        """Expected raises per running hour at threshold x."""
+        if x <= self.u:
+            return self.rate_u_per_h
+        return self.rate_u_per_h * float(genpareto.sf(x - self.u, self.tail.shape, scale=self.tail.scale))
+
+    def threshold_for(self, per_h: float) -> float:
+        """The threshold whose expected raise rate is per_h (at most rate_u_per_h: else u)."""
+        if per_h >= self.rate_u_per_h:
+            return self.u
+        return self.u + float(genpareto.isf(per_h / self.rate_u_per_h, self.tail.shape, scale=self.tail.scale))
+
+    def range_95(self, x: float) -> tuple[float, float]:
+        """95 % range of the raise rate at x: Poisson count of clusters and GPD sampling error."""
+        se = math.sqrt(1.0 / self.clusters + self.tail.log_exceedance_se(x) ** 2)
+        r = self.rate_per_h(x)
+        return r * math.exp(-_Z95 * se), r * math.exp(_Z95 * se)
+
+
+@dataclass(frozen=True)
+class Promise:
+    """A threshold and the false-raise rate it is expected to give, per 30 days of running."""
+
+    threshold: float
+    per_30_days: float
+    range_95: tuple[float, float]
+    target_per_30_days: float
+    supported: bool          # False: the target was beyond the data, a higher rate is promised
+    beyond_data: bool        # the threshold lies above every S seen
+
+
+def fit(sequences: Sequence[np.ndarray], span: int, k: int, window_s: float) -> RateFit:
+    """Fit the cluster tail of the raise statistic over held-out healthy sequences of combined
+    scores (score units). window_s: running time of one evaluated window (n * every / fs)."""
+    parts = [raise_statistic(c, span, k) for c in sequences]
+    hours = sum(len(c) for c in sequences) * window_s / 3600.0
+    s_all = np.concatenate(parts) if parts else np.zeros(0)
+    if len(s_all) == 0 or hours <= 0:
+        raise EdgevibError(f"raise-rate fit: no held-out sequence spans the {span} windows of the persistence rule")
+    best = None
+    for q in _LEVELS:
+        u = float(np.quantile(s_all, q))
+        peaks = np.concatenate([clusters(p, u, span) for p in parts])
+        if best is None or len(peaks) > len(best[1]):
+            best = (u, peaks)
+        if len(peaks) >= MIN_CLUSTERS:
+            best = (u, peaks)
+            break
+    u, peaks = best
+    if len(peaks) < LEAST_CLUSTERS:
+        raise EdgevibError(f"raise-rate fit: only {len(peaks)} independent stretches of high scores in "
+                           f"{hours:.2f} h of held-out running; need at least {LEAST_CLUSTERS}")
+    excess = np.sort(peaks - u)
+    if np.ptp(excess) <= 0:
+        raise EdgevibError("raise-rate fit: the cluster peaks are all equal")
+    xi, _, sigma = genpareto.fit(excess, floc=0.0)
+    tail = TailFit(u, float(xi), float(sigma), 1.0, len(peaks), len(peaks), np.sort(peaks))
+    n_exc = int((s_all >= u).sum())
+    theta = extremal_index(s_all, u)
+    return RateFit(u, len(peaks), n_exc, hours, theta, tail, float(s_all.max()))
+
+
+def promise(rf: RateFit, target_per_30_days: float) -> Promise:
+    """Threshold for the target, or for the least rate the data support (see the module)."""
+    h30 = 30 * 24.0
+    ok = _supported(rf, target_per_30_days / h30)
+    rate = target_per_30_days
+    if not ok:
+        lo_r, hi_r = math.log(target_per_30_days), math.log(rf.rate_u_per_h * h30)
+        if hi_r <= lo_r or not _supported(rf, rf.rate_u_per_h):
+            rate = rf.rate_u_per_h * h30
+        else:
+            rate = math.exp(brentq(lambda lr: _ratio(rf, math.exp(lr) / h30) - SUPPORT_RATIO, lo_r, hi_r,
+                                   xtol=1e-6))
+    x = rf.threshold_for(rate / h30)
+    lo, hi = rf.range_95(x)
+    return Promise(x, rf.rate_per_h(x) * h30, (lo * h30, hi * h30), target_per_30_days, ok, x > rf.s_max)
+
+
+def _ratio(rf: RateFit, per_h: float) -> float:
+    x = rf.threshold_for(per_h)
+    return rf.range_95(x)[1] / max(rf.rate_per_h(x), 1e-300)
+
+
+def _supported(rf: RateFit, per_h: float) -> bool:
+    return _ratio(rf, per_h) <= SUPPORT_RATIO

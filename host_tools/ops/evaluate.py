@@ -1,0 +1,90 @@
+"""Judge the detector on an evaluation suite: train per machine on its healthy training history,
+replay every other history through the device detector, score the events against the truth.
+
+`evaluate_suite(suite_json, profile, jobs=1, progress=False, label="")` -> (card, scored):
+card from host_tools.fit.scorecard.scorecard, scored the per-history figures. The suite is what
+host_tools.data.scenarios.write_suite wrote (suite.json beside one folder per history). Training
+is host_tools.fit.training.train with its defaults (1 false alert per 30 days); replay is
+host_tools.twin.replay.replay, one stream per history, each with a fresh detector.
+"""
+from __future__ import annotations
+
+import json
+import os
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from host_tools.errors import EdgevibError
+
+
+def _train_machine(folder: Path, profile: dict) -> tuple[dict, dict]:
+    """Train on one machine's healthy history with training's defaults (the bearing geometry, when
+    training takes one, from the history's ground truth, as an engineer would type it in)."""
+    import inspect
+
+    from host_tools.data.bearing import BearingGeometry
+    from host_tools.data.recording import read_stream
+    from host_tools.fit.training import train
+    from host_tools.twin.replay import m_s2_per_count
+    from firmware_py.run import params as pm
+    scale = m_s2_per_count(pm.factory(profile))
+    recs = read_stream(folder, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
+    kw = {}
+    if "bearing" in inspect.signature(train).parameters:
+        g = json.loads((folder / "ground_truth.json").read_text())["bearing"]
+        kw["bearing"] = BearingGeometry(g["n_elements"], g["ball_diameter_mm"], g["pitch_diameter_mm"], g["contact_angle_deg"])
+    return train(recs, profile, 1.0, seed=0, **kw)
+
+
+def evaluate_suite(suite_json: str | os.PathLike, profile: dict, jobs: int = 1, progress: bool = False,
+                   label: str = "") -> tuple[dict[str, Any], list[dict[str, Any]]]:
+    """Train, replay and score every history of the suite (see the module docstring)."""
+    from host_tools.fit.scorecard import score_history, scorecard
+    from host_tools.twin.replay import replay
+    root = Path(suite_json).parent
+    suite = json.loads(Path(suite_json).read_text())
+    items = suite["histories"]
+    machines = sorted({h["machine"] for h in items})
+    train_of = {m: next((h for h in items if h["machine"] == m and h["role"] == "training"), None) for m in machines}
+    for m, h in train_of.items():
+        if h is None:
+            raise EdgevibError(f"{suite_json}: no training history for machine {m}")
+    jobs = max(1, jobs)
+    if jobs == 1 or len(machines) == 1:
+        trained = [_train_machine(root / train_of[m]["folder"], profile) for m in machines]
+    else:
+        with ProcessPoolExecutor(max_workers=min(jobs, len(machines))) as pool:
+            trained = list(pool.map(_train_machine, [root / train_of[m]["folder"] for m in machines],
+                                    [profile] * len(machines)))
+    params = {m: p for m, (p, _) in zip(machines, trained)}
+    summaries = {m: s for m, (_, s) in zip(machines, trained)}
+    scored = []
+    for m in machines:
+        field = [h for h in items if h["machine"] == m and h["role"] != "training"]
+        res = replay([root / h["folder"] for h in field], params[m], profile, jobs=jobs, progress=progress,
+                     names=[h["name"] for h in field])
+        window_s = params[m]["n"] / params[m]["fs_hz"]
+        for i, h in enumerate(field):
+            truth = json.loads((root / h["ground_truth"]).read_text())
+            ev = [e for e in res.events if e["stream"] == h["name"]]
+            t = res.windows["t_s"][res.windows["stream"] == i]
+            scored.append(score_history(ev, t, window_s, truth))
+    card = scorecard(scored, label)
+    card["training"] = {m: {"alert": summaries[m]["thresholds"]["alert"], "alarm": summaries[m]["thresholds"]["alarm"],
+                            "expected_false_alerts_per_30_days": summaries[m]["thresholds"].get("expected_false_alerts_per_30_days"),
+                            "modes": summaries[m]["modes"]["k"]} for m in machines}
+    return card, scored
+
+
+def to_json(card: dict) -> str:
+    """The card as JSON text (numpy numbers made plain)."""
+    def plain(o: Any) -> Any:
+        if isinstance(o, (np.integer,)):
+            return int(o)
+        if isinstance(o, (np.floating,)):
+            return float(o)
+        raise TypeError(type(o))
+    return json.dumps(card, indent=1, default=plain) + "\n"

@@ -1,0 +1,96 @@
+"""The false-raise rate under the persistence rule on correlated windows (host_tools.fit.raise_rate),
+against a long simulation of an AR(1) process run here with the rule written out in numpy."""
+import numpy as np
+from scipy import signal, stats
+
+import firmware_py  # noqa: F401
+from firmware_py.detect.alarm import Alarm
+from host_tools.fit import raise_rate as rr
+
+WINDOW_S = 0.16
+SPAN, K = 125, 100            # 20 s of windows, raise on 80 % of them
+HYST = 0.8
+PHI = float(np.exp(-WINDOW_S / 15.0))   # AR(1) with a 15 s time constant: slow process variation
+
+
+def ar1_scores(n, seed):
+    """Scores (Q8 spreads, whole numbers) of a healthy pump whose level wanders slowly: 2 + |x| with
+    x a unit-variance AR(1) process (time constant 15 s), plus independent window noise."""
+    rng = np.random.default_rng(seed)
+    x = signal.lfilter([1.0], [1.0, -PHI], rng.standard_normal(n) * np.sqrt(1 - PHI ** 2))
+    return np.rint(256 * (2 + np.abs(x) + 0.3 * rng.standard_normal(n)))
+
+
+def rule_raises(c, thr):
+    """Raises of the documented rule, written out independently of the device code: raise when at
+    least K of the last SPAN scores are >= thr (span full); clear when none of the last SPAN is
+    >= HYST * thr and at least one window was spent raised (dwell 1)."""
+    over = np.convolve(c >= thr, np.ones(SPAN, int))[SPAN - 1:len(c)]
+    above = np.convolve(c >= HYST * thr, np.ones(SPAN, int))[SPAN - 1:len(c)]
+    raised, n, held = False, 0, 0
+    for o, a in zip(over.tolist(), above.tolist()):
+        if not raised:
+            if o >= K:
+                raised, n, held = True, n + 1, 0
+        else:
+            held += 1
+            if a == 0 and held >= 1:
+                raised = False
+    return n
+
+
+def test_the_device_rule_is_the_documented_rule():
+    c = ar1_scores(60_000, 7)
+    for thr in (900, 1000):
+        a = Alarm(SPAN, K, 1 << 29, 1)
+        n = 0
+        for v in c.tolist():
+            lv = a.level
+            a.update(1 if v >= thr else 0, 0, 1 if v >= HYST * thr else 0, 0)
+            n += lv == 0 and a.level == 1
+        assert n == rule_raises(c, thr) and n > 0
+
+
+def test_raise_statistic_is_the_kth_largest_of_the_span():
+    c = np.random.default_rng(3).standard_normal(500)
+    s = rr.raise_statistic(c, 40, 30)
+    ref = np.array([np.sort(c[t - 39:t + 1])[::-1][29] for t in range(39, 500)])   # numpy sort
+    assert np.array_equal(s, ref)
+
+
+def test_ar1_raise_rate_within_the_stated_range():
+    # Train on 4 h of the AR(1) scores, promise 1 raise per running hour (720 per 30 days), then
+    # count the raises of the rule at that threshold over 17.8 h of a fresh realisation. The
+    # count is Poisson about the true rate, so it must lie between the 2.5 % Poisson quantile of
+    # the range's low end and the 97.5 % quantile of its high end (scipy.stats.poisson).
+    train = ar1_scores(90_000, 1)
+    fit = rr.fit([train], SPAN, K, WINDOW_S)
+    assert fit.clusters >= rr.MIN_CLUSTERS
+    # the windows are far from independent: the extremal index (Ferro and Segers 2003) is small
+    assert fit.theta is not None and fit.theta < 0.2
+    pr = rr.promise(fit, 720.0)
+    assert pr.supported and abs(pr.per_30_days - 720.0) < 1e-6
+    test = ar1_scores(400_000, 2)
+    hours = len(test) * WINDOW_S / 3600
+    n = rule_raises(test, int(np.floor(pr.threshold)) + 1)
+    lo, hi = (r * hours / 720.0 for r in pr.range_95)
+    assert stats.poisson.ppf(0.025, lo) <= n <= stats.poisson.ppf(0.975, hi)
+    # what the independence assumption would have said: the per-window tail at the same
+    # threshold, times the windows of the test, is more than 10 times the observed raises
+    p_window = float((train >= pr.threshold).mean())
+    assert p_window * len(test) > 10 * max(n, 1)
+
+
+def test_short_data_refuses_to_promise_more_than_it_can():
+    # 1 h of the same process cannot carry a promise of 1 per 30 days: training states the rate
+    # the data support (its 95 % upper limit at most SUPPORT_RATIO times the rate) instead
+    fit = rr.fit([ar1_scores(22_500, 1)], SPAN, K, WINDOW_S)
+    pr = rr.promise(fit, 1.0)
+    assert not pr.supported and pr.per_30_days > 1.0
+    assert pr.range_95[1] <= rr.SUPPORT_RATIO * pr.per_30_days * (1 + 1e-6)
+    # and the supported promise holds on 17.8 h of fresh data, as above
+    test = ar1_scores(400_000, 5)
+    hours = len(test) * WINDOW_S / 3600
+    n = rule_raises(test, int(np.floor(pr.threshold)) + 1)
+    lo, hi = (r * hours / 720.0 for r in pr.range_95)
+    assert stats.poisson.ppf(0.025, lo) <= n <= stats.poisson.ppf(0.975, hi)
