@@ -3,7 +3,7 @@ VENV  := .venv
 PY    := $(VENV)/bin/python
 STAMP := $(VENV)/.installed-stamp
 
-.PHONY: test demo bench clean
+.PHONY: test demo bench edgevib clean
 
 $(STAMP): pyproject.toml
 	test -x $(PY) || python3 -m venv $(VENV)
@@ -18,6 +18,10 @@ demo: $(STAMP)
 
 bench: $(STAMP)
 	$(VENV)/bin/edgevib bench --json
+
+# any edgevib command: make edgevib ARGS="replay REC --params P.msgpack"
+edgevib: $(STAMP)
+	$(VENV)/bin/edgevib $(ARGS)
 
 clean:
 	rm -rf $(VENV) demo_out .pytest_cache

@@ -38,8 +38,13 @@ def _set_file(path, version, **changes):
     return path
 
 
+_PROGRESS = re.compile(r"[\w ]+: \d+% \(\d+/\d+ \w+\)")   # host_tools.progress lines off a terminal
+
+
 def _one_line(err):
-    return err.count("\n") == 1 and err.startswith("edgevib: error: ")
+    """One error line, besides progress lines written before the refusal came."""
+    lines = [ln for ln in err.splitlines() if not _PROGRESS.fullmatch(ln)]
+    return len(lines) == 1 and lines[0].startswith("edgevib: error: ")
 
 
 def test_flash_verifies_commits_and_reads_back(idle_gateway, tmp_path, capsys):
@@ -48,7 +53,8 @@ def test_flash_verifies_commits_and_reads_back(idle_gateway, tmp_path, capsys):
     rc, out, err = run_cli(capsys, "flash", f, "--port", vg.port)
     image = build_image(f.read_bytes())
     crc = binascii.crc32(image[:-4])            # reference CRC-32 (zlib/binascii, IEEE 802.3)
-    assert rc == 0 and err == ""
+    assert rc == 0 and all(_PROGRESS.fullmatch(ln) for ln in err.splitlines())
+    assert err.splitlines()[-1] == f"upload: 100% ({len(image)}/{len(image)} bytes)"
     assert f"flashed version 1 (CRC 0x{crc:08x}, {len(image)} bytes)" in out
     assert vg.gateway.det.thr_alert_q8 == 6 * 256            # the running detector took the new set
     c = Client.open(vg.port)
@@ -316,6 +322,16 @@ def test_events_are_the_windows_that_raised_them(tmp_path, capsys):
         rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--out", tmp_path / "ev")
         assert rc == 0 and "pulled 1 event snapshot" in out
         on_device = {e["id"]: e for e in vg.gateway.snapshots.list()}
+        # filed into a fleet folder instead: the same files in the gateway's captures/
+        fleet = tmp_path / "fleet"
+        assert run_cli(capsys, "fleet", "init", fleet, "--gateway", "gw1", "--pump", "P-101", "--site", "Brackwater",
+                       "--board", "desk")[0] == 0
+        rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--fleet", fleet, "--gateway", "gw1")
+        assert rc == 0 and "pulled" in out and str(fleet / "gw1" / "captures") in out
+        rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--fleet", fleet, "--gateway", "gw2")
+        assert rc == 2 and _one_line(err) and "gw2" in err
+    filed = sorted((fleet / "gw1" / "captures").glob("*.wav"))
+    assert filed and all(p.read_bytes() == (tmp_path / "ev" / p.name).read_bytes() for p in filed)
     wavs = sorted((tmp_path / "ev").glob("*.wav"))
     assert [p.name for p in wavs] == ["event_00000_alarm.wav"]
     core = params_mod.feature_core(params_mod.factory(PROFILE), PROFILE)

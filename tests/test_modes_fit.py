@@ -8,6 +8,14 @@ from sklearn.metrics import adjusted_rand_score, silhouette_score
 from host_tools.fit import modes_fit as mf
 
 
+@pytest.fixture(autouse=True)
+def _one_thread():
+    # the reference fits too: OpenMP threads spin-wait badly on a busy 2-core machine
+    from threadpoolctl import threadpool_limits
+    with threadpool_limits(1):
+        yield
+
+
 def _datasets():
     rng = np.random.default_rng(7)
     blobs, _ = make_blobs(2500, centers=6, n_features=5, cluster_std=2.5, random_state=1)

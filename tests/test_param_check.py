@@ -35,9 +35,11 @@ def desk_set(**changes):
 def crashing_axes(profile=DESK):
     """The issue's set: det_axes 8 with matching per-axis lists (IndexError in _sensor_bad)."""
     p = params_mod.factory(profile)
+    axial = [k for k, v in p.items() if k.startswith("det_") and isinstance(v, list)
+             and len(v) == profile["axes"] and k != "det_iso_bounds"]     # one entry per axis
     p["det_axes"] = 8
-    for key in ("det_dc_lo_q8", "det_dc_hi_q8", "det_stuck_max", "det_zero_max"):
-        p[key] = p[key][:1] * 8
+    for k in axial:
+        p[k] = p[k][:1] * 8
     return p
 
 

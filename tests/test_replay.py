@@ -3,6 +3,7 @@ import csv
 import io
 import json
 from array import array
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -17,6 +18,8 @@ from host_tools.twin.replay import feature_name, replay
 from host_tools.fit.training import train
 from tests.test_training import FS, PROFILE, healthy_stream, pump_counts, recording
 from tests.test_training import _write as write_recordings
+
+REPO = Path(__file__).resolve().parent.parent
 
 
 @pytest.fixture(scope="module")
@@ -74,7 +77,10 @@ def test_replay_gives_the_device_detectors_events_exactly(trained):
     assert [al.STATE_NAMES.index(s) for s in res.windows["state"]] == states
     assert np.array_equal(np.rint(res.windows["score"] * 256).astype(int), scores)
     t = res.windows["t_s"]
-    want = [{"stream": res.streams[0], "t_s": float(t[w]), "from": al.STATE_NAMES[o], "to": al.STATE_NAMES[nw],
+    t0 = {str(r.path): r.t0_s for r in recs}
+    rec = res.windows["recording"]
+    want = [{"stream": res.streams[0], "t_s": float(t[w]), "recording": rec[w], "offset_s": float(t[w]) - t0[rec[w]],
+             "from": al.STATE_NAMES[o], "to": al.STATE_NAMES[nw],
              "reason": al.REASON_NAMES[rs], "mode": m if m >= 0 else None,
              "feature": feature_name(f, trained, recs[0].axes) if f >= 0 else None, "score": s / 256}
             for w, o, nw, rs, m, f, s in events]
@@ -134,7 +140,8 @@ def test_replay_command_writes_json_and_csv(tmp_path, capsys, trained):
     doc = json.loads(out.read_text())
     assert set(doc) == {"sample_rate_hz", "streams", "events", "summary"}
     assert doc["sample_rate_hz"] == FS
-    assert set(doc["events"][0]) == {"stream", "t_s", "from", "to", "reason", "mode", "feature", "score"}
+    assert set(doc["events"][0]) == {"stream", "t_s", "recording", "offset_s", "from", "to", "reason", "mode", "feature",
+                                     "score"}
     rows = list(csv.DictReader(io.StringIO(wcsv.read_text())))
     assert len(rows) == doc["summary"]["total"]["windows"]
     for col in ("t_s", "state", "score", "mode", "accel_rms_m_s2", "velocity_rms_mm_s", "zone", "kurtosis_z"):
@@ -183,3 +190,118 @@ def test_demo_scenario_detects_each_seeded_fault(tmp_path):
             figures.append(f"{pump} {f['kind']}: " + (f"{kinds[0] if len(kinds) == 1 else 'alert/alarm'} after "
                            f"{(t - f['start_t0_s']) / 3600:.1f} h" if t is not None else "not raised"))
     print("\ndemo scenario (our own data): " + "; ".join(figures))
+
+
+# --- streaming: chunks, workers and memory ----------------------------------------------------------
+
+def test_replay_in_chunks_equals_one_pass(trained):
+    # The detector's state (persistence evidence, latched alarm, hold-off) must carry across chunk
+    # boundaries exactly: the same device Detector stepped over the same windows in the same order,
+    # so states, scores and events are identical whatever the chunking (a deterministic property).
+    from host_tools.twin.replay import StreamReplay
+    recs = field_stream()
+    whole = replay([recs], trained, PROFILE)
+    assert len(whole.windows["t_s"]) > 3 * 7          # longer than one chunk of 7 windows
+    for jobs in (1, 2):
+        sr = StreamReplay(recs, trained, PROFILE, whole.streams[0])
+        chunks = list(sr.chunks(jobs=jobs, chunk_windows=7))
+        assert len(chunks) > 3
+        cols = [c.columns() for c in chunks]
+        for key in ("t_s", "state", "score", "mode", "feature", "velocity_rms_mm_s", "recording"):
+            assert np.array_equal(np.concatenate([c[key] for c in cols]), whole.windows[key]), (jobs, key)
+        assert sr.events == whole.events and [e for c in chunks for e in c.events] == whole.events
+        assert sr.summary() == whole.summary["streams"][whole.streams[0]]
+
+
+_RSS_CHILD = """
+import sys
+import msgpack
+from host_tools.data.recording import open_stream
+from host_tools.twin.replay import replay, m_s2_per_count
+from tests.test_training import PROFILE
+p = msgpack.unpackb(open(sys.argv[1], "rb").read(), raw=False)
+res = replay([open_stream(sys.argv[2], p["fs_hz"], m_s2_per_count(p))], p, PROFILE, keep_windows=False)
+hwm = next(line.split()[1] for line in open("/proc/self/status") if line.startswith("VmHWM:"))
+print(res.summary["total"]["windows"], hwm)
+"""
+
+
+def test_replay_memory_does_not_grow_with_length(tmp_path, trained):
+    # Peak RSS of replaying a recording 4 times longer, each in a fresh process: VmHWM of
+    # /proc/self/status, KiB, the peak of the process's own memory since exec (ru_maxrss would
+    # also carry the peak of the forking test process, which Linux hands on across fork and exec). Holding the longer recording's extra samples as int16 counts alone would add
+    # extra_kib; the streaming replay keeps only a score track (about 30 bytes per window), so the
+    # growth must stay under a tenth of that. A deterministic property: no clock is read.
+    import msgpack
+    import subprocess
+    import sys
+    from host_tools.data.recording import write_wav
+    from tests.test_training import M_S2_PER_COUNT
+    params = tmp_path / "p.msgpack"
+    params.write_bytes(msgpack.packb(trained))
+    rng = np.random.default_rng(4)
+    block = pump_counts(rng, 1480.0, 20.0)                  # 20 s of healthy 3-axis counts
+    peaks, frames = [], []
+    for reps in (12, 48):                                    # 4 min and 16 min
+        c = np.tile(block, (reps, 1))
+        path = write_wav(tmp_path / f"long{reps}.wav", c, FS, {"m_s2_per_unit": M_S2_PER_COUNT, "t0_s": 0.0})
+        out = subprocess.run([sys.executable, "-c", _RSS_CHILD, str(params), str(path)], capture_output=True,
+                             text=True, check=True, cwd=str(REPO))
+        windows, kib = map(int, out.stdout.split())
+        assert windows == len(c) // trained["n"]
+        peaks.append(kib)
+        frames.append(len(c))
+    extra_kib = (frames[1] - frames[0]) * 3 * 2 / 1024
+    assert peaks[1] - peaks[0] < 0.1 * extra_kib, (peaks, extra_kib)
+
+
+# --- compare: two sets over the same recordings -------------------------------------------------------
+
+def test_compare_lists_the_differences_of_two_separate_replays(tmp_path, capsys, trained):
+    # A stricter set (thresholds x 0.6) and a looser one (x 1.6) of the same training; what compare
+    # reports must be what two separate `replay` runs give: each set's events, the raises only one
+    # of them makes (same stream and new state within the longer persistence span), and the time
+    # per state (windows x n / fs). The check pairs the replays' raises by itself, here.
+    import msgpack
+    write_recordings(tmp_path / "gw", field_stream())
+    sets = {}
+    for name, f in (("strict", 0.6), ("loose", 1.6)):
+        p = dict(trained, det_thr_alert_q8=int(trained["det_thr_alert_q8"] * f),
+                 det_thr_alarm_q8=int(trained["det_thr_alarm_q8"] * f))
+        sets[name] = tmp_path / f"{name}.msgpack"
+        sets[name].write_bytes(msgpack.packb(p))
+    alone = {}
+    for name, path in sets.items():
+        out = tmp_path / f"{name}.json"
+        assert main(["--quiet", "replay", str(tmp_path / "gw"), "--params", str(path), "--json", str(out)]) == 0
+        alone[name] = json.loads(out.read_text())
+    capsys.readouterr()
+    cj, report = tmp_path / "cmp.json", tmp_path / "cmp"
+    assert main(["compare", str(sets["strict"]), str(sets["loose"]), str(tmp_path / "gw"), "--json", str(cj),
+                 "--report", str(report), "--quiet"]) == 0
+    text = capsys.readouterr().out
+    doc = json.loads(cj.read_text())
+    assert doc["events"]["strict.msgpack"] == alone["strict"]["events"]
+    assert doc["events"]["loose.msgpack"] == alone["loose"]["events"]
+    tol = max(trained["det_persist_ms"] / 1000.0, trained["n"] / FS)      # the persistence span, s
+
+    def raises(evs):
+        return [(e["stream"], e["to"], e["t_s"]) for e in evs if e["to"] in ("alert", "alarm", "sensor_fault")]
+
+    def unmatched(mine, other):
+        return [r for r in mine if not any(o[0] == r[0] and o[1] == r[1] and abs(o[2] - r[2]) <= tol for o in other)]
+
+    rs, rl = raises(alone["strict"]["events"]), raises(alone["loose"]["events"])
+    only_s, only_l = unmatched(rs, rl), unmatched(rl, rs)
+    assert only_s, "the stricter set should raise something the looser one does not"
+    assert raises(doc["only"]["strict.msgpack"]) == only_s
+    assert raises(doc["only"]["loose.msgpack"]) == only_l
+    for name in ("strict", "loose"):
+        per = alone[name]["summary"]["total"]["windows_per_state"]
+        want = {k: v * trained["n"] / FS for k, v in per.items()}
+        assert doc["state_s"][f"{name}.msgpack"] == pytest.approx(want)
+    last = text.strip().splitlines()[-1]
+    assert last.startswith("compare: ") and f"{len(only_s)} only in strict.msgpack" in last
+    assert (report / "index.html").is_file() and (report / "scores.png").stat().st_size > 0
+    page = (report / "index.html").read_text()
+    assert "strict.msgpack" in page and ("UTC" in page or "t = " in page)

@@ -24,7 +24,8 @@ from host_tools.twin.replay import replay
 from host_tools.fit.training import train
 
 ROOT = Path(__file__).resolve().parent.parent
-PROFILE = board.load(str(ROOT / "boards" / "desk.json"))
+BOARD = ROOT / "boards" / "desk.json"
+PROFILE = board.load(str(BOARD))
 FS = PROFILE["sample_rate_hz"]
 COUNTS_PER_G = PROFILE["sensor"]["counts_per_g"]
 M_S2_PER_COUNT = 9.80665 / COUNTS_PER_G   # ISO 80000-3 standard gravity
@@ -170,7 +171,7 @@ def test_train_command_writes_a_set_the_device_loads(tmp_path, capsys):
     _write(tmp_path / "normal", healthy_stream(seed=6, per_point=7))
     out = tmp_path / "p101.msgpack"
     assert main(["train", str(tmp_path / "normal"), "--out", str(out), "--version", "7",
-                 "--false-alerts-per-month", "0.5"]) == 0
+                 "--false-alerts-per-month", "0.5", "--board", str(BOARD)]) == 0
     text = capsys.readouterr().out
     assert "expected false alerts per 30 days" in text
     body = out.read_bytes()
@@ -190,7 +191,7 @@ def test_train_command_refuses_bad_input_and_writes_nothing(tmp_path, capsys):
     folder.mkdir()
     write_wav(folder / "a.wav", pump_counts(rng, 1480.0, 1.0), 4000, {"m_s2_per_unit": M_S2_PER_COUNT})
     out = tmp_path / "p.msgpack"
-    assert main(["train", str(folder), "--out", str(out)]) == 2
+    assert main(["train", str(folder), "--out", str(out), "--board", str(BOARD)]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "sample rate" in err
     assert sorted(q.name for q in tmp_path.iterdir()) == ["normal"]

@@ -116,11 +116,18 @@ def settings_from_board(path: str | Path | None, **zones: Any) -> CheckSettings:
         p = board.load(str(path))
     except board.BoardError as e:
         raise EdgevibError(f"board profile {e}") from None
+    return settings_from_profile(p, **zones)
+
+
+def settings_from_profile(p: dict, compare_board: bool = True, **zones: Any) -> CheckSettings:
+    """Settings from a checked profile dict. compare_board False (a profile built from the
+    recording itself): window and full scale only, no rate or scale to compare with."""
     s = p["sensor"]
     return CheckSettings(
-        n=p["window_n"], expected_rate_hz=float(p["sample_rate_hz"]), adc_min=s["adc_min"],
-        adc_max=s["adc_max"], expected_m_s2_per_count=G_M_S2 / s["counts_per_g"],
-        board_name=p["name"], **zones)
+        n=p["window_n"], expected_rate_hz=float(p["sample_rate_hz"]) if compare_board else None,
+        adc_min=s["adc_min"], adc_max=s["adc_max"],
+        expected_m_s2_per_count=G_M_S2 / s["counts_per_g"] if compare_board else None,
+        board_name=p["name"] if compare_board else None, **zones)
 
 
 @dataclass

@@ -15,12 +15,13 @@ from pathlib import Path
 import numpy as np
 
 from host_tools.check.commission import (
-    DEFAULT_BOARD, G_M_S2, CheckResult, check_recording, iso_zone_bounds, lowest_bin,
-    settings_from_board)
+    G_M_S2, CheckResult, check_recording, iso_zone_bounds, lowest_bin, settings_from_board,
+    settings_from_profile)
 from host_tools.check.check_text import render_text
 from host_tools.data.lines import HANN_ENBW_BINS
 from host_tools.errors import EdgevibError
-from host_tools.data.recording import atomic_write, read_recording, sidecar_path
+from host_tools.data.analysis import desk_profile, scale_of
+from host_tools.data.recording import atomic_write, open_recording, read_recording, sidecar_path
 
 HELP = "commissioning check of a recording: rate, offset, clipping, flatline, noise, lines, ISO zone"
 
@@ -29,7 +30,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--plot", metavar="FILE.png", help="draw the averaged spectrum with the named lines")
     p.add_argument("--json", metavar="FILE", help="also write the report as JSON")
     p.add_argument("--board", metavar="PROFILE.json",
-                   help=f"board profile to compare with (default {DEFAULT_BOARD.name} when present)")
+                   help="board profile of the gateway to compare with (default: settings from the recording)")
     p.add_argument("--rpm", type=float, help="shaft speed in r/min (overrides the sidecar)")
     p.add_argument("--vanes", type=int, metavar="N", help="impeller vane count (overrides the sidecar)")
     p.add_argument("--group", type=int, choices=(1, 2), default=2,
@@ -56,8 +57,13 @@ def run(args: argparse.Namespace) -> int:
     if args.rpm is not None and not args.rpm >= 0:
         raise EdgevibError("--rpm must be a number >= 0")
     zones, source = _zones(args)
-    settings = settings_from_board(args.board, zones_mm_s=zones, zones_source=source)
-    rec = read_recording(args.recording)
+    if args.board:
+        settings = settings_from_board(args.board, zones_mm_s=zones, zones_source=source)
+        rec = read_recording(args.recording)
+    else:   # no gateway named: settings from the recording itself (host_tools.data.analysis)
+        prof = desk_profile([open_recording(args.recording)])
+        settings = settings_from_profile(prof, compare_board=False, zones_mm_s=zones, zones_source=source)
+        rec = read_recording(args.recording, m_s2_per_count=scale_of(prof))
     result = check_recording(rec, settings, rpm=args.rpm, vane_count=args.vanes, max_lines=args.lines)
     rendered = []
     if args.json:

@@ -16,6 +16,10 @@ seeded faults. Steps, as a technician and an engineer would take them:
    named first. Written to DIR/scorecard.json and DIR/scorecard.txt, printed at the end.
 The pumps are trained and replayed in parallel, one process each (two cores make it quick).
 
+`--fleet` runs the fleet part instead (host_tools.fleet.demo): twelve invented pumps at two
+invented sites written as a fleet folder DIR/fleet, trained (DIR/trained) and reviewed
+(DIR/review/index.html) through Dask; --pumps takes fewer, --scheduler uses an existing cluster.
+
 Everything is built in a temporary folder beside DIR and moved into place at the end; an existing
 DIR is replaced only when it is empty or holds an earlier demo.
 """
@@ -34,7 +38,7 @@ import numpy as np
 
 from host_tools.errors import EdgevibError
 
-HELP = "run the invented two-pump demo: generate data, check, train, replay, report"
+HELP = "run the invented two-pump demo (generate data, check, train, replay, report), or with --fleet the fleet demo"
 
 DEFAULT_DAYS = 42.0           # six weeks: every seeded fault of the scenario happens in them
 DEFAULT_INTERVAL_S = 10800.0  # one 4 s snapshot every 3 hours (plus one at each stop and start): about a minute on 2 cores
@@ -54,6 +58,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--evaluation", choices=("demo", "full", "off"), default="demo",
                    help="scorecard on the evaluation histories: demo (one machine, about a minute), full (two machines, "
                         "much longer) or off (default demo)")
+    p.add_argument("--fleet", action="store_true",
+                   help="run the fleet part instead: a dozen invented pumps at two sites, trained and reviewed through Dask")
+    p.add_argument("--pumps", type=int, default=12, metavar="N", help="--fleet: how many of the demo fleet's pumps (default 12)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="--fleet: an existing Dask scheduler (default: a local cluster)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -67,10 +75,19 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError("--jobs must be at least 1")
     started = time.monotonic()
     from host_tools.report.replay_report import staging_folder, swap_in
+    if args.fleet and not 1 <= args.pumps <= 12:
+        raise EdgevibError("--pumps must be from 1 to 12")
     tmp = staging_folder(out)
     try:
-        lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs,
-                      getattr(args, "evaluation", "demo"))
+        if args.fleet:
+            from host_tools.fleet import demo as fleet_demo
+            lines = fleet_demo.build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.pumps,
+                                     args.scheduler, args.jobs)
+            (tmp / _MARKER).write_text(json.dumps({"fleet": True, "seed": args.seed, "days": args.days,
+                                                   "pumps": args.pumps}, indent=1) + "\n")
+        else:
+            lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs,
+                          getattr(args, "evaluation", "demo"))
         swap_in(tmp, out)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -94,11 +111,15 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     """Run the demo into folder `work` (paths are printed as they will be under `final`);
     returns the summary lines. Prints the commissioning check as it goes."""
     from host_tools.data import demo_scenario as ds
+    from host_tools.progress import start
+    bar = start(3, "steps", "demo")          # data, check, pumps
     gt_path = ds.write_scenario(work / "data", seed=seed, days=days, training_days=training_days,
                                 interval_s=interval_s)
     truth = json.loads(gt_path.read_text())
+    bar.update(1)
     first = Path("data") / truth["files"]["P-101"]["training"][0]
     print(commissioning_text(work / first, final / first), end="")
+    bar.update(1)
     pumps = sorted(truth["files"])
     jobs = max(1, min(jobs or len(pumps), len(pumps), os.cpu_count() or 1))
     if jobs == 1:
@@ -106,6 +127,8 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     else:
         with ProcessPoolExecutor(max_workers=jobs) as pool:
             results = list(pool.map(pump_run, [work] * len(pumps), pumps, [truth] * len(pumps)))
+    bar.update(1)
+    bar.close()
     lines = ["", "Summary (invented demo data: Brackwater pumping station)"]
     for r in results:
         lines += summary_lines(r, truth, final)
@@ -197,8 +220,10 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
             "detections": detections(result.events, faults)}
 
 
-def _when(t_s: float, start: float) -> str:
-    return f"day {(t_s - start) / 86400.0:.2f}"
+def _when(t_s: float, start: float, recording: str | None = None, offset_s: float | None = None) -> str:
+    """UTC time (with the recording and offset when it is an event's), and the scenario day."""
+    from host_tools.data.times import moment
+    return f"{moment(t_s, recording, offset_s)}, day {(t_s - start) / 86400.0:.2f} of the scenario"
 
 
 def _delay(s: float) -> str:
@@ -221,7 +246,7 @@ def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
         out.append(f"  training: {len(r['warnings'])} warning(s) in {final / r['pump'] / 'params.json'}, the first: "
                    f"{r['warnings'][0]}")
     for e in fr["alerts"]:
-        out.append(f"    false alert: {_when(e['t_s'], start)}, {e['from']} -> {e['to']} ({e['reason']}, {e.get('feature') or '-'})")
+        out.append(f"    false alert: {_when(e['t_s'], start, e.get('recording'), e.get('offset_s'))}, {e['from']} -> {e['to']} ({e['reason']}, {e.get('feature') or '-'})")
     if not r["detections"]:
         out.append("  no seeded fault in this span")
     for d in r["detections"]:
@@ -229,7 +254,8 @@ def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
         if d["detected_t_s"] is None:
             out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): NOT detected")
         else:
-            out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): detected {_when(d['detected_t_s'], start)} "
+            out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): detected "
+                       f"{_when(d['detected_t_s'], start, d.get('recording'), d.get('offset_s'))} "
                        f"as {d['detected_as']}, {_delay(d['delay_s'])} after it began")
     folder = final / r["pump"]
     out.append(f"  report: {folder / 'report' / 'index.html'}")

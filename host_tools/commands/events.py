@@ -7,6 +7,9 @@ clock when it was saved), the raw features, a readable per-axis summary in physi
 t0_s (the window's start: t less one window, to the second of the gateway's clock). Files are
 written whole (host_tools.data.recording.write_wav); a snapshot overwritten on the gateway between
 listing and reading is reported and skipped.
+
+With --fleet FLEET --gateway ID instead of --out, the snapshots are filed into that gateway's
+captures/ in the fleet folder (host_tools.fleet.layout).
 """
 from __future__ import annotations
 
@@ -20,6 +23,7 @@ from firmware_py.store.snapshots import parse
 from host_tools.data import units
 from host_tools.data.units import m_s2_per_count
 from host_tools.link.device_link import add_key_argument, committed_params, connected, raw_frames, read_key
+from host_tools.progress import progress_bar
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
 from host_tools.data.recording import write_wav
@@ -31,7 +35,9 @@ AXIS_NAMES = ("x", "y", "z")
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
     add_key_argument(p)
-    p.add_argument("--out", required=True, metavar="DIR", help="folder for the snapshots (made if missing)")
+    p.add_argument("--out", metavar="DIR", help="folder for the snapshots (made if missing)")
+    p.add_argument("--fleet", metavar="FLEET", help="instead of --out: file into the captures/ of --gateway in this fleet folder")
+    p.add_argument("--gateway", metavar="ID", help="with --fleet: the gateway's id (its folder name)")
 
 
 def summary(features: list[int], axes: int, scale: float) -> dict:
@@ -73,8 +79,21 @@ def save_event(out: Path, img: bytes, scale: float, board: str) -> Path:
     return write_wav(out / f"event_{meta['id']:05d}_{meta['kind']}.wav", raw_frames(raw, n, axes), fs, sidecar)
 
 
+def _pull(c, e: dict, out: Path, scale: float, board: str, saved: list, gone: list) -> None:
+    """Read event e from the gateway and save it (saved), or note it was overwritten (gone)."""
+    try:
+        img = c.event_read(e["id"])
+    except DeviceRefused as err:
+        if err.code != "missing":
+            raise
+        gone.append(e["id"])
+        return
+    saved.append(save_event(out, img, scale, board))
+
+
 def run(args: argparse.Namespace) -> int:
-    out = Path(args.out)
+    from host_tools.fleet.layout import CAPTURES, filing_target
+    out = filing_target(args.out, args.fleet, args.gateway, CAPTURES, "--out DIR")
     if out.exists() and not out.is_dir():
         raise EdgevibError(f"{out}: exists and is not a folder")
     with connected(args.port, key=read_key(args.key_file)) as c:
@@ -83,15 +102,10 @@ def run(args: argparse.Namespace) -> int:
         listed = c.event_list()
         out.mkdir(parents=True, exist_ok=True)
         saved, gone = [], []
-        for e in listed:
-            try:
-                img = c.event_read(e["id"])
-            except DeviceRefused as err:
-                if err.code != "missing":
-                    raise
-                gone.append(e["id"])
-                continue
-            saved.append(save_event(out, img, scale, board))
+        with progress_bar(len(listed), "events", "events") as bar:
+            for e in listed:
+                _pull(c, e, out, scale, board, saved, gone)
+                bar.update(1)
     kinds = Counter(p.stem.rsplit("_", 1)[1] for p in saved)
     detail = ", ".join(f"{v} {k}" for k, v in sorted(kinds.items()))
     print(f"pulled {len(saved)} event snapshots from {args.port} into {out}" + (f" ({detail})" if detail else ""))

@@ -10,7 +10,6 @@ leaves the gateway on the set it had.
 from __future__ import annotations
 
 import argparse
-import sys
 import time
 
 import msgpack
@@ -19,6 +18,7 @@ import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import build_image
 from host_tools.data.files import load_body
 from host_tools.link.device_link import connected, read_key
+from host_tools.progress import progress_bar
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import DeviceRefused
 from host_tools.ops.param_gate import profile_for, prove
@@ -75,12 +75,13 @@ def run(args: argparse.Namespace) -> int:
             body["gateway"] = gid
             data = msgpack.packb(body, use_bin_type=True)
         image = build_image(data, key)
-        if sys.stderr.isatty():
-            from tqdm import tqdm
-            with tqdm(total=len(image), unit="B", unit_scale=True, desc="upload", leave=False) as bar:
-                r = flash(c, image, progress=lambda done, total: bar.update(done - bar.n))
-        else:
-            r = flash(c, image)
+        with progress_bar(len(image), "bytes", "upload") as bar:
+            sent = [0]
+
+            def advance(done: int, total: int) -> None:
+                bar.update(done - sent[0])
+                sent[0] = done
+            r = flash(c, image, progress=advance)
     signed = (", signed" if key else "") + (", bound to this gateway" if args.bind else "")
     print(f"flashed version {r['version']} (CRC 0x{r['crc']:08x}, {r['bytes']} bytes{signed}) "
           f"to {args.port} in {r['seconds']:.2f} s; read back identical")

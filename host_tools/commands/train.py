@@ -13,29 +13,23 @@ import argparse
 import json
 from pathlib import Path
 
-import msgpack
-
 import firmware_py  # noqa: F401
-from firmware_py.codec import mpack
-from firmware_py.run import params as pm
 from host_tools.errors import EdgevibError
-from host_tools.data.files import DEFAULT_BOARD, check_outputs, load_board, require_existing
-from host_tools.data.recording import atomic_write, read_stream
-from host_tools.data.units import m_s2_per_count
+from host_tools.data.analysis import desk_profile, scale_of
+from host_tools.data.files import check_outputs, encode_set, load_board, require_existing
+from host_tools.data.recording import atomic_write, open_stream, read_stream
+from host_tools.progress import note
 from host_tools.twin.replay import default_jobs, group_sources
 from host_tools.fit.training import report_text, train
 
 HELP = "train a parameter set on healthy recordings: baseline, operating modes, thresholds for a false-alert target"
-# The gateway's parameter store holds images up to 8192 bytes (firmware_py.store.paramstore, cap);
-# an image is the body plus 5 bytes of head, 32 of signature and 4 of CRC.
-_STORE_CAP = 8192
-_IMAGE_EXTRA = 5 + 32 + 4
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("normal", nargs="+", metavar="NORMAL", help="healthy recordings or folders of them (a folder is one stream)")
     p.add_argument("--out", required=True, metavar="PARAMS.msgpack", help="parameter set to write (.msgpack)")
-    p.add_argument("--board", metavar="PROFILE.json", help=f"board profile (default {DEFAULT_BOARD.name})")
+    p.add_argument("--board", metavar="PROFILE.json",
+                   help="board profile of the gateway the set is for (default: settings built from the recordings)")
     p.add_argument("--false-alerts-per-month", type=float, default=1.0, metavar="X",
                    help="target expected false alerts per 30 days of running (default 1)")
     p.add_argument("--version", type=int, default=1, metavar="V", help="parameter set version (default 1)")
@@ -61,18 +55,18 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError("--false-alerts-per-month must be a positive number")
     if not 0 <= args.version < 1 << 30:
         raise EdgevibError("--version must be an int from 0 to 2**30 - 1")
-    profile = load_board(args.board)
-    scale = m_s2_per_count(pm.factory(profile))
-    streams = [read_stream(g, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
-               for g in group_sources(sources)]
+    groups = group_sources(sources)
+    if args.board:
+        profile = load_board(args.board)
+    else:   # analysis settings from the recordings themselves (host_tools.data.analysis)
+        profile = desk_profile([r for g in groups for r in open_stream(g)])
+    scale = scale_of(profile)
+    streams = [read_stream(g, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale) for g in groups]
+    note(f"train: {sum(len(s) for s in streams)} recordings, {profile['sample_rate_hz']} Hz, windows of "
+         f"{profile['window_n']} samples, {profile['axes']} axes (board {profile['name']})")
     params, summary = train(streams, profile, args.false_alerts_per_month, seed=args.seed, version=args.version,
-                            jobs=max(1, args.jobs))
-    body = msgpack.packb(params, use_bin_type=True)
-    if mpack.unpackb(body) != params:   # the device's own decoder must read it back unchanged
-        raise EdgevibError("internal: the encoded parameter set does not decode to itself")
-    if len(body) + _IMAGE_EXTRA > _STORE_CAP:
-        raise EdgevibError(f"the parameter set is {len(body)} bytes, more than a gateway's store holds")
-    pm.build(params, profile)
+                            jobs=max(1, args.jobs), progress=True)
+    body = encode_set(params, profile)
     text = report_text(summary)
     rendered = [body, (json.dumps(summary, indent=1) + "\n").encode(), text.encode()]
     for path, data in zip(paths, rendered):

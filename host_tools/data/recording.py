@@ -7,6 +7,8 @@ Every recording file has a sidecar beside it: same stem, extension `.json` (`pum
     sample_rate_hz  required for CSV without a time column and for .npy; optional for WAV
                     (WAV stores an integer rate; a sidecar value may refine it but must round to it)
     m_s2_per_count  optional  the device counts scale to convert to (see "Counts" below)
+    full_scale      optional  the sensor's full scale in the file's units (e.g. 4095 for 13-bit
+                    data stored as int16, 16.0 for float data in g)
     t0_s            optional  start time of the first frame, seconds on the gateway's clock
     rpm             optional  shaft speed, r/min (null when unknown or changing)
     vane_count      optional  impeller vanes (names the vane-pass line)
@@ -16,17 +18,25 @@ Other keys are kept in `Recording.sidecar` untouched.
 
 Formats
 - WAV: RIFF/WAVE, little-endian, PCM int16 or int32, IEEE float32 or float64 (format code 3),
-  or WAVE_FORMAT_EXTENSIBLE (0xFFFE) wrapping one of those. One channel per axis.
+  or WAVE_FORMAT_EXTENSIBLE (0xFFFE) wrapping one of those. One channel per axis. Read with
+  scipy.io.wavfile, memory-mapped: samples are read from disk only where asked for.
 - CSV: comma-separated, one header row of column names, then one row per frame. A column named
   `t_s` (seconds) is an optional time column: it fixes the sample rate (and t0_s when the sidecar
   has none); every other column is an axis, in order. Numbers written without '.', 'e' or
   'nan'/'inf' throughout make integer data; anything else is float data.
-- .npy: a 1-D (one axis) or 2-D (frames x axes) array of an integer or float dtype.
+- .npy: a 1-D (one axis) or 2-D (frames x axes) array of an integer or float dtype, memory-mapped.
+
+Streaming: open_recording / open_stream give RecordingFile objects (the header, the sidecar and
+a memory map of the samples, no counts yet); RecordingFile.read_counts(start, stop) converts
+only that stretch. read_recording / read_stream convert a whole file (a view of the file, not a
+copy, for int16 data kept at its own scale). The checks of the conversion (finite values, int16
+range) run on each stretch as it is read, so a long file is refused where its first bad sample is.
 
 Counts: the device works on int16 counts (frames x axes) and a scale `m_s2_per_count`. The
 counts scale is, in order of precedence: the caller's `m_s2_per_count` (for example the scale a
-parameter set was trained on), the sidecar's `m_s2_per_count`, and for integer data the file's own
-unit (counts = samples unchanged). Float data with none of these is refused, since there is no
+parameter set was trained on), the sidecar's `m_s2_per_count`, for integer data the file's own
+unit (counts = samples unchanged), for float data the sidecar's `full_scale` (full scale = 32767
+counts). Float data with none of these is refused, since there is no
 honest way to guess a sensor's resolution. Conversion is counts = round-half-even(sample *
 m_s2_per_unit / m_s2_per_count); a value that would fall outside -32768..32767 is refused (not
 saturated), because silently clipped data would pass for a sensor at full scale.
@@ -36,27 +46,28 @@ next to an input.
 """
 from __future__ import annotations
 
+import io
 import json
 import math
 import os
 import re
 import struct
 import tempfile
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable
+from contextlib import contextmanager
+from typing import Any, BinaryIO, Iterable, Iterator
 
 import numpy as np
+from scipy.io import wavfile
 
 from host_tools.errors import EdgevibError
 
 RECORDING_SUFFIXES = (".wav", ".csv", ".npy")
 TIME_COLUMN = "t_s"
 _INT16_MIN, _INT16_MAX = -32768, 32767
-_WAVE_PCM, _WAVE_FLOAT, _WAVE_EXTENSIBLE = 1, 3, 0xFFFE
-# Sub-format GUIDs of WAVE_FORMAT_EXTENSIBLE share this tail after the 2-byte format code
-# (Microsoft multimedia registration; common practice).
-_GUID_TAIL = bytes.fromhex("000000001000800000aa00389b71")
+_WAV_DTYPES = ("int16", "int32", "float32", "float64")
 _RATE_REL_TOL = 1e-6
 
 
@@ -88,6 +99,10 @@ class Recording:
     def duration_s(self) -> float:
         return self.n_frames / self.sample_rate_hz
 
+    def read_counts(self, start: int = 0, stop: int | None = None) -> np.ndarray:
+        """counts[start:stop], as RecordingFile.read_counts gives them."""
+        return self.counts[start:stop]
+
     def accel_m_s2(self) -> np.ndarray:
         """Acceleration in m/s^2 (float64, frames x axes)."""
         return self.counts.astype(np.float64) * self.m_s2_per_count
@@ -98,22 +113,20 @@ def sidecar_path(path: str | os.PathLike) -> Path:
     return Path(path).with_suffix(".json")
 
 
-def read_recording(
+def open_recording(
     path: str | os.PathLike,
     expected_rate_hz: float | None = None,
     m_s2_per_count: float | None = None,
-) -> Recording:
-    """Read one recording and its sidecar.
-
-    expected_rate_hz: if given, a recording at another rate is refused (relative tolerance 1e-6).
-    m_s2_per_count: if given, counts are produced at this scale (m/s^2 per count).
-    """
+) -> "RecordingFile":
+    """Open one recording and its sidecar without converting its samples (see read_recording)."""
     p = Path(path)
     suffix = p.suffix.lower()
+    if not p.exists():
+        raise EdgevibError(f"{p}: no such file or folder")
     if suffix not in RECORDING_SUFFIXES:
         raise EdgevibError(f"{p}: unknown recording format {p.suffix!r} (use .wav, .csv or .npy)")
     if not p.is_file():
-        raise EdgevibError(f"{p}: no such file")
+        raise EdgevibError(f"{p}: not a file")
     meta = _read_sidecar(p)
     rate: float | None
     if suffix == ".wav":
@@ -131,34 +144,99 @@ def read_recording(
         raise EdgevibError(f"{p}: recording holds no samples")
     axes = _axis_names(p, meta.get("axes"), data.shape[1])
     scale = m_s2_per_count if m_s2_per_count is not None else meta.get("m_s2_per_count")
-    counts, scale = _to_counts(p, data, is_float, meta["m_s2_per_unit"], scale)
-    return Recording(
-        path=p,
-        counts=counts,
-        m_s2_per_count=scale,
-        sample_rate_hz=rate,
-        axes=axes,
-        t0_s=meta.get("t0_s"),
-        rpm=meta.get("rpm"),
-        vane_count=meta.get("vane_count"),
-        plant=meta.get("plant"),
-        machine=meta.get("machine"),
-        sidecar=meta,
-    )
+    if scale is None:
+        if not is_float:
+            scale = meta["m_s2_per_unit"]
+        elif meta.get("full_scale") is not None:
+            scale = meta["full_scale"] * meta["m_s2_per_unit"] / _INT16_MAX
+        else:
+            raise EdgevibError(f"{p}: float samples need full_scale or m_s2_per_count (the counts scale) in the sidecar")
+    return RecordingFile(
+        path=p, samples=data, is_float=is_float, m_s2_per_unit=float(meta["m_s2_per_unit"]),
+        m_s2_per_count=float(scale), sample_rate_hz=rate, axes=axes, t0_s=meta.get("t0_s"),
+        rpm=meta.get("rpm"), vane_count=meta.get("vane_count"), plant=meta.get("plant"),
+        machine=meta.get("machine"), sidecar=meta)
 
 
-def read_stream(
+def read_recording(
+    path: str | os.PathLike,
+    expected_rate_hz: float | None = None,
+    m_s2_per_count: float | None = None,
+) -> Recording:
+    """Read one recording and its sidecar.
+
+    expected_rate_hz: if given, a recording at another rate is refused (relative tolerance 1e-6).
+    m_s2_per_count: if given, counts are produced at this scale (m/s^2 per count).
+    """
+    return open_recording(path, expected_rate_hz, m_s2_per_count).load()
+
+
+@dataclass(frozen=True)
+class RecordingFile:
+    """One recording file opened for streaming: its header, sidecar and samples in the file's own
+    numbers (frames x channels; a memory map for WAV and .npy). m_s2_per_count is the counts scale
+    read_counts converts to (rules in the module docstring)."""
+
+    path: Path
+    samples: np.ndarray
+    is_float: bool
+    m_s2_per_unit: float
+    m_s2_per_count: float
+    sample_rate_hz: float
+    axes: tuple[str, ...]
+    t0_s: float | None = None
+    rpm: float | None = None
+    vane_count: int | None = None
+    plant: str | None = None
+    machine: str | None = None
+    sidecar: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.samples.shape[0])
+
+    @property
+    def duration_s(self) -> float:
+        return self.n_frames / self.sample_rate_hz
+
+    @property
+    def sample_format(self) -> str:
+        """The samples' type in the file: int16, int32, float32, ..."""
+        return self.samples.dtype.name
+
+    def read_counts(self, start: int = 0, stop: int | None = None) -> np.ndarray:
+        """int16 counts (frames x axes) of frames start..stop-1; refused where the conversion
+        would clip or meets a NaN (EdgevibError naming the file and frame)."""
+        start, stop, _ = slice(start, stop).indices(self.n_frames)
+        return _to_counts(self.path, self._frames(start, stop), self.is_float, self.m_s2_per_unit,
+                          self.m_s2_per_count, start)
+
+    def _frames(self, start: int, stop: int) -> np.ndarray:
+        """Samples of frames start..stop-1. From a file, they are read into a new array rather
+        than touched through the memory map: pages touched in a map stay in the process's resident
+        memory, which would then grow with the length read."""
+        s = self.samples
+        if isinstance(s, np.memmap) and s.filename and s.flags.c_contiguous and stop > start:
+            cols = s.shape[1]
+            with open(s.filename, "rb") as f:
+                f.seek(s.offset + start * cols * s.dtype.itemsize)
+                return np.fromfile(f, dtype=s.dtype, count=(stop - start) * cols).reshape(-1, cols)
+        return s[start:stop]
+
+    def load(self) -> Recording:
+        """The whole recording, converted."""
+        return Recording(
+            path=self.path, counts=self.read_counts(), m_s2_per_count=self.m_s2_per_count,
+            sample_rate_hz=self.sample_rate_hz, axes=self.axes, t0_s=self.t0_s, rpm=self.rpm,
+            vane_count=self.vane_count, plant=self.plant, machine=self.machine, sidecar=self.sidecar)
+
+
+def open_stream(
     sources: str | os.PathLike | Iterable[str | os.PathLike],
     expected_rate_hz: float | None = None,
     m_s2_per_count: float | None = None,
-) -> list[Recording]:
-    """Read the recordings of one gateway as one stream, ordered by t0_s.
-
-    sources: a folder (every .wav/.csv/.npy file in it, not recursive), one file, or a list of
-    files and folders. With more than one recording every one needs t0_s; all must share the
-    sample rate, axis names and counts scale, must not overlap in time, and must not name
-    different machines.
-    """
+) -> list[RecordingFile]:
+    """Open the recordings of one gateway as one stream, ordered by t0_s (see read_stream)."""
     if isinstance(sources, (str, os.PathLike)):
         sources = [sources]
     files: list[Path] = []
@@ -169,9 +247,11 @@ def read_stream(
             if not found:
                 raise EdgevibError(f"{s}: folder holds no .wav, .csv or .npy recordings")
             files.extend(found)
+        elif not s.exists():
+            raise EdgevibError(f"{s}: no such file or folder")
         else:
             files.append(s)
-    recs = [read_recording(f, expected_rate_hz, m_s2_per_count) for f in files]
+    recs = [open_recording(f, expected_rate_hz, m_s2_per_count) for f in files]
     if len(recs) == 1:
         return recs
     starts: list[float] = []
@@ -198,6 +278,21 @@ def read_stream(
     return recs
 
 
+def read_stream(
+    sources: str | os.PathLike | Iterable[str | os.PathLike],
+    expected_rate_hz: float | None = None,
+    m_s2_per_count: float | None = None,
+) -> list[Recording]:
+    """Read the recordings of one gateway as one stream, ordered by t0_s.
+
+    sources: a folder (every .wav/.csv/.npy file in it, not recursive), one file, or a list of
+    files and folders. With more than one recording every one needs t0_s; all must share the
+    sample rate, axis names and counts scale, must not overlap in time, and must not name
+    different machines.
+    """
+    return [f.load() for f in open_stream(sources, expected_rate_hz, m_s2_per_count)]
+
+
 def write_wav(path: str | os.PathLike, counts: np.ndarray, sample_rate_hz: float, sidecar: dict[str, Any]) -> Path:
     """Write int16 counts (frames x axes) as PCM WAV plus its sidecar, each atomically.
 
@@ -221,31 +316,43 @@ def write_wav(path: str | os.PathLike, counts: np.ndarray, sample_rate_hz: float
     meta["sample_rate_hz"] = float(sample_rate_hz)
     _validate_sidecar(sidecar_path(p), meta)
     _axis_names(p, meta.get("axes"), c.shape[1])
-    n_ch = c.shape[1]
-    payload = np.ascontiguousarray(c, dtype="<i2").tobytes()
-    header = b"".join(
-        (
-            b"RIFF", struct.pack("<I", 36 + len(payload)), b"WAVE",
-            b"fmt ", struct.pack("<IHHIIHH", 16, _WAVE_PCM, n_ch, rate_int, rate_int * 2 * n_ch, 2 * n_ch, 16),
-            b"data", struct.pack("<I", len(payload)),
-        )
-    )
+    buf = io.BytesIO()
+    wavfile.write(buf, rate_int, np.ascontiguousarray(c))
     atomic_write(sidecar_path(p), (json.dumps(meta, indent=1, sort_keys=True) + "\n").encode())
-    atomic_write(p, header + payload)
+    atomic_write(p, buf.getvalue())
     return p
 
 
 def atomic_write(path: Path, data: bytes) -> None:
+    """Write data to path whole (see atomic_open)."""
+    with atomic_open(path) as f:
+        f.write(data)
+
+
+@contextmanager
+def atomic_open(path: str | os.PathLike) -> Iterator[BinaryIO]:
+    """A binary file to write into, which appears at path whole when the block ends without an
+    error: a temporary file in the same folder, fsync, then os.replace (an error removes it).
+    The file gets the mode a plain open() would give it (0666 less the umask), not mkstemp's 0600."""
+    path = Path(path)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix="." + path.name + ".", suffix=".tmp")
     try:
+        os.fchmod(fd, 0o666 & ~current_umask())
         with os.fdopen(fd, "wb") as f:
-            f.write(data)
+            yield f
             f.flush()
             os.fsync(f.fileno())
         os.replace(tmp, path)
     except BaseException:
         os.unlink(tmp)
         raise
+
+
+def current_umask() -> int:
+    """The process's umask (read by setting it and putting it back at once)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
 
 
 # --- sidecar -----------------------------------------------------------------------------------
@@ -271,7 +378,7 @@ def _is_number(v: Any) -> bool:
 def _validate_sidecar(sp: Path, meta: dict[str, Any]) -> None:
     if "m_s2_per_unit" not in meta:
         raise EdgevibError(f"{sp}: sidecar lacks m_s2_per_unit (m/s^2 per sample unit)")
-    for key in ("m_s2_per_unit", "sample_rate_hz", "m_s2_per_count"):
+    for key in ("m_s2_per_unit", "sample_rate_hz", "m_s2_per_count", "full_scale"):
         v = meta.get(key)
         if v is not None and not (_is_number(v) and v > 0):
             raise EdgevibError(f"{sp}: {key} must be a positive number, got {v!r}")
@@ -314,80 +421,51 @@ def _resolve_rate(p: Path, file_rate: float | None, side_rate: float | None, fro
     return float(side_rate)
 
 
-def _to_counts(p: Path, data: np.ndarray, is_float: bool, unit: float, scale: float | None) -> tuple[np.ndarray, float]:
+def _to_counts(p: Path, data: np.ndarray, is_float: bool, unit: float, scale: float, first: int = 0) -> np.ndarray:
+    """int16 counts of samples `data` (frames first..), at `scale` m/s^2 per count."""
     if is_float and not np.all(np.isfinite(data)):
-        bad = int(np.argmax(~np.isfinite(data).all(axis=1)))
+        bad = first + int(np.argmax(~np.isfinite(data).all(axis=1)))
         raise EdgevibError(f"{p}: NaN or infinite sample at frame {bad}")
-    if scale is None:
-        if is_float:
-            raise EdgevibError(f"{p}: float samples need m_s2_per_count (the counts scale) in the sidecar")
-        scale = unit
-    scale = float(scale)
+    if data.dtype == np.int16 and scale == unit:
+        return data          # the file's own numbers are the counts: a view, no copy
     if not is_float and scale == unit:
         values = data
     else:
         values = np.rint(data.astype(np.float64) * unit / scale)
-    lo, hi = values.min(), values.max()
-    if lo < _INT16_MIN or hi > _INT16_MAX:
-        worst = float(hi if hi > -lo else lo)
-        raise EdgevibError(
-            f"{p}: a sample of {worst * scale:g} m/s^2 is {worst:g} counts at {scale:g} m/s^2 per count, "
-            "outside the int16 range (would clip; use a coarser m_s2_per_count)"
-        )
-    return np.ascontiguousarray(values, dtype=np.int16), scale
+    if len(values):
+        lo, hi = values.min(), values.max()
+        if lo < _INT16_MIN or hi > _INT16_MAX:
+            worst = float(hi if hi > -lo else lo)
+            raise EdgevibError(
+                f"{p}: a sample of {worst * scale:g} m/s^2 is {worst:g} counts at {scale:g} m/s^2 per count, "
+                "outside the int16 range (would clip; use a coarser m_s2_per_count)"
+            )
+    return np.ascontiguousarray(values, dtype=np.int16)
 
 
 # --- WAV ---------------------------------------------------------------------------------------
 
 def _read_wav(p: Path) -> tuple[np.ndarray, float, bool]:
-    size = p.stat().st_size
+    """Samples (frames x channels, memory-mapped), rate and whether they are floats."""
     with open(p, "rb") as f:
         head = f.read(12)
-        if len(head) < 12 or head[:4] != b"RIFF" or head[8:12] != b"WAVE":
-            raise EdgevibError(f"{p}: not a RIFF/WAVE file (little-endian RIFF expected)")
-        fmt = None
-        while True:
-            ch = f.read(8)
-            if len(ch) < 8:
-                raise EdgevibError(f"{p}: truncated WAV: no data chunk" if fmt else f"{p}: truncated WAV: no fmt chunk")
-            cid, clen = ch[:4], struct.unpack("<I", ch[4:])[0]
-            if cid == b"fmt ":
-                body = f.read(clen)
-                if len(body) < 16 or len(body) < clen:
-                    raise EdgevibError(f"{p}: truncated WAV fmt chunk")
-                fmt = _parse_fmt(p, body)
-                f.seek(clen & 1, 1)
-            elif cid == b"data":
-                if fmt is None:
-                    raise EdgevibError(f"{p}: WAV data chunk comes before the fmt chunk")
-                code, n_ch, rate, width = fmt
-                start = f.tell()
-                if start + clen > size:
-                    raise EdgevibError(f"{p}: truncated WAV: data chunk declares {clen} bytes, file holds {size - start}")
-                if clen % (n_ch * width):
-                    raise EdgevibError(f"{p}: truncated WAV: data length {clen} is not a whole number of frames")
-                kind = "f" if code == _WAVE_FLOAT else "i"
-                raw = np.fromfile(f, dtype=np.dtype(f"<{kind}{width}"), count=clen // width)
-                return raw.reshape(-1, n_ch), float(rate), kind == "f"
-            else:
-                if f.tell() + clen > size:
-                    raise EdgevibError(f"{p}: truncated WAV chunk {cid!r}")
-                f.seek(clen + (clen & 1), 1)
+    if len(head) < 12 or head[:4] != b"RIFF" or head[8:12] != b"WAVE":
+        raise EdgevibError(f"{p}: not a RIFF/WAVE file (little-endian RIFF expected)")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", wavfile.WavFileWarning)   # a damaged file is refused, not guessed at
+            rate, data = wavfile.read(p, mmap=True)
+    except (ValueError, OSError, EOFError, struct.error, wavfile.WavFileWarning) as e:   # struct: a cut header
+        raise EdgevibError(f"{p}: truncated or unreadable WAV ({_one_line(e)})") from None
+    if data.dtype.name not in _WAV_DTYPES:
+        raise EdgevibError(f"{p}: unsupported WAV sample format ({data.dtype.name}); use PCM int16/int32 or float32")
+    if data.ndim == 1:
+        data = data[:, None]
+    return data, float(rate), data.dtype.kind == "f"
 
 
-def _parse_fmt(p: Path, body: bytes) -> tuple[int, int, int, int]:
-    code, n_ch, rate, _byte_rate, block, bits = struct.unpack("<HHIIHH", body[:16])
-    if code == _WAVE_EXTENSIBLE:
-        if len(body) < 40 or body[26:40] != _GUID_TAIL:
-            raise EdgevibError(f"{p}: WAVE_FORMAT_EXTENSIBLE with an unknown sub-format")
-        code = struct.unpack("<H", body[24:26])[0]
-    width = bits // 8
-    supported = (code == _WAVE_PCM and bits in (16, 32)) or (code == _WAVE_FLOAT and bits in (32, 64))
-    if not supported:
-        raise EdgevibError(f"{p}: unsupported WAV sample format (code {code}, {bits} bits); use PCM int16/int32 or float32")
-    if n_ch < 1 or rate < 1 or block != n_ch * width:
-        raise EdgevibError(f"{p}: inconsistent WAV header ({n_ch} channels, {rate} Hz, block {block} bytes)")
-    return code, n_ch, rate, width
+def _one_line(e: BaseException) -> str:
+    return " ".join(str(e).split()) or type(e).__name__
 
 
 # --- CSV and .npy ------------------------------------------------------------------------------
@@ -451,7 +529,7 @@ def _rate_from_times(p: Path, t: np.ndarray) -> tuple[float | None, float]:
 
 def _read_npy(p: Path) -> tuple[np.ndarray, None, bool]:
     try:
-        a = np.load(p, allow_pickle=False)
+        a = np.load(p, allow_pickle=False, mmap_mode="r")
     except (ValueError, OSError, EOFError) as e:
         raise EdgevibError(f"{p}: cannot read .npy ({e})") from None
     if a.ndim == 1:

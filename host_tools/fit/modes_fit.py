@@ -1,5 +1,7 @@
 """Operating modes on the host: k-means (k-means++ seeding, several starts) and the choice of k
-by the silhouette, turned into the detector's parameter keys.
+by the silhouette, turned into the detector's parameter keys. k-means and the silhouette are
+scikit-learn's (sklearn.cluster.KMeans, sklearn.metrics.silhouette_score); our own code is only
+what mirrors the device's integer arithmetic.
 
 The baseline and the standardisation run through the device's own code (firmware_py.detect.modes), so
 the model the host fits is exactly in the space the device scores in.
@@ -7,9 +9,14 @@ the model the host fits is exactly in the space the device scores in.
 from __future__ import annotations
 
 import math
+import warnings
 from array import array
 
 import numpy as np
+from sklearn.cluster import KMeans
+from sklearn.exceptions import ConvergenceWarning
+from sklearn.metrics import silhouette_score
+from threadpoolctl import threadpool_limits
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.dsp import feature_index as fi
@@ -26,86 +33,27 @@ MIN_MODE_N = 30         # a speed group with fewer windows joins its neighbour
 _SIL_SAMPLE = 2000      # the silhouette is O(n**2): score it on at most this many rows
 
 
-def _plusplus(x: np.ndarray, k: int, rng: np.random.Generator) -> np.ndarray:
-    """k-means++ seeds (Arthur and Vassilvitskii 2007), greedy: 2 + ln k trials per seed, the
-    one that lowers the potential most is kept."""
-    n = len(x)
-    trials = 2 + int(np.log(k))
-    centers = [x[rng.integers(n)]]
-    d2 = ((x - centers[0]) ** 2).sum(1)
-    for _ in range(1, k):
-        total = d2.sum()
-        if total <= 0:
-            cand = rng.integers(n, size=trials)
-        else:
-            cand = np.searchsorted(np.cumsum(d2), rng.random(trials) * total)
-            cand = np.minimum(cand, n - 1)
-        best, best_pot, best_d2 = None, np.inf, None
-        for c in cand:
-            nd2 = np.minimum(d2, ((x - x[c]) ** 2).sum(1))
-            pot = nd2.sum()
-            if pot < best_pot:
-                best, best_pot, best_d2 = c, pot, nd2
-        centers.append(x[best])
-        d2 = best_d2
-    return np.array(centers, dtype=float)
-
-
-def _sq_dist(x: np.ndarray, c: np.ndarray) -> np.ndarray:
-    """Squared distances (n, k) as |x|^2 - 2 x.c + |c|^2: one matrix product instead of an
-    (n, k, d) array; rounding can make a zero distance slightly negative, so clip at 0."""
-    d = (x * x).sum(1)[:, None] - 2.0 * (x @ c.T) + (c * c).sum(1)[None, :]
-    return np.maximum(d, 0.0)
-
-
-def kmeans(x: np.ndarray, k: int, n_init: int = 10, max_iter: int = 300, tol: float = 1e-6,
+def kmeans(x: np.ndarray, k: int, n_init: int = 10, max_iter: int = 300, tol: float = 1e-4,
            seed: int = 0) -> tuple[np.ndarray, np.ndarray, float]:
-    """Lloyd's k-means from n_init k-means++ starts; returns (centers, labels, inertia) of the
-    start with the least inertia (sum of squared distances to the assigned centre)."""
+    """k-means: scikit-learn's KMeans (Lloyd, k-means++ seeding, n_init starts, the start with
+    the least inertia kept). Returns (centers, labels, inertia = sum of squared distances to the
+    assigned centre). Fewer distinct points than k is allowed (some centres then coincide)."""
     x = np.asarray(x, dtype=float)
-    rng = np.random.default_rng(seed)
-    best: tuple[np.ndarray, np.ndarray, float] = (np.empty((0, x.shape[1])), np.empty(0, int),
-                                                  np.inf)
-    scale = max(float(x.var(0).mean()), 1e-300)
-    for _ in range(n_init):
-        c = _plusplus(x, k, rng)
-        for _ in range(max_iter):
-            lab = _sq_dist(x, c).argmin(1)
-            new = c.copy()
-            for j in range(k):
-                members = x[lab == j]
-                if len(members):
-                    new[j] = members.mean(0)
-            shift = ((new - c) ** 2).sum()
-            c = new
-            if shift <= tol * scale:
-                break
-        d = _sq_dist(x, c)
-        lab = d.argmin(1)
-        inertia = float(d[np.arange(len(x)), lab].sum())
-        if inertia < best[2]:
-            best = (c, lab, inertia)
-    return best
+    # one thread: the fits here are small, and OpenMP threads that spin-wait on a busy machine
+    # cost far more than they give (measured 35x slower under load on 2 cores)
+    with warnings.catch_warnings(), threadpool_limits(1):
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        km = KMeans(n_clusters=k, init="k-means++", n_init=n_init, max_iter=max_iter, tol=tol,
+                    random_state=seed).fit(x)
+    return km.cluster_centers_, km.labels_.astype(int), float(km.inertia_)
 
 
 def silhouette(x: np.ndarray, labels: np.ndarray) -> float:
-    """Mean silhouette (Rousseeuw 1987): s = (b - a) / max(a, b) per point, with a the mean
-    distance to its own cluster and b the least mean distance to another; 0 for singletons."""
-    x = np.asarray(x, dtype=float)
-    d = np.sqrt(np.maximum(_sq_dist(x, x), 0.0))
-    ids = np.unique(labels)
-    if len(ids) < 2:
+    """Mean silhouette (Rousseeuw 1987), Euclidean: scikit-learn's silhouette_score."""
+    if len(np.unique(labels)) < 2:
         raise ValueError("the silhouette needs at least two clusters")
-    sums = np.stack([d[:, labels == i].sum(1) for i in ids], 1)
-    sizes = np.array([(labels == i).sum() for i in ids])
-    own = np.searchsorted(ids, labels)
-    own_n = sizes[own]
-    a = sums[np.arange(len(x)), own] / np.maximum(own_n - 1, 1)
-    other = sums / sizes
-    other[np.arange(len(x)), own] = np.inf
-    b = other.min(1)
-    s = np.where(own_n > 1, (b - a) / np.maximum(np.maximum(a, b), 1e-300), 0.0)
-    return float(s.mean())
+    with threadpool_limits(1):
+        return float(silhouette_score(np.asarray(x, dtype=float), labels))
 
 
 def choose_k(x: np.ndarray, k_max: int = dm.KMAX, seed: int = 0) -> tuple[int, dict]:

@@ -54,6 +54,7 @@ from host_tools.data.bearing import BearingGeometry, defect_orders
 from host_tools.fit import modes_fit, raise_rate, sensor_fit
 from host_tools.data import units
 from host_tools.errors import EdgevibError
+from host_tools.progress import start
 from host_tools.data.recording import Recording
 from host_tools.twin.replay import (
     StreamFeatures, check_recordings, evidence_sequences, m_s2_per_count, physical_columns, promise_check,
@@ -477,8 +478,8 @@ def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, ta
 
 
 def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: float = 1.0, seed: int = 0,
-          version: int = 1, folds: int = FOLDS, jobs: int = 1, bearing: BearingGeometry | None = None
-          ) -> tuple[dict, dict]:
+          version: int = 1, folds: int = FOLDS, jobs: int = 1, bearing: BearingGeometry | None = None,
+          progress: bool = False) -> tuple[dict, dict]:
     """A parameter set trained on healthy recordings of one gateway, and a JSON-able summary.
 
     recordings: Recording objects (one stream) or lists of them (one per stream), read at the
@@ -486,7 +487,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     analyse_every decides which windows the device sees). false_alerts_per_month: target expected
     false alerts per 30 days of running. seed: k-means. version: the set's version. folds:
     held-out blocks. jobs: processes for the fits. bearing: the monitored bearing's geometry (or
-    a sidecar "bearing"), for the envelope lines.
+    a sidecar "bearing"), for the envelope lines. progress: show the stages done (host_tools.progress).
     """
     if not false_alerts_per_month > 0:
         raise EdgevibError("the false-alert target must be a positive number per 30 days")
@@ -507,7 +508,9 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     p.update(det_base_mean_q4=[0] * d, det_base_sd_q4=[256] * d, det_zlam_q8=zlam_q8(d))
     pm.build(p, profile)
     twin = twin_for(p, profile)
+    bar = start(4, "stages", "train", enabled=progress)    # features, scoring probe, fits, check
     feats = [stream_features(s, twin, every) for s in streams]
+    bar.update(1)
     allf = np.concatenate([sf.feats for sf in feats])
     pa = fi.per_axis(len(p["fc_bands"]))
     axes = p["axes"]
@@ -549,6 +552,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
 
     # which windows the device scores, and which of those are fit for training (zone A/B)
     probe = _run(_probe_model(p), feats, every)
+    bar.update(1)
     scored = [st.why == W_SCORED for st in probe]
     vel = [sf.feats[:, fi.F_VEL::pa][:, :axes].max(1) for sf in feats]
     zone_c = [v >= p["det_iso_bounds"][ZONE_C - 1] for v in vel]
@@ -576,6 +580,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     rows.append(np.concatenate([sf.feats[u] for sf, u in zip(feats, use)]))
     sps.append(np.concatenate([sp[u] for sp, u in zip(speeds, use)]))
     fits = _fit_all(rows, sps, p, seed, jobs)
+    bar.update(1)
     seqs: list[np.ndarray] = []
     fold_sets = []
     for f, keys in zip(fold_ids, fits):
@@ -655,6 +660,8 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         "warnings": warnings,
         "caution": "advisory condition monitoring, not machinery protection; an all-clear is no guarantee",
     }
+    bar.update(1)
+    bar.close()
     return p, summary
 
 

@@ -48,8 +48,9 @@ from firmware_py.detect.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSO
 from host_tools.data import units
 from host_tools.data.lines import HANN_ENBW_BINS, line_names
 from host_tools.errors import EdgevibError
+from host_tools.progress import progress_bar
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
-from host_tools.data.recording import Recording, read_recording
+from host_tools.data.recording import Recording, RecordingFile, open_recording
 
 MAX_SPECTRA = 16          # spectrum plots per report; the events table still lists every event
 SPECTRUM_WINDOWS = 8      # running windows averaged before the event
@@ -170,7 +171,9 @@ def detections(events: Sequence[dict], faults: Sequence[dict]) -> list[dict]:
                     if f["start_t0_s"] <= e["t_s"] <= f["end_t0_s"] and state_code(e["to"]) in wanted), None)
         out.append({**f, "detected_t_s": None if hit is None else float(hit["t_s"]),
                     "delay_s": None if hit is None else float(hit["t_s"]) - f["start_t0_s"],
-                    "detected_as": None if hit is None else f"{hit['to']} ({hit['reason']})"})
+                    "detected_as": None if hit is None else f"{hit['to']} ({hit['reason']})",
+                    "recording": None if hit is None else hit.get("recording"),
+                    "offset_s": None if hit is None else hit.get("offset_s")})
     return out
 
 
@@ -226,7 +229,7 @@ def clock_for(origin: float, t_last: float, since: str = "the first recording") 
 # --- recordings -----------------------------------------------------------------------------------
 
 def _load(recordings: Sequence[Recording | str | os.PathLike], p: dict) -> list[Recording]:
-    recs = [r if isinstance(r, Recording) else read_recording(r, m_s2_per_count=units.STANDARD_GRAVITY_M_S2
+    recs = [r if isinstance(r, (Recording, RecordingFile)) else open_recording(r, m_s2_per_count=units.STANDARD_GRAVITY_M_S2
                                                               / p["counts_per_g"]) for r in recordings]
     if not recs:
         raise EdgevibError("report: no recordings given")
@@ -442,7 +445,7 @@ class _WindowSamples:
         self.t0 = np.array([_t0(r) for r in recs])
         cfg = TwinConfig(self.n, int(p["fs_hz"]), -32768, 32767, tuple((b[0], b[1]) for b in p["fc_bands"]),
                          *p["fc_vel_hz"])
-        self.twin = FeatureTwin(cfg, recs[0].counts.shape[1])
+        self.twin = FeatureTwin(cfg, len(recs[0].axes))
 
     def _index(self, t_end_s: float) -> int:
         """Index of the recording that holds (the middle of) the window ending at t_end_s, -1 none."""
@@ -461,7 +464,7 @@ class _WindowSamples:
         start = int(round((t_end_s - self.t0[i]) * self.fs)) - self.n
         if start < 0 or start + self.n > r.n_frames:
             return None
-        return r.counts[start:start + self.n], r.m_s2_per_count
+        return r.read_counts(start, start + self.n), r.m_s2_per_count
 
     def mean_square(self, t_ends: Sequence[float]) -> np.ndarray | None:
         """Mean square per bin, (m/s^2)^2, per axis (axes, m+1), averaged over the live windows
@@ -486,18 +489,24 @@ def at_windows(p: dict) -> int:
 
 def event_windows(ev: dict, w: Windows, p: dict) -> tuple[list[float], list[float]]:
     """End times of the windows at the event (the persistence span, at most SPECTRUM_WINDOWS of
-    its windows ending at the event's, within one snapshot) and just before it: the SPECTRUM_WINDOWS latest running
-    windows (not idle or sensor fault) before those, in the event's mode when it has one and
-    such windows exist, so that the comparison is at the same operating point."""
+    its windows ending at the event's, within one snapshot) and before it: the SPECTRUM_WINDOWS latest healthy windows
+    (state normal) of the event's operating mode, from any earlier recording. Windows of the
+    event's own run of recordings come only when no earlier one has any (a snapshot taken as the
+    fault grows looks like the event itself); windows of another mode only when its own has none."""
     i = min(int(np.searchsorted(w.t_s, float(ev["t_s"]) - 1e-6)), len(w.t_s) - 1)
     window_s = p["n"] / float(p["fs_hz"])
+    joined = np.flatnonzero(np.diff(w.t_s[:i + 1]) >= 1.5 * window_s)
+    run_start = int(joined[-1]) + 1 if len(joined) else 0          # first window of the event's run
     at = [i]
-    while len(at) < at_windows(p) and at[0] > 0 and w.t_s[at[0]] - w.t_s[at[0] - 1] < 1.5 * window_s:
+    while len(at) < at_windows(p) and at[0] > run_start:
         at.insert(0, at[0] - 1)
-    running = np.flatnonzero((w.state[:at[0]] != IDLE) & (w.state[:at[0]] != SENSOR_FAULT))
+    healthy = np.flatnonzero(w.state[:at[0]] == NORMAL)
     mode = ev.get("mode")
-    same = running[w.mode[running] == mode] if mode is not None and mode >= 0 else running[:0]
-    before = (same if len(same) else running)[-SPECTRUM_WINDOWS:]
+    same = healthy[w.mode[healthy] == mode] if mode is not None and mode >= 0 else healthy
+    for pick in (same[same < run_start], same, healthy[healthy < run_start], healthy):
+        if len(pick):
+            break
+    before = pick[-SPECTRUM_WINDOWS:]
     return [float(w.t_s[j]) for j in before], [float(w.t_s[j]) for j in at]
 
 
@@ -603,17 +612,35 @@ def _table(head: Sequence[str], rows: Sequence[Sequence[str]], num: Sequence[int
     return f"<table><tr>{h}</tr>{body}</table>"
 
 
-def _summary_rows(summary: Any, clock: Clock) -> list[list[str]]:
-    """One row per item; times (keys ending in t_s or _t_s) as the tables show them."""
+SUMMARY_LABELS = {
+    "recordings": "recordings", "windows": "windows analysed", "observed_s": "time analysed",
+    "t_first_s": "first window ends", "t_last_s": "last window ends", "windows_per_state": "time per state",
+    "alerts": "alerts raised", "alarms": "alarms raised", "sensor_faults": "sensor faults raised",
+    "first_alert_t_s": "first alert", "first_alarm_t_s": "first alarm",
+    "first_sensor_fault_t_s": "first sensor fault", "events_lost": "events lost (event ring overflowed)",
+    "streams": "streams",
+}
+
+
+def _summary_rows(summary: Any, clock: Clock, window_s: float) -> list[list[str]]:
+    """One row per item with a readable label; times as the tables show them, durations in
+    minutes, hours or days, time per state from the windows per state."""
     if not isinstance(summary, dict):
         return [["summary", _esc(summary)]] if summary else []
     rows = []
     for k, v in summary.items():
-        if k.endswith("t_s") and isinstance(v, (int, float)) and not isinstance(v, bool):
+        if v is None:
+            text = "none"
+        elif k.endswith("t_s") and isinstance(v, (int, float)) and not isinstance(v, bool):
             text = clock.label(float(v))
+        elif k == "observed_s":
+            text = _duration(float(v))
+        elif k == "windows_per_state" and isinstance(v, dict):
+            text = ", ".join(f"{name.replace('_', ' ')} {_duration(n * window_s)}" for name, n in v.items() if n) or "none"
         else:
             text = json.dumps(v, sort_keys=True) if isinstance(v, (dict, list)) else str(v)
-        rows.append([_esc(k), _esc(text if len(text) < 400 else text[:400] + " ...")])
+        label = SUMMARY_LABELS.get(k, k.replace("_", " "))
+        rows.append([_esc(label), _esc(text if len(text) < 400 else text[:400] + " ...")])
     return rows
 
 
@@ -628,14 +655,24 @@ def write_report(out_dir: str | os.PathLike, result: Any, params: dict,
     stream: which stream of the result the recordings are (needed only when it holds several).
     """
     out = Path(out_dir)
+    check_report_folder(out)
+    recs = _load(recordings, params)
+    files, page = render(result, params, recs, ground_truth, stream)
+    return write_page(out, files, page)
+
+
+def check_report_folder(out: Path) -> None:
+    """Refuse a report folder that is a file, holds other files, or has no parent folder."""
     if out.exists() and not out.is_dir():
         raise EdgevibError(f"{out}: exists and is not a folder")
     if out.is_dir() and any(out.iterdir()) and not (out / "index.html").is_file():
         raise EdgevibError(f"{out}: folder holds other files and no earlier report; choose an empty or new folder")
     if not out.parent.is_dir():
         raise EdgevibError(f"{out}: folder {out.parent} does not exist")
-    recs = _load(recordings, params)
-    files, page = render(result, params, recs, ground_truth, stream)
+
+
+def write_page(out: Path, files: dict[str, bytes], page: str) -> Path:
+    """Write files and index.html into a staging folder beside out, then swap it in whole."""
     tmp = staging_folder(out)
     try:
         for name, data in files.items():
@@ -689,24 +726,29 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
     axes = recs[0].axes
     who = " - ".join(x for x in (plant, machine) if x) or str(recs[0].path.parent)
 
-    files = {"score.png": plot_score(w, p, clock, window_s, faults, events, f"{who}: detector score"),
-             "velocity.png": plot_velocity(w, p, clock, window_s, faults, f"{who}: velocity r.m.s. and ISO zones")}
-    src = _WindowSamples(recs, p)
     raising = [i for i, e in enumerate(events) if state_code(e["to"]) in _RAISES]
     # machine raises before sensor faults when there are more than the plots allowed
     chosen = sorted(sorted(raising, key=lambda i: state_code(events[i]["to"]) == SENSOR_FAULT)[:MAX_SPECTRA])
-    spectra: dict[int, str] = {}
-    for i in chosen:
-        name = f"spectrum_{len(spectra) + 1:02d}.png"
-        files[name] = plot_event_spectrum(events[i], i + 1, w, p, src, clock, axes)
-        spectra[i] = name
+    with progress_bar(2 + len(chosen), "plots", "report") as bar:
+        files = {"score.png": plot_score(w, p, clock, window_s, faults, events, f"{who}: detector score")}
+        bar.update(1)
+        files["velocity.png"] = plot_velocity(w, p, clock, window_s, faults, f"{who}: velocity r.m.s. and ISO zones")
+        bar.update(1)
+        src = _WindowSamples(recs, p)
+        spectra: dict[int, str] = {}
+        for i in chosen:
+            name = f"spectrum_{len(spectra) + 1:02d}.png"
+            files[name] = plot_event_spectrum(events[i], i + 1, w, p, src, clock, axes)
+            spectra[i] = name
+            bar.update(1)
 
     parts = [f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{_esc(who)}: replay report</title>"
              f"<style>{_CSS}</style></head><body>",
              f"<h1>{_esc(who)}: replay report</h1>",
              f'<p class=sub>{len(recs)} recording(s), {len(w.t_s)} windows of {p["n"]} samples at '
              f'{float(p["fs_hz"]):g} Hz, from {_esc(clock.label(t_first))} to {_esc(clock.label(t_last))}; '
-             f'parameter set version {_esc(p.get("version", "?"))} for board {_esc(p.get("board", "?"))}.</p>',
+             f'parameter set version {_esc(p.get("version", "?"))} for board {_esc(p.get("board", "?"))}. '
+             f'Time origin of every plot and table: {_esc(clock.axis_label())}.</p>',
              '<p class=caution>Advisory condition monitoring only: not a machinery-protection or safety '
              'shutdown system. A window in <b>normal</b> resembles what was learned as normal; it is no '
              'guarantee that the machine is healthy.</p>']
@@ -732,7 +774,7 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
                         f"sensor faults, up to {MAX_SPECTRA} plots)." if left else "") + "</p>")
         parts += [f'<img id="spectrum-{i + 1}" src="{name}" alt="spectrum around event {i + 1}">'
                   for i, name in spectra.items()]
-    rows = _summary_rows(summary, clock)
+    rows = _summary_rows(summary, clock, window_s)
     if rows:
         parts += ["<h2>Replay summary</h2>", _table(("item", "value"), rows)]
     parts.append("</body></html>\n")

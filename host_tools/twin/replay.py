@@ -5,6 +5,16 @@ is then stepped through the device's own Detector, one window at a time, exactly
 does. Nothing here re-implements a detector rule: states, scores, modes and events are the
 device's.
 
+Entry points. replay(streams, params, profile, jobs, ...) -> ReplayResult for one or more streams;
+StreamReplay(source, params, profile, name).chunks(jobs) for one stream, a ReplayChunk at a time
+(its events, its per-window columns), with sr.events and sr.summary() at the end: the form for
+callers that must not hold a recording's windows (memory stays one chunk per job, whatever the
+length). Chunks are CHUNK_WINDOWS whole windows of one gap-free segment, read from the files as
+they are needed (host_tools.data.recording.RecordingFile.read_counts); jobs > 1 computes the
+features of that many chunks at once in worker processes while this process steps the detector
+in order, so the result is the same as one pass for any jobs and chunk size (tests prove it).
+replay_stream(recs, ...) keeps every column of one stream; windows_csv / csv_rows write them.
+
 Streams. The recordings of one gateway form one stream, in t0_s order, with one Detector whose
 state carries from one recording to the next (a latched alarm stays latched, an alert stays
 raised until it clears, the persistence evidence and any start-up hold-off carry over).
@@ -32,11 +42,11 @@ import csv
 import io
 import math
 import os
-import sys
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from collections import deque
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Sequence
+from typing import Any, Callable, Iterator, Sequence
 
 import numpy as np
 
@@ -49,9 +59,11 @@ from firmware_py.detect.iso_zones import ZONE_NAMES, zone_of
 from host_tools.data.units import band_hz, feature_name, m_s2_per_count
 from host_tools.errors import EdgevibError
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
-from host_tools.data.recording import Recording, read_stream
+from host_tools.data.recording import Recording, RecordingFile, open_stream
+from host_tools.progress import progress_bar
 
-_CHUNK_WINDOWS = 512   # windows per call of the feature twin: keeps its temporaries in cache (measured fastest)
+CHUNK_WINDOWS = 512   # windows per chunk: the feature twin's temporaries stay in cache (measured fastest)
+
 
 # --- set-up from a parameter set ----------------------------------------------------------------
 
@@ -72,63 +84,126 @@ def check_recordings(recs: Sequence[Recording], params: dict) -> None:
     for r in recs:
         if not math.isclose(r.sample_rate_hz, params["fs_hz"], rel_tol=1e-6):
             raise EdgevibError(f"{r.path}: sample rate {r.sample_rate_hz:g} Hz does not match the parameter set's {params['fs_hz']} Hz")
-        if r.counts.shape[1] != params["axes"]:
-            raise EdgevibError(f"{r.path}: {r.counts.shape[1]} axes, the parameter set is for {params['axes']}")
+        if len(r.axes) != params["axes"]:
+            raise EdgevibError(f"{r.path}: {len(r.axes)} axes, the parameter set is for {params['axes']}")
         if not math.isclose(r.m_s2_per_count, want_scale, rel_tol=1e-9):
             raise EdgevibError(f"{r.path}: counts scale {r.m_s2_per_count:g} m/s^2 differs from the set's {want_scale:g} (read it at the set's scale)")
 
 
-# --- features of a stream -----------------------------------------------------------------------
+# --- features of a stream, chunk by chunk --------------------------------------------------------
 
 @dataclass
 class StreamFeatures:
-    """Twin features of one stream: feats (windows, axes * per_axis) int32, t_s (windows,) window
-    end times, s, and rec (windows,) index of the recording each window ends in."""
+    """Twin features of one stream (or of one chunk of it): feats (windows, axes * per_axis)
+    int32, t_s (windows,) window end times, s, and rec (windows,) index of the recording each
+    window ends in (into the stream's recordings, in time order)."""
 
     feats: np.ndarray
     t_s: np.ndarray
     rec: np.ndarray
 
 
-def stream_features(recs: Sequence[Recording], twin: FeatureTwin, every: int = 1) -> StreamFeatures:
-    """Features of the windows the device analyses over a stream, joining gap-free recordings.
+@dataclass
+class ChunkPlan:
+    """One chunk of a stream: windows first_w.. (index in the stream), their end times t_s and
+    owning recordings rec, and the samples to read as (recording index, start, stop) pieces,
+    whose frames joined in order are the chunk's windows."""
 
+    first_w: int
+    t_s: np.ndarray
+    rec: np.ndarray
+    pieces: list[tuple[int, int, int]]
+
+
+def plan_chunks(recs: Sequence[Any], n: int, fs: float, chunk_windows: int = CHUNK_WINDOWS,
+                every: int = 1) -> list[ChunkPlan]:
+    """Cut a stream (Recording or RecordingFile, in time order) into chunks of analysed windows.
+
+    Gap-free recordings form one segment, read as one run of samples; a chunk never spans two
+    segments, and every chunk holds chunk_windows windows except the last of each segment.
     every: the board's analyse_every. The gateway analyses the first window of every cycle of
     `every` windows and discards the others (firmware_py/run/gateway.py, feed), counting cycles
-    from the first frame it is fed; a recording segment (gap-free recordings joined) is fed from
-    its first frame, so its windows 0, every, 2 every, ... are the ones analysed, each keeping
-    its own end time. The selected windows are stacked and run through the twin in chunks of
-    _CHUNK_WINDOWS (each window depends only on its own samples, so this is the same as one call
-    per segment, with less overhead per call)."""
-    n, fs = twin.n, float(twin.cfg.fs_hz)
-    blocks, times, owner = [], [], []
+    from the first frame it is fed; a segment is fed from its first frame, so its windows 0,
+    every, 2 every, ... are the ones analysed, each keeping its own end time. The plan holds no
+    samples: its size is a few numbers per window."""
+    if not recs:
+        raise EdgevibError("no recordings to replay")
+    plans: list[ChunkPlan] = []
+    w0 = 0
     i = 0
     while i < len(recs):
         t0 = recs[i].t0_s or 0.0
-        parts, ends = [recs[i].counts], [recs[i].n_frames]
+        ends = [recs[i].n_frames]
         j = i + 1
         while j < len(recs) and abs((recs[j].t0_s or 0.0) - (t0 + ends[-1] / fs)) < 0.5 / fs:
-            parts.append(recs[j].counts)
             ends.append(ends[-1] + recs[j].n_frames)
             j += 1
-        w = ends[-1] // n
-        if w:
-            counts = parts[0] if len(parts) == 1 else np.concatenate(parts)
-            keep = np.arange(0, w, every)
-            wins = counts[:w * n].reshape(w, n, counts.shape[1])[keep]
-            blocks.append(wins.reshape(-1, counts.shape[1]))
-            w_end = (keep + 1) * n
-            times.append(t0 + w_end / fs)
-            owner.append(i + np.searchsorted(np.asarray(ends), w_end, side="left"))
+        starts = [0] + ends[:-1]
+        kept = np.arange(0, ends[-1] // n, every)
+        for c in range(0, len(kept), chunk_windows):
+            wins = kept[c:c + chunk_windows]
+            w_end = (wins + 1) * n
+            spans = [(wins[0] * n, w_end[-1])] if every == 1 else [(a * n, (a + 1) * n) for a in wins.tolist()]
+            pieces = [(i + r, max(lo, starts[r]) - starts[r], min(hi, ends[r]) - starts[r])
+                      for lo, hi in spans for r in range(len(ends)) if starts[r] < hi and ends[r] > lo]
+            plans.append(ChunkPlan(w0, t0 + w_end / fs, i + np.searchsorted(np.asarray(ends), w_end, side="left"),
+                                   pieces))
+            w0 += len(wins)
         i = j
-    if not recs:
-        raise EdgevibError("no recordings to replay")
-    if not blocks:
+    if not plans:
         raise EdgevibError(f"{recs[0].path}: the stream is shorter than one window of {n} samples")
-    stacked = np.concatenate(blocks) if len(blocks) > 1 else blocks[0]
-    step = _CHUNK_WINDOWS * n
-    feats = np.concatenate([twin.features(stacked[k:k + step]) for k in range(0, len(stacked), step)])
-    return StreamFeatures(feats, np.concatenate(times), np.concatenate(owner))
+    return plans
+
+
+def read_chunk(recs: Sequence[Any], plan: ChunkPlan) -> np.ndarray:
+    """The int16 counts (frames x axes) of one chunk, read from its recordings."""
+    parts = [recs[r].read_counts(a, b) for r, a, b in plan.pieces]
+    return parts[0] if len(parts) == 1 else np.concatenate(parts)
+
+
+def feature_chunks(recs: Sequence[Any], twin: FeatureTwin, jobs: int = 1,
+                   chunk_windows: int = CHUNK_WINDOWS, every: int = 1) -> Iterator[StreamFeatures]:
+    """Features of a stream chunk by chunk, in stream order.
+
+    jobs > 1: the chunks' features are computed in that many worker processes, at most 2 * jobs
+    chunks in flight (memory stays bounded), and handed back in order. Each window depends only
+    on its own samples, so the result is the same for every jobs and chunk_windows."""
+    plans = plan_chunks(recs, twin.n, float(twin.cfg.fs_hz), chunk_windows, every)
+    if jobs <= 1:
+        for pl in plans:
+            yield StreamFeatures(twin.features(read_chunk(recs, pl)), pl.t_s, pl.rec)
+        return
+    with ProcessPoolExecutor(max_workers=jobs, initializer=_worker_twin, initargs=(twin.cfg, twin.axes)) as pool:
+        pending: deque = deque()
+        for pl in plans:
+            pending.append((pool.submit(_worker_features, read_chunk(recs, pl)), pl))
+            if len(pending) >= 2 * jobs:
+                fut, done = pending.popleft()
+                yield StreamFeatures(fut.result(), done.t_s, done.rec)
+        while pending:
+            fut, done = pending.popleft()
+            yield StreamFeatures(fut.result(), done.t_s, done.rec)
+
+
+_TWIN: FeatureTwin | None = None
+
+
+def _worker_twin(cfg: TwinConfig, axes: int) -> None:
+    global _TWIN
+    _TWIN = FeatureTwin(cfg, axes)
+
+
+def _worker_features(counts: np.ndarray) -> np.ndarray:
+    assert _TWIN is not None
+    return _TWIN.features(counts)
+
+
+def stream_features(recs: Sequence[Any], twin: FeatureTwin, every: int = 1) -> StreamFeatures:
+    """Features of every analysed window of a stream at once (feature_chunks, joined): for
+    training and tests, which need them all. every: the board's analyse_every (plan_chunks)."""
+    parts = list(feature_chunks(recs, twin, every=every))
+    return StreamFeatures(np.concatenate([p.feats for p in parts]), np.concatenate([p.t_s for p in parts]),
+                          np.concatenate([p.rec for p in parts]))
 
 
 # --- stepping the device detector ---------------------------------------------------------------
@@ -238,16 +313,21 @@ def physical_columns(feats: np.ndarray, params: dict, scale: float, axis_names: 
 
 # --- results ------------------------------------------------------------------------------------
 
+TRACK_COLUMNS = ("recording", "t_s", "state", "score", "mode", "velocity_rms_mm_s")
+
+
 @dataclass
 class ReplayResult:
     """Replay of one or more streams.
 
     sample_rate_hz: the set's rate. streams: stream names (folder or file names), in input order.
-    events: dicts {stream, t_s, from, to, reason, mode, feature, score}, per stream in time order
-    (score in spreads, score_q8 / 256; mode and feature None when none).
+    events: dicts {stream, t_s, recording, offset_s, from, to, reason, mode, feature, score}, per
+    stream in time order (recording: the path of the file the window ends in, offset_s: the window's
+    end in it, s; score in spreads, score_q8 / 256; mode and feature None when none).
     windows: one column per key, one row per window of every stream: stream (index into streams),
     recording (path), t_s, state (name), score (spreads), mode (-1 none), feature (name or ""),
-    then physical_columns(). summary: {"streams": {name: summary}, "total": summary}.
+    then physical_columns(); with keep_windows=False only stream and TRACK_COLUMNS.
+    summary: {"streams": {name: summary}, "total": summary}.
     recordings: per stream, the recording paths in the order replayed.
     """
 
@@ -262,6 +342,137 @@ class ReplayResult:
         """What OUT.json holds: sample_rate_hz, streams, events and summary."""
         return {"sample_rate_hz": self.sample_rate_hz, "streams": self.streams, "events": self.events,
                 "summary": self.summary}
+
+
+@dataclass
+class ReplayChunk:
+    """What the detector did over one chunk of a stream: the chunk's features (StreamFeatures),
+    the detector's per-window results (Steps; window w of the stream is steps row w - first_w) and
+    the events raised in it (dicts as in ReplayResult.events)."""
+
+    stream: "StreamReplay"
+    features: StreamFeatures
+    steps: Steps
+    events: list[dict[str, Any]]
+
+    def columns(self, names: Sequence[str] | None = None) -> dict[str, np.ndarray]:
+        """The chunk's per-window columns (ReplayResult.windows without stream), or only `names`."""
+        sr, sf, st = self.stream, self.features, self.steps
+        cols: dict[str, Callable[[], np.ndarray]] = {
+            "recording": lambda: np.array(sr.paths, dtype=object)[sf.rec],
+            "t_s": lambda: sf.t_s,
+            "state": lambda: np.array(al.STATE_NAMES, dtype=object)[st.state],
+            "score": lambda: st.score_q8 / 256.0,
+            "mode": lambda: st.mode.astype(np.int64),
+            "feature": lambda: np.array(sr.feature_names + [""], dtype=object)[st.feat],
+        }
+        out = {k: f() for k, f in cols.items() if names is None or k in names}
+        phys = physical_columns(sf.feats, sr.params, sr.m_s2_per_count, sr.axis_names)
+        out.update((k, v) for k, v in phys.items() if names is None or k in names)
+        if names is None or "not_scored" in names:
+            out["not_scored"] = np.array(WHY_NAMES, dtype=object)[st.why]
+        if names is None or "speed_hz" in names:
+            out["speed_hz"] = st.speed_q8 / 256.0
+        return out
+
+
+class StreamReplay:
+    """One stream (one gateway's recordings) through one device Detector, chunk by chunk.
+
+        sr = StreamReplay(source, params, profile, name)
+        for chunk in sr.chunks(jobs=2):      # ReplayChunk, in time order; state carried across
+            chunk.events, chunk.columns()    # use and drop: nothing per window is kept here
+        sr.events, sr.summary()              # every event, and the stream's summary so far
+
+    source: Recording or RecordingFile objects of one gateway (sorted by t0_s here when all have
+    one), or a path or list of paths opened with host_tools.data.recording.open_stream at the
+    set's rate and scale. Memory: one chunk (CHUNK_WINDOWS windows) per job, whatever the length.
+    The results are the same for any jobs and chunk_windows as for one pass over the stream.
+    """
+
+    def __init__(self, source: Any, params: dict, profile: dict, name: str | None = None):
+        if _is_recordings(source):
+            recs = _ordered(source)
+        else:
+            recs = open_stream(source, expected_rate_hz=params["fs_hz"], m_s2_per_count=m_s2_per_count(params))
+        check_recordings(recs, params)
+        self.recs = recs
+        self.params = params
+        self.name = name if name is not None else stream_name(source)
+        self.twin = twin_for(params, profile)
+        self.every = int(profile["analyse_every"])
+        self.window_s = params["n"] * self.every / params["fs_hz"]     # time each analysed window stands for
+        self.n_windows = sum(len(p.t_s) for p in plan_chunks(recs, params["n"], float(params["fs_hz"]),
+                                                             every=self.every))
+        self.detector = Detector(params, self.every)
+        self.events: list[dict[str, Any]] = []
+        self.paths = [str(r.path) for r in recs]
+        self.axis_names = recs[0].axes
+        self.m_s2_per_count = recs[0].m_s2_per_count
+        self.feature_names = [feature_name(j, params, self.axis_names)
+                              for j in range(params["axes"] * fi.per_axis(len(params["fc_bands"])))]
+        self._state_windows = np.zeros(len(al.STATE_NAMES), np.int64)
+        self._why_windows = np.zeros(len(WHY_NAMES), np.int64)
+        self._pushed = 0
+        self._done = 0
+        self._t_first: float | None = None
+        self._t_last: float | None = None
+        self._lost = 0
+
+    def chunks(self, jobs: int = 1, chunk_windows: int = CHUNK_WINDOWS) -> Iterator[ReplayChunk]:
+        """Replay the stream, one ReplayChunk at a time (features of jobs chunks at once)."""
+        for sf in feature_chunks(self.recs, self.twin, jobs, chunk_windows, self.every):
+            yield self.step(sf)
+
+    def step(self, sf: StreamFeatures) -> ReplayChunk:
+        """Step the detector over the next windows of the stream (features in stream order)."""
+        first = self._done
+        steps = step_detector(self.detector, sf.feats, first)
+        p = self.params
+        events = []
+        for w, old, new, reason, mode, feat, score in steps.events:
+            t, r = float(sf.t_s[w - first]), self.recs[int(sf.rec[w - first])]
+            events.append({
+                "stream": self.name, "t_s": t, "recording": str(r.path), "offset_s": t - (r.t0_s or 0.0),
+                "from": al.STATE_NAMES[old], "to": al.STATE_NAMES[new], "reason": al.REASON_NAMES[reason],
+                "mode": mode if mode >= 0 else None,
+                "feature": feature_name(feat, p, self.axis_names) if feat >= 0 else None, "score": score / 256.0})
+        self.events.extend(events)
+        self._state_windows += np.bincount(steps.state.astype(np.int64), minlength=len(al.STATE_NAMES))
+        self._why_windows += np.bincount(steps.why.astype(np.int64), minlength=len(WHY_NAMES))
+        self._pushed += int(steps.pushed.sum())
+        self._done += len(sf.t_s)
+        if len(sf.t_s):
+            self._t_first = float(sf.t_s[0]) if self._t_first is None else self._t_first
+            self._t_last = float(sf.t_s[-1])
+        self._lost = int(steps.lost)
+        return ReplayChunk(self, sf, steps, events)
+
+    def summary(self) -> dict[str, Any]:
+        """The stream's summary (keys in the module docstring of host_tools.commands.replay)."""
+        ev = self.events
+        first = {to: next((e["t_s"] for e in ev if e["to"] == to), None) for to in ("alert", "alarm", "sensor_fault")}
+        raises = sum(e["to"] in ("alert", "alarm") and e["from"] not in ("alert", "alarm") for e in ev)
+        running_h = self._pushed * self.window_s / 3600.0
+        return {
+            "recordings": len(self.recs),
+            "windows": self._done,
+            "observed_s": float(self._done * self.window_s),
+            "running_h": running_h,
+            "t_first_s": self._t_first,
+            "t_last_s": self._t_last,
+            "windows_per_state": {name: int(self._state_windows[i]) for i, name in enumerate(al.STATE_NAMES)},
+            "windows_by_scoring": {name: int(self._why_windows[i]) for i, name in enumerate(WHY_NAMES)},
+            "alerts": sum(e["to"] == "alert" for e in ev),
+            "alarms": sum(e["to"] == "alarm" for e in ev),
+            "raises": raises,
+            "sensor_faults": sum(e["to"] == "sensor_fault" for e in ev),
+            "first_alert_t_s": first["alert"],
+            "first_alarm_t_s": first["alarm"],
+            "first_sensor_fault_t_s": first["sensor_fault"],
+            "events_lost": self._lost,
+            "promise": promise_check(raises, running_h, self.params),
+        }
 
 
 def promise_check(raises: int, running_h: float, params: dict) -> dict[str, Any] | None:
@@ -285,34 +496,6 @@ def promise_check(raises: int, running_h: float, params: dict) -> dict[str, Any]
             "expected_raises": rate * running_h / 720.0, "verdict": verdict}
 
 
-def _stream_summary(t_s: np.ndarray, steps: Steps, events: list[dict], n_recs: int, window_s: float,
-                    params: dict) -> dict:
-    counts = np.bincount(steps.state.astype(np.int64), minlength=len(al.STATE_NAMES))
-    why = np.bincount(steps.why.astype(np.int64), minlength=len(WHY_NAMES))
-    first = {to: next((e["t_s"] for e in events if e["to"] == to), None) for to in ("alert", "alarm", "sensor_fault")}
-    raises = sum(e["to"] in ("alert", "alarm") and e["from"] not in ("alert", "alarm") for e in events)
-    running_h = float(steps.pushed.sum()) * window_s / 3600.0
-    return {
-        "recordings": n_recs,
-        "windows": int(len(t_s)),
-        "observed_s": float(len(t_s) * window_s),
-        "running_h": running_h,
-        "t_first_s": float(t_s[0]) if len(t_s) else None,
-        "t_last_s": float(t_s[-1]) if len(t_s) else None,
-        "windows_per_state": {name: int(counts[i]) for i, name in enumerate(al.STATE_NAMES)},
-        "windows_by_scoring": {name: int(why[i]) for i, name in enumerate(WHY_NAMES)},
-        "alerts": sum(e["to"] == "alert" for e in events),
-        "alarms": sum(e["to"] == "alarm" for e in events),
-        "raises": raises,
-        "sensor_faults": sum(e["to"] == "sensor_fault" for e in events),
-        "first_alert_t_s": first["alert"],
-        "first_alarm_t_s": first["alarm"],
-        "first_sensor_fault_t_s": first["sensor_fault"],
-        "events_lost": int(steps.lost),
-        "promise": promise_check(raises, running_h, params),
-    }
-
-
 def _total(summaries: list[dict], params: dict) -> dict:
     out: dict[str, Any] = {"streams": len(summaries)}
     for key in ("recordings", "windows", "alerts", "alarms", "raises", "sensor_faults", "events_lost"):
@@ -321,106 +504,91 @@ def _total(summaries: list[dict], params: dict) -> dict:
     out["running_h"] = sum(s["running_h"] for s in summaries)
     out["windows_per_state"] = {name: sum(s["windows_per_state"][name] for s in summaries) for name in al.STATE_NAMES}
     out["windows_by_scoring"] = {name: sum(s["windows_by_scoring"][name] for s in summaries) for name in WHY_NAMES}
-    for key in ("first_alert_t_s", "first_alarm_t_s", "first_sensor_fault_t_s"):
+    for key in ("t_first_s", "first_alert_t_s", "first_alarm_t_s", "first_sensor_fault_t_s"):
         vals = [s[key] for s in summaries if s[key] is not None]
         out[key] = min(vals) if vals else None
+    vals = [s["t_last_s"] for s in summaries if s["t_last_s"] is not None]
+    out["t_last_s"] = max(vals) if vals else None
     out["promise"] = promise_check(out["raises"], out["running_h"], params)
     return out
-
-
-def replay_stream(recs: Sequence[Recording], params: dict, profile: dict, name: str = "stream") -> dict[str, Any]:
-    """Replay one stream (recordings of one gateway in t0_s order) with a fresh Detector.
-
-    Returns {"name", "events", "windows", "summary", "recordings"} (the parts of a ReplayResult)."""
-    check_recordings(recs, params)
-    every = profile["analyse_every"]
-    sf = stream_features(recs, twin_for(params, profile), every)
-    det = Detector(params, every)
-    steps = step_detector(det, sf.feats)
-    axis_names = recs[0].axes
-    events = [{
-        "stream": name, "t_s": float(sf.t_s[w]), "from": al.STATE_NAMES[old], "to": al.STATE_NAMES[new],
-        "reason": al.REASON_NAMES[reason], "mode": mode if mode >= 0 else None,
-        "feature": feature_name(feat, params, axis_names) if feat >= 0 else None, "score": score / 256.0,
-    } for w, old, new, reason, mode, feat, score in steps.events]
-    names = [feature_name(j, params, axis_names) for j in range(params["axes"] * fi.per_axis(len(params["fc_bands"])))]
-    paths = [str(r.path) for r in recs]
-    windows = {
-        "recording": np.array(paths, dtype=object)[sf.rec],
-        "t_s": sf.t_s,
-        "state": np.array(al.STATE_NAMES, dtype=object)[steps.state],
-        "score": steps.score_q8 / 256.0,
-        "mode": steps.mode.astype(np.int64),
-        "feature": np.array(names + [""], dtype=object)[steps.feat],
-    }
-    windows.update(physical_columns(sf.feats, params, recs[0].m_s2_per_count, axis_names))
-    window_s = params["n"] * every / params["fs_hz"]
-    windows["not_scored"] = np.array(WHY_NAMES, dtype=object)[steps.why]
-    windows["speed_hz"] = steps.speed_q8 / 256.0
-    return {"name": name, "events": events, "windows": windows, "recordings": paths,
-            "summary": _stream_summary(sf.t_s, steps, events, len(recs), window_s, params)}
-
-
-def _replay_worker(source: Any, params: dict, profile: dict, name: str) -> dict[str, Any]:
-    """Read (if given paths) and replay one stream; runs in a worker process."""
-    if not (isinstance(source, (list, tuple)) and source and all(isinstance(r, Recording) for r in source)):
-        source = read_stream(source, expected_rate_hz=params["fs_hz"], m_s2_per_count=m_s2_per_count(params))
-    return replay_stream(source, params, profile, name)
 
 
 def stream_name(source: Any) -> str:
     """A stream's name: its folder, or its first file's stem (with its folder) for files."""
     first = source[0] if isinstance(source, (list, tuple)) else source
-    p = Path(first.path if isinstance(first, Recording) else first)
+    p = Path(first.path if hasattr(first, "path") else first)
     base = p.name if p.is_dir() else p.stem
     return f"{p.parent.name}/{base}" if p.parent.name else base
 
 
+def replay_stream(recs: Sequence[Any], params: dict, profile: dict, name: str = "stream") -> dict[str, Any]:
+    """Replay one stream with a fresh Detector, keeping every per-window column.
+
+    Returns {"name", "events", "windows", "summary", "recordings"} (the parts of a ReplayResult)."""
+    sr = StreamReplay(recs, params, profile, name)
+    parts = [ch.columns() for ch in sr.chunks()]
+    windows = {k: np.concatenate([c[k] for c in parts]) for k in parts[0]}
+    return {"name": name, "events": sr.events, "windows": windows, "recordings": sr.paths,
+            "summary": sr.summary()}
+
+
+def stream_names(streams: Sequence[Any]) -> list[str]:
+    """Distinct names of streams (stream_name, with #2, #3, ... for repeats)."""
+    return _unique([stream_name(s) for s in streams])
+
+
 def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, progress: bool = False,
-           names: Sequence[str] | None = None) -> ReplayResult:
+           names: Sequence[str] | None = None, keep_windows: bool = True,
+           on_chunk: Callable[[int, ReplayChunk], None] | None = None,
+           chunk_windows: int = CHUNK_WINDOWS) -> ReplayResult:
     """Replay every stream with the device detector; see the module docstring.
 
-    streams: each a sequence of Recording (one gateway, any order: sorted by t0_s here when all
-    have one), or a path or list of paths read with host_tools.data.recording.read_stream at the
-    set's rate and scale. jobs > 1 replays streams in that many processes (1: in this process).
-    progress: a tqdm bar over finished streams (the caller decides, e.g. only on a terminal).
+    streams: each a source as StreamReplay takes it. The streams replay one after another; jobs > 1
+    computes the features of that many chunks of a stream at once in worker processes, so one long
+    stream uses every core. progress: a bar or progress lines by windows (host_tools.progress).
+    keep_windows: keep every per-window column (False: only TRACK_COLUMNS, about 30 bytes a window,
+    for plots). on_chunk(stream index, chunk) is called with every chunk in order, e.g. to write
+    rows out as they come. chunk_windows: windows per chunk (the results do not depend on it).
     """
     if not streams:
         raise EdgevibError("no recordings to replay")
-    pm.build(params, profile)  # refuse a set that the device could not build, before any work
-    names = list(names) if names is not None else _unique([stream_name(s) for s in streams])
-    srcs = [_ordered(s) for s in streams]
-    jobs = max(1, min(jobs, len(srcs)))
-    parts: list[dict | None] = [None] * len(srcs)
-    bar = _bar(len(srcs)) if progress else None
-    if jobs == 1:
-        for i, s in enumerate(srcs):
-            parts[i] = _replay_worker(s, params, profile, names[i])
-            if bar is not None:
-                bar.update(1)
-    else:
-        with ProcessPoolExecutor(max_workers=jobs) as pool:
-            futs = {pool.submit(_replay_worker, s, params, profile, names[i]): i for i, s in enumerate(srcs)}
-            for fut in as_completed(futs):
-                parts[futs[fut]] = fut.result()
-                if bar is not None:
-                    bar.update(1)
-    if bar is not None:
-        bar.close()
-    done = [p for p in parts if p is not None]
-    keys = list(done[0]["windows"])
-    for p in done[1:]:
-        if list(p["windows"]) != keys:
-            raise EdgevibError(f"stream {p['name']}: axis names differ from stream {done[0]['name']}; replay them separately")
-    windows = {"stream": np.concatenate([np.full(len(p["windows"]["t_s"]), i) for i, p in enumerate(done)])}
+    try:
+        pm.build(params, profile)  # refuse a set that the device could not build, before any work
+    except ValueError as e:
+        raise EdgevibError(f"the parameter set cannot be built for board {profile['name']}: {e}") from None
+    names = list(names) if names is not None else stream_names(streams)
+    runs = [StreamReplay(s, params, profile, names[i]) for i, s in enumerate(streams)]
+    for r in runs[1:]:
+        if r.axis_names != runs[0].axis_names:
+            raise EdgevibError(f"stream {r.name}: axis names differ from stream {runs[0].name}; replay them separately")
+    parts: list[dict[str, list[np.ndarray]]] = []
+    with progress_bar(sum(r.n_windows for r in runs), "windows", "replay", enabled=progress) as bar:
+        for i, r in enumerate(runs):
+            cols: dict[str, list[np.ndarray]] = {}
+            for ch in r.chunks(jobs=jobs, chunk_windows=chunk_windows):
+                got = ch.columns(None if keep_windows else TRACK_COLUMNS)
+                for k, v in got.items():
+                    cols.setdefault(k, []).append(v)
+                if on_chunk is not None:
+                    on_chunk(i, ch)
+                bar.update(len(ch.features.t_s))
+            parts.append(cols)
+    return assemble(runs, parts)
+
+
+def assemble(runs: Sequence[StreamReplay], parts: Sequence[dict[str, list[np.ndarray]]]) -> ReplayResult:
+    """The ReplayResult of streams replayed to the end: runs, and per run its chunks' columns
+    (column name -> the chunks' arrays in order, as ReplayChunk.columns gives them)."""
+    keys = list(parts[0]) if parts else []
+    windows = {"stream": np.concatenate([np.full(r.n_windows, i) for i, r in enumerate(runs)])}
     for k in keys:
-        windows[k] = np.concatenate([p["windows"][k] for p in done])
-    summaries = [p["summary"] for p in done]
+        windows[k] = np.concatenate([v for p in parts for v in p[k]])
+    summaries = [r.summary() for r in runs]
     return ReplayResult(
-        sample_rate_hz=float(params["fs_hz"]), streams=names,
-        events=[e for p in done for e in p["events"]], windows=windows,
-        summary={"streams": {p["name"]: p["summary"] for p in done}, "total": _total(summaries, params)},
-        recordings=[p["recordings"] for p in done])
+        sample_rate_hz=float(runs[0].params["fs_hz"]), streams=[r.name for r in runs],
+        events=[e for r in runs for e in r.events], windows=windows,
+        summary={"streams": {r.name: sm for r, sm in zip(runs, summaries)}, "total": _total(summaries, runs[0].params)},
+        recordings=[r.paths for r in runs])
 
 
 def group_sources(paths: Sequence[str | os.PathLike]) -> list[list[Path]]:
@@ -431,12 +599,15 @@ def group_sources(paths: Sequence[str | os.PathLike]) -> list[list[Path]]:
     return folders + ([files] if files else [])
 
 
-def _ordered(source: Any) -> Any:
-    if isinstance(source, (list, tuple)) and source and all(isinstance(r, Recording) for r in source):
-        if len(source) > 1 and all(r.t0_s is not None for r in source):
-            return sorted(source, key=lambda r: r.t0_s)
-        return list(source)
-    return source
+def _is_recordings(source: Any) -> bool:
+    return isinstance(source, (list, tuple)) and bool(source) and all(isinstance(r, (Recording, RecordingFile))
+                                                                      for r in source)
+
+
+def _ordered(recs: Sequence[Any]) -> list[Any]:
+    if len(recs) > 1 and all(r.t0_s is not None for r in recs):
+        return sorted(recs, key=lambda r: r.t0_s)
+    return list(recs)
 
 
 def _unique(names: list[str]) -> list[str]:
@@ -448,11 +619,6 @@ def _unique(names: list[str]) -> list[str]:
     return out
 
 
-def _bar(total: int):
-    from tqdm import tqdm
-    return tqdm(total=total, unit="stream", file=sys.stderr)
-
-
 def default_jobs() -> int:
     """Worker processes by default: the cores this process may use."""
     try:
@@ -461,15 +627,27 @@ def default_jobs() -> int:
         return os.cpu_count() or 1
 
 
-def windows_csv(result: ReplayResult) -> str:
-    """One row per window: stream (name), then every per-window column of the result."""
-    cols = {k: v for k, v in result.windows.items() if k != "stream"}
+def csv_header(cols: dict[str, np.ndarray]) -> str:
+    """The header row of a windows CSV: stream, then the columns' names."""
+    return ",".join(["stream", *cols]) + "\n"
+
+
+def csv_rows(stream: str, cols: dict[str, np.ndarray]) -> str:
+    """CSV rows (no header) of per-window columns of one stream, stream name first."""
     buf = io.StringIO()
     out = csv.writer(buf, lineterminator="\n")
-    out.writerow(["stream", *cols])
-    names = np.array(result.streams, dtype=object)[result.windows["stream"]]
-    data = [names.tolist()] + [v.tolist() for v in cols.values()]
     fmt = ["{}"] + ["{:.3f}" if k == "t_s" else "{:.6g}" for k in cols]   # t_s: ms on a Unix clock
+    data = [[stream] * len(cols["t_s"])] + [v.tolist() for v in cols.values()]
     for row in zip(*data):
         out.writerow([f.format(v) if isinstance(v, float) else v for f, v in zip(fmt, row)])
     return buf.getvalue()
+
+
+def windows_csv(result: ReplayResult) -> str:
+    """One row per window: stream (name), then every per-window column of the result."""
+    cols = {k: v for k, v in result.windows.items() if k != "stream"}
+    parts = [csv_header(cols)]
+    for i, name in enumerate(result.streams):
+        mine = result.windows["stream"] == i
+        parts.append(csv_rows(name, {k: v[mine] for k, v in cols.items()}))
+    return "".join(parts)
