@@ -39,7 +39,7 @@ def _status(flat):
 
 
 def test_monitor_and_report_name_a_feature_alike():
-    view = View(board="desk", fw="t", port="loop", version=1, axes=3, scale=units.m_s2_per_count(P),
+    view = View(board="desk", fw="t", port="loop", version=1, crc=0, axes=3, scale=units.m_s2_per_count(P),
                 alert_q8=None, alarm_q8=None, params=P)
     for flat in (PA + fi.F_VEL, 2 * PA + fi.F_BAND0 + 1, fi.F_BAND0):
         name = _expected(flat)

@@ -4,7 +4,7 @@ import json
 import numpy as np
 import pytest
 
-from host_tools.report.scorecard import render_text, score_history, scorecard
+from host_tools.fit.scorecard import render_text, score_history, scorecard
 
 T0 = 1_000_000.0
 DAY = 86400.0

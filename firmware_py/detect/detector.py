@@ -623,6 +623,9 @@ class Detector:
                 self._set(self._base_state(), al.R_STOPPED)
             return self.state
         self.running = True
+        # the ISO zone on every running window, so status shows it during the hold-off too; the
+        # guard acts on it only past the start (below)
+        self.zone = zone_of(vel, self.iso)
         if self.run_w < _BIG:
             self.run_w += 1
         self._operating_point(f)
@@ -639,8 +642,6 @@ class Detector:
             self.starting = False
             if not self.learning:
                 self._set(self._base_state(), al.R_STARTED)
-        # the ISO guard: the same largest axis velocity, on every running window past the start
-        self.zone = zone_of(vel, self.iso)
         if self.learning:
             self._learn_step(f, vf, st)
             return self.state

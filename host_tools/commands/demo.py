@@ -9,7 +9,7 @@ seeded faults. Steps, as a technician and an engineer would take them:
    next (host_tools.twin.replay), and write DIR/<pump>/params.msgpack, params.json, events.json,
    windows.csv and the report DIR/<pump>/report/index.html (host_tools.report.replay_report);
 5. print per pump the alerts raised outside the seeded faults and when each fault was first seen;
-6. the scorecard (host_tools.report.scorecard): the detector judged on the invented Fenmoor
+6. the scorecard (host_tools.fit.scorecard): the detector judged on the invented Fenmoor
    evaluation histories (host_tools.data.scenarios, at the scale --evaluation names): trained on
    each machine's healthy history, replayed on histories with daily restarts, five machine faults
    and three sensor faults; false alerts per 30 days, delays from "clearly visible", sensor faults
@@ -127,10 +127,10 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
 def scorecard_lines(work: Path, final: Path, scale: str, jobs: int | None) -> list[str]:
     """Write the evaluation histories at `scale` into work/scenarios, train, replay and score them;
     write work/scorecard.json and .txt; return the printed lines."""
-    from host_tools.commands.train import load_board
+    from host_tools.data.files import load_board
     from host_tools.data import scenarios as sc
     from host_tools.ops.evaluate import evaluate_suite, to_json
-    from host_tools.report.scorecard import render_text
+    from host_tools.fit.scorecard import render_text
     j = max(1, min(jobs or (os.cpu_count() or 1), os.cpu_count() or 1))
     suite = sc.write_suite(work / "scenarios", scale=scale, jobs=j)
     card, _ = evaluate_suite(suite, load_board(None), jobs=j,

@@ -2,7 +2,7 @@
 replay every other history through the device detector, score the events against the truth.
 
 `evaluate_suite(suite_json, profile, jobs=1, progress=False, label="")` -> (card, scored):
-card from host_tools.report.scorecard.scorecard, scored the per-history figures. The suite is what
+card from host_tools.fit.scorecard.scorecard, scored the per-history figures. The suite is what
 host_tools.data.scenarios.write_suite wrote (suite.json beside one folder per history). Training
 is host_tools.fit.training.train with its defaults (1 false alert per 30 days); replay is
 host_tools.twin.replay.replay, one stream per history, each with a fresh detector.
@@ -42,7 +42,7 @@ def _train_machine(folder: Path, profile: dict) -> tuple[dict, dict]:
 def evaluate_suite(suite_json: str | os.PathLike, profile: dict, jobs: int = 1, progress: bool = False,
                    label: str = "") -> tuple[dict[str, Any], list[dict[str, Any]]]:
     """Train, replay and score every history of the suite (see the module docstring)."""
-    from host_tools.report.scorecard import score_history, scorecard
+    from host_tools.fit.scorecard import score_history, scorecard
     from host_tools.twin.replay import replay
     root = Path(suite_json).parent
     suite = json.loads(Path(suite_json).read_text())
