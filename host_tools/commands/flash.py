@@ -12,6 +12,8 @@ from __future__ import annotations
 import argparse
 import time
 
+import msgpack
+
 import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import build_image
 from host_tools.data.files import load_body
