@@ -114,7 +114,7 @@ def test_trained_idle_floor_tells_stopped_from_running_on_the_training_days(demo
     # window of a stopped snapshot (sidecar rpm 0) idle, and almost no running one (rpm > 0) idle
     # for being under the floor. The slowest duty point, 890 r/min, reads barely above the sensor
     # noise in acceleration, so this fails with a floor on acceleration. Running windows may also
-    # be idle in the start-up hold-off (at most det_startup_n - 1 per start), by design.
+    # be idle in the start-up hold-off (at most det_hold_max_ms of windows per start), by design.
     import numpy as np
 
     from firmware_py.detect import alarm as al
@@ -145,7 +145,8 @@ def test_trained_idle_floor_tells_stopped_from_running_on_the_training_days(demo
         starts += 1 + sum(1 for e in steps.events if e[3] == al.R_STARTED)   # and the first window
     assert stopped > 0 and slow > 0
     assert under <= 0.01 * running
-    assert held <= (params["det_startup_n"] - 1) * starts
+    # at most the hold-off's guard per start: det_hold_max_ms of running time in windows
+    assert held <= al.windows_for(params["det_hold_max_ms"], params["n"], params["fs_hz"], 1) * starts
 
 
 def test_bad_out_is_one_line_and_exit_2(tmp_path, capsys):
