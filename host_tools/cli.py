@@ -33,6 +33,7 @@ COMMANDS = {
     "rollback": "rollback",
     "ack": "ack",
     "learn": "learn",
+    "fleet": "fleet",
 }
 
 

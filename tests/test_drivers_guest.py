@@ -1,10 +1,11 @@
-"""The drivers' read paths on a real MicroPython (1.27, host_tools.twin.mpy_guest): allocation-free
+"""The drivers' read paths on both real MicroPythons (tests/engines.py): allocation-free
 under heap_lock with the chip models behind the bus, samples exact, overrun counted; and their
 cost per FIFO block in guest fuel (deterministic), with a minimal bus so the models' own cost
 is left out."""
 import pytest
 
 from tests import chip_support
+from tests.engines import ENGINES
 from host_tools.twin.mpy_guest import run_guest
 
 chip_support.stage_models_in_guest()
@@ -57,9 +58,10 @@ emit([ok_all, exact, k, m.dropped, d.gaps.lost, d.gaps.overruns])
 """
 
 
+@ENGINES
 @pytest.mark.parametrize("setup", [_ADXL, _IIS], ids=["adxl345", "iis3dwb"])
-def test_read_path_allocates_nothing_and_is_exact_on_micropython(setup):
-    res = run_guest(setup + _RUN)
+def test_read_path_allocates_nothing_and_is_exact_on_micropython(setup, run):
+    res = run(setup + _RUN)
     ok, exact, frames, dropped, lost, overruns = res.out[0]
     assert ok, "read_into allocated under heap_lock"
     assert exact and frames > 0

@@ -322,6 +322,16 @@ def test_events_are_the_windows_that_raised_them(tmp_path, capsys):
         rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--out", tmp_path / "ev")
         assert rc == 0 and "pulled 1 event snapshot" in out
         on_device = {e["id"]: e for e in vg.gateway.snapshots.list()}
+        # filed into a fleet folder instead: the same files in the gateway's captures/
+        fleet = tmp_path / "fleet"
+        assert run_cli(capsys, "fleet", "init", fleet, "--gateway", "gw1", "--pump", "P-101", "--site", "Brackwater",
+                       "--board", "desk")[0] == 0
+        rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--fleet", fleet, "--gateway", "gw1")
+        assert rc == 0 and "pulled" in out and str(fleet / "gw1" / "captures") in out
+        rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--fleet", fleet, "--gateway", "gw2")
+        assert rc == 2 and _one_line(err) and "gw2" in err
+    filed = sorted((fleet / "gw1" / "captures").glob("*.wav"))
+    assert filed and all(p.read_bytes() == (tmp_path / "ev" / p.name).read_bytes() for p in filed)
     wavs = sorted((tmp_path / "ev").glob("*.wav"))
     assert [p.name for p in wavs] == ["event_00000_alarm.wav"]
     core = params_mod.feature_core(params_mod.factory(PROFILE), PROFILE)

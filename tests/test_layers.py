@@ -12,10 +12,10 @@ from pathlib import Path
 ROOT = Path(__file__).parent.parent
 
 # rank of each room: a module may import its own room or any room of a LOWER rank
-FIRMWARE_LAYERS = {"_host_micropython": 0, "codec": 0, "dsp": 0, "drivers": 0,
+FIRMWARE_LAYERS = {"viper_stand": -1, "_host_micropython": 0, "codec": 0, "dsp": 0, "drivers": 0,
                    "detect": 1, "store": 1, "link": 2, "run": 3}
 HOST_LAYERS = {"errors": 0, "progress": 0, "data": 1, "link": 2, "twin": 2, "fit": 3, "check": 3,
-               "report": 4, "ops": 4, "commands": 5, "cli": 6}
+               "report": 4, "ops": 4, "fleet": 5, "commands": 6, "cli": 7}
 LAYERS = {"firmware_py": FIRMWARE_LAYERS, "host_tools": HOST_LAYERS}
 RANK = {"firmware_py": 0, "host_tools": 1}   # the host may import the device core, never the reverse
 

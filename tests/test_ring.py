@@ -4,7 +4,7 @@ import array
 import numpy as np
 
 from firmware_py.dsp.ring import SampleRing
-from host_tools.twin.mpy_guest import run_guest
+from tests.engines import ENGINES
 
 
 def _push(ring, frames_xyz):
@@ -43,8 +43,9 @@ def test_full_ring_counts_dropped_frames_and_keeps_unprocessed_windows():
     assert np.array_equal(np.array(ring.window(0)), np.full(32, 9))
 
 
-def test_push_is_allocation_free_on_micropython():
-    res = run_guest("""
+@ENGINES
+def test_push_is_allocation_free_on_micropython(run):
+    res = run("""
 import array
 from firmware_py.dsp.ring import SampleRing
 ring = SampleRing(3, 64, 2)
@@ -52,8 +53,11 @@ src = array.array('h', range(-48, 48))
 def fill():
     return ring.push(src, 32)
 emit([locked(fill), locked(fill), locked(fill), locked(fill), locked(fill), ring.dropped])
+emit([list(ring.window(a)) for a in range(3)])
 """)
     *pushes, dropped = res.out[0]
     assert all(ok for ok, _ in pushes)
     assert [lost for _, lost in pushes] == [0, 0, 0, 0, 32]
     assert dropped == 32
+    # the oldest window holds the first 64 frames, de-interleaved (src[3 * f + a] = 3f + a - 48)
+    assert res.out[1] == [[3 * (f % 32) + a - 48 for f in range(64)] for a in range(3)]

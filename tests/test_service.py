@@ -10,6 +10,7 @@ from firmware_py.store.paramstore import ParamStore, build_image
 from firmware_py.link.service import Service
 from firmware_py.store.snapshots import SnapshotRing
 from host_tools.twin.mpy_guest import run_guest
+from tests.engines import ENGINES
 
 BOARD = dict(board="p101-gw", fs_hz=3200, n=256, axes=3)
 
@@ -341,7 +342,8 @@ svc = Service(gw, out.append, 1024, 1024)
 '''
 
 
-def test_micropython_replies_byte_identical():
+@ENGINES
+def test_micropython_replies_byte_identical(run):
     img = build_image(body(7))
     reqs = canned(img)
     ps = ParamStore("/nonexistent-edgevib", factory=body(0), cap=4096, **BOARD)
@@ -353,7 +355,7 @@ def test_micropython_replies_byte_identical():
         out.clear()
         svc.receive(f)
         host.append(b"".join(out).hex())
-    res = run_guest(GUEST_SETUP.replace("FACTORY", repr(body(0))) + f'''
+    res = run(GUEST_SETUP.replace("FACTORY", repr(body(0))) + f'''
 for f in {[f.hex() for f in reqs]!r}:
     out.clear()
     svc.receive(bytes.fromhex(f))

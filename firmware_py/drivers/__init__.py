@@ -3,8 +3,12 @@ bookkeeping the drivers share, and the factory that opens the sensor a board pro
 Everything a read touches is allocated in a constructor; reads allocate nothing, so a driver's
 read_into() may run under micropython.heap_lock() or from a hard timer callback.
 
-Entry points: I2CRegs, SPIRegs, GapCounter, mean_frames(), open_sensor(), driver_module()."""
+Entry points: I2CRegs, SPIRegs, GapCounter, unpack_words() (the viper FIFO decode both drivers
+use), mean_frames(), open_sensor(), driver_module()."""
+import micropython
 from micropython import const
+
+from firmware_py.viper_stand import ptr8, ptr16
 
 _TICKS_MASK = const(0x3FFFFFFF)   # MicroPython ticks wrap at 2**30 (time.ticks_* docs)
 _MAX_GAP_US = const(60_000_000)   # gaps longer than this are clamped: 16 * gap stays < 2**30
@@ -127,6 +131,26 @@ class GapCounter:
     def taken(self, frames):
         """Record frames taken out of the FIFO since the last status read."""
         self._left -= frames
+
+
+@micropython.viper
+def unpack_words(src, words: int, size: int, first: int, count: int, tag: int, out, i: int) -> int:
+    """Decode a FIFO burst: for each of `words` words of `size` bytes in src (bytearray) whose
+    tag (first byte >> 3) equals tag, or every word if tag < 0, the `count` little-endian
+    two's-complement int16 samples from its byte `first` on go to out[i], out[i + 1], ...
+    (array('h'), counts as the chip gives them). Returns the next i."""
+    b = ptr8(src)
+    o = ptr16(out)
+    w = 0
+    for _ in range(words):
+        if tag < 0 or (b[w] >> 3) == tag:
+            p = w + first
+            for _ in range(count):
+                o[i] = ((b[p] | (b[p + 1] << 8)) ^ 0x8000) - 0x8000    # sign-extend bit 15
+                i += 1
+                p += 2
+        w += size
+    return i
 
 
 def _sat_add(a, b):

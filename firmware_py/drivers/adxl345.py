@@ -6,7 +6,7 @@ Register map and bit names: ADXL345 Data Sheet, Rev. G, Table 19 "Register Map" 
 Entry points: rate_code(), range_code(), check_profile(), block_frames(), footprint_bytes(), ADXL345."""
 from micropython import const
 
-from firmware_py.drivers import GapCounter, mean_frames
+from firmware_py.drivers import GapCounter, mean_frames, unpack_words
 
 _DEVID = const(0x00)          # reads 0xE5
 _DEVID_VALUE = const(0xE5)
@@ -138,12 +138,7 @@ class ADXL345:
             # One frame per transaction: the FIFO pops when a read of the data registers ends
             # ("Retrieving Data from FIFO"), and reading past DATAZ1 reaches FIFO_CTL.
             regs.read_into(_DATAX0, buf)
-            p = 0
-            for _ in range(axes):
-                # little-endian two's complement: sign-extend bit 15
-                out[i] = ((buf[p] | (buf[p + 1] << 8)) ^ 0x8000) - 0x8000
-                i += 1
-                p += 2
+            i = unpack_words(buf, 1, 6, 0, axes, -1, out, i)    # x, y, z little-endian
         self.gaps.taken(n)
         return n
 

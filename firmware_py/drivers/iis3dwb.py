@@ -7,7 +7,7 @@ same names as ST's reference driver iis3dwb_reg.h (github.com/STMicroelectronics
 Entry points: fs_code(), counts_per_g(), check_profile(), block_frames(), footprint_bytes(), IIS3DWB."""
 from micropython import const
 
-from firmware_py.drivers import GapCounter, mean_frames
+from firmware_py.drivers import GapCounter, mean_frames, unpack_words
 
 _FIFO_CTRL1 = const(0x07)        # WTM[7:0]
 _FIFO_CTRL2 = const(0x08)        # bit 0 WTM8, bit 7 STOP_ON_WTM
@@ -156,14 +156,7 @@ class IIS3DWB:
         got = 0
         while level >= wm and got + wm <= room:
             regs.read_into(_FIFO_DATA_OUT_TAG, blk)
-            for w in range(0, _WORD * wm, _WORD):
-                if blk[w] >> 3 == _TAG_XL:
-                    p = w + 1
-                    for _ in range(axes):
-                        # little-endian two's complement: sign-extend bit 15
-                        out[i] = ((blk[p] | (blk[p + 1] << 8)) ^ 0x8000) - 0x8000
-                        i += 1
-                        p += 2
+            i = unpack_words(blk, wm, _WORD, 1, axes, _TAG_XL, out, i)   # accelerometer words
             level -= wm
             got += wm
         self.gaps.taken(got)

@@ -2,13 +2,16 @@
 of feature_index (scales documented there). All memory is allocated in the constructor; step()
 allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fixed-point.md).
 
-Per window and axis: one pass over the samples (statistics, stuck and zero runs, window and
-bit-reversed store), the FFT and power spectrum (fft), the moments and band powers (_finish),
+Per window and axis: one pass over the samples (statistics, stuck and zero runs: _scan), a
+second that normalises, windows and stores them bit-reversed (_shape), the FFT and power spectrum (fft), the moments and band powers (_finish),
 then the shaft speed (speed), the order amplitudes (orders) and the squared-envelope lines
 (envelope), each of which reads the spectrum the FFT left.
 
-Entry points: check_config(), footprint_bytes(), FeatureCore."""
+Entry points: check_config(), footprint_bytes(), FeatureCore. The per-sample passes (_scan,
+_shape) and the FFT stages are viper-compiled on the boards (firmware_py.viper_stand)."""
 import array
+
+import micropython
 from micropython import const
 
 from firmware_py.dsp import envelope, fft, orders, speed, tables
@@ -17,10 +20,21 @@ from firmware_py.dsp.feature_index import (
     F_SPEED_CONF, F_STUCK, F_VEL, F_ZERO, LOG2_ZERO_Q8, per_axis)
 from firmware_py.dsp.fixmath import div_pow2, log2_q8, msb, sqrt_pow2
 from firmware_py.dsp.ring import SampleRing, footprint_bytes as _ring_bytes
+from firmware_py.viper_stand import ptr16, ptr32
 
 Y_BITS = const(13)      # windows are normalised so the peak's top bit is bit 13: |y| <= 2**14
 _MIN_N = const(64)
 _MAX_N = const(4096)
+# Window sums in FeatureCore.st (array('i')), written by _scan and _shape
+_S_SUM = const(0)       # sum of counts, |.| <= 2**27
+_S_MAX = const(1)       # largest count
+_S_MIN = const(2)       # smallest count
+_S_CLIP = const(3)      # counts at or beyond the converter's full-scale codes
+_S_SQ = const(4)        # sum(y*y >> (L-1)) < 2**29
+_S_S4 = const(5)        # sum(round(y*y / 2**14)**2 >> L) < 2**28
+_S_STUCK = const(6)     # longest run of identical consecutive counts, samples
+_S_ZERO = const(7)      # longest run of counts exactly 0, samples (0: none)
+_S_LEN = const(8)
 
 
 def check_config(n, axes, fs_hz, bands, vel_lo_hz, vel_hi_hz, speed_lo_q8=0, speed_hi_q8=0,
@@ -51,6 +65,7 @@ def footprint_bytes(n, axes, ring_windows, n_bands):
     tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * 257 + 3 * (m + 1)   # trig, hann, pos, log2, vel
     tw_b = fft.twiddle_bytes(m)                                          # radix-4 twiddles
     work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
+    work_b += 4 * _S_LEN + 4 * n_bands                                   # window sums, band bins
     return (_ring_bytes(axes, n, ring_windows) + tables_b + tw_b + work_b
             + envelope.buffer_bytes(n))
 
@@ -82,13 +97,14 @@ class FeatureCore:
         self.vmant, self.vsh2, self.vel_exp = tables.velocity_weights(n, fs_hz, vel_lo_hz, vel_hi_hz)
         self.buf = array.array('i', bytes(4 * n))
         self.p = array.array('i', bytes(4 * (self.m + 1)))
-        pv = memoryview(self.p)
-        self.bands = [pv[b[0]:b[1]] for b in bands]
+        self.band_lo = array.array('H', [b[0] for b in bands])
+        self.band_hi = array.array('H', [b[1] for b in bands])
         self.n_bands = len(bands)
         # band mean square = 4/3 * 2**-2u * sum(p) (Hann power normalisation); 4/3 as log2, Q8
         self.log2_4_3_q8 = 512 - log2_q8(3, self.log2_q15)
         self.per = per_axis(self.n_bands)
         self.feats = array.array('i', bytes(4 * axes * self.per))
+        self.st = array.array('i', bytes(4 * _S_LEN))    # window sums, see _scan and _shape
         self.speed = speed.SpeedEstimator(n, fs_hz, speed_lo_q8, speed_hi_q8, self.p)
         self.orders = orders.OrderReader(vane, self.p, self.log2_q15)
         self.env = envelope.Envelope(n, fs_hz, env_band, bear_q12, speed_hi_q8, self.hann_q15,
@@ -104,6 +120,7 @@ class FeatureCore:
         self.ring.release()
         return True
 
+    @micropython.native
     def process(self):
         """As step(), but the window stays in the ring (ring.window(a) still reads it) until
         ring.release(): the caller may save it, e.g. as an event snapshot."""
@@ -115,74 +132,43 @@ class FeatureCore:
         self.windows += 1
         return True
 
+    @micropython.native
     def _axis(self, win, off):
         n = self.n
         L = self.L
         f = self.feats
-        s = sum(win)                    # |s| <= 2**15 * n <= 2**27
-        mx = max(win)
-        mn = min(win)
+        st = self.st
+        _scan(win, n, self.adc_min, self.adc_max, st)
+        s = st[_S_SUM]                  # |s| <= 2**15 * n <= 2**27
+        mx = st[_S_MAX]
+        mn = st[_S_MIN]
         mean = (s + (n >> 1)) >> L      # rounded integer mean, counts
         pk = mx - mean
         if mean - mn > pk:
             pk = mean - mn              # peak of x - mean, counts, <= 65535
-        clip = 0
-        if mx >= self.adc_max or mn <= self.adc_min:
-            hi = self.adc_max
-            lo = self.adc_min
-            for v in win:
-                if v >= hi or v <= lo:
-                    clip += 1
         f[off + F_MEAN] = (s + (1 << (L - 9)) >> (L - 8)) if L > 8 else s << (8 - L)
         f[off + F_PEAK] = pk << 8
-        f[off + F_CLIP] = clip
+        f[off + F_CLIP] = st[_S_CLIP]
+        f[off + F_STUCK] = st[_S_STUCK]
+        f[off + F_ZERO] = st[_S_ZERO]
         if pk == 0:
-            self._flat(off, mx)
+            self._flat(off)
             return
         # normalise: y = (x - mean) * 2**u, peak's top bit at Y_BITS
         u = Y_BITS - msb(pk)
         g = 1 << u if u > 0 else 1
         sh = -u if u < 0 else 0
-        buf = self.buf
-        hann = self.hann_q15
-        pos = self.pos
-        s2 = L - 1
-        sq = 0                          # sum(y*y >> (L-1)) < 2**29
-        s4 = 0                          # sum(round(y*y / 2**14)**2 >> L) < 2**28
-        last = 65536                    # no int16 sample: the first one starts a run
-        run = 0                         # repeats of `last` so far (run length - 1)
-        rmax = 0                        # longest run - 1
-        zmax = 0                        # longest run of zeros (0: no zero seen)
-        for i in range(n):
-            v = win[i]
-            if v == last:
-                run += 1
-                if run > rmax:
-                    rmax = run
-                if not v and run >= zmax:
-                    zmax = run + 1
-            else:
-                run = 0
-                last = v
-                if not v and not zmax:
-                    zmax = 1
-            y = ((v - mean) * g) >> sh
-            yy = y * y
-            sq += yy >> s2
-            r = (yy + 8192) >> 14
-            s4 += (r * r) >> L
-            buf[pos[i]] = (y * hann[i]) >> 15
-        f[off + F_STUCK] = rmax + 1
-        f[off + F_ZERO] = zmax
+        _shape(win, n, L, mean, g, sh, self.hann_q15, self.pos, self.buf, st)
         m = self.m
-        fft.cfft(buf, m, self.tw_q15)
-        vs = fft.spectrum(buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p,
+        fft.cfft(self.buf, m, self.tw_q15)
+        vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p,
                           self.env.on)
-        self._finish(off, pk, u, g, sh, sq, s4, vs)
+        self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
         f1 = self.speed.run(f, off)
         self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
-        self.env.run(buf, f1, f, off)
+        self.env.run(self.buf, f1, f, off)
 
+    @micropython.native
     def _finish(self, off, pk, u, g, sh, sq, s4, vs):
         """Features from the window sums (shared by the device and the host twin).
 
@@ -198,20 +184,20 @@ class FeatureCore:
         f[off + F_VEL] = sqrt_pow2(vs, 62 - 2 * self.vel_exp - 2 * u)
         t = self.log2_q15
         c = self.log2_4_3_q8 - 512 * u
+        bl = self.band_lo
+        bh = self.band_hi
         for b in range(self.n_bands):
-            ps = sum(self.bands[b])
+            ps = fft.power_sum(self.p, bl[b], bh[b])
             f[off + F_BAND0 + b] = log2_q8(ps, t) + c if ps > 0 else LOG2_ZERO_Q8
 
-    def _flat(self, off, v):
-        """A window with no variation at all, every sample v (stuck output): no spectrum, zero
-        features, one run of n samples."""
+    def _flat(self, off):
+        """A window with no variation at all (stuck output): no spectrum, zero features (its one
+        run of n samples is already counted by _scan)."""
         f = self.feats
         f[off + F_RMS] = 0
         f[off + F_CREST] = 0
         f[off + F_KURT] = 0
         f[off + F_VEL] = 0
-        f[off + F_STUCK] = self.n
-        f[off + F_ZERO] = 0 if v else self.n
         f[off + F_SPEED] = 0
         f[off + F_SPEED_CONF] = 0
         for j in range(F_ORD_HALF, F_ENV_FTF + 1):
@@ -221,3 +207,72 @@ class FeatureCore:
         p = self.p
         for k in range(self.m + 1):
             p[k] = 0
+
+
+@micropython.viper
+def _scan(win, n: int, adc_min: int, adc_max: int, st):
+    """Sum, largest, smallest and clipped count of n int16 counts (array('h') or its view) into
+    st[_S_SUM], st[_S_MAX], st[_S_MIN], st[_S_CLIP] (counts; |sum| <= 2**15 * n <= 2**27), and
+    the longest runs of identical and of zero counts into st[_S_STUCK], st[_S_ZERO] (samples)."""
+    x = ptr16(win)
+    o = ptr32(st)
+    s = 0
+    mx = -32768
+    mn = 32767
+    c = 0
+    last = 65536                    # no int16 sample: the first one starts a run
+    run = 0                         # repeats of `last` so far (run length - 1)
+    rmax = 0                        # longest run - 1
+    zmax = 0                        # longest run of zeros (0: no zero seen)
+    for i in range(n):
+        v = ((x[i] & 0xFFFF) ^ 0x8000) - 0x8000      # sign-extend (viper loads zero-extend)
+        s += v
+        if v > mx:
+            mx = v
+        if v < mn:
+            mn = v
+        if v >= adc_max or v <= adc_min:
+            c += 1
+        if v == last:
+            run += 1
+            if run > rmax:
+                rmax = run
+            if v == 0 and run >= zmax:
+                zmax = run + 1
+        else:
+            run = 0
+            last = v
+            if v == 0 and zmax == 0:
+                zmax = 1
+    o[_S_SUM] = s
+    o[_S_MAX] = mx
+    o[_S_MIN] = mn
+    o[_S_CLIP] = c
+    o[_S_STUCK] = rmax + 1
+    o[_S_ZERO] = zmax
+
+
+@micropython.viper
+def _shape(win, n: int, L: int, mean: int, g: int, sh: int, hann, pos, buf, st):
+    """The per-sample pass of a window of n = 2**L counts: y = ((x - mean) * g) >> sh (|y| <=
+    2**14, g = 2**u or 1, sh = -u or 0), its sums st[_S_SQ] = sum(y*y >> (L-1)) < 2**29 and
+    st[_S_S4] = sum(round(y*y / 2**14)**2 >> L) < 2**28, and the windowed sample
+    (y * hann[i]) >> 15 (Q15 Hann, |.| <= 2**14) into buf at its bit-reversed slot pos[i]."""
+    x = ptr16(win)
+    w = ptr16(hann)            # unsigned: a zero-extended load is the value
+    q = ptr16(pos)
+    b = ptr32(buf)
+    o = ptr32(st)
+    s2 = L - 1
+    sq = 0
+    s4 = 0
+    for i in range(n):
+        v = ((x[i] & 0xFFFF) ^ 0x8000) - 0x8000
+        y = ((v - mean) * g) >> sh
+        yy = y * y
+        sq += yy >> s2
+        r = (yy + 8192) >> 14
+        s4 += (r * r) >> L
+        b[q[i]] = (y * w[i]) >> 15
+    o[_S_SQ] = sq
+    o[_S_S4] = s4

@@ -30,7 +30,11 @@ p[k] = |X[k]|**2 = |DFT(x)[k]|**2 / m**2.
      2048   1024  5 radix-4              DFT(x)[k] / 1024   10
      4096   2048  1 radix-2 + 5 radix-4  DFT(x)[k] / 2048   11
 
-Entry points: radix4_twiddles(), cfft(), spectrum()."""
+Entry points: radix4_twiddles() (set-up), cfft(), spectrum(), power_sum() (per window,
+viper-compiled on the boards, bytecode or CPython elsewhere: firmware_py.viper_stand)."""
+import micropython
+
+from firmware_py.viper_stand import SX32, ptr8, ptr16, ptr32
 
 
 def radix4_twiddles(m, cos_t, sin_t):
@@ -80,36 +84,42 @@ def _odd_log2(m):
     return k & 1
 
 
-def cfft(buf, m, tw):
+@micropython.viper
+def cfft(buf, m: int, tw):
     """In-place scaled complex FFT of m points (interleaved re, im; input bit-reversed).
 
-    tw from radix4_twiddles(m, ...). Overwrites buf. Scaling: see the module comment.
+    buf: array('i'); tw from radix4_twiddles(m, ...). Overwrites buf. Scaling: see the module
+    comment. Viper: loads are sign-extended with SX32 (firmware_py.viper_stand); every
+    intermediate is below 2**30 in magnitude (module comment), so a 32-bit word holds it.
     """
+    p = ptr32(buf)
+    w = ptr32(tw)
+    sx = int(SX32)
     end = 2 * m
     t = 0
     h = 1
-    if _odd_log2(m):
+    if int(_odd_log2(m)):
         # radix-2 stage with W = 1: pairs of neighbours
         for a in range(0, end, 4):
-            ur = buf[a]
-            ui = buf[a + 1]
-            xr = buf[a + 2]
-            xi = buf[a + 3]
-            buf[a] = (ur + xr) >> 1
-            buf[a + 1] = (ui + xi) >> 1
-            buf[a + 2] = (ur - xr) >> 1
-            buf[a + 3] = (ui - xi) >> 1
+            ur = (p[a] << sx) >> sx
+            ui = (p[a + 1] << sx) >> sx
+            xr = (p[a + 2] << sx) >> sx
+            xi = (p[a + 3] << sx) >> sx
+            p[a] = (ur + xr) >> 1
+            p[a + 1] = (ui + xi) >> 1
+            p[a + 2] = (ur - xr) >> 1
+            p[a + 3] = (ui - xi) >> 1
         h = 2
     while h < m:
         q = 2 * h                          # ints between the four legs of a butterfly
         span = 8 * h
         for j in range(0, q, 2):
-            w2r = tw[t]
-            w2i = tw[t + 1]
-            w1r = tw[t + 2]
-            w1i = tw[t + 3]
-            w3r = tw[t + 4]
-            w3i = tw[t + 5]
+            w2r = (w[t] << sx) >> sx
+            w2i = (w[t + 1] << sx) >> sx
+            w1r = (w[t + 2] << sx) >> sx
+            w1i = (w[t + 3] << sx) >> sx
+            w3r = (w[t + 4] << sx) >> sx
+            w3i = (w[t + 5] << sx) >> sx
             t += 6
             a = j
             while a < end:
@@ -117,20 +127,20 @@ def cfft(buf, m, tw):
                 c = b + q
                 d = c + q
                 # B = w**2 * x[b], C = w * x[c], D = w**3 * x[d]  (w = wr - j*wi)
-                xr = buf[b]
-                xi = buf[b + 1]
+                xr = (p[b] << sx) >> sx
+                xi = (p[b + 1] << sx) >> sx
                 br = (w2r * xr + w2i * xi) >> 15
                 bi = (w2r * xi - w2i * xr) >> 15
-                xr = buf[c]
-                xi = buf[c + 1]
+                xr = (p[c] << sx) >> sx
+                xi = (p[c + 1] << sx) >> sx
                 cr = (w1r * xr + w1i * xi) >> 15
                 ci = (w1r * xi - w1i * xr) >> 15
-                xr = buf[d]
-                xi = buf[d + 1]
+                xr = (p[d] << sx) >> sx
+                xi = (p[d + 1] << sx) >> sx
                 dr = (w3r * xr + w3i * xi) >> 15
                 di = (w3r * xi - w3i * xr) >> 15
-                ar = buf[a]
-                ai = buf[a + 1]
+                ar = (p[a] << sx) >> sx
+                ai = (p[a + 1] << sx) >> sx
                 s0r = ar + br
                 s0i = ai + bi
                 s1r = ar - br
@@ -139,19 +149,20 @@ def cfft(buf, m, tw):
                 s2i = ci + di
                 s3r = cr - dr
                 s3i = ci - di
-                buf[a] = (s0r + s2r) >> 2          # y0 = (a + B) + (C + D)
-                buf[a + 1] = (s0i + s2i) >> 2
-                buf[c] = (s0r - s2r) >> 2          # y2 = (a + B) - (C + D)
-                buf[c + 1] = (s0i - s2i) >> 2
-                buf[b] = (s1r + s3i) >> 2          # y1 = (a - B) - j(C - D)
-                buf[b + 1] = (s1i - s3r) >> 2
-                buf[d] = (s1r - s3i) >> 2          # y3 = (a - B) + j(C - D)
-                buf[d + 1] = (s1i + s3r) >> 2
+                p[a] = (s0r + s2r) >> 2          # y0 = (a + B) + (C + D)
+                p[a + 1] = (s0i + s2i) >> 2
+                p[c] = (s0r - s2r) >> 2          # y2 = (a + B) - (C + D)
+                p[c + 1] = (s0i - s2i) >> 2
+                p[b] = (s1r + s3i) >> 2          # y1 = (a - B) - j(C - D)
+                p[b + 1] = (s1i - s3r) >> 2
+                p[d] = (s1r - s3i) >> 2          # y3 = (a - B) + j(C - D)
+                p[d + 1] = (s1i + s3r) >> 2
                 a += span
         h *= 4
 
 
-def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p, keep_x):
+@micropython.viper
+def spectrum(buf, m: int, cos_t, sin_t, vmant, vsh2, p, keep_x: int) -> int:
     """Split the complex FFT in buf into the real spectrum of the window.
 
     Writes the power p[k] = |X[k]|**2 for k = 0..m (array('i'), m + 1 entries) and returns
@@ -164,61 +175,93 @@ def spectrum(buf, m, cos_t, sin_t, vmant, vsh2, p, keep_x):
     for k = 1..m-1 at buf[2k] (re) and buf[2k+1] (im); buf[0] = X[0] and buf[1] = X[m] (both
     real). Each value read from buf is consumed before its slot is written (k and m-k are done
     together). Without it buf is left as it was (the stores cost a few per cent of the window).
+
+    Each squared weighted component is below 2**29 (|X| <= 2**14, mantissa < 2**15), so a shift
+    of 29 or more leaves 0: such bins are skipped, which keeps every shift count below 32 (the
+    boards' shifters do not take larger counts modulo the word) and changes no result.
     """
-    zr = buf[0]
-    zi = buf[1]
+    z = ptr32(buf)
+    ct = ptr32(cos_t)
+    st = ptr32(sin_t)
+    vm = ptr16(vmant)          # unsigned: a zero-extended load is the value
+    vh = ptr8(vsh2)
+    pw = ptr32(p)
+    sx = int(SX32)
+    zr = (z[0] << sx) >> sx
+    zi = (z[1] << sx) >> sx
     x0 = zr + zi                      # DC: Re Z0 + Im Z0
     xm = zr - zi                      # Nyquist: Re Z0 - Im Z0
-    p[0] = x0 * x0
-    p[m] = xm * xm
+    pw[0] = x0 * x0
+    pw[m] = xm * xm
     if keep_x:
-        buf[0] = x0
-        buf[1] = xm
-    v = (xm * vmant[m]) >> 15
-    vs = (v * v) >> vsh2[m]
+        z[0] = x0
+        z[1] = xm
+    v = (xm * vm[m]) >> 15
+    vs = 0
+    s = vh[m]
+    if s < 31:
+        vs = (v * v) >> s
     hm = m >> 1
     for k in range(1, hm):
         i = 2 * k
         q = 2 * (m - k)
-        ar = buf[i]
-        ai = buf[i + 1]
-        br = buf[q]
-        bi = buf[q + 1]
+        ar = (z[i] << sx) >> sx
+        ai = (z[i + 1] << sx) >> sx
+        br = (z[q] << sx) >> sx
+        bi = (z[q + 1] << sx) >> sx
         er = (ar + br) >> 1
         ei = (ai - bi) >> 1
         orr = (ar - br) >> 1
         oi = (ai + bi) >> 1
-        wr = cos_t[k]
-        wi = sin_t[k]
+        wr = (ct[k] << sx) >> sx
+        wi = (st[k] << sx) >> sx
         tr = (wr * orr + wi * oi) >> 15         # T = W_n**k * O
         ti = (wr * oi - wi * orr) >> 15
         xr = er + ti                            # X[k] = E - jT
         xi = ei - tr
         if keep_x:
-            buf[i] = xr
-            buf[i + 1] = xi
-        p[k] = xr * xr + xi * xi
-        g = vmant[k]
-        vr = (xr * g) >> 15
-        vi = (xi * g) >> 15
-        vs += (vr * vr + vi * vi) >> vsh2[k]
+            z[i] = xr
+            z[i + 1] = xi
+        pw[k] = xr * xr + xi * xi
+        s = vh[k]
+        if s < 31:
+            g = vm[k]
+            vr = (xr * g) >> 15
+            vi = (xi * g) >> 15
+            vs += (vr * vr + vi * vi) >> s
         xr = er - ti                            # X[m-k] = conj(E + jT): (xr, -xi)
         xi = ei + tr
         if keep_x:
-            buf[q] = xr
-            buf[q + 1] = -xi
-        p[m - k] = xr * xr + xi * xi
-        g = vmant[m - k]
-        vr = (xr * g) >> 15
-        vi = (xi * g) >> 15
-        vs += (vr * vr + vi * vi) >> vsh2[m - k]
+            z[q] = xr
+            z[q + 1] = -xi
+        pw[m - k] = xr * xr + xi * xi
+        s = vh[m - k]
+        if s < 31:
+            g = vm[m - k]
+            vr = (xr * g) >> 15
+            vi = (xi * g) >> 15
+            vs += (vr * vr + vi * vi) >> s
     # k = m/2 pairs with itself: W = -j, so X = conj Z[m/2]
-    ar = buf[m]
-    ai = buf[m + 1]
+    ar = (z[m] << sx) >> sx
+    ai = (z[m + 1] << sx) >> sx
     if keep_x:
-        buf[m + 1] = -ai
-    p[hm] = ar * ar + ai * ai
-    g = vmant[hm]
-    vr = (ar * g) >> 15
-    vi = (ai * g) >> 15
-    return vs + ((vr * vr + vi * vi) >> vsh2[hm])
+        z[m + 1] = -ai
+    pw[hm] = ar * ar + ai * ai
+    s = vh[hm]
+    if s < 31:
+        g = vm[hm]
+        vr = (ar * g) >> 15
+        vi = (ai * g) >> 15
+        vs += (vr * vr + vi * vi) >> s
+    return vs
+
+
+@micropython.viper
+def power_sum(p, lo: int, hi: int) -> int:
+    """sum(p[lo:hi]) of an array('i') of powers (each >= 0, every band sum < 2**30, see the
+    module comment), without making a slice."""
+    pw = ptr32(p)
+    s = 0
+    for k in range(lo, hi):
+        s += pw[k]
+    return s

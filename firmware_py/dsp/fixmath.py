@@ -1,13 +1,18 @@
 """Integer helpers for the per-window path: every argument, intermediate and result is a small
-int (|v| < 2**30), so nothing here allocates on a 32-bit MicroPython port.
+int (|v| < 2**30), so nothing here allocates on a 32-bit MicroPython port, and each fits a
+viper machine word: the functions are viper-compiled on the boards (firmware_py.viper_stand).
 
 Entry points: msb(), isqrt(), sqrt_pow2(), div_pow2(), log2_q8()."""
+import micropython
 from micropython import const
+
+from firmware_py.viper_stand import ptr16
 
 _LOG2_FRAC = const(7)    # mantissa bits used for interpolation between log2 table entries
 
 
-def msb(x):
+@micropython.viper
+def msb(x: int) -> int:
     """Index of the highest set bit of 0 < x < 2**30 (msb(1) == 0); MicroPython has no bit_length."""
     n = 0
     if x >= 1 << 16:
@@ -27,13 +32,14 @@ def msb(x):
     return n
 
 
-def isqrt(x):
+@micropython.viper
+def isqrt(x: int) -> int:
     """floor(sqrt(x)) for 0 <= x < 2**30, by the bitwise method (no multiply overflows)."""
     r = 0
     b = 1 << 28
     while b > x:
         b >>= 2
-    while b:
+    while b != 0:
         if x >= r + b:
             x -= r + b
             r = (r >> 1) + b
@@ -43,7 +49,8 @@ def isqrt(x):
     return r
 
 
-def sqrt_pow2(s, e):
+@micropython.viper
+def sqrt_pow2(s: int, e: int) -> int:
     """round(sqrt(s * 2**e)) for 0 <= s < 2**30 and any int e, if the result is < 2**30.
 
     s is shifted so its top bit lands at 27 or 28 (isqrt then keeps 14 bits or more), the shift
@@ -51,20 +58,23 @@ def sqrt_pow2(s, e):
     """
     if s <= 0:
         return 0
-    k = 28 - msb(s)          # bring the top bit to 28 or 27
+    k = 28 - int(msb(s))     # bring the top bit to 28 or 27
     if (e - k) & 1:
         k -= 1
     if k >= 0:
-        r = isqrt(s << k)
+        r = int(isqrt(s << k))
     else:
-        r = isqrt(s >> -k)
+        r = int(isqrt(s >> -k))
     h = (e - k) >> 1         # exact: e - k is even
     if h >= 0:
         return r << h
+    if h < -15:
+        return 0             # r < 2**15 rounds to 0 there; keeps every shift count below 32
     return (r + (1 << (-h - 1))) >> -h
 
 
-def div_pow2(num, den, s):
+@micropython.viper
+def div_pow2(num: int, den: int, s: int) -> int:
     """floor(num * 2**s / den), exactly, for 0 <= num < 2**30, 0 < den < 2**29, s >= 0, with a
     result below 2**30.
 
@@ -73,7 +83,7 @@ def div_pow2(num, den, s):
     """
     q = num // den
     r = num - q * den
-    room = 29 - msb(den)     # >= 1 since den < 2**29: r << room < 2**30
+    room = 29 - int(msb(den))     # >= 1 since den < 2**29: r << room < 2**30
     while s > 0:
         c = room if s > room else s
         r <<= c
@@ -84,21 +94,23 @@ def div_pow2(num, den, s):
     return q
 
 
-def log2_q8(x, table_q15):
+@micropython.viper
+def log2_q8(x: int, table_q15) -> int:
     """round(256 * log2(x)) for 0 < x < 2**30, within 1 LSB; table_q15 from tables.log2_table().
 
     The mantissa's top 8 bits pick a table entry (log2(1 + i/256), Q15) and the next bits
     interpolate linearly; the result is Q8.
     """
-    e = msb(x)
+    t = ptr16(table_q15)     # unsigned Q15: a zero-extended load is the value
+    e = int(msb(x))
     # mantissa as 8 index bits and _LOG2_FRAC fraction bits below the leading one
     sh = e - 8 - _LOG2_FRAC
     m = (x >> sh) if sh >= 0 else (x << -sh)
     m &= (1 << (8 + _LOG2_FRAC)) - 1
     i = m >> _LOG2_FRAC
     f = m & ((1 << _LOG2_FRAC) - 1)
-    t0 = table_q15[i]
-    lin = t0 + (((table_q15[i + 1] - t0) * f) >> _LOG2_FRAC)    # Q15, < 2**15
+    t0 = t[i]
+    lin = t0 + (((t[i + 1] - t0) * f) >> _LOG2_FRAC)    # Q15, < 2**15
     return (e << 8) + ((lin + 64) >> 7)
 
 

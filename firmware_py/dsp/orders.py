@@ -6,7 +6,7 @@
 # Leakage: a tone at position x (bins) spreads over the Hann main lobe, the bins with |k - x| < 2:
 # the 4 bins floor(x)-1 .. floor(x)+2. They hold the whole tone for x on a bin and 99.9 % of it
 # at half a bin (1.4987 of 1.5, the periodic Hann window's equivalent noise bandwidth in bins,
-# common practice; the same 1.5 as HANN_ENBW_BINS in host_tools/check/commission.py). Their sum,
+# common practice; the same 1.5 as HANN_ENBW_BINS in host_tools/data/lines.py). Their sum,
 # scaled like a band power (4/3 * 2**-2u: Hann power normalisation, which divides by that 1.5
 # and doubles for one side), is the tone's mean square A**2 / 2 in counts**2.
 #

@@ -18,11 +18,13 @@
 #    For the Hann window's kernel |W(d)| = sin(pi d) / (pi d (1 - d**2)) the ratio
 #    a1/a0 = (1 + d)/(2 - d) holds exactly, so d has no bias for a lone tone (Grandke, "Interpolation
 #    algorithms for discrete Fourier transforms of weighted signals", IEEE Trans. Instrum. Meas. 32,
-#    1983; from memory). What is left: the image at -f (its lobe edge, about 1.5e-3 of the line at
-#    3 bins from DC, giving < 5e-3 bins), the kernel's finite-n correction (O(1/n**2)), and the
-#    quantisation: magnitudes keep >= 14 bits (sqrt_pow2 of p scaled to 2**28), d is rounded to
-#    1/256 bin. A quadratic through log power would leave up to a few hundredths of a bin of bias
-#    for Hann; the ratio form needs two square roots and one division per harmonic instead.
+#    1983; from memory). What is left: the image at -f (its lobe edge, at most 1.5e-3 of the line
+#    at 3 bins from DC, giving < 7.2e-3 bins), the kernel's finite-n correction (O(1/n**2)), and
+#    the quantisation: magnitudes keep >= 14 bits (sqrt_pow2 of p scaled to 2**28), d is rounded
+#    to 1/256 bin (tests/test_speed_estimate.py derives the total, 0.01 bin). A parabola through
+#    the three log magnitudes would leave up to 0.016 bin of bias for Hann, through the linear
+#    magnitudes 0.053 bin (computed with numpy for a tone at 100 + d bins, n = 512); the ratio
+#    form costs two square roots and one division per harmonic instead.
 # 3. Combination. Harmonic h measures h*f1 with an error variance inversely proportional to its
 #    power P_h (the 3-bin lobe at k_h), so the least-squares 1x is
 #        f1 = sum(h * P_h * f_h) / sum(h**2 * P_h)

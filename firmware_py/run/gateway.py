@@ -68,8 +68,6 @@ class Gateway:
         n = profile["window_n"]
         axes = profile["axes"]
         self.raw = array.array('h', bytes(2 * n * axes))
-        mv = memoryview(self.raw)
-        self.raw_views = [mv[a * n:(a + 1) * n] for a in range(axes)]
         self.raw_valid = False
         self.gaps = array.array('i', bytes(4 * (profile["ring_windows"] + 1)))   # frames
         # windows wraps at a multiple of len(gaps) (gap slots stay aligned) with windows +
@@ -167,7 +165,7 @@ class Gateway:
             return False
         ring = core.ring
         for a in range(core.axes):
-            self.raw_views[a][0:core.n] = ring.window(a)
+            ring.copy_window(a, self.raw, a * core.n)
         ring.release()
         self.raw_valid = True
         g = self.gaps

@@ -18,7 +18,7 @@ import sys
 from pathlib import Path
 
 from host_tools.data.analysis import profile_for_set
-from host_tools.data.files import check_outputs, load_body, require_existing
+from host_tools.data.files import check_outputs, expected_rate, load_body, require_existing
 from host_tools.data.recording import atomic_write, open_stream
 from host_tools.errors import EdgevibError
 from host_tools.ops.param_gate import prove
@@ -39,17 +39,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--report", metavar="DIR", help="write the HTML comparison into DIR")
     p.add_argument("--jobs", type=int, default=default_jobs(), metavar="J",
                    help="processes computing features (default: the cores available)")
-
-
-def expected_rate(path: Path) -> float | None:
-    """Expected false alerts per 30 days from the training summary beside the set, if any."""
-    side = path.with_suffix(".json")
-    try:
-        doc = json.loads(side.read_text(encoding="utf-8"))
-        v = doc["thresholds"]["expected_false_alerts_per_30_days"]
-    except (OSError, ValueError, KeyError, TypeError):
-        return None
-    return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else None
 
 
 def run(args: argparse.Namespace) -> int:

@@ -16,6 +16,10 @@ seeded faults. Steps, as a technician and an engineer would take them:
    named first. Written to DIR/scorecard.json and DIR/scorecard.txt, printed at the end.
 The pumps are trained and replayed in parallel, one process each (two cores make it quick).
 
+`--fleet` runs the fleet part instead (host_tools.fleet.demo): twelve invented pumps at two
+invented sites written as a fleet folder DIR/fleet, trained (DIR/trained) and reviewed
+(DIR/review/index.html) through Dask; --pumps takes fewer, --scheduler uses an existing cluster.
+
 Everything is built in a temporary folder beside DIR and moved into place at the end; an existing
 DIR is replaced only when it is empty or holds an earlier demo.
 """
@@ -34,7 +38,7 @@ import numpy as np
 
 from host_tools.errors import EdgevibError
 
-HELP = "run the invented two-pump demo: generate data, check, train, replay, report"
+HELP = "run the invented two-pump demo (generate data, check, train, replay, report), or with --fleet the fleet demo"
 
 DEFAULT_DAYS = 42.0           # six weeks: every seeded fault of the scenario happens in them
 DEFAULT_INTERVAL_S = 10800.0  # one 4 s snapshot every 3 hours (plus one at each stop and start): about a minute on 2 cores
@@ -54,6 +58,10 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--evaluation", choices=("demo", "full", "off"), default="demo",
                    help="scorecard on the evaluation histories: demo (one machine, about a minute), full (two machines, "
                         "much longer) or off (default demo)")
+    p.add_argument("--fleet", action="store_true",
+                   help="run the fleet part instead: a dozen invented pumps at two sites, trained and reviewed through Dask")
+    p.add_argument("--pumps", type=int, default=12, metavar="N", help="--fleet: how many of the demo fleet's pumps (default 12)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="--fleet: an existing Dask scheduler (default: a local cluster)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -67,10 +75,19 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError("--jobs must be at least 1")
     started = time.monotonic()
     from host_tools.report.replay_report import staging_folder, swap_in
+    if args.fleet and not 1 <= args.pumps <= 12:
+        raise EdgevibError("--pumps must be from 1 to 12")
     tmp = staging_folder(out)
     try:
-        lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs,
-                      getattr(args, "evaluation", "demo"))
+        if args.fleet:
+            from host_tools.fleet import demo as fleet_demo
+            lines = fleet_demo.build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.pumps,
+                                     args.scheduler, args.jobs)
+            (tmp / _MARKER).write_text(json.dumps({"fleet": True, "seed": args.seed, "days": args.days,
+                                                   "pumps": args.pumps}, indent=1) + "\n")
+        else:
+            lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs,
+                          getattr(args, "evaluation", "demo"))
         swap_in(tmp, out)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)

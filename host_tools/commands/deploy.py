@@ -1,7 +1,8 @@
 """`edgevib deploy --port PORT --board B`: precompile firmware_py to .mpy and copy it, main.py,
 boot.py, the board profile and optional parameters to a gateway (host_tools.ops.deploy does it).
 
---dry-run builds the .mpy files and prints every command without touching a device.
+--dry-run builds the .mpy files and prints every command without touching a device. Otherwise the
+board's firmware is read first and one that cannot run the native code is refused with the reason.
 """
 from __future__ import annotations
 
@@ -38,6 +39,6 @@ def run(args: argparse.Namespace) -> int:
         print("dry run: would copy with")
         print(deploy.show(pl.copy_cmd))
         return 0
-    deploy.copy_to_board(pl, args.wait)
+    deploy.copy_to_board(pl, args.wait, profile=profile)
     print(f"deployed {args.board} to {args.port}; the gateway restarts")
     return 0

@@ -7,6 +7,9 @@ clock when it was saved), the raw features, a readable per-axis summary in physi
 t0_s (the window's start: t less one window, to the second of the gateway's clock). Files are
 written whole (host_tools.data.recording.write_wav); a snapshot overwritten on the gateway between
 listing and reading is reported and skipped.
+
+With --fleet FLEET --gateway ID instead of --out, the snapshots are filed into that gateway's
+captures/ in the fleet folder (host_tools.fleet.layout).
 """
 from __future__ import annotations
 
@@ -32,7 +35,9 @@ AXIS_NAMES = ("x", "y", "z")
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
     add_key_argument(p)
-    p.add_argument("--out", required=True, metavar="DIR", help="folder for the snapshots (made if missing)")
+    p.add_argument("--out", metavar="DIR", help="folder for the snapshots (made if missing)")
+    p.add_argument("--fleet", metavar="FLEET", help="instead of --out: file into the captures/ of --gateway in this fleet folder")
+    p.add_argument("--gateway", metavar="ID", help="with --fleet: the gateway's id (its folder name)")
 
 
 def summary(features: list[int], axes: int, scale: float) -> dict:
@@ -87,7 +92,8 @@ def _pull(c, e: dict, out: Path, scale: float, board: str, saved: list, gone: li
 
 
 def run(args: argparse.Namespace) -> int:
-    out = Path(args.out)
+    from host_tools.fleet.layout import CAPTURES, filing_target
+    out = filing_target(args.out, args.fleet, args.gateway, CAPTURES, "--out DIR")
     if out.exists() and not out.is_dir():
         raise EdgevibError(f"{out}: exists and is not a folder")
     with connected(args.port, key=read_key(args.key_file)) as c:

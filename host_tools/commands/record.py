@@ -12,6 +12,9 @@ of the gateway's sample stream from the first window received.
 Sidecar: m_s2_per_unit from the committed set's counts_per_g, sample_rate_hz, axis names, t0_s
 from the gateway's clock (to the millisecond of its tick counter; as good as the clock was set),
 and where it came from (board, firmware, parameter version, first window index).
+
+With --fleet FLEET --gateway ID instead of --out, the recording is filed into that gateway's
+archive/ in the fleet folder (host_tools.fleet.layout), named <ID>_<UTC time>.wav.
 """
 from __future__ import annotations
 
@@ -47,7 +50,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--port", required=True, help="serial port of the gateway (or the emulator's pty)")
     add_key_argument(p)
     p.add_argument("--seconds", type=float, required=True, metavar="S", help="how long to record")
-    p.add_argument("--out", required=True, metavar="REC.wav", help="output WAV (sidecar REC.json beside it)")
+    p.add_argument("--out", metavar="REC.wav", help="output WAV (sidecar REC.json beside it)")
+    p.add_argument("--fleet", metavar="FLEET", help="instead of --out: file into the archive/ of --gateway in this fleet folder")
+    p.add_argument("--gateway", metavar="ID", help="with --fleet: the gateway's id (its folder name)")
 
 
 def part_path(out: Path, k: int) -> Path:
@@ -118,7 +123,10 @@ class _Collector:
 def run(args: argparse.Namespace) -> int:
     if not (args.seconds > 0 and math.isfinite(args.seconds)):
         raise EdgevibError(f"--seconds must be a positive number, not {args.seconds}")
-    out = Path(args.out)
+    from host_tools.fleet.layout import ARCHIVE, filing_target
+    out = filing_target(args.out, args.fleet, args.gateway, ARCHIVE, "--out REC.wav")
+    if args.fleet:   # named for the gateway and the host's UTC time; the sidecar holds the gateway's clock
+        out = out / f"{args.gateway}_{time.strftime('%Y%m%dT%H%M%SZ', time.gmtime())}.wav"
     if out.suffix.lower() != ".wav":
         raise EdgevibError(f"{out}: --out must name a .wav file")
     if not out.parent.is_dir():

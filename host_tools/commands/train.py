@@ -13,24 +13,16 @@ import argparse
 import json
 from pathlib import Path
 
-import msgpack
-
 import firmware_py  # noqa: F401
-from firmware_py.codec import mpack
-from firmware_py.run import params as pm
 from host_tools.errors import EdgevibError
 from host_tools.data.analysis import desk_profile, scale_of
-from host_tools.data.files import check_outputs, load_board, require_existing
+from host_tools.data.files import check_outputs, encode_set, load_board, require_existing
 from host_tools.data.recording import atomic_write, open_stream, read_stream
 from host_tools.progress import note
 from host_tools.twin.replay import default_jobs, group_sources
 from host_tools.fit.training import report_text, train
 
 HELP = "train a parameter set on healthy recordings: baseline, operating modes, thresholds for a false-alert target"
-# The gateway's parameter store holds images up to 8192 bytes (firmware_py.store.paramstore, cap);
-# an image is the body plus 5 bytes of head, 32 of signature and 4 of CRC.
-_STORE_CAP = 8192
-_IMAGE_EXTRA = 5 + 32 + 4
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -74,12 +66,7 @@ def run(args: argparse.Namespace) -> int:
          f"{profile['window_n']} samples, {profile['axes']} axes (board {profile['name']})")
     params, summary = train(streams, profile, args.false_alerts_per_month, seed=args.seed, version=args.version,
                             jobs=max(1, args.jobs), progress=True)
-    body = msgpack.packb(params, use_bin_type=True)
-    if mpack.unpackb(body) != params:   # the device's own decoder must read it back unchanged
-        raise EdgevibError("internal: the encoded parameter set does not decode to itself")
-    if len(body) + _IMAGE_EXTRA > _STORE_CAP:
-        raise EdgevibError(f"the parameter set is {len(body)} bytes, more than a gateway's store holds")
-    pm.build(params, profile)
+    body = encode_set(params, profile)
     text = report_text(summary)
     rendered = [body, (json.dumps(summary, indent=1) + "\n").encode(), text.encode()]
     for path, data in zip(paths, rendered):

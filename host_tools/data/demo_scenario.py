@@ -88,11 +88,14 @@ class PumpSpec:
     flow_noise_rms_m_s2: float
     offsets_m_s2: tuple[float, float, float]  # sensor zero-g offset per axis
     bearing: BearingGeometry = BEARING_6205
+    stop_days: tuple[float, ...] = ()  # days (from the start) when the pump is stopped for a few hours
+    site: str = PLANT
 
 
 PUMPS = (
-    PumpSpec("P-101", 6, 1100.0, 15.0, 0.25, 0.10, 0.35, 0.08, (0.12, -0.08, 0.20)),
-    PumpSpec("P-102", 7, 1250.0, 18.0, 0.30, 0.14, 0.28, 0.07, (-0.05, 0.10, -0.15)),
+    # Stop days fixed per pump so the training week holds stops and restarts of both.
+    PumpSpec("P-101", 6, 1100.0, 15.0, 0.25, 0.10, 0.35, 0.08, (0.12, -0.08, 0.20), stop_days=(3.4, 15.6, 27.3, 38.5)),
+    PumpSpec("P-102", 7, 1250.0, 18.0, 0.30, 0.14, 0.28, 0.07, (-0.05, 0.10, -0.15), stop_days=(1.6, 5.5, 19.4, 33.6)),
 )
 
 
@@ -151,9 +154,19 @@ class Scenario:
         return max((f.severity(t) for f in self.faults if f.pump == pump and f.kind == kind), default=0.0)
 
 
+# The seeded faults: (pump, kind, first day, last day or None for the scenario's end, description).
+FAULT_PLAN = (
+    ("P-101", "loose_cable", 11.3, 13.6, "sensor cable connector loose: dropouts and spikes"),
+    ("P-101", "bearing_outer_race", 20.0, None, "drive-end bearing outer-race defect, growing"),
+    ("P-102", "cavitation", 25.5, 28.0, "low suction level: cavitation at high flow"),
+)
+
+
 def build_scenario(seed: int = DEFAULT_SEED, days: float = DAYS, training_days: float = TRAINING_DAYS,
-                   interval_s: float = SNAPSHOT_INTERVAL_S) -> Scenario:
-    """Plan the scenario (speeds, stops, faults, snapshot times); cheap, no signals yet."""
+                   interval_s: float = SNAPSHOT_INTERVAL_S, pumps: tuple[PumpSpec, ...] = PUMPS,
+                   fault_plan: tuple = FAULT_PLAN) -> Scenario:
+    """Plan the scenario (speeds, stops, faults, snapshot times); cheap, no signals yet.
+    pumps and fault_plan: the demo's two pumps by default (host_tools.data.demo_fleet gives more)."""
     rng = np.random.default_rng([seed, 0])
     t_start = START_T0_S
     t_end = t_start + days * _DAY_S
@@ -161,16 +174,13 @@ def build_scenario(seed: int = DEFAULT_SEED, days: float = DAYS, training_days: 
     def d(day: float) -> float:
         return t_start + day * _DAY_S
     faults = tuple(
-        f for f in (
-            Fault("P-101", "loose_cable", d(11.3), d(13.6), "sensor cable connector loose: dropouts and spikes"),
-            Fault("P-101", "bearing_outer_race", d(20.0), d(days), "drive-end bearing outer-race defect, growing"),
-            Fault("P-102", "cavitation", d(25.5), d(28.0), "low suction level: cavitation at high flow"),
-        ) if f.start_t0_s < t_end
+        f for f in (Fault(pump, kind, d(a), d(days if b is None else b), text) for pump, kind, a, b, text in fault_plan)
+        if f.start_t0_s < t_end
     )
     speed_bp, stops, snaps = {}, {}, []
-    for p in PUMPS:
+    for p in pumps:
         hours = int(days * 24)
-        target = _hourly_speeds(rng, hours, stop_days=_stop_days(p.name, days))
+        target = _hourly_speeds(rng, hours, stop_days=[x for x in p.stop_days if x < days - 0.5])
         bt, br, pump_stops = _profile(t_start, target)
         speed_bp[p.name] = (bt, br)
         stops[p.name] = pump_stops
@@ -181,14 +191,8 @@ def build_scenario(seed: int = DEFAULT_SEED, days: float = DAYS, training_days: 
             if t_go < t_end - SNAPSHOT_S:
                 snaps.append(Snapshot(p.name, t_go - 1.0, trigger="start"))
     snaps.sort(key=lambda s: (s.pump, s.t0_s))
-    return Scenario(seed, t_start, t_end, d(training_days), {p.name: p for p in PUMPS}, faults,
+    return Scenario(seed, t_start, t_end, d(training_days), {p.name: p for p in pumps}, faults,
                     tuple(snaps), stops, speed_bp)
-
-
-def _stop_days(pump: str, days: float) -> list[float]:
-    # Fixed stop days per pump so the training week holds stops and restarts of both.
-    base = {"P-101": [3.4, 15.6, 27.3, 38.5], "P-102": [1.6, 5.5, 19.4, 33.6]}[pump]
-    return [x for x in base if x < days - 0.5]
 
 
 def _hourly_speeds(rng: np.random.Generator, hours: int, stop_days: list[float]) -> np.ndarray:
@@ -322,7 +326,7 @@ def snapshot_sidecar(sc: Scenario, snap: Snapshot) -> dict:
         "rpm": float(rpm[0]) if rpm[0] == rpm[1] else None,
         "vane_count": p.vane_count,
         "axes": list(AXES),
-        "plant": PLANT,
+        "plant": p.site,
         "machine": p.name,
         "trigger": snap.trigger,
         "note": "invented demo data",

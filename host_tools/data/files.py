@@ -1,22 +1,32 @@
 """Files the commands read and write: parameter-set bodies, board profiles, and output paths.
 
-Entry points: load_body(path) -> (bytes, map), load_board(path) -> profile, require_existing(paths)
-refuses recordings or folders that are not there, check_outputs(paths,
-sources) refuses outputs that would overwrite an input; DEFAULT_BOARD.
+Entry points: load_body(path) -> (bytes, map), encode_set(params, profile) -> the body bytes a
+gateway's store takes, expected_rate(path) -> the expected false alerts per 30 days from the
+training summary beside a set, load_board(path) -> profile, require_existing(paths) refuses
+recordings or folders that are not there, check_outputs(paths, sources) refuses outputs that would
+overwrite an input; DEFAULT_BOARD.
 """
 from __future__ import annotations
 
+import json
+import os
 from pathlib import Path
 
 import msgpack
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in the device modules import)
+from firmware_py.codec import mpack
 from firmware_py.run import board
+from firmware_py.run import params as pm
 from host_tools.data.recording import sidecar_path
 from host_tools.errors import EdgevibError
 
 DEFAULT_BOARD = Path(__file__).resolve().parents[2] / "boards" / "desk.json"
 _REQUIRED = ("version", "board", "fs_hz", "n", "axes")   # keys every parameter-set body holds
+# The gateway's parameter store holds images up to 8192 bytes (firmware_py.store.paramstore, cap);
+# an image is the body plus 5 bytes of head, 32 of signature and 4 of CRC.
+_STORE_CAP = 8192
+_IMAGE_EXTRA = 5 + 32 + 4
 
 
 def load_body(path: str) -> tuple[bytes, dict]:
@@ -38,6 +48,30 @@ def load_body(path: str) -> tuple[bytes, dict]:
     if not isinstance(body["version"], int) or isinstance(body["version"], bool):
         raise EdgevibError(f"{path}: 'version' must be an int")
     return data, body
+
+
+def encode_set(params: dict, profile: dict) -> bytes:
+    """The MessagePack body of `params`, checked: the device's own decoder reads it back unchanged,
+    it fits a gateway's store, and the device can build it on `profile`."""
+    body = msgpack.packb(params, use_bin_type=True)
+    if mpack.unpackb(body) != params:
+        raise EdgevibError("internal: the encoded parameter set does not decode to itself")
+    if len(body) + _IMAGE_EXTRA > _STORE_CAP:
+        raise EdgevibError(f"the parameter set is {len(body)} bytes, more than a gateway's store holds")
+    pm.build(params, profile)
+    return body
+
+
+def expected_rate(path: str | os.PathLike) -> float | None:
+    """Expected false alerts per 30 days from the training summary beside the set at `path`
+    (PARAMS.json beside PARAMS.msgpack), if there is one."""
+    side = Path(path).with_suffix(".json")
+    try:
+        doc = json.loads(side.read_text(encoding="utf-8"))
+        v = doc["thresholds"]["expected_false_alerts_per_30_days"]
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+    return float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else None
 
 
 def load_board(path: str | Path | None) -> dict:

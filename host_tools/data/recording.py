@@ -51,6 +51,7 @@ import json
 import math
 import os
 import re
+import struct
 import tempfile
 import warnings
 from dataclasses import dataclass, field
@@ -454,7 +455,7 @@ def _read_wav(p: Path) -> tuple[np.ndarray, float, bool]:
         with warnings.catch_warnings():
             warnings.simplefilter("error", wavfile.WavFileWarning)   # a damaged file is refused, not guessed at
             rate, data = wavfile.read(p, mmap=True)
-    except (ValueError, OSError, EOFError, wavfile.WavFileWarning) as e:
+    except (ValueError, OSError, EOFError, struct.error, wavfile.WavFileWarning) as e:   # struct: a cut header
         raise EdgevibError(f"{p}: truncated or unreadable WAV ({_one_line(e)})") from None
     if data.dtype.name not in _WAV_DTYPES:
         raise EdgevibError(f"{p}: unsupported WAV sample format ({data.dtype.name}); use PCM int16/int32 or float32")

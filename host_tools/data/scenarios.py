@@ -429,9 +429,7 @@ def synthesize(h: History, t0_s: float, n: int, faults: bool = True, sensor_faul
 
 def _snapshot(h: History, t0_s: float, n: int, faults: bool, sensor_faults: bool) -> tuple[np.ndarray, list]:
     s = _Synth(h, t0_s, faults)
-    counts = h.machine.sensor.quantise(s.next(n), s.r_sensor)
-    hits = _apply_sensor_faults(h, s, t0_s, counts) if sensor_faults else []
-    return counts, hits
+    return _sense(h, s, t0_s, s.next(n), sensor_faults)
 
 
 def _stretch_counts(h: History, recs: Sequence[Recording]) -> Iterator[tuple[Recording, np.ndarray, list]]:
@@ -440,29 +438,32 @@ def _stretch_counts(h: History, recs: Sequence[Recording]) -> Iterator[tuple[Rec
     s = _Synth(h, recs[0].t0_s, True)
     for r in recs:
         n = int(round(r.duration_s * s.fs))
-        counts = h.machine.sensor.quantise(s.next(n), s.r_sensor)
-        hits = _apply_sensor_faults(h, s, r.t0_s, counts)
+        counts, hits = _sense(h, s, r.t0_s, s.next(n))
         yield r, counts, hits
 
 
-def _apply_sensor_faults(h: History, s: _Synth, t0: float, counts: np.ndarray) -> list:
-    """Corrupt counts in place by the sensor faults active at t0; returns [(t from, t to, kind)]."""
+def _sense(h: History, s: _Synth, t0: float, a: np.ndarray, sensor_faults: bool = True) -> tuple[np.ndarray, list]:
+    """The sensor's counts of acceleration a (m/s^2) from t0, with the sensor faults active at t0:
+    a loose mount acts on the motion the sensor receives, before its own noise and ADC (the
+    electronics still add their noise); dropouts and an offset step act on the codes. Returns
+    (counts, [(t from, t to, what)])."""
     m, fs, rng = h.machine, s.fs, s.r_sf
-    n = len(counts)
+    n = len(a)
+    active = [f for f in (h.sensor_faults if sensor_faults else ())
+              if f.start_t_s <= t0 < f.end_t_s and rng.random() < f.duty]
     hits = []
-    for f in h.sensor_faults:
-        if not f.start_t_s <= t0 < f.end_t_s or rng.random() >= f.duty:
-            continue
+    for f in active:
+        if f.kind == "loose_mount":
+            i = int(rng.integers(0, max(1, n // 2)))
+            j = min(n, i + int(rng.uniform(0.3, 1.0) * n))
+            a = a.copy()
+            a[i:j] = ph.loose_mount(a[i:j], fs, rng, spikes_per_s=6.0)
+            hits.append((t0 + i / fs, t0 + j / fs, "loose mount"))
+    counts = m.sensor.quantise(a, s.r_sensor)
+    for f in active:
         if f.kind == "dropout":
             for i, j, how in ph.dropouts(counts, rng, 1 + int(rng.poisson(n / fs / 4.0))):
                 hits.append((t0 + i / fs, t0 + j / fs, f"dropout ({how})"))
-        elif f.kind == "loose_mount":
-            i = int(rng.integers(0, max(1, n // 2)))
-            j = min(n, i + int(rng.uniform(0.3, 1.0) * n))
-            a = counts[i:j].astype(np.float64) * m.sensor.m_s2_per_count
-            loose = ph.loose_mount(a, fs, rng, spikes_per_s=6.0)
-            counts[i:j] = np.clip(np.rint(loose / m.sensor.m_s2_per_count), m.sensor.adc_min, m.sensor.adc_max)
-            hits.append((t0 + i / fs, t0 + j / fs, "loose mount"))
         elif f.kind == "saturation":
             # The offset puts the axis 0.2 g below the rail, so the vibration's peaks clip there.
             i = int(rng.integers(0, max(1, n // 2)))
@@ -470,7 +471,7 @@ def _apply_sensor_faults(h: History, s: _Synth, t0: float, counts: np.ndarray) -
             step = m.sensor.adc_max - int(0.2 * m.sensor.counts_per_g) - int(counts[:, ax].mean())
             ph.offset_step(counts, i, step, m.sensor.adc_min, m.sensor.adc_max, axis=ax)
             hits.append((t0 + i / fs, t0 + n / fs, "offset step to the rail"))
-    return hits
+    return counts, hits
 
 
 # --- visibility of machine faults -------------------------------------------------------------
@@ -653,7 +654,7 @@ SCALES = {
     "full": {"train_days": 2.5, "healthy_days": 3.0, "fault_days": 3.0, "sensor_days": 1.2, "interval_s": 1800.0,
              "long_s": 600.0, "changes_per_day": 1.0},
     # the demo's: one machine, shorter, hourly snapshots (a minute or so on two cores)
-    "demo": {"train_days": 1.5, "healthy_days": 1.0, "fault_days": 2.2, "sensor_days": 0.8, "interval_s": 3600.0,
+    "demo": {"train_days": 1.5, "healthy_days": 1.0, "fault_days": 2.2, "sensor_days": 1.3, "interval_s": 3600.0,
              "long_s": 120.0, "changes_per_day": 0.5, "machines": ("RW-1",)},
 }
 _FAULTS_OF = {"RW-1": MACHINE_FAULTS, "RW-2": ("bearing_outer_race", "looseness")}
@@ -680,6 +681,7 @@ def evaluation_suite(seed: int = 2027, scale: str = "full", machines: Sequence[s
             out.append(plan_history(f"{name}-{kind.replace('_', '-')}", name, seed + 10 + k, c["fault_days"], t_field,
                                     role="machine_fault", faults=(f,), **base))
         if name == machines[0]:
+            # the span starts `lead` into the history: sensor_days must exceed it to hold any of it
             for k, kind in enumerate(SENSOR_FAULTS):
                 a = t_field + lead
                 sf = SensorFault(kind, a, a + 0.5 * DAY_S)

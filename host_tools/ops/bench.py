@@ -1,4 +1,7 @@
-"""Measured cost figures of the feature stage, on a real MicroPython and on the host.
+"""Measured cost figures of the feature stage, on two real MicroPythons and on the host.
+
+Entry points: device_figures (WASI fuel), viper_figures (unix port, viper against bytecode),
+native_figures (Thumb instructions per viper function), host_figures, workflow_figures, MEANING.
 
 Device cost is wasm fuel (a deterministic instruction budget of the MicroPython guest), turned
 into a count of simple loop iterations measured in the same run, so the figure does not depend on
@@ -21,6 +24,7 @@ import numpy as np
 from firmware_py.run import params
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.twin.mpy_guest import run_guest
+from host_tools.twin import mpy_unix
 
 N = 512
 FS = 3200
@@ -239,6 +243,91 @@ def device_figures() -> dict:
     }
 
 
+# Feed + features on one axis at the Pico's N, on the unix port: the same FeatureCore built twice
+# in one process, once from the viper stage and once (sys.modules purged, sys.path switched) from
+# the bytecode stage, timed alternately with the heap locked, with the simple loop of the WASI
+# figures (`for i in range(k): s += i` in a function, bytecode) timed in between. Minimum of
+# REPEATS for each; the ratios are taken within the run.
+VIPER_N = 1024
+VIPER_REPEATS = 60
+_LOOP_K = 5_000
+_VIPER = """
+import sys, time, array, micropython
+N = %(n)d
+def purge():
+    for k in list(sys.modules):
+        if k == 'firmware_py' or k.startswith('firmware_py.'):
+            del sys.modules[k]
+def build():
+    from firmware_py.dsp.features import FeatureCore
+    return FeatureCore(N, 1, 3200, -4096, 4095, bands=%(bands)r)
+fc_v = build()
+purge()
+sys.path[sys.path.index(%(native)r)] = %(bytecode)r
+fc_b = build()
+src = array.array('h', bytes(2 * N))
+seed = 12345
+for i in range(N):
+    seed = (seed * 1103515245 + 12345) & 0x3fffffff
+    src[i] = ((seed >> 14) - 32768) // 16 + (i * 37 %% 400) * 4 - 800
+def path(fc):
+    # the driver's blocks of 16 frames into the ring (the Pico's timer period), then features
+    r = fc.ring
+    for b in range(0, N, 16):
+        r.push(src, 16, b)
+    fc.step()
+def loop(k):
+    s = 0
+    for i in range(k):
+        s += i
+    return s
+def timed(fn, arg):
+    t0 = time.ticks_us()
+    fn(arg)
+    return time.ticks_diff(time.ticks_us(), t0)
+best = array.array('i', [1 << 30] * 3)     # microseconds: viper path, bytecode path, loop
+def once():
+    # locals only, so nothing allocates with the heap locked
+    tv = timed(path, fc_v)
+    tb = timed(path, fc_b)
+    tl = timed(loop, %(k)d)
+    best[0] = min(best[0], tv)
+    best[1] = min(best[1], tb)
+    best[2] = min(best[2], tl)
+for rep in range(%(repeats)d):
+    micropython.heap_lock()
+    once()
+    micropython.heap_unlock()
+emit(list(best) + [list(fc_v.feats) == list(fc_b.feats)])
+"""
+
+
+def viper_figures() -> dict:
+    """Window path (feed + features, one axis, N = 1024) with viper and as bytecode on the unix
+    port, in loop iterations per sample and as a ratio, one run (wall-clock minima)."""
+    from firmware_py.run import params as params_mod
+    body = _VIPER % {"n": VIPER_N, "bands": params_mod.default_bands(VIPER_N, FS, 8),
+                     "native": str(mpy_unix.stage(True)), "bytecode": str(mpy_unix.stage(False)),
+                     "repeats": VIPER_REPEATS, "k": _LOOP_K}
+    tv, tb, tl, same = mpy_unix.run_unix(body).out[0]
+    loop_us = tl / _LOOP_K
+    return {
+        "mpy_viper_loop_equiv_per_sample": round(tv / VIPER_N / loop_us, 2),
+        "mpy_unix_bytecode_loop_equiv_per_sample": round(tb / VIPER_N / loop_us, 2),
+        "mpy_viper_speedup": round(tb / tv, 1),
+        "mpy_viper_same_features_as_bytecode": bool(same),
+    }
+
+
+def native_figures() -> dict:
+    """Thumb instructions of each viper function for the RP2040 (mpy-cross -march=armv6m)."""
+    from pathlib import Path
+
+    from host_tools.ops import native_size
+    return {"armv6m_thumb_instructions":
+            native_size.thumb_instructions(Path(__file__).resolve().parents[2])}
+
+
 def host_figures(seconds: float = 60.0, repeat: int = 5) -> dict:
     """numpy twin on a `seconds`-long 3200 Hz one-axis recording, against numpy.fft.rfft."""
     rng = np.random.default_rng(1)
@@ -372,6 +461,7 @@ def stream_figures(folder, p: dict, field_recs: list, minutes: float = STREAM_MI
 
 TARGETS = {
     "mpy_loop_equiv_per_sample": ("<=", 10),
+    "mpy_viper_loop_equiv_per_sample": ("<=", 2.0),
     "core_heap_bytes": ("<=", 16384),
     "allocs_per_window": ("==", 0),
     "host_msamples_per_s": (">=", 5),
@@ -384,3 +474,33 @@ TARGETS = {
 def met(figures: dict) -> dict:
     ops = {"<=": lambda a, b: a <= b, ">=": lambda a, b: a >= b, "==": lambda a, b: a == b}
     return {k: ops[op](figures[k], v) for k, (op, v) in TARGETS.items() if k in figures}
+
+
+# What each figure means, printed beside it by `edgevib bench`.
+MEANING = {
+    "mpy_window_fuel": "WASI MicroPython (bytecode): fuel of one window's features, N = 512, 1 axis",
+    "mpy_loop_fuel": "fuel of one iteration of `for i in range(n): s += i` at module level",
+    "mpy_loop_fuel_in_function": "the same loop inside a function",
+    "mpy_loop_equiv_per_sample": "bytecode feature cost per sample, in module-level loop iterations",
+    "mpy_loop_equiv_per_sample_vs_function_loop": "the same, in loop iterations inside a function",
+    "mpy_naive_float_ratio": "fixed-point features / a plain float version, in fuel",
+    "mpy_naive_float_window_fuel": "fuel of the plain float version per window",
+    "core_heap_bytes": "heap the feature core takes at N = 512, 1 axis, 2 bands (bytes)",
+    "allocs_per_window": "heap blocks allocated per window (must be 0)",
+    "window_runs_with_heap_locked": "a window runs under micropython.heap_lock()",
+    "mpy_viper_loop_equiv_per_sample": ("unix port with viper: feed (16-frame blocks) + features, "
+                                        "N = 1024, 1 axis, wall time per sample in iterations of "
+                                        "the same simple loop in a function (bytecode), same run"),
+    "mpy_unix_bytecode_loop_equiv_per_sample": "the same path as bytecode on the unix port",
+    "mpy_viper_speedup": "bytecode time / viper time of that path, same port, same run",
+    "mpy_viper_same_features_as_bytecode": "viper and bytecode gave the same features",
+    "armv6m_thumb_instructions": ("Thumb instructions of each viper function compiled for the "
+                                  "RP2040 by mpy-cross -march=armv6m (deterministic)"),
+    "host_msamples_per_s": "numpy twin on the host, million samples per second",
+    "host_vs_numpy_rfft_ratio": "numpy twin time / numpy.fft.rfft of the same windows",
+    "train_s_per_hour": "training time per hour of 3200 Hz recording, seconds",
+    "replay_msamples_per_s": "end-to-end replay, million samples per second",
+    "replay_x_real_time": "replay speed as a multiple of real time",
+    "replay_windows": "windows replayed in that measurement",
+    "targets_met": "each target figure against its limit",
+}

