@@ -35,9 +35,11 @@ def desk_set(**changes):
 def crashing_axes(profile=DESK):
     """The issue's set: det_axes 8 with matching DC lists (IndexError in _sensor_bad)."""
     p = params_mod.factory(profile)
+    axial = [k for k, v in p.items() if k.startswith("det_") and isinstance(v, list)
+             and len(v) == profile["axes"] and k != "det_iso_bounds"]     # one entry per axis
     p["det_axes"] = 8
-    p["det_dc_lo_q8"] = p["det_dc_lo_q8"][:1] * 8
-    p["det_dc_hi_q8"] = p["det_dc_hi_q8"][:1] * 8
+    for k in axial:
+        p[k] = p[k][:1] * 8
     return p
 
 
@@ -72,12 +74,12 @@ def test_the_factory_sets_pass():
     (crashing_axes(), "'det_axes' is 8, the set has 3 axes"),
     (desk_set(det_bands=41), "'det_bands' is 41, 'fc_bands' holds 8 bands"),
     (desk_set(fc_bands=None), "'fc_bands' must be a list"),
-    (desk_set(det_k=None), "'det_k' must hold ints"),
+    (desk_set(det_persist_q8=None), "'det_persist_q8' must hold ints"),
     (desk_set(det_thr_alert_q8=True), "'det_thr_alert_q8' must hold ints"),
     (desk_set(det_feat=[0, 1, 2 ** 31]), "'det_feat' must hold ints within"),
     (desk_set(det_base_sd_q4=[256]), "'det_base_sd_q4' must hold"),
     (desk_set(det_modes=2), "'det_mode_c_q8' must hold"),
-    (desk_set(det_k=40), "det_k must be an int in [1, 30]"),
+    (desk_set(det_persist_q8=300), "det_persist_q8 must be an int in [1, 256]"),
     (desk_set(fc_vel_hz=[1000, 10]), "velocity band"),
 ])
 def test_sets_that_would_not_run_are_refused_in_verify_and_nothing_is_committed(tmp_path, p, says):
@@ -196,8 +198,8 @@ def test_a_board_with_room_for_one_set_tries_a_set_in_place_of_the_running_one(t
     assert gw.det.thr_alert_q8 == params_mod.factory(DESK)["det_thr_alert_q8"]   # the committed set runs
     with pytest.raises(ParamError, match="'det_axes' is 8"):
         stage(gw.params, crashing_axes())
-    with pytest.raises(ParamError, match="det_k must be an int"):
-        stage(gw.params, desk_set(version=2, det_k=40))
+    with pytest.raises(ParamError, match="det_persist_q8 must be an int"):
+        stage(gw.params, desk_set(version=2, det_persist_q8=300))
     gw.feed(running(2), DESK["window_n"])
     gw.poll()
     assert gw.windows == 2 and gw.params.source == "factory"       # still running, nothing lost but the ring

@@ -34,12 +34,12 @@ class View:
     fw: str
     port: str
     version: int
-    crc: int              # identify's param_crc: the set this view describes
     axes: int
     scale: float          # m/s^2 per count
     alert_q8: int | None
     alarm_q8: int | None
     params: dict          # the committed parameter set (band edges, for feature names)
+    crc: int | None = None   # identify's param_crc: the set this view describes
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -163,7 +163,7 @@ def run(args: argparse.Namespace) -> int:
         try:
             while args.updates is None or shown < args.updates:
                 st = _next_status(c)
-                if st.get("param_crc", v.crc) != v.crc:     # a new set: version, limits, scale
+                if v.crc is not None and st.get("param_crc", v.crc) != v.crc:   # a new set
                     v = view_of(c, args.port)
                 if screen is not None:
                     screen.draw(render_block(st, v))
