@@ -272,7 +272,7 @@ def test_compare_lists_the_differences_of_two_separate_replays(tmp_path, capsys,
         sets[name].write_bytes(msgpack.packb(p))
     alone = {}
     for name, path in sets.items():
-        out = tmp_path / f"{name}.json"
+        out = tmp_path / f"{name}_replay.json"      # not strict.json: the set's own summary file
         assert main(["--quiet", "replay", str(tmp_path / "gw"), "--params", str(path), "--json", str(out)]) == 0
         alone[name] = json.loads(out.read_text())
     capsys.readouterr()
