@@ -77,7 +77,8 @@ def test_summary_reports_the_bearing_fault_as_detected_with_its_time(demo):
         # span (20 s of running) and hold-off: a fault seen only in them may go unraised, and the
         # summary must say so rather than invent a detection
         assert re.search(r"bearing outer race \(from .*\): NOT detected", text), text
-        return
+        # known shortfall (issue 9), kept visible: the bearing fault should be raised
+        pytest.xfail("the bearing fault is not raised in the demo's sparse 4-s snapshots")
     m = re.search(r"bearing outer race \(from [^,]* UTC, day ([\d.]+) of the scenario\): detected (\S+ \S+) UTC "
                   r"\((\S+) \+ ([\d.]+) s\), day ([\d.]+) of the scenario as (\w+) \((\w+)\), "
                   r"([\d.]+) (h|days) after it began", text)

@@ -188,3 +188,10 @@ def test_severity_ranks_follow_the_rules():
     assert severity(dict(quiet, state_now="sensor_fault"))[0] == 3
     assert severity(dict(quiet, state_now="alarm", alarms=1))[0] == 4
     assert severity({"error": "x: broken"}) == (5, ["x: broken"])
+
+
+def test_every_detector_state_has_a_severity_rank():
+    # the page ranks each day's states; a state the detector gains must not break a pump's row
+    from firmware_py.detect.alarm import STATE_NAMES
+    from host_tools.fleet import review
+    assert set(review._WORST) == set(STATE_NAMES)

@@ -164,7 +164,7 @@ def test_host_commands_refuse_the_sets_with_one_line(tmp_path, capsys):
         (["replay", str(rec), "--params", str(nulls)], "'fc_bands' must be a list"),
         (["replay", str(rec), "--params", str(bad)], "'det_axes' is 8"),
         (["deploy", "--port", "P", "--board", "pico_adxl345", "--dry-run", "--build",
-          str(tmp_path / "b"), "--params", str(pico_bad)], "'det_axes' is 8, the set has 1 axes"),
+          str(tmp_path / "b"), "--params", str(pico_bad)], "'det_axes' is 8, the set has 3 axes"),
         (["deploy", "--port", "P", "--board", "pico_adxl345", "--dry-run", "--build",
           str(rec) + "/b"], "cannot make the build folder"),
     ]:

@@ -170,6 +170,7 @@ def test_demo_scenario_detects_each_seeded_fault(tmp_path):
     gt = json.loads(ds.write_scenario(tmp_path, days=28.5, interval_s=6 * 3600.0).read_text())
     scale = gt["m_s2_per_count"]
     figures = []
+    missed = []
     for pump in ("P-101", "P-102"):
         p, summary = train(read_stream(tmp_path / pump / "training", FS, scale), PROFILE)
         res = replay([tmp_path / pump / "field"], p, PROFILE)
@@ -183,13 +184,17 @@ def test_demo_scenario_detects_each_seeded_fault(tmp_path):
             t = _first(res.events, kinds, f["start_t0_s"], f["end_t0_s"])
             if kinds == ("sensor_fault",):
                 assert t is not None, f"{pump} {f['kind']} not detected"
-            # Machine faults are only reported here: 4-s snapshots six hours apart are shorter
-            # than the persistence span (20 s of running) and the hold-off, so a raise needs
-            # several snapshots in a row and may come late or not at all in this sparse sample;
-            # the evaluation histories (host_tools.data.scenarios) carry the detection targets.
+            elif t is None:
+                missed.append(f"{pump} {f['kind']}")
             figures.append(f"{pump} {f['kind']}: " + (f"{kinds[0] if len(kinds) == 1 else 'alert/alarm'} after "
                            f"{(t - f['start_t0_s']) / 3600:.1f} h" if t is not None else "not raised"))
     print("\ndemo scenario (our own data): " + "; ".join(figures))
+    if missed:
+        # A known shortfall, kept visible instead of asserted away: 4-s snapshots six hours apart
+        # are shorter than the persistence span (20 s of running) and the hold-off, so a machine
+        # fault needs several snapshots in a row to raise. Every seeded machine fault raising is
+        # still the expectation (issue 9); this marks the test expected-to-fail until it does.
+        pytest.xfail("machine faults not raised in the sparse demo snapshots: " + ", ".join(missed))
 
 
 # --- streaming: chunks, workers and memory ----------------------------------------------------------

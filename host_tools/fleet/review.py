@@ -35,7 +35,8 @@ DRIFT_DAYS = 7.0
 DRIFT_FLAG = 2.0   # a screening level of our choosing: the typical window twice as far from normal as at training
 RATE_FLAG = 3.0    # observed alerts over three times the expected rate (training's own warning factor)
 # Worst first when a day holds several states.
-_WORST = {"idle": 0, "learning": 1, "normal": 2, "alert": 3, "sensor_fault": 4, "alarm": 5}
+# every detector state (firmware_py.detect.alarm.STATE_NAMES), least to most severe
+_WORST = {"idle": 0, "learning": 1, "unscored": 2, "normal": 3, "alert": 4, "sensor_fault": 5, "alarm": 6}
 SEVERITIES = {5: "unreadable", 4: "alarm", 3: "alert", 2: "look", 1: "quiet"}
 _RAISES = ("alert", "alarm", "sensor_fault")
 
