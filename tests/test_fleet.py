@@ -195,3 +195,25 @@ def test_every_detector_state_has_a_severity_rank():
     from firmware_py.detect.alarm import STATE_NAMES
     from host_tools.fleet import review
     assert set(review._WORST) == set(STATE_NAMES)
+
+
+def test_fleet_train_then_compare_leaves_the_sets_in_use_untouched(fleet, tmp_path):
+    # train writes candidate sets elsewhere; compare replays each gateway's archive through its set
+    # in use and the candidate; neither touches a gateway's installed set (bytes compared).
+    root, params, profile = fleet
+    before = {g.name: (g / layout.PARAMS).read_bytes() for g in layout.gateways(root)}
+    cand = tmp_path / "candidates"
+    with engine.cluster(workers=2, processes=False) as client:
+        doc, lines = runs.train_fleet(client, root, cand, 1.0, 7, quiet=True)
+        # this small fleet's healthy folders hold too little steady running for a set: training
+        # refuses with its own one-line reason per gateway, never an internal error
+        assert set(doc["gateways"]) | set(doc["errors"]) == set(before)
+        assert all("\n" not in e and "internal error" not in e for e in doc["errors"].values())
+        assert all("steady running" in e for e in doc["errors"].values()), doc["errors"]
+        trained = set(doc["gateways"])
+        cdoc, clines = runs.compare_fleet(client, root, cand, tmp_path / "cmp", None, None, quiet=True)
+    assert set(cdoc["gateways"]) == trained
+    assert set(cdoc["errors"]) == set(before) - trained
+    assert all("no candidate set" in e for e in cdoc["errors"].values())
+    assert clines[-1].startswith(f"{len(trained)} of {len(before)} gateways compared")
+    assert {g.name: (g / layout.PARAMS).read_bytes() for g in layout.gateways(root)} == before

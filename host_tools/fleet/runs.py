@@ -131,16 +131,10 @@ def compare_fleet(client, fleet: Path, candidates: Path, out: Path, since: float
         futs[w.gateway] = client.submit(work.compare_gateway, str(out / _safe(w.gateway) / "compare"), res, sets)
         watched.append(futs[w.gateway])
     engine.watch(watched, "fleet compare", quiet)
-    errors = {w.gateway: w.error for w in plans if w.error}
-    done = {}
-    for g, f in futs.items():
-        why = engine.failure(f)
-        if why:
-            errors[g] = why
-        else:
-            done[g] = f.result()
+    done, errors = _settle(plans, futs)
     doc = {"fleet": layout.read_fleet(fleet).get("name"), "candidates": str(candidates),
            "gateways": {g: d["comparison"] for g, d in done.items()}, "errors": errors}
+    out.mkdir(parents=True, exist_ok=True)
     atomic_write(out / "compare.json", (json.dumps(doc, indent=1) + "\n").encode())
     lines = [f"{g}: {d['line'].removeprefix('compare: ')}" for g, d in sorted(done.items())]
     lines += [f"{g}: ERROR {e}" for g, e in sorted(errors.items())]
@@ -163,16 +157,10 @@ def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet:
             futs[w.gateway] = client.submit(work.train_gateway, w.gateway, paths, w.profile, str(out / _safe(w.gateway)),
                                             target, seed, version, key=f"train-{w.gateway}")
     engine.watch(list(futs.values()), "fleet train", quiet)
-    errors = {w.gateway: w.error for w in plans if w.error}
-    done = {}
-    for g, f in futs.items():
-        why = engine.failure(f)
-        if why:
-            errors[g] = why
-        else:
-            done[g] = f.result()
+    done, errors = _settle(plans, futs)
     doc = {"fleet": layout.read_fleet(fleet).get("name"), "target_false_alerts_per_30_days": target,
            "gateways": done, "errors": errors}
+    out.mkdir(parents=True, exist_ok=True)        # also when every gateway failed
     atomic_write(out / "train.json", (json.dumps(doc, indent=1) + "\n").encode())
     lines = []
     for g, d in sorted(done.items()):
@@ -235,3 +223,18 @@ def _row_line(r: dict) -> str:
     if r.get("error"):
         return f"{head}: ERROR {r['error']}"
     return f"{head}: {r['pump']} ({r['site']}): " + ("; ".join(r["reasons"]) or f"{r['state_now']} now, nothing to note")
+
+
+def _settle(plans, futs) -> tuple[dict, dict]:
+    """(results by gateway, one error line by gateway): planning errors, then failed futures."""
+    from host_tools.fleet import engine
+
+    errors = {w.gateway: w.error for w in plans if w.error}
+    done = {}
+    for g, f in futs.items():
+        why = engine.failure(f)
+        if why:
+            errors[g] = why
+        else:
+            done[g] = f.result()
+    return done, errors

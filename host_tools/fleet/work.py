@@ -35,7 +35,7 @@ import numpy as np
 
 from host_tools.data.analysis import BOARDS, load_board, profile_for_set, scale_of
 from host_tools.data.files import encode_set, load_body
-from host_tools.data.recording import atomic_write, open_recording, open_stream
+from host_tools.data.recording import atomic_write, open_recording, open_stream, read_stream
 from host_tools.errors import EdgevibError
 from host_tools.fleet import layout
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
@@ -212,7 +212,7 @@ def train_gateway(gateway: str, paths: Sequence[str], profile: dict, out_dir: st
 
     if not paths:
         raise EdgevibError(f"{gateway}: no healthy recordings in {layout.HEALTHY}/ to train on")
-    recs = open_stream(list(paths), expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale_of(profile))
+    recs = read_stream(list(paths), expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale_of(profile))
     params, summary = train([recs], profile, false_alerts_per_month, seed=seed, version=version)
     body = encode_set(params, profile)
     out = Path(out_dir)
