@@ -60,11 +60,11 @@ def test_memory_need_follows_the_feature_core(monkeypatch):
 
 def test_a_profile_over_its_budget_is_refused_with_the_numbers():
     p = profile("esp32s3_iis3dwb")
-    p["ring_windows"] = 8
+    p["ring_windows"] = 20
     need = board.memory_need(p)
     with pytest.raises(board.BoardError) as e:
         board.check(p)
-    assert str(need) in str(e.value) and "131072" in str(e.value)
+    assert str(need) in str(e.value) and str(p["heap_budget_bytes"]) in str(e.value)
 
 
 def _set(path, value):
@@ -104,6 +104,10 @@ BAD = [
     (("analyse_every",), 12.5, "analyse_every"),
     # 13 windows of 1024 at 3200 Hz: 4160 ms between analysed windows, watchdog fed too seldom
     (("analyse_every",), 13, "4160 ms of samples, over 4000 ms"),
+    # 5 s of captures: 16 windows of 6144 bytes, more than the 53 654 bytes the budget leaves
+    (("capture_ms",), 5000, "event captures of 5000 ms need 98304 bytes of RAM, more than the 53654"),
+    (("capture_ms",), KeyError, "capture_ms"),
+    (("flash_free_bytes",), 100_000, "holds 1 event captures of 44036 bytes; at least 2 must fit"),
 ]
 
 
@@ -182,3 +186,33 @@ for text in %r:
         expect.append(str(e.value))
     assert res.out[len(NAMES):] == expect
     assert "power of two" in expect[0] and "not 4" in expect[1] and "spi, i2c, none" in expect[2]
+
+
+def _capture_rows():
+    """{profile: [cells]} of the table in docs/boards.md, "Event captures"."""
+    text = (Path(__file__).parent.parent / "docs" / "boards.md").read_text()
+    part = text.split("## Event captures", 1)[1].split("\n## ", 1)[0]
+    rows = {}
+    for line in part.splitlines():
+        cells = [c.strip() for c in line.strip().strip("|").split("|")]
+        if line.startswith("| ") and cells[0] in NAMES:
+            rows[cells[0]] = [c.replace(" ", "") for c in cells[1:]]
+    return rows
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_event_captures_last_2_s_fit_ram_and_flash_and_match_the_docs(name):
+    from firmware_py.store.snapshots import file_bytes, ram_bytes
+    p = board.load(str(BOARDS / (name + ".json")))
+    pre, post, slots = board.capture_plan(p)
+    n, fs, axes = p["window_n"], p["sample_rate_hz"], p["axes"]
+    # issue 11: at least 2 s in all, the windows that led to the event the larger part
+    assert (pre + post) * n >= 2 * fs and pre >= post >= 1 and p["capture_ms"] >= 2000
+    ram = ram_bytes(axes, n, pre + post)
+    assert ram == 2 * axes * n * (pre + post)                      # int16 counts, every axis
+    assert board.memory_need(p) + ram <= p["heap_budget_bytes"]
+    per_file = file_bytes(axes, n, pre + post)
+    fit = p["flash_free_bytes"] // 2 // per_file
+    assert 2 <= slots == min(fit, board.CAPTURE_SLOTS_MAX)
+    assert _capture_rows()[name] == [f"{round(pre * n / fs, 3):g}", f"{round(post * n / fs, 3):g}", str(ram), str(per_file),
+                                     str(fit), str(slots)], "update docs/boards.md, Event captures"

@@ -65,8 +65,11 @@ def committed_params(c: Client) -> dict:
     return image_body(c.param_read())
 
 
-def raw_frames(raw: bytes, n: int, axes: int) -> np.ndarray:
-    """Raw window bytes (int16 little-endian counts, axis-major) as int16 frames x axes."""
-    if len(raw) != 2 * n * axes:
-        raise LinkError(f"raw window of {len(raw)} bytes, expected {2 * n * axes} ({n} x {axes} axes)")
-    return np.frombuffer(raw, dtype="<i2").reshape(axes, n).T.astype(np.int16)
+def raw_frames(raw: bytes, n: int, axes: int, windows: int = 1) -> np.ndarray:
+    """Raw windows' bytes (each int16 little-endian counts, axis-major; windows in time order)
+    as int16 frames x axes."""
+    if len(raw) != 2 * n * axes * windows:
+        raise LinkError(f"raw data of {len(raw)} bytes, expected {2 * n * axes * windows} "
+                        f"({windows} windows of {n} x {axes} axes)")
+    x = np.frombuffer(raw, dtype="<i2").reshape(windows, axes, n)
+    return x.transpose(0, 2, 1).reshape(windows * n, axes).astype(np.int16)

@@ -49,13 +49,11 @@ from firmware_py.run.gateway import Gateway
 from firmware_py.store.paramstore import ParamStore
 from firmware_py.link.service import Service
 from firmware_py.store.latch import LatchFile
-from firmware_py.store.snapshots import SnapshotRing
 from host_tools.errors import EdgevibError
 from host_tools.data.recording import read_recording
 from host_tools.data.units import STANDARD_GRAVITY_M_S2
 
 DESK_BOARD = Path(__file__).resolve().parents[2] / "boards" / "desk.json"
-SNAPSHOT_SLOTS = 8            # event snapshot files kept in state_dir (oldest overwritten)
 PARAM_CAP = 8192              # largest parameter image the store accepts, bytes
 PUSH_BACKLOG = 256 * 1024     # bytes of unread output beyond which pushes are dropped
 _READ = 4096
@@ -146,7 +144,7 @@ class VirtualGateway:
         p = self.profile
         store = ParamStore(self.state_dir, p["name"], self.fs, p["window_n"], p["axes"],
                            self._factory, key=self.key, cap=PARAM_CAP, gateway_id=self.gateway_id)
-        snaps = SnapshotRing(self.state_dir, SNAPSHOT_SLOTS, self.fs, p["window_n"], p["axes"])
+        snaps = board.snapshot_ring(p, self.state_dir)     # as the board sizes them
         self.boot_fed = self.fed
         self.boot_pos = self.pos
         gw = Gateway(p, store, snaps, self._ticks_ms, LatchFile(os.path.join(self.state_dir, "alarm.latch")))
