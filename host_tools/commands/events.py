@@ -129,7 +129,8 @@ def run(args: argparse.Namespace) -> int:
                 bar.update(1)
     kinds = Counter(p.stem.rsplit("_", 1)[1] for p in saved)
     detail = ", ".join(f"{v} {k}" for k, v in sorted(kinds.items()))
-    print(f"pulled {len(saved)} event captures from {args.port} into {out}" + (f" ({detail})" if detail else ""))
+    noun = "event capture" if len(saved) == 1 else "event captures"
+    print(f"pulled {len(saved)} {noun} from {args.port} into {out}" + (f" ({detail})" if detail else ""))
     if lost:
         print(f"{len(lost)} listed captures could not be pulled: " + ", ".join(lost))
     return 0

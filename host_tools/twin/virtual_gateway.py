@@ -13,9 +13,9 @@ as against a board.
   boot (frames * 1000 / fs), and the wall clock starts at the recording's t0_s (0 if it has
   none) at the position where the gateway booted, like a board with a battery-backed clock.
   The `clock` command moves it as on a board.
-- State: the parameter store and the event snapshots are files in state_dir, so stopping the
+- State: the parameter store and the event captures are files in state_dir, so stopping the
   emulator and starting another on the same folder is a power cut. `reboot` rebuilds the store,
-  snapshots, gateway and command handler from those files, as a boot would; samples keep coming
+  event captures, gateway and command handler from those files, as a boot would; samples keep coming
   from where the recording had got to.
 - Link: os.openpty(); the slave end is put in raw mode (termios) and its name is .port, which a
   host opens with pyserial. Replies are always queued; the pushes (stream, raw) of a window are
@@ -86,7 +86,7 @@ def _gateway_id(state_dir: str) -> str:
 
 class VirtualGateway:
     """recording: path of a recording (read with its sidecar); profile: board profile dict;
-    state_dir: folder for the parameter files and snapshots; speed: real time multiple (0 = as
+    state_dir: folder for the parameter files and event captures; speed: real time multiple (0 = as
     fast as possible); loop: restart the recording at its end instead of idling; key: site key
     bytes the gateway holds, or None."""
 
