@@ -33,7 +33,7 @@ KEY = b"brackwater site key, pumps P-101 and P-102"
 def idle_gateway(tmp_path):
     """A virtual gateway that has played 3 s of sines and now idles, answering the link."""
     with emulator(sine_recording(tmp_path / "s.wav", seconds=3.0), tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         yield vg
 
 
@@ -322,7 +322,7 @@ def test_events_are_the_windows_around_the_alarm_and_check_train_replay_take_the
     src = read_recording(rec)
     pre, post, _ = board.capture_plan(PROFILE)
     with emulator(rec, tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--out", tmp_path / "ev")
         assert rc == 0 and "pulled 1 event capture " in out
         on_device = {e["id"]: e for e in vg.gateway.snapshots.list()}
@@ -424,7 +424,7 @@ def _on_a_terminal(*argv):
             break
         text += chunk
     os.close(master)
-    return proc.wait(120), text.decode(errors="replace")
+    return proc.wait(), text.decode(errors="replace")
 
 
 def test_terminal_views(idle_gateway, tmp_path):

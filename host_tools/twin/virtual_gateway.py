@@ -23,7 +23,8 @@ as against a board.
   reading fast enough (counted in push_dropped, frames), as a slow link would lose them; the raw
   stream's window indices show the loss.
 
-Run it in a thread for tests (start() / stop()), or in the foreground with run().
+Run it in a thread for tests (start() / stop(); wait_until(cond) blocks until cond() holds, with
+no timeout), or in the foreground with run().
 
 Entry points: load_profile(), VirtualGateway.
 """
@@ -127,6 +128,11 @@ class VirtualGateway:
         self.ended = threading.Event()     # the recording has been fed to its end (once)
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
+        self._running = False         # the thread of start() is running
+        self.changed = threading.Condition()   # notified after every turn of run()'s loop
+        self.clock = time.monotonic   # the pacing clock (a test may give its own)
+        self._due = 0.0               # clock time the next FIFO block is due
+        self._feeding = True          # False once the recording has ended (no loop)
         self._tx = bytearray()
         self._drop_pushes = False
         self._master, self._slave = os.openpty()
@@ -235,26 +241,42 @@ class VirtualGateway:
     # ---- running ----
     def run(self) -> None:
         """Feed the recording and answer the link until stop()."""
+        self._due = self.clock()
+        try:
+            while not self._stop.is_set():
+                self._link(self._pace(self.clock()))
+                with self.changed:
+                    self.changed.notify_all()
+        finally:
+            with self.changed:
+                self._running = False
+                self.changed.notify_all()
+
+    def _pace(self, now: float) -> float:
+        """Feed the FIFO blocks due by clock time now (real time x speed from the first call to
+        run(); at most _CATCH_UP blocks, so the link is answered when behind), and return the
+        seconds to wait for link bytes before the next is due (at most 0.05)."""
         period = self.block / (self.fs * self.speed) if self.speed > 0 else 0.0
-        due = time.monotonic()
-        feeding = True
-        while not self._stop.is_set():
-            if feeding:
-                now = time.monotonic()
-                for _ in range(_CATCH_UP):      # behind time: catch up, but keep answering
-                    if not (feeding and now >= due):
-                        break
-                    feeding = self._feed_block()
-                    due += period
-                    if period == 0.0:
-                        break
-                wait = max(0.0, due - time.monotonic()) if feeding else 0.05
-            else:
-                wait = 0.05
-            self._link(min(wait, 0.05))
+        for _ in range(_CATCH_UP):      # behind time: catch up, but keep answering
+            if not (self._feeding and now >= self._due):
+                break
+            self._feeding = self._feed_block()
+            self._due += period
+            if period == 0.0:
+                break
+        return min(max(0.0, self._due - now), 0.05) if self._feeding else 0.05
+
+    def wait_until(self, cond) -> bool:
+        """Block until cond() holds or the gateway's thread has ended (it re-checks after every
+        turn of its loop), and return cond(): no clock involved, so a test cannot fail for being
+        slow; only a gateway that runs on without cond() ever holding would wait for good."""
+        with self.changed:
+            self.changed.wait_for(lambda: cond() or not self._running)
+        return bool(cond())
 
     def start(self) -> "VirtualGateway":
         """Run in a background thread (for tests and in-process use)."""
+        self._running = True
         self._thread = threading.Thread(target=self.run, name="virtual-gateway", daemon=True)
         self._thread.start()
         return self
