@@ -299,7 +299,8 @@ def test_emulate_process_answers_monitor_and_survives_a_kill_mid_flash(tmp_path,
 
 
 def test_gap_accounting_allocates_nothing_on_micropython():
-    """feed() past a full ring and window() after it, each under heap_lock on MicroPython."""
+    """feed() past a full ring and window() after it, each under heap_lock on MicroPython; the
+    window also goes into the event capture's history (3 windows before a trigger, 2 after)."""
     import json
 
     from host_tools.twin.mpy_guest import run_guest
@@ -313,7 +314,7 @@ from firmware_py.store.snapshots import SnapshotRing
 prof = json.loads(%(profile)r)
 n = prof['window_n']
 store = ParamStore('/nonexistent-edgevib', 'desk', 3200, n, 3, mpack.packb(params.factory(prof), 4096))
-gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3), lambda: 0)
+gw = Gateway(prof, store, SnapshotRing('/nonexistent-edgevib', 2, 3200, n, 3, 3, 2), lambda: 0)
 src = array.array('h', [((k * 37) %% 2001) - 1000 for k in range(48)])
 def feed():
     gw.feed(src, 16)
@@ -331,11 +332,12 @@ for rounds in (3, 1):
         if not ran:
             break
         gaps.append(gw.raw_gap)
-emit([ok, gaps, gw.core.ring.dropped])
+emit([ok, gaps, gw.core.ring.dropped, gw.snapshots.have])
 """ % {"profile": json.dumps(PROFILE)})
-    ok, gaps, dropped = res.out[0]
+    ok, gaps, dropped, have = res.out[0]
     assert ok, "feed or window allocated under heap_lock"
     assert gaps == [0, 0, N] and dropped == N     # a third window did not fit; the next one says so
+    assert have == 1                              # the capture's history restarted at that gap
 
 
 def test_loop_repeats_the_recording(tmp_path):

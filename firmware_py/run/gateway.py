@@ -190,12 +190,12 @@ class Gateway:
         return True
 
     def poll(self):
-        """Process every waiting window, then do the work that allocates: snapshots, stream."""
+        """Process every waiting window, then do the work that allocates: captures, stream;
+        then one step of writing a whole capture to flash (also while no windows come)."""
         while self.window():
             self._keep_latch()
             if self.pending_kind is not None:
-                self._capture()
-            self.snapshots.work()    # a step of writing a whole capture to flash
+                self._capture(self.pending_kind)
             if self.streaming and self.service is not None:
                 self.service.push(self.status())
             if self.raw_on and self.service is not None:
@@ -203,11 +203,13 @@ class Gateway:
                 self.service.push_data("raw", {"w": (self.windows - 1) % self.wrap, "gap": self.raw_gap,
                                                "t_s": self.now_s(), "ms": t % 1000},
                                        bytes(self.raw))
+        self.snapshots.work()
 
-    def _capture(self):
-        """Start the event capture of the window just processed: its features and the
-        transition the detector recorded for it (the newest entry of its event ring)."""
-        kind = alarm.STATE_NAMES[self.pending_kind]
+    def _capture(self, state):
+        """Start the event capture of the window just processed, which moved the detector to
+        state: its features and the transition the detector recorded for it (the newest entry
+        of its event ring)."""
+        kind = alarm.STATE_NAMES[state]
         self.pending_kind = None
         ev = self.det.events
         i = ev.head - 1 if ev.head else ev.cap - 1

@@ -78,19 +78,17 @@ class SnapshotRing:
         self.have = 0           # windows held before the trigger (at most pre)
         self.got = 0            # windows recorded after it
         self.busy = 0           # events that came while a capture was forming or being written
-        self._meta = None       # header map of the capture being formed
+        self._meta = {}         # header map of the capture being formed
         self._w = mpack.Writer(bytearray(META_CAP))
         self._reg = array('H', bytes(4))             # running CRC of the file being written
         self._crc = bytearray(4)
-        self._f = None          # ev.tmp while it is written
-        self._k = 0             # windows written to it
-        self._index = [None] * slots    # per slot: {id, t, kind, size} of a listed file
-        self.next_id = 0
+        self._k = -1            # windows written to ev.tmp (self._f, made by _open); -1: not open
         self._recover()
-        for s in range(slots):
-            e = self._scan(self._path(s))
-            self._index[s] = e
-            if e is not None and e["id"] >= self.next_id:
+        # per slot: {id, t, kind, size} of a listed file, or {}
+        self._index = [self._scan(self._path(s)) for s in range(slots)]
+        self.next_id = 0
+        for e in self._index:
+            if e and e["id"] >= self.next_id:
                 self.next_id = e["id"] + 1
 
     # ---- in RAM, per window (allocation-free) ----
@@ -140,11 +138,11 @@ class SnapshotRing:
         return self.phase != _IDLE
 
     def work(self):
-        """One step of writing a whole capture to flash (call after each window): the header,
+        """One step of writing a whole capture to flash (call once per main-loop pass): the header,
         then one window per call, then the CRC and the rename. Does nothing otherwise."""
         if self.phase != _SAVE:
             return
-        if self._f is None:
+        if self._k < 0:
             self._open()
         elif self._k < self.have + self.got:
             k = self._k
@@ -175,10 +173,12 @@ class SnapshotRing:
         crc32_end(self._reg, self._crc, 0)
         f.write(self._crc)
         f.close()
-        self._f = None
-        m = self._meta
-        self._commit(m["id"] % self.slots)
-        self._meta = None
+        self._k = -1
+        slot = self._meta["id"] % self.slots
+        self._index[slot] = {}
+        self._commit(slot)
+        self._index[slot] = self._scan(self._path(slot))
+        self._meta = {}
         self.phase = _IDLE
         self.have = 0            # the windows kept so far were this capture's
         self.head = 0
@@ -186,19 +186,17 @@ class SnapshotRing:
     def _commit(self, slot):
         """Move the whole ev.tmp into slot (the old file there removed first)."""
         path = self._path(slot)
-        self._index[slot] = None
         try:
             os.remove(path)
         except OSError:
             pass
         os.rename(self.root + "/ev.tmp", path)
-        self._index[slot] = self._scan(path)
 
     def _recover(self):
         """At start: a whole ev.tmp (cut before its rename) goes to its slot; a short one goes."""
         tmp = self.root + "/ev.tmp"
         e = self._scan(tmp)
-        if e is not None:
+        if e:
             self._commit(e["id"] % self.slots)
             return
         try:
@@ -212,32 +210,32 @@ class SnapshotRing:
 
     def _scan(self, path):
         """{id, t, kind, size} of the capture file at path if its header parses and its length
-        is what the header says; else None. Reads the header only."""
+        is what the header says; else {}. Reads the header only."""
         try:
             size = os.stat(path)[6]
             with open(path, "rb") as f:
                 head = f.read(META_CAP)
         except OSError:
-            return None
+            return {}
         try:
             r = mpack.Reader(head, 0, len(head))
             m = r.unpack()
             want = r.pos + 2 * m["axes"] * m["n"] * (m["pre"] + m["post"]) + 4
             if size != want:
-                return None
+                return {}
             return {"id": m["id"], "t": m["t"], "kind": m["kind"], "size": size}
         except Exception:       # not a capture header: a torn or foreign file is not listed
-            return None
+            return {}
 
     def list(self):
         """[{id, t, kind, size}] of the captures on flash, oldest first."""
-        out = [dict(e) for e in self._index if e is not None]
+        out = [dict(e) for e in self._index if e]
         out.sort(key=lambda e: e["id"])
         return out
 
     def _slot_of(self, sid):
         e = self._index[sid % self.slots]
-        return e if e is not None and e["id"] == sid else None
+        return e if e and e["id"] == sid else None
 
     def read(self, sid, off, k):
         """Bytes [off, off+k) of capture sid's file, or None if it is gone."""
