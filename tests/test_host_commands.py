@@ -23,7 +23,7 @@ from host_tools.link import Client
 from host_tools.data import units
 from host_tools.data.recording import read_recording, write_wav
 from tests.test_emulate import (
-    CPG, FS, M_S2_PER_COUNT, N, PROFILE, REPO, SINES, emulator, fault_recording, param_body, run_cli,
+    CPG, FS, M_S2_PER_COUNT, N, PROFILE, REPO, SINES, T0, emulator, fault_recording, param_body, run_cli,
     sine_recording)
 
 KEY = b"brackwater site key, pumps P-101 and P-102"
@@ -433,3 +433,32 @@ def test_terminal_views(idle_gateway, tmp_path):
     f = _set_file(tmp_path / "v4.msgpack", 4, note="x" * 6000)      # 14 chunks
     rc, text = _on_a_terminal("flash", f, "--port", idle_gateway.port)
     assert rc == 0 and "upload:" in text and "flashed version 4" in text     # tqdm's bar on stderr
+
+
+def test_events_reports_a_damaged_capture_and_writes_the_others(tmp_path):
+    """A capture whose CRC fails on the way from the gateway is named, not written; the next
+    one is written whole (the CRC is binascii's CRC-32, ISO-HDLC)."""
+    from firmware_py.dsp import feature_index as fi
+    from firmware_py.store.snapshots import SnapshotRing
+    from host_tools.commands import events as events_cmd
+    from tests.captures import save_capture
+    ring = SnapshotRing(str(tmp_path), 4, FS, N, 3)
+    win = np.arange(N * 3, dtype=np.int16).tobytes()
+    params = params_mod.factory(PROFILE)
+    per_axis = fi.per_axis(len(params["fc_bands"]))
+    for k in range(2):
+        save_capture(ring, "alert", int(T0) + k, [0] * (3 * per_axis), win)
+    good = ring.read(1, 0, ring.size(1))
+    bad = bytearray(ring.read(0, 0, ring.size(0)))
+    bad[len(bad) // 2] ^= 1
+    assert int.from_bytes(good[-4:], "little") == binascii.crc32(good[:-4])
+
+    class Device:
+        def event_read(self, sid):
+            return bytes(bad) if sid == 0 else good
+    saved, lost = [], []
+    for e in ring.list():
+        events_cmd._pull(Device(), e, tmp_path, params, "desk", saved, lost)
+    assert [p.name for p in saved] == ["event_00001_alert.wav"] and len(lost) == 1
+    assert lost[0].startswith("0 (damaged on the gateway") and "CRC" in lost[0]
+    assert np.array_equal(read_recording(saved[0]).counts, np.arange(N * 3, dtype=np.int16).reshape(3, N).T)
