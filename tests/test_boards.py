@@ -216,3 +216,29 @@ def test_event_captures_last_2_s_fit_ram_and_flash_and_match_the_docs(name):
     assert 2 <= slots == min(fit, board.CAPTURE_SLOTS_MAX)
     assert _capture_rows()[name] == [f"{round(pre * n / fs, 3):g}", f"{round(post * n / fs, 3):g}", str(ram), str(per_file),
                                      str(fit), str(slots)], "update docs/boards.md, Event captures"
+
+
+def test_the_pico_capture_buffer_takes_what_the_plan_says_on_micropython():
+    """Heap the Pico's SnapshotRing takes on the WASI MicroPython (gc.mem_alloc around its
+    construction): the capture buffer's payload, the 1024-byte header writer, and at most 1024
+    bytes of object headers and bookkeeping (the allowance board.memory_need makes for the
+    core's headers); with the core's need it stays inside the profile's heap budget."""
+    from host_tools.twin.mpy_guest import run_guest
+    from firmware_py.store.snapshots import META_CAP, ram_bytes
+    p = profile("pico_adxl345")
+    pre, post, slots = board.capture_plan(p)
+    res = run_guest(f"""
+import gc
+from firmware_py.store.snapshots import SnapshotRing
+def build():
+    return SnapshotRing('/nonexistent-edgevib', {slots}, {p['sample_rate_hz']}, {p['window_n']}, {p['axes']}, {pre}, {post})
+gc.collect()
+a0 = gc.mem_alloc()
+r = build()
+gc.collect()
+emit(gc.mem_alloc() - a0)
+""")
+    heap = res.out[0]
+    payload = ram_bytes(p["axes"], p["window_n"], pre + post) + META_CAP
+    assert payload <= heap <= payload + 1024, (payload, heap)
+    assert board.memory_need(p) + heap <= p["heap_budget_bytes"]
