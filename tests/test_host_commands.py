@@ -18,7 +18,7 @@ from host_tools.twin import virtual_gateway
 from host_tools.commands import flash as flash_cmd
 from host_tools.commands import monitor as monitor_cmd
 from host_tools.commands import record as record_cmd
-from host_tools.errors import LinkError
+from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import Client
 from host_tools.data import units
 from host_tools.data.recording import read_recording, write_wav
@@ -462,3 +462,22 @@ def test_events_reports_a_damaged_capture_and_writes_the_others(tmp_path):
     assert [p.name for p in saved] == ["event_00001_alert.wav"] and len(lost) == 1
     assert lost[0].startswith("0 (damaged on the gateway") and "CRC" in lost[0]
     assert np.array_equal(read_recording(saved[0]).counts, np.arange(N * 3, dtype=np.int16).reshape(3, N).T)
+
+
+@pytest.mark.parametrize("name", ["desk", "esp32s3_iis3dwb", "pico_adxl345"])
+def test_every_boards_captures_are_long_enough_for_check(name):
+    """A capture of each board holds the windows `check` wants before it calls its averages
+    rough, at the board's window (check --board) and at the desk's own window for the rate
+    (check on the file alone, where the rate has one); check's windows do not overlap (13 of
+    512 in 2.08 s above)."""
+    from host_tools.check.commission import FEW_WINDOWS
+    from host_tools.data.analysis import window_for
+    p = board.load(str(REPO / "boards" / f"{name}.json"))
+    pre, post, _ = board.capture_plan(p)
+    frames = (pre + post) * p["window_n"]
+    assert frames // p["window_n"] >= FEW_WINDOWS
+    try:
+        desk_n = window_for(p["sample_rate_hz"], None)
+    except EdgevibError:            # 26.667 kHz: no desk window fits; check needs --board
+        desk_n = None
+    assert desk_n is None or frames // desk_n >= FEW_WINDOWS
