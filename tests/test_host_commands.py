@@ -236,6 +236,7 @@ def test_record_equals_the_source_samples(tmp_path, capsys):
     assert side["m_s2_per_unit"] == pytest.approx(9.80665 / CPG, rel=1e-12)   # ISO 80000-3 gravity
     assert got.t0_s == pytest.approx(src.t0_s + first / FS, abs=1.0)          # the clock ticks in s
     assert got.axes == ("x", "y", "z") and side["param_version"] == 0
+    assert side["full_scale"] == PROFILE["sensor"]["adc_max"]           # the desk's converter
     assert not vg.gateway.raw_on                                              # stream stopped
 
 
@@ -352,6 +353,7 @@ def test_events_are_the_windows_around_the_alarm_and_check_train_replay_take_the
     assert k >= src.n_frames // 2 // N                                  # after the imbalance began
     assert side["t"] == int(src.t0_s) + (k + 1) * N // FS               # the clock at its end, in s
     assert side["pre_trigger_s"] == pre * N / FS and side["post_trigger_s"] == post * N / FS
+    assert side["full_scale"] == PROFILE["sensor"]["adc_max"]          # clipping judged there
     assert side["t0_s"] == side["t"] - pre * N / FS
     assert side["time_utc"] == datetime.fromtimestamp(side["t"], timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
     assert side["kind"] == side["state"] == "alarm" == on_device[side["event_id"]]["kind"]

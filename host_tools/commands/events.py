@@ -5,7 +5,8 @@ A capture (firmware_py/store/snapshots.py) holds the windows that led to an aler
 (the window that raised it last) and the stretch recorded after it, contiguous samples of every
 axis the board has. It becomes DIR/event_<id>_<kind>.wav, a recording `check`, `train` and
 `replay` take like any other, with a sidecar carrying: t0_s (the first sample, on the gateway's
-clock, to the second), time_utc and t (the end of the window that raised the event), the
+clock, to the second), time_utc and t (the end of the window that raised the event),
+full_scale (the converter's, from this host's profile of the board, if it has one), the
 event's state, reason, driving feature (index and readable name) and score, pre_trigger_s and
 post_trigger_s (seconds before and after that moment), the raw features of that window with a
 readable per-axis summary in physical units. Files are written whole
@@ -28,7 +29,8 @@ from firmware_py.store.snapshots import parse
 from host_tools.data import units
 from host_tools.data.times import utc_text
 from host_tools.data.units import feature_name, m_s2_per_count
-from host_tools.link.device_link import add_key_argument, committed_params, connected, raw_frames, read_key
+from host_tools.link.device_link import (add_key_argument, board_full_scale, committed_params, connected, raw_frames,
+                                         read_key)
 from host_tools.progress import progress_bar
 from host_tools.errors import EdgevibError
 from host_tools.link import DeviceRefused
@@ -92,6 +94,7 @@ def save_event(out: Path, img: bytes, params: dict, board: str) -> Path:
         "post_trigger_s": post * n / fs,
         "features": list(meta["features"]),
         "features_summary": summary(list(meta["features"]), axes, scale),
+        **board_full_scale(board),
     }
     frames = raw_frames(raw, n, axes, pre + post)
     return write_wav(out / f"event_{meta['id']:05d}_{meta['kind']}.wav", frames, fs, sidecar)
