@@ -226,3 +226,18 @@ meta, raw = parse(bytes.fromhex({img.hex()!r}))
 emit([ok, r.got, meta['kind'], meta['t'], meta['features'], list(array('h', raw))[:5], len(raw)])
 """)
     assert res.out[0] == [True, POST, "alarm", 77, [5, -6], window(2).tolist()[:5], N * AXES * 2]
+
+
+def test_the_largest_header_a_profile_allows_fits_the_header_buffer():
+    """The header map with every field at its widest (3 axes, 32 bands: the most a profile
+    allows, firmware_py/run/board.py; every int 5 bytes in MessagePack) fits META_CAP, so
+    writing a capture can never fail for its header; sized by the msgpack library too."""
+    from firmware_py.codec import mpack
+    from firmware_py.dsp import feature_index as fi
+    per = fi.per_axis(32)
+    m = {"id": 2 ** 29, "t": 2 ** 32 - 1, "kind": "alarm", "fs_hz": 100_000, "n": 8192, "axes": 3,
+         "features": [-2 ** 30] * (3 * per), "reason": 20, "feature": 3 * per - 1, "score_q8": 2 ** 29,
+         "mode": 7, "pre": 60_000, "post": 60_000}
+    w = mpack.Writer(bytearray(snapshots.META_CAP))
+    w.pack(m)                                           # raises if it does not fit
+    assert w.pos == len(msgpack.packb(m)) <= snapshots.META_CAP
