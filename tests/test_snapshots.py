@@ -241,3 +241,36 @@ def test_the_largest_header_a_profile_allows_fits_the_header_buffer():
     w = mpack.Writer(bytearray(snapshots.META_CAP))
     w.pack(m)                                           # raises if it does not fit
     assert w.pos == len(msgpack.packb(m)) <= snapshots.META_CAP
+
+
+def test_keep_runs_as_viper_on_the_unix_port_allocation_free_and_exact():
+    """The same windows through keep() on the unix MicroPython with viper (gather16 compiled),
+    each under heap_lock: the buffer holds exactly what CPython's run holds."""
+    from host_tools.twin.mpy_unix import run_unix
+    seeds = range(6)
+    res = run_unix(f"""
+from array import array
+import micropython
+from firmware_py.store.snapshots import SnapshotRing
+r = SnapshotRing('/nonexistent-edgevib', 2, 3200, {N}, {AXES}, {PRE}, {POST})
+ok = True
+for s in {list(seeds)!r}:
+    w = array('h', [((i * 37 + s * 101) % 65536) - 32768 for i in range({N * AXES})])
+    micropython.heap_lock()
+    try:
+        r.keep(w, 0)
+    except MemoryError:
+        ok = False
+    micropython.heap_unlock()
+    if s == {PRE}:
+        r.trigger('alert', 1, [0], {{}})
+emit([ok, list(r.buf)])
+""")
+    ok, buf = res.out[0]
+    here = ring("/nonexistent-edgevib")
+    for s in seeds:
+        here.keep(window(s), 0)
+        if s == PRE:
+            here.trigger("alert", 1, [0], {})
+    assert here.got == POST and not here.have == 0
+    assert ok and buf == here.buf.tolist()
