@@ -166,7 +166,7 @@ def test_a_failing_bus_in_the_timer_callback_raises_nothing_and_shows(tmp_path):
     rig = Rig(tmp_path)
     rig.run(N // 16)
 
-    def broken(out):
+    def broken(out, at=0):
         raise OSError(5)                 # EIO, as machine.SPI/I2C report a failed transfer
     rig.app.drv.read_into = broken
     periods = STALL_MS * 1000 // BLOCK_US + 1
@@ -605,7 +605,9 @@ def one_window():
     # one cycle of analyse_every windows: the first into the ring, the rest skipped
     ok_all = True
     got = 0
-    while got < %(cycle)d:
+    # the app feeds its read block once it holds more than app.hold frames: read on until the
+    # window is in the ring
+    while got < %(cycle)d or not gw.core.ring.ready():
         m.advance_us(%(block_us)d)
         ok, k = locked(acquire)
         ok_all = ok_all and ok
@@ -849,7 +851,10 @@ _KERNELS = """
 KERNELS = (('firmware_py.dsp.fft', ('cfft', 'spectrum', 'power_sum')),
            ('firmware_py.dsp.features', ('_scan', '_shape')),
            ('firmware_py.dsp.fixmath', ('msb', 'isqrt', 'sqrt_pow2', 'div_pow2', 'log2_q8')),
-           ('firmware_py.dsp.ring', ('gather16',)),
+           ('firmware_py.dsp.ring', ('scatter16',)),
+           ('firmware_py.dsp.speed', ('_best_candidate',)),
+           ('firmware_py.dsp.envelope', ('_peak', '_band_in', '_square', '_rescale', '_demean',
+                                         '_lobe_power')),
            ('firmware_py.drivers', ('unpack_words',)))
 import sys
 calls = []
