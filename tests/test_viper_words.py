@@ -45,7 +45,7 @@ def test_viper_features_on_a_machine_word_equal_python_ints(bits, monkeypatch):
             if hasattr(mod, name):
                 src = fft_w if name == "power_sum" else fix_w
                 monkeypatch.setattr(mod, name, getattr(src, name))
-    for mod, names in ((features, ("_scan", "_shape")), (ring, ("scatter16",)),
+    for mod, names in ((features, ("_scan", "_shape", "_bands")), (ring, ("scatter16",)),
                        (speed, ("_best_candidate",)),
                        (envelope, ("_peak", "_band_in", "_square", "_rescale", "_demean",
                                    "_lobe_power"))):

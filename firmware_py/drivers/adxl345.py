@@ -4,7 +4,7 @@ Register map and bit names: ADXL345 Data Sheet, Rev. G, Table 19 "Register Map" 
 "Register Definitions" section (revision letter from memory).
 
 Entry points: rate_code(), range_code(), check_profile(), block_frames(), read_frames(),
-footprint_bytes(), ADXL345."""
+footprint_bytes(), frame_slots(), ADXL345."""
 from micropython import const
 
 from firmware_py.drivers import GapCounter, mean_frames, unpack_words
@@ -91,8 +91,19 @@ def read_frames(watermark):
 
 
 def footprint_bytes(watermark, axes):
-    """Heap bytes of the driver's buffers plus the caller's read block (array('h'))."""
-    return 6 + 3 + 2 * axes * block_frames(watermark)
+    """Heap bytes of the driver's buffers (frame_slots: the raw bytes and, at about 16 bytes
+    each, their views and list; command and write bytes) plus the caller's read block
+    (array('h'))."""
+    return 6 * FIFO_FRAMES + 16 * FIFO_FRAMES + 4 * FIFO_FRAMES + 3 + 2 * axes * block_frames(watermark)
+
+
+def frame_slots():
+    """The raw bytes of one FIFO drain (6 per frame, DATAX0..DATAZ1) and a memoryview of each
+    frame's 6 bytes in it, made once: a read fills the frames one transaction each and decodes
+    them in one call (a slice made per read would allocate)."""
+    raw = bytearray(6 * FIFO_FRAMES)
+    mv = memoryview(raw)
+    return raw, [mv[6 * j:6 * j + 6] for j in range(FIFO_FRAMES)]
 
 
 class ADXL345:
@@ -109,7 +120,7 @@ class ADXL345:
             ticks_us = time.ticks_us
         self._regs = regs
         self.axes = axes
-        self._buf = bytearray(6)
+        self._raw, self._slots = frame_slots()
         self._one = bytearray(1)
         if self._read8(_DEVID) != _DEVID_VALUE:
             raise OSError("ADXL345 not found: DEVID is not 0xE5")
@@ -137,19 +148,20 @@ class ADXL345:
         lost to an overrun since the last call are added to self.gaps.lost (self.gaps.overruns
         counts the events). Allocates nothing."""
         regs = self._regs
-        buf = self._buf
+        slots = self._slots
         level = self._read8(_FIFO_STATUS) & _ENTRIES_MASK
         self.gaps.account(level, self._read8(_INT_SOURCE) & _OVERRUN)
         axes = self.axes
         n = len(out) // axes - at
+        if n > FIFO_FRAMES:
+            n = FIFO_FRAMES         # the slots hold one drain (Entries may read 33: FIFO + output)
         if level < n:
             n = level
-        i = at * axes
-        for _ in range(n):
+        for j in range(n):
             # One frame per transaction: the FIFO pops when a read of the data registers ends
             # ("Retrieving Data from FIFO"), and reading past DATAZ1 reaches FIFO_CTL.
-            regs.read_into(_DATAX0, buf)
-            i = unpack_words(buf, 1, 6, 0, axes, -1, out, i)    # x, y, z little-endian
+            regs.read_into(_DATAX0, slots[j])
+        unpack_words(self._raw, n, 6, 0, axes, -1, out, at * axes)    # x, y, z little-endian
         self.gaps.taken(n)
         return n
 

@@ -78,19 +78,24 @@ def footprint_bytes(axes, n, slots):
 
 @micropython.viper
 def scatter16(d, src, i: int, axes: int, take: int, w: int, cap: int) -> int:
-    """Spread take frames of `axes` interleaved int16 counts, from src[i] on, over the axes'
-    planes of d: count a of a frame to d[a * cap + w], w counting up from w and wrapping to 0 at
-    cap; returns the next w. Counts are copied as 16-bit patterns (no arithmetic on them).
+    """Spread take <= cap frames of `axes` interleaved int16 counts, from src[i] on, over the
+    axes' planes of d: count a of a frame to d[a * cap + w], w counting up from w and wrapping to
+    0 at cap; returns the next w. Counts are copied as 16-bit patterns (no arithmetic on them).
     With axes 1 it is a plain copy into a circular buffer of cap counts."""
     dp = ptr16(d)
     sp = ptr16(src)
-    for _ in range(take):
-        o = w
-        for _a in range(axes):
-            dp[o] = sp[i]
-            i += 1
-            o += cap
-        w += 1
-        if w == cap:
-            w = 0
+    for a in range(axes):           # axis by axis: the inner loop only loads, stores and counts
+        base = a * cap
+        end = base + cap
+        o = base + w
+        j = i + a
+        for _ in range(take):
+            dp[o] = sp[j]
+            j += axes
+            o += 1
+            if o == end:
+                o = base
+    w += take
+    if w >= cap:
+        w -= cap
     return w
