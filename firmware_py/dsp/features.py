@@ -111,6 +111,8 @@ class FeatureCore:
         self.env = envelope.Envelope(n, fs_hz, env_band, bear_q12, speed_hi_q8, self.hann_q15,
                                      self.pos, self.tw_q15, self.cos_q15, self.sin_q15,
                                      self.log2_q15)
+        for a in range(axes):       # the stages' fields as they stay while the stages are off
+            self._stages(a * self.per, 0)
         self.windows = 0
 
     def step(self):
@@ -165,6 +167,12 @@ class FeatureCore:
         vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p,
                           self.env.on)
         self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
+        if self.speed.on:           # off: no 1x, so neither orders nor envelope; fields as set
+            self._stages(off, u)
+
+    def _stages(self, off, u):
+        """Speed, orders and envelope from the spectrum the FFT left (u: the window's scale)."""
+        f = self.feats
         f1 = self.speed.run(f, off)
         self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
         self.env.run(self.buf, f1, f, off)
