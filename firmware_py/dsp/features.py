@@ -8,7 +8,8 @@ then the shaft speed (speed), the order amplitudes (orders) and the squared-enve
 (envelope), each of which reads the spectrum the FFT left.
 
 Entry points: check_config(), footprint_bytes(), FeatureCore. The per-sample passes (_scan,
-_shape) and the FFT stages are viper-compiled on the boards (firmware_py.viper_stand)."""
+_shape), the FFT stages and the band powers (_bands) are viper-compiled on the boards
+(firmware_py.viper_stand), as are the speed and envelope stages' loops in their modules."""
 import array
 
 import micropython
