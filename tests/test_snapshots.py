@@ -244,7 +244,7 @@ def test_the_largest_header_a_profile_allows_fits_the_header_buffer():
 
 
 def test_keep_runs_as_viper_on_the_unix_port_allocation_free_and_exact():
-    """The same windows through keep() on the unix MicroPython with viper (gather16 compiled),
+    """The same windows through keep() on the unix MicroPython with viper (scatter16 compiled),
     each under heap_lock: the buffer holds exactly what CPython's run holds."""
     from host_tools.twin.mpy_unix import run_unix
     seeds = range(6)

@@ -29,7 +29,7 @@ from array import array
 from micropython import const
 from firmware_py.codec import mpack
 from firmware_py.codec.crc32 import crc32_end, crc32_ok, crc32_run, crc32_start
-from firmware_py.dsp.ring import gather16
+from firmware_py.dsp.ring import scatter16
 
 META_CAP = const(1024)   # bytes for the header map; features of a few hundred fields fit
 _IDLE = const(0)         # keeping the last `pre` windows
@@ -98,7 +98,7 @@ class SnapshotRing:
         if self.phase == _IDLE:
             if gap:
                 self.have = 0
-            gather16(self.buf, raw, 0, 1, self.win, self.head * self.win, len(self.buf))
+            scatter16(self.buf, raw, 0, 1, self.win, self.head * self.win, len(self.buf))
             self.head += 1
             if self.head == self.pre:
                 self.head = 0
@@ -108,7 +108,7 @@ class SnapshotRing:
             if gap:
                 self.phase = _SAVE          # never splice: the stretch after it ends here
                 return
-            gather16(self.buf, raw, 0, 1, self.win, (self.pre + self.got) * self.win, len(self.buf))
+            scatter16(self.buf, raw, 0, 1, self.win, (self.pre + self.got) * self.win, len(self.buf))
             self.got += 1
             if self.got == self.post:
                 self.phase = _SAVE
