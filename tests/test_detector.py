@@ -306,7 +306,7 @@ def test_clear_needs_hysteresis_and_dwell():
     # 2.5 spreads is under the alert threshold but over the clear one (0.8 x 3 = 2.4): holds
     assert run(det, [2.5] * 12, 10) == [NO] * 12
     # windows under 2.4, and the dwell (8 windows in the state) is already met: clears once at
-    # most 2 of the last 5 (span - k) are over the clear threshold, on the third clean window
+    # most 2 of the last 5 (fewer than k = 3) are over the clear threshold, on the third clean window
     assert run(det, [2.3] * 5, 30) == [NO] * 2 + [N] * 3
     det2 = running(Detector(params(det_dwell_ms=8 * W_MS)))
     run(det2, [4, 4, 4])

@@ -23,7 +23,7 @@ def ar1_scores(n, seed):
 
 def rule_raises(c, thr):
     """Raises of the documented rule, written out independently of the device code: raise when at
-    least K of the last SPAN scores are >= thr (span full); clear when at most SPAN - K of the
+    least K of the last SPAN scores are >= thr (span full); clear when fewer than K of the
     last SPAN are >= HYST * thr and at least one window was spent raised (dwell 1)."""
     over = np.convolve(c >= thr, np.ones(SPAN, int))[SPAN - 1:len(c)]
     above = np.convolve(c >= HYST * thr, np.ones(SPAN, int))[SPAN - 1:len(c)]
@@ -34,7 +34,7 @@ def rule_raises(c, thr):
                 raised, n, held = True, n + 1, 0
         else:
             held += 1
-            if a <= SPAN - K and held >= 1:
+            if a < K and held >= 1:
                 raised = False
     return n
 

@@ -673,9 +673,14 @@ class Detector:
         s = self.score_q8
         clr = (self.thr_alert_q8 * self.hyst_q8) >> 8
         lv = self.alarm.level
-        self.alarm.update(1 if s >= self.thr_alert_q8 else 0, 1 if s >= self.thr_alarm_q8 else 0,
-                          1 if s >= clr else 0, self.zone)
-        self.pushed = 1
+        # Evidence comes from judged windows: scored ones, or the ISO guard's when it is all there
+        # is (no model) or when it speaks (zone C or D). A window that runs but is not scored (a
+        # transient, an unknown point) says nothing about health, so it neither adds to the span
+        # nor dilutes it; once raised, it does enter, so that a level can clear while unscored.
+        if why == W_SCORED or why == W_NO_MODEL or self.zone >= ZONE_C or lv != al.NORMAL:
+            self.alarm.update(1 if s >= self.thr_alert_q8 else 0, 1 if s >= self.thr_alarm_q8 else 0,
+                              1 if s >= clr else 0, self.zone)
+            self.pushed = 1
         if self.alarm.level != lv:
             reason = self.alarm.reason
         elif self.off_w >= self.hold_w:

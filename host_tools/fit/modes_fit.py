@@ -91,13 +91,21 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
     """Operating modes from the shaft speed alone, by the gaps between speeds: sorted speeds are
     cut wherever two neighbours lie more than `gap` (a fraction of the speed) apart, groups with
     fewer than min_n windows join their nearer neighbour, and while more than k_max remain the
-    two nearest merge. A continuum of speeds (a drive trimmed slowly) stays one mode; distinct
-    set points, with no speeds between them, become modes. Returns (k, label per window),
+    two nearest merge. A gap may hold a few strays (up to 1 window in STRAY_DIV: an estimate that
+    missed by a bin). A continuum of speeds (a drive trimmed slowly) stays one mode; distinct
+    set points, with (almost) no speeds between them, become modes. Returns (k, label per window),
     numbered by rising speed."""
     x = np.log(np.asarray(speed_hz, dtype=float))
     order = np.argsort(x, kind="stable")
     xs = x[order]
-    cuts = [0] + [i + 1 for i in np.flatnonzero(np.diff(xs) > math.log1p(gap))] + [len(xs)]
+    # a gap is a stretch wider than `gap` holding at most `stray` windows: single estimates that
+    # miss by a bin (0.16 s windows) land between set points and must not bridge them
+    stray = len(xs) // STRAY_DIV
+    wide = math.log1p(gap)
+    cut_at = set()
+    for i in np.flatnonzero(xs[stray + 1:] - xs[:len(xs) - stray - 1] > wide):
+        cut_at.add(int(i + 1 + np.argmax(np.diff(xs[i:i + stray + 2]))))
+    cuts = [0] + sorted(cut_at) + [len(xs)]
     groups = [[a, b] for a, b in zip(cuts[:-1], cuts[1:])]
 
     def centre(g):
@@ -120,6 +128,24 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
     for m, (a, b) in enumerate(groups):
         lab[order[a:b]] = m
     return len(groups), lab
+
+
+STRAY_DIV = 200         # up to 1 window in 200 may stray into a gap between set points
+STRAY_Q = 0.005         # a mode's speed range: its windows' 0.5-99.5 % points (strays left out), widened
+PIN_MARGIN = 0.01       # an estimate this close to an end of the search range is the range, not the shaft
+
+
+def pinned_limits_q8(params: dict) -> tuple[int, int]:
+    """The least and greatest speed (Hz Q8) a mode may cover: just inside the estimator's search
+    range (fc_speed_lo_q8 .. fc_speed_hi_q8). A shaft slower or faster than the range, or one
+    the window cannot resolve, reads at an end of the range window after window: a steady label,
+    but not a speed, and windows of different operating points share it. Keeping the ends out of
+    every mode leaves such windows unscored (off_point) instead of judging them against the
+    wrong mode."""
+    lo, hi = params.get("fc_speed_lo_q8") or 0, params.get("fc_speed_hi_q8") or 0
+    if not hi:
+        return 0, (1 << 30) - 1
+    return int(math.floor(lo * (1 + PIN_MARGIN))) + 1, int(math.ceil(hi * (1 - PIN_MARGIN))) - 1
 
 
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
@@ -161,9 +187,12 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     if speed_hz is not None:
         widen = 2.0 * max(speed_tol, 0.01)
         k, lab = speed_modes(speed_hz, widen / 2, MIN_MODE_N, k_max)
+        lo_q8, hi_q8 = pinned_limits_q8(params)
         for m in range(k):
             sp = np.asarray(speed_hz)[lab == m]
-            op += [int(math.floor(sp.min() * (1 - widen) * 256)), int(math.ceil(sp.max() * (1 + widen) * 256))]
+            a, b = np.percentile(sp, [100 * STRAY_Q, 100 * (1 - STRAY_Q)])
+            op += [max(int(math.floor(a * (1 - widen) * 256)), lo_q8),
+                   min(int(math.ceil(b * (1 + widen) * 256)), hi_q8)]
     else:
         k, lab = 1, np.zeros(len(z), int)
     floor = params["det_s_floor_q8"]

@@ -192,6 +192,16 @@ def promise(rf: RateFit, target_per_30_days: float) -> Promise:
     return Promise(x, rf.rate_per_h(x) * h30, (lo * h30, hi * h30), target_per_30_days, ok, x > rf.s_max)
 
 
+def promise_at(rf: RateFit, x: float, target_per_30_days: float) -> Promise:
+    """The promise at a threshold x chosen otherwise (a floor): the fit's rate there and its range,
+    supported only if that range is within SUPPORT_RATIO of the rate."""
+    h30 = 30 * 24.0
+    lo, hi = rf.range_95(x)
+    r = rf.rate_per_h(x)
+    return Promise(x, r * h30, (lo * h30, hi * h30), target_per_30_days, hi <= SUPPORT_RATIO * max(r, 1e-300),
+                   x > rf.s_max)
+
+
 def _ratio(rf: RateFit, per_h: float) -> float:
     x = rf.threshold_for(per_h)
     return rf.range_95(x)[1] / max(rf.rate_per_h(x), 1e-300)
