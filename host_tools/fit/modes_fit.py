@@ -148,6 +148,24 @@ def pinned_limits_q8(params: dict) -> tuple[int, int]:
     return int(math.floor(lo * (1 + PIN_MARGIN))) + 1, int(math.ceil(hi * (1 - PIN_MARGIN))) - 1
 
 
+def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarray:
+    """(rows, d) booleans: True where a scored order or envelope line was read around an axis's own
+    1x estimate (F_SPEED) more than the steady tolerance (det_speed_tol_q12) from the window's
+    operating speed: the device sets such a term neutral (firmware_py/detect/detector.py,
+    _mask_lines), so the model is fitted without it. Integer arithmetic as the device's."""
+    feats = np.asarray(feats, dtype=np.int64)
+    pa = fi.per_axis(params["det_bands"])
+    idx = np.asarray(params["det_feat"])
+    op = np.rint(np.asarray(speed_hz, dtype=np.float64) * 256).astype(np.int64)
+    tol = (int(params["det_speed_tol_q12"]) * op) >> 12
+    out = np.zeros((len(feats), len(idx)), bool)
+    for j, i in enumerate(idx.tolist()):
+        if fi.F_ORD_HALF <= i % pa <= fi.F_ENV_FTF:
+            e = feats[:, (i // pa) * pa + fi.F_SPEED] - op
+            out[:, j] = (e > tol) | (e < -tol)
+    return out
+
+
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
         k_max: int = dm.KMAX, margin_q8: int | None = None, seed: int = 0) -> dict:
     """Baseline, operating modes and conservative thresholds from healthy running windows (rows
@@ -170,10 +188,16 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     pa = fi.per_axis(params["det_bands"])
     vel = np.asarray(feats)[:, fi.F_VEL::pa][:, :params["det_axes"]]
     idle = max(int(params["det_idle_vel_q16"]), int(vel.max(1).min()) >> 2)
+    mask = line_mask(feats, params, speed_hz) if speed_hz is not None else np.zeros(u.shape, bool)
     w = Welford(d)
-    for row in u:
+    for row, mk in zip(u, mask):
         for j in range(d):
-            w.add(j, int(row[j]))
+            if not mk[j]:
+                w.add(j, int(row[j]))
+    for j in range(d):
+        if w.n[j] < 2:      # a line never read at the right place: a neutral baseline
+            w.add(j, 0)
+            w.add(j, 256)
     model = dm.ModeModel(d)
     mean = [w.mean_q(j, 4) for j in range(d)]
     sd = [sqrt_pow2(w.var(j), 8) for j in range(d)]
@@ -196,8 +220,11 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     else:
         k, lab = 1, np.zeros(len(z), int)
     floor = params["det_s_floor_q8"]
-    centers = np.array([z[lab == m].mean(0) for m in range(k)])
-    spread = np.array([z[lab == m].std(0) for m in range(k)])
+    zm = np.where(mask, np.nan, z.astype(np.float64))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)     # a line masked in every window of a mode
+        centers = np.nan_to_num(np.array([np.nanmean(zm[lab == m], 0) for m in range(k)]), nan=0.0)
+        spread = np.nan_to_num(np.array([np.nanstd(zm[lab == m], 0) for m in range(k)]), nan=256.0)
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
     alert = (CHI_Q8[d - 1] * margin) >> 8
     return {

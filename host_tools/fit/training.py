@@ -469,9 +469,9 @@ def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, ta
                                                     "; thresholds are set for that rate") +
                         ". Train on more running time to promise fewer")
         if floored:
-            pr = raise_rate.promise_at(rf, float(chi_alert), target)
+            pr = raise_rate.promise_at(rf, float(chi_alert), target, pr)
         if pa.threshold < chi_alarm:
-            pa = raise_rate.promise_at(rf, float(chi_alarm), pr.per_30_days / ALARM_RATE_RATIO)
+            pa = raise_rate.promise_at(rf, float(chi_alarm), pr.per_30_days / ALARM_RATE_RATIO, pa)
     alert = min(int(math.floor(pr.threshold)) + 1, _THR_MAX) if not floored else chi_alert
     alarm = min(max(int(math.floor(pa.threshold)) + 1, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
     if rf.tail.shape > 0.5:
