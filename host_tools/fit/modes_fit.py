@@ -132,7 +132,7 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
 
 STRAY_DIV = 200         # up to 1 window in 200 may stray into a gap between set points
 STRAY_Q = 0.005         # a mode's speed range: its windows' 0.5-99.5 % points (strays left out), widened
-PIN_MARGIN = 0.01       # an estimate this close to an end of the search range is the range, not the shaft
+PIN_STEPS = 2           # an estimate this close to an end of the search range (bins-Q8 steps) is the range, not the shaft
 
 
 def pinned_limits_q8(params: dict) -> tuple[int, int]:
@@ -145,7 +145,10 @@ def pinned_limits_q8(params: dict) -> tuple[int, int]:
     lo, hi = params.get("fc_speed_lo_q8") or 0, params.get("fc_speed_hi_q8") or 0
     if not hi:
         return 0, (1 << 30) - 1
-    return int(math.floor(lo * (1 + PIN_MARGIN))) + 1, int(math.ceil(hi * (1 - PIN_MARGIN))) - 1
+    # the estimator clamps its 1x (bins Q8) to the range, so a pinned speed is an end itself, up to
+    # the conversion to Hz Q8: one bins-Q8 step is fs / n Hz-Q8 units; PIN_STEPS of them of room
+    step = params["fs_hz"] / params["n"]
+    return int(math.floor(lo + PIN_STEPS * step)) + 1, int(math.ceil(hi - PIN_STEPS * step)) - 1
 
 
 def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarray:
