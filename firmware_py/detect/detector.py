@@ -102,7 +102,8 @@ PARAM_KEYS = (
     "det_zero_max",         # per axis, longest healthy run of zero samples (F_ZERO), samples
     "det_knock_crest_q12",  # per axis, crest factor (F_CREST, Q12) over which an impulse is a knock
     "det_knock_ratio_q8",   # a knock's peak over every other axis's peak by this ratio, Q8
-    "det_fault_k",          # consecutive bad (good) windows to enter (leave) sensor_fault
+    "det_fault_k",          # consecutive bad windows to enter sensor_fault (dropout, knock: 1)
+    "det_fault_clear_ms",   # healthy windows in a row to leave sensor_fault (at least det_fault_k)
     "det_sd_floor_q4",      # least baseline spread, log2 Q8 units, Q4
     "det_s_floor_q8",       # least per-mode spread, Q8 baseline spreads
     "det_learn_base_n",     # learning: windows for the baseline (phase 1, <= 65535)
@@ -207,7 +208,7 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_drop_max": 0, "det_stuck_max": [stuck] * axes, "det_zero_max": [stuck] * axes,
         "det_knock_crest_q12": [_KNOCK_CREST_DEFAULT] * axes,
         "det_knock_ratio_q8": _KNOCK_RATIO_DEFAULT,
-        "det_fault_k": 3,
+        "det_fault_k": 3, "det_fault_clear_ms": 20000,
         "det_sd_floor_q4": 128, "det_s_floor_q8": 64,
         "det_learn_base_n": 300, "det_learn_mode_n": 600, "det_learn_op_q12": 205,
         "det_learn_min_n": 30, "det_learn_margin_q8": 320, "det_learn_alarm_q8": 384,
@@ -303,6 +304,8 @@ class Detector:
         self.knock_crest_q12 = _ints(p, "det_knock_crest_q12", axes)
         self.knock_ratio_q8 = _int(p, "det_knock_ratio_q8", 256, 1 << 16)
         self.fault_k = _int(p, "det_fault_k", 1, 1 << 20)
+        w = windows_for(_int(p, "det_fault_clear_ms", 0, _BIG), n, fs, every)
+        self.fault_clear_w = w if w > self.fault_k else self.fault_k
         self.base_n = _int(p, "det_learn_base_n", 2, N_MAX)
         self.mode_n = _int(p, "det_learn_mode_n", 1, N_MAX)
         self.learn_op_q12 = _int(p, "det_learn_op_q12", 1, 4096)
@@ -649,9 +652,13 @@ class Detector:
             return self.state
         self.fault_bad = 0
         if self.fault:
+            # trusted again only after fault_clear_w healthy windows in a row: an intermittent
+            # fault (a rattling mount, a loose connector) returns within seconds, and between its
+            # bursts the signal is still the faulty sensor's
             self._count(W_FAULT)
-            self.fault_good += 1
-            if self.fault_good < self.fault_k:
+            if self.fault_good < _BIG:
+                self.fault_good += 1
+            if self.fault_good < self.fault_clear_w:
                 return self.state
             self.fault = False
             self._restart()                       # treat like a restart: no transient alert
