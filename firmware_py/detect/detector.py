@@ -142,12 +142,12 @@ _SPEED_MAX = const(1 << 17)  # speeds are taken as at most 512 Hz (Q8): tol_q12 
 # (host_tools/fit/sensor_fit.py).
 _RUN_DEFAULT = const(44)
 # Crest factor over which a window holds an impulse, before training has measured the sensor.
-# For Gaussian noise a window of n samples exceeds crest c with probability about
+# For Gaussian noise a window of n samples exceeds crest c with probability under
 # n * 2 * Q(c / sqrt(1 + c**2 / (2 n))) (Q the normal upper tail; the square root: the window's
-# own r.m.s. estimate, relative spread 1 / sqrt(2 n)); at c = 8 and n <= 4096 that is under
-# 1e-11 per window, under 1e-4 in the 1.6e7 windows of 30 days at 0.16 s. Lines make a signal's
-# crest factor lower than noise's, so a healthy stationary vibration stays under it too.
-# Training replaces it per axis (host_tools/fit/sensor_fit.py). Q12.
+# own r.m.s. estimate, relative spread 1 / sqrt(2 n); host_tools/fit/sensor_fit.py has the exact
+# form); at c = 8 and n <= 4096 that is under 1e-11 per window, under 1e-4 in the 1.6e7 windows
+# of 30 days at 0.16 s. Lines make a signal's crest factor lower than noise's, so a healthy
+# stationary vibration stays under it too. Training replaces it per axis (sensor_fit). Q12.
 _KNOCK_CREST_DEFAULT = const(32768)
 # A knock must stand above every other axis's peak by this ratio (8, Q8). A machine impact
 # reaches the sensor through the bearing housing, which carries it to every axis; the next most
@@ -505,7 +505,7 @@ class Detector:
             if f[b + fi.F_CREST] > self.knock_crest_q12[a]:
                 lim_q4 = ((clamp(f[b + fi.F_PEAK], 1 << 24) >> 4) << 8) // self.knock_ratio_q8
                 for c in range(n):
-                    if c != a and clamp(f[c * pa + fi.F_PEAK], 1 << 24) >> 4 > lim_q4:
+                    if c != a and clamp(f[c * pa + fi.F_PEAK], 1 << 24) >> 4 >= lim_q4:
                         break
                 else:
                     return b + fi.F_PEAK

@@ -25,9 +25,11 @@ an impulse that only one axis sees (a machine impact reaches every axis through 
 detector's second condition, firmware_py/detect/detector.py). The crest factor over which an axis
 holds an impulse is the larger of two limits, each for a false call once in a thousand months:
 - Gaussian noise (analytic): a window of n samples, its mean and r.m.s. its own, exceeds crest c
-  with probability about 1 - (1 - 2 Q(c'))**n, c' = c / sqrt(1 + c**2 / (2 n)) (Q the normal
-  upper tail; the square root averages over the r.m.s. estimate, whose relative spread is
-  1 / sqrt(2 n): E[Q(a + b Z)] = Q(a / sqrt(1 + b**2))). Rounding to whole counts lifts a peak
+  with probability about 1 - (1 - 2 Q(c'))**n (Q the normal upper tail). The peak is part of the
+  r.m.s. it is divided by: x > c s with s**2 = (S + x**2) / n (S the other samples' sum of
+  squares) is x > c_e sqrt(S / n), c_e = c / sqrt(1 - c**2 / n); and sqrt(S / n) scatters about
+  sigma with relative spread 1 / sqrt(2 n), which E[Q(a + b Z)] = Q(a / sqrt(1 + b**2)) averages:
+  c' = c_e / sqrt(1 + c_e**2 / (2 n)). Rounding to whole counts lifts a peak
   by at most half a count: + 0.5 / (the axis's least r.m.s. in counts). A vibration of lines
   and noise has a lighter tail than noise alone of the same r.m.s.;
 - the axis's own data, for a machine whose healthy vibration is more impulsive than noise: the
@@ -91,7 +93,8 @@ def run_limits(counts_list: Sequence[np.ndarray], n: int, windows_30: float) -> 
 def gaussian_crest_exceedance(c: float, n: int) -> float:
     """Probability that a window of n samples of Gaussian noise (its own mean and r.m.s.) has a
     crest factor over c; see the module docstring."""
-    q = 2.0 * stats.norm.sf(c / math.sqrt(1.0 + c * c / (2.0 * n)))
+    ce = c / math.sqrt(1.0 - c * c / n)
+    q = 2.0 * stats.norm.sf(ce / math.sqrt(1.0 + ce * ce / (2.0 * n)))
     return float(-math.expm1(n * math.log1p(-q)))
 
 
@@ -99,7 +102,8 @@ def crest_limits(crest_q12: np.ndarray, rms_q8: np.ndarray, n: int, windows_30: 
     """Per-axis knock limits on F_CREST (Q12) from healthy windows' crest factors and r.m.s.
     (windows x axes, F_CREST Q12 and F_RMS Q8 counts); see the module docstring."""
     per_window = FALSE_PER_30_DAYS / windows_30
-    c_gauss = optimize.brentq(lambda c: math.log(gaussian_crest_exceedance(c, n)) - math.log(per_window), 2.0, 40.0)
+    top = 0.999 * math.sqrt(n)                       # a crest factor never exceeds sqrt(n)
+    c_gauss = optimize.brentq(lambda c: math.log(gaussian_crest_exceedance(c, n)) - math.log(per_window), 1.0, top)
     seen = len(crest_q12)
     grow = math.sqrt(math.log(n * windows_30 / FALSE_PER_30_DAYS) / math.log(n * max(seen, 2)))
     out, det = [], []
