@@ -466,8 +466,17 @@ class Detector:
                 return True
         k = self._knock(f)
         if k >= 0:
-            self.fault_reason = al.R_COUPLING
-            self.fault_feat = k
+            # an impulse to exactly zero (a run of zeros) on an axis that carries a large offset
+            # (gravity), peak about the offset itself: a read that returned an empty frame
+            b = k - fi.F_PEAK
+            m = f[b + fi.F_MEAN]
+            m = m if m >= 0 else -m
+            if f[b + fi.F_ZERO] >= 2 and m > f[b + fi.F_PEAK] >> 1:
+                self.fault_reason = al.R_DROPOUT
+                self.fault_feat = b + fi.F_ZERO
+            else:
+                self.fault_reason = al.R_COUPLING
+                self.fault_feat = k
             return True
         for a in range(self.axes):
             b = a * pa
