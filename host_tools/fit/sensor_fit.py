@@ -92,18 +92,28 @@ def run_limits(counts_list: Sequence[np.ndarray], n: int, windows_30: float) -> 
 
 def gaussian_crest_exceedance(c: float, n: int) -> float:
     """Probability that a window of n samples of Gaussian noise (its own mean and r.m.s.) has a
-    crest factor over c; see the module docstring."""
+    crest factor over c; see the module docstring. 0 < c < sqrt(n)."""
+    return math.exp(_log_exceedance(c, n))
+
+
+def _log_exceedance(c: float, n: int) -> float:
+    """log of gaussian_crest_exceedance, without underflow far in the tail (there 1 - (1 - q)**n
+    is n q to within n q**2)."""
     ce = c / math.sqrt(1.0 - c * c / n)
-    q = 2.0 * stats.norm.sf(ce / math.sqrt(1.0 + ce * ce / (2.0 * n)))
-    return float(-math.expm1(n * math.log1p(-q)))
+    lq = math.log(2.0) + float(stats.norm.logsf(ce / math.sqrt(1.0 + ce * ce / (2.0 * n))))
+    if lq < -30.0:
+        return math.log(n) + lq
+    return math.log(-math.expm1(n * math.log1p(-math.exp(lq))))
 
 
 def crest_limits(crest_q12: np.ndarray, rms_q8: np.ndarray, n: int, windows_30: float) -> tuple[list[int], dict]:
     """Per-axis knock limits on F_CREST (Q12) from healthy windows' crest factors and r.m.s.
     (windows x axes, F_CREST Q12 and F_RMS Q8 counts); see the module docstring."""
     per_window = FALSE_PER_30_DAYS / windows_30
-    top = 0.999 * math.sqrt(n)                       # a crest factor never exceeds sqrt(n)
-    c_gauss = optimize.brentq(lambda c: math.log(gaussian_crest_exceedance(c, n)) - math.log(per_window), 1.0, top)
+    top = 0.999 * math.sqrt(n)                       # a crest factor never exceeds sqrt(n - 1)
+    gap = lambda c: _log_exceedance(c, n) - math.log(per_window)
+    # a window so short that no crest factor is rare enough: sqrt(n), which no window reaches
+    c_gauss = optimize.brentq(gap, 1.0, top) if gap(top) < 0 else math.sqrt(n)
     seen = len(crest_q12)
     grow = math.sqrt(math.log(n * windows_30 / FALSE_PER_30_DAYS) / math.log(n * max(seen, 2)))
     out, det = [], []
