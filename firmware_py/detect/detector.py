@@ -339,6 +339,7 @@ class Detector:
         self.fault = False
         self.fault_reason = 0
         self.fault_feat = -1
+        self.knock_axis = 0
         self.running = False                      # broadband velocity at or over the idle floor
         self.starting = True                      # since the start: idle until steady
         self.run_w = 0                            # windows running since the start
@@ -450,10 +451,14 @@ class Detector:
     # -- the window path ------------------------------------------------------------------------
     def _sensor_bad(self, f, dropped):
         """True if this window shows a sensor problem; fault_reason and fault_feat say which. The
-        conclusive checks come first (a dropout run, a knock: each enters sensor_fault at once),
+        conclusive findings come first (a dropout run, a knock: each enters sensor_fault at once),
         then those that need fault_k windows in a row (flatline, clipping, DC offset, lost
-        samples)."""
+        samples). One pass over the axes notes the first of the latter and any axis impulsive
+        enough to be a knock; the knock's witness test runs only then."""
         pa = self.pa
+        slow = 0                                  # first k-window finding, 0 none
+        feat = -1
+        loud = -1                                 # an axis whose crest factor is over its limit
         for a in range(self.axes):
             b = a * pa
             if f[b + fi.F_STUCK] > self.stuck_max[a]:
@@ -464,11 +469,23 @@ class Detector:
                 self.fault_reason = al.R_DROPOUT
                 self.fault_feat = b + fi.F_ZERO
                 return True
-        k = self._knock(f)
-        if k >= 0:
+            if f[b + fi.F_CREST] > self.knock_crest_q12[a] and loud < 0:
+                loud = a
+            if slow == 0:
+                m = f[b + fi.F_MEAN]
+                if f[b + fi.F_RMS] < self.flat_rms_q8:
+                    slow = al.R_FLAT
+                    feat = b + fi.F_RMS
+                elif f[b + fi.F_CLIP] > self.clip_max:
+                    slow = al.R_CLIP
+                    feat = b + fi.F_CLIP
+                elif m < self.dc_lo_q8[a] or m > self.dc_hi_q8[a]:
+                    slow = al.R_DC
+                    feat = b + fi.F_MEAN
+        if loud >= 0 and self._knock(f, loud):
             # an impulse to exactly zero (a run of zeros) on an axis that carries a large offset
             # (gravity), peak about the offset itself: a read that returned an empty frame
-            b = k - fi.F_PEAK
+            b = self.knock_axis * pa
             m = f[b + fi.F_MEAN]
             m = m if m >= 0 else -m
             if f[b + fi.F_ZERO] >= 2 and m > f[b + fi.F_PEAK] >> 1:
@@ -476,40 +493,27 @@ class Detector:
                 self.fault_feat = b + fi.F_ZERO
             else:
                 self.fault_reason = al.R_COUPLING
-                self.fault_feat = k
+                self.fault_feat = b + fi.F_PEAK
             return True
-        for a in range(self.axes):
-            b = a * pa
-            if f[b + fi.F_RMS] < self.flat_rms_q8:
-                self.fault_reason = al.R_FLAT
-                self.fault_feat = b + fi.F_RMS
-                return True
-            if f[b + fi.F_CLIP] > self.clip_max:
-                self.fault_reason = al.R_CLIP
-                self.fault_feat = b + fi.F_CLIP
-                return True
-            m = f[b + fi.F_MEAN]
-            if m < self.dc_lo_q8[a] or m > self.dc_hi_q8[a]:
-                self.fault_reason = al.R_DC
-                self.fault_feat = b + fi.F_MEAN
-                return True
-        if dropped > self.drop_max:
-            self.fault_reason = al.R_DROP
-            self.fault_feat = -1
+        if slow == 0 and dropped > self.drop_max:
+            slow = al.R_DROP
+        if slow:
+            self.fault_reason = slow
+            self.fault_feat = feat
             return True
         return False
 
-    def _knock(self, f):
-        """Flat index of the F_PEAK of an axis that holds a knock, -1 if none: its crest factor
-        over knock_crest_q12 (an impulse no healthy vibration makes) and its peak over
+    def _knock(self, f, first):
+        """True if an axis from `first` on holds a knock (its index in knock_axis): its crest
+        factor over knock_crest_q12 (an impulse no healthy vibration makes) and its peak over
         knock_ratio_q8 / 256 times the peak of every other axis (no other axis saw it, which a
         machine impact, carried by the housing to every axis, cannot do). Needs two axes or more.
         Peaks are clamped to 2**24 (Q8 counts) and compared in Q4, so (peak >> 4) << 8 < 2**29."""
         n = self.axes
         if n < 2:
-            return -1
+            return False
         pa = self.pa
-        for a in range(n):
+        for a in range(first, n):
             b = a * pa
             if f[b + fi.F_CREST] > self.knock_crest_q12[a]:
                 lim_q4 = ((clamp(f[b + fi.F_PEAK], 1 << 24) >> 4) << 8) // self.knock_ratio_q8
@@ -517,8 +521,9 @@ class Detector:
                     if c != a and clamp(f[c * pa + fi.F_PEAK], 1 << 24) >> 4 >= lim_q4:
                         break
                 else:
-                    return b + fi.F_PEAK
-        return -1
+                    self.knock_axis = a
+                    return True
+        return False
 
     def _count(self, why):
         self.why = why
