@@ -247,3 +247,12 @@ def test_knock_path_allocates_nothing_and_stays_small_on_micropython():
     assert guest[0][0] is True
     assert guest == host[0]
     assert [e for e in guest[2] if e[1] == al.R_COUPLING]       # the knock path ran
+
+
+def test_training_counts_knocks_in_its_data_with_the_noise_limit():
+    # training warns when its own windows hold knocks (its data-derived limit would rise over
+    # them); the count is the device's own check with the Gaussian limit
+    from host_tools.fit.training import _knocks
+    p = params(det_knock_crest_q12=[7 << 12] * AXES)
+    rows = np.array([list(win()), list(win((40, 400, 40), (4.0, 20.0, 4.0))), list(win())])
+    assert _knocks(rows, p) == 1
