@@ -256,3 +256,16 @@ def test_training_counts_knocks_in_its_data_with_the_noise_limit():
     p = params(det_knock_crest_q12=[7 << 12] * AXES)
     rows = np.array([list(win()), list(win((40, 400, 40), (4.0, 20.0, 4.0))), list(win())])
     assert _knocks(rows, p) == 1
+
+
+@pytest.mark.parametrize("key", ["det_knock_crest_q12", "det_stuck_max", "det_zero_max"])
+def test_a_set_with_per_axis_limits_for_other_axes_is_refused(key):
+    # one limit per axis of the board (desk: 3), checked before anything commits the set
+    from pathlib import Path
+    from firmware_py.run import board, param_check, params as params_mod
+    desk = board.load(str(Path(__file__).resolve().parents[1] / "boards" / "desk.json"))
+    p = params_mod.factory(desk)
+    param_check.validate(p, desk)
+    p[key] = p[key][:2]
+    with pytest.raises(ValueError, match=key):
+        param_check.validate(p, desk)
