@@ -29,7 +29,8 @@ def _rec(counts, scale=SCALE, fs=FS, axes=None, **meta):
     if c.ndim == 1:
         c = c[:, None]
     axes = axes or ("x", "y", "z")[:c.shape[1]]
-    return Recording(Path("synthetic.wav"), c.astype(np.int16), scale, float(fs), tuple(axes),
+    return Recording(path=Path("synthetic.wav"), counts=c.astype(np.int16), m_s2_per_count=scale,
+                     sample_rate_hz=float(fs), axes=tuple(axes),
                      rpm=meta.pop("rpm", None), vane_count=meta.pop("vane_count", None), sidecar=meta)
 
 

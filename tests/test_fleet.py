@@ -33,12 +33,12 @@ CHUNK_WINDOWS = 16     # a 4 s snapshot is 25 windows: snapshots split over task
 def fleet(tmp_path_factory):
     """A fleet folder of two demo pumps with one set installed; (root, params, profile). The set is
     trained on the training tests' synthetic healthy stream for the same desk board (quicker than
-    a week of demo snapshots), with the short time keys of tests/test_replay.py so that the
-    demo's 4 s snapshots reach every state."""
+    a week of demo snapshots), with the short time keys of tests/test_replay.py so that 4 s
+    snapshots (shorter than the demo's, for speed) reach every state."""
     from host_tools.fit.training import train
     from tests.test_training import PROFILE, healthy_stream
     root = tmp_path_factory.mktemp("fleet") / "fleet"
-    sc = dfl.build_fleet_scenario(days=3.0, training_days=1.5, interval_s=21600.0, pumps=2)
+    sc = dfl.build_fleet_scenario(days=3.0, training_days=1.5, interval_s=21600.0, pumps=2, snapshot_s=4.0)
     layout.init_fleet(root, "test fleet")
     profile = load_board(None)
     assert profile == PROFILE
@@ -217,3 +217,59 @@ def test_fleet_train_then_compare_leaves_the_sets_in_use_untouched(fleet, tmp_pa
     assert all("no candidate set" in e for e in cdoc["errors"].values())
     assert clines[-1].startswith(f"{len(trained)} of {len(before)} gateways compared")
     assert {g.name: (g / layout.PARAMS).read_bytes() for g in layout.gateways(root)} == before
+
+
+@pytest.fixture(scope="module")
+def trainable(tmp_path_factory, fleet):
+    """A fleet of the same two demo pumps with the demo's 10 s snapshots, whose healthy/ folders
+    hold enough steady running for training: two days of a snapshot every four hours (12 and 14
+    recordings, P-102's with a stop and restart), then half a day of archive. The set in use is
+    the `fleet` fixture's."""
+    root0, _, profile = fleet
+    root = tmp_path_factory.mktemp("trainable") / "fleet"
+    sc = dfl.build_fleet_scenario(days=2.5, training_days=2.0, interval_s=14400.0, pumps=2)
+    layout.init_fleet(root, "trainable test fleet")
+    for p in sc.pumps:
+        g = dfl.gateway_id(p)
+        summary = json.loads((root0 / g / layout.PARAMS_SUMMARY).read_text())
+        layout.add_gateway(root, g, dict(dfl.manifest(sc, p, profile["name"]), params_since="2026-03-05"),
+                           (root0 / g / layout.PARAMS).read_bytes(), summary)
+        dfl.write_pump(root, sc, p)
+    return root, profile
+
+
+def test_fleet_train_equals_edgevib_train_alone_and_compare_runs_on_its_sets(trainable, tmp_path):
+    # The issue's rule: a fleet run gives what each pump alone gives. The reference is `edgevib
+    # train` on the gateway's healthy/ folder in this process (same board, seed, version, target):
+    # the parameter sets must be the same bytes. Then `fleet compare` replays each archive through
+    # the set in use and that candidate, and the candidate's events and summary must equal
+    # `edgevib replay`'s (host_tools.twin.replay.replay) of the archive with the set trained alone.
+    from host_tools.cli import main
+    from host_tools.data.files import load_body
+    root, profile = trainable
+    gws = layout.gateways(root)
+    before = {g.name: (g / layout.PARAMS).read_bytes() for g in gws}
+    version = load_body(gws[0] / layout.PARAMS)[1]["version"] + 1     # fleet train: one above the set in use
+    cand, cmp_out = tmp_path / "candidates", tmp_path / "cmp"
+    with engine.cluster(workers=2, processes=False) as client:
+        doc, lines = runs.train_fleet(client, root, cand, 1.0, 3, quiet=True)
+        assert doc["errors"] == {} and set(doc["gateways"]) == set(before), doc["errors"]
+        cdoc, clines = runs.compare_fleet(client, root, cand, cmp_out, None, None, quiet=True)
+    board = Path(__file__).resolve().parent.parent / "boards" / f"{profile['name']}.json"
+    for g in gws:
+        alone = tmp_path / "alone" / f"{g.name}.msgpack"
+        alone.parent.mkdir(exist_ok=True)
+        assert main(["--quiet", "train", str(g / layout.HEALTHY), "--board", str(board), "--seed", "3",
+                     "--version", str(version), "--false-alerts-per-month", "1", "--jobs", "1", "--out", str(alone)]) == 0
+        assert (cand / g.name / layout.PARAMS).read_bytes() == alone.read_bytes(), g.name
+        assert (cand / g.name / layout.PARAMS_SUMMARY).read_bytes() == alone.with_suffix(".json").read_bytes()
+        assert doc["gateways"][g.name]["version"] == version
+        _, params = load_body(alone)
+        ref = _alone(g, params, profile)
+        c = cdoc["gateways"][g.name]
+        assert c["sets"] == ["in use", "candidate"]
+        assert c["events"]["candidate"] == ref.events
+        assert c["summary"]["candidate"] == ref.summary
+        assert (cmp_out / g.name / "compare" / "index.html").is_file()
+    assert cdoc["errors"] == {} and clines[-1].startswith(f"{len(gws)} of {len(gws)} gateways compared")
+    assert {g.name: (g / layout.PARAMS).read_bytes() for g in gws} == before     # nothing flashed

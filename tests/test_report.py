@@ -46,7 +46,8 @@ def _recordings(windows=10):
         if i == 2:
             t = np.arange(windows * N - N) / FS
             c[N:, 2] += TONE_M_S2 / SCALE * np.sin(2 * np.pi * TONE_BIN * FS / N * t)
-        recs.append(Recording(Path(f"snap{i}.wav"), np.rint(c).astype(np.int16), SCALE, float(FS), ("x", "y", "z"),
+        recs.append(Recording(path=Path(f"snap{i}.wav"), counts=np.rint(c).astype(np.int16), m_s2_per_count=SCALE,
+                              sample_rate_hz=float(FS), axes=("x", "y", "z"),
                               t0_s=T0 + i * GAP_S, machine="P-101", plant="Brackwater pumping station"))
     return recs
 

@@ -14,14 +14,18 @@ Seeded faults, a few developing over the weeks:
 L-202 had an overhaul on day 21, after its parameter set was trained (on days 0-7): the review
 should say that its set is older than its last overhaul.
 
-Entry points: FLEET_PUMPS, FLEET_FAULTS, build_fleet_scenario(...), write_fleet(root, ...) writes the
-scenario into a fleet folder (host_tools.fleet.layout): per gateway a manifest, healthy/ (the
-training days) and archive/ (the rest). The parameter sets are not made here (`edgevib demo
---fleet` trains them).
+Recordings: 10 s snapshots (SNAPSHOT_S) every interval_s and one at each stop and start; each
+sidecar names the drive-end bearing's geometry, as the manifest does.
+
+Entry points: FLEET_PUMPS, FLEET_FAULTS, build_fleet_scenario(...), manifest(sc, pump, board), and
+write_pump(root, sc, pump) writes one pump's snapshots into its gateway folder of a fleet folder
+(host_tools.fleet.layout): healthy/ (the training days) and archive/ (the rest). The parameter
+sets are not made here (`edgevib demo --fleet` trains them).
 """
 from __future__ import annotations
 
 import os
+from dataclasses import replace
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import Any
@@ -52,6 +56,11 @@ FLEET_FAULTS = ds.FAULT_PLAN + (
     ("L-203", "bearing_outer_race", 14.0, None, "drive-end bearing outer-race defect, growing"),
     ("L-205", "cavitation", 31.0, 33.5, "low wet-well level: cavitation at high flow"),
 )
+# What a gateway of this fleet records: 10 s snapshots (the length the issue's fleet archive
+# assumes). The detector scores a snapshot only after the speed is steady and the start-up
+# hold-off has passed, and raises only when the score persists over 20 s or so of running
+# (det_persist_ms): a 4 s snapshot leaves a second or two of scored running, a 10 s one most of it.
+SNAPSHOT_S = 10.0
 # Overhauls (days from the scenario's start; negative = before it) per pump.
 OVERHAUL_DAYS = {"P-101": (-400.0,), "P-102": (-210.0,), "P-103": (-95.0,), "P-104": (-700.0,),
                  "P-105": (-30.0,), "P-106": (-150.0,), "L-201": (-320.0,), "L-202": (-500.0, 21.0),
@@ -59,12 +68,16 @@ OVERHAUL_DAYS = {"P-101": (-400.0,), "P-102": (-210.0,), "P-103": (-95.0,), "P-1
 
 
 def build_fleet_scenario(seed: int = ds.DEFAULT_SEED, days: float = ds.DAYS, training_days: float = ds.TRAINING_DAYS,
-                         interval_s: float = ds.SNAPSHOT_INTERVAL_S, pumps: int = len(FLEET_PUMPS)) -> ds.Scenario:
-    """The fleet's scenario; `pumps` keeps only the first so many (tests use a few)."""
+                         interval_s: float = ds.SNAPSHOT_INTERVAL_S, pumps: int = len(FLEET_PUMPS),
+                         snapshot_s: float = SNAPSHOT_S) -> ds.Scenario:
+    """The fleet's scenario; `pumps` keeps only the first so many (tests use a few). Snapshots of
+    snapshot_s seconds every interval_s and at each stop and start."""
     chosen = FLEET_PUMPS[:pumps]
     names = {p.name for p in chosen}
-    return ds.build_scenario(seed, days, training_days, interval_s, pumps=chosen,
-                             fault_plan=tuple(f for f in FLEET_FAULTS if f[0] in names))
+    sc = ds.build_scenario(seed, days, training_days, interval_s, pumps=chosen,
+                           fault_plan=tuple(f for f in FLEET_FAULTS if f[0] in names))
+    return replace(sc, snapshots=tuple(replace(s, duration_s=snapshot_s) for s in sc.snapshots
+                                       if s.t0_s + snapshot_s <= sc.end_t0_s))
 
 
 def gateway_id(pump: str) -> str:
@@ -77,11 +90,7 @@ def manifest(sc: ds.Scenario, pump: str, board: str) -> dict[str, Any]:
     """gateway.json of a demo pump (params_since is set when a set is installed)."""
     p = sc.pumps[pump]
     start = datetime.fromtimestamp(sc.start_t0_s, timezone.utc)
-    b = p.bearing
-    return {"pump": pump, "site": p.site, "board": board, "vane_count": p.vane_count,
-            "bearing": {"designation": "6205" if b == BEARING_6205 else "invented 8-ball",
-                        "n_elements": b.n_elements, "ball_diameter_mm": b.ball_diameter_mm,
-                        "pitch_diameter_mm": b.pitch_diameter_mm, "contact_angle_deg": b.contact_angle_deg},
+    return {"pump": pump, "site": p.site, "board": board, "vane_count": p.vane_count, "bearing": _bearing(p.bearing),
             "overhauls": [(start + timedelta(days=d)).date().isoformat() for d in OVERHAUL_DAYS[pump]],
             "params_since": None, "note": "invented demo data"}
 
@@ -97,6 +106,14 @@ def write_pump(root: str | os.PathLike, sc: ds.Scenario, pump: str, folder: str 
             continue
         part = "healthy" if ds.snapshot_set(sc, snap) == "training" else "archive"
         stamp = datetime.fromtimestamp(snap.t0_s, timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-        write_wav(folder / part / f"{pump}_{stamp}.wav", ds.synthesize(sc, snap), ds.FS_HZ, ds.snapshot_sidecar(sc, snap))
+        side = dict(ds.snapshot_sidecar(sc, snap), bearing=_bearing(sc.pumps[pump].bearing))
+        write_wav(folder / part / f"{pump}_{stamp}.wav", ds.synthesize(sc, snap), ds.FS_HZ, side)
         n += 1
     return n
+
+
+def _bearing(b: BearingGeometry) -> dict[str, Any]:
+    """A bearing's geometry as the manifest and the sidecars hold it."""
+    return {"designation": "6205" if b == BEARING_6205 else "invented 8-ball", "n_elements": b.n_elements,
+            "ball_diameter_mm": b.ball_diameter_mm, "pitch_diameter_mm": b.pitch_diameter_mm,
+            "contact_angle_deg": b.contact_angle_deg}

@@ -54,7 +54,7 @@ import re
 import struct
 import tempfile
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 from contextlib import contextmanager
 from typing import Any, BinaryIO, Iterable, Iterator
@@ -71,16 +71,13 @@ _WAV_DTYPES = ("int16", "int32", "float32", "float64")
 _RATE_REL_TOL = 1e-6
 
 
-@dataclass(frozen=True)
-class Recording:
-    """One recording as the device would see it.
-
-    counts: int16 array, frames x axes (C order). Physical acceleration in m/s^2 is
-    counts * m_s2_per_count. t0_s is None when the sidecar gives no start time.
-    """
+@dataclass(frozen=True, kw_only=True)
+class RecordingHeader:
+    """What Recording and RecordingFile both know of a recording: its file, the counts scale
+    (m/s^2 per count), sample rate, axis names and the sidecar's labels (t0_s is None when the
+    sidecar gives no start time). Keyword-only, so that each subclass adds its samples by name."""
 
     path: Path
-    counts: np.ndarray
     m_s2_per_count: float
     sample_rate_hz: float
     axes: tuple[str, ...]
@@ -92,12 +89,23 @@ class Recording:
     sidecar: dict[str, Any] = field(default_factory=dict)
 
     @property
-    def n_frames(self) -> int:
-        return int(self.counts.shape[0])
-
-    @property
     def duration_s(self) -> float:
         return self.n_frames / self.sample_rate_hz
+
+
+@dataclass(frozen=True, kw_only=True)
+class Recording(RecordingHeader):
+    """One recording as the device would see it.
+
+    counts: int16 array, frames x axes (C order). Physical acceleration in m/s^2 is
+    counts * m_s2_per_count.
+    """
+
+    counts: np.ndarray
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.counts.shape[0])
 
     def read_counts(self, start: int = 0, stop: int | None = None) -> np.ndarray:
         """counts[start:stop], as RecordingFile.read_counts gives them."""
@@ -171,33 +179,20 @@ def read_recording(
     return open_recording(path, expected_rate_hz, m_s2_per_count).load()
 
 
-@dataclass(frozen=True)
-class RecordingFile:
+@dataclass(frozen=True, kw_only=True)
+class RecordingFile(RecordingHeader):
     """One recording file opened for streaming: its header, sidecar and samples in the file's own
-    numbers (frames x channels; a memory map for WAV and .npy). m_s2_per_count is the counts scale
-    read_counts converts to (rules in the module docstring)."""
+    numbers (frames x channels; a memory map for WAV and .npy), is_float and m_s2_per_unit as the
+    file stores them. m_s2_per_count is the counts scale read_counts converts to (rules in the
+    module docstring)."""
 
-    path: Path
     samples: np.ndarray
     is_float: bool
     m_s2_per_unit: float
-    m_s2_per_count: float
-    sample_rate_hz: float
-    axes: tuple[str, ...]
-    t0_s: float | None = None
-    rpm: float | None = None
-    vane_count: int | None = None
-    plant: str | None = None
-    machine: str | None = None
-    sidecar: dict[str, Any] = field(default_factory=dict)
 
     @property
     def n_frames(self) -> int:
         return int(self.samples.shape[0])
-
-    @property
-    def duration_s(self) -> float:
-        return self.n_frames / self.sample_rate_hz
 
     @property
     def sample_format(self) -> str:
@@ -225,10 +220,7 @@ class RecordingFile:
 
     def load(self) -> Recording:
         """The whole recording, converted."""
-        return Recording(
-            path=self.path, counts=self.read_counts(), m_s2_per_count=self.m_s2_per_count,
-            sample_rate_hz=self.sample_rate_hz, axes=self.axes, t0_s=self.t0_s, rpm=self.rpm,
-            vane_count=self.vane_count, plant=self.plant, machine=self.machine, sidecar=self.sidecar)
+        return Recording(counts=self.read_counts(), **{f.name: getattr(self, f.name) for f in fields(RecordingHeader)})
 
 
 def open_stream(

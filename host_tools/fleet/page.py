@@ -4,7 +4,7 @@ Entry point: render(rows, meta) -> (files {name: bytes}, html text). rows: host_
 rows (one per gateway, errors included). meta: fleet name, origin_s (day 0 of the plots, Unix s),
 period (first and last time replayed), created (UTC text).
 
-Plots (matplotlib, the replay report's palette and style):
+Plots (matplotlib, every report's palette and style, host_tools.report.style):
 - overview.png: the worst detector state of each pump on each UTC day of the period, pumps in the
   table's order (most severe on top); blank where no window was replayed that day;
 - drift.png: per pump, the weekly median score against its healthy level (ratio, log scale),
@@ -17,7 +17,6 @@ still complete, sorted by severity.
 """
 from __future__ import annotations
 
-import html
 from datetime import datetime, timezone
 from typing import Any, Sequence
 
@@ -25,8 +24,7 @@ import numpy as np
 
 from firmware_py.detect.alarm import STATE_NAMES
 from host_tools.fleet.review import DRIFT_FLAG, SEVERITIES
-from host_tools.report.replay_report import (  # one style for every report
-    _CSS, INK, MUTED, STATE_COLOURS, _png, _pyplot, _state_tag, _style)
+from host_tools.report.style import CSS, INK, MUTED, STATE_COLOURS, esc, png, pyplot, state_tag, style_axes
 
 _SEV_COLOURS = {5: "#7356a3", 4: "#b8372a", 3: "#e3a32b", 2: "#4f88b4", 1: "#8fbf9f"}
 _CODE = {name: i for i, name in enumerate(STATE_NAMES)}
@@ -59,7 +57,7 @@ def _origin_text(origin_s: float) -> str:
 
 def plot_overview(rows: Sequence[dict], origin_s: float) -> bytes:
     """Worst state per pump and day."""
-    plt = _pyplot()
+    plt = pyplot()
     from matplotlib.colors import ListedColormap
     days = max((d for r in rows for d, _ in r["worst_per_day"]), default=0) + 1
     grid = np.full((len(rows), days), np.nan)
@@ -79,14 +77,14 @@ def plot_overview(rows: Sequence[dict], origin_s: float) -> bytes:
                ncols=len(seen), frameon=False)
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
-    data = _png(fig)
+    data = png(fig)
     plt.close(fig)
     return data
 
 
 def plot_drift(rows: Sequence[dict], origin_s: float) -> bytes:
     """Weekly median score over the healthy level, one small panel per pump."""
-    plt = _pyplot()
+    plt = pyplot()
     from matplotlib.ticker import MaxNLocator
     cols = min(4, len(rows))
     nrow = -(-len(rows) // cols)
@@ -103,21 +101,21 @@ def plot_drift(rows: Sequence[dict], origin_s: float) -> bytes:
         ax.set_ylim(0.5, top * 1.2)
         ax.xaxis.set_major_locator(MaxNLocator(integer=True))
         ax.set_title(_label(r), fontsize=9, loc="left", color=_SEV_COLOURS[r["severity"]] if r["severity"] >= 3 else INK)
-        _style(ax)
+        style_axes(ax)
     for ax in axs.flat[len(rows):]:
         ax.set_visible(False)
     fig.supxlabel(f"week since {_origin_text(origin_s)}")
     fig.supylabel("score / healthy (ratio)")
     fig.suptitle(f"How far each pump sits from its learned normal, week by week (dashed: {DRIFT_FLAG:g} x, flagged)",
                  color=INK, x=0.01, ha="left")
-    data = _png(fig)
+    data = png(fig)
     plt.close(fig)
     return data
 
 
 def plot_rates(rows: Sequence[dict]) -> bytes:
     """Observed alerts per 30 days of running against the expected false alerts."""
-    plt = _pyplot()
+    plt = pyplot()
     fig, ax = plt.subplots(figsize=(9, 0.9 + 0.32 * len(rows)), layout="constrained")
     y = np.arange(len(rows))
     obs = [r["alerts_per_30_days"] or 0.0 for r in rows]
@@ -131,17 +129,13 @@ def plot_rates(rows: Sequence[dict]) -> bytes:
     ax.set_xlabel("alerts per 30 days of running (symmetric log scale, linear below 1)")
     ax.set_title("Alert rate over the period against what training expected", color=INK, loc="left")
     ax.legend(loc="lower right", frameon=False)
-    _style(ax)
-    data = _png(fig)
+    style_axes(ax)
+    data = png(fig)
     plt.close(fig)
     return data
 
 
 # --- the page ---------------------------------------------------------------------------------------
-
-def _esc(v: Any) -> str:
-    return html.escape(str(v))
-
 
 def _num(v: Any, fmt: str) -> tuple[str, str]:
     """(text, sort key) of a number that may be missing."""
@@ -157,27 +151,27 @@ def _utc(t: float) -> str:
 def _row(r: dict) -> str:
     sev = r["severity"]
     tag = (f'<span class=st style="background:{_SEV_COLOURS[sev]};color:{"#fff" if sev in (4, 5) else INK}">'
-           f'{_esc(SEVERITIES[sev])}</span>')
-    name = _esc(r.get("pump") or r["gateway"])
+           f'{esc(SEVERITIES[sev])}</span>')
+    name = esc(r.get("pump") or r["gateway"])
     if r.get("report"):
-        name = f'<a href="{_esc(r["report"])}">{name}</a>'
-    cells = [(tag, str(sev)), (name, _esc(r.get("pump") or "")), (_esc(r.get("site") or "-"), _esc(r.get("site") or "")),
-             (_esc(r["gateway"]), _esc(r["gateway"]))]
+        name = f'<a href="{esc(r["report"])}">{name}</a>'
+    cells = [(tag, str(sev)), (name, esc(r.get("pump") or "")), (esc(r.get("site") or "-"), esc(r.get("site") or "")),
+             (esc(r["gateway"]), esc(r["gateway"]))]
     if r.get("error"):
-        cells.append((f'<span class=err>{_esc(r["error"])}</span>', ""))
+        cells.append((f'<span class=err>{esc(r["error"])}</span>', ""))
         return (f'<tr data-sev="{sev}">' + "".join(f'<td data-k="{k}">{c}</td>' for c, k in cells)
                 + '<td colspan=6></td></tr>')
-    now = f'{_state_tag(r["state_now"])} {r["velocity_now_mm_s"]:.2f} mm/s, zone {_esc(r["zone_now"])}'
+    now = f'{state_tag(r["state_now"])} {r["velocity_now_mm_s"]:.2f} mm/s, zone {esc(r["zone_now"])}'
     ev = f'{r["alarms"]} / {r["alerts"]} / {r["sensor_faults"]}'
     obs, obs_k = _num(r["alerts_per_30_days"], ".2f")
     exp, _ = _num(r["expected_per_30_days"], ".2g")
     drift, drift_k = _num(r["drift"], ".2f")
     age, age_k = _num(r["params_age_days"], ".0f")
     if r.get("params_before_overhaul"):
-        age += f' <span class=err>older than overhaul {_esc(r["last_overhaul"])}</span>'
+        age += f' <span class=err>older than overhaul {esc(r["last_overhaul"])}</span>'
     cells += [(now, str(_CODE[r["state_now"]])), (ev, str(r["alarms"] * 1000 + r["alerts"] * 10 + r["sensor_faults"])),
               (f"{obs} <span class=sub>/ {exp}</span>", obs_k), (drift, drift_k), (age, age_k),
-              (_esc("; ".join(r["reasons"]) or "-"), "")]
+              (esc("; ".join(r["reasons"]) or "-"), "")]
     return f'<tr data-sev="{sev}">' + "".join(f'<td data-k="{k}">{c}</td>' for c, k in cells) + "</tr>"
 
 
@@ -196,19 +190,19 @@ def _page(rows: Sequence[dict], meta: dict[str, Any], files: dict[str, bytes]) -
     counts = {s: sum(r["severity"] == s for r in rows) for s in SEVERITIES}
     head = ["severity", "pump", "site", "gateway", "state now (last window)", "alarms / alerts / sensor faults",
             "alerts per 30 days observed / expected", "drift (x healthy)", "set age, days", "why"]
-    options = "".join(f'<option value="{s}">{_esc(SEVERITIES[s])} and worse</option>' for s in sorted(SEVERITIES))
+    options = "".join(f'<option value="{s}">{esc(SEVERITIES[s])} and worse</option>' for s in sorted(SEVERITIES))
     parts = [
-        f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{_esc(meta['name'])}: fleet review</title>"
-        f"<style>{_CSS}{_MORE_CSS}</style><script>{_JS}</script></head><body>",
-        f"<h1>{_esc(meta['name'])}: fleet review</h1>",
-        f"<p class=sub>{len(rows)} gateways; period replayed {_esc(meta['period'])}; written {_esc(meta['created'])}. "
+        f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{esc(meta['name'])}: fleet review</title>"
+        f"<style>{CSS}{_MORE_CSS}</style><script>{_JS}</script></head><body>",
+        f"<h1>{esc(meta['name'])}: fleet review</h1>",
+        f"<p class=sub>{len(rows)} gateways; period replayed {esc(meta['period'])}; written {esc(meta['created'])}. "
         + ", ".join(f"{counts[s]} {SEVERITIES[s]}" for s in sorted(SEVERITIES, reverse=True) if counts[s]) + ".</p>",
         "<p class=caution>Advisory condition monitoring only: not a machinery-protection or safety system. "
         "No alert is no guarantee of health; defer to local codes and licensed practice.</p>",
         "<h2>Pumps</h2>",
         f'<p>Show <select onchange="filterSev(this.value)">{options}</select> '
         "<span class=sub>Click a column head to sort. A pump's name opens its replay report.</span></p>",
-        '<table id=pumps><thead><tr>' + "".join(f'<th onclick="sortBy(this)">{_esc(h)}</th>' for h in head)
+        '<table id=pumps><thead><tr>' + "".join(f'<th onclick="sortBy(this)">{esc(h)}</th>' for h in head)
         + "</tr></thead><tbody>" + "".join(_row(r) for r in rows) + "</tbody></table>",
         "<p class=sub>State now: the state, velocity r.m.s. (largest axis) and ISO zone of the last window replayed. "
         "Alerts per 30 days: transitions into alert or alarm per 30 days of running windows, every alert counted "
@@ -226,9 +220,9 @@ def _page(rows: Sequence[dict], meta: dict[str, Any], files: dict[str, bytes]) -
         parts.append("<h2>Events in the period</h2><table><thead><tr><th>time (UTC)</th><th>pump</th><th>change</th>"
                      "<th>reason</th><th>feature</th><th>score</th></tr></thead><tbody>")
         for r, e in events:
-            parts.append(f"<tr><td>{_esc(_utc(e['t_s']))}</td><td>{_esc(r.get('pump'))}</td>"
-                         f"<td>{_esc(e['from'])} &rarr; {_state_tag(e['to'])}</td><td>{_esc(e['reason'])}</td>"
-                         f"<td>{_esc(e['feature'] or '-')}</td><td class=num>{e['score']:.2f}</td></tr>")
+            parts.append(f"<tr><td>{esc(_utc(e['t_s']))}</td><td>{esc(r.get('pump'))}</td>"
+                         f"<td>{esc(e['from'])} &rarr; {state_tag(e['to'])}</td><td>{esc(e['reason'])}</td>"
+                         f"<td>{esc(e['feature'] or '-')}</td><td class=num>{e['score']:.2f}</td></tr>")
         parts.append("</tbody></table>")
     parts.append("</body></html>")
     return "\n".join(parts)

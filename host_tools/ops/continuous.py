@@ -46,7 +46,8 @@ def continuous_check(train_s: float = 3600.0, test_s: float = 86400.0, seed_trai
     part = train_s / 6
     recs = []
     for i, c in enumerate(stationary_chunks(seed_train, train_s, part, spec)):
-        recs.append(Recording(Path(f"stationary_train_{i}.wav"), c, scale, spec.fs_hz, ("x",),
+        recs.append(Recording(path=Path(f"stationary_train_{i}.wav"), counts=c, m_s2_per_count=scale,
+                              sample_rate_hz=spec.fs_hz, axes=("x",),
                               t0_s=_T0 + i * part, rpm=spec.shaft_hz * 60.0, machine="RW-3",
                               vane_count=spec.vane_count))
     params, summary = train(recs, profile, 1.0, seed=0)

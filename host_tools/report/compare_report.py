@@ -14,9 +14,9 @@ import numpy as np
 
 from firmware_py.detect.alarm import ALARM, ALERT, NORMAL
 from host_tools.data.times import moment
-from host_tools.report.replay_report import (
-    _CSS, _DRAW_ORDER, INK, _duration, STATE_COLOURS, _esc, _png, _pyplot, _style, _table, check_report_folder, clock_for,
-    windows_of, write_page)
+from host_tools.report.replay_report import check_report_folder, clock_for, windows_of, write_page
+from host_tools.report.style import (
+    CSS, DRAW_ORDER, INK, STATE_COLOURS, duration_text, esc, html_table, png, pyplot, style_axes)
 from host_tools.twin.compare import RAISES, Comparison
 
 SET_COLOURS = ("#4f6d8a", "#b0603a")   # old: slate blue, new: rust
@@ -49,10 +49,10 @@ def comparison_text(c: Comparison) -> str:
     w = max(28, *(len(x) for x in c.labels))
     lines = [f"{'':<24}{a:>{w}}  {b:>{w}}"]
     for state in STATE_LABELS:
-        lines.append(f"{'time ' + STATE_LABELS[state]:<24}{_duration(c.state_s[a][state]):>{w}}  "
-                     f"{_duration(c.state_s[b][state]):>{w}}")
-    lines.append(f"{'running time observed':<24}{_duration(c.rates[a]['running_s']):>{w}}  "
-                 f"{_duration(c.rates[b]['running_s']):>{w}}")
+        lines.append(f"{'time ' + STATE_LABELS[state]:<24}{duration_text(c.state_s[a][state]):>{w}}  "
+                     f"{duration_text(c.state_s[b][state]):>{w}}")
+    lines.append(f"{'running time observed':<24}{duration_text(c.rates[a]['running_s']):>{w}}  "
+                 f"{duration_text(c.rates[b]['running_s']):>{w}}")
     for key, label in (("alerts", "alerts raised"), ("observed_per_30_days", "alerts per 30 d running"),
                        ("expected_per_30_days", "expected (training)")):
         va, vb = c.rates[a][key], c.rates[b][key]
@@ -79,7 +79,7 @@ def plot_scores(c: Comparison) -> tuple[bytes, str]:
     tracks = [windows_of(r) for r in c.results]
     t_all = np.concatenate([w.t_s for w in tracks])
     clock = clock_for(float(t_all.min()), float(t_all.max()), "the first window")
-    plt = _pyplot()
+    plt = pyplot()
     fig, axs = plt.subplots(2, 1, figsize=(11, 6.2), sharex=True, sharey=True, gridspec_kw={"hspace": 0.12})
     scored = np.concatenate([w.score[w.score > 0] for w in tracks])
     thr = [(s.params["det_thr_alert_q8"] / 256, s.params["det_thr_alarm_q8"] / 256) for s in c.sets]
@@ -87,7 +87,7 @@ def plot_scores(c: Comparison) -> tuple[bytes, str]:
     bottom = min([float(np.percentile(scored, 0.5)) if len(scored) else 0.1] + [t[0] / 4 for t in thr])
     for k, (ax, w, lab) in enumerate(zip(axs, tracks, c.labels)):
         ev = w.score > 0
-        for st in _DRAW_ORDER:
+        for st in DRAW_ORDER:
             m = ev & (w.state == st)
             if m.any():
                 ax.scatter(clock(w.t_s[m]), w.score[m], s=4 if st == NORMAL else 7, color=STATE_COLOURS[st],
@@ -110,52 +110,52 @@ def plot_scores(c: Comparison) -> tuple[bytes, str]:
         ax.set_ylim(bottom, top)
         ax.set_ylabel("score, spreads")
         ax.set_title(lab, loc="left", fontsize=9.5, color=SET_COLOURS[k])
-        _style(ax)
+        style_axes(ax)
     axs[1].set_xlabel(clock.axis_label())
     fig.subplots_adjust(left=0.08, right=0.9, top=0.94, bottom=0.1)
-    out = _png(fig)
+    out = png(fig)
     plt.close(fig)
     origin = moment(clock.origin_s)
     return out, f"Time axis: {clock.unit} since the first replayed window, {origin}."
 
 
 def _event_rows(events: Sequence[dict]) -> list[list[str]]:
-    return [[_esc(x) for x in event_cells(e)] for e in events]
+    return [[esc(x) for x in event_cells(e)] for e in events]
 
 
 def render(c: Comparison) -> tuple[dict[str, bytes], str]:
     """The PNG (name -> bytes) and HTML of the comparison."""
     a, b = c.labels
-    png, origin = plot_scores(c)
-    rows = [[_esc("time " + STATE_LABELS[s]), _duration(c.state_s[a][s]), _duration(c.state_s[b][s])] for s in STATE_LABELS]
-    rows += [["running time observed", _duration(c.rates[a]["running_s"]), _duration(c.rates[b]["running_s"])],
+    scores_png, origin = plot_scores(c)
+    rows = [[esc("time " + STATE_LABELS[s]), duration_text(c.state_s[a][s]), duration_text(c.state_s[b][s])] for s in STATE_LABELS]
+    rows += [["running time observed", duration_text(c.rates[a]["running_s"]), duration_text(c.rates[b]["running_s"])],
              ["alerts raised", str(c.rates[a]["alerts"]), str(c.rates[b]["alerts"])],
              ["alerts per 30 days of running (observed)", _rate(c.rates[a]["observed_per_30_days"]),
               _rate(c.rates[b]["observed_per_30_days"])],
              ["false alerts per 30 days expected (training)", _rate(c.rates[a]["expected_per_30_days"]),
               _rate(c.rates[b]["expected_per_30_days"])]]
     head = ("time", "change", "driving feature", "score")
-    parts = [f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{_esc(a)} vs {_esc(b)}</title>"
-             f"<style>{_CSS}</style></head><body>",
-             f"<h1>Parameter sets compared: {_esc(a)} and {_esc(b)}</h1>",
-             f"<p class=sub>{_esc(summary_line(c))}. {_esc(origin)} Times in the tables are UTC, with the "
+    parts = [f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{esc(a)} vs {esc(b)}</title>"
+             f"<style>{CSS}</style></head><body>",
+             f"<h1>Parameter sets compared: {esc(a)} and {esc(b)}</h1>",
+             f"<p class=sub>{esc(summary_line(c))}. {esc(origin)} Times in the tables are UTC, with the "
              "recording and the offset into it.</p>",
              '<p class=caution>Advisory condition monitoring only: not a machinery-protection or safety '
              'shutdown system. Fewer alerts is not the same as a safer set.</p>',
-             "<h2>Side by side</h2>", _table(("", a, b), rows, num=(1, 2)),
+             "<h2>Side by side</h2>", html_table(("", a, b), rows, num=(1, 2)),
              "<p>Every alert counts in the observed rate, so it is a false-alert rate only where the "
              f"recordings are of a healthy machine. Raises of the two sets match within {c.tolerance_s:.2f} s "
              "(the longer persistence span).</p>",
              "<h2>Scores</h2>", '<img src="scores.png" alt="both sets\' scores over time, shared axes">']
     for lab, other in ((a, b), (b, a)):
-        parts.append(f"<h2>Raised by {_esc(lab)}, not by {_esc(other)} ({len(c.only[lab])})</h2>")
-        parts.append(_table(head, _event_rows(c.only[lab]), num=(3,)) if c.only[lab] else "<p>none</p>")
+        parts.append(f"<h2>Raised by {esc(lab)}, not by {esc(other)} ({len(c.only[lab])})</h2>")
+        parts.append(html_table(head, _event_rows(c.only[lab]), num=(3,)) if c.only[lab] else "<p>none</p>")
     for k, lab in enumerate(c.labels):
         raised = [e for e in c.results[k].events if e["to"] in RAISES]
-        parts.append(f"<h2>Events of {_esc(lab)} ({len(c.results[k].events)}, {len(raised)} raising)</h2>")
-        parts.append(_table(head, _event_rows(c.results[k].events), num=(3,)) if c.results[k].events else "<p>none</p>")
+        parts.append(f"<h2>Events of {esc(lab)} ({len(c.results[k].events)}, {len(raised)} raising)</h2>")
+        parts.append(html_table(head, _event_rows(c.results[k].events), num=(3,)) if c.results[k].events else "<p>none</p>")
     parts.append("</body></html>\n")
-    return {"scores.png": png}, "\n".join(parts)
+    return {"scores.png": scores_png}, "\n".join(parts)
 
 
 def write_compare_report(out_dir: str | Path, c: Comparison) -> Path:

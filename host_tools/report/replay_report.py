@@ -28,8 +28,6 @@ This is advisory condition monitoring, not machinery protection; an all-clear is
 """
 from __future__ import annotations
 
-import html
-import io
 import json
 import os
 import secrets
@@ -44,11 +42,14 @@ import numpy as np
 import firmware_py  # noqa: F401  (installs the micropython stand-in the device modules import)
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import iso_zones
-from firmware_py.detect.alarm import ALARM, ALERT, IDLE, LEARNING, NORMAL, SENSOR_FAULT, STATE_NAMES, UNSCORED, windows_for
+from firmware_py.detect.alarm import ALARM, ALERT, IDLE, NORMAL, SENSOR_FAULT, STATE_NAMES, windows_for
 from host_tools.data import units
 from host_tools.data.lines import HANN_ENBW_BINS, line_names
 from host_tools.errors import EdgevibError
 from host_tools.progress import progress_bar
+from host_tools.report.style import (
+    CSS, DRAW_ORDER, INK, MUTED, STATE_COLOURS, duration_text, esc, html_table, png, pyplot, state_code, state_tag,
+    style_axes)
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.data.recording import Recording, RecordingFile, open_recording
 
@@ -59,18 +60,6 @@ MIN_SEG_FRACTION = 1 / 700  # least drawn width of a band segment, fraction of t
 _UNIX_2000 = 946684800.0  # t0_s past this reads as Unix seconds, so a UTC date is shown too
 _DAY_S = 86400.0
 
-# Our own palette, muted; the states also differ in order (worst drawn on top) and in the tables by name.
-INK, MUTED, GRID, PAPER = "#1d2b36", "#75838f", "#e4e8ec", "#ffffff"
-STATE_COLOURS = {
-    NORMAL: "#8fbf9f",        # sage
-    ALERT: "#e3a32b",         # amber
-    ALARM: "#b8372a",         # brick
-    IDLE: "#cfd5dc",          # pale slate
-    SENSOR_FAULT: "#7356a3",  # violet
-    LEARNING: "#4f88b4",      # steel blue
-    UNSCORED: "#a7b89a",      # lichen: running, health not judged (an operating point never learned)
-}
-_DRAW_ORDER = (IDLE, NORMAL, UNSCORED, LEARNING, ALERT, SENSOR_FAULT, ALARM)   # later is drawn on top
 FAULT_COLOURS = {"bearing_outer_race": "#c7662f", "cavitation": "#2f86c7", "loose_cable": "#8a4fb0"}
 _RAISES = (ALERT, ALARM, SENSOR_FAULT)
 # Which new state counts as having seen each seeded fault of the demo scenario.
@@ -98,11 +87,6 @@ def _get(result: Any, name: str) -> Any:
     if isinstance(result, dict):
         return result.get(name)
     return getattr(result, name, None)
-
-
-def state_code(s: Any) -> int:
-    """A state given as its name or its integer, as an int."""
-    return STATE_NAMES.index(s) if isinstance(s, str) else int(s)
 
 
 def windows_of(result: Any, stream: int | None = None) -> Windows:
@@ -261,34 +245,6 @@ def _feature_text(feat: Any, p: dict, axes: Sequence[str]) -> str:
 
 # --- plots ----------------------------------------------------------------------------------------
 
-def _pyplot():
-    import matplotlib
-    matplotlib.use("Agg")
-    from matplotlib import pyplot as plt
-    plt.rcParams.update({"font.size": 9, "axes.edgecolor": MUTED, "axes.labelcolor": INK,
-                         "xtick.color": INK, "ytick.color": INK, "axes.titlecolor": INK})
-    return plt
-
-
-def _style(ax) -> None:
-    from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
-    ax.grid(True, which="major", color=GRID, lw=0.7)
-    if ax.get_yscale() == "log":
-        # ticks at 1, 2 and 5 per decade, so a span under one decade still gets labels
-        ax.yaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
-        ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
-        ax.yaxis.set_minor_formatter(NullFormatter())
-    ax.set_axisbelow(True)
-    for side in ("top", "right"):
-        ax.spines[side].set_visible(False)
-
-
-def _png(fig) -> bytes:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110, facecolor=PAPER)
-    return buf.getvalue()
-
-
 def state_segments(t: np.ndarray, state: np.ndarray, window_s: float) -> list[tuple[int, float, float]]:
     """(state, start, end) runs in seconds: each window's state holds until the next window when
     the gap is at most GAP_HOLD usual spacings, else for one window only."""
@@ -309,7 +265,7 @@ def state_segments(t: np.ndarray, state: np.ndarray, window_s: float) -> list[tu
 def _state_band(ax, w: Windows, clock: Clock, window_s: float, span: float) -> None:
     least = span * MIN_SEG_FRACTION
     segs = state_segments(w.t_s, w.state, window_s)
-    for st in _DRAW_ORDER:
+    for st in DRAW_ORDER:
         bars = [(float(clock(a)), max(float(clock(b)) - float(clock(a)), least)) for s, a, b in segs if s == st]
         if bars:
             ax.broken_barh(bars, (0, 1), facecolors=STATE_COLOURS[st], edgecolor="none")
@@ -333,7 +289,7 @@ def _fault_spans(axs, faults: Sequence[dict], clock: Clock, label_ax=None) -> No
 
 def _band_legend(fig, states_seen: set[int], faults: Sequence[dict]) -> None:
     from matplotlib.patches import Patch
-    handles = [Patch(color=STATE_COLOURS[s], label=STATE_NAMES[s]) for s in _DRAW_ORDER if s in states_seen]
+    handles = [Patch(color=STATE_COLOURS[s], label=STATE_NAMES[s]) for s in DRAW_ORDER if s in states_seen]
     seen = []
     for f in faults:
         if f["kind"] not in seen:
@@ -355,19 +311,19 @@ def _timeline(plt, w: Windows, clock: Clock, window_s: float, faults: Sequence[d
     _band_legend(fig, set(w.state.tolist()), faults)
     ax.set_xlim(t0 - 0.01 * span, t1 + 0.025 * span)
     ax.set_xlabel(clock.axis_label())
-    _style(ax)
+    style_axes(ax)
     return fig, ax
 
 
 def plot_score(w: Windows, p: dict, clock: Clock, window_s: float, faults: Sequence[dict],
                events: Sequence[dict], title: str) -> bytes:
     """Score of each evaluated window (points, coloured by state) against the thresholds."""
-    plt = _pyplot()
+    plt = pyplot()
     fig, ax = _timeline(plt, w, clock, window_s, faults, title)
     alert, alarm = p["det_thr_alert_q8"] / 256, p["det_thr_alarm_q8"] / 256
     clear = alert * p["det_hyst_q8"] / 256
     ev = w.score > 0
-    for st in _DRAW_ORDER:
+    for st in DRAW_ORDER:
         m = ev & (w.state == st)
         if m.any():
             ax.scatter(clock(w.t_s[m]), w.score[m], s=4 if st == NORMAL else 7, color=STATE_COLOURS[st],
@@ -388,9 +344,9 @@ def plot_score(w: Windows, p: dict, clock: Clock, window_s: float, faults: Seque
                 zorder=5, label="alert or alarm raised")
         ax.legend(loc="upper left", frameon=False, fontsize=8)
     ax.set_ylabel("score, spreads of the nearest mode")
-    _style(ax)
+    style_axes(ax)
     fig.subplots_adjust(left=0.08, right=0.9, top=0.84, bottom=0.12)
-    out = _png(fig)
+    out = png(fig)
     plt.close(fig)
     return out
 
@@ -398,11 +354,11 @@ def plot_score(w: Windows, p: dict, clock: Clock, window_s: float, faults: Seque
 def plot_velocity(w: Windows, p: dict, clock: Clock, window_s: float, faults: Sequence[dict],
                   title: str) -> bytes:
     """Velocity r.m.s. (largest axis) of each running window against the ISO zone boundaries."""
-    plt = _pyplot()
+    plt = pyplot()
     fig, ax = _timeline(plt, w, clock, window_s, faults, title)
     (ab, bc, cd), source = iso_bounds_mm_s(p)
     run = (w.velocity_mm_s > 0) & (w.state != IDLE)
-    for st in _DRAW_ORDER:
+    for st in DRAW_ORDER:
         m = run & (w.state == st)
         if m.any():
             ax.scatter(clock(w.t_s[m]), w.velocity_mm_s[m], s=4 if st == NORMAL else 7,
@@ -422,11 +378,11 @@ def plot_velocity(w: Windows, p: dict, clock: Clock, window_s: float, faults: Se
         ax.text(1.004, float(np.sqrt(a * b)), f"zone {zone}", transform=ax.get_yaxis_transform(), color=INK,
                 fontsize=8, va="center", ha="left")
     ax.set_ylabel("velocity r.m.s., mm/s (largest axis)")
-    _style(ax)
+    style_axes(ax)
     ax.text(0.0, -0.2, f"zone boundaries {ab:.2f} / {bc:.2f} / {cd:.2f} mm/s: {source}",
             transform=ax.transAxes, fontsize=7.5, color=MUTED)
     fig.subplots_adjust(left=0.08, right=0.9, top=0.84, bottom=0.17)
-    out = _png(fig)
+    out = png(fig)
     plt.close(fig)
     return out
 
@@ -542,7 +498,7 @@ def plot_event_spectrum(ev: dict, number: int, w: Windows, p: dict, src: _Window
     fs, n = float(p["fs_hz"]), int(p["n"])
     f = np.arange(n // 2 + 1) * fs / n
     k0 = 2                                         # above the Hann window's DC leakage
-    plt = _pyplot()
+    plt = pyplot()
     fig, ax = plt.subplots(figsize=(8.5, 3.3))
     to = state_code(ev["to"])
     drawn = False
@@ -560,57 +516,19 @@ def plot_event_spectrum(ev: dict, number: int, w: Windows, p: dict, src: _Window
     rec = src.recording(t_at[-1])
     if rec is not None:
         _mark_orders(ax, rec.rpm, rec.vane_count, fs / 2)
-    _style(ax)
+    style_axes(ax)
     ax.set_xlabel("frequency, Hz")
     ax.set_ylabel(f"axis {axes[axis] if axis < len(axes) else axis}: m/s² r.m.s.")
     ax.set_title(f"event {number}: {ev['from']} → {ev['to']} ({ev['reason']}) at {clock.label(float(ev['t_s']))}",
                  loc="left", fontsize=9.5)
     ax.legend(loc="upper right", frameon=False, fontsize=8)
     fig.subplots_adjust(left=0.1, right=0.97, top=0.9, bottom=0.15)
-    out = _png(fig)
+    out = png(fig)
     plt.close(fig)
     return out
 
 
 # --- the page -------------------------------------------------------------------------------------
-
-_CSS = """
-body { font: 14px/1.45 system-ui, sans-serif; color: #1d2b36; margin: 2em auto; max-width: 1240px; padding: 0 1em; }
-h1 { font-size: 1.45em; margin-bottom: .2em; } h2 { font-size: 1.1em; margin-top: 2em; border-bottom: 2px solid #e4e8ec; }
-.sub { color: #75838f; } .caution { border-left: 4px solid #e3a32b; background: #fcf6ea; padding: .6em 1em; }
-table { border-collapse: collapse; margin: .6em 0; font-size: .92em; }
-th, td { padding: .25em .7em; text-align: left; border-bottom: 1px solid #e4e8ec; vertical-align: top; }
-th { color: #75838f; font-weight: 600; } td.num { text-align: right; font-variant-numeric: tabular-nums; }
-img { max-width: 100%; display: block; margin: .6em 0; }
-.st { display: inline-block; padding: 0 .45em; border-radius: 3px; }
-"""
-
-
-def _esc(v: Any) -> str:
-    return html.escape(str(v))
-
-
-def _state_tag(name: Any) -> str:
-    code = state_code(name)
-    dark = code in (ALARM, SENSOR_FAULT, LEARNING)
-    return (f'<span class="st" style="background:{STATE_COLOURS.get(code, GRID)};'
-            f'color:{"#fff" if dark else INK}">{_esc(STATE_NAMES[code])}</span>')
-
-
-def _duration(s: float) -> str:
-    if s < 3600:
-        return f"{s / 60:.1f} min"
-    if s < 2 * _DAY_S:
-        return f"{s / 3600:.1f} h"
-    return f"{s / _DAY_S:.2f} days"
-
-
-def _table(head: Sequence[str], rows: Sequence[Sequence[str]], num: Sequence[int] = ()) -> str:
-    h = "".join(f"<th>{_esc(c)}</th>" for c in head)
-    body = "".join("<tr>" + "".join(f'<td{" class=num" if i in num else ""}>{c}</td>' for i, c in enumerate(r))
-                   + "</tr>" for r in rows)
-    return f"<table><tr>{h}</tr>{body}</table>"
-
 
 SUMMARY_LABELS = {
     "recordings": "recordings", "windows": "windows analysed", "observed_s": "time analysed",
@@ -626,7 +544,7 @@ def _summary_rows(summary: Any, clock: Clock, window_s: float) -> list[list[str]
     """One row per item with a readable label; times as the tables show them, durations in
     minutes, hours or days, time per state from the windows per state."""
     if not isinstance(summary, dict):
-        return [["summary", _esc(summary)]] if summary else []
+        return [["summary", esc(summary)]] if summary else []
     rows = []
     for k, v in summary.items():
         if v is None:
@@ -634,13 +552,13 @@ def _summary_rows(summary: Any, clock: Clock, window_s: float) -> list[list[str]
         elif k.endswith("t_s") and isinstance(v, (int, float)) and not isinstance(v, bool):
             text = clock.label(float(v))
         elif k == "observed_s":
-            text = _duration(float(v))
+            text = duration_text(float(v))
         elif k == "windows_per_state" and isinstance(v, dict):
-            text = ", ".join(f"{name.replace('_', ' ')} {_duration(n * window_s)}" for name, n in v.items() if n) or "none"
+            text = ", ".join(f"{name.replace('_', ' ')} {duration_text(n * window_s)}" for name, n in v.items() if n) or "none"
         else:
             text = json.dumps(v, sort_keys=True) if isinstance(v, (dict, list)) else str(v)
         label = SUMMARY_LABELS.get(k, k.replace("_", " "))
-        rows.append([_esc(label), _esc(text if len(text) < 400 else text[:400] + " ...")])
+        rows.append([esc(label), esc(text if len(text) < 400 else text[:400] + " ...")])
     return rows
 
 
@@ -742,13 +660,13 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
             spectra[i] = name
             bar.update(1)
 
-    parts = [f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{_esc(who)}: replay report</title>"
-             f"<style>{_CSS}</style></head><body>",
-             f"<h1>{_esc(who)}: replay report</h1>",
+    parts = [f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{esc(who)}: replay report</title>"
+             f"<style>{CSS}</style></head><body>",
+             f"<h1>{esc(who)}: replay report</h1>",
              f'<p class=sub>{len(recs)} recording(s), {len(w.t_s)} windows of {p["n"]} samples at '
-             f'{float(p["fs_hz"]):g} Hz, from {_esc(clock.label(t_first))} to {_esc(clock.label(t_last))}; '
-             f'parameter set version {_esc(p.get("version", "?"))} for board {_esc(p.get("board", "?"))}. '
-             f'Time origin of every plot and table: {_esc(clock.axis_label())}.</p>',
+             f'{float(p["fs_hz"]):g} Hz, from {esc(clock.label(t_first))} to {esc(clock.label(t_last))}; '
+             f'parameter set version {esc(p.get("version", "?"))} for board {esc(p.get("board", "?"))}. '
+             f'Time origin of every plot and table: {esc(clock.axis_label())}.</p>',
              '<p class=caution>Advisory condition monitoring only: not a machinery-protection or safety '
              'shutdown system. A window in <b>normal</b> resembles what was learned as normal; it is no '
              'guarantee that the machine is healthy.</p>']
@@ -776,7 +694,7 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
                   for i, name in spectra.items()]
     rows = _summary_rows(summary, clock, window_s)
     if rows:
-        parts += ["<h2>Replay summary</h2>", _table(("item", "value"), rows)]
+        parts += ["<h2>Replay summary</h2>", html_table(("item", "value"), rows)]
     parts.append("</body></html>\n")
     return files, "\n".join(parts)
 
@@ -787,29 +705,29 @@ def _events_table(events: Sequence[dict], spectra: dict[int, str], p: dict, axes
         mode = e.get("mode")
         spec = f'<a href="#spectrum-{i + 1}">plot</a>' if i in spectra else ""
         score = e.get("score")
-        rows.append([str(i + 1), _esc(clock.label(float(e["t_s"]))), _state_tag(e["from"]) + " → " + _state_tag(e["to"]),
-                     _esc(e["reason"]), "-" if mode is None or mode < 0 else str(mode),
-                     _esc(_feature_text(e.get("feature"), p, axes)),
+        rows.append([str(i + 1), esc(clock.label(float(e["t_s"]))), state_tag(e["from"]) + " → " + state_tag(e["to"]),
+                     esc(e["reason"]), "-" if mode is None or mode < 0 else str(mode),
+                     esc(_feature_text(e.get("feature"), p, axes)),
                      "-" if score is None else f"{float(score):.2f}", spec])
     if not rows:
         return "<p>No events: the detector stayed in one state.</p>"
-    return _table(("#", "time", "transition", "reason", "mode", "feature", "score", "spectrum"), rows, num=(0, 6))
+    return html_table(("#", "time", "transition", "reason", "mode", "feature", "score", "spectrum"), rows, num=(0, 6))
 
 
 def _truth_section(events: Sequence[dict], faults: Sequence[dict], clock: Clock, t_from: float, t_to: float,
                    truth: dict) -> str:
     rows = []
     for d in detections(events, faults):
-        seen = (f"{_esc(clock.label(d['detected_t_s']))}: {_esc(d['detected_as'])}" if d["detected_t_s"] is not None
+        seen = (f"{esc(clock.label(d['detected_t_s']))}: {esc(d['detected_as'])}" if d["detected_t_s"] is not None
                 else "not detected")
-        delay = _duration(d["delay_s"]) if d["delay_s"] is not None else "-"
-        rows.append([_esc(d["kind"].replace("_", " ")), _esc(clock.label(d["start_t0_s"])),
-                     _esc(clock.label(d["end_t0_s"])), seen, delay])
+        delay = duration_text(d["delay_s"]) if d["delay_s"] is not None else "-"
+        rows.append([esc(d["kind"].replace("_", " ")), esc(clock.label(d["start_t0_s"])),
+                     esc(clock.label(d["end_t0_s"])), seen, delay])
     fr = false_raises(events, faults, t_from, t_to)
     text = (f"<p>Outside the seeded faults ({fr['healthy_days']:.1f} days of healthy running and stops): "
             f"{len(fr['alerts'])} alert(s) or alarm(s) raised, {len(fr['sensor_faults'])} sensor fault(s).</p>")
-    note = _esc(truth.get("note", "ground truth of the scenario"))
-    table = _table(("seeded fault", "starts", "ends", "first detection", "delay"), rows) if rows else \
+    note = esc(truth.get("note", "ground truth of the scenario"))
+    table = html_table(("seeded fault", "starts", "ends", "first detection", "delay"), rows) if rows else \
         "<p>No seeded fault on this machine in this span.</p>"
     return f"<h2>Against the ground truth</h2><p class=sub>{note}</p>{table}{text}"
 
