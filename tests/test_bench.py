@@ -26,8 +26,13 @@ def test_bench_json_has_every_figure_and_the_deterministic_ones_hold():
         assert isinstance(fig[key], float) and fig[key] > 0
     assert fig["mpy_viper_same_features_as_bytecode"] is True
     thumb = fig["armv6m_thumb_instructions"]
-    assert {"dsp.fft.cfft", "dsp.fft.spectrum", "dsp.features._shape", "dsp.ring.gather16",
+    assert {"dsp.fft.cfft", "dsp.fft.spectrum", "dsp.features._shape", "dsp.ring.scatter16",
+            "dsp.speed._best_candidate", "dsp.envelope._band_in", "dsp.envelope._square",
+            "dsp.envelope._rescale", "dsp.envelope._demean", "dsp.envelope._lobe_power",
             "drivers.unpack_words"} <= set(thumb)
+    # the Pico's application feeds its read block once it holds more than 128 frames, read 16 at
+    # a time (the profile's FIFO watermark): 144 frames per feed
+    assert fig["mpy_viper_feed_block_frames"] == 144
     assert all(isinstance(v, int) and v > 0 for v in thumb.values())
     assert "mpy_viper_loop_equiv_per_sample" in fig["targets_met"]
 

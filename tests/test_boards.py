@@ -44,9 +44,11 @@ def test_memory_need_is_the_feature_core_plus_the_driver_buffers():
     core = features.footprint_bytes(p["window_n"], p["axes"], p["ring_windows"], p["n_bands"])
     drv = adxl345.footprint_bytes(p["fifo_watermark"], p["axes"])
     assert board.memory_need(p) == core + drv + 1024
-    # The driver's share: 6-byte frame buffer, command and write bytes, a 32-frame read block
-    # of three axes (the profile keeps x, y and z).
-    assert p["axes"] == 3 and drv == 6 + 3 + 2 * 3 * 32
+    # The driver's share: the raw bytes of a 32-frame FIFO drain (6 per frame) with a view of
+    # each frame (about 16 bytes) in a list (4 bytes an item), command and write bytes, and a
+    # read block of three axes (the profile keeps x, y and z) for 128 frames held plus one
+    # 32-frame FIFO read.
+    assert p["axes"] == 3 and drv == 32 * (6 + 16 + 4) + 3 + 2 * 3 * (128 + 32)
     assert iis3dwb.footprint_bytes(256, 1) == 7 * 256 + 5 + 2 * 512
 
 

@@ -99,7 +99,7 @@ class Quiet(adxl345.ADXL345):
     def __init__(self, regs):
         self._regs = regs
         self.axes = 3
-        self._buf = bytearray(6)
+        self._raw, self._slots = adxl345.frame_slots()
         self._one = bytearray(1)
         self.gaps = GapCounter(ticks, 5000)
 bus = Bus(16, 0)                     # FIFO_STATUS Entries = 16, INT_SOURCE without overrun

@@ -17,6 +17,7 @@ import functools
 import numpy as np
 import pytest
 
+from firmware_py.dsp import feature_index as fi
 from firmware_py.run import params
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.twin.mpy_guest import run_guest
@@ -40,20 +41,47 @@ def _config(n):
     return adc, bands
 
 
+def stages(n):
+    """Speed, order and envelope settings that every N from 64 to 4096 accepts (FeatureCore's
+    checks): 1x searched over lo..hi bins (lo >= 3, hi below an octave), a vane count and
+    defect orders whose lines at the top speed fit the spectrum and the envelope's (fs/4), and
+    an envelope band of m/4 bins. Keyword arguments of tests.feature_helpers.device_features.
+    At FS = 3200, bins * FS * 256 / n is a whole Hz Q8 for every n <= 4096 (3200 * 256 = 2**15 * 25)."""
+    m = n // 2
+    lo = 3 + m // 64
+    hi = lo + 2 + m // 128
+    # orders 2.3, 1.9, 1.4, 0.4 (Q12): the top line 2.3 * hi bins + 4 stays within m/2 at n = 64
+    return dict(speed=(lo * FS * 256 // n, hi * FS * 256 // n), vane=min(7, (m - 2) // hi),
+                env_band=(m // 4, m // 2), bear_q12=(9421, 7782, 5734, 1638))
+
+
+def _twin(n, adc, bands, speed=(0, 0), vane=0, env_band=(), bear_q12=()):
+    return FeatureTwin(TwinConfig(n=n, fs_hz=FS, adc_min=adc[0], adc_max=adc[1], bands=bands,
+                                  speed_lo_q8=speed[0], speed_hi_q8=speed[1], vane=vane,
+                                  env_band=env_band, bear_q12=bear_q12))
+
+
+@pytest.mark.parametrize("with_stages", [False, True], ids=["core", "speed-orders-envelope"])
 @pytest.mark.parametrize("n", NS)
-def test_viper_features_equal_cpython_and_the_twin_bit_for_bit(n):
+def test_viper_features_equal_cpython_and_the_twin_bit_for_bit(n, with_stages):
+    """core: the feature core alone (the spectrum's X not kept); speed-orders-envelope: with the
+    shaft speed, order amplitudes and squared-envelope lines on (stages(n))."""
     adc, bands = _config(n)
+    opts = stages(n) if with_stages else {}
     windows = list(adversarial(n, seed=n).values())
-    got, clean, _ = guest_features(windows, n, FS, bands, adc, run=run_unix)
+    got, clean, _ = guest_features(windows, n, FS, bands, adc, run=run_unix, **opts)
     assert clean, "a viper window step allocated under heap_lock"
     x = np.concatenate(windows)
-    cpy, _ = device_features(x, n=n, fs=FS, bands=bands, adc=adc)
-    twin = FeatureTwin(TwinConfig(n=n, fs_hz=FS, adc_min=adc[0], adc_max=adc[1],
-                                  bands=bands)).features(x)
+    cpy, _ = device_features(x, n=n, fs=FS, bands=bands, adc=adc, **opts)
+    twin = _twin(n, adc, bands, **opts).features(x)
     assert np.array_equal(cpy, twin)
     assert np.array_equal(got, cpy)
+    if with_stages:
+        # the stages ran their whole path on some of these windows, not only the early exits
+        assert (cpy[:, fi.F_SPEED] > 0).any() and (cpy[:, fi.F_ORD_VANE] != fi.LOG2_ZERO_Q8).any()
+        assert (cpy[:, fi.F_ENV_BPFO:fi.F_ENV_FTF + 1] != fi.LOG2_ZERO_Q8).any()
     if n in WASI_NS:
-        wasi, clean, _ = guest_features(windows, n, FS, bands, adc, run=_WASI)
+        wasi, clean, _ = guest_features(windows, n, FS, bands, adc, run=_WASI, **opts)
         assert clean, "a bytecode window step allocated (or passed 2**30) under heap_lock"
         assert np.array_equal(wasi, got)
 
@@ -61,7 +89,6 @@ def test_viper_features_equal_cpython_and_the_twin_bit_for_bit(n):
 def test_the_adversarial_set_reaches_the_bounds_it_is_meant_to():
     """Guards the test above against a weakened signal set: clipping is counted, the peak
     reaches 65535 counts (x - mean from -32768 to 32767), and a one-LSB window is analysed."""
-    from firmware_py.dsp import feature_index as fi
     n = 512
     w = adversarial(n, seed=n)
     f, _ = device_features(np.concatenate(list(w.values())), n=n, fs=FS)

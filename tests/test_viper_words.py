@@ -4,8 +4,9 @@ in CPython on a modelled 32-bit word (the boards) and 64-bit word (the x86-64 un
 the same bits as on Python ints (tests/word_model.py says how the model is built).
 
 Windows as in tests/test_viper_windows.py (full-scale DC both signs, full-scale Nyquist square,
-clipping, impulses, white noise over all of int16, one-LSB signals) at every N from 64 to 4096;
-the FIFO decode on random bursts with and without the IIS3DWB's tags.
+clipping, impulses, white noise over all of int16, one-LSB signals) at every N from 64 to 4096,
+with the speed, order and envelope stages off and on; the FIFO decode on random bursts with and
+without the IIS3DWB's tags.
 """
 import array
 
@@ -13,35 +14,47 @@ import numpy as np
 import pytest
 
 from firmware_py import drivers
-from firmware_py.dsp import features, fft, fixmath, ring, tables
+from firmware_py.dsp import envelope, features, fft, fixmath, orders, ring, speed, tables
 from tests.feature_helpers import device_features
 from tests.signals import adversarial
-from tests.test_viper_windows import FS, NS, _config
+from tests.test_viper_windows import FS, NS, _config, stages
 from tests.word_model import load
 
 
 @pytest.mark.parametrize("bits", [32, 64])
 def test_viper_features_on_a_machine_word_equal_python_ints(bits, monkeypatch):
+    """Every viper function of the window path, the speed, order and envelope stages included
+    (each N runs once with them off and once on, tests.test_viper_windows.stages)."""
     runs = []
     for n in NS:
         adc, bands = _config(n)
         x = np.concatenate(list(adversarial(n, seed=n).values()))
-        runs.append((n, adc, bands, x, device_features(x, n=n, fs=FS, bands=bands, adc=adc)[0]))
-    fft_w, w_fft = load(fft, bits)
-    feat_w, w_feat = load(features, bits)
-    ring_w, w_ring = load(ring, bits)
-    fix_w, w_fix = load(fixmath, bits)
+        for opts in ({}, stages(n)):
+            want = device_features(x, n=n, fs=FS, bands=bands, adc=adc, **opts)[0]
+            runs.append((n, adc, bands, x, opts, want))
+    words = {}
+    for mod in (fft, features, ring, fixmath, speed, envelope):
+        words[mod] = load(mod, bits)
+    fft_w = words[fft][0]
+    fix_w = words[fixmath][0]
     for name in ("cfft", "spectrum", "power_sum"):
         monkeypatch.setattr(fft, name, getattr(fft_w, name))
-    for name in ("div_pow2", "log2_q8", "msb", "sqrt_pow2"):     # as features imported them
-        monkeypatch.setattr(features, name, getattr(fix_w, name))
-    monkeypatch.setattr(features, "_scan", feat_w._scan)
-    monkeypatch.setattr(features, "_shape", feat_w._shape)
-    monkeypatch.setattr(ring, "gather16", ring_w.gather16)
-    for n, adc, bands, x, want in runs:
-        got, _ = device_features(x, n=n, fs=FS, bands=bands, adc=adc)
-        assert np.array_equal(got, want), n
-    for w in (w_fft, w_feat, w_ring, w_fix):
+    # the fixmath helpers and power_sum where the stages imported them by name
+    for mod in (features, speed, orders, envelope):
+        for name in ("div_pow2", "log2_q8", "msb", "sqrt_pow2", "power_sum"):
+            if hasattr(mod, name):
+                src = fft_w if name == "power_sum" else fix_w
+                monkeypatch.setattr(mod, name, getattr(src, name))
+    for mod, names in ((features, ("_scan", "_shape", "_bands")), (ring, ("scatter16",)),
+                       (speed, ("_best_candidate",)),
+                       (envelope, ("_peak", "_band_in", "_square", "_rescale", "_demean",
+                                   "_lobe_power"))):
+        for name in names:
+            monkeypatch.setattr(mod, name, getattr(words[mod][0], name))
+    for n, adc, bands, x, opts, want in runs:
+        got, _ = device_features(x, n=n, fs=FS, bands=bands, adc=adc, **opts)
+        assert np.array_equal(got, want), (n, opts)
+    for _, w in words.values():
         assert w.out_of_range == [] and w.bad_shifts == []
 
 

@@ -4,7 +4,8 @@ SPI only. Register map and bit names: ST datasheet DS12569 "IIS3DWB", section "R
 mapping" and "Register description" (document number and revision Rev 6 from memory); the
 same names as ST's reference driver iis3dwb_reg.h (github.com/STMicroelectronics/iis3dwb-pid).
 
-Entry points: fs_code(), counts_per_g(), check_profile(), block_frames(), footprint_bytes(), IIS3DWB."""
+Entry points: fs_code(), counts_per_g(), check_profile(), block_frames(), read_frames(),
+footprint_bytes(), IIS3DWB."""
 from micropython import const
 
 from firmware_py.drivers import GapCounter, mean_frames, unpack_words
@@ -96,6 +97,12 @@ def block_frames(watermark):
     return FIFO_FRAMES - FIFO_FRAMES % watermark
 
 
+def read_frames(watermark):
+    """The most frames one read_into can bring: the whole read block (bursts are large enough
+    to feed as they come)."""
+    return block_frames(watermark)
+
+
 def footprint_bytes(watermark, axes):
     """Heap bytes of the driver's buffers plus the caller's read block (array('h'))."""
     return _WORD * watermark + 2 + 1 + 2 + 2 * axes * block_frames(watermark)
@@ -139,9 +146,9 @@ class IIS3DWB:
         self.gaps = GapCounter(ticks_us, _PERIOD_Q4)
         self.gaps.restart(0)
 
-    def read_into(self, out):
+    def read_into(self, out, at=0):
         """Move whole watermark-sized bursts of FIFO words into out (array('h'), frames * axes
-        interleaved counts), at most len(out) // axes frames. Returns the number of frames; frames
+        interleaved counts) from frame `at` on, at most len(out) // axes - at frames. Returns the number of frames; frames
         lost to an overrun since the last call are added to self.gaps.lost. Allocates nothing."""
         regs = self._regs
         st = self._status
@@ -151,8 +158,8 @@ class IIS3DWB:
         blk = self._blk
         wm = self._wm
         axes = self.axes
-        room = len(out) // axes
-        i = 0
+        room = len(out) // axes - at
+        i = at * axes
         got = 0
         while level >= wm and got + wm <= room:
             regs.read_into(_FIFO_DATA_OUT_TAG, blk)
@@ -160,7 +167,7 @@ class IIS3DWB:
             level -= wm
             got += wm
         self.gaps.taken(got)
-        return i // axes
+        return i // axes - at
 
     def self_test(self):
         """Run the positive self-test at +-4 g as ST's reference procedure does: mean of 32 frames

@@ -42,10 +42,13 @@
 # <= 21846 < 23171; |D|**2 < 2**29 and, by Parseval, any sum of them is below max(d)**2 < 2**29.
 import array
 
+import micropython
+
 from firmware_py.dsp import fft
 from firmware_py.dsp.feature_index import (
     F_ENV_BPFI, F_ENV_BPFO, F_ENV_BSF, F_ENV_FTF, LOG2_ZERO_Q8)
 from firmware_py.dsp.fixmath import div_pow2, log2_q8, msb, mul_shift
+from firmware_py.viper_stand import SX32, ptr16, ptr32
 
 _S_TOP = 12                  # s' top bit
 
@@ -150,58 +153,24 @@ class Envelope:
     def _squared_envelope(self, buf):
         """Steps 1-4: leaves D in buf; returns eq (0 if the band or its envelope is empty)."""
         lo = self.lo
-        hi = self.hi
-        mx = 0
-        for i in range(2 * lo, 2 * hi):
-            v = buf[i]
-            if v > mx:
-                mx = v
-            elif -v > mx:
-                mx = -v
+        mx = _peak(buf, 2 * lo, 2 * self.hi)
         if mx == 0:
             return 0
         u = 13 - msb(mx)                # -1 <= u <= 13
         g = 1 << u if u > 0 else 1
         sh = 1 if u < 0 else 0
         e = self.e
-        pos = self.pos
-        ps = self.ps
         mz = self.mz
-        n2 = 2 * mz
-        for i in range(n2):
-            e[i] = 0
-        for k in range(lo, hi):
-            q = pos[ps * (k - lo)]      # slot of complex point k - lo, bit-reversed
-            e[q] = (buf[2 * k] * g) >> sh
-            e[q + 1] = -((buf[2 * k + 1] * g) >> sh)
+        _band_in(buf, lo, self.hi, g, sh, e, 2 * mz, self.pos, self.ps)
         fft.cfft(e, mz, self.tw_q15)
-        top = 0
-        for i in range(0, n2, 2):       # s[t] = |z[t]|**2 into the real slot e[2t]
-            zr = e[i]
-            zi = e[i + 1]
-            v = zr * zr + zi * zi
-            e[i] = v
-            if v > top:
-                top = v
+        top = _square(e, 2 * mz)
         if top == 0:
             return 0
         w = msb(top) - _S_TOP           # s' = s * 2**-w: top bit at 12
-        gs = 1 << -w if w < 0 else 1
-        ws = w if w > 0 else 0
-        tot = 0
-        for i in range(0, n2, 2):
-            v = (e[i] * gs) >> ws
-            e[i] = v
-            tot += v
+        tot = _rescale(e, 2 * mz, 1 << -w if w < 0 else 1, w if w > 0 else 0)
         # eq = round(tot / sum(w**2)) = round(tot * 2**14 / w2sum), e2's mean in s' units
         eq = (div_pow2(tot, self.w2sum_q14, 15) + 1) >> 1
-        hann = self.hann_q15
-        hs = self.hs
-        for t in range(mz):
-            h = hann[hs * t] >> 1       # w(t), Q14
-            q = pos[ps * t]
-            buf[q] = e[2 * t] - ((eq * ((h * h) >> 14) + 8192) >> 14)
-            buf[q + 1] = 0
+        _demean(e, buf, mz, eq, self.hann_q15, self.hs, self.pos, self.ps)
         fft.cfft(buf, mz, self.tw_q15)
         return eq
 
@@ -211,9 +180,96 @@ class Envelope:
         k = (x_q8 >> 8) - 2
         if k < 0:
             k = 0
-        s = 0
-        for j in range(k, (x_q8 >> 8) + 4):
-            r = d[2 * j]
-            i = d[2 * j + 1]
-            s += r * r + i * i
+        s = _lobe_power(d, k, (x_q8 >> 8) + 4)
         return log2_q8(s, self.log2_q15) + c if s > 0 else LOG2_ZERO_Q8
+
+
+# The per-window loops, viper-compiled on the boards (firmware_py.viper_stand): 32-bit loads of
+# values that may be negative are sign-extended with SX32; the bounds are the module comment's.
+
+@micropython.viper
+def _peak(buf, a: int, b: int) -> int:
+    """Largest |buf[i]| for a <= i < b (band components, <= 2**14)."""
+    z = ptr32(buf)
+    sx = int(SX32)
+    mx = 0
+    for i in range(a, b):
+        v = (z[i] << sx) >> sx
+        if v > mx:
+            mx = v
+        elif -v > mx:
+            mx = -v
+    return mx
+
+
+@micropython.viper
+def _band_in(buf, lo: int, hi: int, g: int, sh: int, e, n2: int, pos, ps: int):
+    """Step 1's input: e (n2 ints) zeroed, then the conjugate of X[k] * g >> sh for k in lo..hi-1
+    at the bit-reversed slot of point k - lo (pos[ps * (k - lo)]); |X[k] * g| < 2**14."""
+    z = ptr32(buf)
+    o = ptr32(e)
+    q = ptr16(pos)             # unsigned slots: a zero-extended load is the value
+    sx = int(SX32)
+    for i in range(n2):
+        o[i] = 0
+    for k in range(lo, hi):
+        t = q[ps * (k - lo)]
+        o[t] = (((z[2 * k] << sx) >> sx) * g) >> sh
+        o[t + 1] = -((((z[2 * k + 1] << sx) >> sx) * g) >> sh)
+
+
+@micropython.viper
+def _square(e, n2: int) -> int:
+    """Step 2: s[t] = |z[t]|**2 (< 2**29) into the real slot e[2t]; returns the largest."""
+    o = ptr32(e)
+    sx = int(SX32)
+    top = 0
+    for i in range(0, n2, 2):
+        zr = (o[i] << sx) >> sx
+        zi = (o[i + 1] << sx) >> sx
+        v = zr * zr + zi * zi
+        o[i] = v
+        if v > top:
+            top = v
+    return top
+
+
+@micropython.viper
+def _rescale(e, n2: int, gs: int, ws: int) -> int:
+    """s' = (s * gs) >> ws in the real slots (s' < 2**13, so s * gs < 2**13 too); returns
+    sum(s') < 2**24. s >= 0 and < 2**29: a zero-extended load is the value."""
+    o = ptr32(e)
+    tot = 0
+    for i in range(0, n2, 2):
+        v = (o[i] * gs) >> ws
+        o[i] = v
+        tot += v
+    return tot
+
+
+@micropython.viper
+def _demean(e, buf, mz: int, eq: int, hann, hs: int, pos, ps: int):
+    """Step 3 and the second transform's input: d[t] = s'[t] - round(eq * w(t)**2), w(t) =
+    hann[hs * t] / 2 in Q14, real, at the bit-reversed slot pos[ps * t] of buf (|d| < 23171)."""
+    o = ptr32(e)
+    b = ptr32(buf)
+    w = ptr16(hann)            # unsigned Q15: a zero-extended load is the value
+    q = ptr16(pos)
+    for t in range(mz):
+        h = w[hs * t] >> 1
+        k = q[ps * t]
+        b[k] = o[2 * t] - ((eq * ((h * h) >> 14) + 8192) >> 14)
+        b[k + 1] = 0
+
+
+@micropython.viper
+def _lobe_power(d, a: int, b: int) -> int:
+    """sum of |D[j]|**2 for a <= j < b (complex points, interleaved); < 2**29 (Parseval)."""
+    z = ptr32(d)
+    sx = int(SX32)
+    s = 0
+    for j in range(a, b):
+        r = (z[2 * j] << sx) >> sx
+        i = (z[2 * j + 1] << sx) >> sx
+        s += r * r + i * i
+    return s

@@ -8,7 +8,8 @@ then the shaft speed (speed), the order amplitudes (orders) and the squared-enve
 (envelope), each of which reads the spectrum the FFT left.
 
 Entry points: check_config(), footprint_bytes(), FeatureCore. The per-sample passes (_scan,
-_shape) and the FFT stages are viper-compiled on the boards (firmware_py.viper_stand)."""
+_shape), the FFT stages and the band powers (_bands) are viper-compiled on the boards
+(firmware_py.viper_stand), as are the speed and envelope stages' loops in their modules."""
 import array
 
 import micropython
@@ -18,6 +19,7 @@ from firmware_py.dsp import envelope, fft, orders, speed, tables
 from firmware_py.dsp.feature_index import (
     F_BAND0, F_CLIP, F_CREST, F_ENV_FTF, F_KURT, F_MEAN, F_ORD_HALF, F_PEAK, F_RMS, F_SPEED,
     F_SPEED_CONF, F_STUCK, F_VEL, F_ZERO, LOG2_ZERO_Q8, per_axis)
+from firmware_py.dsp.fft import power_sum
 from firmware_py.dsp.fixmath import div_pow2, log2_q8, msb, sqrt_pow2
 from firmware_py.dsp.ring import SampleRing, footprint_bytes as _ring_bytes
 from firmware_py.viper_stand import ptr16, ptr32
@@ -110,6 +112,8 @@ class FeatureCore:
         self.env = envelope.Envelope(n, fs_hz, env_band, bear_q12, speed_hi_q8, self.hann_q15,
                                      self.pos, self.tw_q15, self.cos_q15, self.sin_q15,
                                      self.log2_q15)
+        for a in range(axes):       # the stages' fields as they stay while the stages are off
+            self._stages(a * self.per, 0)
         self.windows = 0
 
     def step(self):
@@ -164,6 +168,12 @@ class FeatureCore:
         vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p,
                           self.env.on)
         self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
+        if self.speed.on:           # off: no 1x, so neither orders nor envelope; fields as set
+            self._stages(off, u)
+
+    def _stages(self, off, u):
+        """Speed, orders and envelope from the spectrum the FFT left (u: the window's scale)."""
+        f = self.feats
         f1 = self.speed.run(f, off)
         self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
         self.env.run(self.buf, f1, f, off)
@@ -182,13 +192,8 @@ class FeatureCore:
         # kurtosis = mean(y**4) / mean(y**2)**2 = s4 * 2**28 / (sq/2)**2 = s4 * 2**30 / sq**2
         f[off + F_KURT] = div_pow2(div_pow2(s4, sq, 21), sq, 21)   # Q12
         f[off + F_VEL] = sqrt_pow2(vs, 62 - 2 * self.vel_exp - 2 * u)
-        t = self.log2_q15
-        c = self.log2_4_3_q8 - 512 * u
-        bl = self.band_lo
-        bh = self.band_hi
-        for b in range(self.n_bands):
-            ps = fft.power_sum(self.p, bl[b], bh[b])
-            f[off + F_BAND0 + b] = log2_q8(ps, t) + c if ps > 0 else LOG2_ZERO_Q8
+        _bands(self.p, self.band_lo, self.band_hi, self.n_bands, self.log2_q15,
+               self.log2_4_3_q8 - 512 * u, f, off + F_BAND0)
 
     def _flat(self, off):
         """A window with no variation at all (stuck output): no spectrum, zero features (its one
@@ -207,6 +212,21 @@ class FeatureCore:
         p = self.p
         for k in range(self.m + 1):
             p[k] = 0
+
+
+@micropython.viper
+def _bands(p, lo, hi, nb: int, t, c: int, f, off: int):
+    """Band powers into f[off + b] for b < nb: log2_q8 of the sum of p[lo[b]:hi[b]] (fft.power_sum,
+    < 2**30) plus c (log2 Q8), or LOG2_ZERO_Q8 for a band without power. lo, hi: array('H')."""
+    bl = ptr16(lo)             # unsigned bins: a zero-extended load is the value
+    bh = ptr16(hi)
+    o = ptr32(f)
+    for b in range(nb):
+        ps = int(power_sum(p, bl[b], bh[b]))
+        if ps > 0:
+            o[off + b] = int(log2_q8(ps, t)) + c
+        else:
+            o[off + b] = int(LOG2_ZERO_Q8)
 
 
 @micropython.viper

@@ -15,6 +15,7 @@
 # 0.5x is clean of 1x only from 1x >= 8 bins (docs/fixed-point.md).
 from firmware_py.dsp.feature_index import (
     F_ORD_1X, F_ORD_2X, F_ORD_3X, F_ORD_HALF, F_ORD_VANE, LOG2_ZERO_Q8)
+from firmware_py.dsp.fft import power_sum
 from firmware_py.dsp.fixmath import log2_q8
 
 
@@ -53,7 +54,6 @@ class OrderReader:
 
     def _lobe(self, x_q8, c):
         """log2 Q8 of the mean square in the Hann main lobe around x_q8 (bins Q8)."""
-        p = self.p
         k = x_q8 >> 8
-        s = p[k - 1] + p[k] + p[k + 1] + p[k + 2]
+        s = power_sum(self.p, k - 1, k + 3)      # viper on the boards (fft.power_sum)
         return log2_q8(s, self.log2_q15) + c if s > 0 else LOG2_ZERO_Q8

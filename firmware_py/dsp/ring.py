@@ -5,7 +5,7 @@ memoryview made once at start: the feature stage reads it with no copy and no al
 Samples that arrive while the ring is full of unprocessed windows are counted as dropped, never
 written over data still waiting: the loss is always visible (dropped counters).
 
-Entry points: SampleRing (push, ready, window, copy_window, release), gather16() (the viper copy
+Entry points: SampleRing (push, ready, window, copy_window, release), scatter16() (the viper copy
 loop both use), footprint_bytes()."""
 import array
 
@@ -23,8 +23,12 @@ class SampleRing:
         self.n = n
         self.slots = slots
         self.cap = n * slots                       # frames
-        self.data = [array.array('h', bytes(2 * self.cap)) for _ in range(axes)]
-        self.views = [[memoryview(d)[s * n:(s + 1) * n] for s in range(slots)] for d in self.data]
+        # one array, axis after axis (each axis's cap counts from index a * cap), so one viper
+        # call spreads a block of interleaved frames over every axis
+        self.data = array.array('h', bytes(2 * axes * self.cap))
+        mv = memoryview(self.data)
+        self.views = [[mv[(a * slots + s) * n:(a * slots + s + 1) * n] for s in range(slots)]
+                      for a in range(axes)]
         self.w = 0            # next frame to write
         self.r = 0            # slot of the oldest unprocessed window
         self.filled = 0       # frames written and not yet released
@@ -39,11 +43,7 @@ class SampleRing:
         room = self.cap - self.filled
         take = frames if frames <= room else room
         axes = self.axes
-        w = self.w
-        end = w
-        for a in range(axes):          # each axis from its place in the interleaved frames
-            end = gather16(self.data[a], src, first * axes + a, axes, take, w, self.cap)
-        self.w = end
+        self.w = scatter16(self.data, src, first * axes, axes, take, self.w, self.cap)
         self.filled += take
         lost = frames - take
         if lost:
@@ -61,7 +61,7 @@ class SampleRing:
     def copy_window(self, axis, dst, off):
         """Copy the oldest waiting window of one axis into dst (array('h')) from index off on,
         with no slice (a slice of a memoryview allocates on MicroPython before 1.26)."""
-        gather16(dst, self.views[axis][self.r], 0, 1, self.n, off, len(dst))
+        scatter16(dst, self.views[axis][self.r], 0, 1, self.n, off, len(dst))
 
     def release(self):
         """Free the oldest window's slot for new samples."""
@@ -77,15 +77,25 @@ def footprint_bytes(axes, n, slots):
 
 
 @micropython.viper
-def gather16(d, src, i: int, step: int, take: int, w: int, cap: int) -> int:
-    """Copy take int16 counts src[i], src[i + step], ... to d[w], d[w + 1], ..., w wrapping to 0
-    at cap; returns the next w. Counts are copied as 16-bit patterns (no arithmetic on them)."""
+def scatter16(d, src, i: int, axes: int, take: int, w: int, cap: int) -> int:
+    """Spread take <= cap frames of `axes` interleaved int16 counts, from src[i] on, over the
+    axes' planes of d: count a of a frame to d[a * cap + w], w counting up from w and wrapping to
+    0 at cap; returns the next w. Counts are copied as 16-bit patterns (no arithmetic on them).
+    With axes 1 it is a plain copy into a circular buffer of cap counts."""
     dp = ptr16(d)
     sp = ptr16(src)
-    for _ in range(take):
-        dp[w] = sp[i]
-        i += step
-        w += 1
-        if w == cap:
-            w = 0
+    for a in range(axes):           # axis by axis: the inner loop only loads, stores and counts
+        base = a * cap
+        end = base + cap
+        o = base + w
+        j = i + a
+        for _ in range(take):
+            dp[o] = sp[j]
+            j += axes
+            o += 1
+            if o == end:
+                o = base
+    w += take
+    if w >= cap:
+        w -= cap
     return w

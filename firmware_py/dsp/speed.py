@@ -37,10 +37,13 @@
 # Scales: p[k] from fft.spectrum (<= 2**28, sum <= 1.5 * 2**28); bins Q8 (< m * 256 <= 2**19);
 # Hz Q8 = bins_q8 * fs / n (fixmath.mul_shift). The range is checked by check_range(): 1x at
 # >= 3 bins (so the harmonics' lobes stay apart) and round(3 * hi) + 3 <= m.
+import micropython
 from micropython import const
 
 from firmware_py.dsp.feature_index import F_SPEED, F_SPEED_CONF
+from firmware_py.dsp.fft import power_sum
 from firmware_py.dsp.fixmath import div_pow2, msb, mul_shift, sqrt_pow2
+from firmware_py.viper_stand import ptr32
 
 _MIN_BINS = const(3)     # lowest 1x in bins: harmonic lobes (3 bins each) must not merge
 
@@ -87,7 +90,8 @@ class SpeedEstimator:
         # the bins any family lobe can reach: confidence is the family's share of their power
         a = ((self.c_lo_q2 + 2) >> 2) - 3
         b = ((3 * self.c_hi_q2 + 2) >> 2) + 3
-        self.reach = memoryview(p)[a:b + 1] if self.on else memoryview(p)[0:0]
+        self.reach_lo = a if self.on else 0
+        self.reach_hi = b + 1 if self.on else 0
         self.fq_q8 = [0, 0, 0, 0]      # per harmonic 1..3: peak position, bins Q8
         self.pw = [0, 0, 0, 0]      # per harmonic: 3-bin lobe power at the peak
 
@@ -95,20 +99,8 @@ class SpeedEstimator:
         """Estimate 1x for the spectrum in self.p; returns it in bins Q8 (0: none)."""
         if not self.on:
             return self._none(f, off)
-        p = self.p
-        best = -1
-        cb = 0
-        for c in range(self.c_lo_q2, self.c_hi_q2 + 1):
-            j = (2 * c + 2) >> 2
-            s = p[j - 1] + p[j] + p[j + 1]
-            j = (3 * c + 2) >> 2
-            s += p[j - 1] + p[j] + p[j + 1]
-            j = (c + 2) >> 2
-            s = (s >> 1) + p[j - 1] + p[j] + p[j + 1]     # < 1.5 * 2**28 + 3.5 * 2**27
-            if s > best:
-                best = s
-                cb = c
-        if best <= 0:
+        cb = _best_candidate(self.p, self.c_lo_q2, self.c_hi_q2)
+        if cb < 0:
             return self._none(f, off)
         self._harmonic(1, (cb + 2) >> 2)
         self._harmonic(2, (2 * cb + 2) >> 2)
@@ -137,7 +129,7 @@ class SpeedEstimator:
             f1 = self.b_hi_q8
         f[off + F_SPEED] = mul_shift(f1, self.fs_hz, self.L)
         fam = pw[1] + pw[2] + pw[3]     # < 3.5 * 2**28: lobes overlap by one bin at most
-        tot = sum(self.reach)           # <= 1.5 * 2**28
+        tot = power_sum(self.p, self.reach_lo, self.reach_hi)     # <= 1.5 * 2**28
         conf = div_pow2(fam, tot, 8) if tot > 0 else 0
         f[off + F_SPEED_CONF] = conf if conf < 256 else 256
         return f1
@@ -178,3 +170,25 @@ class SpeedEstimator:
 def _near(d, lim):
     """|d| <= lim."""
     return -lim <= d <= lim
+
+
+@micropython.viper
+def _best_candidate(p, c_lo: int, c_hi: int) -> int:
+    """Step 1: the first candidate c in c_lo..c_hi (quarter bins) with the largest harmonic sum
+    S(c) = B1 + (B2 + B3)/2 over the power spectrum p (array('i')), or -1 if every S is 0.
+    Each p[k] <= 2**28 and a 3-bin lobe < 2**28 * 1.5 (Parseval), so S < 1.5 * 2**28 + 3.5 *
+    2**27 < 2**30; p holds no negative value, so its loads need no sign extension."""
+    pw = ptr32(p)
+    best = 0
+    cb = -1
+    for c in range(c_lo, c_hi + 1):
+        j = (2 * c + 2) >> 2
+        s = pw[j - 1] + pw[j] + pw[j + 1]
+        j = (3 * c + 2) >> 2
+        s += pw[j - 1] + pw[j] + pw[j + 1]
+        j = (c + 2) >> 2
+        s = (s >> 1) + pw[j - 1] + pw[j] + pw[j + 1]
+        if s > best:
+            best = s
+            cb = c
+    return cb

@@ -207,6 +207,7 @@ class App:
         self.t_data = self.t0
         self.healthy = False
         self.fresh = 0               # set by acquire() when frames arrived
+        self.held = 0                # frames read into self.block and not yet fed
         self.drv = None
         self.acq_lost = 0            # frames acquire() read and could not feed (timer writes)
         self.acq_errors = 0          # exceptions acquire() caught, since start (saturates)
@@ -273,6 +274,9 @@ class App:
         self.drv = sensor
         frames = mod.block_frames(p["fifo_watermark"])
         self.block = array.array('h', bytes(2 * p["axes"] * frames))
+        # frames held in the block until it could not take another read: the gateway is fed
+        # once per several FIFO reads where reads are small (ADXL345), at every read otherwise
+        self.hold = frames - mod.read_frames(p["fifo_watermark"])
         period = p["fifo_watermark"] * 1000 // p["sample_rate_hz"]
         m = self.machine
         self.timer = m.Timer(_TIMER_ID.get(p["mcu"]["family"], -1))
@@ -284,24 +288,30 @@ class App:
         self.acquire()
 
     def acquire(self):
-        """Drain the sensor FIFO into the gateway's ring; returns the frames moved. Runs in the
+        """Drain the sensor FIFO into the read block, and feed the block to the gateway's ring
+        once it could not take another read (self.hold); returns the frames read. Runs in the
         timer callback: allocation-free; a failing bus transfer moves nothing, and samples that
         stop for STALL_MS show as sensor_fault."""
         drv = self.drv
         if drv is None:
             return 0
-        k = 0
+        lost = 0
         try:
-            k = drv.read_into(self.block)
+            k = drv.read_into(self.block, self.held)
             if k:
-                self.gw.feed(self.block, k)
                 self.fresh = 1
+                self.held += k
+                if self.held > self.hold:
+                    lost = self.held    # what a failing feed loses
+                    self.held = 0
+                    self.gw.feed(self.block, lost)
             return k
         except Exception as e:
-            # Never silent: the frames read and not fed (at most k; a failing read loses what the
-            # FIFO overrun count then shows) are counted, and the first error is kept for
-            # status. Binding the exception allocates nothing: this may run under the lock.
-            self.acq_lost = sat_add(self.acq_lost, k)
+            # Never silent: the frames read and not fed (the held block, if the feed failed; a
+            # failing read loses what the FIFO overrun count then shows) are counted, and the
+            # first error is kept for status. Binding the exception allocates nothing: this may
+            # run under the lock.
+            self.acq_lost = sat_add(self.acq_lost, lost)
             self.acq_errors = sat_add(self.acq_errors, 1)
             if self.acq_error is None:
                 self.acq_error = e
