@@ -266,6 +266,39 @@ def test_speed_change_and_run_down_are_not_scored():
     assert NO not in st and det2.n_why[dt.W_RUNDOWN] >= 5
 
 
+def test_unscored_windows_neither_add_to_nor_dilute_the_evidence():
+    # a fault seen in short stretches, each preceded by windows that are not scored (off every
+    # trained point): the span counts judged windows only, so 3 of 5 judged windows over raise
+    # even though most running windows between them were unscored
+    det = running(Detector(op_params()), speed=25, conf=200)
+    for _ in range(3):
+        run(det, [9] * 4, speed=20, conf=200)            # unscored: off every point
+        run(det, [4], speed=25, conf=200)                # judged: over the alert threshold (3)
+    assert det.state == NO and events(det)[-1][3] == al.R_SCORE
+    # and a raised alert can still clear while the pump runs unscored (it then enters the span)
+    det2 = running(Detector(op_params(det_dwell_ms=0)), speed=25, conf=200)
+    run(det2, [4] * 3, speed=25, conf=200)
+    assert det2.state == NO
+    assert run(det2, [9] * 5, speed=20, conf=200)[-1] == US
+    assert events(det2)[-1][1:4] == (NO, US, al.R_CLEAR)
+
+
+def test_order_lines_read_around_a_missed_speed_are_neutral():
+    # one axis, the 1x order line scored (baseline 0 +- 100); the window's operating speed is
+    # the median of its steadiness span (25 Hz); a window whose own estimate missed (28 Hz, 12 %
+    # off, tolerance 3 %) read its line at the wrong place: that term is set to the mode's centre
+    p = op_params(det_feat=[fi.F_ORD_1X], det_base_mean_q4=[0], det_speed_tol_q12=123,
+                  det_steady_ms=5 * W_MS)
+    det = running(Detector(p), speed=25, conf=200)
+    f = win(0, speed=25, conf=200)
+    f[fi.F_ORD_1X] = 500                                 # 5 spreads over
+    det.step(f, 0, 0)
+    assert det.score_q8 == 5 * 256
+    f[fi.F_SPEED] = 28 * 256
+    det.step(f, 0, 0)                                    # the span's median speed is still 25 Hz
+    assert det.speed_q8 == 25 * 256 and det.score_q8 == 0
+
+
 # -- persistence and escalation in running time --------------------------------------------
 
 def test_k_of_span_persistence():
@@ -307,7 +340,7 @@ def test_clear_needs_hysteresis_and_dwell():
     # 2.5 spreads is under the alert threshold but over the clear one (0.8 x 3 = 2.4): holds
     assert run(det, [2.5] * 12, 10) == [NO] * 12
     # windows under 2.4, and the dwell (8 windows in the state) is already met: clears once at
-    # most 2 of the last 5 (span - k) are over the clear threshold, on the third clean window
+    # most 2 of the last 5 (fewer than k = 3) are over the clear threshold, on the third clean window
     assert run(det, [2.3] * 5, 30) == [NO] * 2 + [N] * 3
     det2 = running(Detector(params(det_dwell_ms=8 * W_MS)))
     run(det2, [4, 4, 4])

@@ -23,7 +23,7 @@ def ar1_scores(n, seed):
 
 def rule_raises(c, thr):
     """Raises of the documented rule, written out independently of the device code: raise when at
-    least K of the last SPAN scores are >= thr (span full); clear when at most SPAN - K of the
+    least K of the last SPAN scores are >= thr (span full); clear when fewer than K of the
     last SPAN are >= HYST * thr and at least one window was spent raised (dwell 1)."""
     over = np.convolve(c >= thr, np.ones(SPAN, int))[SPAN - 1:len(c)]
     above = np.convolve(c >= HYST * thr, np.ones(SPAN, int))[SPAN - 1:len(c)]
@@ -34,7 +34,7 @@ def rule_raises(c, thr):
                 raised, n, held = True, n + 1, 0
         else:
             held += 1
-            if a <= SPAN - K and held >= 1:
+            if a < K and held >= 1:
                 raised = False
     return n
 
@@ -94,3 +94,16 @@ def test_short_data_refuses_to_promise_more_than_it_can():
     n = rule_raises(test, int(np.floor(pr.threshold)) + 1)
     lo, hi = (r * hours / 720.0 for r in pr.range_95)
     assert stats.poisson.ppf(0.025, lo) <= n <= stats.poisson.ppf(0.975, hi)
+
+
+def test_a_floor_past_a_bounded_tail_keeps_the_supported_upper_limit():
+    # peaks from a bounded tail (generalised Pareto, shape -0.4: endpoint u + sigma / 0.4); a
+    # threshold past the endpoint has rate 0 by the fit, and all that is known is the upper limit
+    # of any lower threshold (the rate cannot rise with the threshold)
+    peaks = 100.0 + stats.genpareto.rvs(-0.4, scale=10.0, size=60, random_state=3)
+    rf = rr.fit([np.repeat(peaks, 1)], 1, 1, 60.0)
+    below = rr.promise(rf, 1.0)
+    far = rr.promise_at(rf, rf.u + 10.0 * rf.tail.scale / max(-rf.tail.shape, 1e-3) + 1.0, 1.0, below)
+    assert far.per_30_days == 0.0 and far.range_95 == (0.0, below.range_95[1]) and not far.supported
+    near = rr.promise_at(rf, below.threshold + 0.5, 1.0, below)
+    assert near.per_30_days <= below.per_30_days and near.range_95[1] <= below.range_95[1]

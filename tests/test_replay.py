@@ -190,10 +190,13 @@ def test_demo_scenario_detects_each_seeded_fault(tmp_path):
                            f"{(t - f['start_t0_s']) / 3600:.1f} h" if t is not None else "not raised"))
     print("\ndemo scenario (our own data): " + "; ".join(figures))
     if missed:
-        # A known shortfall, kept visible instead of asserted away: 4-s snapshots six hours apart
-        # are shorter than the persistence span (20 s of running) and the hold-off, so a machine
-        # fault needs several snapshots in a row to raise. Every seeded machine fault raising is
-        # still the expectation (issue 9); this marks the test expected-to-fail until it does.
+        # A known shortfall, kept visible instead of asserted away: of three duty speeds only the
+        # top one (1480 r/min) is scored (890 and 1180 r/min lie at or under the speed resolution
+        # of a 512-sample window, so they read at the end of the search range and stay unscored),
+        # so a 6-hourly archive shows one scored snapshot a day; in P-102's cavitation episode (2.5
+        # days, at high flow only) those snapshots also had fewer scored windows (21 and 15 of 62,
+        # against about 50 before it: fewer confident speed estimates). Every seeded machine fault
+        # raising is still the expectation (issue 9).
         pytest.xfail("machine faults not raised in the sparse demo snapshots: " + ", ".join(missed))
 
 

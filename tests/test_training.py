@@ -209,3 +209,20 @@ def test_parallel_fits_give_the_same_set():
     one = train(recs, PROFILE, jobs=1)
     two = train(recs, PROFILE, jobs=2)
     assert one[0] == two[0] and one[1] == two[1]
+
+
+def test_idle_floor_from_stops_inside_recordings_of_unknown_rpm():
+    # No recording wholly stopped (a capture of a stop also holds its run-down: rpm unknown), but
+    # windows of it lie far under steady running: the floor goes between them, as with rpm 0.
+    from host_tools.fit.training import _idle_floor
+    rng = np.random.default_rng(8)
+    running = rng.uniform(950.0, 1800.0, 400)
+    stopped = rng.uniform(250.0, 420.0, 60)
+    ramp = rng.uniform(420.0, 950.0, 20)                  # run-down and run-up windows
+    bb = np.r_[running, stopped, ramp]
+    rpm = np.r_[np.full(400, 1470.0), np.full(80, np.nan)]
+    floor, rule, warns = _idle_floor(bb, rpm, 1e-3)
+    q_run = np.percentile(running, 1)
+    low = bb[400:][bb[400:] < q_run / 2]
+    assert floor == int(np.sqrt(np.percentile(low, 99) * q_run))     # numpy's percentile, the rule's
+    assert stopped.max() < floor < running.min() and not warns and "octave" in rule

@@ -23,7 +23,7 @@ STATE_NAMES = ("normal", "alert", "alarm", "idle", "sensor_fault", "learning", "
 R_SCORE = const(1)         # learned score over threshold on k of the last L windows
 R_ISO_C = const(2)         # velocity in ISO zone C on k of the last L windows
 R_ISO_D = const(3)         # velocity in ISO zone D on k of the last L windows
-R_CLEAR = const(4)         # at most L - k of the last L windows over the clear threshold, dwell met
+R_CLEAR = const(4)         # fewer than k of the last L windows over the clear threshold, dwell met
 R_ACK = const(5)           # alarm acknowledged after its condition had cleared
 R_STOPPED = const(6)       # broadband level under the idle floor
 R_STARTED = const(7)       # running again, steady for the hold-off
@@ -135,11 +135,13 @@ class Alarm:
         self.dwell = 0
 
     def _cleared(self):
-        """The raise rule mirrored: at most span - k windows of a full span over the clear
-        threshold (with k = 80 % of the span, at most a fifth), and the dwell met. Requiring every
-        window under it would keep an alert on a pump whose scores merely sit near the threshold."""
+        """The raise rule with hysteresis: fewer than k windows of a full span over the clear
+        threshold (the raise statistic, the k-th largest score of the span, has fallen under it),
+        and the dwell met. Requiring most of the span under it (or all) kept an alert on for hours
+        on a pump whose scores merely sat near the threshold, and a false alert that never clears
+        hides the next real one."""
         ev = self.ev
-        return ev.filled == ev.span and ev.n_c <= ev.span - self.k and self.dwell >= self.dwell_min
+        return ev.filled == ev.span and ev.n_c < self.k and self.dwell >= self.dwell_min
 
     def update(self, over_alert, over_alarm, over_clear, zone):
         """One evaluated window. over_*: learned score at or over the alert, alarm and clear

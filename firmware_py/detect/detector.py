@@ -318,6 +318,12 @@ class Detector:
         self.tab = log2_table()
         self.u = array("i", bytes(4 * d))
         self.z = array("i", bytes(4 * d))
+        # per scored feature: the axis whose own 1x estimate its order or envelope line was read
+        # around (F_ORD_HALF .. F_ENV_FTF), else -1 (see _score)
+        self.ord_axis = array("b", bytes(d))
+        for j in range(d):
+            fj = self.idx[j] % self.pa
+            self.ord_axis[j] = self.idx[j] // self.pa if fi.F_ORD_HALF <= fj <= fi.F_ENV_FTF else -1
         self.wb = Welford(d)                      # learning phase 1: baseline
         self.wm = Welford(d * KMAX)               # learning phase 2: per-mode statistics
         self.lop_q8 = array("i", bytes(8 * KMAX))   # learning: per mode speed lo, hi, Hz Q8
@@ -746,9 +752,14 @@ class Detector:
         s = self.score_q8
         clr = (self.thr_alert_q8 * self.hyst_q8) >> 8
         lv = self.alarm.level
-        self.alarm.update(1 if s >= self.thr_alert_q8 else 0, 1 if s >= self.thr_alarm_q8 else 0,
-                          1 if s >= clr else 0, self.zone)
-        self.pushed = 1
+        # Evidence comes from judged windows: scored ones, or the ISO guard's when it is all there
+        # is (no model) or when it speaks (zone C or D). A window that runs but is not scored (a
+        # transient, an unknown point) says nothing about health, so it neither adds to the span
+        # nor dilutes it; once raised, it does enter, so that a level can clear while unscored.
+        if why == W_SCORED or why == W_NO_MODEL or self.zone >= ZONE_C or lv != al.NORMAL:
+            self.alarm.update(1 if s >= self.thr_alert_q8 else 0, 1 if s >= self.thr_alarm_q8 else 0,
+                              1 if s >= clr else 0, self.zone)
+            self.pushed = 1
         if self.alarm.level != lv:
             reason = self.alarm.reason
         elif self.off_w >= self.hold_w:
@@ -776,6 +787,8 @@ class Detector:
         md = self.model
         transform(f, self.idx, self.logf, self.u, self.d, self.tab)
         md.standardise(self.u, self.z)
+        if self.op_on:
+            self._mask_lines(f, m)
         dist = md.distance(self.z, m)
         zc = (md.zmax_q8 * self.zlam_q8) >> 8
         self.dist_q8 = dist
@@ -783,6 +796,24 @@ class Detector:
         self.score_q8 = dist if dist >= zc else zc
         self.mode = m
         self.feat = self.idx[md.drive]
+
+    def _mask_lines(self, f, m):
+        """Order and envelope lines of an axis whose own 1x estimate (F_SPEED) lies more than the
+        steady tolerance from the window's operating speed were read at the wrong places (each
+        axis reads its lines around its own estimate, and an axis where the rotating 1x is weak,
+        the axial one, misses it often): they carry no evidence, so they are set to the mode's
+        centre (a neutral term). Same rule in training (host_tools/fit/modes_fit.line_mask).
+        op * tol_q12 < 2**17 * 2**12 = 2**29."""
+        op = self.speed_q8
+        tol = (self.speed_tol_q12 * op) >> 12
+        b = m * self.d
+        pa = self.pa
+        for j in range(self.d):
+            a = self.ord_axis[j]
+            if a >= 0:
+                e = f[a * pa + fi.F_SPEED] - op
+                if e > tol or e < -tol:
+                    self.z[j] = self.model.c_q8[b + j]
 
     def _drift(self):
         """Move the baseline mean a 2**-shift step along this window's offset from its mode (so

@@ -41,7 +41,7 @@ from host_tools.errors import EdgevibError
 HELP = "run the invented two-pump demo (generate data, check, train, replay, report), or with --fleet the fleet demo"
 
 DEFAULT_DAYS = 42.0           # six weeks: every seeded fault of the scenario happens in them
-DEFAULT_INTERVAL_S = 10800.0  # one 4 s snapshot every 3 hours (plus one at each stop and start): about a minute on 2 cores
+DEFAULT_INTERVAL_S = 10800.0  # one 10 s snapshot every 3 hours (plus one at each stop and start): about a minute on 2 cores
 _MARKER = "demo.json"         # what a finished demo folder holds, so a rerun may replace it
 
 

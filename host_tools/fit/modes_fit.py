@@ -91,13 +91,21 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
     """Operating modes from the shaft speed alone, by the gaps between speeds: sorted speeds are
     cut wherever two neighbours lie more than `gap` (a fraction of the speed) apart, groups with
     fewer than min_n windows join their nearer neighbour, and while more than k_max remain the
-    two nearest merge. A continuum of speeds (a drive trimmed slowly) stays one mode; distinct
-    set points, with no speeds between them, become modes. Returns (k, label per window),
+    two nearest merge. A gap may hold a few strays (up to 1 window in STRAY_DIV: an estimate that
+    missed by a bin). A continuum of speeds (a drive trimmed slowly) stays one mode; distinct
+    set points, with (almost) no speeds between them, become modes. Returns (k, label per window),
     numbered by rising speed."""
     x = np.log(np.asarray(speed_hz, dtype=float))
     order = np.argsort(x, kind="stable")
     xs = x[order]
-    cuts = [0] + [i + 1 for i in np.flatnonzero(np.diff(xs) > math.log1p(gap))] + [len(xs)]
+    # a gap is a stretch wider than `gap` holding at most `stray` windows: single estimates that
+    # miss by a bin (0.16 s windows) land between set points and must not bridge them
+    stray = len(xs) // STRAY_DIV
+    wide = math.log1p(gap)
+    cut_at = set()
+    for i in np.flatnonzero(xs[stray + 1:] - xs[:len(xs) - stray - 1] > wide):
+        cut_at.add(int(i + 1 + np.argmax(np.diff(xs[i:i + stray + 2]))))
+    cuts = [0] + sorted(cut_at) + [len(xs)]
     groups = [[a, b] for a, b in zip(cuts[:-1], cuts[1:])]
 
     def centre(g):
@@ -122,6 +130,45 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
     return len(groups), lab
 
 
+STRAY_DIV = 200         # up to 1 window in 200 may stray into a gap between set points
+STRAY_Q = 0.005         # a mode's speed range: its windows' 0.5-99.5 % points (strays left out), widened
+PIN_STEPS = 2           # an estimate this close to an end of the search range (bins-Q8 steps) is the range, not the shaft
+
+
+def pinned_limits_q8(params: dict) -> tuple[int, int]:
+    """The least and greatest speed (Hz Q8) a mode may cover: just inside the estimator's search
+    range (fc_speed_lo_q8 .. fc_speed_hi_q8). A shaft slower or faster than the range, or one
+    the window cannot resolve, reads at an end of the range window after window: a steady label,
+    but not a speed, and windows of different operating points share it. Keeping the ends out of
+    every mode leaves such windows unscored (off_point) instead of judging them against the
+    wrong mode."""
+    lo, hi = params.get("fc_speed_lo_q8") or 0, params.get("fc_speed_hi_q8") or 0
+    if not hi:
+        return 0, (1 << 30) - 1
+    # the estimator clamps its 1x (bins Q8) to the range, so a pinned speed is an end itself, up to
+    # the conversion to Hz Q8: one bins-Q8 step is fs / n Hz-Q8 units; PIN_STEPS of them of room
+    step = params["fs_hz"] / params["n"]
+    return int(math.floor(lo + PIN_STEPS * step)) + 1, int(math.ceil(hi - PIN_STEPS * step)) - 1
+
+
+def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarray:
+    """(rows, d) booleans: True where a scored order or envelope line was read around an axis's own
+    1x estimate (F_SPEED) more than the steady tolerance (det_speed_tol_q12) from the window's
+    operating speed: the device sets such a term neutral (firmware_py/detect/detector.py,
+    _mask_lines), so the model is fitted without it. Integer arithmetic as the device's."""
+    feats = np.asarray(feats, dtype=np.int64)
+    pa = fi.per_axis(params["det_bands"])
+    idx = np.asarray(params["det_feat"])
+    op = np.rint(np.asarray(speed_hz, dtype=np.float64) * 256).astype(np.int64)
+    tol = (int(params["det_speed_tol_q12"]) * op) >> 12
+    out = np.zeros((len(feats), len(idx)), bool)
+    for j, i in enumerate(idx.tolist()):
+        if fi.F_ORD_HALF <= i % pa <= fi.F_ENV_FTF:
+            e = feats[:, (i // pa) * pa + fi.F_SPEED] - op
+            out[:, j] = (e > tol) | (e < -tol)
+    return out
+
+
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
         k_max: int = dm.KMAX, margin_q8: int | None = None, seed: int = 0) -> dict:
     """Baseline, operating modes and conservative thresholds from healthy running windows (rows
@@ -144,10 +191,16 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     pa = fi.per_axis(params["det_bands"])
     vel = np.asarray(feats)[:, fi.F_VEL::pa][:, :params["det_axes"]]
     idle = max(int(params["det_idle_vel_q16"]), int(vel.max(1).min()) >> 2)
+    mask = line_mask(feats, params, speed_hz) if speed_hz is not None else np.zeros(u.shape, bool)
     w = Welford(d)
-    for row in u:
+    for row, mk in zip(u, mask):
         for j in range(d):
-            w.add(j, int(row[j]))
+            if not mk[j]:
+                w.add(j, int(row[j]))
+    for j in range(d):
+        if w.n[j] < 2:      # a line never read at the right place: a neutral baseline
+            w.add(j, 0)
+            w.add(j, 256)
     model = dm.ModeModel(d)
     mean = [w.mean_q(j, 4) for j in range(d)]
     sd = [sqrt_pow2(w.var(j), 8) for j in range(d)]
@@ -161,14 +214,20 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     if speed_hz is not None:
         widen = 2.0 * max(speed_tol, 0.01)
         k, lab = speed_modes(speed_hz, widen / 2, MIN_MODE_N, k_max)
+        lo_q8, hi_q8 = pinned_limits_q8(params)
         for m in range(k):
             sp = np.asarray(speed_hz)[lab == m]
-            op += [int(math.floor(sp.min() * (1 - widen) * 256)), int(math.ceil(sp.max() * (1 + widen) * 256))]
+            a, b = np.percentile(sp, [100 * STRAY_Q, 100 * (1 - STRAY_Q)])
+            op += [max(int(math.floor(a * (1 - widen) * 256)), lo_q8),
+                   min(int(math.ceil(b * (1 + widen) * 256)), hi_q8)]
     else:
         k, lab = 1, np.zeros(len(z), int)
     floor = params["det_s_floor_q8"]
-    centers = np.array([z[lab == m].mean(0) for m in range(k)])
-    spread = np.array([z[lab == m].std(0) for m in range(k)])
+    zm = np.where(mask, np.nan, z.astype(np.float64))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)     # a line masked in every window of a mode
+        centers = np.nan_to_num(np.array([np.nanmean(zm[lab == m], 0) for m in range(k)]), nan=0.0)
+        spread = np.nan_to_num(np.array([np.nanstd(zm[lab == m], 0) for m in range(k)]), nan=256.0)
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
     alert = (CHI_Q8[d - 1] * margin) >> 8
     return {

@@ -192,6 +192,22 @@ def promise(rf: RateFit, target_per_30_days: float) -> Promise:
     return Promise(x, rf.rate_per_h(x) * h30, (lo * h30, hi * h30), target_per_30_days, ok, x > rf.s_max)
 
 
+def promise_at(rf: RateFit, x: float, target_per_30_days: float, below: Promise) -> Promise:
+    """The promise at a threshold x chosen otherwise (a floor above the threshold of `below`): the
+    fit's rate there and its range, supported only if that range is within SUPPORT_RATIO of the
+    rate. The rate falls as the threshold rises, so the upper limit is at most `below`'s; past the
+    end of a bounded tail (shape < 0) the fit's rate is 0 and that limit is all that is known."""
+    h30 = 30 * 24.0
+    xi, sc = rf.tail.shape, rf.tail.scale
+    if xi < 0 and x - rf.u >= -sc / xi:
+        return Promise(x, 0.0, (0.0, below.range_95[1]), target_per_30_days, False, x > rf.s_max)
+    lo, hi = rf.range_95(x)
+    r = rf.rate_per_h(x)
+    hi = min(hi * h30, below.range_95[1])
+    return Promise(x, r * h30, (min(lo * h30, hi), hi), target_per_30_days, hi <= SUPPORT_RATIO * max(r * h30, 1e-300),
+                   x > rf.s_max)
+
+
 def _ratio(rf: RateFit, per_h: float) -> float:
     x = rf.threshold_for(per_h)
     return rf.range_95(x)[1] / max(rf.rate_per_h(x), 1e-300)

@@ -155,6 +155,19 @@ def _idle_floor(bb: np.ndarray, rpm: np.ndarray, scale: float) -> tuple[int, str
                 [f"stopped and running broadband velocities overlap (stopped up to {units.velocity_mm_s(q_stop, scale):.3f}, "
                  f"running from {units.velocity_mm_s(q_run, scale):.3f} mm/s r.m.s.): some windows near the idle floor "
                  "will be misjudged"])
+    if len(running) >= 5 and len(stopped) < 5:
+        # No recording is wholly stopped, but stops can lie inside recordings that hold a run-down or
+        # a restart (sidecar rpm unknown). A window more than an octave under the quietest steady
+        # running (its 1st percentile) is no steady running; enough of them, clearly apart from
+        # running, are the stopped pump: the floor is placed between them as above.
+        q_run = float(np.percentile(running, 1))
+        low = bb[~(rpm > 0) & (bb < q_run / 2)]
+        if len(low) >= 5:
+            q_stop = float(np.percentile(low, 99))
+            return (int(math.sqrt(q_stop * q_run)),
+                    "geometric mean of the 99th percentile of windows more than an octave under steady running "
+                    "(stops inside recordings of unknown rpm) and the 1st percentile of running windows (sidecar rpm)",
+                    [])
     return (max(int(bb.min()) >> 2, 1), "a quarter of the quietest window (the device's rule; no sidecar rpm marks stopped and running recordings)",
             ["no recordings marked stopped (sidecar rpm 0) and running: the idle floor is a quarter of the quietest "
              "window, so a stopped pump in the training data is learned as an operating mode"])
@@ -232,44 +245,32 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
     if bearing is not None:
         o = defect_orders(bearing)
         keys["fc_bear_q12"] = [int(round(v * 4096)) for v in (o.bpfo, o.bpfi, o.bsf, o.ftf)]
-        band, why["envelope"] = _envelope_band(streams, base, hi_hz * max(o.bpfo, o.bpfi, o.bsf, o.ftf))
+        band, why["envelope"] = _envelope_band(base, hi_hz * max(o.bpfo, o.bpfi, o.bsf, o.ftf))
         keys["fc_env_band"] = band
     return keys, why
 
 
-def _envelope_band(streams: list[list[Recording]], base: dict, top_hz: float) -> tuple[list[int], str]:
-    """The high-frequency band the envelope demodulates: where the healthy spectrum is highest
-    above the machine's own lines. Bearing impacts ring the structure's resonances, and a
-    resonance shows in healthy data too, lifted by flow noise (Randall and Antoni 2011: demodulate
-    a band around a resonance the impacts excite). Searched above a quarter of the Nyquist
-    frequency; the band is at least 2.5 times the highest defect frequency wide (its envelope
-    must hold the line and its lobe) and n/16 bins."""
+def _envelope_band(base: dict, top_hz: float) -> tuple[list[int], str]:
+    """The high-frequency band the envelope demodulates: the widest band the envelope stage takes
+    (fs/4), at the top of the sensor's range (up to 15/16 of the Nyquist frequency, clear of the
+    converter's own roll-off). Bearing impacts ring the structure's resonances, which lie high
+    and are rung by the impacts, not by healthy running: healthy data cannot show where they are
+    (a band chosen as the loudest healthy band lands on the machine's flow noise instead). Randall
+    and Antoni (2011) demodulate a band around an excited resonance, found by its impulsiveness
+    when a fault exists; before one exists, a wide band high in the range holds the likely
+    resonances and little of the machine's own lines and flow noise. The band must also be at least
+    2.5 times the highest defect frequency wide (its envelope must hold the line and its lobe)."""
     n, fs = base["n"], base["fs_hz"]
     m = n // 2
     df = fs / n
-    width = max(n // 16, int(math.ceil(2.5 * top_hz / df)) + 4)
-    lo_min = max(m // 4, 1)
-    if lo_min + width > m:
+    need = int(math.ceil(2.5 * top_hz / df)) + 4
+    width = m // 2
+    hi = m - m // 16
+    lo = hi - width
+    if need > width or lo < m // 4:
         return [], "the sample rate leaves no band above the machine lines wide enough for the envelope"
-    win = np.hanning(n)
-    acc = np.zeros(m + 1)
-    cnt = 0
-    for s in streams:
-        for r in s:
-            if r.rpm == 0:
-                continue
-            c = r.counts.astype(np.float64)
-            for w0 in range(0, len(c) - n + 1, n * 8):
-                acc += (np.abs(np.fft.rfft(c[w0:w0 + n] * win[:, None], axis=0)) ** 2).sum(1)
-                cnt += 1
-    if not cnt:
-        return [], "no running recording to choose the envelope band from"
-    logp = np.log(acc[:m] + 1e-12)
-    sums = np.convolve(logp, np.ones(width), "valid")        # band [i, i + width)
-    cand = np.arange(lo_min, m - width + 1)
-    lo = int(cand[np.argmax(sums[cand])])
-    return [lo, lo + width], (f"{lo * df:.0f}-{(lo + width) * df:.0f} Hz: the highest healthy spectrum above "
-                              f"{lo_min * df:.0f} Hz (a structural resonance the impacts would ring)")
+    return [lo, hi], (f"{lo * df:.0f}-{hi * df:.0f} Hz: the widest band the envelope takes, at the top of the "
+                      "sensor's range, where the structural resonances that bearing impacts ring lie")
 
 
 def _op_of(sf: StreamFeatures, params: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -459,13 +460,26 @@ def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, ta
             "expected_false_alerts_per_30_days": None, "range_95_per_30_days": None}
     pr = raise_rate.promise(rf, target)
     pa = raise_rate.promise(rf, pr.per_30_days / ALARM_RATE_RATIO)
-    alert = min(int(math.floor(pr.threshold)) + 1, _THR_MAX)
-    alarm = min(max(int(math.floor(pa.threshold)) + 1, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
+    chi_alert, chi_alarm = p["det_thr_alert_q8"], p["det_thr_alarm_q8"]
+    floored = not pr.supported and pr.threshold < chi_alert
     if not pr.supported:
+        # Too little data for the target. The rate the data can vouch for is stated, but the
+        # thresholds never go under the device's conservative chi-square rule (which rests on no
+        # data): a set for hundreds of false alerts a month is no use in the field. At the floor
+        # the stated rate is the fit's estimate there, its wide range said (an extrapolation).
         warnings.append(f"{rf.hours:.2f} h of held-out running hold only {rf.clusters} independent stretches of high "
-                        f"scores: they cannot support {target:g} false alert(s) per 30 days; thresholds are set for "
-                        f"{pr.per_30_days:.3g} per 30 days instead (95 % range {pr.range_95[0]:.3g} to "
-                        f"{pr.range_95[1]:.3g}). Train on more running time to promise fewer")
+                        f"scores: they cannot support {target:g} false alert(s) per 30 days; they support "
+                        f"{pr.per_30_days:.3g} per 30 days (95 % range {pr.range_95[0]:.3g} to "
+                        f"{pr.range_95[1]:.3g})" + ("; the thresholds stay at the device's conservative chi-square rule "
+                                                    "instead, where the rate is an extrapolation" if floored else
+                                                    "; thresholds are set for that rate") +
+                        ". Train on more running time to promise fewer")
+        if floored:
+            pr = raise_rate.promise_at(rf, float(chi_alert), target, pr)
+        if pa.threshold < chi_alarm:
+            pa = raise_rate.promise_at(rf, float(chi_alarm), pr.per_30_days / ALARM_RATE_RATIO, pa)
+    alert = min(int(math.floor(pr.threshold)) + 1, _THR_MAX) if not floored else chi_alert
+    alarm = min(max(int(math.floor(pa.threshold)) + 1, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
     if rf.tail.shape > 0.5:
         warnings.append(f"the healthy score tail is heavy (shape {rf.tail.shape:.2f}): some training windows may not be healthy")
     if pr.beyond_data:
@@ -582,6 +596,19 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     # the device chooses the mode by the median speed of the steadiness span (det.speed_q8 of a
     # scored window), so the modes are learned from the same quantity
     speeds = [st.speed_q8 / 256.0 for st in probe]
+    # a speed pinned at an end of the search range is no operating point (modes_fit.pinned_limits_q8):
+    # such windows stay out of the model, and out of every mode's range
+    pin_lo, pin_hi = (v / 256.0 for v in modes_fit.pinned_limits_q8(p))
+    pinned = int(sum((u & ((sp < pin_lo) | (sp > pin_hi))).sum() for u, sp in zip(use, speeds)))
+    use = [u & (sp >= pin_lo) & (sp <= pin_hi) for u, sp in zip(use, speeds)]
+    if pinned:
+        warnings.append(f"{pinned} steady windows read their speed at an end of the search range (a shaft the window "
+                        "cannot resolve, or outside the range): they are not learned, and the gateway leaves such "
+                        "windows unscored")
+    n_use = int(sum(u.sum() for u in use))
+    if n_use < MIN_WINDOWS:
+        raise EdgevibError(f"only {n_use} steady running windows with a resolved speed; "
+                           f"record more of the pump in normal duty (at least {MIN_WINDOWS})")
 
     # held-out scores, by contiguous blocks of recordings; fold models and the full model
     rec_fold = _blocks(streams, folds)
