@@ -50,7 +50,7 @@ from firmware_py.dsp import feature_index as fi
 from firmware_py.run import params as pm
 from firmware_py.detect.detector import W_IDLE, W_SCORED, Detector, default_feature_list
 from firmware_py.detect.iso_zones import ZONE_C
-from host_tools.data.bearing import BearingGeometry, defect_orders
+from host_tools.data.bearing import BearingGeometry, defect_orders, geometry_from_record
 from host_tools.fit import modes_fit, raise_rate, sensor_fit
 from host_tools.data import units
 from host_tools.errors import EdgevibError
@@ -233,8 +233,7 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
     if bearing is None:
         geo = next((r.sidecar["bearing"] for s in streams for r in s if isinstance(r.sidecar.get("bearing"), dict)), None)
         if geo:
-            bearing = BearingGeometry(int(geo["n_elements"]), float(geo["ball_diameter_mm"]),
-                                      float(geo["pitch_diameter_mm"]), float(geo.get("contact_angle_deg", 0.0)))
+            bearing = geometry_from_record(geo)
     keys: dict[str, Any] = {"fc_speed_lo_q8": int(lo_hz * 256), "fc_speed_hi_q8": int(math.ceil(hi_hz * 256)),
                             "fc_vane": vane, "fc_env_band": [], "fc_bear_q12": []}
     why = {"speed": why_speed, "vane": f"{vane} vanes (sidecars)" if vane else "no vane count in the sidecars",
