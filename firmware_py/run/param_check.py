@@ -32,7 +32,8 @@ from firmware_py.run import params as params_mod
 _BIG = 0x3FFFFFFF         # largest small int on a 32-bit MicroPython port (py/smallint.h)
 _SIZED = ("det_base_mean_q4", "det_base_sd_q4")        # one int per scored feature
 _MODEL = ("det_mode_c_q8", "det_mode_s_q8")            # det_modes x scored features
-_AXIAL = ("det_dc_lo_q8", "det_dc_hi_q8")              # one int per axis
+_AXIAL = ("det_dc_lo_q8", "det_dc_hi_q8", "det_stuck_max", "det_zero_max",
+          "det_knock_crest_q12")                       # one int per axis
 
 
 def _is_int(v):
