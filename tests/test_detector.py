@@ -30,7 +30,8 @@ def params(**kw):
              det_modes=1, det_mode_c_q8=[0], det_mode_s_q8=[256], det_thr_alert_q8=3 * 256,
              det_thr_alarm_q8=6 * 256, det_hyst_q8=205, det_persist_ms=5 * W_MS,
              det_persist_q8=154, det_escalate_ms=4 * W_MS, det_dwell_ms=4 * W_MS,
-             det_hold_ms=0, det_steady_ms=0, det_idle_vel_q16=IDLE, det_fault_k=2)
+             det_hold_ms=0, det_steady_ms=0, det_idle_vel_q16=IDLE, det_fault_k=2,
+             det_fault_clear_ms=2 * W_MS)
     p.update(kw)
     return p
 

@@ -34,6 +34,7 @@ p["det_learn_mode_n"] = 300
 p["det_learn_min_n"] = 20
 p["det_drift_shift"] = 6
 p["det_drop_max"] = 10
+p["det_fault_clear_ms"] = 480               # trusted again after 3 good windows
 det = Detector(p)
 
 seed = [12345]
@@ -71,6 +72,8 @@ for i in range(NW):
         feats[i * NF + PA + fi.F_BAND0 + 2] += 700
     if 800 <= i < 806:                        # clipping
         feats[i * NF + fi.F_CLIP] = 4
+    if 830 <= i < 834:                        # DC offset out of range
+        feats[i * NF + fi.F_MEAN] = 32767 << 8
     if i == 850:
         dropped[i] = 50
     if 900 <= i < 910:                        # zone C velocity on axis 2 (3.5 mm/s)
@@ -162,7 +165,8 @@ d = len(p["det_feat"])
 # the model at its own extremes: tiny spreads, centroids at the clamp
 p.update(det_flat_rms_q8=0, det_clip_max=BIG, det_dc_lo_q8=[-BIG, -BIG], det_dc_hi_q8=[BIG, BIG],
          det_drop_max=BIG, det_idle_vel_q16=0, det_hold_ms=0, det_sd_floor_q4=1, det_s_floor_q8=1,
-         det_stuck_max=[BIG, BIG], det_zero_max=[BIG, BIG], det_steady_ms=640, det_conf_min_q8=0,
+         det_stuck_max=[BIG, BIG], det_zero_max=[BIG, BIG], det_knock_crest_q12=[BIG, BIG],
+         det_steady_ms=640, det_conf_min_q8=0,
          det_op_speed_q8=[(-1) ** m * BIG if j else -BIG for m in range(8) for j in range(2)],
          det_op_load_q8=[-BIG, BIG] * 8, det_zlam_q8=4096,
          det_base_mean_q4=[(-1) ** j * BIG for j in range(d)], det_base_sd_q4=[1] * d,

@@ -273,3 +273,19 @@ def test_fleet_train_equals_edgevib_train_alone_and_compare_runs_on_its_sets(tra
         assert (cmp_out / g.name / "compare" / "index.html").is_file()
     assert cdoc["errors"] == {} and clines[-1].startswith(f"{len(gws)} of {len(gws)} gateways compared")
     assert {g.name: (g / layout.PARAMS).read_bytes() for g in gws} == before     # nothing flashed
+
+
+def test_fleet_train_takes_the_bearing_from_the_manifest(trainable, tmp_path):
+    # The manifest is the gateway's own record of its bearing, and recordings pulled by `record`
+    # carry none in their sidecars: the set's defect orders must be the manifest geometry's, by the
+    # kinematic formulas (host_tools.data.bearing.orders_q12, checked against the handbook formulas
+    # in tests/test_bearing.py). A geometry unlike the sidecars' shows which one wins.
+    from host_tools.data.bearing import BearingGeometry, orders_q12
+    from host_tools.data.files import load_body
+    root, profile = trainable
+    g = layout.gateways(root)[0]
+    other = {"n_elements": 12, "ball_diameter_mm": 6.0, "pitch_diameter_mm": 60.0}
+    paths = sorted(str(p) for p in (g / layout.HEALTHY).glob("*.wav"))
+    work.train_gateway(g.name, paths, profile, str(tmp_path / "set"), 1.0, 3, 2, other)
+    _, params = load_body(tmp_path / "set" / layout.PARAMS)
+    assert params["fc_bear_q12"] == orders_q12(BearingGeometry(12, 6.0, 60.0))

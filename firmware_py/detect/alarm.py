@@ -40,9 +40,11 @@ R_UNKNOWN_POINT = const(17)  # running steadily at an operating point no mode co
 R_NO_SPEED = const(18)     # running, but no confident speed estimate to choose a mode by
 R_KNOWN_POINT = const(19)  # back at a trained operating point: scored again
 R_ESCALATE = const(20)     # the alert persisted for the escalation time and the alarm rule holds
+R_COUPLING = const(21)     # sensor: an impulse on one axis that the others do not see (loose mount)
 REASON_NAMES = ("", "score", "iso_c", "iso_d", "clear", "ack", "stopped", "started", "flatline",
                 "clipping", "dc_offset", "dropped", "sensor_ok", "learn_start", "learn_done",
-                "learn_stop", "dropout", "unknown_point", "no_speed", "known_point", "escalate")
+                "learn_stop", "dropout", "unknown_point", "no_speed", "known_point", "escalate",
+                "coupling")
 
 _CAP = const(1 << 29)
 SPAN_MAX = const(4096)     # most windows in an evidence span (one byte each)

@@ -1,8 +1,8 @@
 """edgevib detector: one per device, the same code on the host for replay and training.
 
 Per window the caller passes the feature vector and gets back the detector state. In order:
-1. sensor health (a dropout run, flatline, clipping, DC offset, lost samples): sensor_fault,
-   decided before anything about the machine;
+1. sensor health (a dropout run, a knock on one axis only, flatline, clipping, DC offset, lost
+   samples): sensor_fault, decided before anything about the machine;
 2. running? (largest axis velocity against the idle floor), and steady? (speed estimate and
    level over the last det_steady_ms; a run-up, a speed change and a run-down are not steady);
    after a start, idle until steady for det_hold_ms;
@@ -104,7 +104,10 @@ PARAM_KEYS = (
     "det_drop_max",         # sensor: more dropped samples than this in one window is a fault
     "det_stuck_max",        # per axis, longest healthy run of identical samples (F_STUCK), samples
     "det_zero_max",         # per axis, longest healthy run of zero samples (F_ZERO), samples
-    "det_fault_k",          # consecutive bad (good) windows to enter (leave) sensor_fault
+    "det_knock_crest_q12",  # per axis, crest factor (F_CREST, Q12) over which an impulse is a knock
+    "det_knock_ratio_q8",   # a knock's peak over every other axis's peak by this ratio, Q8
+    "det_fault_k",          # consecutive bad windows to enter sensor_fault (dropout, knock: 1)
+    "det_fault_clear_ms",   # healthy windows in a row to leave sensor_fault (at least det_fault_k)
     "det_sd_floor_q4",      # least baseline spread, log2 Q8 units, Q4
     "det_s_floor_q8",       # least per-mode spread, Q8 baseline spreads
     "det_learn_base_n",     # learning: windows for the baseline (phase 1, <= 65535)
@@ -146,6 +149,20 @@ _SPEED_MAX = const(1 << 17)  # speeds are taken as at most 512 Hz (Q8): tol_q12 
 # dropout under once in a thousand months. Training replaces it per axis from measured q
 # (host_tools/fit/sensor_fit.py).
 _RUN_DEFAULT = const(44)
+# Crest factor over which a window holds an impulse, before training has measured the sensor.
+# For Gaussian noise a window of n samples exceeds crest c with probability under
+# n * 2 * Q(c / sqrt(1 + c**2 / (2 n))) (Q the normal upper tail; the square root: the window's
+# own r.m.s. estimate, relative spread 1 / sqrt(2 n); host_tools/fit/sensor_fit.py has the exact
+# form); at c = 8 and n <= 4096 that is under 1e-11 per window, under 1e-4 in the 1.6e7 windows
+# of 30 days at 0.16 s. Lines make a signal's crest factor lower than noise's, so a healthy
+# stationary vibration stays under it too. Training replaces it per axis (sensor_fit). Q12.
+_KNOCK_CREST_DEFAULT = const(32768)
+# A knock must stand above every other axis's peak by this ratio (8, Q8). A machine impact
+# reaches the sensor through the bearing housing, which carries it to every axis; the next most
+# excited axis sees a good fraction of it (common practice; the evaluation scenarios' housing
+# mode gives 0.6 and 0.3 of the main axis). An impulse that only one axis sees, 18 dB over the
+# others' own peaks, is the sensor's: rattling on a loose seat, struck, or a connection glitch.
+_KNOCK_RATIO_DEFAULT = const(2048)
 
 
 def default_feature_list(axes, n_bands):
@@ -172,8 +189,9 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
     floor is 0.05 mm/s, 1/28 of the lowest zone A/B boundary (1.4 mm/s): low enough that a
     running pump is not taken for a stopped one, so the guard is not blinded before training (the
     cautious side); a noisy MEMS sensor on a stopped pump may read more (an ADXL345 about
-    0.13-0.39 mm/s in the demo) and show running until trained or learned. Sensor dropout:
-    _RUN_DEFAULT (see there) until training measures the sensor.
+    0.13-0.39 mm/s in the demo) and show running until trained or learned. Sensor dropout and
+    knock: _RUN_DEFAULT, _KNOCK_CREST_DEFAULT and _KNOCK_RATIO_DEFAULT (see there) until training
+    measures the sensor.
     """
     feat = default_feature_list(axes, n_bands)
     dc = (full_scale * 7 // 8) << 8
@@ -196,7 +214,9 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_flat_rms_q8": 64, "det_clip_max": 0,
         "det_dc_lo_q8": [-dc] * axes, "det_dc_hi_q8": [dc] * axes,
         "det_drop_max": 0, "det_stuck_max": [stuck] * axes, "det_zero_max": [stuck] * axes,
-        "det_fault_k": 3,
+        "det_knock_crest_q12": [_KNOCK_CREST_DEFAULT] * axes,
+        "det_knock_ratio_q8": _KNOCK_RATIO_DEFAULT,
+        "det_fault_k": 3, "det_fault_clear_ms": 20000,
         "det_sd_floor_q4": 128, "det_s_floor_q8": 64,
         "det_learn_base_n": 300, "det_learn_mode_n": 600, "det_learn_op_q12": 205,
         "det_learn_min_n": 30, "det_learn_margin_q8": 320, "det_learn_alarm_q8": 384,
@@ -303,7 +323,11 @@ class Detector:
         self.drop_max = _int(p, "det_drop_max", 0, _BIG)
         self.stuck_max = _ints(p, "det_stuck_max", axes)
         self.zero_max = _ints(p, "det_zero_max", axes)
+        self.knock_crest_q12 = _ints(p, "det_knock_crest_q12", axes)
+        self.knock_ratio_q8 = _int(p, "det_knock_ratio_q8", 256, 1 << 16)
         self.fault_k = _int(p, "det_fault_k", 1, 1 << 20)
+        w = windows_for(_int(p, "det_fault_clear_ms", 0, _BIG), n, fs, every)
+        self.fault_clear_w = w if w > self.fault_k else self.fault_k
         self.base_n = _int(p, "det_learn_base_n", 2, N_MAX)
         self.mode_n = _int(p, "det_learn_mode_n", 1, N_MAX)
         self.learn_op_q12 = _int(p, "det_learn_op_q12", 1, 4096)
@@ -350,6 +374,7 @@ class Detector:
         self.fault = False
         self.fault_reason = 0
         self.fault_feat = -1
+        self.knock_axis = 0
         self.running = False                      # broadband velocity at or over the idle floor
         self.starting = True                      # since the start: idle until steady
         self.run_w = 0                            # windows running since the start
@@ -462,14 +487,17 @@ class Detector:
 
     # -- the window path ------------------------------------------------------------------------
     def _sensor_bad(self, f, dropped):
-        """True if this window shows a sensor problem; fault_reason and fault_feat say which."""
+        """True if this window shows a sensor problem; fault_reason and fault_feat say which. The
+        conclusive findings come first (a dropout run, a knock: each enters sensor_fault at once),
+        then those that need fault_k windows in a row (flatline, clipping, DC offset, lost
+        samples). One pass over the axes notes the first of the latter and any axis impulsive
+        enough to be a knock; the knock's witness test runs only then."""
         pa = self.pa
+        slow = 0                                  # first k-window finding, 0 none
+        feat = -1
+        loud = -1                                 # an axis whose crest factor is over its limit
         for a in range(self.axes):
             b = a * pa
-            if f[b + fi.F_RMS] < self.flat_rms_q8:
-                self.fault_reason = al.R_FLAT
-                self.fault_feat = b + fi.F_RMS
-                return True
             if f[b + fi.F_STUCK] > self.stuck_max[a]:
                 self.fault_reason = al.R_DROPOUT
                 self.fault_feat = b + fi.F_STUCK
@@ -478,19 +506,60 @@ class Detector:
                 self.fault_reason = al.R_DROPOUT
                 self.fault_feat = b + fi.F_ZERO
                 return True
-            if f[b + fi.F_CLIP] > self.clip_max:
-                self.fault_reason = al.R_CLIP
-                self.fault_feat = b + fi.F_CLIP
-                return True
+            if f[b + fi.F_CREST] > self.knock_crest_q12[a] and loud < 0:
+                loud = a
+            if slow == 0:
+                m = f[b + fi.F_MEAN]
+                if f[b + fi.F_RMS] < self.flat_rms_q8:
+                    slow = al.R_FLAT
+                    feat = b + fi.F_RMS
+                elif f[b + fi.F_CLIP] > self.clip_max:
+                    slow = al.R_CLIP
+                    feat = b + fi.F_CLIP
+                elif m < self.dc_lo_q8[a] or m > self.dc_hi_q8[a]:
+                    slow = al.R_DC
+                    feat = b + fi.F_MEAN
+        if loud >= 0 and self._knock(f, loud):
+            # an impulse to exactly zero (a run of zeros) on an axis that carries a large offset
+            # (gravity), peak about the offset itself: a read that returned an empty frame
+            b = self.knock_axis * pa
             m = f[b + fi.F_MEAN]
-            if m < self.dc_lo_q8[a] or m > self.dc_hi_q8[a]:
-                self.fault_reason = al.R_DC
-                self.fault_feat = b + fi.F_MEAN
-                return True
-        if dropped > self.drop_max:
-            self.fault_reason = al.R_DROP
-            self.fault_feat = -1
+            m = m if m >= 0 else -m
+            if f[b + fi.F_ZERO] >= 2 and m > f[b + fi.F_PEAK] >> 1:
+                self.fault_reason = al.R_DROPOUT
+                self.fault_feat = b + fi.F_ZERO
+            else:
+                self.fault_reason = al.R_COUPLING
+                self.fault_feat = b + fi.F_PEAK
             return True
+        if slow == 0 and dropped > self.drop_max:
+            slow = al.R_DROP
+        if slow:
+            self.fault_reason = slow
+            self.fault_feat = feat
+            return True
+        return False
+
+    def _knock(self, f, first):
+        """True if an axis from `first` on holds a knock (its index in knock_axis): its crest
+        factor over knock_crest_q12 (an impulse no healthy vibration makes) and its peak over
+        knock_ratio_q8 / 256 times the peak of every other axis (no other axis saw it, which a
+        machine impact, carried by the housing to every axis, cannot do). Needs two axes or more.
+        Peaks are clamped to 2**24 (Q8 counts) and compared in Q4, so (peak >> 4) << 8 < 2**29."""
+        n = self.axes
+        if n < 2:
+            return False
+        pa = self.pa
+        for a in range(first, n):
+            b = a * pa
+            if f[b + fi.F_CREST] > self.knock_crest_q12[a]:
+                lim_q4 = ((clamp(f[b + fi.F_PEAK], 1 << 24) >> 4) << 8) // self.knock_ratio_q8
+                for c in range(n):
+                    if c != a and clamp(f[c * pa + fi.F_PEAK], 1 << 24) >> 4 >= lim_q4:
+                        break
+                else:
+                    self.knock_axis = a
+                    return True
         return False
 
     def _count(self, why):
@@ -616,13 +685,13 @@ class Detector:
         self.feat = -1
         self.pushed = 0
         pa = self.pa
-        # sensor health comes first: a bad window is never scored. A dropout run is conclusive
-        # on its own (its threshold is set for a false call once in a thousand months), so it
+        # sensor health comes first: a bad window is never scored. A dropout run or a knock is
+        # conclusive on its own (limits set for a false call once in a thousand months), so it
         # enters sensor_fault at once; the other checks need fault_k windows in a row.
         if self._sensor_bad(f, dropped):
             self._count(W_FAULT)
             self.fault_good = 0
-            if self.fault_reason == al.R_DROPOUT:
+            if self.fault_reason == al.R_DROPOUT or self.fault_reason == al.R_COUPLING:
                 self.fault_bad = self.fault_k
             elif self.fault_bad < self.fault_k:
                 self.fault_bad += 1
@@ -635,9 +704,13 @@ class Detector:
             return self.state
         self.fault_bad = 0
         if self.fault:
+            # trusted again only after fault_clear_w healthy windows in a row: an intermittent
+            # fault (a rattling mount, a loose connector) returns within seconds, and between its
+            # bursts the signal is still the faulty sensor's
             self._count(W_FAULT)
-            self.fault_good += 1
-            if self.fault_good < self.fault_k:
+            if self.fault_good < _BIG:
+                self.fault_good += 1
+            if self.fault_good < self.fault_clear_w:
                 return self.state
             self.fault = False
             self._restart()                       # treat like a restart: no transient alert

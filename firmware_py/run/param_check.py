@@ -32,7 +32,8 @@ from firmware_py.run import params as params_mod
 _BIG = 0x3FFFFFFF         # largest small int on a 32-bit MicroPython port (py/smallint.h)
 _SIZED = ("det_base_mean_q4", "det_base_sd_q4")        # one int per scored feature
 _MODEL = ("det_mode_c_q8", "det_mode_s_q8")            # det_modes x scored features
-_AXIAL = ("det_dc_lo_q8", "det_dc_hi_q8")              # one int per axis
+_AXIAL = ("det_dc_lo_q8", "det_dc_hi_q8", "det_stuck_max", "det_zero_max",
+          "det_knock_crest_q12")                       # one int per axis
 # slow channel (docs/detector.md, Score): weight Q8 up to 16; time constant up to 10 min (the
 # Detector also refuses one over 4096 analysed windows on this board's time base)
 _RANGED = (("det_slam_q8", 1 << 12), ("det_slow_ms", 600000))

@@ -61,6 +61,14 @@ class DefectOrders:
         return {"bpfo": self.bpfo * fr, "bpfi": self.bpfi * fr, "bsf": self.bsf * fr, "ftf": self.ftf * fr}
 
 
+def geometry_from_record(d: dict) -> BearingGeometry:
+    """A geometry from its JSON form (a sidecar's or a fleet manifest's "bearing": n_elements,
+    ball_diameter_mm, pitch_diameter_mm, optional contact_angle_deg). KeyError names a missing
+    key, TypeError/ValueError a value that is not a number."""
+    return BearingGeometry(int(d["n_elements"]), float(d["ball_diameter_mm"]), float(d["pitch_diameter_mm"]),
+                           float(d.get("contact_angle_deg", 0.0)))
+
+
 def defect_orders(g: BearingGeometry) -> DefectOrders:
     """Kinematic defect orders of bearing `g` (formulas in the module docstring)."""
     ratio = g.ball_diameter_mm / g.pitch_diameter_mm * math.cos(math.radians(g.contact_angle_deg))

@@ -272,14 +272,27 @@ def dropouts(counts: np.ndarray, rng: np.random.Generator, n_runs: int, len_lo: 
     return out
 
 
+def _mount_sos(mount_hz: float, q: float, fs_hz: float) -> np.ndarray:
+    """The mount as a digital filter: a single-degree-of-freedom system driven at its base (the
+    sensor's mass on the contact's stiffness and damping), H(s) = (w s / q + w**2) /
+    (s**2 + w s / q + w**2), |H| = sqrt(1 + (r / q)**2) / sqrt((1 - r**2)**2 + (r / q)**2),
+    r = f / mount_hz (base excitation; common practice, vibration texts' transmissibility curves);
+    by the bilinear transform, its frequency warped to meet mount_hz exactly."""
+    w = 2.0 * fs_hz * math.tan(math.pi * mount_hz / fs_hz)
+    b, a = signal.bilinear([w / q, w * w], [1.0, w / q, w * w], fs=fs_hz)
+    return signal.tf2sos(b, a)
+
+
 def loose_mount(a_m_s2: np.ndarray, fs_hz: float, rng: np.random.Generator, spikes_per_s: float,
-                mount_hz: float = 250.0, spike_m_s2: float = 60.0) -> np.ndarray:
+                mount_hz: float = 250.0, spike_m_s2: float = 60.0, q: float = 4.0) -> np.ndarray:
     """A sensor whose mount has worked loose (a magnet base or stud not seated, or a cable that
-    moves): the contact no longer carries high frequencies, so the housing's motion above the
-    mount's own resonance is lost (a second-order low-pass at mount_hz; common practice for
-    mounting methods), and the sensor rattles on its seat, giving sharp spikes of a few g. Returns
-    a new array (frames x axes, m/s^2)."""
-    sos = signal.butter(2, mount_hz, btype="lowpass", fs=fs_hz, output="sos")
+    moves): the sensor now sits on a soft contact, a spring under its mass, so the housing's
+    motion reaches it through that mount's resonance at mount_hz (quality factor q): amplified
+    near it, lost above it (_mount_sos; the mounted resonance of a loose fixing falls from kHz to
+    hundreds of Hz, common practice for mounting methods), and the sensor rattles on
+    its seat, giving sharp spikes of a few g on one axis. Returns a new array (frames x axes,
+    m/s^2)."""
+    sos = _mount_sos(mount_hz, q, fs_hz)
     out = signal.sosfilt(sos, a_m_s2 - a_m_s2.mean(0), axis=0) + a_m_s2.mean(0)
     n = len(out)
     at = rng.integers(0, max(1, n - 8), rng.poisson(spikes_per_s * n / fs_hz))

@@ -457,7 +457,10 @@ def _sense(h: History, s: _Synth, t0: float, a: np.ndarray, sensor_faults: bool 
             i = int(rng.integers(0, max(1, n // 2)))
             j = min(n, i + int(rng.uniform(0.3, 1.0) * n))
             a = a.copy()
-            a[i:j] = ph.loose_mount(a[i:j], fs, rng, spikes_per_s=6.0)
+            # how loose: the mount's resonance and its sharpness, and how often it knocks, differ
+            # from one fixing to the next
+            a[i:j] = ph.loose_mount(a[i:j], fs, rng, spikes_per_s=float(rng.uniform(1.0, 6.0)),
+                                    mount_hz=float(rng.uniform(150.0, 500.0)), q=float(rng.uniform(2.0, 8.0)))
             hits.append((t0 + i / fs, t0 + j / fs, "loose mount"))
     counts = m.sensor.quantise(a, s.r_sensor)
     for f in active:

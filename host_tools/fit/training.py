@@ -51,7 +51,7 @@ from firmware_py.dsp import feature_index as fi
 from firmware_py.run import params as pm
 from firmware_py.detect.detector import W_IDLE, W_SCORED, Detector, default_feature_list
 from firmware_py.detect.iso_zones import ZONE_C
-from host_tools.data.bearing import BearingGeometry, defect_orders
+from host_tools.data.bearing import BearingGeometry, defect_orders, geometry_from_record
 from host_tools.fit import modes_fit, raise_rate, sensor_fit
 from host_tools.data import units
 from host_tools.errors import EdgevibError
@@ -189,6 +189,12 @@ def _dc_range(feats: np.ndarray, params: dict, profile: dict) -> tuple[list[int]
     return lo_out, hi_out
 
 
+def _knocks(feats: np.ndarray, params: dict) -> int:
+    """Windows (rows of features) the device's sensor check calls a knock with params' limits."""
+    det = Detector(params)
+    return sum(1 for row in feats.tolist() if det._sensor_bad(row, 0) and det.fault_reason == al.R_COUPLING)
+
+
 def _idle_floor(bb: np.ndarray, rpm: np.ndarray, scale: float) -> tuple[int, str, list[str]]:
     """det_idle_vel_q16 from the broadband velocities bb (largest axis F_VEL, counts/s Q16) and
     each window's recorded rpm (nan unknown); scale: m/s^2 per count, for the warning's mm/s.
@@ -283,8 +289,7 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
     if bearing is None:
         geo = next((r.sidecar["bearing"] for s in streams for r in s if isinstance(r.sidecar.get("bearing"), dict)), None)
         if geo:
-            bearing = BearingGeometry(int(geo["n_elements"]), float(geo["ball_diameter_mm"]),
-                                      float(geo["pitch_diameter_mm"]), float(geo.get("contact_angle_deg", 0.0)))
+            bearing = geometry_from_record(geo)
     keys: dict[str, Any] = {"fc_speed_lo_q8": int(lo_hz * 256), "fc_speed_hi_q8": int(math.ceil(hi_hz * 256)),
                             "fc_vane": vane, "fc_env_band": [], "fc_bear_q12": []}
     why = {"speed": why_speed, "vane": f"{vane} vanes (sidecars)" if vane else "no vane count in the sidecars",
@@ -599,6 +604,14 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         warnings.append(f"{flat} training windows look like a stuck sensor (r.m.s. under the flatline floor)")
     stuck, zero, run_detail = sensor_fit.run_limits([r.counts for s in streams for r in s], p["n"],
                                                     _DAYS_30_S / window_s)
+    knock, knock_detail = sensor_fit.crest_limits(allf[:, fi.F_CREST::pa][:, :axes], allf[:, fi.F_RMS::pa][:, :axes],
+                                                  p["n"], _DAYS_30_S / window_s)
+    run_detail["knock"] = knock_detail
+    knocks = _knocks(allf, _with(p, det_knock_crest_q12=[int(math.ceil(d["gaussian"] * 4096)) for d in knock_detail["axes"]]))
+    if knocks:
+        warnings.append(f"{knocks} training windows hold a knock on one axis that the other axes did not see (a loose or "
+                        "struck sensor, a glitching connection?): the knock limit was raised to cover them; check the "
+                        "mount and retrain on clean recordings")
     seen_stuck = allf[:, fi.F_STUCK::pa][:, :axes].max(0)
     seen_zero = allf[:, fi.F_ZERO::pa][:, :axes].max(0)
     for a in range(axes):
@@ -610,7 +623,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     idle, idle_rule, w = _idle_floor(bb, rpm, scale)
     warnings += w
     p = _with(p, det_dc_lo_q8=dc_lo, det_dc_hi_q8=dc_hi, det_clip_max=0, det_idle_vel_q16=idle,
-              det_stuck_max=[int(v) for v in stuck], det_zero_max=[int(v) for v in zero])
+              det_stuck_max=[int(v) for v in stuck], det_zero_max=[int(v) for v in zero], det_knock_crest_q12=knock)
 
     # steadiness, then the hold-off after a start
     keys, why, w = _steadiness(feats, streams, p, every)
@@ -729,6 +742,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         "sensor": {"dc_lo_m_s2": [v / 256 * scale for v in dc_lo], "dc_hi_m_s2": [v / 256 * scale for v in dc_hi],
                    "clip_max": 0, "flat_rms_m_s2": p["det_flat_rms_q8"] / 256 * scale,
                    "stuck_max": p["det_stuck_max"], "zero_max": p["det_zero_max"], "runs": run_detail,
+                   "knock_crest": [v / 4096 for v in knock], "knock_ratio": p["det_knock_ratio_q8"] / 256,
                    "rule": f"observed window means widened by their own range each side, at least +-{DC_MARGIN_G} g, within +-7/8 full scale"},
         "learned": {**learned, "speed_range_hz": [p["fc_speed_lo_q8"] / 256, p["fc_speed_hi_q8"] / 256],
                     "hold_off_s": p["det_hold_ms"] / 1000, "envelope_band": p["fc_env_band"],
@@ -807,6 +821,10 @@ def report_text(summary: dict) -> str:
     lines.append(f"sensor health: DC range per axis {dc} m/s^2; no sample at full scale; flatline under "
                  f"{sen['flat_rms_m_s2']:.4f} m/s^2 r.m.s.; a dropout is a run of more than {sen['stuck_max']} identical "
                  f"or {sen['zero_max']} zero samples per axis (from the sensor's own noise: once in 1000 months by chance)")
+    if len(sen["knock_crest"]) > 1:
+        lines.append(f"sensor coupling: a knock is a crest factor over {', '.join(f'{c:.1f}' for c in sen['knock_crest'])} "
+                     f"per axis with a peak {sen['knock_ratio']:g} times every other axis's: an impulse the housing did not "
+                     "carry to the other axes (a loose or struck sensor, a glitching connection), once in 1000 months by chance")
     for warn in s["warnings"]:
         lines.append(f"warning: {warn}")
     lines.append(f"caution: {s['caution']}")

@@ -37,7 +37,7 @@ from datetime import date, datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from host_tools.data.bearing import BearingGeometry
+from host_tools.data.bearing import geometry_from_record
 from host_tools.data.recording import RECORDING_SUFFIXES, atomic_write
 from host_tools.errors import EdgevibError
 
@@ -176,8 +176,7 @@ def parse_manifest(path: Path, raw: Any) -> Manifest:
         if not isinstance(bearing, dict):
             raise EdgevibError(f"{path}: bearing must be an object or null")
         try:
-            BearingGeometry(bearing["n_elements"], float(bearing["ball_diameter_mm"]),
-                            float(bearing["pitch_diameter_mm"]), float(bearing.get("contact_angle_deg", 0.0)))
+            geometry_from_record(bearing)
         except KeyError as e:
             raise EdgevibError(f"{path}: bearing needs {e.args[0]!r}") from None
         except (TypeError, ValueError) as e:

@@ -155,7 +155,7 @@ def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet:
             paths = w.healthy_paths
             version = (w.params["version"] + 1) if w.params else 1
             futs[w.gateway] = client.submit(work.train_gateway, w.gateway, paths, w.profile, str(out / _safe(w.gateway)),
-                                            target, seed, version, key=f"train-{w.gateway}")
+                                            target, seed, version, w.manifest.bearing, key=f"train-{w.gateway}")
     engine.watch(list(futs.values()), "fleet train", quiet)
     done, errors = _settle(plans, futs)
     doc = {"fleet": layout.read_fleet(fleet).get("name"), "target_false_alerts_per_30_days": target,

@@ -34,6 +34,7 @@ from typing import Any, Sequence
 import numpy as np
 
 from host_tools.data.analysis import BOARDS, load_board, profile_for_set, scale_of
+from host_tools.data.bearing import geometry_from_record
 from host_tools.data.files import encode_set, load_body
 from host_tools.data.recording import atomic_write, open_recording, open_stream, read_stream
 from host_tools.errors import EdgevibError
@@ -205,15 +206,19 @@ def compare_gateway(out_dir: str, results: Sequence[ReplayResult], sets: Sequenc
 # --- training and reports -------------------------------------------------------------------------
 
 def train_gateway(gateway: str, paths: Sequence[str], profile: dict, out_dir: str, false_alerts_per_month: float,
-                  seed: int, version: int) -> dict[str, Any]:
+                  seed: int, version: int, bearing: dict | None = None) -> dict[str, Any]:
     """Train a set on one gateway's healthy recordings (one stream) and write out_dir/params.msgpack,
-    params.json and params.report.txt, each whole (task). Returns what the fleet summary shows."""
+    params.json and params.report.txt, each whole (task). Returns what the fleet summary shows.
+    bearing: the manifest's bearing (layout.Manifest.bearing); it is the gateway's own record, so
+    it wins over a sidecar's, and recordings pulled by `record` (no bearing in their sidecars) still
+    get their envelope lines."""
     from host_tools.fit.training import report_text, train
 
     if not paths:
         raise EdgevibError(f"{gateway}: no healthy recordings in {layout.HEALTHY}/ to train on")
     recs = read_stream(list(paths), expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale_of(profile))
-    params, summary = train([recs], profile, false_alerts_per_month, seed=seed, version=version)
+    params, summary = train([recs], profile, false_alerts_per_month, seed=seed, version=version,
+                            bearing=geometry_from_record(bearing) if bearing else None)
     body = encode_set(params, profile)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
