@@ -860,7 +860,11 @@ class Detector:
         self.smax_q8 = top
 
     def _ew_reset(self):
-        """Start the slow channel afresh (stop, sensor fault, learning, a change of mode)."""
+        """Start the slow channel afresh (stop, sensor fault, learning, a change of mode). Only
+        _slow fills it, and it sets ew_mode, so with ew_mode -1 it is all 0 already (an idle
+        window, which forgets the evidence each time, costs no loop)."""
+        if self.ew_mode < 0:
+            return
         for j in range(self.d):
             self.ew_acc[j] = 0
         self.ew_mode = -1
