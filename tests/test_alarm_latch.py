@@ -12,7 +12,7 @@ import firmware_py  # noqa: F401
 from firmware_py.detect import alarm
 from firmware_py.store.latch import LatchFile
 from host_tools.link import Client
-from tests.test_emulate import emulator, fault_recording, param_body, run_cli, sine_recording, wait_for
+from tests.test_emulate import emulator, fault_recording, param_body, run_cli, sine_recording
 
 
 def _set(path, version, **changes):
@@ -32,7 +32,7 @@ def test_flash_rollback_reboot_and_power_cut_keep_the_latched_alarm(tmp_path, ca
     state = tmp_path / "state"
     # 30 s of zone D: longer than the factory set's hold-off and 20 s persistence span
     with emulator(fault_recording(tmp_path / "f.wav", seconds=60.0), state, speed=0) as vg:
-        assert vg.ended.wait(120)          # the recording is fed; the gateway idles, in alarm
+        assert vg.wait_until(vg.ended.is_set)          # the recording is fed; the gateway idles, in alarm
         assert vg.gateway.det.state == alarm.ALARM
         reason = vg.gateway.det.alarm.reason
         assert reason == alarm.R_ISO_D and LatchFile(str(state / "alarm.latch")).load() == reason
@@ -49,7 +49,7 @@ def test_flash_rollback_reboot_and_power_cut_keep_the_latched_alarm(tmp_path, ca
         c = Client.open(vg.port)
         try:
             c.reboot()
-            wait_for(lambda: vg.boots == 2)
+            assert vg.wait_until(lambda: vg.boots == 2)
             assert c.status()["state"] == "alarm"
         finally:
             c.close()
@@ -57,14 +57,14 @@ def test_flash_rollback_reboot_and_power_cut_keep_the_latched_alarm(tmp_path, ca
     # the alarm's clear conditions (factory set: 1 s steady and 5 s hold-off, a full 20 s span,
     # and the 60 s dwell: 80 s is enough)
     with emulator(sine_recording(tmp_path / "s.wav", seconds=80.0), state, speed=0) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         assert vg.gateway.windows > 0 and _state(vg.port) == "alarm"
         assert vg.gateway.det.alarm.reason == reason
         rc, out, _ = run_cli(capsys, "ack", "--port", vg.port)
         assert rc == 0 and out.startswith("alarm acknowledged")
         assert LatchFile(str(state / "alarm.latch")).load() == 0
     with emulator(sine_recording(tmp_path / "s.wav", seconds=1.0), state, speed=0) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         assert _state(vg.port) != "alarm"              # acknowledged stays acknowledged
 
 

@@ -110,7 +110,7 @@ def test_samples_flow_from_the_chip_model_into_features_and_detector(tmp_path):
     assert status["features"] == list(gw.core.feats)
 
 
-def test_an_alarm_saves_event_snapshots_and_shows_on_the_led(tmp_path):
+def test_an_alarm_saves_an_event_capture_and_shows_on_the_led(tmp_path):
     # Velocity r.m.s. of a sine of A counts at f Hz: A * g / 256 / (2 pi f) / sqrt(2) (handbook
     # identity; 256 counts/g, g = 9.80665 m/s^2): x 8.6 mm/s, over the factory
     # guard's zone D boundary (4.5 mm/s, ISO 10816-3 group 2 rigid, from memory).
@@ -124,13 +124,24 @@ def test_an_alarm_saves_event_snapshots_and_shows_on_the_led(tmp_path):
         if rig.app.state() == "alarm":
             break
     assert rig.app.state() == "alarm" and rig.app.gw.windows >= 10
+    # the capture records its windows after the trigger, then is written a step per pass
+    pre, post, _ = board.capture_plan(PICO)
+    for _ in range(2 * (pre + post + 2)):
+        if not rig.app.gw.snapshots.forming():
+            break
+        rig.run(CYCLE)
+    assert not rig.app.gw.snapshots.forming() and rig.app.state() == "alarm"
     events = rig.ask(1, "event_list")["events"]
     assert events and {e["kind"] for e in events} <= {"alert", "alarm"}
     assert events[-1]["kind"] == "alarm"
+    img = (tmp_path / ("ev%d.bin" % events[-1]["id"])).read_bytes()
     meta = msgpack.Unpacker()
-    meta.feed((tmp_path / ("ev%d.bin" % events[-1]["id"])).read_bytes())
-    head = next(meta)                        # the snapshot header, decoded by msgpack itself
+    meta.feed(img)
+    head = next(meta)                        # the capture's header, decoded by msgpack itself
     assert head["kind"] == "alarm" and head["n"] == N and head["axes"] == AXES
+    # every axis of the pre + post windows the profile sizes, then the CRC-32
+    assert (head["pre"], head["post"]) == (pre, post)
+    assert len(img) == meta.tell() + 2 * AXES * N * (pre + post) + 4
     t = rig.ticks_ms()
     assert rig.led() == status_led.level("alarm", t)
 

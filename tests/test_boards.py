@@ -62,11 +62,11 @@ def test_memory_need_follows_the_feature_core(monkeypatch):
 
 def test_a_profile_over_its_budget_is_refused_with_the_numbers():
     p = profile("esp32s3_iis3dwb")
-    p["ring_windows"] = 8
+    p["ring_windows"] = 20
     need = board.memory_need(p)
     with pytest.raises(board.BoardError) as e:
         board.check(p)
-    assert str(need) in str(e.value) and "131072" in str(e.value)
+    assert str(need) in str(e.value) and str(p["heap_budget_bytes"]) in str(e.value)
 
 
 def _set(path, value):
@@ -106,6 +106,10 @@ BAD = [
     (("analyse_every",), 12.5, "analyse_every"),
     # 13 windows of 1024 at 3200 Hz: 4160 ms between analysed windows, watchdog fed too seldom
     (("analyse_every",), 13, "4160 ms of samples, over 4000 ms"),
+    # 5 s of captures: 16 windows of 6144 bytes, more than the 68 444 bytes the budget leaves
+    (("capture_ms",), 5000, "event captures of 5000 ms need 98304 bytes of RAM, more than the 68444"),
+    (("capture_ms",), KeyError, "capture_ms"),
+    (("flash_free_bytes",), 100_000, "holds 0 event captures of 50180 bytes; at least 2 must fit"),
 ]
 
 
@@ -184,3 +188,59 @@ for text in %r:
         expect.append(str(e.value))
     assert res.out[len(NAMES):] == expect
     assert "power of two" in expect[0] and "not 4" in expect[1] and "spi, i2c, none" in expect[2]
+
+
+def _capture_rows():
+    """{profile: [cells]} of the table in docs/boards.md, "Event captures"."""
+    text = (Path(__file__).parent.parent / "docs" / "boards.md").read_text()
+    part = text.split("## Event captures", 1)[1].split("\n## ", 1)[0]
+    rows = {}
+    for line in part.splitlines():
+        cells = [c.strip() for c in line.strip().strip("|").split("|")]
+        if line.startswith("| ") and cells[0] in NAMES:
+            rows[cells[0]] = [c.replace(" ", "") for c in cells[1:]]
+    return rows
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_event_captures_last_2_s_fit_ram_and_flash_and_match_the_docs(name):
+    from firmware_py.store.snapshots import file_bytes, ram_bytes
+    p = board.load(str(BOARDS / (name + ".json")))
+    pre, post, slots = board.capture_plan(p)
+    n, fs, axes = p["window_n"], p["sample_rate_hz"], p["axes"]
+    # issue 11: at least 2 s in all, the windows that led to the event the larger part
+    assert (pre + post) * n >= 2 * fs and pre >= post >= 1 and p["capture_ms"] >= 2000
+    ram = ram_bytes(axes, n, pre + post)
+    assert ram == 2 * axes * n * (pre + post)                      # int16 counts, every axis
+    assert board.memory_need(p) + ram <= p["heap_budget_bytes"]
+    per_file = file_bytes(axes, n, pre + post)
+    fit = p["flash_free_bytes"] // 2 // per_file
+    assert 2 <= slots == min(fit, board.CAPTURE_SLOTS_MAX)
+    assert _capture_rows()[name] == [f"{round(pre * n / fs, 3):g}", f"{round(post * n / fs, 3):g}", str(ram), str(per_file),
+                                     str(fit), str(slots)], "update docs/boards.md, Event captures"
+
+
+def test_the_pico_capture_buffer_takes_what_the_plan_says_on_micropython():
+    """Heap the Pico's SnapshotRing takes on the WASI MicroPython (gc.mem_alloc around its
+    construction): the capture buffer's payload, the 1024-byte header writer, and at most 1024
+    bytes of object headers and bookkeeping (the allowance board.memory_need makes for the
+    core's headers); with the core's need it stays inside the profile's heap budget."""
+    from host_tools.twin.mpy_guest import run_guest
+    from firmware_py.store.snapshots import META_CAP, ram_bytes
+    p = profile("pico_adxl345")
+    pre, post, slots = board.capture_plan(p)
+    res = run_guest(f"""
+import gc
+from firmware_py.store.snapshots import SnapshotRing
+def build():
+    return SnapshotRing('/nonexistent-edgevib', {slots}, {p['sample_rate_hz']}, {p['window_n']}, {p['axes']}, {pre}, {post})
+gc.collect()
+a0 = gc.mem_alloc()
+r = build()
+gc.collect()
+emit(gc.mem_alloc() - a0)
+""")
+    heap = res.out[0]
+    payload = ram_bytes(p["axes"], p["window_n"], pre + post) + META_CAP
+    assert payload <= heap <= payload + 1024, (payload, heap)
+    assert board.memory_need(p) + heap <= p["heap_budget_bytes"]

@@ -24,7 +24,7 @@ def test_replay_is_the_gateways_event_sequence_on_one_window_in_three(tmp_path):
     params = pm.factory(profile)
     vg = VirtualGateway(rec, profile, tmp_path / "state", speed=0).start()
     try:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         det = vg.gateway.det
         device = []
         while det.events.count:

@@ -9,7 +9,7 @@ from firmware_py.run import params as params_mod
 from firmware_py.store.paramstore import build_image
 from host_tools.link import Client
 from host_tools.twin.virtual_gateway import VirtualGateway
-from tests.test_emulate import PROFILE, run_cli, sine_recording, wait_for
+from tests.test_emulate import PROFILE, run_cli, sine_recording
 
 
 def test_a_gateway_exception_is_reported_and_the_emulator_keeps_serving(tmp_path, capsys):
@@ -21,7 +21,7 @@ def test_a_gateway_exception_is_reported_and_the_emulator_keeps_serving(tmp_path
     vg.gateway.det.step = fault          # this gateway's next window raises
     vg.start()
     try:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         assert vg.faults == ["IndexError: injected fault in the window path"]
         assert "the gateway raised IndexError: injected fault" in capsys.readouterr().err
         c = Client.open(vg.port)

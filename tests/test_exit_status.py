@@ -60,7 +60,7 @@ def test_a_silent_port_exits_3_and_a_refusal_exits_2(tmp_path, capsys):
     key.write_bytes(KEY)
     with emulator(sine_recording(tmp_path / "s.wav", seconds=1.0), tmp_path / "state", speed=0,
                   key=KEY) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         rc, out, err = run_cli(capsys, "ack", "--port", vg.port)             # unsigned
         assert rc == 2 and _one_line(err) and "needs a signature" in err
         rc, out, err = run_cli(capsys, "learn", "--start", "--port", vg.port)

@@ -2,24 +2,28 @@
 of a virtual gateway running in a thread (real firmware_py Gateway, Service and parameter store)."""
 import binascii
 import io
+import json
 import math
 import re
+from datetime import datetime, timezone
 
 import numpy as np
 import pytest
 
 import firmware_py  # noqa: F401
-from firmware_py.run import params as params_mod
+from firmware_py.detect import alarm
+from firmware_py.run import board, params as params_mod
 from firmware_py.store.paramstore import build_image
 from host_tools.twin import virtual_gateway
 from host_tools.commands import flash as flash_cmd
 from host_tools.commands import monitor as monitor_cmd
 from host_tools.commands import record as record_cmd
-from host_tools.errors import LinkError
+from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import Client
-from host_tools.data.recording import read_recording
+from host_tools.data import units
+from host_tools.data.recording import read_recording, write_wav
 from tests.test_emulate import (
-    CPG, FS, M_S2_PER_COUNT, N, PROFILE, REPO, SINES, emulator, fault_recording, param_body, run_cli,
+    CPG, FS, M_S2_PER_COUNT, N, PROFILE, REPO, SINES, T0, emulator, fault_recording, param_body, run_cli,
     sine_recording)
 
 KEY = b"brackwater site key, pumps P-101 and P-102"
@@ -29,7 +33,7 @@ KEY = b"brackwater site key, pumps P-101 and P-102"
 def idle_gateway(tmp_path):
     """A virtual gateway that has played 3 s of sines and now idles, answering the link."""
     with emulator(sine_recording(tmp_path / "s.wav", seconds=3.0), tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         yield vg
 
 
@@ -212,7 +216,6 @@ def test_monitor_redraws_a_fixed_block_in_place(idle_gateway):
 def _demo_recording(path, seconds):
     """Invented demo data (P-101, a healthy day), varied enough for sample-exact comparison."""
     from host_tools.data import demo_scenario as ds
-    from host_tools.data.recording import write_wav
     sc = ds.build_scenario()
     snap = ds.Snapshot("P-101", sc.start_t0_s + 3.5 * 86400, seconds)
     return write_wav(path, ds.synthesize(sc, snap), ds.FS_HZ, ds.snapshot_sidecar(sc, snap))
@@ -233,6 +236,7 @@ def test_record_equals_the_source_samples(tmp_path, capsys):
     assert side["m_s2_per_unit"] == pytest.approx(9.80665 / CPG, rel=1e-12)   # ISO 80000-3 gravity
     assert got.t0_s == pytest.approx(src.t0_s + first / FS, abs=1.0)          # the clock ticks in s
     assert got.axes == ("x", "y", "z") and side["param_version"] == 0
+    assert side["full_scale"] == PROFILE["sensor"]["adc_max"]           # the desk's converter
     assert not vg.gateway.raw_on                                              # stream stopped
 
 
@@ -312,16 +316,18 @@ def test_record_bad_input(idle_gateway, tmp_path, capsys):
     assert list(tmp_path.glob("a.*")) == []
 
 
-def test_events_are_the_windows_that_raised_them(tmp_path, capsys):
+def test_events_are_the_windows_around_the_alarm_and_check_train_replay_take_them(tmp_path, capsys):
     # 30 s of zone D after 30 s of normal running: a full persistence span (20 s) in zone D raises
     # the alarm directly (no alert first: zone D is an absolute limit)
     rec = fault_recording(tmp_path / "fault.wav", seconds=60.0)
     src = read_recording(rec)
+    pre, post, _ = board.capture_plan(PROFILE)
     with emulator(rec, tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         rc, out, err = run_cli(capsys, "events", "--port", vg.port, "--out", tmp_path / "ev")
-        assert rc == 0 and "pulled 1 event snapshot" in out
+        assert rc == 0 and "pulled 1 event capture " in out
         on_device = {e["id"]: e for e in vg.gateway.snapshots.list()}
+        latched = alarm.REASON_NAMES[vg.gateway.det.alarm.reason]
         # filed into a fleet folder instead: the same files in the gateway's captures/
         fleet = tmp_path / "fleet"
         assert run_cli(capsys, "fleet", "init", fleet, "--gateway", "gw1", "--pump", "P-101", "--site", "Brackwater",
@@ -334,32 +340,59 @@ def test_events_are_the_windows_that_raised_them(tmp_path, capsys):
     assert filed and all(p.read_bytes() == (tmp_path / "ev" / p.name).read_bytes() for p in filed)
     wavs = sorted((tmp_path / "ev").glob("*.wav"))
     assert [p.name for p in wavs] == ["event_00000_alarm.wav"]
+    wav = wavs[0]
+    got = read_recording(wav)
+    side = got.sidecar
+    # ONE recording of pre + post whole windows of every axis, contiguous in the source, at a
+    # window boundary: the window that raised the alarm (k) is the last of the pre windows.
+    assert got.n_frames == (pre + post) * N and got.counts.shape[1] == PROFILE["axes"] == 3
+    at = [j for j in range(src.n_frames // N - (pre + post) + 1)
+          if np.array_equal(src.counts[j * N:(j + pre + post) * N], got.counts)]
+    assert len(at) == 1
+    k = at[0] + pre - 1
+    assert k >= src.n_frames // 2 // N                                  # after the imbalance began
+    assert side["t"] == int(src.t0_s) + (k + 1) * N // FS               # the clock at its end, in s
+    assert side["pre_trigger_s"] == pre * N / FS and side["post_trigger_s"] == post * N / FS
+    assert side["full_scale"] == PROFILE["sensor"]["adc_max"]          # clipping judged there
+    assert side["t0_s"] == side["t"] - pre * N / FS
+    assert side["time_utc"] == datetime.fromtimestamp(side["t"], timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
+    assert side["kind"] == side["state"] == "alarm" == on_device[side["event_id"]]["kind"]
+    assert side["reason"] == latched == "iso_d"          # zone D on the persistence span
+    # its features are the ones the feature core computes for window k
+    trig = got.counts[(pre - 1) * N:pre * N]
     core = params_mod.feature_core(params_mod.factory(PROFILE), PROFILE)
-    half_window = src.n_frames // 2 // N
-    for p in wavs:
-        got = read_recording(p)
-        side = got.sidecar
-        # The raw window must be one whole window of the source, at a window boundary, after the
-        # loud imbalance began.
-        at = [k for k in range(src.n_frames // N) if np.array_equal(src.counts[k * N:(k + 1) * N], got.counts)]
-        assert len(at) == 1 and at[0] >= half_window
-        k = at[0]
-        assert side["t"] == int(src.t0_s) + (k + 1) * N // FS             # saved right after window k
-        assert side["kind"] == p.stem.split("_")[2] == on_device[side["event_id"]]["kind"]
-        # its features are the ones the feature core computes for that window
-        core.ring.push(np.ascontiguousarray(got.counts).ravel(), N)
-        assert core.process()
-        core.ring.release()
-        assert side["features"] == list(core.feats)
-        # velocity r.m.s. 10-1000 Hz from numpy: Hann window, spectrum divided by (2 pi f)^2
-        x = got.counts[:, 0] * M_S2_PER_COUNT
-        w = np.hanning(N + 1)[:N]
-        spec = np.abs(np.fft.rfft((x - x.mean()) * w)) ** 2 * 2 / (np.sum(w ** 2) * N)
-        f = np.fft.rfftfreq(N, 1 / FS)
-        band = (f >= 10) & (f <= 1000)
-        v_rms = math.sqrt(np.sum(spec[band] / (2 * math.pi * f[band]) ** 2)) * 1000
-        assert side["features_summary"]["x"]["vel_mm_s"] == pytest.approx(v_rms, rel=0.05)
-        assert v_rms > 7.1      # the added 12 mm/s imbalance: above zone D of every default table
+    core.ring.push(np.ascontiguousarray(trig).ravel(), N)
+    assert core.process()
+    core.ring.release()
+    assert side["features"] == list(core.feats)
+    assert side["feature"] == units.feature_name(side["feature_index"], params_mod.factory(PROFILE), ("x", "y", "z"))
+    # velocity r.m.s. 10-1000 Hz from numpy: Hann window, spectrum divided by (2 pi f)^2
+    x = trig[:, 0] * M_S2_PER_COUNT
+    w = np.hanning(N + 1)[:N]
+    spec = np.abs(np.fft.rfft((x - x.mean()) * w)) ** 2 * 2 / (np.sum(w ** 2) * N)
+    f = np.fft.rfftfreq(N, 1 / FS)
+    band = (f >= 10) & (f <= 1000)
+    v_rms = math.sqrt(np.sum(spec[band] / (2 * math.pi * f[band]) ** 2)) * 1000
+    assert side["features_summary"]["x"]["vel_mm_s"] == pytest.approx(v_rms, rel=0.05)
+    assert v_rms > 7.1      # the added 12 mm/s imbalance: above zone D of every default table
+    # The capture is a recording like any other: check (no call to record longer), train, replay.
+    rc, out, err = run_cli(capsys, "check", wav, "--json", tmp_path / "check.json")
+    assert rc == 0, err
+    report = json.loads((tmp_path / "check.json").read_text())
+    length = [i for i in report["items"] if i["name"] == "length"]
+    assert length and length[0]["verdict"] == "ok" and "record at least" not in out
+    # train takes it beside a healthy recording (one capture alone is too short to learn from:
+    # training asks for 50 steady windows), as an engineer adds a false alert's capture
+    from tests.test_training import healthy_stream
+    healthy = tmp_path / "healthy"
+    healthy.mkdir()
+    for r in healthy_stream(seed=8, per_point=2):
+        write_wav(healthy / r.path.name, r.counts, FS, {"m_s2_per_unit": r.m_s2_per_count, "t0_s": r.t0_s, "rpm": r.rpm})
+    rc, out, err = run_cli(capsys, "train", healthy, wav, "--out", tmp_path / "set.msgpack")
+    assert rc == 0 and f"{len(list(healthy.glob('*.wav'))) + 1} recordings" in err, err
+    rc, out, err = run_cli(capsys, "replay", wav, "--params", tmp_path / "set.msgpack", "--json", tmp_path / "r.json")
+    assert rc == 0, err
+    assert json.loads((tmp_path / "r.json").read_text())["summary"]["total"]["windows"] > 0
 
 
 def test_events_bad_output(idle_gateway, tmp_path, capsys):
@@ -367,7 +400,7 @@ def test_events_bad_output(idle_gateway, tmp_path, capsys):
     rc, out, err = run_cli(capsys, "events", "--port", idle_gateway.port, "--out", tmp_path / "file")
     assert rc == 2 and _one_line(err) and "not a folder" in err
     rc, out, err = run_cli(capsys, "events", "--port", idle_gateway.port, "--out", tmp_path / "none")
-    assert rc == 0 and "pulled 0 event snapshots" in out
+    assert rc == 0 and "pulled 0 event captures" in out
 
 
 def _on_a_terminal(*argv):
@@ -393,7 +426,7 @@ def _on_a_terminal(*argv):
             break
         text += chunk
     os.close(master)
-    return proc.wait(120), text.decode(errors="replace")
+    return proc.wait(), text.decode(errors="replace")
 
 
 def test_terminal_views(idle_gateway, tmp_path):
@@ -402,3 +435,48 @@ def test_terminal_views(idle_gateway, tmp_path):
     f = _set_file(tmp_path / "v4.msgpack", 4, note="x" * 6000)      # 14 chunks
     rc, text = _on_a_terminal("flash", f, "--port", idle_gateway.port)
     assert rc == 0 and "upload:" in text and "flashed version 4" in text     # tqdm's bar on stderr
+
+
+def test_events_reports_a_damaged_capture_and_writes_the_others(tmp_path):
+    """A capture whose CRC fails on the way from the gateway is named, not written; the next
+    one is written whole (the CRC is binascii's CRC-32, ISO-HDLC)."""
+    from firmware_py.dsp import feature_index as fi
+    from firmware_py.store.snapshots import SnapshotRing
+    from host_tools.commands import events as events_cmd
+    from tests.captures import save_capture
+    ring = SnapshotRing(str(tmp_path), 4, FS, N, 3)
+    win = np.arange(N * 3, dtype=np.int16).tobytes()
+    params = params_mod.factory(PROFILE)
+    per_axis = fi.per_axis(len(params["fc_bands"]))
+    for k in range(2):
+        save_capture(ring, "alert", int(T0) + k, [0] * (3 * per_axis), win)
+    good = ring.read(1, 0, ring.size(1))
+    bad = bytearray(ring.read(0, 0, ring.size(0)))
+    bad[len(bad) // 2] ^= 1
+    assert int.from_bytes(good[-4:], "little") == binascii.crc32(good[:-4])
+
+    class Device:
+        def event_read(self, sid):
+            return bytes(bad) if sid == 0 else good
+    saved, lost = [], []
+    for e in ring.list():
+        events_cmd._pull(Device(), e, tmp_path, params, "desk", saved, lost)
+    assert [p.name for p in saved] == ["event_00001_alert.wav"] and len(lost) == 1
+    assert lost[0].startswith("0 (damaged on the gateway") and "CRC" in lost[0]
+    assert np.array_equal(read_recording(saved[0]).counts, np.arange(N * 3, dtype=np.int16).reshape(3, N).T)
+
+
+@pytest.mark.parametrize("name", ["desk", "esp32s3_iis3dwb", "pico_adxl345"])
+def test_every_boards_captures_are_long_enough_for_check(name):
+    """A capture of each board holds the windows `check` wants before it calls its averages
+    rough, at the board's window (check --board) and at the desk's own window for the rate
+    (check on the file alone); check's windows do not overlap (13 of
+    512 in 2.08 s above)."""
+    from host_tools.check.commission import FEW_WINDOWS
+    from host_tools.data.analysis import window_for
+    p = board.load(str(REPO / "boards" / f"{name}.json"))
+    pre, post, _ = board.capture_plan(p)
+    frames = (pre + post) * p["window_n"]
+    assert frames // p["window_n"] >= FEW_WINDOWS
+    desk_n = window_for(p["sample_rate_hz"], None)     # at 26.667 kHz the longest, 4096
+    assert frames // desk_n >= FEW_WINDOWS

@@ -7,6 +7,7 @@ import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import ParamStore, build_image
 from firmware_py.link.service import Service
 from firmware_py.store.snapshots import SnapshotRing, parse
+from tests.captures import save_capture
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import Client, DeviceRefused, Link, open_transport
 from host_tools.link.transport import PtyTransport, memory_pair
@@ -48,7 +49,7 @@ def test_every_command_in_memory(tmp_path):
     assert gw.streaming and gw.learning and gw.clock == 1_780_000_000
     assert c.acknowledge() is True and c.acknowledge() is False
     assert c.capture() == gw.raw                      # 1536 bytes over several chunks
-    gw.snapshots.save("alarm", 9, [1, 2, 3], bytes(range(256)) * 6)
+    save_capture(gw.snapshots, "alarm", 9, [1, 2, 3], bytes(range(256)) * 6)
     [e] = c.event_list()
     meta, raw = parse(c.event_read(e["id"]))
     assert meta["kind"] == "alarm" and raw == bytes(range(256)) * 6

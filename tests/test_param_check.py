@@ -172,7 +172,7 @@ def test_host_commands_refuse_the_sets_with_one_line(tmp_path, capsys):
         err = capsys.readouterr().err
         assert err.count("\n") == 1 and err.startswith("edgevib: error: ") and says in err, err
     with emulator(rec, tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         for f, says in ((bad, "'det_axes' is 8"), (nulls, "'fc_bands' must be a list")):
             assert cli.main(["flash", str(f), "--port", vg.port]) == 2
             err = capsys.readouterr().err

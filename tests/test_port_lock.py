@@ -9,13 +9,13 @@ import pytest
 
 from host_tools.link import Client
 from host_tools.link.port_lock import PortBusy, PortLock, lock_path
-from tests.test_emulate import REPO, emulator, param_body, run_cli, sine_recording, wait_for
+from tests.test_emulate import REPO, emulator, param_body, run_cli, sine_recording
 
 
 @pytest.fixture
 def idle(tmp_path):
     with emulator(sine_recording(tmp_path / "s.wav", seconds=2.0), tmp_path / "state", speed=0) as vg:
-        assert vg.ended.wait(120)
+        assert vg.wait_until(vg.ended.is_set)
         yield vg
 
 
@@ -43,17 +43,18 @@ def test_the_lock_goes_with_a_killed_holder(idle, capsys):
     proc = subprocess.Popen([sys.executable, "-m", "host_tools.cli", "monitor", "--port", idle.port],
                             cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
-        wait_for(lambda: proc.poll() is not None or os.path.exists(lock_path(idle.port)) and
-                 "monitor" in open(lock_path(idle.port)).read())
-        assert proc.poll() is None
+        # its first update line (a blocking read: it ends with that line, or at end of file if
+        # the monitor exited) comes after it took the lock
+        assert proc.stdout.readline(), proc.stderr.read()
+        assert proc.poll() is None and "monitor" in open(lock_path(idle.port)).read()
         rc, out, err = run_cli(capsys, "ack", "--port", idle.port)
         assert rc == 2 and "in use by pid %d: edgevib monitor" % proc.pid in err
         proc.send_signal(signal.SIGKILL)
-        proc.wait(120)
+        proc.wait()
     finally:
         if proc.poll() is None:
             proc.kill()
-            proc.wait(120)
+            proc.wait()
     rc, out, err = run_cli(capsys, "ack", "--port", idle.port)
     assert rc == 0 and out.startswith("no alarm was latched"), err
 

@@ -9,6 +9,7 @@ from firmware_py.link import frames
 from firmware_py.store.paramstore import ParamStore, build_image
 from firmware_py.link.service import Service
 from firmware_py.store.snapshots import SnapshotRing
+from tests.captures import save_capture
 from host_tools.twin.mpy_guest import run_guest
 from tests.engines import ENGINES
 
@@ -205,7 +206,7 @@ def test_commands_reach_the_gateway(tmp_path):
         if len(got) >= r["total"]:
             break
     assert got == gw.raw
-    gw.snapshots.save("alarm", 5, [1, 2], bytes(BOARD["n"] * 6))
+    save_capture(gw.snapshots, "alarm", 5, [1, 2], bytes(BOARD["n"] * 6))
     [r] = call(svc, out, req(50, "event_list"))
     assert r["events"][0]["kind"] == "alarm"
     out.clear()

@@ -10,7 +10,7 @@ The gateway object this handler drives must provide:
 
   attributes
     params     firmware_py.store.paramstore.ParamStore: the committed set and the staging area
-    snapshots  firmware_py.store.snapshots.SnapshotRing: the event snapshots
+    snapshots  firmware_py.store.snapshots.SnapshotRing: the event captures (list, size, read)
   methods (results are plain dicts/lists/ints/str/bytes; none may block for long)
     info()            -> {fw: str, board: str, fs_hz: int, n: int, axes: int,
                           analyse_every: int, uptime_s: int, heap_free: int}
@@ -205,11 +205,14 @@ class Service:
         self.errors = sat_add(self.errors, 1)
         return {"seq": seq, "ok": False, "err": code, "msg": text}
 
-    def _chunk(self, req, blob, total):
+    def _span(self, req):
+        """(off, len) of the chunk a read request asks for; len at most self.chunk."""
         off = _arg(req, "off", int, 0)
         k = _arg(req, "len", int, self.chunk)
-        if k > self.chunk:
-            k = self.chunk
+        return off, (k if k < self.chunk else self.chunk)
+
+    def _chunk(self, req, blob, total):
+        off, k = self._span(req)
         return {"total": total, "off": off, "data": bytes(blob[off:off + k])}
 
     # ---- commands ----
@@ -274,9 +277,11 @@ class Service:
         sid = _arg(req, "id", int)
         snaps = self.gw.snapshots
         total = snaps.size(sid)
-        if total is None:
+        off, k = self._span(req)
+        data = None if total is None else snaps.read(sid, off, k)    # only this chunk from flash
+        if data is None:
             raise _Missing("no event %d" % sid)
-        return self._chunk(req, snaps.read(sid, 0, total), total)
+        return {"total": total, "off": off, "data": data}
 
     def _capture(self, req):
         if _arg(req, "off", int, 0) == 0 or self._raw is None:

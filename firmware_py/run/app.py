@@ -34,7 +34,7 @@ from firmware_py.drivers import driver_module, open_sensor
 from firmware_py.run.gateway import Gateway
 from firmware_py.store.paramstore import ParamStore
 from firmware_py.link.service import Service
-from firmware_py.store.snapshots import SnapshotRing
+from firmware_py.run.board import snapshot_ring
 from firmware_py.run.status_led import StatusLed
 
 CRASH_LIMIT = const(3)         # unhealthy boots in a row before safe mode
@@ -42,7 +42,6 @@ HEALTHY_MS = const(60_000)     # running this long without a reset clears the bo
 STALL_MS = const(2_000)        # no samples for this long while sampling: sensor fault
 WDT_MS = const(8_000)          # watchdog timeout; the RP2040's longest is 8388 ms (from memory)
 GRACE_MS = const(3_000)        # after reset, before the link takes the console: Ctrl-C -> REPL
-SNAPSHOT_SLOTS = const(8)
 _TICKS_MASK = const(0x3FFFFFFF)   # time.ticks_ms wraps at 2**30
 _RX_CHUNK = const(64)             # link bytes handled per pass
 # Timer ids: the rp2 port has virtual timers only (-1), the esp32 port hardware timers 0..3
@@ -229,7 +228,7 @@ class App:
         factory = mpack.packb(params_mod.factory(profile))
         store = ParamStore(root, profile["name"], fs, n, axes, factory, site_key(root),
                            gateway_id=gateway_id(machine))
-        snaps = SnapshotRing(root, SNAPSHOT_SLOTS, fs, n, axes)
+        snaps = snapshot_ring(profile, root)   # sized once from the profile (board.capture_plan)
         if self.safe and store.source == "cur" and store.previous_version() is not None:
             # Crashing boots on a set that has a previous one: the set goes aside and the
             # previous set gets a fresh count; safe mode only if that one crashes too.

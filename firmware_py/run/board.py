@@ -3,7 +3,13 @@ load() reads one on the device with the json module, checks every field and refu
 reason, a profile that is malformed or whose buffers cannot fit its heap budget. Start-up only:
 it allocates freely. All values are integers (no floats needed to read or check a profile).
 
-Entry points: BoardError, check(), memory_need(), load()."""
+Event captures (firmware_py/store/snapshots.py) are sized here too, once, from the profile:
+capture_plan() turns `capture_ms` into whole windows before and after the trigger, checks
+their RAM against what heap_budget_bytes leaves after memory_need(), and keeps as many
+captures on flash as half of `flash_free_bytes` holds (at most CAPTURE_SLOTS_MAX; the other
+half stays for the parameter files, the state files and the filesystem's own blocks).
+
+Entry points: BoardError, check(), memory_need(), capture_plan(), snapshot_ring(), load()."""
 from micropython import const
 
 _FAMILIES = ("rp2040", "esp32s3", "host")
@@ -17,6 +23,8 @@ _MAX_EVERY = const(64)
 # The application feeds its 8 s watchdog once per analysed window (app.WDT_MS), so analysed
 # windows must come at least twice that often.
 MAX_CYCLE_MS = const(4000)
+CAPTURE_SLOTS_MAX = const(8)   # captures kept on flash at most (oldest overwritten)
+_CAPTURE_MIN_SLOTS = const(2)  # fewer and one capture being written could leave none to pull
 
 
 class BoardError(ValueError):
@@ -96,6 +104,8 @@ def check(p):
     if led is not None:
         _int(p, "led_pin", 0, 63)
     _int(p, "n_bands", 1, _MAX_BANDS)
+    _int(p, "capture_ms", 1, 60_000)
+    _int(p, "flash_free_bytes", 0, 1 << 30)
     from firmware_py.drivers import driver_module
     drv = driver_module(sensor["model"])
     if drv is None and sensor["model"] != "virtual":
@@ -116,6 +126,7 @@ def check(p):
     if need > p["heap_budget_bytes"]:
         raise BoardError("%s needs %d bytes of heap, more than heap_budget_bytes %d"
                          % (name, need, p["heap_budget_bytes"]))
+    capture_plan(p)
     return p
 
 
@@ -133,6 +144,40 @@ def memory_need(p):
     else:
         need += 2 * axes * p["fifo_watermark"]      # the virtual sensor's block
     return need + _HEADERS
+
+
+def capture_plan(p):
+    """(pre, post, slots) for the event captures of profile p: windows kept before the trigger
+    (the trigger window included), windows recorded after it, and captures kept on flash.
+    capture_ms becomes whole windows (rounded up), the larger half before the trigger; their
+    RAM (2 * axes * window_n bytes a window) must fit what heap_budget_bytes leaves after
+    memory_need(p), and at least 2 capture files must fit half of flash_free_bytes; BoardError
+    with the reason otherwise."""
+    from firmware_py.store.snapshots import file_bytes, ram_bytes
+    n = p["window_n"]
+    axes = p["axes"]
+    fs = p["sample_rate_hz"]
+    total = (p["capture_ms"] * fs + 1000 * n - 1) // (1000 * n)      # whole windows, rounded up
+    post = total // 2
+    pre = total - post
+    ram = ram_bytes(axes, n, total)
+    room = p["heap_budget_bytes"] - memory_need(p)
+    if ram > room:
+        raise BoardError("event captures of %d ms need %d bytes of RAM, more than the %d that "
+                         "heap_budget_bytes leaves" % (p["capture_ms"], ram, room))
+    slots = (p["flash_free_bytes"] // 2) // file_bytes(axes, n, total)
+    if slots < _CAPTURE_MIN_SLOTS:
+        raise BoardError("half of flash_free_bytes %d holds %d event captures of %d bytes; at "
+                         "least %d must fit" % (p["flash_free_bytes"], slots,
+                                                file_bytes(axes, n, total), _CAPTURE_MIN_SLOTS))
+    return pre, post, min(slots, CAPTURE_SLOTS_MAX)
+
+
+def snapshot_ring(p, root):
+    """The event captures' SnapshotRing for checked profile p, its files under root."""
+    from firmware_py.store.snapshots import SnapshotRing
+    pre, post, slots = capture_plan(p)
+    return SnapshotRing(root, slots, p["sample_rate_hz"], p["window_n"], p["axes"], pre, post)
 
 
 def load(path):

@@ -3,9 +3,10 @@ out, and the object the link's command handler (service.py) drives. The same cla
 board (main.py feeds it from the accelerometer driver) and on the desk (the virtual gateway
 feeds it from a recording), so what the host sees is what the device does.
 
-Per window (window()): FeatureCore.process, the raw copy and Detector.step allocate nothing and
-may run with the heap locked. Saving a snapshot and answering the link allocate; poll() does
-those after the window, outside any lock.
+Per window (window()): FeatureCore.process, the raw copy (also into the event capture's
+history, SnapshotRing.keep) and Detector.step allocate nothing and may run with the heap locked.
+Starting and writing an event capture and answering the link allocate; poll() does those after
+the window, outside any lock.
 
 Duty cycle (profile key analyse_every, K): of every K windows of frames only the first goes to
 the ring and is analysed; feed() discards the other K - 1 on purpose and counts them in
@@ -172,6 +173,7 @@ class Gateway:
         k = self.windows % len(g)
         self.raw_gap = g[k]
         g[k] = 0
+        self.snapshots.keep(self.raw, self.raw_gap)    # the event capture's history
         d = self.unseen              # no jump between read and reset: a soft timer cannot split it
         self.unseen = 0
         d = sat_add(d, self.unseen_up)
@@ -188,13 +190,12 @@ class Gateway:
         return True
 
     def poll(self):
-        """Process every waiting window, then do the work that allocates: snapshots, stream."""
+        """Process every waiting window, then do the work that allocates: captures, stream;
+        then one step of writing a whole capture to flash (also while no windows come)."""
         while self.window():
             self._keep_latch()
             if self.pending_kind is not None:
-                kind = alarm.STATE_NAMES[self.pending_kind]
-                self.pending_kind = None
-                self.snapshots.save(kind, self.now_s(), self.core.feats, self.raw)
+                self._capture(self.pending_kind)
             if self.streaming and self.service is not None:
                 self.service.push(self.status())
             if self.raw_on and self.service is not None:
@@ -202,6 +203,19 @@ class Gateway:
                 self.service.push_data("raw", {"w": (self.windows - 1) % self.wrap, "gap": self.raw_gap,
                                                "t_s": self.now_s(), "ms": t % 1000},
                                        bytes(self.raw))
+        self.snapshots.work()
+
+    def _capture(self, state):
+        """Start the event capture of the window just processed, which moved the detector to
+        state: its features and the transition the detector recorded for it (the newest entry
+        of its event ring)."""
+        kind = alarm.STATE_NAMES[state]
+        self.pending_kind = None
+        ev = self.det.events
+        i = ev.head - 1 if ev.head else ev.cap - 1
+        self.snapshots.trigger(kind, self.now_s(), self.core.feats,
+                               {"reason": ev.reason[i], "feature": ev.feat[i],
+                                "score_q8": ev.score_q8[i], "mode": ev.mode[i]})
 
     def uptime_s(self):
         """Seconds since start, from the frames fed so far (allocation-free)."""

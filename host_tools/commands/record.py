@@ -11,7 +11,8 @@ of the gateway's sample stream from the first window received.
 
 Sidecar: m_s2_per_unit from the committed set's counts_per_g, sample_rate_hz, axis names, t0_s
 from the gateway's clock (to the millisecond of its tick counter; as good as the clock was set),
-and where it came from (board, firmware, parameter version, first window index).
+where it came from (board, firmware, parameter version, first window index), and full_scale
+(the converter's, from this host's profile of the board, if it has one).
 
 With --fleet FLEET --gateway ID instead of --out, the recording is filed into that gateway's
 archive/ in the fleet folder (host_tools.fleet.layout), named <ID>_<UTC time>.wav.
@@ -27,7 +28,8 @@ from pathlib import Path
 import numpy as np
 
 from host_tools.data.units import m_s2_per_count
-from host_tools.link.device_link import add_key_argument, committed_params, connected, raw_frames, read_key
+from host_tools.link.device_link import (add_key_argument, board_full_scale, committed_params, connected, raw_frames,
+                                         read_key)
 from host_tools.progress import start
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.data.recording import write_wav
@@ -193,6 +195,7 @@ def _write_parts(out: Path, col: _Collector, frames_wanted: int, scale: float,
             "firmware": info["fw"],
             "param_version": info["param_version"],
             "first_window": part.w0,
+            **board_full_scale(info["board"]),
         }
         written.append((write_wav(part_path(out, k), counts, col.fs, sidecar), len(counts)))
     return written

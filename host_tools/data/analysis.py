@@ -9,7 +9,8 @@ and the stock boards/desk.json keeps its meaning) is what a virtual gateway woul
 - window length n: the shortest power of two (512 at least, 4096 at most) whose bin width
   fs / n puts 1x at the lowest shaft speed named in the sidecars at bin RESOLVE_BINS or above,
   clear of the Hann window's DC leakage (bins 0 and 1, whose main lobe is 2 bins wide each side:
-  Harris 1978); without a speed, the desk board's 0.16 s window (n = fs * 0.16, rounded up);
+  Harris 1978); without a speed, the desk board's 0.16 s window (n = fs * 0.16, rounded up,
+  but at most 4096: at 26.667 kHz that is 0.154 s, and no speed asks for more);
 - counts scale and full scale: from the sample format, or from the optional sidecar keys
   full_scale (the sensor's full scale in the file's units, e.g. 4095 for 13-bit data stored as
   int16, or 16.0 for float data in g) and m_s2_per_count. int16 data keeps its own resolution
@@ -60,13 +61,12 @@ def window_for(fs_hz: int, lowest_rpm: float | None) -> int:
     if lowest_rpm:
         need = RESOLVE_BINS * fs_hz * 60.0 / lowest_rpm
     else:
-        need = DESK_WINDOW_S * fs_hz
+        need = min(DESK_WINDOW_S * fs_hz, MAX_N)    # a default, not a requirement: never refused
     n = MIN_N
     while n < need - 1e-9:
         n *= 2
     if n > MAX_N:
-        why = f"1x at {lowest_rpm:g} r/min" if lowest_rpm else "the window"
-        raise EdgevibError(f"{why} at {fs_hz} Hz needs windows longer than {MAX_N} samples, "
+        raise EdgevibError(f"1x at {lowest_rpm:g} r/min at {fs_hz} Hz needs windows longer than {MAX_N} samples, "
                            "the longest a gateway computes; record at a lower rate")
     return n
 

@@ -82,7 +82,8 @@ class Client:
         return self.link.request("event_list")["events"]
 
     def event_read(self, sid: int) -> bytes:
-        """The snapshot file image (parse with firmware_py.store.snapshots.parse)."""
+        """An event capture's file image, read a chunk per request (parse with
+        firmware_py.store.snapshots.parse, which checks its CRC)."""
         return self._read_all("event_read", id=sid)
 
     def capture(self) -> bytes:

@@ -1,8 +1,10 @@
 """What the host commands share about a connected gateway: opening it by --port, the site key
-file, the committed parameter set, and raw windows as numpy frames."""
+file, the committed parameter set, raw windows as numpy frames, and the converter's full scale
+for a sidecar."""
 from __future__ import annotations
 
 import contextlib
+import json
 from typing import Iterator
 
 import msgpack
@@ -10,6 +12,7 @@ import numpy as np
 
 import firmware_py  # noqa: F401
 from firmware_py.store.paramstore import FLAG_SIGNED, MAGIC
+from host_tools.data.analysis import BOARDS
 from host_tools.errors import EdgevibError, LinkError
 from host_tools.link import Client
 
@@ -65,8 +68,21 @@ def committed_params(c: Client) -> dict:
     return image_body(c.param_read())
 
 
-def raw_frames(raw: bytes, n: int, axes: int) -> np.ndarray:
-    """Raw window bytes (int16 little-endian counts, axis-major) as int16 frames x axes."""
-    if len(raw) != 2 * n * axes:
-        raise LinkError(f"raw window of {len(raw)} bytes, expected {2 * n * axes} ({n} x {axes} axes)")
-    return np.frombuffer(raw, dtype="<i2").reshape(axes, n).T.astype(np.int16)
+def raw_frames(raw: bytes, n: int, axes: int, windows: int = 1) -> np.ndarray:
+    """Raw windows' bytes (each int16 little-endian counts, axis-major; windows in time order)
+    as int16 frames x axes."""
+    if len(raw) != 2 * n * axes * windows:
+        raise LinkError(f"raw data of {len(raw)} bytes, expected {2 * n * axes * windows} "
+                        f"({windows} windows of {n} x {axes} axes)")
+    x = np.frombuffer(raw, dtype="<i2").reshape(windows, axes, n)
+    return x.transpose(0, 2, 1).reshape(windows * n, axes).astype(np.int16)
+
+
+def board_full_scale(name: str) -> dict:
+    """{"full_scale": adc_max} from this host's profile of board `name` (boards/NAME.json), so
+    that `check` judges clipping at the converter's range rather than the int16 limits; {} when
+    the host has no profile of that name."""
+    path = BOARDS / f"{name}.json"
+    if "/" in name or not path.is_file():
+        return {}
+    return {"full_scale": json.loads(path.read_text())["sensor"]["adc_max"]}

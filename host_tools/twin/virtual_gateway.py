@@ -13,9 +13,9 @@ as against a board.
   boot (frames * 1000 / fs), and the wall clock starts at the recording's t0_s (0 if it has
   none) at the position where the gateway booted, like a board with a battery-backed clock.
   The `clock` command moves it as on a board.
-- State: the parameter store and the event snapshots are files in state_dir, so stopping the
+- State: the parameter store and the event captures are files in state_dir, so stopping the
   emulator and starting another on the same folder is a power cut. `reboot` rebuilds the store,
-  snapshots, gateway and command handler from those files, as a boot would; samples keep coming
+  event captures, gateway and command handler from those files, as a boot would; samples keep coming
   from where the recording had got to.
 - Link: os.openpty(); the slave end is put in raw mode (termios) and its name is .port, which a
   host opens with pyserial. Replies are always queued; the pushes (stream, raw) of a window are
@@ -23,7 +23,8 @@ as against a board.
   reading fast enough (counted in push_dropped, frames), as a slow link would lose them; the raw
   stream's window indices show the loss.
 
-Run it in a thread for tests (start() / stop()), or in the foreground with run().
+Run it in a thread for tests (start() / stop(); wait_until(cond) blocks until cond() holds, with
+no timeout), or in the foreground with run().
 
 Entry points: load_profile(), VirtualGateway.
 """
@@ -49,13 +50,11 @@ from firmware_py.run.gateway import Gateway
 from firmware_py.store.paramstore import ParamStore
 from firmware_py.link.service import Service
 from firmware_py.store.latch import LatchFile
-from firmware_py.store.snapshots import SnapshotRing
 from host_tools.errors import EdgevibError
 from host_tools.data.recording import read_recording
 from host_tools.data.units import STANDARD_GRAVITY_M_S2
 
 DESK_BOARD = Path(__file__).resolve().parents[2] / "boards" / "desk.json"
-SNAPSHOT_SLOTS = 8            # event snapshot files kept in state_dir (oldest overwritten)
 PARAM_CAP = 8192              # largest parameter image the store accepts, bytes
 PUSH_BACKLOG = 256 * 1024     # bytes of unread output beyond which pushes are dropped
 _READ = 4096
@@ -88,7 +87,7 @@ def _gateway_id(state_dir: str) -> str:
 
 class VirtualGateway:
     """recording: path of a recording (read with its sidecar); profile: board profile dict;
-    state_dir: folder for the parameter files and snapshots; speed: real time multiple (0 = as
+    state_dir: folder for the parameter files and event captures; speed: real time multiple (0 = as
     fast as possible); loop: restart the recording at its end instead of idling; key: site key
     bytes the gateway holds, or None."""
 
@@ -129,6 +128,11 @@ class VirtualGateway:
         self.ended = threading.Event()     # the recording has been fed to its end (once)
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
+        self._running = False         # the thread of start() is running
+        self.changed = threading.Condition()   # notified after every turn of run()'s loop
+        self.clock = time.monotonic   # the pacing clock (a test may give its own)
+        self._due = 0.0               # clock time the next FIFO block is due
+        self._feeding = True          # False once the recording has ended (no loop)
         self._tx = bytearray()
         self._drop_pushes = False
         self._master, self._slave = os.openpty()
@@ -146,7 +150,7 @@ class VirtualGateway:
         p = self.profile
         store = ParamStore(self.state_dir, p["name"], self.fs, p["window_n"], p["axes"],
                            self._factory, key=self.key, cap=PARAM_CAP, gateway_id=self.gateway_id)
-        snaps = SnapshotRing(self.state_dir, SNAPSHOT_SLOTS, self.fs, p["window_n"], p["axes"])
+        snaps = board.snapshot_ring(p, self.state_dir)     # as the board sizes them
         self.boot_fed = self.fed
         self.boot_pos = self.pos
         gw = Gateway(p, store, snaps, self._ticks_ms, LatchFile(os.path.join(self.state_dir, "alarm.latch")))
@@ -237,26 +241,42 @@ class VirtualGateway:
     # ---- running ----
     def run(self) -> None:
         """Feed the recording and answer the link until stop()."""
+        self._due = self.clock()
+        try:
+            while not self._stop.is_set():
+                self._link(self._pace(self.clock()))
+                with self.changed:
+                    self.changed.notify_all()
+        finally:
+            with self.changed:
+                self._running = False
+                self.changed.notify_all()
+
+    def _pace(self, now: float) -> float:
+        """Feed the FIFO blocks due by clock time now (real time x speed from the first call to
+        run(); at most _CATCH_UP blocks, so the link is answered when behind), and return the
+        seconds to wait for link bytes before the next is due (at most 0.05)."""
         period = self.block / (self.fs * self.speed) if self.speed > 0 else 0.0
-        due = time.monotonic()
-        feeding = True
-        while not self._stop.is_set():
-            if feeding:
-                now = time.monotonic()
-                for _ in range(_CATCH_UP):      # behind time: catch up, but keep answering
-                    if not (feeding and now >= due):
-                        break
-                    feeding = self._feed_block()
-                    due += period
-                    if period == 0.0:
-                        break
-                wait = max(0.0, due - time.monotonic()) if feeding else 0.05
-            else:
-                wait = 0.05
-            self._link(min(wait, 0.05))
+        for _ in range(_CATCH_UP):      # behind time: catch up, but keep answering
+            if not (self._feeding and now >= self._due):
+                break
+            self._feeding = self._feed_block()
+            self._due += period
+            if period == 0.0:
+                break
+        return min(max(0.0, self._due - now), 0.05) if self._feeding else 0.05
+
+    def wait_until(self, cond) -> bool:
+        """Block until cond() holds or the gateway's thread has ended (it re-checks after every
+        turn of its loop), and return cond(): no clock involved, so a test cannot fail for being
+        slow; only a gateway that runs on without cond() ever holding would wait for good."""
+        with self.changed:
+            self.changed.wait_for(lambda: cond() or not self._running)
+        return bool(cond())
 
     def start(self) -> "VirtualGateway":
         """Run in a background thread (for tests and in-process use)."""
+        self._running = True
         self._thread = threading.Thread(target=self.run, name="virtual-gateway", daemon=True)
         self._thread.start()
         return self
