@@ -107,3 +107,28 @@ def test_a_floor_past_a_bounded_tail_keeps_the_supported_upper_limit():
     assert far.per_30_days == 0.0 and far.range_95 == (0.0, below.range_95[1]) and not far.supported
     near = rr.promise_at(rf, below.threshold + 0.5, 1.0, below)
     assert near.per_30_days <= below.per_30_days and near.range_95[1] <= below.range_95[1]
+
+
+def test_matched_weight_keeps_the_weighted_channel_under_the_reference():
+    # The slow-channel weight (docs/detector.md, Score): ref = per-window scores of the AR(1)
+    # pump above, other = their EWMA (scipy.signal.lfilter, weight 1/32). Weighted by the result,
+    # the other channel's raise statistic S lies at or under ref's at each matched quantile
+    # (float rounding: 1e-12 relative), so it spends no more windows at or over T_q = Q_q(S(ref))
+    # than it spends at or over its own q-quantile: numpy's quantile leaves (1 - q) n values
+    # above it, plus the ties of a plateau (S holds a value while the span's k-th largest stays).
+    # The weight is the largest that does so: at one of the levels the two meet. A channel that is
+    # ref / 3 gets exactly 3 (S commutes with a positive factor).
+    c = ar1_scores(40_000, 13)
+    e = signal.lfilter([1 / 32], [1, -31 / 32], c - c.mean())
+    w = rr.matched_weight([c], [e], SPAN, K)
+    sr = rr.raise_statistic(c, SPAN, K)
+    so = rr.raise_statistic(e, SPAN, K)
+    gaps = []
+    for q in rr.MATCH_LEVELS:
+        t, to = np.quantile(sr, q), np.quantile(so, q)
+        assert w * to <= t * (1 + 1e-12)
+        assert (w * so >= t * (1 + 1e-12)).sum() <= (so > to).sum() <= (1 - q) * len(so) + 1
+        gaps.append(t - w * to)
+    assert min(gaps) <= 1e-9 * max(sr)
+    assert abs(rr.matched_weight([c], [c / 3], SPAN, K) - 3.0) < 1e-12
+    assert rr.matched_weight([c[:SPAN - 1]], [e[:SPAN - 1]], SPAN, K) == 0.0   # no full span

@@ -9,7 +9,8 @@ Per window the caller passes the feature vector and gets back the detector state
 3. the operating point (speed from the signal, and a load proxy) chooses the mode, never the
    health features; a point in no trained mode is not scored (state unscored, reason
    unknown_point); the ISO 10816-3 velocity guard acts on every running window;
-4. the score within that mode: max(distance to the mode, weighted largest single |z|);
+4. the score within that mode: max(distance to the mode, weighted largest single rise, weighted
+   largest slow (EWMA) rise of one feature);
 5. alert when det_persist_q8 of the last det_persist_ms of evaluated windows are over; alarm
    only after the alert persisted det_escalate_ms (or ISO zone D); latched until acknowledged.
 Integer-only and allocation-free in step(), ack() and learn() (checked under heap_lock on
@@ -22,8 +23,9 @@ API
         feats   array('i') laid out as firmware_py.dsp.feature_index (axes x per_axis(n_bands))
         t_s     int, seconds (any epoch, < 2**30); only copied into events
         dropped samples dropped since the previous window
-      after it: det.state; det.score_q8 (combined score, Q8 spreads, 0 when not scored), det.dist_q8
-      and det.zmax_q8 (its two channels, Q8 spreads); det.mode (-1 none); det.feat (flat feature
+      after it: det.state; det.score_q8 (combined score, Q8 spreads, 0 when not scored), det.dist_q8,
+      det.zmax_q8 and det.smax_q8 (its three channels before weighting, Q8 spreads; smax is kept
+      even when det_slam_q8 = 0 leaves it out of the score); det.mode (-1 none); det.feat (flat feature
       index that drove the score, the guard or the fault, -1 none); det.zone (ISO zone 0..3 =
       A..D); det.bb_vel_q16 (largest axis F_VEL, counts/s Q16); det.why (W_* below: why not scored, 0
       scored) and det.n_why (count per W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8),
@@ -77,6 +79,8 @@ PARAM_KEYS = (
     "det_op_load_q8",       # k x 2 load-proxy range [lo, hi] of each mode, log2 Q8 ([] = not used)
     "det_conf_min_q8",      # least F_SPEED_CONF for a usable speed estimate, Q8 (256 = 1)
     "det_zlam_q8",          # weight of the per-feature channel in the combined score, Q8
+    "det_slow_ms",          # slow channel: EWMA time constant, nearest 2**shift analysed windows
+    "det_slam_q8",          # weight of the slow channel in the combined score, Q8 (0 = off)
     "det_thr_alert_q8",     # combined score at or over which a window counts toward an alert, Q8
     "det_thr_alarm_q8",     # combined score at or over which a window counts toward an alarm, Q8
     "det_hyst_q8",          # clear threshold as a fraction of det_thr_alert_q8, Q8 (205 = 0.8)
@@ -116,6 +120,10 @@ PARAM_KEYS = (
     "det_drift_max_q8",     # drift: bound from the trained mean, Q8 spreads
     "det_event_n",          # capacity of the event ring
 )
+
+# keys added after the first sets: a set without them reads 0 (the slow channel off), as before
+LATER_KEYS = ("det_slow_ms", "det_slam_q8")
+_SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
 
 # why a window was not scored (det.why; 0 = scored); det.n_why counts each, saturating
 W_SCORED = const(0)
@@ -194,7 +202,7 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_base_mean_q4": [0] * len(feat), "det_base_sd_q4": [256] * len(feat),
         "det_modes": 0, "det_mode_c_q8": [], "det_mode_s_q8": [],
         "det_op_speed_q8": [], "det_op_load_q8": [], "det_conf_min_q8": 64,
-        "det_zlam_q8": 256,
+        "det_zlam_q8": 256, "det_slow_ms": 5000, "det_slam_q8": 0,
         "det_thr_alert_q8": 5 * 256, "det_thr_alarm_q8": 8 * 256, "det_hyst_q8": 205,
         "det_persist_ms": 20000, "det_persist_q8": 205, "det_escalate_ms": 300000,
         "det_dwell_ms": 60000,
@@ -215,6 +223,15 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_drift_shift": 0, "det_drift_max_q8": 128,
         "det_event_n": 32,
     }
+
+
+def _shift_for(w):
+    """The shift s whose 2**s is nearest to w windows on a log scale (2**s <= w * sqrt(2) <
+    2**(s+1)): w**2 against 2**(2s + 1). Construction only."""
+    s = 0
+    while (1 << (2 * s + 1)) <= w * w:
+        s += 1
+    return s
 
 
 def _int(p, key, lo, hi):
@@ -241,7 +258,7 @@ class Detector:
 
     def __init__(self, p, every=1):
         for key in PARAM_KEYS:
-            if key not in p:
+            if key not in p and key not in LATER_KEYS:
                 raise ValueError("parameter set lacks " + key)
         n = _int(p, "n", 1, 1 << 20)
         fs = _int(p, "fs_hz", 1, 1 << 20)
@@ -273,6 +290,11 @@ class Detector:
         self.mean0_q4 = array("i", self.model.mean_q4)  # trained baseline, the drift anchor
         self.conf_min_q8 = _int(p, "det_conf_min_q8", 0, 256)
         self.zlam_q8 = _int(p, "det_zlam_q8", 0, 1 << 12)
+        q = {k: p.get(k, 0) for k in LATER_KEYS}
+        self.slam_q8 = _int(q, "det_slam_q8", 0, 1 << 12)
+        self.ew_shift = _shift_for(windows_for(_int(q, "det_slow_ms", 0, _BIG), n, fs, every))
+        if self.ew_shift > _SHIFT_MAX:
+            raise ValueError("det_slow_ms spans more than %d analysed windows" % (1 << _SHIFT_MAX))
         self.thr_alert_q8 = _int(p, "det_thr_alert_q8", 1, 1 << 16)
         self.thr_alarm_q8 = _int(p, "det_thr_alarm_q8", 1, 1 << 16)
         self.hyst_q8 = _int(p, "det_hyst_q8", 1, 256)
@@ -321,6 +343,13 @@ class Detector:
         # per scored feature: the axis whose own 1x estimate its order or envelope line was read
         # around (F_ORD_HALF .. F_ENV_FTF), else -1 (see _score)
         self.ord_axis = array("b", bytes(d))
+        self.held = array("b", bytes(d))          # 1 where _mask_lines neutralised the line
+        # slow channel: per scored feature the EWMA of its departure t_j, kept as the accumulator
+        # ew_acc = EWMA * 2**ew_shift (Q8 spreads << ew_shift) so that no precision is lost to
+        # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input)
+        self.ew_acc = array("i", bytes(4 * d))
+        self.ew_mode = -1                         # the mode the EWMA belongs to
+        self.s_drive = 0                          # j of the largest EWMA (smax_q8)
         for j in range(d):
             fj = self.idx[j] % self.pa
             self.ord_axis[j] = self.idx[j] // self.pa if fi.F_ORD_HALF <= fj <= fi.F_ENV_FTF else -1
@@ -357,6 +386,7 @@ class Detector:
         self.score_q8 = 0                            # combined score, Q8 spreads (0 when not scored)
         self.dist_q8 = 0                             # distance to the mode, Q8 spreads
         self.zmax_q8 = 0                             # largest single-feature |z|, Q8 spreads
+        self.smax_q8 = 0                             # largest single-feature EWMA rise, Q8 spreads
         self.mode = -1
         self.feat = -1
         self.zone = 0
@@ -414,8 +444,9 @@ class Detector:
         return lv
 
     def _forget(self):
-        """Forget the persistence evidence (stop, fault, learning)."""
+        """Forget the persistence evidence (stop, fault, learning), the slow channel's with it."""
         self.alarm.reset()
+        self._ew_reset()
         if self.resets < _BIG:
             self.resets += 1
 
@@ -649,6 +680,7 @@ class Detector:
         self.score_q8 = 0
         self.dist_q8 = 0
         self.zmax_q8 = 0
+        self.smax_q8 = 0
         self.mode = -1
         self.feat = -1
         self.pushed = 0
@@ -781,21 +813,61 @@ class Detector:
         self.ring_i = 0
 
     def _score(self, f, m):
-        """Score this window against mode m: the distance and the per-feature channel, combined
-        as score = max(dist, zmax * zlam / 256), Q8 spreads (zlam: docs/detector.md, Score).
-        zmax <= 32767 and zlam <= 4096, so the product stays < 2**27."""
+        """Score this window against mode m: the distance, the per-feature channel and the slow
+        channel, combined as score = max(dist, zmax * zlam / 256, smax * slam / 256), Q8 spreads
+        (zlam, slam: docs/detector.md, Score). zmax, smax <= 32767 and zlam, slam <= 4096, so
+        the products stay < 2**27."""
         md = self.model
         transform(f, self.idx, self.logf, self.u, self.d, self.tab)
         md.standardise(self.u, self.z)
         if self.op_on:
             self._mask_lines(f, m)
         dist = md.distance(self.z, m)
+        self._slow(m)
         zc = (md.zmax_q8 * self.zlam_q8) >> 8
+        sc = (self.smax_q8 * self.slam_q8) >> 8
         self.dist_q8 = dist
         self.zmax_q8 = md.zmax_q8
         self.score_q8 = dist if dist >= zc else zc
         self.mode = m
         self.feat = self.idx[md.drive]
+        if sc > self.score_q8:
+            self.score_q8 = sc
+            self.feat = self.idx[self.s_drive]
+
+    def _slow(self, m):
+        """The slow channel: each feature's departure t_j (md.t_q8, within [-768, 32767] Q8)
+        enters its EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >> shift
+        is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12). A
+        line neutralised by _mask_lines carries no evidence: its EWMA holds. A new mode starts
+        from 0. smax = the largest EWMA, at least 0 (rises only, like zmax); s_drive its j."""
+        if m != self.ew_mode:
+            self._ew_reset()
+            self.ew_mode = m
+        acc = self.ew_acc
+        t = self.model.t_q8
+        sh = self.ew_shift
+        op = self.op_on                           # held[] is set only with operating points
+        top = 0
+        self.s_drive = 0
+        for j in range(self.d):
+            if not (op and self.held[j]):
+                acc[j] += t[j] - (acc[j] >> sh)
+            e = acc[j] >> sh
+            if e > top:
+                top = e
+                self.s_drive = j
+        self.smax_q8 = top
+
+    def _ew_reset(self):
+        """Start the slow channel afresh (stop, sensor fault, learning, a change of mode). Only
+        _slow fills it, and it sets ew_mode, so with ew_mode -1 it is all 0 already (an idle
+        window, which forgets the evidence each time, costs no loop)."""
+        if self.ew_mode < 0:
+            return
+        for j in range(self.d):
+            self.ew_acc[j] = 0
+        self.ew_mode = -1
 
     def _mask_lines(self, f, m):
         """Order and envelope lines of an axis whose own 1x estimate (F_SPEED) lies more than the
@@ -810,10 +882,12 @@ class Detector:
         pa = self.pa
         for j in range(self.d):
             a = self.ord_axis[j]
+            self.held[j] = 0
             if a >= 0:
                 e = f[a * pa + fi.F_SPEED] - op
                 if e > tol or e < -tol:
                     self.z[j] = self.model.c_q8[b + j]
+                    self.held[j] = 1
 
     def _drift(self):
         """Move the baseline mean a 2**-shift step along this window's offset from its mode (so

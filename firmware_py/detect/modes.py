@@ -7,6 +7,7 @@ Scales (all ints):
   centroids c_q8 in z units (Q8); per-mode spreads s_q8 in z units (Q8, floored when built)
   distance: sqrt(sum_j ((z_j - c_mj) / s_mj)**2), Q8 mode spreads (a diagonal Mahalanobis distance)
   zmax: max_j (z_j - c_mj) / s_mj, Q8 mode spreads (the per-feature channel: rises only)
+  t_q8[j]: the per-feature departures of the last distance(), each within [-768, 32767]
   terms below the mode count at most 3 spreads (ModeModel.distance)
 
 Entry points: is_log_field(), ModeModel, clamp(), transform()."""
@@ -44,6 +45,7 @@ class ModeModel:
         self.mode = -1         # nearest mode of the last score(), -1 if no model
         self.drive = -1        # index j (0..d-1) of the feature that contributed most, -1 none
         self.zmax_q8 = 0       # largest single-feature |z - c| / s of the last distance(), Q8
+        self.t_q8 = array("i", z)  # per feature (z - c) / s of the last distance(), clamped, Q8
 
     def load(self, mean_q4, sd_q4, k, c_q8, s_q8, sd_floor_q4, s_floor_q8):
         """Fill from parameter lists, flooring the spreads. Start-up only."""
@@ -93,7 +95,8 @@ class ModeModel:
         floor is no symptom, and the log of a noise-level power has a long lower tail (log of a
         chi-square with few degrees of freedom) that would otherwise dominate healthy scores.
         Each term is within [-_NEG_LIM, _D_LIM], its square >> 8 is < 2**22, and the sum over
-        d <= 64 terms (Q8 spreads squared) stays < 2**28. zmax_q8 is 0 when nothing rises.
+        d <= 64 terms (Q8 spreads squared) stays < 2**28. zmax_q8 is 0 when nothing rises. The
+        clamped terms are kept in t_q8 (the detector's slow channel averages them).
         """
         d = self.d
         b = m * d
@@ -103,6 +106,7 @@ class ModeModel:
         for j in range(d):
             t = ((z[j] - self.c_q8[b + j]) << 8) // self.s_q8[b + j]
             t = _D_LIM if t > _D_LIM else (-_NEG_LIM if t < -_NEG_LIM else t)
+            self.t_q8[j] = t
             s += (t * t) >> 8
             if t > top:
                 top = t

@@ -34,6 +34,9 @@ _SIZED = ("det_base_mean_q4", "det_base_sd_q4")        # one int per scored feat
 _MODEL = ("det_mode_c_q8", "det_mode_s_q8")            # det_modes x scored features
 _AXIAL = ("det_dc_lo_q8", "det_dc_hi_q8", "det_stuck_max", "det_zero_max",
           "det_knock_crest_q12")                       # one int per axis
+# slow channel (docs/detector.md, Score): weight Q8 up to 16; time constant up to 10 min (the
+# Detector also refuses one over 4096 analysed windows on this board's time base)
+_RANGED = (("det_slam_q8", 1 << 12), ("det_slow_ms", 600000))
 
 
 def _is_int(v):
@@ -86,6 +89,8 @@ def validate(p, profile):
         raise ValueError("set has no 'fc_vel_hz'")
     _int_list(p, "fc_vel_hz", 2)
     for k in detector.PARAM_KEYS:
+        if k not in p and k in detector.LATER_KEYS:
+            continue                                      # an older set: the default (off)
         if k not in p:
             raise ValueError("set has no '%s'" % k)
         v = p[k]
@@ -109,6 +114,10 @@ def validate(p, profile):
         _int_list(p, k, k_modes * d)
     for k in _AXIAL:
         _int_list(p, k, p["axes"])
+    for k, hi in _RANGED:
+        v = p.get(k, 0)
+        if not _is_int(v) or not 0 <= v <= hi:
+            raise ValueError("'%s' must be within [0, %d]" % (k, hi))
 
 
 def trial(p, profile):

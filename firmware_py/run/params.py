@@ -13,6 +13,8 @@ docs/protocol.md and docs/detector.md). Keys:
 The feature core (firmware_py/dsp/features.check_config) refuses a set it cannot run, with the
 reason; every fc_ key added after the first sets has a default that keeps those sets valid.
   det_*                               the detector's keys (firmware_py/detect/detector.py PARAM_KEYS)
+                                      (det_slow_ms, det_slam_q8: added later, absent = 0 =
+                                      the slow channel off; detector.LATER_KEYS)
 Device and host build the feature core and the detector from a set with the same functions here.
 
 Entry points: vel_per_mm_s(), default_bands(), factory(), feature_core(), build()."""

@@ -37,7 +37,8 @@ JRSS B 65, 2003, intervals estimator) is reported beside the cluster count as a 
 to theta * (number of exceedances).
 
 Entry points: fit() (the cluster tail from held-out sequences), promise() (threshold and stated
-rate for a target), raise_statistic(), clusters(), extremal_index().
+rate for a target), raise_statistic(), clusters(), extremal_index(), matched_weight() (the weight
+of one channel of the combined score against another, docs/detector.md, Score).
 
 edgevib is advisory condition monitoring, not machinery protection: a stated rate is a statistical
 estimate from the training data, not a guarantee.
@@ -72,6 +73,27 @@ def raise_statistic(c: np.ndarray, span: int, k: int) -> np.ndarray:
     step = max(1, _CHUNK // span)           # rows per chunk: bounded memory for long sequences
     return np.concatenate([np.partition(w[i:i + step], span - k, axis=1)[:, span - k]
                            for i in range(0, len(w), step)])
+
+
+MATCH_LEVELS = (0.99, 0.999, 1.0)   # upper quantiles of S at which two channels are matched
+
+
+def matched_weight(ref: Sequence[np.ndarray], other: Sequence[np.ndarray], span: int, k: int,
+                   levels: Sequence[float] = MATCH_LEVELS) -> float:
+    """The largest weight w for the channel `other` such that w * S(other) lies at or under
+    S(ref) at each upper quantile in `levels` of the held-out sequences (ref[i] and other[i]: the
+    two channels of the same windows, already weighted / unweighted). S commutes with a positive
+    weight (the k-th largest of w * c is w times the k-th largest of c), so at each level T =
+    Q_q(S(ref)) the weighted channel spends no more of the running time at or over T than ref
+    does. 0.0 when there is nothing to match (no full span, or `other` never rises)."""
+    sr = [raise_statistic(c, span, k) for c in ref]
+    so = [raise_statistic(c, span, k) for c in other]
+    sr = np.concatenate(sr) if sr else np.zeros(0)
+    so = np.concatenate(so) if so else np.zeros(0)
+    if len(sr) == 0 or len(sr) != len(so):
+        return 0.0
+    ratios = [np.quantile(sr, q) / np.quantile(so, q) for q in levels if np.quantile(so, q) > 0]
+    return float(min(ratios)) if ratios else 0.0
 
 
 def clusters(s: np.ndarray, u: float, run: int) -> np.ndarray:

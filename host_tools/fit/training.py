@@ -39,6 +39,7 @@ edgevib is advisory condition monitoring, not machinery protection or a safety s
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from concurrent.futures import ProcessPoolExecutor
 from typing import Any, Sequence
 
@@ -67,6 +68,12 @@ DC_MARGIN_G = 0.25        # least half-width of the healthy DC range (g): tilt o
 MIN_MODE_WINDOWS = 30     # a mode with fewer training windows is thinly supported
 MIN_WINDOWS = 50          # fewer running healthy windows cannot support a baseline and modes
 MIN_HOURS = 1.0           # less scored running time than this is thin training data
+# Slow channel time constant (docs/detector.md, Score): 5 s is 32 windows of 0.16 s (2**5, so the
+# device's shift is exact on the default board), long enough that the EWMA's s.d. on independent
+# departures is sqrt(1/63) = 0.13 of a window's, short enough to settle (1 - 1/32)**40 = 28 %
+# within the ~7 s a 10 s snapshot scores after its hold-off, and 4 times shorter than the
+# persistence span (20 s) that it feeds.
+SLOW_MS = 5000
 _THR_MAX = 1 << 16        # the detector's limit on thresholds (Q8 spreads)
 _STEADY_MAX = 32          # the detector's most windows in the steadiness span
 HOLD_FLOOR_S = 1.0        # least hold-off once steady: the run-up itself is already unsteady and unscored
@@ -115,6 +122,55 @@ def _probe_model(params: dict) -> dict:
 def _run(params: dict, feats: list[StreamFeatures], every: int):
     """Step a fresh device Detector (on the board's time base) over each stream; the Steps."""
     return [step_detector(Detector(params, every), sf.feats) for sf in feats]
+
+
+class _Channels:
+    """A Detector that also keeps, per window, its per-feature and slow channels (zmax_q8,
+    smax_q8, unweighted) for step_detector to step like the device."""
+
+    def __init__(self, det: Detector):
+        self.det, self.zmax, self.smax = det, [], []
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self.det, name)
+
+    def step(self, f: Any, t_s: int, dropped: int) -> int:
+        state = self.det.step(f, t_s, dropped)
+        self.zmax.append(self.det.zmax_q8)
+        self.smax.append(self.det.smax_q8)
+        return state
+
+
+def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: list[np.ndarray] | None
+              ) -> tuple[list[np.ndarray], list[np.ndarray], list[np.ndarray]]:
+    """Evidence sequences of the muted set over the streams (windows in `select` only): the
+    combined score, the per-feature channel weighted by det_zlam_q8, and the slow channel
+    unweighted (Q8 spreads)."""
+    out: tuple[list[np.ndarray], list[np.ndarray], list[np.ndarray]] = ([], [], [])
+    zlam = params["det_zlam_q8"] / 256.0
+    for i, sf in enumerate(feats):
+        ch = _Channels(Detector(_mute(params), every))
+        st = step_detector(ch, sf.feats)
+        sel = None if select is None else select[i]
+        out[0].extend(evidence_sequences(st, sel))
+        out[1].extend(c * zlam for c in evidence_sequences(replace(st, score_q8=np.array(ch.zmax)), sel))
+        out[2].extend(evidence_sequences(replace(st, score_q8=np.array(ch.smax)), sel))
+    return out
+
+
+def slam_q8(zseqs: list[np.ndarray], sseqs: list[np.ndarray], p: dict, every: int) -> tuple[int, str]:
+    """Weight of the slow channel, Q8: the largest at which its raise statistic on held-out healthy
+    running stays at or under the weighted per-feature channel's at the matched upper quantiles
+    (raise_rate.matched_weight; docs/detector.md, Score), so that alone it crosses the alert
+    threshold no more often than that channel does. 0 (off) when there is nothing to match."""
+    det = Detector(p, every)
+    w = raise_rate.matched_weight(zseqs, sseqs, det.alarm.ev.span, det.alarm.k)
+    q8 = min(int(math.floor(256 * w)), 1 << 12)
+    if q8 <= 0:
+        return 0, "off: no held-out span long enough to match it against the per-feature channel"
+    return q8, (f"weight {q8 / 256:.2f}: the slow channel's persistence statistic stays at or under the "
+                f"per-feature channel's at its {', '.join(f'{100 * q:g} %' for q in raise_rate.MATCH_LEVELS)} "
+                "points on held-out healthy running")
 
 
 def _dc_range(feats: np.ndarray, params: dict, profile: dict) -> tuple[list[int], list[int]]:
@@ -524,7 +580,8 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     p = _with(base, **fc)
     p["det_feat"] = _feature_list(p)
     d = len(p["det_feat"])
-    p.update(det_base_mean_q4=[0] * d, det_base_sd_q4=[256] * d, det_zlam_q8=zlam_q8(d))
+    p.update(det_base_mean_q4=[0] * d, det_base_sd_q4=[256] * d, det_zlam_q8=zlam_q8(d), det_slow_ms=SLOW_MS,
+             det_slam_q8=0)
     pm.build(p, profile)
     twin = twin_for(p, profile)
     bar = start(4, "stages", "train", enabled=progress)    # features, scoring probe, fits, check
@@ -621,18 +678,23 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     sps.append(np.concatenate([sp[u] for sp, u in zip(speeds, use)]))
     fits = _fit_all(rows, sps, p, seed, jobs)
     bar.update(1)
-    seqs: list[np.ndarray] = []
-    fold_sets = []
-    for f, keys in zip(fold_ids, fits):
-        pf = _with(p, **keys)
-        fold_sets.append((f, pf))
-        for st, wf in zip(_run(_mute(pf), feats, every), win_fold):
-            seqs += evidence_sequences(st, wf == f)
+    # held-out sequences: the slow channel is weighted against the per-feature one, then the
+    # thresholds are fitted on the combined score with all three channels in it
+    fold_sets = [(f, _with(p, **keys)) for f, keys in zip(fold_ids, fits)]
     if n_folds < 2:
         warnings.append("a single recording: thresholds come from the model's own training windows (optimistic)")
     p = _with(p, **fits[-1])
-    if not fold_sets:
-        seqs = [c for st in _run(_mute(p), feats, every) for c in evidence_sequences(st)]
+    held = [(pf, [wf == f for wf in win_fold]) for f, pf in fold_sets] or [(p, None)]
+    parts = [_held_out(pf, feats, every, sel) for pf, sel in held]
+    slam, learned["slow_channel"] = slam_q8([c for h in parts for c in h[1]], [c for h in parts for c in h[2]],
+                                            p, every)
+    p["det_slam_q8"] = slam
+    fold_sets = [(f, _with(pf, det_slam_q8=slam)) for f, pf in fold_sets]
+    if slam:
+        held = [(_with(pf, det_slam_q8=slam), sel) for pf, sel in held]
+        seqs = [c for pf, sel in held for c in _held_out(pf, feats, every, sel)[0]]
+    else:
+        seqs = [c for h in parts for c in h[0]]
     alert, alarm, thr = _thresholds(seqs, p, every, window_s, false_alerts_per_month, warnings)
     p = _with(p, det_thr_alert_q8=alert, det_thr_alarm_q8=alarm)
     if thr.get("expected_false_alerts_per_30_days") is not None:
@@ -690,6 +752,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
             "alert_q8": alert, "alarm_q8": alarm, "alert": alert / 256, "alarm": alarm / 256,
             "clear": (alert * p["det_hyst_q8"] >> 8) / 256, "units": "spreads of the mode (combined score)",
             "per_feature_weight": p["det_zlam_q8"] / 256,
+            "slow_weight": p["det_slam_q8"] / 256, "slow_s": p["det_slow_ms"] / 1000,
             "persistence": f"{p['det_persist_q8'] * 100 // 256} % of {p['det_persist_ms'] / 1000:g} s of running",
             "escalation_s": p["det_escalate_ms"] / 1000,
             "target_false_alerts_per_30_days": false_alerts_per_month,
@@ -732,6 +795,8 @@ def report_text(summary: dict) -> str:
     lines.append(f"  thresholds (spreads of the mode): alert {t['alert']:.2f}, alarm {t['alarm']:.2f}, clear {t['clear']:.2f}; "
                  f"one feature alone counts {t['per_feature_weight']:.2f} times; raise on {t['persistence']}; "
                  f"alarm only after {t['escalation_s']:g} s in alert")
+    lines.append(f"  a small lasting rise of one feature, averaged over the last {t['slow_s']:g} s of judged running, "
+                 f"counts {t['slow_weight']:.2f} times ({lr['slow_channel']})")
     lines.append(f"    method: {t['method']}; {t['validation']}")
     lines.append(f"    alarm: {t['alarm_rule']}")
     if t.get("expected_false_alerts_per_30_days") is not None:

@@ -1,0 +1,224 @@
+"""The detector's slow channel (firmware_py/detect/detector.py, _slow): an EWMA of each feature's
+departure, checked against the EWMA chart's textbook formulas, its integer bounds, its resets,
+and the unchanged behaviour of every set that leaves it off (det_slam_q8 = 0)."""
+from array import array
+
+import numpy as np
+import pytest
+from scipy import stats
+
+import firmware_py  # noqa: F401
+from firmware_py.detect import alarm as al
+from firmware_py.detect.detector import LATER_KEYS, Detector, default_params
+from firmware_py.dsp import feature_index as fi
+from firmware_py.run import param_check
+
+VEL_PER_MM_S = 6680          # F_VEL units per mm/s (a 1 mg/count sensor)
+IDLE = VEL_PER_MM_S // 4
+W_MS = 160                   # one window: 512 samples at 3200 Hz
+SD = 200                     # baseline spread of the test features, in band-power units
+
+
+def _params(d, **kw):
+    """One axis, d band powers scored as standard normal features (baseline 0 +- SD, one mode at
+    0 with spread 1), never raising; every window steady and past the hold-off."""
+    p = default_params(1, d, VEL_PER_MM_S)
+    p.update(det_feat=[fi.F_BAND0 + j for j in range(d)], det_base_mean_q4=[0] * d,
+             det_base_sd_q4=[SD * 16] * d, det_modes=1, det_mode_c_q8=[0] * d,
+             det_mode_s_q8=[256] * d, det_hold_ms=0, det_steady_ms=0, det_idle_vel_q16=IDLE,
+             det_thr_alert_q8=1 << 16, det_thr_alarm_q8=1 << 16)
+    p.update(kw)
+    return p
+
+
+def _frame(d):
+    f = array("i", bytes(4 * fi.per_axis(d)))
+    f[fi.F_RMS] = 4000
+    f[fi.F_VEL] = VEL_PER_MM_S        # running, 1 mm/s
+    f[fi.F_STUCK] = 1
+    return f
+
+
+def _ewma(det):
+    """The slow channel's per-feature EWMA, Q8 spreads."""
+    return [a >> det.ew_shift for a in det.ew_acc]
+
+
+def test_shift_is_the_nearest_power_of_two_of_the_time_constant():
+    # 5 s of 0.16 s windows is 31.25 -> ceil 32 windows = 2**5; 2.5 s -> 16 = 2**4; 3.5 s -> 22
+    # windows, under 16 * sqrt(2) = 22.6 -> 2**4; 3.7 s -> 24 windows -> 2**5; 0 -> every window
+    for ms, shift in ((5000, 5), (2500, 4), (3500, 4), (3700, 5), (0, 0), (160, 0)):
+        assert Detector(_params(1, det_slow_ms=ms)).ew_shift == shift
+    with pytest.raises(ValueError):
+        Detector(_params(1, det_slow_ms=4097 * 2 * W_MS))      # beyond 4096 windows
+
+
+def test_ewma_sd_and_mean_against_the_ewma_chart_formula():
+    # Roberts (1959); Montgomery, "Introduction to Statistical Quality Control", EWMA chart: for
+    # independent inputs of variance v the EWMA with weight lam has asymptotic variance
+    # v * lam / (2 - lam). The detector's input is t = max(z, -3) (a term under the mode counts at
+    # most 3 spreads), so v and the mean are those of the clamped standard normal, computed
+    # with scipy.stats.norm. lam = 2**-3.
+    d, n, shift = 4, 30_000, 3
+    lam = 2.0 ** -shift
+    det = Detector(_params(d, det_slow_ms=8 * W_MS))
+    assert det.ew_shift == shift
+    x = np.rint(SD * np.random.default_rng(5).standard_normal((n, d))).astype(int)
+    f = _frame(d)
+    det.step(f, 0, 0)
+    ew = np.empty((n, d))
+    for i, row in enumerate(x.tolist()):
+        f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", row)
+        det.step(f, i, 0)
+        ew[i] = _ewma(det)
+    ew = ew[20 << shift:] / 256.0          # past the start-up: (1 - lam)**160 < 1e-9 of it left
+    z = stats.norm
+    m = z.expect(lambda u: u, lb=-3) - 3 * z.cdf(-3)
+    v = z.expect(lambda u: u * u, lb=-3) + 9 * z.cdf(-3) - m * m
+    sd_ref = np.sqrt(v * lam / (2 - lam))
+    # Tolerances from the sample: consecutive EWMA values are correlated with rho = 1 - lam, so
+    # (Bartlett) var(sample variance) = 2 s**4 / n * (1 + rho**2) / (1 - rho**2) and
+    # var(sample mean) = s**2 / n * (1 + rho) / (1 - rho), per feature; the d features are
+    # independent, so pooled errors shrink by sqrt(d). 4 standard errors, plus the quantisation:
+    # z is floored to 1/256 spread and the EWMA floored to 1/256, a bias of at most 2/256 spread
+    # in the mean and a variance change of at most 2 * (1/256)**2 / 12 (negligible, added).
+    rho = 1 - lam
+    k = len(ew)
+    se_var = sd_ref ** 2 * np.sqrt(2 / (k * d) * (1 + rho ** 2) / (1 - rho ** 2))
+    se_mean = sd_ref * np.sqrt((1 + rho) / (1 - rho) / (k * d))
+    assert abs(ew.var(0).mean() - sd_ref ** 2) <= 4 * se_var + 2 / 12 / 256 ** 2
+    assert abs(ew.mean() - m) <= 4 * se_mean + 2 / 256
+    assert sd_ref == pytest.approx(np.sqrt(1 / 15), rel=2e-3)   # the untruncated formula, lam = 1/8
+
+
+def test_step_response_and_driving_feature():
+    # A step of delta spreads on feature 2 (from 0): the EWMA after k windows is
+    # delta * (1 - (1 - lam)**k) (the recursion's closed form, Montgomery, EWMA chapter). Integer
+    # arithmetic: the accumulator keeps every bit (ew_acc = EWMA * 2**shift, floored once per
+    # window), so the error is under 1 / 256 spread at every k. With the slow channel weighted
+    # 8x it drives the score once 8 x EWMA passes the distance (the step itself: delta).
+    d, shift, delta = 3, 5, 1.5
+    lam = 2.0 ** -shift
+    det = Detector(_params(d, det_slow_ms=32 * W_MS, det_slam_q8=8 * 256, det_zlam_q8=256))
+    f = _frame(d)
+    det.step(f, 0, 0)
+    f[fi.F_BAND0 + 2] = int(delta * SD)
+    for k in range(1, 200):
+        det.step(f, k, 0)
+        ref = delta * (1 - (1 - lam) ** k)
+        assert abs(_ewma(det)[2] / 256 - ref) < 1 / 256 + 1e-12
+        assert det.smax_q8 == _ewma(det)[2]
+        sc = (det.smax_q8 * 8 * 256) >> 8
+        assert det.score_q8 == max(det.dist_q8, det.zmax_q8, sc)
+        if sc > max(det.dist_q8, det.zmax_q8):
+            assert det.feat == fi.F_BAND0 + 2
+
+
+def test_resets_on_stop_and_mode_change():
+    d = 2
+    p = _params(d, det_slow_ms=32 * W_MS, det_modes=2, det_mode_c_q8=[0, 0, 512, 512],
+                det_mode_s_q8=[256] * 4, det_op_speed_q8=[0, 25 * 256, 25 * 256 + 1, 60 * 256],
+                det_conf_min_q8=0)
+    det = Detector(p)
+    f = _frame(d)
+    f[fi.F_SPEED] = 20 * 256
+    f[fi.F_SPEED_CONF] = 200
+    f[fi.F_BAND0] = 2 * SD
+    for i in range(50):
+        det.step(f, i, 0)
+    assert det.mode == 0 and _ewma(det)[0] > 256
+    f[fi.F_SPEED] = 30 * 256                  # the other operating point: a fresh EWMA
+    det.step(f, 50, 0)
+    assert det.mode == 1
+    # first window of mode 1: t = (2 - 2) spreads on feature 0, (0 - 2) on feature 1
+    assert _ewma(det) == [0, (-512) >> 5]
+    for i in range(51, 80):
+        det.step(f, i, 0)
+    assert _ewma(det)[1] < 0
+    f[fi.F_VEL] = IDLE - 1                    # stopped: the evidence is forgotten, the EWMA too
+    det.step(f, 80, 0)
+    assert list(det.ew_acc) == [0, 0] and det.smax_q8 == 0
+
+
+def _stream(d, n, seed):
+    """Gaussian windows with a stop, a rising feature and an outlier burst: a stream that moves
+    the detector through normal, alert, alarm, idle (a stop) and back."""
+    rng = np.random.default_rng(seed)
+    x = np.rint(SD * rng.standard_normal((n, d))).astype(int)
+    x[300:700, 1] += np.linspace(0, 6 * SD, 400).astype(int)
+    x[900:905] += 12 * SD
+    vel = np.full(n, VEL_PER_MM_S)
+    vel[500:510] = 100
+    return x, vel
+
+
+def _trace(p, x, vel):
+    det = Detector(p)
+    f = _frame(x.shape[1])
+    out = []
+    for i, (row, v) in enumerate(zip(x.tolist(), vel.tolist())):
+        f[fi.F_BAND0:fi.F_BAND0 + len(row)] = array("i", row)
+        f[fi.F_VEL] = v
+        out.append((det.step(f, i, 0), det.score_q8, det.feat, det.mode, det.dist_q8, det.zmax_q8))
+    ev = []
+    while det.events.count:
+        k = det.events.pop()
+        e = det.events
+        ev.append((e.t[k], e.old[k], e.new[k], e.reason[k], e.feat[k], e.score_q8[k]))
+    return out, ev
+
+
+def test_slam_zero_behaves_exactly_as_a_set_without_the_slow_channel():
+    # A set written before the slow channel (no det_slow_ms, det_slam_q8) and sets with it off
+    # (weight 0, any time constant) give the same states, scores, features and events, window for
+    # window; and the score is the old two-channel one, max(dist, zmax * zlam / 256).
+    d = 4
+    base = _params(d, det_thr_alert_q8=4 * 256, det_thr_alarm_q8=7 * 256, det_persist_ms=5 * W_MS,
+                   det_persist_q8=154, det_escalate_ms=4 * W_MS, det_dwell_ms=4 * W_MS, det_zlam_q8=300)
+    old = {k: v for k, v in base.items() if k not in LATER_KEYS}
+    param_check.validate({**old, "version": 1, "board": "b", "fs_hz": 3200, "n": 512, "axes": 1,
+                          "counts_per_g": 256, "fc_bands": [[3, 8]] * d, "fc_vel_hz": [10, 1000]},
+                         {"name": "b", "sample_rate_hz": 3200, "window_n": 512, "axes": 1})
+    x, vel = _stream(d, 1200, 3)
+    ref = _trace(old, x, vel)
+    states = {s for s, *_ in ref[0]}
+    assert {al.NORMAL, al.ALERT, al.ALARM, al.IDLE} <= states
+    for r in ref[0]:
+        assert r[1] == (max(r[4], (r[5] * 300) >> 8) if r[3] >= 0 else 0)
+    for ms in (0, 5000, 40000):
+        assert _trace({**old, "det_slow_ms": ms, "det_slam_q8": 0}, x, vel) == ref
+    # and the channel on does change it (the test can fail)
+    assert _trace({**old, "det_slow_ms": 5000, "det_slam_q8": 2048}, x, vel) != ref
+
+
+def test_slow_channel_keys_are_range_checked():
+    good = {**_params(1), "version": 1, "board": "b", "fs_hz": 3200, "n": 512, "axes": 1,
+            "counts_per_g": 256, "fc_bands": [[3, 8]], "fc_vel_hz": [10, 1000]}
+    prof = {"name": "b", "sample_rate_hz": 3200, "window_n": 512, "axes": 1}
+    param_check.validate(good, prof)
+    for k, v in (("det_slam_q8", -1), ("det_slam_q8", 4097), ("det_slow_ms", -5)):
+        with pytest.raises(ValueError):
+            param_check.validate({**good, k: v}, prof)
+    with pytest.raises(ValueError):
+        Detector(_params(1, det_slam_q8=4097))
+
+
+def test_accumulator_stays_under_its_bound_at_the_extremes():
+    # The departures the EWMA averages lie in [-768, 32767] Q8 (modes.ModeModel.distance); at the
+    # longest time constant (shift 12) ew_acc = EWMA * 2**12 must stay within 32767 * 2**12 + 1 <
+    # 2**27 (the docstring's bound; small ints on the device end at 2**30), and the EWMA must
+    # reach the input (no precision lost to the shift). Driven directly: at shift 12 settling
+    # takes tens of thousands of windows.
+    d = 2
+    det = Detector(_params(d, det_slow_ms=4096 * W_MS))
+    assert det.ew_shift == 12
+    t = det.model.t_q8
+    bound = 32767 * 4096 + 1
+    for hi, lo in ((32767, -768), (-768, 32767)):
+        t[0], t[1] = hi, lo
+        top = 0
+        for _ in range(20 * 4096):
+            det._slow(0)
+            top = max(top, max(abs(a) for a in det.ew_acc))
+        assert top <= bound < 1 << 27
+        assert _ewma(det) == [hi, lo] or max(abs(e - v) for e, v in zip(_ewma(det), (hi, lo))) <= 1
