@@ -132,3 +132,28 @@ def test_matched_weight_keeps_the_weighted_channel_under_the_reference():
     assert min(gaps) <= 1e-9 * max(sr)
     assert abs(rr.matched_weight([c], [c / 3], SPAN, K) - 3.0) < 1e-12
     assert rr.matched_weight([c[:SPAN - 1]], [e[:SPAN - 1]], SPAN, K) == 0.0   # no full span
+
+
+def test_range_far_past_the_data_is_unbounded_not_an_overflow():
+    # Few clusters and a heavy tail far past the data: the delta-method error of the log rate
+    # grows without limit, and exp() of it overflowed (a raw traceback from `edgevib train`). The
+    # range must stay the lognormal interval r exp(+-z se), z = scipy.stats.norm.ppf(0.975), where
+    # a float holds it, and become an unbounded upper limit (inf) where it does not.
+    import math
+
+    import pytest
+    from scipy.stats import norm
+
+    from host_tools.fit.raise_rate import RateFit
+    from host_tools.fit.tail_fit import TailFit
+    tail = TailFit(1.0, 0.3, 0.5, 1.0, 12, 12, np.linspace(0.0, 1.0, 12))
+    rf = RateFit(1.0, 12, 12, 0.1, None, tail, 3.0)
+    z = norm.ppf(0.975)
+    x = 100.0
+    se = math.sqrt(1 / 12 + tail.log_exceedance_se(x) ** 2)
+    lo, hi = rf.range_95(x)
+    r = rf.rate_per_h(x)
+    tol = math.expm1(5e-7 * se) + 1e-12     # the module's z is written to 6 decimals (|dz| <= 5e-7)
+    assert lo == pytest.approx(r * math.exp(-z * se), rel=tol) and hi == pytest.approx(r * math.exp(z * se), rel=tol)
+    lo, hi = rf.range_95(1e50)              # z se is about 930: exp() alone would overflow
+    assert 0.0 <= lo < rf.rate_per_h(1e50) < hi

@@ -61,6 +61,7 @@ LEAST_CLUSTERS = 12      # below this no fit is attempted at all
 SUPPORT_RATIO = 3.0      # the 95 % upper limit may be at most this times the stated rate
 _LEVELS = (0.995, 0.99, 0.98, 0.97, 0.95, 0.9, 0.8, 0.7, 0.6, 0.5)
 _Z95 = 1.959964
+_LOG_HUGE = 700.0          # exp() of more overflows a float (about 709.8)
 _CHUNK = 1 << 22          # values partitioned at once
 
 
@@ -151,7 +152,12 @@ class RateFit:
         """95 % range of the raise rate at x: Poisson count of clusters and GPD sampling error."""
         se = math.sqrt(1.0 / self.clusters + self.tail.log_exceedance_se(x) ** 2)
         r = self.rate_per_h(x)
-        return r * math.exp(-_Z95 * se), r * math.exp(_Z95 * se)
+        if r <= 0.0:
+            return 0.0, 0.0
+        # far past the data the delta-method error can be huge: the upper limit is then unbounded
+        # (an honest inf, which every caller compares), never an OverflowError
+        log_up = math.log(r) + _Z95 * se
+        return math.exp(math.log(r) - _Z95 * se), (math.inf if log_up > _LOG_HUGE else math.exp(log_up))
 
 
 @dataclass(frozen=True)
