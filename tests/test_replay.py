@@ -221,6 +221,31 @@ def test_replay_in_chunks_equals_one_pass(trained):
         assert sr.summary() == whole.summary["streams"][whole.streams[0]]
 
 
+def test_plot_tracks_stay_bounded_and_do_not_depend_on_chunks():
+    # A replay keeps its plot tracks in bounded memory (issue 11: memory must not grow with the
+    # recording): past the cap, every stride-th window, stride the least power of two that keeps at
+    # most cap rows. Reference: numpy's slicing of the whole column, arange(n)[::stride]; the
+    # rows kept must be the same for any chunking (1, 7, 64 and 1000-window chunks).
+    from host_tools.twin.replay import WindowKeeper
+    cap = 100
+    for n in (0, 99, 100, 101, 401, 1000):
+        stride = 1
+        while -(-n // stride) > cap:
+            stride *= 2
+        ref = np.arange(n)[::stride]
+        for size in (1, 7, 64, 1000):
+            k = WindowKeeper(cap)
+            for a in range(0, n, size):
+                w = np.arange(a, min(n, a + size))
+                k.add({"w": w, "name": w.astype(str).astype(object)})
+            got = np.concatenate(k.parts["w"]) if n else np.zeros(0, int)
+            assert np.array_equal(got, ref) and k.kept == len(ref) <= cap, (n, size)
+            assert list(np.concatenate(k.parts["name"]) if n else []) == [str(v) for v in ref]
+    k = WindowKeeper(None)                   # no cap: every window, as keep_windows=True wants
+    k.add({"w": np.arange(5000)})
+    assert k.kept == 5000 and k.stride == 1
+
+
 _RSS_CHILD = """
 import sys
 import msgpack

@@ -41,7 +41,8 @@ from host_tools.errors import EdgevibError
 from host_tools.fleet import layout
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.twin.replay import (
-    ChunkPlan, ReplayResult, StreamFeatures, StreamReplay, assemble, m_s2_per_count, plan_chunks, read_chunk, twin_for)
+    TRACK_CAP, ChunkPlan, ReplayResult, StreamFeatures, StreamReplay, WindowKeeper, assemble, m_s2_per_count,
+    plan_chunks, read_chunk, twin_for)
 
 # Windows per feature task: 8192 windows of 512 samples are 4.2 M frames, about 22 min of one
 # gateway's data at 3200 Hz and a second or so of work: small next to the scheduler's few
@@ -167,13 +168,13 @@ def chunk_features(task: ChunkTask, cfg: TwinConfig, axes: int, scale: float) ->
 def gateway_pass(name: str, paths: Sequence[str], params: dict, profile: dict, columns: Sequence[str] | None,
                  *features: StreamFeatures) -> ReplayResult:
     """One detector pass over a gateway's chunk features in time order (task): the ReplayResult of
-    one stream, keeping the per-window `columns` (None: all)."""
+    one stream, keeping the per-window `columns` (None: all; else bounded as replay keeps its
+    tracks, TRACK_CAP)."""
     sr = StreamReplay(list(paths), params, profile, name)
-    cols: dict[str, list[np.ndarray]] = {}
+    keep = WindowKeeper(None if columns is None else TRACK_CAP)
     for sf in features:
-        for k, v in sr.step(sf).columns(columns).items():
-            cols.setdefault(k, []).append(v)
-    return assemble([sr], [cols])
+        keep.add(sr.step(sf).columns(columns))
+    return assemble([sr], [keep])
 
 
 def submit_replay(client, w: GatewayWork, params: dict | None = None, kind: str = "archive",

@@ -314,6 +314,31 @@ def physical_columns(feats: np.ndarray, params: dict, scale: float, axis_names: 
 # --- results ------------------------------------------------------------------------------------
 
 TRACK_COLUMNS = ("recording", "t_s", "state", "score", "mode", "velocity_rms_mm_s")
+TRACK_CAP = 1 << 18     # track rows kept per stream (about 12 MB): 11.6 h of 0.16 s windows in full
+
+
+class WindowKeeper:
+    """The per-window columns of one stream as chunks deliver them. With a cap (plot tracks), memory
+    stays bounded whatever the stream's length: every stride-th window of the stream is kept,
+    stride the least power of two that keeps at most cap rows, doubled (every other kept row
+    dropped) as the stream grows. Which rows are kept depends on the stream's length only, never on
+    its chunks. Without a cap every window is kept (stride 1)."""
+
+    def __init__(self, cap: int | None = None):
+        self.cap, self.stride, self.seen, self.kept = cap, 1, 0, 0
+        self.parts: dict[str, list[np.ndarray]] = {}
+
+    def add(self, cols: dict[str, np.ndarray]) -> None:
+        n = len(next(iter(cols.values()))) if cols else 0
+        sel = np.arange(self.seen, self.seen + n) % self.stride == 0
+        for k, v in cols.items():
+            self.parts.setdefault(k, []).append(v[sel])
+        self.seen += n
+        self.kept += int(sel.sum())
+        while self.cap is not None and self.kept > self.cap:
+            self.stride *= 2          # kept rows are windows 0, s, 2s, ...: every other is a multiple of 2s
+            self.parts = {k: [np.concatenate(v)[::2]] for k, v in self.parts.items()}
+            self.kept = (self.kept + 1) // 2
 
 
 @dataclass
@@ -326,7 +351,9 @@ class ReplayResult:
     end in it, s; score in spreads, score_q8 / 256; mode and feature None when none).
     windows: one column per key, one row per window of every stream: stream (index into streams),
     recording (path), t_s, state (name), score (spreads), mode (-1 none), feature (name or ""),
-    then physical_columns(); with keep_windows=False only stream and TRACK_COLUMNS.
+    then physical_columns(); with keep_windows=False only stream and TRACK_COLUMNS, of every
+    window of a stream up to TRACK_CAP windows and evenly thinned beyond (WindowKeeper), so a
+    report's memory does not grow with the recording's length (summary and events are exact).
     summary: {"streams": {name: summary}, "total": summary}.
     recordings: per stream, the recording paths in the order replayed.
     """
@@ -546,8 +573,8 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     streams: each a source as StreamReplay takes it. The streams replay one after another; jobs > 1
     computes the features of that many chunks of a stream at once in worker processes, so one long
     stream uses every core. progress: a bar or progress lines by windows (host_tools.progress).
-    keep_windows: keep every per-window column (False: only TRACK_COLUMNS, about 30 bytes a window,
-    for plots). on_chunk(stream index, chunk) is called with every chunk in order, e.g. to write
+    keep_windows: keep every per-window column (False: only TRACK_COLUMNS, at most TRACK_CAP rows per
+    stream, for plots). on_chunk(stream index, chunk) is called with every chunk in order, e.g. to write
     rows out as they come. chunk_windows: windows per chunk (the results do not depend on it).
     """
     if not streams:
@@ -561,28 +588,25 @@ def replay(streams: Sequence[Any], params: dict, profile: dict, jobs: int = 1, p
     for r in runs[1:]:
         if r.axis_names != runs[0].axis_names:
             raise EdgevibError(f"stream {r.name}: axis names differ from stream {runs[0].name}; replay them separately")
-    parts: list[dict[str, list[np.ndarray]]] = []
+    parts: list[WindowKeeper] = []
     with progress_bar(sum(r.n_windows for r in runs), "windows", "replay", enabled=progress) as bar:
         for i, r in enumerate(runs):
-            cols: dict[str, list[np.ndarray]] = {}
+            keep = WindowKeeper(None if keep_windows else TRACK_CAP)
             for ch in r.chunks(jobs=jobs, chunk_windows=chunk_windows):
-                got = ch.columns(None if keep_windows else TRACK_COLUMNS)
-                for k, v in got.items():
-                    cols.setdefault(k, []).append(v)
+                keep.add(ch.columns(None if keep_windows else TRACK_COLUMNS))
                 if on_chunk is not None:
                     on_chunk(i, ch)
                 bar.update(len(ch.features.t_s))
-            parts.append(cols)
+            parts.append(keep)
     return assemble(runs, parts)
 
 
-def assemble(runs: Sequence[StreamReplay], parts: Sequence[dict[str, list[np.ndarray]]]) -> ReplayResult:
-    """The ReplayResult of streams replayed to the end: runs, and per run its chunks' columns
-    (column name -> the chunks' arrays in order, as ReplayChunk.columns gives them)."""
-    keys = list(parts[0]) if parts else []
-    windows = {"stream": np.concatenate([np.full(r.n_windows, i) for i, r in enumerate(runs)])}
+def assemble(runs: Sequence[StreamReplay], parts: Sequence[WindowKeeper]) -> ReplayResult:
+    """The ReplayResult of streams replayed to the end: runs, and per run the columns it kept."""
+    keys = list(parts[0].parts) if parts else []
+    windows = {"stream": np.concatenate([np.full(p.kept, i) for i, p in enumerate(parts)])}
     for k in keys:
-        windows[k] = np.concatenate([v for p in parts for v in p[k]])
+        windows[k] = np.concatenate([v for p in parts for v in p.parts[k]])
     summaries = [r.summary() for r in runs]
     return ReplayResult(
         sample_rate_hz=float(runs[0].params["fs_hz"]), streams=[r.name for r in runs],
