@@ -168,7 +168,9 @@ def test_manifest_is_checked(tmp_path):
     for bad, words in ((dict(good, overhauls=["2025-13-01"]), "calendar date"),
                        (dict(good, overhauls=["2025-02-01", "2024-01-01"]), "oldest first"),
                        (dict(good, board=""), "'board'"),
-                       (dict(good, bearing={"n_elements": 9, "ball_diameter_mm": 40, "pitch_diameter_mm": 39}), "ball diameter")):
+                       (dict(good, bearing={"n_elements": 9, "ball_diameter_mm": 40, "pitch_diameter_mm": 39}), "ball diameter"),
+                       (dict(good, bearing={"n_elements": 9.5, "ball_diameter_mm": 7.94, "pitch_diameter_mm": 39.04}),
+                        "rolling elements")):     # a count is whole: refused, never truncated
         with pytest.raises(Exception) as e:
             layout.add_gateway(root, "g2", bad)
         assert words in str(e.value) and "gateway.json" in str(e.value)

@@ -18,7 +18,7 @@ Entry points: BearingGeometry, DefectOrders, defect_orders().
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from host_tools.errors import EdgevibError
 
@@ -64,9 +64,11 @@ class DefectOrders:
 def geometry_from_record(d: dict) -> BearingGeometry:
     """A geometry from its JSON form (a sidecar's or a fleet manifest's "bearing": n_elements,
     ball_diameter_mm, pitch_diameter_mm, optional contact_angle_deg). KeyError names a missing
-    key, TypeError/ValueError a value that is not a number."""
-    return BearingGeometry(int(d["n_elements"]), float(d["ball_diameter_mm"]), float(d["pitch_diameter_mm"]),
-                           float(d.get("contact_angle_deg", 0.0)))
+    key, TypeError/ValueError a value that is not a number; a count that is not whole (9.5, "9")
+    is refused by BearingGeometry, never truncated."""
+    g = BearingGeometry(d["n_elements"], float(d["ball_diameter_mm"]), float(d["pitch_diameter_mm"]),
+                        float(d.get("contact_angle_deg", 0.0)))
+    return replace(g, n_elements=int(g.n_elements))
 
 
 def defect_orders(g: BearingGeometry) -> DefectOrders:
