@@ -16,6 +16,7 @@ from firmware_py.detect.detector import Detector, default_params
 from host_tools.fit import sensor_fit
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.twin.mpy_guest import run_guest
+from tests.test_detector import events as detector_events
 
 AXES = 3
 PA = fi.per_axis(1)
@@ -61,13 +62,8 @@ def running(det):
 
 
 def events(det):
-    e = det.events
-    out = []
-    while True:
-        i = e.pop()
-        if i < 0:
-            return out
-        out.append((e.old[i], e.new[i], e.reason[i], e.feat[i]))
+    """(from, to, reason, feature) of each event read off the ring."""
+    return [(old, new, reason, feat) for _, old, new, reason, _, feat, _ in detector_events(det)]
 
 
 # -- the rule ---------------------------------------------------------------------------------
