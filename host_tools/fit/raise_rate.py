@@ -93,7 +93,8 @@ def matched_weight(ref: Sequence[np.ndarray], other: Sequence[np.ndarray], span:
     so = np.concatenate(so) if so else np.zeros(0)
     if len(sr) == 0 or len(sr) != len(so):
         return 0.0
-    ratios = [np.quantile(sr, q) / np.quantile(so, q) for q in levels if np.quantile(so, q) > 0]
+    qr, qo = np.quantile(sr, levels), np.quantile(so, levels)
+    ratios = [r / o for r, o in zip(qr, qo) if o > 0]
     return float(min(ratios)) if ratios else 0.0
 
 

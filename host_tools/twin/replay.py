@@ -330,11 +330,11 @@ class WindowKeeper:
 
     def add(self, cols: dict[str, np.ndarray]) -> None:
         n = len(next(iter(cols.values()))) if cols else 0
-        sel = np.arange(self.seen, self.seen + n) % self.stride == 0
+        first = -self.seen % self.stride                 # this chunk's first window on the stride
         for k, v in cols.items():
-            self.parts.setdefault(k, []).append(v[sel])
+            self.parts.setdefault(k, []).append(v if self.stride == 1 else v[first::self.stride])
         self.seen += n
-        self.kept += int(sel.sum())
+        self.kept += len(range(first, n, self.stride))
         while self.cap is not None and self.kept > self.cap:
             self.stride *= 2          # kept rows are windows 0, s, 2s, ...: every other is a multiple of 2s
             self.parts = {k: [np.concatenate(v)[::2]] for k, v in self.parts.items()}
