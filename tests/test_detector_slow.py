@@ -222,3 +222,89 @@ def test_accumulator_stays_under_its_bound_at_the_extremes():
             top = max(top, max(abs(a) for a in det.ew_acc))
         assert top <= bound < 1 << 27
         assert _ewma(det) == [hi, lo] or max(abs(e - v) for e, v in zip(_ewma(det), (hi, lo))) <= 1
+
+
+def test_per_feature_gains_weigh_each_ewma():
+    # det_sgain_q8 weighs each feature's EWMA before the largest is taken. Steps of 1.5 and 1.0
+    # spreads on features 0 and 2, weighted 1 and 3: the weighted EWMAs follow the step's closed
+    # form delta * g * (1 - (1 - lam)**k) (Montgomery, EWMA chapter), so feature 2 drives the
+    # channel although its step is the smaller; a gain of 0 takes feature 1 out however large its
+    # step. Integer error: the EWMA is floored to 1/256 spread, then the product once more, so
+    # at most (g + 1) / 256 spread.
+    d, shift = 3, 5
+    lam = 2.0 ** -shift
+    gains = [256, 0, 3 * 256]
+    det = Detector(_params(d, det_slow_ms=32 * W_MS, det_sgain_q8=gains))
+    f = _frame(d)
+    det.step(f, 0, 0)
+    steps = (1.5, 20.0, 1.0)
+    for j, s in enumerate(steps):
+        f[fi.F_BAND0 + j] = int(s * SD)
+    for k in range(1, 120):
+        det.step(f, k, 0)
+        ref = [s * g / 256 * (1 - (1 - lam) ** k) for s, g in zip(steps, gains)]
+        assert abs(det.smax_q8 / 256 - max(ref)) <= (max(gains) / 256 + 1) / 256 + 1e-12
+        if k > 10:
+            assert det.s_drive == 2
+
+
+def test_sets_without_gains_weigh_every_feature_one():
+    # a set written before det_sgain_q8, or with it empty, is the unweighted slow channel
+    d = 4
+    x, vel = _stream(d, 1200, 7)
+    base = _params(d, det_thr_alert_q8=4 * 256, det_thr_alarm_q8=7 * 256, det_persist_ms=5 * W_MS,
+                   det_slow_ms=8 * W_MS, det_slam_q8=1024)
+    old = {k: v for k, v in base.items() if k != "det_sgain_q8"}
+    ref = _trace(old, x, vel)
+    assert _trace({**old, "det_sgain_q8": []}, x, vel) == ref
+    assert _trace({**old, "det_sgain_q8": [256] * d}, x, vel) == ref
+    assert _trace({**old, "det_sgain_q8": [512] * d}, x, vel) != ref
+
+
+def test_gains_are_checked():
+    good = {**_params(2), "version": 1, "board": "b", "fs_hz": 3200, "n": 512, "axes": 1,
+            "counts_per_g": 256, "fc_bands": [[3, 8]] * 2, "fc_vel_hz": [10, 1000]}
+    good["det_feat"] = [fi.F_BAND0, fi.F_BAND0 + 1]
+    prof = {"name": "b", "sample_rate_hz": 3200, "window_n": 512, "axes": 1}
+    param_check.validate({**good, "det_sgain_q8": [256, 256]}, prof)
+    with pytest.raises(ValueError):
+        param_check.validate({**good, "det_sgain_q8": [256]}, prof)       # one per scored feature
+    for bad in ([256, -1], [256, 4097]):
+        with pytest.raises(ValueError):
+            Detector({**_params(2), "det_sgain_q8": bad})
+
+
+def test_training_gains_from_ewma_spread():
+    # training.sgain_q8: sigma_j is the r.m.s. of feature j's held-out EWMA, floored at the EWMA
+    # spread of independent unit departures, sqrt(lam / (2 - lam)) (Montgomery, EWMA chart);
+    # weights median(sigma) / sigma_j. Independent N(0, 1) departures give EWMAs at that floor, so
+    # every weight is 1 within the sampling error; a feature whose departures wander as an AR(1)
+    # with coefficient phi has the larger EWMA variance
+    #   lam / (2 - lam) * (1 + (1 - lam) phi) / (1 - (1 - lam) phi)
+    # (the EWMA's variance for AR(1) input: sum over lags of the two filters' products; derived
+    # from the geometric series, common practice) and its weight falls by that ratio's root.
+    from scipy.signal import lfilter
+    from host_tools.fit.training import sgain_q8
+    shift, n, d = 4, 200_000, 5
+    lam = 2.0 ** -shift
+    rng = np.random.default_rng(3)
+    x = rng.standard_normal((n, d))
+    phi = 0.9
+    x[:, 4] = lfilter([np.sqrt(1 - phi ** 2)], [1, -phi], x[:, 4])       # unit-variance AR(1)
+    e = lfilter([lam], [1, -(1 - lam)], x, axis=0)[1000:]
+    q8, why = sgain_q8((e * e).sum(0), len(e), shift)
+    ratio = np.sqrt((1 + (1 - lam) * phi) / (1 - (1 - lam) * phi))
+    # sampling error of an EWMA variance from k correlated values: Bartlett, as in the chart test
+    # above, with the EWMA's own lag-one correlation 1 - lam (the AR(1) input's phi = 0.9 decays
+    # faster); the relative s.e. of sigma is half that of sigma**2, and a weight is a ratio of two
+    # sigmas (sqrt 2); 4 s.e. plus the Q8 rounding
+    rho = 1 - lam
+    rel = np.sqrt(2) * 0.5 * np.sqrt(2 / len(e) * (1 + rho ** 2) / (1 - rho ** 2))
+    for j in range(4):
+        assert abs(q8[j] / 256 - 1) <= 4 * rel + 0.5 / 256
+    assert abs(q8[4] / 256 - 1 / ratio) <= 4 * rel / ratio + 0.5 / 256
+    assert "spread" in why
+    # a feature quieter than the floor cannot earn a larger weight than one at the floor
+    floor2 = lam / (2 - lam)
+    q8b, _ = sgain_q8(np.array([floor2, 4.0, 1e-12]) * len(e), len(e), shift)
+    assert q8b[2] == q8b[0] == 256 and q8b[1] == round(256 * np.sqrt(floor2) / 2)

@@ -24,8 +24,9 @@ API
         t_s     int, seconds (any epoch, < 2**30); only copied into events
         dropped samples dropped since the previous window
       after it: det.state; det.score_q8 (combined score, Q8 spreads, 0 when not scored), det.dist_q8,
-      det.zmax_q8 and det.smax_q8 (its three channels before weighting, Q8 spreads; smax is kept
-      even when det_slam_q8 = 0 leaves it out of the score); det.mode (-1 none); det.feat (flat feature
+      det.zmax_q8 and det.smax_q8 (its three channels before weighting, Q8 spreads; smax after each
+      feature's det_sgain_q8, and kept even when det_slam_q8 = 0 leaves it out of the score);
+      det.mode (-1 none); det.feat (flat feature
       index that drove the score, the guard or the fault, -1 none); det.zone (ISO zone 0..3 =
       A..D); det.bb_vel_q16 (largest axis F_VEL, counts/s Q16); det.why (W_* below: why not scored, 0
       scored) and det.n_why (count per W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8),
@@ -81,6 +82,7 @@ PARAM_KEYS = (
     "det_zlam_q8",          # weight of the per-feature channel in the combined score, Q8
     "det_slow_ms",          # slow channel: EWMA time constant, nearest 2**shift analysed windows
     "det_slam_q8",          # weight of the slow channel in the combined score, Q8 (0 = off)
+    "det_sgain_q8",         # per scored feature, the weight of its EWMA in the slow channel, Q8
     "det_thr_alert_q8",     # combined score at or over which a window counts toward an alert, Q8
     "det_thr_alarm_q8",     # combined score at or over which a window counts toward an alarm, Q8
     "det_hyst_q8",          # clear threshold as a fraction of det_thr_alert_q8, Q8 (205 = 0.8)
@@ -121,8 +123,10 @@ PARAM_KEYS = (
     "det_event_n",          # capacity of the event ring
 )
 
-# keys added after the first sets: a set without them reads 0 (the slow channel off), as before
-LATER_KEYS = ("det_slow_ms", "det_slam_q8")
+# keys added after the first sets: a set without them reads 0 (the slow channel off), as before;
+# without det_sgain_q8 (or with it empty) every feature's EWMA weighs 256 (1), as before
+LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8")
+SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
 _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
 
 # why a window was not scored (det.why; 0 = scored); det.n_why counts each, saturating
@@ -292,6 +296,12 @@ class Detector:
         self.zlam_q8 = _int(p, "det_zlam_q8", 0, 1 << 12)
         q = {k: p.get(k, 0) for k in LATER_KEYS}
         self.slam_q8 = _int(q, "det_slam_q8", 0, 1 << 12)
+        # per-feature slow weights, Q8: each feature's EWMA against its own healthy spread
+        g = p.get("det_sgain_q8") or [256] * d
+        self.sgain_q8 = _ints({"det_sgain_q8": g}, "det_sgain_q8", d)
+        for j in range(d):
+            if not 0 <= self.sgain_q8[j] <= SGAIN_MAX:
+                raise ValueError("det_sgain_q8 must hold ints in [0, %d]" % SGAIN_MAX)
         self.ew_shift = _shift_for(windows_for(_int(q, "det_slow_ms", 0, _BIG), n, fs, every))
         if self.ew_shift > _SHIFT_MAX:
             raise ValueError("det_slow_ms spans more than %d analysed windows" % (1 << _SHIFT_MAX))
@@ -386,7 +396,7 @@ class Detector:
         self.score_q8 = 0                            # combined score, Q8 spreads (0 when not scored)
         self.dist_q8 = 0                             # distance to the mode, Q8 spreads
         self.zmax_q8 = 0                             # largest single-feature |z|, Q8 spreads
-        self.smax_q8 = 0                             # largest single-feature EWMA rise, Q8 spreads
+        self.smax_q8 = 0                             # largest weighted single-feature EWMA rise, Q8
         self.mode = -1
         self.feat = -1
         self.zone = 0
@@ -840,12 +850,14 @@ class Detector:
         enters its EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >> shift
         is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12). A
         line neutralised by _mask_lines carries no evidence: its EWMA holds. A new mode starts
-        from 0. smax = the largest EWMA, at least 0 (rises only, like zmax); s_drive its j."""
+        from 0. smax = the largest weighted EWMA (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and
+        sgain <= 4096, so the product < 2**27), at least 0 (rises only, like zmax); s_drive its j."""
         if m != self.ew_mode:
             self._ew_reset()
             self.ew_mode = m
         acc = self.ew_acc
         t = self.model.t_q8
+        g = self.sgain_q8
         sh = self.ew_shift
         op = self.op_on                           # held[] is set only with operating points
         top = 0
@@ -853,7 +865,7 @@ class Detector:
         for j in range(self.d):
             if not (op and self.held[j]):
                 acc[j] += t[j] - (acc[j] >> sh)
-            e = acc[j] >> sh
+            e = ((acc[j] >> sh) * g[j]) >> 8
             if e > top:
                 top = e
                 self.s_drive = j
