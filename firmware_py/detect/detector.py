@@ -354,12 +354,11 @@ class Detector:
         # around (F_ORD_HALF .. F_ENV_FTF), else -1 (see _score)
         self.ord_axis = array("b", bytes(d))
         self.held = array("b", bytes(d))          # 1 where _mask_lines neutralised the line
-        # slow channel: per mode and scored feature (mode-major, KMAX x d) the EWMA of its
-        # departure t_j, kept as the accumulator ew_acc = EWMA * 2**ew_shift (Q8 spreads <<
-        # ew_shift) so that no precision is lost to the shift (a plain Q8 EWMA would stick up to
-        # 2**shift LSB from its input)
-        self.ew_acc = array("i", bytes(4 * d * KMAX))
-        self.ew_used = False                      # some accumulator may be non-zero
+        # slow channel: per scored feature the EWMA of its departure t_j, kept as the accumulator
+        # ew_acc = EWMA * 2**ew_shift (Q8 spreads << ew_shift) so that no precision is lost to
+        # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input)
+        self.ew_acc = array("i", bytes(4 * d))
+        self.ew_mode = -1                         # the mode the EWMA belongs to
         self.s_drive = 0                          # j of the largest EWMA (smax_q8)
         for j in range(d):
             fj = self.idx[j] % self.pa
@@ -848,16 +847,15 @@ class Detector:
 
     def _slow(self, m):
         """The slow channel: each feature's departure t_j (md.t_q8, within [-768, 32767] Q8)
-        enters mode m's EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >>
-        shift is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12).
-        A line neutralised by _mask_lines carries no evidence: its EWMA holds. Each mode keeps its
-        own EWMAs (departures from its own centre), so a return to a mode carries on with what was
-        gathered there. smax = the largest weighted EWMA (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767
-        and sgain <= 4096, so the product < 2**27), at least 0 (rises only, like zmax); s_drive
-        its j."""
-        self.ew_used = True
+        enters its EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >> shift
+        is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12). A
+        line neutralised by _mask_lines carries no evidence: its EWMA holds. A new mode starts
+        from 0. smax = the largest weighted EWMA (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and
+        sgain <= 4096, so the product < 2**27), at least 0 (rises only, like zmax); s_drive its j."""
+        if m != self.ew_mode:
+            self._ew_reset()
+            self.ew_mode = m
         acc = self.ew_acc
-        b = m * self.d
         t = self.model.t_q8
         g = self.sgain_q8
         sh = self.ew_shift
@@ -866,22 +864,22 @@ class Detector:
         self.s_drive = 0
         for j in range(self.d):
             if not (op and self.held[j]):
-                acc[b + j] += t[j] - (acc[b + j] >> sh)
-            e = ((acc[b + j] >> sh) * g[j]) >> 8
+                acc[j] += t[j] - (acc[j] >> sh)
+            e = ((acc[j] >> sh) * g[j]) >> 8
             if e > top:
                 top = e
                 self.s_drive = j
         self.smax_q8 = top
 
     def _ew_reset(self):
-        """Start the slow channel afresh (stop, sensor fault, learning). Only _slow fills it, and
-        it sets ew_used, so without it all is 0 already (an idle window, which forgets the
-        evidence each time, costs no loop)."""
-        if not self.ew_used:
+        """Start the slow channel afresh (stop, sensor fault, learning, a change of mode). Only
+        _slow fills it, and it sets ew_mode, so with ew_mode -1 it is all 0 already (an idle
+        window, which forgets the evidence each time, costs no loop)."""
+        if self.ew_mode < 0:
             return
-        for i in range(len(self.ew_acc)):
-            self.ew_acc[i] = 0
-        self.ew_used = False
+        for j in range(self.d):
+            self.ew_acc[j] = 0
+        self.ew_mode = -1
 
     def _mask_lines(self, f, m):
         """Order and envelope lines of an axis whose own 1x estimate (F_SPEED) lies more than the

@@ -145,8 +145,7 @@ class _Channels:
         self.zmax.append(det.zmax_q8)
         self.smax.append(det.smax_q8)
         if det.pushed and det.mode >= 0 and (self.select is None or self.select[t_s]):
-            b = det.mode * det.d
-            e = np.asarray(det.ew_acc[b:b + det.d], dtype=np.float64) / (256 << det.ew_shift)
+            e = np.asarray(det.ew_acc, dtype=np.float64) / (256 << det.ew_shift)
             self.ew_ss += e * e
             self.ew_n += 1
         return state
