@@ -532,14 +532,19 @@ def promise_text(rate: float, range_95: Sequence[float], upper: bool,
                  unit: str = " false alerts per 30 days of running") -> str:
     """A stated rate as a person reads it: "at most 3.2 false alerts per 30 days of running (95 %
     range 1.1 to 9.6)" for an upper bound, without "at most" for the fit's estimate."""
-    lo, hi = range_95
-    return f"{'at most ' if upper else ''}{rate:.3g}{unit} (95 % range {lo:.3g} to {hi:.3g})"
+    lo, hi = (_rate_text(v) for v in range_95)
+    return f"{'at most ' if upper else ''}{_rate_text(rate)}{unit} (95 % range {lo} to {hi})"
+
+
+def _rate_text(v: float) -> str:
+    """A rate in three significant figures, whole numbers from 100 up (no exponent)."""
+    return f"{v:.0f}" if v >= 100 else f"{v:.3g}"
 
 
 def check_text(check: dict) -> str:
     """promise_check's result in one line: the promise, what was observed, the verdict."""
     return (f"stated {check['stated']}; observed {check['observed_raises']} in {check['running_h']:.2f} h of running "
-            f"({check['observed_per_30_days']:.3g} per 30 days): {check['verdict']}")
+            f"({_rate_text(check['observed_per_30_days'])} per 30 days): {check['verdict']}")
 
 
 def _total(summaries: list[dict], params: dict) -> dict:
