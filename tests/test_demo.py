@@ -25,8 +25,8 @@ REPO = Path(__file__).resolve().parent.parent
 # refusal, and gives the bearing defect the 3 days it needs in 6-hourly snapshots: only the one
 # at the top speed each day is scored (the slower two are under the window's speed resolution),
 # and an alert needs 20 s of scored running over the threshold.
-# Continuous running: 2 min a training day and 1 min a field day (the default's quarter), enough
-# for a stated rate from the count of raise-like stretches.
+# Continuous running: 2 min a training day and 1 min a field day (under half the default), enough
+# for a stated rate.
 SMALL = ["--days", "23", "--training-days", "6", "--interval-s", "21600", "--jobs", "1", "--evaluation", "off",
          "--continuous-s", "120", "60"]
 WINDOW_COLUMNS = ("t_s", "state", "score", "mode", "accel_rms_m_s2", "velocity_rms_mm_s")

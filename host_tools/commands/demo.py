@@ -47,9 +47,10 @@ HELP = "run the invented two-pump demo (generate data, check, train, replay, rep
 
 DEFAULT_DAYS = 42.0           # six weeks: every seeded fault of the scenario happens in them
 DEFAULT_INTERVAL_S = 10800.0  # one 10 s snapshot every 3 hours (plus one at each stop and start): about a minute on 2 cores
-# continuous running a day, s: 8 min on each training day (about an hour of held-out running in
-# all, the least that holds enough independent stretches for a rate fit) and 4 min on each field day
-DEFAULT_STRETCH_S = (480.0, 240.0)
+# continuous running a day, s: 5 min on each training day (about 0.6 h of held-out running in all,
+# some 25 independent stretches: enough for a rate fit, and each training hour costs about half a
+# minute on a core) and 2 min on each field day
+DEFAULT_STRETCH_S = (300.0, 120.0)
 _MARKER = "demo.json"         # what a finished demo folder holds, so a rerun may replace it
 
 
