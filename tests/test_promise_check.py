@@ -89,3 +89,23 @@ def test_no_fit_states_the_counted_upper_limit():
     assert any("at most" in w and "chi-square" in w for w in warnings)
     p, alert, alarm, thr, warnings = _factory_thresholds([])
     assert thr["expected_false_alerts_per_30_days"] is None and any("no stated rate" in w for w in warnings)
+
+
+def test_compare_and_fleet_show_an_upper_bound_as_such():
+    # the set's bound reaches compare's rates and its report, and a fleet row's reason
+    from types import SimpleNamespace
+
+    from firmware_py.detect import alarm as al
+    from host_tools.fleet.review import severity
+    from host_tools.report.compare_report import _expected
+    from host_tools.twin.compare import rates
+    per = {name: 0 for name in al.STATE_NAMES}
+    per["normal"] = 22500                                          # 1 h of 0.16 s windows
+    result = SimpleNamespace(summary={"total": {"windows_per_state": per, "windows": 22500, "alerts": 3}})
+    r = rates(result, 0.16, 40.0, upper=True)
+    assert r["expected_upper_bound"] and _expected(r) == "at most 40"
+    assert _expected(rates(result, 0.16, 40.0)) == "40"
+    assert r["observed_per_30_days"] == pytest.approx(3 * 720.0)     # 3 alerts in 1 h of running
+    row = {"state_now": "normal", "alarms": 0, "alerts": 0, "sensor_faults": 0, "drift": None,
+           "alerts_per_30_days": r["observed_per_30_days"], "expected_per_30_days": 40.0, "expected_upper_bound": True}
+    assert any("against at most 40 expected" in why for why in severity(row)[1])
