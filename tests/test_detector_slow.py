@@ -39,9 +39,10 @@ def _frame(d):
     return f
 
 
-def _ewma(det):
-    """The slow channel's per-feature EWMA, Q8 spreads."""
-    return [a >> det.ew_shift for a in det.ew_acc]
+def _ewma(det, mode=None):
+    """The slow channel's per-feature EWMA of a mode (default the window's), Q8 spreads."""
+    b = (det.mode if mode is None else mode) * det.d
+    return [a >> det.ew_shift for a in det.ew_acc[b:b + det.d]]
 
 
 def test_shift_is_the_nearest_power_of_two_of_the_time_constant():
@@ -114,7 +115,7 @@ def test_step_response_and_driving_feature():
             assert det.feat == fi.F_BAND0 + 2
 
 
-def test_resets_on_stop_and_mode_change():
+def test_each_mode_keeps_its_ewma_and_a_stop_resets_all():
     d = 2
     p = _params(d, det_slow_ms=32 * W_MS, det_modes=2, det_mode_c_q8=[0, 0, 512, 512],
                 det_mode_s_q8=[256] * 4, det_op_speed_q8=[0, 25 * 256, 25 * 256 + 1, 60 * 256],
@@ -127,7 +128,8 @@ def test_resets_on_stop_and_mode_change():
     for i in range(50):
         det.step(f, i, 0)
     assert det.mode == 0 and _ewma(det)[0] > 256
-    f[fi.F_SPEED] = 30 * 256                  # the other operating point: a fresh EWMA
+    kept = _ewma(det)
+    f[fi.F_SPEED] = 30 * 256                  # the other operating point: its own EWMA, from 0
     det.step(f, 50, 0)
     assert det.mode == 1
     # first window of mode 1: t = (2 - 2) spreads on feature 0, (0 - 2) on feature 1
@@ -135,9 +137,15 @@ def test_resets_on_stop_and_mode_change():
     for i in range(51, 80):
         det.step(f, i, 0)
     assert _ewma(det)[1] < 0
-    f[fi.F_VEL] = IDLE - 1                    # stopped: the evidence is forgotten, the EWMA too
+    assert _ewma(det, 0) == kept              # mode 0's evidence waits while mode 1 runs
+    f[fi.F_SPEED] = 20 * 256                  # back to mode 0: its EWMA carries on (one step on)
     det.step(f, 80, 0)
-    assert list(det.ew_acc) == [0, 0] and det.smax_q8 == 0
+    assert det.mode == 0
+    acc0 = (kept[0] << 5) + 2 * 256 - kept[0]
+    assert abs(_ewma(det)[0] - (acc0 >> 5)) <= 1
+    f[fi.F_VEL] = IDLE - 1                    # stopped: the evidence is forgotten, every EWMA too
+    det.step(f, 81, 0)
+    assert not any(det.ew_acc) and det.smax_q8 == 0
 
 
 def _stream(d, n, seed):
@@ -221,4 +229,90 @@ def test_accumulator_stays_under_its_bound_at_the_extremes():
             det._slow(0)
             top = max(top, max(abs(a) for a in det.ew_acc))
         assert top <= bound < 1 << 27
-        assert _ewma(det) == [hi, lo] or max(abs(e - v) for e, v in zip(_ewma(det), (hi, lo))) <= 1
+        assert _ewma(det, 0) == [hi, lo] or max(abs(e - v) for e, v in zip(_ewma(det, 0), (hi, lo))) <= 1
+
+
+def test_per_feature_gains_weigh_each_ewma():
+    # det_sgain_q8 weighs each feature's EWMA before the largest is taken. Steps of 1.5 and 1.0
+    # spreads on features 0 and 2, weighted 1 and 3: the weighted EWMAs follow the step's closed
+    # form delta * g * (1 - (1 - lam)**k) (Montgomery, EWMA chapter), so feature 2 drives the
+    # channel although its step is the smaller; a gain of 0 takes feature 1 out however large its
+    # step. Integer error: the EWMA is floored to 1/256 spread, then the product once more, so
+    # at most (g + 1) / 256 spread.
+    d, shift = 3, 5
+    lam = 2.0 ** -shift
+    gains = [256, 0, 3 * 256]
+    det = Detector(_params(d, det_slow_ms=32 * W_MS, det_sgain_q8=gains))
+    f = _frame(d)
+    det.step(f, 0, 0)
+    steps = (1.5, 20.0, 1.0)
+    for j, s in enumerate(steps):
+        f[fi.F_BAND0 + j] = int(s * SD)
+    for k in range(1, 120):
+        det.step(f, k, 0)
+        ref = [s * g / 256 * (1 - (1 - lam) ** k) for s, g in zip(steps, gains)]
+        assert abs(det.smax_q8 / 256 - max(ref)) <= (max(gains) / 256 + 1) / 256 + 1e-12
+        if k > 10:
+            assert det.s_drive == 2
+
+
+def test_sets_without_gains_weigh_every_feature_one():
+    # a set written before det_sgain_q8, or with it empty, is the unweighted slow channel
+    d = 4
+    x, vel = _stream(d, 1200, 7)
+    base = _params(d, det_thr_alert_q8=4 * 256, det_thr_alarm_q8=7 * 256, det_persist_ms=5 * W_MS,
+                   det_slow_ms=8 * W_MS, det_slam_q8=1024)
+    old = {k: v for k, v in base.items() if k != "det_sgain_q8"}
+    ref = _trace(old, x, vel)
+    assert _trace({**old, "det_sgain_q8": []}, x, vel) == ref
+    assert _trace({**old, "det_sgain_q8": [256] * d}, x, vel) == ref
+    assert _trace({**old, "det_sgain_q8": [512] * d}, x, vel) != ref
+
+
+def test_gains_are_checked():
+    good = {**_params(2), "version": 1, "board": "b", "fs_hz": 3200, "n": 512, "axes": 1,
+            "counts_per_g": 256, "fc_bands": [[3, 8]] * 2, "fc_vel_hz": [10, 1000]}
+    good["det_feat"] = [fi.F_BAND0, fi.F_BAND0 + 1]
+    prof = {"name": "b", "sample_rate_hz": 3200, "window_n": 512, "axes": 1}
+    param_check.validate({**good, "det_sgain_q8": [256, 256]}, prof)
+    with pytest.raises(ValueError):
+        param_check.validate({**good, "det_sgain_q8": [256]}, prof)       # one per scored feature
+    for bad in ([256, -1], [256, 4097]):
+        with pytest.raises(ValueError):
+            Detector({**_params(2), "det_sgain_q8": bad})
+
+
+def test_training_gains_from_ewma_spread():
+    # training.sgain_q8: sigma_j is the r.m.s. of feature j's held-out EWMA, floored at the EWMA
+    # spread of independent unit departures, sqrt(lam / (2 - lam)) (Montgomery, EWMA chart);
+    # weights median(sigma) / sigma_j. Independent N(0, 1) departures give EWMAs at that floor, so
+    # every weight is 1 within the sampling error; a feature whose departures wander as an AR(1)
+    # with coefficient phi has the larger EWMA variance
+    #   lam / (2 - lam) * (1 + (1 - lam) phi) / (1 - (1 - lam) phi)
+    # (the EWMA's variance for AR(1) input: sum over lags of the two filters' products; derived
+    # from the geometric series, common practice) and its weight falls by that ratio's root.
+    from scipy.signal import lfilter
+    from host_tools.fit.training import sgain_q8
+    shift, n, d = 4, 200_000, 5
+    lam = 2.0 ** -shift
+    rng = np.random.default_rng(3)
+    x = rng.standard_normal((n, d))
+    phi = 0.9
+    x[:, 4] = lfilter([np.sqrt(1 - phi ** 2)], [1, -phi], x[:, 4])       # unit-variance AR(1)
+    e = lfilter([lam], [1, -(1 - lam)], x, axis=0)[1000:]
+    q8, why = sgain_q8((e * e).sum(0), len(e), shift)
+    ratio = np.sqrt((1 + (1 - lam) * phi) / (1 - (1 - lam) * phi))
+    # sampling error of an EWMA variance from k correlated values: Bartlett, as in the chart test
+    # above, with the EWMA's own lag-one correlation 1 - lam (the AR(1) input's phi = 0.9 decays
+    # faster); the relative s.e. of sigma is half that of sigma**2, and a weight is a ratio of two
+    # sigmas (sqrt 2); 4 s.e. plus the Q8 rounding
+    rho = 1 - lam
+    rel = np.sqrt(2) * 0.5 * np.sqrt(2 / len(e) * (1 + rho ** 2) / (1 - rho ** 2))
+    for j in range(4):
+        assert abs(q8[j] / 256 - 1) <= 4 * rel + 0.5 / 256
+    assert abs(q8[4] / 256 - 1 / ratio) <= 4 * rel / ratio + 0.5 / 256
+    assert "spread" in why
+    # a feature quieter than the floor cannot earn a larger weight than one at the floor
+    floor2 = lam / (2 - lam)
+    q8b, _ = sgain_q8(np.array([floor2, 4.0, 1e-12]) * len(e), len(e), shift)
+    assert q8b[2] == q8b[0] == 256 and q8b[1] == round(256 * np.sqrt(floor2) / 2)

@@ -24,8 +24,9 @@ API
         t_s     int, seconds (any epoch, < 2**30); only copied into events
         dropped samples dropped since the previous window
       after it: det.state; det.score_q8 (combined score, Q8 spreads, 0 when not scored), det.dist_q8,
-      det.zmax_q8 and det.smax_q8 (its three channels before weighting, Q8 spreads; smax is kept
-      even when det_slam_q8 = 0 leaves it out of the score); det.mode (-1 none); det.feat (flat feature
+      det.zmax_q8 and det.smax_q8 (its three channels before weighting, Q8 spreads; smax after each
+      feature's det_sgain_q8, and kept even when det_slam_q8 = 0 leaves it out of the score);
+      det.mode (-1 none); det.feat (flat feature
       index that drove the score, the guard or the fault, -1 none); det.zone (ISO zone 0..3 =
       A..D); det.bb_vel_q16 (largest axis F_VEL, counts/s Q16); det.why (W_* below: why not scored, 0
       scored) and det.n_why (count per W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8),
@@ -81,6 +82,7 @@ PARAM_KEYS = (
     "det_zlam_q8",          # weight of the per-feature channel in the combined score, Q8
     "det_slow_ms",          # slow channel: EWMA time constant, nearest 2**shift analysed windows
     "det_slam_q8",          # weight of the slow channel in the combined score, Q8 (0 = off)
+    "det_sgain_q8",         # per scored feature, the weight of its EWMA in the slow channel, Q8
     "det_thr_alert_q8",     # combined score at or over which a window counts toward an alert, Q8
     "det_thr_alarm_q8",     # combined score at or over which a window counts toward an alarm, Q8
     "det_hyst_q8",          # clear threshold as a fraction of det_thr_alert_q8, Q8 (205 = 0.8)
@@ -121,8 +123,10 @@ PARAM_KEYS = (
     "det_event_n",          # capacity of the event ring
 )
 
-# keys added after the first sets: a set without them reads 0 (the slow channel off), as before
-LATER_KEYS = ("det_slow_ms", "det_slam_q8")
+# keys added after the first sets: a set without them reads 0 (the slow channel off), as before;
+# without det_sgain_q8 (or with it empty) every feature's EWMA weighs 256 (1), as before
+LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8")
+SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
 _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
 
 # why a window was not scored (det.why; 0 = scored); det.n_why counts each, saturating
@@ -292,6 +296,12 @@ class Detector:
         self.zlam_q8 = _int(p, "det_zlam_q8", 0, 1 << 12)
         q = {k: p.get(k, 0) for k in LATER_KEYS}
         self.slam_q8 = _int(q, "det_slam_q8", 0, 1 << 12)
+        # per-feature slow weights, Q8: each feature's EWMA against its own healthy spread
+        g = p.get("det_sgain_q8") or [256] * d
+        self.sgain_q8 = _ints({"det_sgain_q8": g}, "det_sgain_q8", d)
+        for j in range(d):
+            if not 0 <= self.sgain_q8[j] <= SGAIN_MAX:
+                raise ValueError("det_sgain_q8 must hold ints in [0, %d]" % SGAIN_MAX)
         self.ew_shift = _shift_for(windows_for(_int(q, "det_slow_ms", 0, _BIG), n, fs, every))
         if self.ew_shift > _SHIFT_MAX:
             raise ValueError("det_slow_ms spans more than %d analysed windows" % (1 << _SHIFT_MAX))
@@ -344,11 +354,12 @@ class Detector:
         # around (F_ORD_HALF .. F_ENV_FTF), else -1 (see _score)
         self.ord_axis = array("b", bytes(d))
         self.held = array("b", bytes(d))          # 1 where _mask_lines neutralised the line
-        # slow channel: per scored feature the EWMA of its departure t_j, kept as the accumulator
-        # ew_acc = EWMA * 2**ew_shift (Q8 spreads << ew_shift) so that no precision is lost to
-        # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input)
-        self.ew_acc = array("i", bytes(4 * d))
-        self.ew_mode = -1                         # the mode the EWMA belongs to
+        # slow channel: per mode and scored feature (mode-major, KMAX x d) the EWMA of its
+        # departure t_j, kept as the accumulator ew_acc = EWMA * 2**ew_shift (Q8 spreads <<
+        # ew_shift) so that no precision is lost to the shift (a plain Q8 EWMA would stick up to
+        # 2**shift LSB from its input)
+        self.ew_acc = array("i", bytes(4 * d * KMAX))
+        self.ew_used = False                      # some accumulator may be non-zero
         self.s_drive = 0                          # j of the largest EWMA (smax_q8)
         for j in range(d):
             fj = self.idx[j] % self.pa
@@ -386,7 +397,7 @@ class Detector:
         self.score_q8 = 0                            # combined score, Q8 spreads (0 when not scored)
         self.dist_q8 = 0                             # distance to the mode, Q8 spreads
         self.zmax_q8 = 0                             # largest single-feature |z|, Q8 spreads
-        self.smax_q8 = 0                             # largest single-feature EWMA rise, Q8 spreads
+        self.smax_q8 = 0                             # largest weighted single-feature EWMA rise, Q8
         self.mode = -1
         self.feat = -1
         self.zone = 0
@@ -837,37 +848,40 @@ class Detector:
 
     def _slow(self, m):
         """The slow channel: each feature's departure t_j (md.t_q8, within [-768, 32767] Q8)
-        enters its EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >> shift
-        is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12). A
-        line neutralised by _mask_lines carries no evidence: its EWMA holds. A new mode starts
-        from 0. smax = the largest EWMA, at least 0 (rises only, like zmax); s_drive its j."""
-        if m != self.ew_mode:
-            self._ew_reset()
-            self.ew_mode = m
+        enters mode m's EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >>
+        shift is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12).
+        A line neutralised by _mask_lines carries no evidence: its EWMA holds. Each mode keeps its
+        own EWMAs (departures from its own centre), so a return to a mode carries on with what was
+        gathered there. smax = the largest weighted EWMA (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767
+        and sgain <= 4096, so the product < 2**27), at least 0 (rises only, like zmax); s_drive
+        its j."""
+        self.ew_used = True
         acc = self.ew_acc
+        b = m * self.d
         t = self.model.t_q8
+        g = self.sgain_q8
         sh = self.ew_shift
         op = self.op_on                           # held[] is set only with operating points
         top = 0
         self.s_drive = 0
         for j in range(self.d):
             if not (op and self.held[j]):
-                acc[j] += t[j] - (acc[j] >> sh)
-            e = acc[j] >> sh
+                acc[b + j] += t[j] - (acc[b + j] >> sh)
+            e = ((acc[b + j] >> sh) * g[j]) >> 8
             if e > top:
                 top = e
                 self.s_drive = j
         self.smax_q8 = top
 
     def _ew_reset(self):
-        """Start the slow channel afresh (stop, sensor fault, learning, a change of mode). Only
-        _slow fills it, and it sets ew_mode, so with ew_mode -1 it is all 0 already (an idle
-        window, which forgets the evidence each time, costs no loop)."""
-        if self.ew_mode < 0:
+        """Start the slow channel afresh (stop, sensor fault, learning). Only _slow fills it, and
+        it sets ew_used, so without it all is 0 already (an idle window, which forgets the
+        evidence each time, costs no loop)."""
+        if not self.ew_used:
             return
-        for j in range(self.d):
-            self.ew_acc[j] = 0
-        self.ew_mode = -1
+        for i in range(len(self.ew_acc)):
+            self.ew_acc[i] = 0
+        self.ew_used = False
 
     def _mask_lines(self, f, m):
         """Order and envelope lines of an axis whose own 1x estimate (F_SPEED) lies more than the

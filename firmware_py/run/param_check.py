@@ -107,6 +107,8 @@ def validate(p, profile):
     d = len(_int_list(p, "det_feat"))
     for k in _SIZED:
         _int_list(p, k, d)
+    if p.get("det_sgain_q8"):                             # absent or [] = 256 each (detector)
+        _int_list(p, "det_sgain_q8", d)
     k_modes = p["det_modes"]
     if not 0 <= k_modes <= 64:
         raise ValueError("'det_modes' must be 0..64")

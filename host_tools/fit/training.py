@@ -39,7 +39,7 @@ edgevib is advisory condition monitoring, not machinery protection or a safety s
 from __future__ import annotations
 
 import math
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from concurrent.futures import ProcessPoolExecutor
 from typing import Any, Sequence
 
@@ -127,36 +127,85 @@ def _run(params: dict, feats: list[StreamFeatures], every: int):
 
 class _Channels:
     """A Detector that also keeps, per window, its per-feature and slow channels (zmax_q8,
-    smax_q8, unweighted) for step_detector to step like the device."""
+    smax_q8, unweighted) for step_detector to step like the device, and, over the windows that
+    enter the evidence with a mode (and lie in `select`, a mask by window index, when given),
+    each feature's sum of squared EWMAs (spreads squared, floats)."""
 
-    def __init__(self, det: Detector):
+    def __init__(self, det: Detector, select: np.ndarray | None = None):
         self.det, self.zmax, self.smax = det, [], []
+        self.select = select
+        self.ew_ss = np.zeros(det.d)
+        self.ew_n = 0
 
     def __getattr__(self, name: str) -> Any:
         return getattr(self.det, name)
 
     def step(self, f: Any, t_s: int, dropped: int) -> int:
-        state = self.det.step(f, t_s, dropped)
-        self.zmax.append(self.det.zmax_q8)
-        self.smax.append(self.det.smax_q8)
+        det = self.det
+        state = det.step(f, t_s, dropped)
+        self.zmax.append(det.zmax_q8)
+        self.smax.append(det.smax_q8)
+        if det.pushed and det.mode >= 0 and (self.select is None or self.select[t_s]):
+            b = det.mode * det.d
+            e = np.asarray(det.ew_acc[b:b + det.d], dtype=np.float64) / (256 << det.ew_shift)
+            self.ew_ss += e * e
+            self.ew_n += 1
         return state
 
 
-def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: list[np.ndarray] | None
-              ) -> tuple[list[np.ndarray], list[np.ndarray], list[np.ndarray]]:
-    """Evidence sequences of the muted set over the streams (windows in `select` only): the
-    combined score, the per-feature channel weighted by det_zlam_q8, and the slow channel
-    unweighted (Q8 spreads)."""
-    out: tuple[list[np.ndarray], list[np.ndarray], list[np.ndarray]] = ([], [], [])
+@dataclass
+class _Held:
+    """Held-out evidence of one fold: sequences of the combined score, of the per-feature channel
+    weighted by det_zlam_q8 and of the slow channel before det_slam_q8 (Q8 spreads); and per
+    scored feature the sum of squared EWMAs and their count (_Channels)."""
+
+    combined: list[np.ndarray]
+    per_feature: list[np.ndarray]
+    slow: list[np.ndarray]
+    ew_ss: np.ndarray
+    ew_n: int
+
+
+def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: list[np.ndarray] | None) -> _Held:
+    """Evidence of the muted set over the streams (windows in `select` only): see _Held."""
+    out = _Held([], [], [], np.zeros(len(params["det_feat"])), 0)
     zlam = params["det_zlam_q8"] / 256.0
     for i, sf in enumerate(feats):
-        ch = _Channels(Detector(_mute(params), every))
-        st = step_detector(ch, sf.feats)
         sel = None if select is None else select[i]
-        out[0].extend(evidence_sequences(st, sel))
-        out[1].extend(c * zlam for c in evidence_sequences(replace(st, score_q8=np.array(ch.zmax)), sel))
-        out[2].extend(evidence_sequences(replace(st, score_q8=np.array(ch.smax)), sel))
+        ch = _Channels(Detector(_mute(params), every), sel)
+        st = step_detector(ch, sf.feats)
+        out.combined.extend(evidence_sequences(st, sel))
+        out.per_feature.extend(c * zlam for c in evidence_sequences(replace(st, score_q8=np.array(ch.zmax)), sel))
+        out.slow.extend(evidence_sequences(replace(st, score_q8=np.array(ch.smax)), sel))
+        out.ew_ss += ch.ew_ss
+        out.ew_n += ch.ew_n
     return out
+
+
+def sgain_q8(ew_ss: np.ndarray, ew_n: int, shift: int) -> tuple[list[int], str]:
+    """Per-feature weights of the slow channel, Q8: each feature's EWMA against its own healthy
+    spread, so that one feature's small lasting rise is judged by how far its own EWMA wanders.
+
+    sigma_j = the r.m.s. of feature j's EWMA over held-out scored windows (ew_ss / ew_n, spreads
+    squared), at least sqrt(lam / (2 - lam)) with lam = 2**-shift: the EWMA spread of
+    independent departures of unit spread (Montgomery, EWMA chart; common practice), so that thin
+    data cannot make a feature look quieter than its per-window noise allows. A line whose
+    departures are per-window noise (an envelope line) averages down to that floor; one that
+    wanders with the process (the 1x line with the load) keeps most of its spread. Weight
+    g_j = median_k(sigma_k) / sigma_j (the median makes the weights relative; the channel's
+    overall weight det_slam_q8 is matched after), Q8 within [1, 4096]. All 256 (the unweighted
+    channel) when no window was scored."""
+    d = len(ew_ss)
+    if ew_n == 0:
+        return [256] * d, "all 1: no held-out scored window to measure the features' slow spreads"
+    lam = 2.0 ** -shift
+    floor = math.sqrt(lam / (2.0 - lam))
+    sigma = np.maximum(np.sqrt(ew_ss / ew_n), floor)
+    g = np.median(sigma) / sigma
+    q8 = [int(v) for v in np.clip(np.round(256 * g), 1, 4096)]
+    return q8, (f"each feature's {SLOW_MS / 1000:g}-s average against its own held-out spread ({floor:.2f} to {sigma.max():.2f} "
+                f"spreads; weights {min(q8) / 256:.2f} to {max(q8) / 256:.2f}): lines that wander with the process "
+                "count less, lines that only flicker count more")
 
 
 def slam_q8(zseqs: list[np.ndarray], sseqs: list[np.ndarray], p: dict, every: int) -> tuple[int, str]:
@@ -600,7 +649,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     p["det_feat"] = _feature_list(p)
     d = len(p["det_feat"])
     p.update(det_base_mean_q4=[0] * d, det_base_sd_q4=[256] * d, det_zlam_q8=zlam_q8(d), det_slow_ms=SLOW_MS,
-             det_slam_q8=0)
+             det_slam_q8=0, det_sgain_q8=[256] * d)
     pm.build(p, profile)
     twin = twin_for(p, profile)
     bar = start(4, "stages", "train", enabled=progress)    # features, scoring probe, fits, check
@@ -697,23 +746,30 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     sps.append(np.concatenate([sp[u] for sp, u in zip(speeds, use)]))
     fits = _fit_all(rows, sps, p, seed, jobs)
     bar.update(1)
-    # held-out sequences: the slow channel is weighted against the per-feature one, then the
-    # thresholds are fitted on the combined score with all three channels in it
+    # held-out sequences: each feature's slow weight from its own held-out EWMA spread, then the
+    # slow channel is weighted against the per-feature one, then the thresholds are fitted on the
+    # combined score with all three channels in it
     fold_sets = [(f, _with(p, **keys)) for f, keys in zip(fold_ids, fits)]
     if n_folds < 2:
         warnings.append("a single recording: thresholds come from the model's own training windows (optimistic)")
     p = _with(p, **fits[-1])
     held = [(pf, [wf == f for wf in win_fold]) for f, pf in fold_sets] or [(p, None)]
     parts = [_held_out(pf, feats, every, sel) for pf, sel in held]
-    slam, learned["slow_channel"] = slam_q8([c for h in parts for c in h[1]], [c for h in parts for c in h[2]],
-                                            p, every)
+    gains, learned["slow_gains"] = sgain_q8(sum(h.ew_ss for h in parts), sum(h.ew_n for h in parts),
+                                            Detector(p, every).ew_shift)
+    p["det_sgain_q8"] = gains
+    fold_sets = [(f, _with(pf, det_sgain_q8=gains)) for f, pf in fold_sets]
+    held = [(_with(pf, det_sgain_q8=gains), sel) for pf, sel in held]
+    parts = [_held_out(pf, feats, every, sel) for pf, sel in held]
+    slam, learned["slow_channel"] = slam_q8([c for h in parts for c in h.per_feature],
+                                            [c for h in parts for c in h.slow], p, every)
     p["det_slam_q8"] = slam
     fold_sets = [(f, _with(pf, det_slam_q8=slam)) for f, pf in fold_sets]
     if slam:
         held = [(_with(pf, det_slam_q8=slam), sel) for pf, sel in held]
-        seqs = [c for pf, sel in held for c in _held_out(pf, feats, every, sel)[0]]
+        seqs = [c for pf, sel in held for c in _held_out(pf, feats, every, sel).combined]
     else:
-        seqs = [c for h in parts for c in h[0]]
+        seqs = [c for h in parts for c in h.combined]
     alert, alarm, thr = _thresholds(seqs, p, every, window_s, false_alerts_per_month, warnings)
     p = _with(p, det_thr_alert_q8=alert, det_thr_alarm_q8=alarm)
     if thr.get("expected_false_alerts_per_30_days") is not None:
@@ -816,7 +872,7 @@ def report_text(summary: dict) -> str:
                  f"one feature alone counts {t['per_feature_weight']:.2f} times; raise on {t['persistence']}; "
                  f"alarm only after {t['escalation_s']:g} s in alert")
     lines.append(f"  a small lasting rise of one feature, averaged over the last {t['slow_s']:g} s of judged running, "
-                 f"counts {t['slow_weight']:.2f} times ({lr['slow_channel']})")
+                 f"counts {t['slow_weight']:.2f} times ({lr['slow_channel']}); {lr['slow_gains']}")
     lines.append(f"    method: {t['method']}; {t['validation']}")
     lines.append(f"    alarm: {t['alarm_rule']}")
     if t.get("expected_false_alerts_per_30_days") is not None:
