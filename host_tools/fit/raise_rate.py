@@ -33,7 +33,7 @@ Modeling of Extreme Values", sec. 5.3, runs declustering; from memory):
    least rate the data support, the threshold is set for it, and training warns. When training
    keeps a higher threshold than that (the device's conservative floor), the rate there is not
    extrapolated from the fit: the supported rate is stated as an upper bound (at_most), because
-   the rate of S reaching T cannot rise as T rises.
+   the clusters whose peak passes T are among those whose peak passes any lower threshold.
 6. No fit (fewer than LEAST_CLUSTERS clusters): the clusters of S at or over the threshold actually
    set are counted, and the exact Poisson 95 % upper limit of their rate is stated as an upper
    bound (count_bound; Garwood 1936).
@@ -241,9 +241,10 @@ def promise(rf: RateFit, target_per_30_days: float) -> Promise:
 
 def at_most(rf: RateFit, x: float, below: Promise) -> Promise:
     """The promise at a threshold x chosen otherwise, above the threshold of `below` (the
-    device's floor over the least supported rate): at most `below`'s rate, with its range. A
-    higher threshold cannot raise more often (S reaches x only where it has reached the lower
-    one), and the fit's own rate at x would be an extrapolation past what the data support."""
+    device's floor over the least supported rate): at most `below`'s rate, with its range. The
+    clusters whose peak passes x are among those whose peak passes the lower threshold, so the
+    rate can only fall; the fit's own rate at x would be an extrapolation past what the data
+    support."""
     return Promise(x, below.per_30_days, below.range_95, below.target_per_30_days, False, x > rf.s_max, True)
 
 
