@@ -4,7 +4,6 @@ a replay beside it (host_tools.twin.replay.promise_check), against scipy.stats.p
 import math
 from pathlib import Path
 
-import numpy as np
 import pytest
 from scipy import stats
 
