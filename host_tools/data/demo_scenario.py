@@ -489,7 +489,8 @@ def _joined(snaps: Sequence[Snapshot]) -> list[list[Snapshot]]:
 
 
 def ground_truth(sc: Scenario) -> dict:
-    """What was seeded where: faults with their t0_s ranges, stops, pump data, scales."""
+    """What was seeded where: faults with their t0_s ranges, stops, continuous stretches, pump
+    data, scales."""
     return {
         "note": "invented demo data: a fictional plant, pumps and faults",
         "plant": PLANT,
