@@ -25,7 +25,10 @@ REPO = Path(__file__).resolve().parent.parent
 # refusal, and gives the bearing defect the 3 days it needs in 6-hourly snapshots: only the one
 # at the top speed each day is scored (the slower two are under the window's speed resolution),
 # and an alert needs 20 s of scored running over the threshold.
-SMALL = ["--days", "23", "--training-days", "6", "--interval-s", "21600", "--jobs", "1", "--evaluation", "off"]
+# Continuous running: 2 min a training day and 1 min a field day (under half the default), enough
+# for a stated rate.
+SMALL = ["--days", "23", "--training-days", "6", "--interval-s", "21600", "--jobs", "1", "--evaluation", "off",
+         "--continuous-s", "120", "60"]
 WINDOW_COLUMNS = ("t_s", "state", "score", "mode", "accel_rms_m_s2", "velocity_rms_mm_s")
 
 
@@ -110,6 +113,35 @@ def test_summary_counts_false_alerts_outside_the_faults(demo):
                  and not any(a <= e["t_s"] <= b for a, b in spans)]
         block = text.split(f"\n{pump}: ", 1)[1]
         assert re.search(rf"outside the seeded faults \([\d.]+ days\): {len(false)} false alert\(s\)", block)
+
+
+def test_summary_sets_the_stated_rate_beside_the_healthy_field_running(demo):
+    # The set stores the promise its summary states (msgpack beside json), and the printed verdict
+    # on the field's healthy running is the Poisson one (scipy.stats.poisson) for the count and
+    # hours printed: for an upper bound, agrees up to the 97.5 % quantile of the range's upper end.
+    from scipy.stats import poisson
+    _, out, _, text = demo
+    for pump in ("P-101", "P-102"):
+        t = json.loads((out / pump / "params.json").read_text())["thresholds"]
+        params = msgpack.unpackb((out / pump / "params.msgpack").read_bytes(), raw=False)
+        rate, lo, hi = t["expected_false_alerts_per_30_days"], *t["range_95_per_30_days"]
+        assert params["fit_promise_milli"] == [round(1000 * v) for v in (rate, lo, hi)]
+        assert params["fit_promise_upper"] == int(t["upper_bound"])
+        block = text.split(f"\n{pump}: ", 1)[1]
+        assert re.search(r"stated by training: (at most )?[\d.e+]+ false alerts per 30 days of running \(95 % range", block)
+        m = re.search(r"healthy field running: (\d+) false alert\(s\) in ([\d.]+) h of running \([^)]*\): ([a-z ]+)\n",
+                      block)
+        assert m, block
+        n, h, verdict = int(m.group(1)), float(m.group(2)), m.group(3)
+        assert h > 0
+        lo, hi = (v / 1000 for v in params["fit_promise_milli"][1:])      # as the set stores them
+        hi_n = poisson.ppf(0.975, hi * h / 720.0)
+        if t["upper_bound"]:
+            assert verdict == ("agrees" if n <= hi_n else "more than promised")
+        else:
+            lo_n = poisson.ppf(0.025, lo * h / 720.0)
+            assert verdict == ("agrees" if lo_n <= n <= hi_n else "more than promised" if n > hi_n
+                               else "fewer than promised")
 
 
 def test_trained_idle_floor_tells_stopped_from_running_on_the_training_days(demo):

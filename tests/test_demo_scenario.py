@@ -180,3 +180,41 @@ def test_schedule_and_ground_truth():
         assert set(ds.OPERATING_RPM) | {0.0} <= rpms
         assert {s.trigger for s in train if s.pump == pump} == {"periodic", "stop", "start"}
     assert "invented" in ds.__doc__.lower() and "invented" in truth["note"]
+
+
+def test_continuous_stretches_are_steady_healthy_and_gap_free():
+    # One stretch a day at the top speed throughout (2 min before to 1 min after), outside every
+    # seeded fault, wholly in training or in the field, as whole-sample files of at most a minute
+    # that each start where the one before ends; no other recording of the pump overlaps it.
+    sc = ds.build_scenario(stretch_s=(480.0, 240.0))
+    truth = ds.ground_truth(sc)
+    for pump in sc.pumps:
+        spans = [(c["from_t_s"], c["to_t_s"]) for c in truth["pumps"][pump]["continuous"]]
+        days = {int((a - sc.start_t0_s) // DAY) for a, _ in spans}
+        assert len(days) == len(spans) and sum(b <= sc.training_end_t0_s for _, b in spans) == ds.TRAINING_DAYS
+        for a, b in spans:
+            assert b - a == pytest.approx(480.0 if b <= sc.training_end_t0_s else 240.0, abs=0.5 / ds.FS_HZ)
+            assert a >= sc.training_end_t0_s or b <= sc.training_end_t0_s
+            assert np.all(sc.speed_rpm(pump, np.arange(a - 120.0, b + 61.0)) == ds.TOP_RPM)
+            assert not any(f.pump == pump and f.start_t0_s <= b and a <= f.end_t0_s for f in sc.faults)
+            files = [s for s in sc.snapshots if s.pump == pump and s.trigger == "continuous" and a <= s.t0_s < b]
+            assert all(s.duration_s <= ds.STRETCH_FILE_S and (s.duration_s * ds.FS_HZ).is_integer() for s in files)
+            assert all(abs(p.t0_s + p.duration_s - q.t0_s) < 1e-6 for p, q in zip(files, files[1:]))
+            assert files[0].t0_s == a and files[-1].t0_s + files[-1].duration_s == pytest.approx(b, abs=1e-6)
+            others = [s for s in sc.snapshots if s.pump == pump and s.trigger != "continuous"]
+            assert not any(s.t0_s < b and s.t0_s + s.duration_s > a for s in others)
+    # without stretches the schedule is the snapshots' alone, as before
+    assert ds.build_scenario().snapshots == SC.snapshots
+    assert not any(s.trigger == "continuous" for s in SC.snapshots)
+
+
+def test_stretches_written_alike_by_any_number_of_processes(tmp_path):
+    gt = ds.write_scenario(tmp_path / "a", days=2.0, training_days=1.0, stretch_s=(120.0, 60.0))
+    ds.write_scenario(tmp_path / "b", days=2.0, training_days=1.0, stretch_s=(120.0, 60.0), jobs=2)
+    assert _tree_hashes(tmp_path / "a") == _tree_hashes(tmp_path / "b")
+    truth = json.loads(gt.read_text())
+    recs = read_stream(tmp_path / "a" / "P-101" / "training", expected_rate_hz=ds.FS_HZ)
+    cont = [r for r in recs if r.sidecar.get("trigger") == "continuous"]
+    assert len(cont) == 2 and len(recs) == len(truth["files"]["P-101"]["training"])
+    # the two files of the stretch join sample by sample (t0 of the second = end of the first)
+    assert cont[0].t0_s + len(cont[0].counts) / ds.FS_HZ == pytest.approx(cont[1].t0_s, abs=1e-6)

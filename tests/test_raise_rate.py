@@ -1,6 +1,7 @@
 """The false-raise rate under the persistence rule on correlated windows (host_tools.fit.raise_rate),
 against a long simulation of an AR(1) process run here with the rule written out in numpy."""
 import numpy as np
+import pytest
 from scipy import signal, stats
 
 import firmware_py  # noqa: F401
@@ -86,7 +87,7 @@ def test_short_data_refuses_to_promise_more_than_it_can():
     # the data support (its 95 % upper limit at most SUPPORT_RATIO times the rate) instead
     fit = rr.fit([ar1_scores(22_500, 1)], SPAN, K, WINDOW_S)
     pr = rr.promise(fit, 1.0)
-    assert not pr.supported and pr.per_30_days > 1.0
+    assert not pr.supported and pr.per_30_days > 1.0 and not pr.upper_bound
     assert pr.range_95[1] <= rr.SUPPORT_RATIO * pr.per_30_days * (1 + 1e-6)
     # and the supported promise holds on 17.8 h of fresh data, as above
     test = ar1_scores(400_000, 5)
@@ -94,19 +95,60 @@ def test_short_data_refuses_to_promise_more_than_it_can():
     n = rule_raises(test, int(np.floor(pr.threshold)) + 1)
     lo, hi = (r * hours / 720.0 for r in pr.range_95)
     assert stats.poisson.ppf(0.025, lo) <= n <= stats.poisson.ppf(0.975, hi)
+    # A floor above the supported threshold (training keeps the device's conservative rule) is
+    # promised "at most" the supported rate, never the fit extrapolated: the same rate and range,
+    # marked an upper bound. On the fresh data the rule at the floor raises no more than the
+    # Poisson 97.5 % quantile of the range's upper end (fewer is no disagreement for a bound).
+    floor = pr.threshold * 1.25
+    up = rr.at_most(fit, floor, pr)
+    assert up.upper_bound and not up.supported and up.threshold == floor
+    assert up.per_30_days == pr.per_30_days and up.range_95 == pr.range_95
+    assert rule_raises(test, int(np.floor(floor)) + 1) <= stats.poisson.ppf(0.975, hi)
 
 
-def test_a_floor_past_a_bounded_tail_keeps_the_supported_upper_limit():
-    # peaks from a bounded tail (generalised Pareto, shape -0.4: endpoint u + sigma / 0.4); a
-    # threshold past the endpoint has rate 0 by the fit, and all that is known is the upper limit
-    # of any lower threshold (the rate cannot rise with the threshold)
-    peaks = 100.0 + stats.genpareto.rvs(-0.4, scale=10.0, size=60, random_state=3)
-    rf = rr.fit([np.repeat(peaks, 1)], 1, 1, 60.0)
-    below = rr.promise(rf, 1.0)
-    far = rr.promise_at(rf, rf.u + 10.0 * rf.tail.scale / max(-rf.tail.shape, 1e-3) + 1.0, 1.0, below)
-    assert far.per_30_days == 0.0 and far.range_95 == (0.0, below.range_95[1]) and not far.supported
-    near = rr.promise_at(rf, below.threshold + 0.5, 1.0, below)
-    assert near.per_30_days <= below.per_30_days and near.range_95[1] <= below.range_95[1]
+def _garwood_by_definition(n):
+    """The exact Poisson limits by their definition (Garwood 1936): the means at which n or more
+    events (lower) and n or fewer (upper) each have probability 2.5 %, solved with
+    scipy.stats.poisson and scipy.optimize.brentq, not from the chi-square form."""
+    from scipy.optimize import brentq
+    hi = brentq(lambda m: stats.poisson.cdf(n, m) - 0.025, 1e-9, 10.0 * n + 20.0, xtol=1e-12)
+    lo = 0.0 if n == 0 else brentq(lambda m: stats.poisson.sf(n - 1, m) - 0.025, 1e-12, n, xtol=1e-12)
+    return lo, hi
+
+
+def test_garwood_limits_are_the_exact_poisson_limits():
+    # zero events: the upper limit is -ln(0.025) = 3.689 events (P(0 | m) = exp(-m) = 0.025)
+    assert rr.garwood_95(0) == (0.0, pytest.approx(-np.log(0.025), rel=1e-12))
+    for n in (1, 2, 5, 12, 40):
+        lo, hi = rr.garwood_95(n)
+        ref_lo, ref_hi = _garwood_by_definition(n)
+        assert lo == pytest.approx(ref_lo, rel=1e-8) and hi == pytest.approx(ref_hi, rel=1e-8)
+
+
+def test_count_bound_states_the_upper_limit_of_the_clusters_counted():
+    # Without a fit: clusters of S at or over the threshold, counted as runs (exceedances less
+    # than a span apart share one), over the held-out hours H. Three sequences with 0, 2 and 3
+    # bursts of high scores (each K windows long, 3 spans apart) hold 5 clusters in known hours.
+    base = np.full(20 * SPAN, 300.0)
+    seqs = []
+    for bursts in (0, 2, 3):
+        c = base.copy()
+        for j in range(bursts):
+            c[(3 * j + 2) * SPAN:(3 * j + 2) * SPAN + K] = 2000.0
+        seqs.append(c)
+    hours = 3 * len(base) * WINDOW_S / 3600
+    got = rr.count_bound(seqs, 1500.0, SPAN, K, WINDOW_S, 1.0)
+    assert got.clusters == 5 and got.hours == pytest.approx(hours, rel=1e-12)
+    lo, hi = _garwood_by_definition(5)
+    pr = got.promise
+    assert pr.upper_bound and not pr.supported and pr.threshold == 1500.0
+    assert pr.per_30_days == pytest.approx(hi * 720 / hours, rel=1e-8)
+    assert pr.range_95 == (pytest.approx(lo * 720 / hours, rel=1e-8), pytest.approx(hi * 720 / hours, rel=1e-8))
+    # nothing at or over the threshold: at most -ln(0.025) / H per hour, per 30 days x 720
+    none = rr.count_bound(seqs, 2500.0, SPAN, K, WINDOW_S, 1.0)
+    assert none.clusters == 0 and none.promise.beyond_data
+    assert none.promise.per_30_days == pytest.approx(-np.log(0.025) / hours * 720, rel=1e-12)
+    assert rr.count_bound([], 1500.0, SPAN, K, WINDOW_S, 1.0) is None
 
 
 def test_matched_weight_keeps_the_weighted_channel_under_the_reference():

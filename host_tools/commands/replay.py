@@ -41,8 +41,8 @@ from host_tools.data.times import moment
 from host_tools.errors import EdgevibError
 from host_tools.ops.param_gate import prove
 from host_tools.data.units import m_s2_per_count
-from host_tools.twin.replay import (ReplayChunk, ReplayResult, csv_header, csv_rows, default_jobs, group_sources,
-                                   replay, stream_names)
+from host_tools.twin.replay import (ReplayChunk, ReplayResult, check_text, csv_header, csv_rows, default_jobs,
+                                   group_sources, replay, stream_names)
 
 HELP = "replay recordings through the device detector: events, per-window states, scores and features"
 
@@ -145,5 +145,8 @@ def summary_text(result: ReplayResult) -> str:
         for e in result.events:
             if e["stream"] == name and e["to"] in ("alert", "alarm", "sensor_fault"):
                 lines.append("  " + event_line(e))
+    check = result.summary["total"].get("promise")
+    if check:
+        lines.append("the set's training " + check_text(check) + " (raises on healthy running are false alerts)")
     lines.append("advisory condition monitoring, not machinery protection; no alert is no guarantee of health\n")
     return "\n".join(lines)

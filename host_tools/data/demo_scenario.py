@@ -31,11 +31,19 @@ more steady running than the settling after a speed change, as the evaluation hi
 - P-102: a cavitation episode on days 25.5-28 (low suction level): bursts of broadband noise above
   400 Hz and a raised flow-noise level, strong at 1480 r/min, weaker at 1180, none at 890.
 The first 7 days of both pumps are healthy and form the training set; the rest is the field set.
+Continuous running (stretch_s; `make demo` asks for it): on each day one stretch of steady top
+speed with no seeded fault, as a gateway records on request, written as gap-free files of a
+minute (STRETCH_FILE_S) that replay joins sample by sample. Over a stretch the level of each
+source wanders slowly (AR(1), WANDER_TAU_S) with the spread that snapshots show between them, so
+the held-out running in training holds independent stretches to state a false-alert rate from,
+and the field's healthy running can be set beside it (docs/detector.md, the false-alert rate).
 
-Deterministic: one seed fixes the whole scenario; each snapshot draws from its own generator
-seeded by (seed, pump, time), so any snapshot can be made alone and comes out the same.
+Deterministic: one seed fixes the whole scenario; each snapshot, and each continuous stretch,
+draws from its own generator seeded by (seed, pump, time), so any of them can be made alone and
+comes out the same.
 
-Entry points: PumpSpec, Fault, Snapshot, Scenario, build_scenario(), synthesize(), snapshot_sidecar(), snapshot_set(), write_scenario(), ground_truth().
+Entry points: PumpSpec, Fault, Snapshot, Scenario, build_scenario(), synthesize(), stretch_counts(),
+snapshot_sidecar(), snapshot_set(), write_scenario(), ground_truth().
 """
 from __future__ import annotations
 
@@ -45,6 +53,7 @@ import os
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
+from typing import Iterator, Sequence
 
 import numpy as np
 from scipy import signal
@@ -65,6 +74,7 @@ DAYS = 42
 TRAINING_DAYS = 7
 SNAPSHOT_S = 10.0
 SNAPSHOT_INTERVAL_S = 7200.0
+STRETCH_FILE_S = 60.0     # a continuous stretch is written as gap-free files of a minute
 OPERATING_RPM = (1480.0, 1180.0, 890.0)
 TOP_RPM = OPERATING_RPM[0]
 RAMP_RPM_PER_S = 150.0
@@ -73,6 +83,9 @@ BEARING_SLIP = 0.01  # rolling elements lag the kinematic rate by about 1 % (com
 # Noise density per axis (x, y, z), ug/sqrt(Hz): the ADXL345's (pump_physics.ADXL345, from memory).
 SENSOR_NOISE_UG_RTHZ = ph.ADXL345.noise_ug_rthz
 _DAY_S = 86400.0
+# Continuous running (make demo): the levels of 1x, 2x, vane pass and flow noise wander slowly,
+# AR(1) with these time constants (s); their spread is the snapshots' (5 %)
+WANDER_TAU_S = (30.0, 60.0, 45.0, 20.0)
 
 
 @dataclass(frozen=True)
@@ -165,9 +178,11 @@ FAULT_PLAN = (
 
 def build_scenario(seed: int = DEFAULT_SEED, days: float = DAYS, training_days: float = TRAINING_DAYS,
                    interval_s: float = SNAPSHOT_INTERVAL_S, pumps: tuple[PumpSpec, ...] = PUMPS,
-                   fault_plan: tuple = FAULT_PLAN) -> Scenario:
+                   fault_plan: tuple = FAULT_PLAN, stretch_s: tuple[float, float] = (0.0, 0.0)) -> Scenario:
     """Plan the scenario (speeds, stops, faults, snapshot times); cheap, no signals yet.
-    pumps and fault_plan: the demo's two pumps by default (host_tools.data.demo_fleet gives more)."""
+    pumps and fault_plan: the demo's two pumps by default (host_tools.data.demo_fleet gives more).
+    stretch_s: seconds of continuous running recorded on each training day and each field day
+    (_stretches; 0: snapshots only)."""
     rng = np.random.default_rng([seed, 0])
     t_start = START_T0_S
     t_end = t_start + days * _DAY_S
@@ -191,9 +206,35 @@ def build_scenario(seed: int = DEFAULT_SEED, days: float = DAYS, training_days: 
             snaps.append(Snapshot(p.name, t_stop - 1.0, trigger="stop"))
             if t_go < t_end - SNAPSHOT_S:
                 snaps.append(Snapshot(p.name, t_go - 1.0, trigger="start"))
+    sc = Scenario(seed, t_start, t_end, d(training_days), {p.name: p for p in pumps}, faults, (), stops, speed_bp)
+    spans = [(p.name, a, b) for p in pumps for a, b in _stretches(sc, p.name, stretch_s)]
+    snaps = [s for s in snaps if not any(s.pump == q and s.t0_s < b and s.t0_s + s.duration_s > a for q, a, b in spans)]
+    for pump, a, b in spans:
+        total, per = int(round((b - a) * FS_HZ)), int(round(STRETCH_FILE_S * FS_HZ))  # whole samples: files join exactly
+        snaps += [Snapshot(pump, a + k / FS_HZ, min(per, total - k) / FS_HZ, "continuous") for k in range(0, total, per)]
     snaps.sort(key=lambda s: (s.pump, s.t0_s))
-    return Scenario(seed, t_start, t_end, d(training_days), {p.name: p for p in pumps}, faults,
-                    tuple(snaps), stops, speed_bp)
+    sc.snapshots = tuple(snaps)
+    return sc
+
+
+def _stretches(sc: Scenario, pump: str, stretch_s: tuple[float, float]) -> list[tuple[float, float]]:
+    """One continuous stretch a day (from, to; Unix s): stretch_s[0] s on a training day,
+    stretch_s[1] on a field day, from 5 min past the first hour that keeps the top speed
+    throughout (steady 2 min before, 1 min after: scored running, as a gateway would record it on
+    request) with no seeded fault anywhere in it, and wholly in training or in the field."""
+    out = []
+    for day in range(int(math.ceil((sc.end_t0_s - sc.start_t0_s) / _DAY_S))):
+        t_day = sc.start_t0_s + day * _DAY_S
+        length = stretch_s[0] if t_day < sc.training_end_t0_s else stretch_s[1]
+        for hour in range(24) if length > 0 else ():
+            a = t_day + hour * 3600.0 + 300.0
+            b = a + length
+            steady = np.all(sc.speed_rpm(pump, np.arange(a - 120.0, b + 61.0)) == TOP_RPM)
+            faulty = any(f.pump == pump and f.start_t0_s <= b and a <= f.end_t0_s for f in sc.faults)
+            if steady and not faulty and b <= sc.end_t0_s and (b <= sc.training_end_t0_s or a >= sc.training_end_t0_s):
+                out.append((a, b))
+                break
+    return out
 
 
 def _hourly_speeds(rng: np.random.Generator, hours: int, stop_days: list[float]) -> np.ndarray:
@@ -244,38 +285,89 @@ _BEARING_END_M_S2 = 25.0  # peak of one impact's ring-down at full defect severi
 def synthesize(sc: Scenario, snap: Snapshot) -> np.ndarray:
     """Accelerometer counts of one snapshot: int16 in ADC_MIN..ADC_MAX, frames x 3 (x, y, z),
     M_S2_PER_COUNT m/s^2 per count."""
-    p = sc.pumps[snap.pump]
-    rng = np.random.default_rng([sc.seed, 1 + [*sc.pumps].index(p.name), int(round(snap.t0_s * 1000))])
-    n = int(round(snap.duration_s * FS_HZ))
-    t = snap.t0_s + np.arange(n) / FS_HZ
-    rpm = sc.speed_rpm(p.name, t) * (1.0 + 0.001 * rng.standard_normal())  # slip varies with load
-    fr = rpm / 60.0
-    theta = 2.0 * np.pi * np.cumsum(fr) / FS_HZ + rng.uniform(0, 2 * np.pi)  # shaft angle, rad
-    load = (rpm / TOP_RPM) ** 2
-    vary = np.exp(0.05 * rng.standard_normal(4))  # day-to-day spread of each source
-    cav = sc.fault_severity(p.name, "cavitation", snap.t0_s) * float(np.clip((rpm.mean() - 890.0) / 590.0, 0, 1)) ** 1.5
-    ph = rng.uniform(0, 2 * np.pi, 4)
+    return _Signal(sc, snap.pump, snap.t0_s).next(int(round(snap.duration_s * FS_HZ)))
 
-    a = np.outer(load * p.imbalance_m_s2 * vary[0] * np.cos(theta), _GAIN_1X)
-    a[:, 2] = load * p.imbalance_m_s2 * vary[0] * _GAIN_1X[2] * np.sin(theta)  # rotating force
-    a += np.outer(load * p.misalignment_m_s2 * vary[1] * np.cos(2 * theta + ph[0]), _GAIN_2X)
-    vane_level = p.vane_pass_m_s2 * vary[2] * (1.0 + 0.3 * cav * rng.standard_normal())
-    vane = load * vane_level * (1.0 + 0.6 * np.cos(theta + ph[1])) * np.cos(p.vane_count * theta + ph[2])
-    a += np.outer(vane, _GAIN_VANE)
-    flow = signal.sosfilt(_FLOW_SOS, rng.standard_normal((n + 1024, 3)), axis=0)[1024:]  # skip filter start-up
-    a += flow * (p.flow_noise_rms_m_s2 * vary[3] * (1.0 + cav) / flow.std()) * load[:, None]
-    a += 0.01 * signal.sosfilt(_FLOW_SOS, rng.standard_normal((n + 1024, 3)), axis=0)[1024:]  # station background
-    a += np.outer(_bearing_impacts(sc, p, snap.t0_s, theta, rpm, rng), _GAIN_RES)
-    if cav > 0.0:
-        a += _cavitation(rng, n, cav)
-    a += rng.standard_normal((n, 3)) * (np.asarray(SENSOR_NOISE_UG_RTHZ) * 1e-6 * G_M_S2 * math.sqrt(FS_HZ / 2.0))
-    drift = 0.03 * np.sin(2 * np.pi * (t - sc.start_t0_s) / _DAY_S + ph[3])  # offsets follow temperature
-    a += np.asarray(p.offsets_m_s2) + drift[:, None]
-    a[:, 2] += G_M_S2
-    counts = np.clip(np.rint(a / M_S2_PER_COUNT), ADC_MIN, ADC_MAX).astype(np.int16)
-    if sc.fault_severity(p.name, "loose_cable", snap.t0_s) > 0.0 and rng.random() < 0.8:
-        _loose_cable(rng, counts)
-    return counts
+
+def stretch_counts(sc: Scenario, snaps: Sequence[Snapshot]) -> Iterator[np.ndarray]:
+    """Counts of gap-free recordings (each starting where the one before ends) made from one
+    running signal, so that they join sample by sample; the levels wander (WANDER_TAU_S)."""
+    sig = _Signal(sc, snaps[0].pump, snaps[0].t0_s, wander=True)
+    for snap in snaps:
+        yield sig.next(int(round(snap.duration_s * FS_HZ)))
+
+
+class _Signal:
+    """One pump's accelerometer from t0, made chunk by chunk with its state carried (shaft angle,
+    filter states, each source's level): a snapshot is the first chunk of a fresh signal, a
+    continuous stretch many chunks of one. A snapshot's level of each source is exp(0.05 z), z
+    standard normal: the spread from one snapshot to the next. With wander, z is a unit-variance
+    AR(1) process from there (time constants WANDER_TAU_S; ph.ar1): a snapshot is a moment of
+    the same slowly wandering levels."""
+
+    def __init__(self, sc: Scenario, pump: str, t0: float, wander: bool = False):
+        p = sc.pumps[pump]
+        self.sc, self.p, self.t = sc, p, t0
+        key = [sc.seed, 1 + [*sc.pumps].index(p.name), int(round(t0 * 1000))]
+        rng = self.rng = np.random.default_rng(key)
+        self.slip = 1.0 + 0.001 * rng.standard_normal()  # slip varies with load
+        self.theta = rng.uniform(0, 2 * np.pi)          # shaft angle, rad
+        self.z = rng.standard_normal(4)                 # level of each source (see the class)
+        self.ph = rng.uniform(0, 2 * np.pi, 4)
+        self.wander = np.random.default_rng(key + [1]) if wander else None
+        self.zi: list[np.ndarray | None] = [None, None]  # flow and background filter states
+        self.flow_norm: float | None = None
+
+    def _noise(self, i: int, n: int) -> np.ndarray:
+        """n frames of band-limited noise i (0 flow, 1 background), continuing its filter; the
+        first chunk skips the filter's start-up."""
+        skip = 1024 if self.zi[i] is None else 0
+        zi = np.zeros((_FLOW_SOS.shape[0], 2, 3)) if self.zi[i] is None else self.zi[i]
+        out, self.zi[i] = signal.sosfilt(_FLOW_SOS, self.rng.standard_normal((n + skip, 3)), axis=0, zi=zi)
+        return out[skip:]
+
+    def _levels(self, n: int) -> np.ndarray | list[np.ndarray]:
+        if self.wander is None:
+            return np.exp(0.05 * self.z)
+        z = [ph.ar1(self.wander, n, math.exp(-1.0 / (tau * FS_HZ)), float(z0)) for tau, z0 in zip(WANDER_TAU_S, self.z)]
+        self.z = np.array([v[-1] for v in z])
+        return [np.exp(0.05 * v) for v in z]
+
+    def next(self, n: int) -> np.ndarray:
+        """The next n frames as counts (int16, n x 3)."""
+        sc, p, rng, t0 = self.sc, self.p, self.rng, self.t
+        t = t0 + np.arange(n) / FS_HZ
+        self.t += n / FS_HZ
+        rpm = sc.speed_rpm(p.name, t) * self.slip
+        fr = rpm / 60.0
+        theta = 2.0 * np.pi * np.cumsum(fr) / FS_HZ + self.theta
+        self.theta = float(theta[-1] % (2 * np.pi))     # every source is a whole order: wraps unseen
+        load = (rpm / TOP_RPM) ** 2
+        vary = self._levels(n)
+        cav = sc.fault_severity(p.name, "cavitation", t0) * float(np.clip((rpm.mean() - 890.0) / 590.0, 0, 1)) ** 1.5
+        ph_ = self.ph
+
+        a = np.outer(load * p.imbalance_m_s2 * vary[0] * np.cos(theta), _GAIN_1X)
+        a[:, 2] = load * p.imbalance_m_s2 * vary[0] * _GAIN_1X[2] * np.sin(theta)  # rotating force
+        a += np.outer(load * p.misalignment_m_s2 * vary[1] * np.cos(2 * theta + ph_[0]), _GAIN_2X)
+        vane_level = p.vane_pass_m_s2 * vary[2] * (1.0 + 0.3 * cav * rng.standard_normal())
+        vane = load * vane_level * (1.0 + 0.6 * np.cos(theta + ph_[1])) * np.cos(p.vane_count * theta + ph_[2])
+        a += np.outer(vane, _GAIN_VANE)
+        flow = self._noise(0, n)
+        if self.flow_norm is None:
+            self.flow_norm = float(flow.std())           # the first chunk's, kept: no step at a seam
+        a += flow * np.reshape(p.flow_noise_rms_m_s2 * vary[3] * (1.0 + cav) / self.flow_norm, (-1, 1)) * load[:, None]
+        a += 0.01 * self._noise(1, n)                    # station background
+        a += np.outer(_bearing_impacts(sc, p, t0, theta, rpm, rng), _GAIN_RES)
+        if cav > 0.0:
+            a += _cavitation(rng, n, cav)
+        a += rng.standard_normal((n, 3)) * (np.asarray(SENSOR_NOISE_UG_RTHZ) * 1e-6 * G_M_S2 * math.sqrt(FS_HZ / 2.0))
+        drift = 0.03 * np.sin(2 * np.pi * (t - sc.start_t0_s) / _DAY_S + ph_[3])  # offsets follow temperature
+        a += np.asarray(p.offsets_m_s2) + drift[:, None]
+        a[:, 2] += G_M_S2
+        counts = np.clip(np.rint(a / M_S2_PER_COUNT), ADC_MIN, ADC_MAX).astype(np.int16)
+        if sc.fault_severity(p.name, "loose_cable", t0) > 0.0 and rng.random() < 0.8:
+            _loose_cable(rng, counts)
+        return counts
 
 
 def _bearing_impacts(sc: Scenario, p: PumpSpec, t0: float, theta: np.ndarray, rpm: np.ndarray,
@@ -340,24 +432,26 @@ def snapshot_set(sc: Scenario, snap: Snapshot) -> str:
 
 
 def write_scenario(out_dir: str | os.PathLike, seed: int = DEFAULT_SEED, days: float = DAYS,
-                   training_days: float = TRAINING_DAYS, interval_s: float = SNAPSHOT_INTERVAL_S) -> Path:
-    """Write every snapshot as WAV + sidecar and the ground truth; returns ground_truth.json.
+                   training_days: float = TRAINING_DAYS, interval_s: float = SNAPSHOT_INTERVAL_S,
+                   stretch_s: tuple[float, float] = (0.0, 0.0), jobs: int = 1) -> Path:
+    """Write every recording as WAV + sidecar and the ground truth; returns ground_truth.json.
 
     Layout: OUT/PUMP/training/*.wav and OUT/PUMP/field/*.wav (each folder one gateway's stream,
-    file names sort in time order), OUT/ground_truth.json.
+    file names sort in time order), OUT/ground_truth.json. stretch_s: build_scenario's; a
+    continuous stretch comes from one running signal, file after file (stretch_counts). jobs:
+    processes, one pump each (the files are the same for any jobs).
     """
-    sc = build_scenario(seed, days, training_days, interval_s)
+    sc = build_scenario(seed, days, training_days, interval_s, stretch_s=stretch_s)
     out = Path(out_dir)
-    files: dict[str, dict[str, list[str]]] = {name: {"training": [], "field": []} for name in sc.pumps}
-    for snap in sc.snapshots:
-        part = snapshot_set(sc, snap)
-        folder = out / snap.pump / part
-        folder.mkdir(parents=True, exist_ok=True)
-        stamp = datetime.fromtimestamp(snap.t0_s, timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-        path = write_wav(folder / f"{snap.pump}_{stamp}.wav", synthesize(sc, snap), FS_HZ, snapshot_sidecar(sc, snap))
-        files[snap.pump][part].append(str(path.relative_to(out)))
+    pumps = list(sc.pumps)
+    if jobs > 1 and len(pumps) > 1:
+        from concurrent.futures import ProcessPoolExecutor
+        with ProcessPoolExecutor(max_workers=min(jobs, len(pumps))) as pool:
+            made = list(pool.map(_write_pump, [out] * len(pumps), [sc] * len(pumps), pumps))
+    else:
+        made = [_write_pump(out, sc, pump) for pump in pumps]
     truth = ground_truth(sc)
-    truth["files"] = files
+    truth["files"] = dict(zip(pumps, made))
     gt = out / "ground_truth.json"
     tmp = gt.with_suffix(".json.tmp")
     tmp.write_text(json.dumps(truth, indent=1) + "\n")
@@ -365,8 +459,38 @@ def write_scenario(out_dir: str | os.PathLike, seed: int = DEFAULT_SEED, days: f
     return gt
 
 
+def _write_pump(out: Path, sc: Scenario, pump: str) -> dict[str, list[str]]:
+    """Write one pump's recordings; their paths (relative to out) per part."""
+    files: dict[str, list[str]] = {"training": [], "field": []}
+    for group in _joined([s for s in sc.snapshots if s.pump == pump]):
+        made = stretch_counts(sc, group) if group[0].trigger == "continuous" else (synthesize(sc, group[0]),)
+        for snap, counts in zip(group, made):
+            part = snapshot_set(sc, snap)
+            folder = out / snap.pump / part
+            folder.mkdir(parents=True, exist_ok=True)
+            stamp = datetime.fromtimestamp(snap.t0_s, timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+            path = write_wav(folder / f"{snap.pump}_{stamp}.wav", counts, FS_HZ, snapshot_sidecar(sc, snap))
+            files[part].append(str(path.relative_to(out)))
+    return files
+
+
+def _joined(snaps: Sequence[Snapshot]) -> list[list[Snapshot]]:
+    """The recordings in order, those of one continuous stretch together (each starts where the
+    one before ends), every other snapshot alone."""
+    out: list[list[Snapshot]] = []
+    for s in snaps:
+        last = out[-1][-1] if out else None
+        if (s.trigger == "continuous" and last is not None and last.trigger == "continuous" and last.pump == s.pump
+                and abs(last.t0_s + last.duration_s - s.t0_s) < 0.5 / FS_HZ):
+            out[-1].append(s)
+        else:
+            out.append([s])
+    return out
+
+
 def ground_truth(sc: Scenario) -> dict:
-    """What was seeded where: faults with their t0_s ranges, stops, pump data, scales."""
+    """What was seeded where: faults with their t0_s ranges, stops, continuous stretches, pump
+    data, scales."""
     return {
         "note": "invented demo data: a fictional plant, pumps and faults",
         "plant": PLANT,
@@ -386,6 +510,9 @@ def ground_truth(sc: Scenario) -> dict:
                             "contact_angle_deg": p.bearing.contact_angle_deg},
                 "bpfo_order": defect_orders(p.bearing).bpfo,
                 "stops": [{"stop_t_s": a, "restart_t_s": b} for a, b in sc.stops[name]],
+                "continuous": [{"from_t_s": g[0].t0_s, "to_t_s": g[-1].t0_s + g[-1].duration_s}
+                               for g in _joined([s for s in sc.snapshots if s.pump == name])
+                               if g[0].trigger == "continuous"],
             }
             for name, p in sc.pumps.items()
         },

@@ -30,14 +30,21 @@ Modeling of Extreme Values", sec. 5.3, runs declustering; from memory):
    of the GPD tail (host_tools.fit.tail_fit.TailFit.log_exceedance_se with N_c excesses).
 5. Support: a promise whose 95 % upper limit is more than SUPPORT_RATIO times the stated rate
    extrapolates further than the data can carry. The rate is then raised, along a log grid, to the
-   least rate the data support, the threshold is set for it, and training warns.
+   least rate the data support, the threshold is set for it, and training warns. When training
+   keeps a higher threshold than that (the device's conservative floor), the rate there is not
+   extrapolated from the fit: the supported rate is stated as an upper bound (at_most), because
+   the clusters whose peak passes T are among those whose peak passes any lower threshold.
+6. No fit (fewer than LEAST_CLUSTERS clusters): the clusters of S at or over the threshold actually
+   set are counted, and the exact Poisson 95 % upper limit of their rate is stated as an upper
+   bound (count_bound; Garwood 1936).
 
 The extremal index of S above u (Ferro and Segers, "Inference for clusters of extreme values",
 JRSS B 65, 2003, intervals estimator) is reported beside the cluster count as a check: N_c is close
 to theta * (number of exceedances).
 
 Entry points: fit() (the cluster tail from held-out sequences), promise() (threshold and stated
-rate for a target), raise_statistic(), clusters(), extremal_index(), matched_weight() (the weight
+rate for a target), at_most() (the promise at a higher threshold), count_bound() (the promise
+without a fit), garwood_95(), raise_statistic(), clusters(), extremal_index(), matched_weight() (the weight
 of one channel of the combined score against another, docs/detector.md, Score).
 
 edgevib is advisory condition monitoring, not machinery protection: a stated rate is a statistical
@@ -51,7 +58,7 @@ from typing import Sequence
 
 import numpy as np
 from scipy.optimize import brentq
-from scipy.stats import genpareto
+from scipy.stats import chi2, genpareto
 
 from host_tools.errors import EdgevibError
 from host_tools.fit.tail_fit import TailFit
@@ -171,6 +178,17 @@ class Promise:
     target_per_30_days: float
     supported: bool          # False: the target was beyond the data, a higher rate is promised
     beyond_data: bool        # the threshold lies above every S seen
+    upper_bound: bool = False  # True: the rate is at most per_30_days (at_most, count_bound)
+
+
+@dataclass(frozen=True)
+class Count:
+    """Clusters of the raise statistic at or over a threshold, counted on held-out sequences,
+    and the promise they support without a fit (count_bound)."""
+
+    clusters: int
+    hours: float
+    promise: Promise
 
 
 def fit(sequences: Sequence[np.ndarray], span: int, k: int, window_s: float) -> RateFit:
@@ -221,20 +239,36 @@ def promise(rf: RateFit, target_per_30_days: float) -> Promise:
     return Promise(x, rf.rate_per_h(x) * h30, (lo * h30, hi * h30), target_per_30_days, ok, x > rf.s_max)
 
 
-def promise_at(rf: RateFit, x: float, target_per_30_days: float, below: Promise) -> Promise:
-    """The promise at a threshold x chosen otherwise (a floor above the threshold of `below`): the
-    fit's rate there and its range, supported only if that range is within SUPPORT_RATIO of the
-    rate. The rate falls as the threshold rises, so the upper limit is at most `below`'s; past the
-    end of a bounded tail (shape < 0) the fit's rate is 0 and that limit is all that is known."""
-    h30 = 30 * 24.0
-    xi, sc = rf.tail.shape, rf.tail.scale
-    if xi < 0 and x - rf.u >= -sc / xi:
-        return Promise(x, 0.0, (0.0, below.range_95[1]), target_per_30_days, False, x > rf.s_max)
-    lo, hi = rf.range_95(x)
-    r = rf.rate_per_h(x)
-    hi = min(hi * h30, below.range_95[1])
-    return Promise(x, r * h30, (min(lo * h30, hi), hi), target_per_30_days, hi <= SUPPORT_RATIO * max(r * h30, 1e-300),
-                   x > rf.s_max)
+def at_most(rf: RateFit, x: float, below: Promise) -> Promise:
+    """The promise at a threshold x chosen otherwise, above the threshold of `below` (the
+    device's floor over the least supported rate): at most `below`'s rate, with its range. The
+    clusters whose peak passes x are among those whose peak passes the lower threshold, so the
+    rate can only fall; the fit's own rate at x would be an extrapolation past what the data
+    support."""
+    return Promise(x, below.per_30_days, below.range_95, below.target_per_30_days, False, x > rf.s_max, True)
+
+
+def garwood_95(n: int) -> tuple[float, float]:
+    """Exact 95 % range of a Poisson mean from n observed events: chi2.ppf(0.025, 2n) / 2 and
+    chi2.ppf(0.975, 2n + 2) / 2, each limit one-sided at 2.5 % (Garwood, "Fiducial limits for the
+    Poisson distribution", Biometrika 28, 1936; any statistics handbook). n = 0: 0 to -ln 0.025."""
+    return (0.0 if n == 0 else float(chi2.ppf(0.025, 2 * n)) / 2), float(chi2.ppf(0.975, 2 * n + 2)) / 2
+
+
+def count_bound(sequences: Sequence[np.ndarray], x: float, span: int, k: int, window_s: float,
+                target_per_30_days: float) -> Count | None:
+    """Without a fit: the clusters of S at or over the threshold x on the held-out sequences
+    (runs declustering as in clusters()), over their running hours H, and the promise "at most"
+    the Garwood 95 % upper limit of that rate per 30 days (range: Garwood's two limits). None
+    without held-out running."""
+    hours = sum(len(c) for c in sequences) * window_s / 3600.0
+    if hours <= 0:
+        return None
+    parts = [raise_statistic(c, span, k) for c in sequences]
+    n = sum(len(clusters(p, x, span)) for p in parts)
+    lo, hi = (v * 720.0 / hours for v in garwood_95(n))
+    s_max = max((float(p.max()) for p in parts if len(p)), default=-math.inf)
+    return Count(n, hours, Promise(x, hi, (lo, hi), target_per_30_days, False, x > s_max, True))
 
 
 def _ratio(rf: RateFit, per_h: float) -> float:

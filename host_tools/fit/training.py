@@ -59,6 +59,7 @@ from host_tools.progress import start
 from host_tools.data.recording import Recording
 from host_tools.twin.replay import (
     StreamFeatures, check_recordings, evidence_sequences, m_s2_per_count, physical_columns, promise_check,
+    promise_text,
     step_detector, stream_features,
     twin_for)
 
@@ -564,50 +565,68 @@ def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, ta
     (host_tools.fit.raise_rate); the promise and how it was reached."""
     det = Detector(p, every)
     span, k = det.alarm.ev.span, det.alarm.k
+    chi_alert, chi_alarm = p["det_thr_alert_q8"], p["det_thr_alarm_q8"]
     try:
         rf = raise_rate.fit(seqs, span, k, window_s)
     except EdgevibError as e:
-        warnings.append(f"{e}: thresholds from the device's conservative chi-square rule, no stated rate")
-        return p["det_thr_alert_q8"], p["det_thr_alarm_q8"], {
-            "method": "the device's chi-square rule (too little held-out data for a raise-rate fit)",
-            "expected_false_alerts_per_30_days": None, "range_95_per_30_days": None}
+        # no tail to fit: the chi-square thresholds stay, and what the held-out running does show
+        # at them is stated, as the exact Poisson upper limit of the count (an upper bound)
+        ca = raise_rate.count_bound(seqs, float(chi_alert), span, k, window_s, target)
+        cm = raise_rate.count_bound(seqs, float(chi_alarm), span, k, window_s, target / ALARM_RATE_RATIO)
+        if ca is None:
+            warnings.append(f"{e}: thresholds from the device's conservative chi-square rule, no stated rate")
+            return chi_alert, chi_alarm, {
+                "method": "the device's chi-square rule (no held-out running to count raises on)",
+                "expected_false_alerts_per_30_days": None, "range_95_per_30_days": None}
+        warnings.append(f"{e}: thresholds from the device's conservative chi-square rule; without a fit the data "
+                        f"support at most {ca.promise.per_30_days:.3g} false alerts per 30 days (95 % upper limit of "
+                        f"{ca.clusters} raise-like stretches counted in {ca.hours:.2f} h of held-out running). Train on "
+                        "more running time to promise fewer")
+        return chi_alert, chi_alarm, {
+            "method": "the device's chi-square rule (too little held-out data for a raise-rate fit); the stated rate is "
+                      "the exact Poisson 95 % upper limit (Garwood) of the raise-like stretches counted at the alert "
+                      "threshold on held-out healthy running",
+            **_promise_fields(ca.promise, cm.promise),
+            "raise_count": {"clusters": ca.clusters, "hours": ca.hours, "span_windows": span, "k_windows": k}}
     pr = raise_rate.promise(rf, target)
     pa = raise_rate.promise(rf, pr.per_30_days / ALARM_RATE_RATIO)
-    chi_alert, chi_alarm = p["det_thr_alert_q8"], p["det_thr_alarm_q8"]
     floored = not pr.supported and pr.threshold < chi_alert
     if not pr.supported:
         # Too little data for the target. The rate the data can vouch for is stated, but the
         # thresholds never go under the device's conservative chi-square rule (which rests on no
-        # data): a set for hundreds of false alerts a month is no use in the field. At the floor
-        # the stated rate is the fit's estimate there, its wide range said (an extrapolation).
+        # data): a set for hundreds of false alerts a month is no use in the field. At the higher
+        # floor the supported rate is an upper bound, not extrapolated (raise_rate.at_most).
         warnings.append(f"{rf.hours:.2f} h of held-out running hold only {rf.clusters} independent stretches of high "
                         f"scores: they cannot support {target:g} false alert(s) per 30 days; they support "
                         f"{pr.per_30_days:.3g} per 30 days (95 % range {pr.range_95[0]:.3g} to "
                         f"{pr.range_95[1]:.3g})" + ("; the thresholds stay at the device's conservative chi-square rule "
-                                                    "instead, where the rate is an extrapolation" if floored else
-                                                    "; thresholds are set for that rate") +
+                                                    "instead, which raises no more often: at most that rate is promised"
+                                                    if floored else "; thresholds are set for that rate") +
                         ". Train on more running time to promise fewer")
         if floored:
-            pr = raise_rate.promise_at(rf, float(chi_alert), target, pr)
+            pr = raise_rate.at_most(rf, float(chi_alert), pr)
         if pa.threshold < chi_alarm:
-            pa = raise_rate.promise_at(rf, float(chi_alarm), pr.per_30_days / ALARM_RATE_RATIO, pa)
+            pa = raise_rate.at_most(rf, float(chi_alarm), pa)
     alert = min(int(math.floor(pr.threshold)) + 1, _THR_MAX) if not floored else chi_alert
     alarm = min(max(int(math.floor(pa.threshold)) + 1, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
     if rf.tail.shape > 0.5:
         warnings.append(f"the healthy score tail is heavy (shape {rf.tail.shape:.2f}): some training windows may not be healthy")
-    if pr.beyond_data:
+    if pr.beyond_data and not pr.upper_bound:
         warnings.append("the alert threshold lies beyond every held-out raise statistic: the rate rests on the tail fit alone")
     return alert, alarm, {
         "method": "rate of the raise event itself: clusters of the k-th largest score in the persistence span on "
                   "held-out healthy running, generalised Pareto tail of their peaks, Poisson count of clusters",
-        "expected_false_alerts_per_30_days": pr.per_30_days,
-        "range_95_per_30_days": list(pr.range_95),
-        "supported": pr.supported,
-        "expected_false_alarms_per_30_days": pa.per_30_days,
-        "beyond_training_max": bool(pr.beyond_data),
+        **_promise_fields(pr, pa),
         "raise_fit": {"u": rf.u / 256, "clusters": rf.clusters, "exceedances": rf.exceedances,
                       "hours": rf.hours, "extremal_index": rf.theta, "shape": rf.tail.shape,
                       "scale": rf.tail.scale / 256, "span_windows": span, "k_windows": k}}
+
+
+def _promise_fields(pr: raise_rate.Promise, pa: raise_rate.Promise) -> dict:
+    """The summary's promise keys (upper_bound: the rate is "at most"; supported: the target was)."""
+    return {"expected_false_alerts_per_30_days": pr.per_30_days, "range_95_per_30_days": list(pr.range_95),
+            "upper_bound": pr.upper_bound, "supported": pr.supported,
+            "expected_false_alarms_per_30_days": pa.per_30_days, "beyond_training_max": bool(pr.beyond_data)}
 
 
 def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: float = 1.0, seed: int = 0,
@@ -765,6 +784,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     if thr.get("expected_false_alerts_per_30_days") is not None:
         p["fit_promise_milli"] = [int(round(1000 * v)) for v in
                                   [thr["expected_false_alerts_per_30_days"], *thr["range_95_per_30_days"]]]
+        p["fit_promise_upper"] = int(thr["upper_bound"])
 
     # checks: held-out replay with the chosen thresholds, and the set on its own training data
     held_raises, held_h = 0, 0.0
@@ -865,18 +885,26 @@ def report_text(summary: dict) -> str:
     lines.append(f"    method: {t['method']}; {t['validation']}")
     lines.append(f"    alarm: {t['alarm_rule']}")
     if t.get("expected_false_alerts_per_30_days") is not None:
-        lo, hi = t["range_95_per_30_days"]
-        rf = t.get("raise_fit", {})
-        lines.append(f"expected false alerts per 30 days of running: {t['expected_false_alerts_per_30_days']:.3g} "
-                     f"(95 % range {lo:.3g} to {hi:.3g}; target {t['target_false_alerts_per_30_days']:g}"
-                     f"{'' if t.get('supported', True) else ', NOT supported by this much data'})")
+        rf, rc = t.get("raise_fit", {}), t.get("raise_count")
+        stated = promise_text(t["expected_false_alerts_per_30_days"], t["range_95_per_30_days"], t.get("upper_bound", False),
+                              "")
+        why = ("" if t.get("supported", True) else
+               ", not supported: the data support this bound" if t.get("upper_bound") else ", NOT supported by this much data")
+        lines.append(f"expected false alerts per 30 days of running: {stated}; target "
+                     f"{t['target_false_alerts_per_30_days']:g}{why}")
         if rf:
             theta = rf.get("extremal_index")
             lines.append(f"  from {rf['clusters']} independent stretches of high scores in {rf['hours']:.2f} h of held-out "
                          f"running" + (f" (extremal index {theta:.2f}: high windows come in clusters)" if theta is not None else ""))
+            if t.get("upper_bound"):
+                lines.append("  the thresholds stay at the device's conservative rule, above the supported point: "
+                             "they raise no more often, so that rate is an upper bound")
+        if rc:
+            lines.append(f"  too few for a fit: {rc['clusters']} stretches at or over the alert threshold counted in "
+                         f"{rc['hours']:.2f} h of held-out running; the stated rate is their exact Poisson 95 % upper limit")
     else:
-        lines.append("expected false alerts per 30 days of running: not stated: too little held-out running to fit the "
-                     "rate of raises (record more of the pump in normal duty); the conservative chi-square thresholds apply")
+        lines.append("expected false alerts per 30 days of running: not stated: no held-out running to count raises on "
+                     "(record more of the pump in normal duty); the conservative chi-square thresholds apply")
     hc = t["held_out_check"]
     if hc["running_h"]:
         v = hc["promise"]["verdict"] if hc.get("promise") else "no stated rate to compare"

@@ -120,9 +120,13 @@ def plot_rates(rows: Sequence[dict]) -> bytes:
     y = np.arange(len(rows))
     obs = [r["alerts_per_30_days"] or 0.0 for r in rows]
     ax.barh(y, obs, color=[_SEV_COLOURS[r["severity"]] for r in rows], height=0.6, label="observed (every alert, real faults too)")
-    exp = [(i, r["expected_per_30_days"]) for i, r in enumerate(rows) if r.get("expected_per_30_days") is not None]
-    if exp:
-        ax.plot([e for _, e in exp], [i for i, _ in exp], "D", color=INK, ms=5, label="expected false alerts (training)")
+    # an upper bound ("at most", training on thin data) as a left-pointing mark: the rate lies at or under it
+    for upper, mark, label in ((False, "D", "expected false alerts (training)"),
+                               (True, "<", "at most this many false alerts (training, an upper bound)")):
+        exp = [(i, r["expected_per_30_days"]) for i, r in enumerate(rows)
+               if r.get("expected_per_30_days") is not None and bool(r.get("expected_upper_bound")) == upper]
+        if exp:
+            ax.plot([e for _, e in exp], [i for i, _ in exp], mark, color=INK, ms=5, label=label)
     ax.set_yticks(y, [_label(r) for r in rows])
     ax.invert_yaxis()
     ax.set_xscale("symlog", linthresh=1.0)
@@ -165,6 +169,8 @@ def _row(r: dict) -> str:
     ev = f'{r["alarms"]} / {r["alerts"]} / {r["sensor_faults"]}'
     obs, obs_k = _num(r["alerts_per_30_days"], ".2f")
     exp, _ = _num(r["expected_per_30_days"], ".2g")
+    if r.get("expected_upper_bound") and r["expected_per_30_days"] is not None:
+        exp = "at most " + exp
     drift, drift_k = _num(r["drift"], ".2f")
     age, age_k = _num(r["params_age_days"], ".0f")
     if r.get("params_before_overhaul"):
@@ -206,7 +212,8 @@ def _page(rows: Sequence[dict], meta: dict[str, Any], files: dict[str, bytes]) -
         + "</tr></thead><tbody>" + "".join(_row(r) for r in rows) + "</tbody></table>",
         "<p class=sub>State now: the state, velocity r.m.s. (largest axis) and ISO zone of the last window replayed. "
         "Alerts per 30 days: transitions into alert or alarm per 30 days of running windows, every alert counted "
-        "(a real fault's too), against the false alerts its training expected. Drift: median score of the last "
+        "(a real fault's too), against the false alerts its training expected (\"at most\": an upper bound, where "
+        "the training data were too few to estimate the rate itself). Drift: median score of the last "
         "week's scored windows over the median on its healthy recordings (1 = as learned). Set age: days from the "
         "manifest's params_since to the end of the period.</p>",
     ]

@@ -52,7 +52,7 @@ def digest(result: Any, healthy: Any, info: dict[str, Any], origin_s: float) -> 
     t, state, score, mode = w["t_s"], w["state"], w["score"], w["mode"]
     window_s = info["window_s"]
     events = [e for e in result.events if e["to"] in _RAISES]
-    rate = rates(result, window_s, info.get("expected_per_30_days"))
+    rate = rates(result, window_s, info.get("expected_per_30_days"), info.get("expected_upper_bound", False))
     t_last = float(t[-1])
     ref, ref_name = _reference(healthy, t, score, mode)
     recent = (mode >= 0) & (t > t_last - DRIFT_DAYS * _DAY_S)
@@ -84,6 +84,7 @@ def digest(result: Any, healthy: Any, info: dict[str, Any], origin_s: float) -> 
         "running_h": rate["running_s"] / 3600.0,
         "alerts_per_30_days": rate["observed_per_30_days"],
         "expected_per_30_days": info.get("expected_per_30_days"),
+        "expected_upper_bound": info.get("expected_upper_bound", False),
         "drift": drift, "drift_reference": ref_name, "drift_weeks": weeks,
         "params_age_days": age, "last_overhaul": last_oh,
         "params_before_overhaul": bool(since and last_oh and since < last_oh) if since else None,
@@ -129,7 +130,8 @@ def severity(row: dict[str, Any]) -> tuple[int, list[str]]:
     exp, obs = row.get("expected_per_30_days"), row.get("alerts_per_30_days")
     if exp and obs is not None and obs > RATE_FLAG * exp:
         rank = max(rank, 2)
-        reasons.append(f"{obs:.1f} alerts per 30 days against {exp:.2g} expected")
+        reasons.append(f"{obs:.1f} alerts per 30 days against {'at most ' if row.get('expected_upper_bound') else ''}"
+                       f"{exp:.2g} expected")
     return rank, reasons
 
 

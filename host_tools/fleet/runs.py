@@ -166,7 +166,8 @@ def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet:
     for g, d in sorted(done.items()):
         exp = d["expected_false_alerts_per_30_days"]
         lines.append(f"{g}: version {d['version']}, {d['modes']} modes, alert {d['alert']:.2f}, alarm {d['alarm']:.2f} spreads"
-                     + ("" if exp is None else f", expected {exp:.2f} false alerts per 30 days")
+                     + ("" if exp is None else f", expected {'at most ' if d.get('upper_bound') else ''}{exp:.2f} "
+                                               "false alerts per 30 days")
                      + (f"; {len(d['warnings'])} warning(s)" if d["warnings"] else ""))
     lines += [f"{g}: ERROR {e}" for g, e in sorted(errors.items())]
     lines.append(f"{len(done)} of {len(plans)} gateways trained, each into <out>/<gateway>/params.msgpack; "

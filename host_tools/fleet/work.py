@@ -230,6 +230,7 @@ def train_gateway(gateway: str, paths: Sequence[str], profile: dict, out_dir: st
     return {"gateway": gateway, "version": params["version"], "modes": summary["modes"]["k"],
             "alert": t["alert"], "alarm": t["alarm"],
             "expected_false_alerts_per_30_days": t.get("expected_false_alerts_per_30_days"),
+            "upper_bound": bool(t.get("upper_bound")),
             "warnings": summary.get("warnings", [])}
 
 
@@ -251,4 +252,5 @@ def review_info(w: GatewayWork, report: str | None) -> dict[str, Any]:
         info.update(params_version=w.params["version"], window_s=w.params["n"] / float(w.params["fs_hz"]))
     th = (w.params_summary or {}).get("thresholds", {})
     info["expected_per_30_days"] = th.get("expected_false_alerts_per_30_days")
+    info["expected_upper_bound"] = bool(th.get("upper_bound"))      # "at most" (sets trained before: False)
     return info

@@ -74,6 +74,7 @@ def continuous_check(train_s: float = 3600.0, test_s: float = 86400.0, seed_trai
     return {"train_h": train_s / 3600.0, "test_h": test_s / 3600.0, "running_h": running_h,
             "promised_per_30_days": t.get("expected_false_alerts_per_30_days"),
             "range_95_per_30_days": t.get("range_95_per_30_days"), "supported": t.get("supported"),
+            "upper_bound": t.get("upper_bound"),
             "raises": raises, "expected_raises": (t["expected_false_alerts_per_30_days"] * running_h / 720.0
                                                   if t.get("expected_false_alerts_per_30_days") is not None else None),
             "check": promise_check(raises, running_h, params),

@@ -68,6 +68,7 @@ def evaluate_suite(suite_json: str | os.PathLike, profile: dict, jobs: int = 1, 
     card = scorecard(scored, label)
     card["training"] = {m: {"alert": summaries[m]["thresholds"]["alert"], "alarm": summaries[m]["thresholds"]["alarm"],
                             "expected_false_alerts_per_30_days": summaries[m]["thresholds"].get("expected_false_alerts_per_30_days"),
+                            "upper_bound": summaries[m]["thresholds"].get("upper_bound"),
                             "modes": summaries[m]["modes"]["k"]} for m in machines}
     return card, scored
 

@@ -24,8 +24,12 @@ STATE_LABELS = {"normal": "normal", "alert": "alert", "alarm": "alarm", "idle": 
                 "sensor_fault": "sensor fault", "learning": "learning"}
 
 
-def _rate(v: float | None) -> str:
-    return "unknown" if v is None else f"{v:.2g}"
+def _rate(v: float | None, upper: bool = False) -> str:
+    return "unknown" if v is None else f"{'at most ' if upper else ''}{v:.2g}"
+
+
+def _expected(r: dict) -> str:
+    return _rate(r["expected_per_30_days"], r.get("expected_upper_bound", False))
 
 
 def event_cells(e: dict) -> list[str]:
@@ -53,11 +57,10 @@ def comparison_text(c: Comparison) -> str:
                      f"{duration_text(c.state_s[b][state]):>{w}}")
     lines.append(f"{'running time observed':<24}{duration_text(c.rates[a]['running_s']):>{w}}  "
                  f"{duration_text(c.rates[b]['running_s']):>{w}}")
-    for key, label in (("alerts", "alerts raised"), ("observed_per_30_days", "alerts per 30 d running"),
-                       ("expected_per_30_days", "expected (training)")):
-        va, vb = c.rates[a][key], c.rates[b][key]
-        fa, fb = (str(va), str(vb)) if key == "alerts" else (_rate(va), _rate(vb))
-        lines.append(f"{label:<24}{fa:>{w}}  {fb:>{w}}")
+    for label, cell in (("alerts raised", lambda r: str(r["alerts"])),
+                        ("alerts per 30 d running", lambda r: _rate(r["observed_per_30_days"])),
+                        ("expected (training)", _expected)):
+        lines.append(f"{label:<24}{cell(c.rates[a]):>{w}}  {cell(c.rates[b]):>{w}}")
     for lab in c.labels:
         for e in c.results[c.labels.index(lab)].events:
             if e["to"] in RAISES:
@@ -132,8 +135,7 @@ def render(c: Comparison) -> tuple[dict[str, bytes], str]:
              ["alerts raised", str(c.rates[a]["alerts"]), str(c.rates[b]["alerts"])],
              ["alerts per 30 days of running (observed)", _rate(c.rates[a]["observed_per_30_days"]),
               _rate(c.rates[b]["observed_per_30_days"])],
-             ["false alerts per 30 days expected (training)", _rate(c.rates[a]["expected_per_30_days"]),
-              _rate(c.rates[b]["expected_per_30_days"])]]
+             ["false alerts per 30 days expected (training)", _expected(c.rates[a]), _expected(c.rates[b])]]
     head = ("time", "change", "driving feature", "score")
     parts = [f"<!doctype html><html lang=en><head><meta charset=utf-8><title>{esc(a)} vs {esc(b)}</title>"
              f"<style>{CSS}</style></head><body>",

@@ -52,6 +52,7 @@ from host_tools.report.style import (
     style_axes)
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.data.recording import Recording, RecordingFile, open_recording
+from host_tools.twin.replay import check_text
 
 MAX_SPECTRA = 16          # spectrum plots per report; the events table still lists every event
 SPECTRUM_WINDOWS = 8      # running windows averaged before the event
@@ -536,7 +537,8 @@ SUMMARY_LABELS = {
     "alerts": "alerts raised", "alarms": "alarms raised", "sensor_faults": "sensor faults raised",
     "first_alert_t_s": "first alert", "first_alarm_t_s": "first alarm",
     "first_sensor_fault_t_s": "first sensor fault", "events_lost": "events lost (event ring overflowed)",
-    "streams": "streams",
+    "streams": "streams", "raises": "raises (into alert or alarm)", "running_h": "running hours",
+    "promise": "training's promise and this replay",
 }
 
 
@@ -555,6 +557,8 @@ def _summary_rows(summary: Any, clock: Clock, window_s: float) -> list[list[str]
             text = duration_text(float(v))
         elif k == "windows_per_state" and isinstance(v, dict):
             text = ", ".join(f"{name.replace('_', ' ')} {duration_text(n * window_s)}" for name, n in v.items() if n) or "none"
+        elif k == "promise" and isinstance(v, dict) and "stated" in v:
+            text = check_text(v)
         else:
             text = json.dumps(v, sort_keys=True) if isinstance(v, (dict, list)) else str(v)
         label = SUMMARY_LABELS.get(k, k.replace("_", " "))

@@ -14,7 +14,8 @@ in time order, each at most once; the rest are "only in" their set.
 Rates. The observed rate is alerts raised per 30 days of running (windows not idle), as the
 training's expected rate is counted per 30 days of running. Every alert counts, so the observed
 figure is a false-alert rate only where the recordings are of a healthy machine. The expected
-rate comes from the training summary beside the set (PARAMS.json), when there is one.
+rate comes from the training summary beside the set (PARAMS.json), when there is one; it is an
+upper bound ("at most") when the set says so (fit_promise_upper, host_tools.twin.replay.promise_check).
 Advisory condition monitoring: a set that raises fewer alerts is not thereby safer.
 """
 from __future__ import annotations
@@ -106,14 +107,15 @@ def state_seconds(result: ReplayResult, window_s: float) -> dict[str, float]:
     return {name: per[name] * window_s for name in al.STATE_NAMES}
 
 
-def rates(result: ReplayResult, window_s: float, expected: float | None) -> dict[str, Any]:
-    """Alerts raised, running time and the observed rate per 30 days of running (module docstring)."""
+def rates(result: ReplayResult, window_s: float, expected: float | None, upper: bool = False) -> dict[str, Any]:
+    """Alerts raised, running time and the observed rate per 30 days of running (module docstring);
+    upper: the expected rate is an upper bound."""
     per = result.summary["total"]["windows_per_state"]
     running_s = (result.summary["total"]["windows"] - per["idle"]) * window_s
     alerts = result.summary["total"]["alerts"]
     return {"alerts": alerts, "running_s": running_s,
             "observed_per_30_days": alerts * DAYS_30_S / running_s if running_s > 0 else None,
-            "expected_per_30_days": expected}
+            "expected_per_30_days": expected, "expected_upper_bound": upper}
 
 
 def compare(sources: Sequence[Sequence[Any]], sets: Sequence[SetUnderTest], jobs: int = 1,
@@ -141,7 +143,8 @@ def compare_results(results: Sequence[ReplayResult], sets: Sequence[SetUnderTest
     return Comparison(
         labels=labels, results=results, matched=pairs, only={labels[0]: only_a, labels[1]: only_b},
         state_s={lab: state_seconds(r, w) for lab, r, w in zip(labels, results, win)},
-        rates={lab: rates(r, w, s.expected_per_30_days) for lab, r, w, s in zip(labels, results, win, sets)},
+        rates={lab: rates(r, w, s.expected_per_30_days, bool(s.params.get("fit_promise_upper")))
+               for lab, r, w, s in zip(labels, results, win, sets)},
         tolerance_s=tol, sets=list(sets))
 
 

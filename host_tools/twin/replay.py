@@ -503,24 +503,48 @@ class StreamReplay:
 
 
 def promise_check(raises: int, running_h: float, params: dict) -> dict[str, Any] | None:
-    """The training's promise (fit_promise_milli: expected false raises per 30 days of running,
-    and its 95 % range, in thousandths) beside what a replay observed, with a verdict: "agrees"
+    """The training's promise (fit_promise_milli: false raises per 30 days of running and its
+    95 % range, in thousandths; fit_promise_upper 1: the rate is an upper bound, "at most"; absent
+    in sets made before it: 0) beside what a replay observed, with a verdict. For a rate: "agrees"
     when the count lies within the Poisson 2.5-97.5 % quantiles of the range's ends over the
     running hours replayed (scipy.stats.poisson), "more than promised" or "fewer than promised"
-    otherwise. None when the set holds no promise. Raises on a replay of healthy running are
-    false by definition; on a faulty machine they are what the detector is for."""
+    otherwise. For an upper bound fewer is no disagreement: "agrees" up to the 97.5 % quantile of
+    the range's upper end, "more than promised" above. None when the set holds no promise. Raises
+    on a replay of healthy running are false by definition; on a faulty machine they are what the
+    detector is for."""
     pm_ = params.get("fit_promise_milli")
     if not pm_ or running_h <= 0:
         return None
     from scipy.stats import poisson
     rate, lo, hi = (v / 1000.0 for v in pm_)
-    lo_n = poisson.ppf(0.025, lo * running_h / 720.0)
+    upper = bool(params.get("fit_promise_upper", 0))
+    lo_n = 0 if upper else poisson.ppf(0.025, lo * running_h / 720.0)
     hi_n = poisson.ppf(0.975, hi * running_h / 720.0)
     verdict = "agrees" if lo_n <= raises <= hi_n else ("more than promised" if raises > hi_n else "fewer than promised")
-    return {"promised_per_30_days": rate, "range_95_per_30_days": [lo, hi],
+    return {"promised_per_30_days": rate, "range_95_per_30_days": [lo, hi], "upper_bound": upper,
+            "stated": promise_text(rate, (lo, hi), upper),
             "observed_raises": raises, "running_h": running_h,
             "observed_per_30_days": raises * 720.0 / running_h,
             "expected_raises": rate * running_h / 720.0, "verdict": verdict}
+
+
+def promise_text(rate: float, range_95: Sequence[float], upper: bool,
+                 unit: str = " false alerts per 30 days of running") -> str:
+    """A stated rate as a person reads it: "at most 3.2 false alerts per 30 days of running (95 %
+    range 1.1 to 9.6)" for an upper bound, without "at most" for the fit's estimate."""
+    lo, hi = (_rate_text(v) for v in range_95)
+    return f"{'at most ' if upper else ''}{_rate_text(rate)}{unit} (95 % range {lo} to {hi})"
+
+
+def _rate_text(v: float) -> str:
+    """A rate in three significant figures, whole numbers from 100 up (no exponent)."""
+    return f"{v:.0f}" if v >= 100 else f"{v:.3g}"
+
+
+def check_text(check: dict) -> str:
+    """promise_check's result in one line: the promise, what was observed, the verdict."""
+    return (f"stated {check['stated']}; observed {check['observed_raises']} in {check['running_h']:.2f} h of running "
+            f"({_rate_text(check['observed_per_30_days'])} per 30 days): {check['verdict']}")
 
 
 def _total(summaries: list[dict], params: dict) -> dict:
