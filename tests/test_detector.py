@@ -73,7 +73,7 @@ def events(det):
 
 def running(det, **kw):
     """Step quiet running windows until the detector is out of its start-up hold-off and its
-    evidence span is full (a rule is judged on a full span only)."""
+    evidence span is full (clearing is judged on a full span only)."""
     score = kw.pop("score", 0)
     for _ in range(200):
         det.step(win(score, **kw), 0, 0)

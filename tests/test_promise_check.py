@@ -14,7 +14,8 @@ from host_tools.fit import raise_rate as rr
 from host_tools.fit.training import _thresholds
 from host_tools.twin.replay import promise_check
 
-from tests.test_raise_rate import SPAN, K, WINDOW_S, ar1_scores
+from firmware_py.detect.detector import Detector
+from tests.test_raise_rate import WINDOW_S, ar1_scores
 
 PROFILE = board.load(str(Path(__file__).resolve().parent.parent / "boards" / "desk.json"))
 
@@ -68,7 +69,8 @@ def test_thin_data_promise_an_upper_bound_at_the_floor():
     # at most the supported rate, with its range, not the fit's extrapolation past the data
     seqs = [ar1_scores(22_500, 1)]
     p, alert, alarm, thr, warnings = _factory_thresholds(seqs)
-    sup = rr.promise(rr.fit(seqs, SPAN, K, WINDOW_S), 1.0)
+    rule = Detector(p).alarm                     # the factory set's persistence rule
+    sup = rr.promise(rr.fit(seqs, rule.ev.span, rule.k, WINDOW_S), 1.0)
     assert sup.threshold < p["det_thr_alert_q8"] == alert and alarm >= p["det_thr_alarm_q8"]
     assert thr["upper_bound"] and not thr["supported"]
     assert thr["expected_false_alerts_per_30_days"] == sup.per_30_days

@@ -53,10 +53,14 @@ def test_the_device_rule_is_the_documented_rule():
 
 
 def test_raise_statistic_is_the_kth_largest_of_the_span():
-    c = np.random.default_rng(3).standard_normal(500)
+    # scores are >= 0; before the span has filled, the windows not yet seen count as 0 (the
+    # device's evidence after a reset), so S exists from the first window
+    c = np.abs(np.random.default_rng(3).standard_normal(500))
     s = rr.raise_statistic(c, 40, 30)
-    ref = np.array([np.sort(c[t - 39:t + 1])[::-1][29] for t in range(39, 500)])   # numpy sort
+    padded = np.concatenate([np.zeros(39), c])
+    ref = np.array([np.sort(padded[t:t + 40])[::-1][29] for t in range(500)])   # numpy sort
     assert np.array_equal(s, ref)
+    assert np.all(s[:29] == 0) and s[29] == np.sort(c[:30])[0]     # 30 seen: the least of them
 
 
 def test_ar1_raise_rate_within_the_stated_range():

@@ -110,9 +110,12 @@ class Alarm:
 
     span: L windows of evidence; k: windows of the L that must be over; escalate: least windows
     in ALERT before a score can make it an ALARM; dwell: least windows in a level before it can
-    clear. A rule is judged only on a full span, so a restart or a sensor fault (which clear the
-    evidence) must be followed by L evaluated windows before anything is raised. After update()
-    or ack(), `reason` says why the level last changed.
+    clear. After a restart or a sensor fault (which clear the evidence) the windows not yet seen
+    count as not over: k windows over raise at once, whether or not L have been seen since. That
+    is the full-span rule with the missing windows under the threshold, so it raises only what
+    the full span would raise once filled, only sooner (a snapshot of 10 s holds half a 20 s
+    span); clearing and escalation still wait for a full span. After update() or ack(),
+    `reason` says why the level last changed.
     """
 
     def __init__(self, span, k, escalate, dwell):
@@ -164,13 +167,13 @@ class Alarm:
             self.dwell += 1
         full = ev.filled == ev.span
         lv = self.level
-        if lv != ALARM and full and ev.n_d >= self.k:
+        if lv != ALARM and ev.n_d >= self.k:
             self._go(ALARM, R_ISO_D)
             self.acked = False
         elif lv == ALERT and full and ev.n_m >= self.k and self.dwell >= self.escalate:
             self._go(ALARM, R_ESCALATE)
             self.acked = False
-        elif lv == NORMAL and full and ev.n_a >= self.k:
+        elif lv == NORMAL and ev.n_a >= self.k:
             self._go(ALERT, R_ISO_C if ev.n_z >= self.k else R_SCORE)
         elif lv == ALERT and self._cleared():
             self._go(NORMAL, R_CLEAR)

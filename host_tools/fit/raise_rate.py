@@ -14,7 +14,8 @@ per-window tail as if windows were independent is wrong by a large factor.
 Method (peaks over threshold on clusters of S; Coles 2001, "An Introduction to Statistical
 Modeling of Extreme Values", sec. 5.3, runs declustering; from memory):
 1. S is computed on held-out healthy sequences (a sequence is a run of evaluated windows with no
-   evidence reset between them, as the device's span sees them; S exists from the L-th window).
+   evidence reset between them, as the device's span sees them; S exists from the first window,
+   the windows before a reset counting as 0, as on the device).
 2. At or over a level u, exceedances of S closer than r = L windows belong to one cluster (runs
    declustering with the span as the run length: the span still holds evidence from the last
    exceedance); each cluster's peak Y is one independent event. u is the highest level with at
@@ -73,10 +74,13 @@ _CHUNK = 1 << 22          # values partitioned at once
 
 
 def raise_statistic(c: np.ndarray, span: int, k: int) -> np.ndarray:
-    """S_t, the k-th largest of the last `span` values of c, for t = span-1 .. len(c)-1."""
+    """S_t, the k-th largest of the last `span` values of c, for t = 0 .. len(c)-1; before the
+    span has filled the missing values count as 0 (scores are >= 0), as the device's evidence
+    counts the windows not yet seen since a reset as not over (firmware_py/detect/alarm.py)."""
     c = np.asarray(c, dtype=np.float64)
-    if len(c) < span:
+    if len(c) == 0:
         return np.zeros(0)
+    c = np.concatenate([np.zeros(span - 1), c])
     w = np.lib.stride_tricks.sliding_window_view(c, span)
     step = max(1, _CHUNK // span)           # rows per chunk: bounded memory for long sequences
     return np.concatenate([np.partition(w[i:i + step], span - k, axis=1)[:, span - k]
@@ -93,7 +97,7 @@ def matched_weight(ref: Sequence[np.ndarray], other: Sequence[np.ndarray], span:
     two channels of the same windows, already weighted / unweighted). S commutes with a positive
     weight (the k-th largest of w * c is w times the k-th largest of c), so at each level T =
     Q_q(S(ref)) the weighted channel spends no more of the running time at or over T than ref
-    does. 0.0 when there is nothing to match (no full span, or `other` never rises)."""
+    does. 0.0 when there is nothing to match (no held-out window, or `other` never rises)."""
     sr = [raise_statistic(c, span, k) for c in ref]
     so = [raise_statistic(c, span, k) for c in other]
     sr = np.concatenate(sr) if sr else np.zeros(0)
@@ -198,7 +202,7 @@ def fit(sequences: Sequence[np.ndarray], span: int, k: int, window_s: float) -> 
     hours = sum(len(c) for c in sequences) * window_s / 3600.0
     s_all = np.concatenate(parts) if parts else np.zeros(0)
     if len(s_all) == 0 or hours <= 0:
-        raise EdgevibError(f"raise-rate fit: no held-out sequence spans the {span} windows of the persistence rule")
+        raise EdgevibError("raise-rate fit: no held-out scored running to fit")
     best = None
     for q in _LEVELS:
         u = float(np.quantile(s_all, q))
