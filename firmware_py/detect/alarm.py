@@ -110,7 +110,9 @@ class Alarm:
 
     span: L windows of evidence; k: windows of the L that must be over; escalate: least windows
     in ALERT before a score can make it an ALARM; dwell: least windows in a level before it can
-    clear. After a restart or a sensor fault (which clear the evidence) the windows not yet seen
+    clear, and in NORMAL after a clear before it can raise again (with scores far over both
+    thresholds the count of the span alone can sit at k, and clear and raise would take turns
+    window by window). After a restart or a sensor fault (which clear the evidence) the windows not yet seen
     count as not over: k windows over raise at once, whether or not L have been seen since. That
     is the full-span rule with the missing windows under the threshold, so it raises only what
     the full span would raise once filled, only sooner (a snapshot of 10 s holds half a 20 s
@@ -129,6 +131,7 @@ class Alarm:
         self.dwell = 0
         self.acked = False
         self.reason = 0
+        self.settling = False     # cleared less than dwell windows ago: no raise yet
 
     def reset(self):
         """Forget the evidence (machine stopped, sensor fault, learning); a latched alarm stays."""
@@ -136,6 +139,7 @@ class Alarm:
         if self.level == ALERT:
             self.level = NORMAL
         self.dwell = 0
+        self.settling = False
 
     def _cleared(self):
         """The raise rule with hysteresis: fewer than k windows of a full span over the clear
@@ -167,13 +171,15 @@ class Alarm:
             self.dwell += 1
         full = ev.filled == ev.span
         lv = self.level
+        if self.settling and self.dwell >= self.dwell_min:
+            self.settling = False
         if lv != ALARM and ev.n_d >= self.k:
             self._go(ALARM, R_ISO_D)
             self.acked = False
         elif lv == ALERT and full and ev.n_m >= self.k and self.dwell >= self.escalate:
             self._go(ALARM, R_ESCALATE)
             self.acked = False
-        elif lv == NORMAL and ev.n_a >= self.k:
+        elif lv == NORMAL and not self.settling and ev.n_a >= self.k:
             self._go(ALERT, R_ISO_C if ev.n_z >= self.k else R_SCORE)
         elif lv == ALERT and self._cleared():
             self._go(NORMAL, R_CLEAR)
@@ -193,3 +199,4 @@ class Alarm:
         self.level = level
         self.reason = reason
         self.dwell = 0
+        self.settling = level == NORMAL
