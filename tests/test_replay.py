@@ -24,7 +24,7 @@ REPO = Path(__file__).resolve().parent.parent
 
 @pytest.fixture(scope="module")
 def trained():
-    """A trained set with short time keys (a board setting a user may change), so that the 2-s
+    """A trained set with short time keys (a board setting a user may change), so that the short
     recordings below reach every state: steadiness over 2 windows, hold-off 3, raise on 3 of 5,
     escalate after 5 windows in alert."""
     p = train(healthy_stream(seed=11, per_point=3), PROFILE)[0]
@@ -43,7 +43,9 @@ def field_stream(seed=12, t_start=100000.0):
         if extra is None:
             c = np.tile(pump_counts(rng, rpm, 0.01)[:1], (int(2 * FS), 1))   # output stuck at one value
         else:
-            c = pump_counts(rng, rpm, 2.0, extra_hz=300.0, extra_counts=extra)
+            # the strong departure runs 4 s: after the weaker one's alert clears at the gap, a new
+            # alert waits the dwell (5 windows) and the alarm 5 more, past a 2 s recording
+            c = pump_counts(rng, rpm, 4.0 if extra >= 80.0 else 2.0, extra_hz=300.0, extra_counts=extra)
         recs.append(recording(c, t_start + 600.0 * i, rpm, name=f"field{i}"))
     return recs
 
