@@ -71,7 +71,10 @@ def test_thin_data_promise_an_upper_bound_at_the_floor():
     p, alert, alarm, thr, warnings = _factory_thresholds(seqs)
     rule = Detector(p).alarm                     # the factory set's persistence rule
     sup = rr.promise(rr.fit(seqs, rule.ev.span, rule.k, WINDOW_S), 1.0)
-    assert sup.threshold < p["det_thr_alert_q8"] == alert and alarm >= p["det_thr_alarm_q8"]
+    assert sup.threshold < p["det_thr_alert_q8"] == alert
+    # the alarm threshold floored too: the device's own value (or alert x the alarm ratio, rounded
+    # up, if that is higher), not one Q8 step over it
+    assert alarm == max(p["det_thr_alarm_q8"], -(-alert * p["det_learn_alarm_q8"] // 256))
     assert thr["upper_bound"] and not thr["supported"]
     assert thr["expected_false_alerts_per_30_days"] == sup.per_30_days
     assert thr["range_95_per_30_days"] == list(sup.range_95)

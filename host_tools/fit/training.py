@@ -608,7 +608,9 @@ def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, ta
         if pa.threshold < chi_alarm:
             pa = raise_rate.at_most(rf, float(chi_alarm), pa)
     alert = min(int(math.floor(pr.threshold)) + 1, _THR_MAX) if not floored else chi_alert
-    alarm = min(max(int(math.floor(pa.threshold)) + 1, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
+    # a fitted point is continuous: the next Q8 step over it; the floor is the device's own value
+    at_fit = chi_alarm if pa.threshold == chi_alarm else int(math.floor(pa.threshold)) + 1
+    alarm = min(max(at_fit, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
     if rf.tail.shape > 0.5:
         warnings.append(f"the healthy score tail is heavy (shape {rf.tail.shape:.2f}): some training windows may not be healthy")
     if pr.beyond_data and not pr.upper_bound:
