@@ -112,11 +112,11 @@ class Alarm:
     in ALERT before a score can make it an ALARM; dwell: least windows in a level before it can
     clear, and in NORMAL after a clear before it can raise again (with scores far over both
     thresholds the count of the span alone can sit at k, and clear and raise would take turns
-    window by window). After a restart or a sensor fault (which clear the evidence) the windows not yet seen
-    count as not over: k windows over raise at once, whether or not L have been seen since. That
-    is the full-span rule with the missing windows under the threshold, so it raises only what
-    the full span would raise once filled, only sooner (a snapshot of 10 s holds half a 20 s
-    span); clearing and escalation still wait for a full span. After update() or ack(),
+    window by window). After a restart or a sensor fault (which clear the evidence) the windows
+    not yet seen count as not over: k windows over raise at once, whether or not L have been seen
+    since. That is the full-span rule with the missing windows under the threshold, so it raises
+    only what the full span would raise once filled, only sooner (a snapshot of 10 s holds half
+    a 20 s span); clearing and escalation still wait for a full span. After update() or ack(),
     `reason` says why the level last changed.
     """
 

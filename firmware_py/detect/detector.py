@@ -26,12 +26,12 @@ API
       after it: det.state; det.score_q8 (combined score, Q8 spreads, 0 when not scored), det.dist_q8,
       det.zmax_q8 and det.smax_q8 (its three channels before weighting, Q8 spreads; smax after each
       feature's det_sgain_q8, and kept even when det_slam_q8 = 0 leaves it out of the score);
-      det.mode (-1 none); det.feat (flat feature
-      index that drove the score, the guard or the fault, -1 none); det.zone (ISO zone 0..3 =
-      A..D); det.bb_vel_q16 (largest axis F_VEL, counts/s Q16); det.why (W_* below: why not scored, 0
-      scored) and det.n_why (count per W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8),
-      det.load_q8 (log2 Q8): the operating point; det.pushed (1 if the window added to the
-      persistence evidence) and det.resets (times that evidence was forgotten).
+      det.mode (-1 none); det.feat (flat feature index that drove the score, the guard or the
+      fault, -1 none); det.zone (ISO zone 0..3 = A..D); det.bb_vel_q16 (largest axis F_VEL,
+      counts/s Q16); det.why (W_* below: why not scored, 0 scored) and det.n_why (count per
+      W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8), det.load_q8 (log2 Q8): the operating point;
+      det.pushed (1 if the window added to the persistence evidence) and det.resets (times that
+      evidence was forgotten).
     det.ack(t_s)       acknowledge a latched alarm; det.learn(t_s) start learning (False if
                        refused: alarm latched or sensor fault); det.stop_learning(t_s) abandon it
     det.events         EventRing (firmware_py/detect/event_ring.py): i = det.events.pop() -> slot or -1;

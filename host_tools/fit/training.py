@@ -202,9 +202,9 @@ def sgain_q8(ew_ss: np.ndarray, ew_n: int, shift: int) -> tuple[list[int], str]:
     sigma = np.maximum(np.sqrt(ew_ss / ew_n), floor)
     g = np.median(sigma) / sigma
     q8 = [int(v) for v in np.clip(np.round(256 * g), 1, 4096)]
-    return q8, (f"each feature's {SLOW_MS / 1000:g}-s average against its own held-out spread ({floor:.2f} to {sigma.max():.2f} "
-                f"spreads; weights {min(q8) / 256:.2f} to {max(q8) / 256:.2f}): lines that wander with the process "
-                "count less, lines that only flicker count more")
+    return q8, (f"each feature's {SLOW_MS / 1000:g}-s average against its own held-out spread ({floor:.2f} to "
+                f"{sigma.max():.2f} spreads; weights {min(q8) / 256:.2f} to {max(q8) / 256:.2f}): lines that wander "
+                "with the process count less, lines that only flicker count more")
 
 
 def slam_q8(zseqs: list[np.ndarray], sseqs: list[np.ndarray], p: dict, every: int) -> tuple[int, str]:
