@@ -591,6 +591,7 @@ def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, ta
     pr = raise_rate.promise(rf, target)
     pa = raise_rate.promise(rf, pr.per_30_days / ALARM_RATE_RATIO)
     floored = not pr.supported and pr.threshold < chi_alert
+    alarm_floored = not pr.supported and pa.threshold < chi_alarm
     if not pr.supported:
         # Too little data for the target. The rate the data can vouch for is stated, but the
         # thresholds never go under the device's conservative chi-square rule (which rests on no
@@ -605,11 +606,11 @@ def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, ta
                         ". Train on more running time to promise fewer")
         if floored:
             pr = raise_rate.at_most(rf, float(chi_alert), pr)
-        if pa.threshold < chi_alarm:
+        if alarm_floored:
             pa = raise_rate.at_most(rf, float(chi_alarm), pa)
-    alert = min(int(math.floor(pr.threshold)) + 1, _THR_MAX) if not floored else chi_alert
-    # a fitted point is continuous: the next Q8 step over it; the floor is the device's own value
-    at_fit = chi_alarm if pa.threshold == chi_alarm else int(math.floor(pa.threshold)) + 1
+    # a fitted point is continuous: the next Q8 step over it; a floor is the device's own value
+    alert = chi_alert if floored else min(int(math.floor(pr.threshold)) + 1, _THR_MAX)
+    at_fit = chi_alarm if alarm_floored else int(math.floor(pa.threshold)) + 1
     alarm = min(max(at_fit, -(-alert * p["det_learn_alarm_q8"] // 256)), _THR_MAX)
     if rf.tail.shape > 0.5:
         warnings.append(f"the healthy score tail is heavy (shape {rf.tail.shape:.2f}): some training windows may not be healthy")
