@@ -82,19 +82,16 @@ def test_a_knock_on_one_axis_is_a_coupling_fault_at_once():
 def test_a_short_run_of_zeros_on_the_gravity_axis_is_a_dropout_not_a_knock():
     # z reads 1 g = 256 counts; a read that returned an empty frame for 4 samples pulls it to 0:
     # a 256-count impulse only z sees, with a run of 4 zeros (under z's zero-run limit here)
-    det = running(Detector(params(det_zero_max=[44, 44, 44])))
-    f = win((20, 20, 256), (4.0, 4.0, 11.0))
-    f[2 * PA + fi.F_MEAN] = 254 << 8
-    f[2 * PA + fi.F_ZERO] = 4
-    assert det.step(f, 20, 0) == SF
-    assert events(det) == [(N, SF, al.R_DROPOUT, 2 * PA + fi.F_ZERO)]
+    def zeros_on_z(peaks, crests):
+        det = running(Detector(params(det_zero_max=[44, 44, 44])))
+        f = win(peaks, crests)
+        f[2 * PA + fi.F_MEAN] = 254 << 8
+        f[2 * PA + fi.F_ZERO] = 4
+        assert det.step(f, 20, 0) == SF
+        return events(det)
+    assert zeros_on_z((20, 20, 256), (4.0, 4.0, 11.0)) == [(N, SF, al.R_DROPOUT, 2 * PA + fi.F_ZERO)]
     # a knock of 1000 counts on the same axis is the mount's, zeros or not
-    det = running(Detector(params(det_zero_max=[44, 44, 44])))
-    f = win((40, 40, 1000), (4.0, 4.0, 20.0))
-    f[2 * PA + fi.F_MEAN] = 254 << 8
-    f[2 * PA + fi.F_ZERO] = 4
-    assert det.step(f, 20, 0) == SF
-    assert events(det) == [(N, SF, al.R_COUPLING, 2 * PA + fi.F_PEAK)]
+    assert zeros_on_z((40, 40, 1000), (4.0, 4.0, 20.0)) == [(N, SF, al.R_COUPLING, 2 * PA + fi.F_PEAK)]
 
 
 @pytest.mark.parametrize("peaks,crests", [
