@@ -45,8 +45,8 @@ to theta * (number of exceedances).
 
 Entry points: fit() (the cluster tail from held-out sequences), promise() (threshold and stated
 rate for a target), at_most() (the promise at a higher threshold), count_bound() (the promise
-without a fit), garwood_95(), raise_statistic(), clusters(), extremal_index(), matched_weight() (the weight
-of one channel of the combined score against another, docs/detector.md, Score).
+without a fit), garwood_95(), raise_statistic(), clusters(), extremal_index(), matched_weight()
+(the weight of one channel of the combined score against another, docs/detector.md, Score).
 
 edgevib is advisory condition monitoring, not machinery protection: a stated rate is a statistical
 estimate from the training data, not a guarantee.
