@@ -48,6 +48,26 @@ def test_lone_tone_within_a_hundredth_of_a_bin_across_the_range():
         assert conf.min() >= 240
 
 
+# Below 3 bins (down to the estimator's floor of 2.5 bins) the image at -f comes closer: bin k of
+# the ratio lies at least 2f - 1 bins from it (k >= floor(f) >= f - 1), 4 bins at f = 2.5. Same
+# steps as BIAS_BINS: its kernel there is at most 1 / (pi * 4 * (4^2 - 1)) = 5.3e-3 of the line,
+# a1 moves by up to 5.3e-3 / 0.42 = 1.26e-2, the ratio by <= 1.79e-2 and d by 4/3 of that.
+LOW_BIAS_BINS = 4 / 3 * (1 / (math.pi * 4 * 15)) * (1 + 1 / 0.42) + 2e-3 + 1e-4 + 6.3e-4   # 0.027 bins
+
+
+def test_lone_tone_down_to_two_and_a_half_bins_within_the_derived_bound():
+    # 100 tones from 15.7 to 20.5 Hz (2.51 to 3.3 bins), a speed range of 15.7-30 Hz: a 4-pole
+    # motor on a drive at 35 Hz turns at about 17 Hz. Still well inside the tenth of a bin.
+    t = np.arange(N) / FS
+    fr = np.linspace(15.7, 20.5, 100)
+    x = np.concatenate([np.round(20000 * np.sin(2 * np.pi * f * t + 0.7 * f)) for f in fr])
+    est, conf = _speed(x.astype(np.int16), lo=15.7, hi=30.0)
+    err = np.abs(est - fr) / BIN
+    assert err.max() <= LOW_BIAS_BINS, err.max()
+    assert LOW_BIAS_BINS < 0.1
+    assert conf.min() >= 240
+
+
 def test_harmonic_series_with_slip_in_noise_within_half_a_per_cent():
     # A pump's 1x, 2x, 3x (3000, 1500, 1000 counts) at a speed that changes from window to
     # window (42-58 Hz: slip and set-point changes), random phases, white noise of 250 counts.

@@ -19,7 +19,7 @@
 #    a1/a0 = (1 + d)/(2 - d) holds exactly, so d has no bias for a lone tone (Grandke, "Interpolation
 #    algorithms for discrete Fourier transforms of weighted signals", IEEE Trans. Instrum. Meas. 32,
 #    1983; from memory). What is left: the image at -f (its lobe edge, at most 1.5e-3 of the line
-#    at 3 bins from DC, giving < 7.2e-3 bins), the kernel's finite-n correction (O(1/n**2)), and
+#    at 3 bins from DC, giving < 7.2e-3 bins; 5.3e-3 and < 0.024 bins at 2.5), the kernel's finite-n correction (O(1/n**2)), and
 #    the quantisation: magnitudes keep >= 14 bits (sqrt_pow2 of p scaled to 2**28), d is rounded
 #    to 1/256 bin (tests/test_speed_estimate.py derives the total, 0.01 bin). A parabola through
 #    the three log magnitudes would leave up to 0.016 bin of bias for Hann, through the linear
@@ -36,7 +36,8 @@
 #
 # Scales: p[k] from fft.spectrum (<= 2**28, sum <= 1.5 * 2**28); bins Q8 (< m * 256 <= 2**19);
 # Hz Q8 = bins_q8 * fs / n (fixmath.mul_shift). The range is checked by check_range(): 1x at
-# >= 3 bins (so the harmonics' lobes stay apart) and round(3 * hi) + 3 <= m.
+# >= 2.5 bins (the 1x peak search, 2 bins either side of round(c), starts at bin 1 and its
+# ratio's neighbour at bin 0 at worst; the 1x and 2x lobes share one bin at most) and round(3 * hi) + 3 <= m.
 import micropython
 from micropython import const
 
@@ -45,7 +46,7 @@ from firmware_py.dsp.fft import power_sum
 from firmware_py.dsp.fixmath import div_pow2, msb, mul_shift, sqrt_pow2
 from firmware_py.viper_stand import ptr32
 
-_MIN_BINS = const(3)     # lowest 1x in bins: harmonic lobes (3 bins each) must not merge
+_MIN_Q2 = const(10)      # lowest 1x, quarter bins (2.5 bins): see the Scales note above
 
 
 def bins_q2(hz_q8, n, fs_hz, up):
@@ -67,9 +68,9 @@ def check_range(n, fs_hz, lo_q8, hi_q8):
         return
     if not 0 < lo_q8 < hi_q8:
         raise ValueError("speed range must satisfy 0 < lo < hi (or both 0: no speed estimate)")
-    if bins_q2(lo_q8, n, fs_hz, True) < 4 * _MIN_BINS:
-        raise ValueError("speed range starts below 3 bins (%d Hz): use a longer window" % (
-            (3 * fs_hz + n - 1) // n))
+    if bins_q2(lo_q8, n, fs_hz, True) < _MIN_Q2:
+        raise ValueError("speed range starts below 2.5 bins (%d Hz): use a longer window" % (
+            (5 * fs_hz + 2 * n - 1) // (2 * n)))
     if ((3 * bins_q2(hi_q8, n, fs_hz, False) + 2) >> 2) + 3 > n >> 1:
         raise ValueError("3x of the top speed must lie 3 bins below fs/2")
 

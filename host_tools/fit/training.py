@@ -321,7 +321,7 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
         lo_hz, hi_hz = 10.0, 60.0
         why_speed = "no sidecar rpm: 10-60 Hz, the shaft speeds of 2- to 12-pole motors at 50/60 Hz"
         warnings.append("no recording states its rpm: the speed search runs over 10-60 Hz; give the rpm in the sidecars")
-    floor_hz = math.ceil(3 * fs / n) + 0.5       # the estimator's lowest speed: 3 bins (dsp/speed.py)
+    floor_hz = math.ceil(2.5 * fs / n) + 0.5     # the estimator's lowest speed: 2.5 bins (dsp/speed.py)
     if lo_hz < floor_hz:
         # a slower shaft reads at the floor (or a harmonic) window after window: still a steady
         # label for its operating point, though no longer its speed
