@@ -3,7 +3,7 @@ from tests.test_emulate import emulator, fault_recording, run_cli, sine_recordin
 
 
 def test_ack_reports_an_alarm_whose_cause_persists(tmp_path, capsys):
-    # the recording ends in ISO zone D (12 mm/s) for 30 s, more than the factory set's 20 s
+    # the recording ends in ISO zone D (12 mm/s) for 30 s, more than the factory set's 10 s
     # persistence span after its hold-off: an alarm on any table of ISO 10816-3
     with emulator(fault_recording(tmp_path / "f.wav", seconds=60.0), tmp_path / "state", speed=0) as vg:
         assert vg.wait_until(vg.ended.is_set)

@@ -30,7 +30,7 @@ def _state(port):
 
 def test_flash_rollback_reboot_and_power_cut_keep_the_latched_alarm(tmp_path, capsys):
     state = tmp_path / "state"
-    # 30 s of zone D: longer than the factory set's hold-off and 20 s persistence span
+    # 30 s of zone D: longer than the factory set's hold-off and 10 s persistence span
     with emulator(fault_recording(tmp_path / "f.wav", seconds=60.0), state, speed=0) as vg:
         assert vg.wait_until(vg.ended.is_set)          # the recording is fed; the gateway idles, in alarm
         assert vg.gateway.det.state == alarm.ALARM

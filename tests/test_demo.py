@@ -24,7 +24,7 @@ REPO = Path(__file__).resolve().parent.parent
 # snapshot every 6 hours: the smallest scenario that holds every fault of P-101, trains without
 # refusal, and gives the bearing defect the 3 days it needs in 6-hourly snapshots: only the one
 # at the top speed each day is scored (the slower two are under the window's speed resolution),
-# and an alert needs 20 s of scored running over the threshold.
+# and an alert needs 5 s of scored running over the threshold.
 # Continuous running: 2 min a training day and 1 min a field day (under half the default), enough
 # for a stated rate.
 SMALL = ["--days", "23", "--training-days", "6", "--interval-s", "21600", "--jobs", "1", "--evaluation", "off",

@@ -45,7 +45,7 @@ def test_replay_is_the_gateways_event_sequence_on_one_window_in_three(tmp_path):
     assert windows == len(res.windows["t_s"]) == -(-whole // EVERY)
     assert skipped >= windows * (EVERY - 1) - EVERY
     # and the zone D alarm came once k analysed windows of the span were in zone D (the
-    # persistence rule's share of 20 s of running, on the board's time base), on both
+    # persistence rule's share of 10 s of running, on the board's time base), on both
     assert ("normal", "alarm", "iso_d") in names or ("idle", "alarm", "iso_d") in names
     t_alarm = next(e["t_s"] for e in res.events if e["to"] == "alarm")
     half = read_recording(rec).t0_s + 30.0

@@ -321,7 +321,7 @@ def test_record_bad_input(idle_gateway, tmp_path, capsys):
 
 
 def test_events_are_the_windows_around_the_alarm_and_check_train_replay_take_them(tmp_path, capsys):
-    # 30 s of zone D after 30 s of normal running: a full persistence span (20 s) in zone D raises
+    # 30 s of zone D after 30 s of normal running: a persistence span (10 s) in zone D raises
     # the alarm directly (no alert first: zone D is an absolute limit)
     rec = fault_recording(tmp_path / "fault.wav", seconds=60.0)
     src = read_recording(rec)

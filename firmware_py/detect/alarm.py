@@ -115,9 +115,9 @@ class Alarm:
     window by window). After a restart or a sensor fault (which clear the evidence) the windows
     not yet seen count as not over: k windows over raise at once, whether or not L have been seen
     since. That is the full-span rule with the missing windows under the threshold, so it raises
-    only what the full span would raise once filled, only sooner (a snapshot of 10 s holds half
-    a 20 s span); clearing and escalation still wait for a full span. After update() or ack(),
-    `reason` says why the level last changed.
+    only what the full span would raise once filled, only sooner (a snapshot of 10 s scores
+    about 7 s after its hold-off); clearing and escalation still wait for a full span. After
+    update() or ack(), `reason` says why the level last changed.
     """
 
     def __init__(self, span, k, escalate, dwell):

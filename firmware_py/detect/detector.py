@@ -208,7 +208,7 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_op_speed_q8": [], "det_op_load_q8": [], "det_conf_min_q8": 64,
         "det_zlam_q8": 256, "det_slow_ms": 5000, "det_slam_q8": 0,
         "det_thr_alert_q8": 5 * 256, "det_thr_alarm_q8": 8 * 256, "det_hyst_q8": 205,
-        "det_persist_ms": 20000, "det_persist_q8": 128, "det_escalate_ms": 300000,
+        "det_persist_ms": 10000, "det_persist_q8": 128, "det_escalate_ms": 300000,
         "det_dwell_ms": 60000,
         "det_idle_vel_q16": vel_per_mm_s // 20,   # 0.05 mm/s
         "det_hold_ms": 5000, "det_hold_max_ms": 60000, "det_steady_ms": 1000,

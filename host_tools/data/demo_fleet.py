@@ -58,7 +58,7 @@ FLEET_FAULTS = ds.FAULT_PLAN + (
 )
 # What a gateway of this fleet records: 10 s snapshots (the length the fleet archive
 # assumes). The detector scores a snapshot only after the speed is steady and the start-up
-# hold-off has passed, and raises only when the score persists over 20 s or so of running
+# hold-off has passed, and raises only when the score persists over half of 10 s of running
 # (det_persist_ms): a 4 s snapshot leaves a second or two of scored running, a 10 s one most of it.
 SNAPSHOT_S = 10.0
 # Overhauls (days from the scenario's start; negative = before it) per pump.

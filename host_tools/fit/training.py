@@ -72,8 +72,8 @@ MIN_HOURS = 1.0           # less scored running time than this is thin training 
 # Slow channel time constant (docs/detector.md, Score): 5 s is 32 windows of 0.16 s (2**5, so the
 # device's shift is exact on the default board), long enough that the EWMA's s.d. on independent
 # departures is sqrt(1/63) = 0.13 of a window's, short enough to settle (1 - 1/32)**40 = 28 %
-# within the ~7 s a 10 s snapshot scores after its hold-off, and 4 times shorter than the
-# persistence span (20 s) that it feeds.
+# within the ~7 s a 10 s snapshot scores after its hold-off, and half the persistence span
+# (10 s) that it feeds.
 SLOW_MS = 5000
 _THR_MAX = 1 << 16        # the detector's limit on thresholds (Q8 spreads)
 _STEADY_MAX = 32          # the detector's most windows in the steadiness span

@@ -679,8 +679,8 @@ def render(result: Any, p: dict, recs: list[Recording], ground_truth: dict | Non
     parts += ["<h2>Score</h2>",
               "<p>Each point is one evaluated window (idle, held-off and sensor-fault windows are not scored). "
               "The band above shows the state; an alert needs the score over its threshold on "
-              f'{int(p.get("det_persist_q8", 205)) * 100 // 256} % of the windows of the last '
-              f'{int(p.get("det_persist_ms", 20000)) / 1000:g} s of running.</p>',
+              f'{int(p["det_persist_q8"]) * 100 // 256} % of the windows of the last '
+              f'{int(p["det_persist_ms"]) / 1000:g} s of running.</p>',
               '<img src="score.png" alt="score over time with thresholds">',
               "<p>An alarm stays latched until it is acknowledged on the gateway; a replay acknowledges nothing, "
               "so once raised it stays to the end.</p>",
