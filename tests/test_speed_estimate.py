@@ -52,7 +52,7 @@ def test_lone_tone_within_a_hundredth_of_a_bin_across_the_range():
 # the ratio lies at least 2f - 1 bins from it (k >= floor(f) >= f - 1), 4 bins at f = 2.5. Same
 # steps as BIAS_BINS: its kernel there is at most 1 / (pi * 4 * (4^2 - 1)) = 5.3e-3 of the line,
 # a1 moves by up to 5.3e-3 / 0.42 = 1.26e-2, the ratio by <= 1.79e-2 and d by 4/3 of that.
-LOW_BIAS_BINS = 4 / 3 * (1 / (math.pi * 4 * 15)) * (1 + 1 / 0.42) + 2e-3 + 1e-4 + 6.3e-4   # 0.027 bins
+LOW_BIAS_BINS = 4 / 3 * (1 / (math.pi * 4 * 15)) * (1 + 1 / 0.42) + 2e-3 + 1e-4 + 6.3e-4  # 0.027
 
 
 def test_lone_tone_down_to_two_and_a_half_bins_within_the_derived_bound():

@@ -19,9 +19,10 @@
 #    a1/a0 = (1 + d)/(2 - d) holds exactly, so d has no bias for a lone tone (Grandke, "Interpolation
 #    algorithms for discrete Fourier transforms of weighted signals", IEEE Trans. Instrum. Meas. 32,
 #    1983; from memory). What is left: the image at -f (its lobe edge, at most 1.5e-3 of the line
-#    at 3 bins from DC, giving < 7.2e-3 bins; 5.3e-3 and < 0.024 bins at 2.5), the kernel's finite-n correction (O(1/n**2)), and
-#    the quantisation: magnitudes keep >= 14 bits (sqrt_pow2 of p scaled to 2**28), d is rounded
-#    to 1/256 bin (tests/test_speed_estimate.py derives the total, 0.01 bin). A parabola through
+#    at 3 bins from DC, giving < 7.2e-3 bins; 5.3e-3 and < 0.024 bins at 2.5 bins), the kernel's
+#    finite-n correction (O(1/n**2)), and the quantisation: magnitudes keep >= 14 bits
+#    (sqrt_pow2 of p scaled to 2**28), d is rounded to 1/256 bin (tests/test_speed_estimate.py
+#    derives the total, 0.01 bin; 0.027 bin from 2.5 bins). A parabola through
 #    the three log magnitudes would leave up to 0.016 bin of bias for Hann, through the linear
 #    magnitudes 0.053 bin (computed with numpy for a tone at 100 + d bins, n = 512); the ratio
 #    form costs two square roots and one division per harmonic instead.
@@ -37,7 +38,8 @@
 # Scales: p[k] from fft.spectrum (<= 2**28, sum <= 1.5 * 2**28); bins Q8 (< m * 256 <= 2**19);
 # Hz Q8 = bins_q8 * fs / n (fixmath.mul_shift). The range is checked by check_range(): 1x at
 # >= 2.5 bins (the 1x peak search, 2 bins either side of round(c), starts at bin 1 and its
-# ratio's neighbour at bin 0 at worst; the 1x and 2x lobes share one bin at most) and round(3 * hi) + 3 <= m.
+# ratio's neighbour at bin 0 at worst; the 1x and 2x lobes share one bin at most) and
+# round(3 * hi) + 3 <= m.
 import micropython
 from micropython import const
 
