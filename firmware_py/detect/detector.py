@@ -206,7 +206,7 @@ def default_params(axes, n_bands, vel_per_mm_s, group=2, foundation="rigid", ful
         "det_base_mean_q4": [0] * len(feat), "det_base_sd_q4": [256] * len(feat),
         "det_modes": 0, "det_mode_c_q8": [], "det_mode_s_q8": [],
         "det_op_speed_q8": [], "det_op_load_q8": [], "det_conf_min_q8": 64,
-        "det_zlam_q8": 256, "det_slow_ms": 5000, "det_slam_q8": 0,
+        "det_zlam_q8": 256, "det_slow_ms": 10240, "det_slam_q8": 0,
         "det_thr_alert_q8": 5 * 256, "det_thr_alarm_q8": 8 * 256, "det_hyst_q8": 205,
         "det_persist_ms": 10000, "det_persist_q8": 128, "det_escalate_ms": 300000,
         "det_dwell_ms": 60000,

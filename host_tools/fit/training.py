@@ -69,12 +69,13 @@ DC_MARGIN_G = 0.25        # least half-width of the healthy DC range (g): tilt o
 MIN_MODE_WINDOWS = 30     # a mode with fewer training windows is thinly supported
 MIN_WINDOWS = 50          # fewer running healthy windows cannot support a baseline and modes
 MIN_HOURS = 1.0           # less scored running time than this is thin training data
-# Slow channel time constant (docs/detector.md, Score): 5 s is 32 windows of 0.16 s (2**5, so the
-# device's shift is exact on the default board), long enough that the EWMA's s.d. on independent
-# departures is sqrt(1/63) = 0.13 of a window's, short enough to settle (1 - 1/32)**40 = 28 %
-# within the ~7 s a 10 s snapshot scores after its hold-off, and half the persistence span
-# (10 s) that it feeds.
-SLOW_MS = 5000
+# Slow channel time constant (docs/detector.md, Score): 10.24 s is 64 windows of 0.16 s (2**6, so
+# the device's shift is exact on the default board), long enough that the EWMA's s.d. on
+# independent departures is sqrt(1/127) = 0.089 of a window's and that it averages a level's
+# wander of 15-45 s more than 5 s did, about the persistence span (10 s) that it feeds. Within
+# one 10 s snapshot it settles to 1 - (1 - 1/64)**44 = 50 % of a step; it carries on to the next
+# snapshot of the same operating mode (measured against 5 s and 20 s: docs/evaluation.md).
+SLOW_MS = 10240
 _THR_MAX = 1 << 16        # the detector's limit on thresholds (Q8 spreads)
 _STEADY_MAX = 32          # the detector's most windows in the steadiness span
 HOLD_FLOOR_S = 1.0        # least hold-off once steady: the run-up itself is already unsteady and unscored
