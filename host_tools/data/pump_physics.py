@@ -214,7 +214,8 @@ class ImpactTrain:
     `order` impacts per shaft turn (order from host_tools.data.bearing.defect_orders), slowed by
     the rolling elements' slip (1-2 %, Randall and Antoni, MSSP 25, 2011) and jittered at random
     by a fraction of a period (the same source: the randomness is what makes envelope analysis
-    necessary). The pass count is carried from chunk to chunk."""
+    necessary). The pass count is carried from chunk to chunk, and a chunk's angles may start
+    whole turns away from where the last one ended (a caller that wraps the angle)."""
 
     def __init__(self, order: float, slip: float, jitter: float, rng: np.random.Generator):
         self.per_rad = order * (1.0 - slip) / (2.0 * np.pi)
@@ -226,8 +227,9 @@ class ImpactTrain:
     def next(self, theta: np.ndarray, amp: np.ndarray) -> np.ndarray:
         """Impulses (m/s^2 at the impact, one sample each) over the shaft angles theta; amp per
         sample is the mean impact size (each impact varies +-20 %, common practice)."""
-        start = theta[0] if self.theta_last is None else self.theta_last
-        passes = self.passes + self.per_rad * (theta - start)
+        # the step from the last chunk's end to this chunk's start, less any whole turns between
+        step = 0.0 if self.theta_last is None else math.remainder(theta[0] - self.theta_last, 2.0 * np.pi)
+        passes = self.passes + self.per_rad * (theta - theta[0] + step)
         k = np.arange(math.floor(self.passes) + 1, math.floor(passes[-1]) + 1)
         at = np.searchsorted(passes, k + self.jitter * self.rng.standard_normal(len(k)))
         at = at[(at >= 0) & (at < len(theta))]
