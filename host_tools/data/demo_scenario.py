@@ -60,7 +60,7 @@ from scipy import signal
 
 from host_tools.data import pump_physics as ph
 from host_tools.data.bearing import BEARING_6205, BearingGeometry, defect_orders
-from host_tools.data.recording import write_wav
+from host_tools.data.recording import gap_free_groups, write_wav
 
 FS_HZ = 3200
 G_M_S2 = ph.G_M_S2
@@ -475,17 +475,8 @@ def _write_pump(out: Path, sc: Scenario, pump: str) -> dict[str, list[str]]:
 
 
 def _joined(snaps: Sequence[Snapshot]) -> list[list[Snapshot]]:
-    """The recordings in order, those of one continuous stretch together (each starts where the
-    one before ends), every other snapshot alone."""
-    out: list[list[Snapshot]] = []
-    for s in snaps:
-        last = out[-1][-1] if out else None
-        if (s.trigger == "continuous" and last is not None and last.trigger == "continuous" and last.pump == s.pump
-                and abs(last.t0_s + last.duration_s - s.t0_s) < 0.5 / FS_HZ):
-            out[-1].append(s)
-        else:
-            out.append([s])
-    return out
+    """One pump's recordings in order, those of one continuous stretch together."""
+    return gap_free_groups(snaps, lambda s: s.trigger == "continuous", FS_HZ)
 
 
 def ground_truth(sc: Scenario) -> dict:

@@ -285,6 +285,21 @@ def read_stream(
     return [f.load() for f in open_stream(sources, expected_rate_hz, m_s2_per_count)]
 
 
+def gap_free_groups(items: Iterable[Any], continuous: Any, fs_hz: float) -> list[list[Any]]:
+    """Items in time order (t0_s, duration_s, s) grouped as replay joins them: a continuous one
+    (continuous(item) true) that starts within half a sample of where the continuous one before it
+    ends joins its group (host_tools.twin.replay, plan_chunks); every other item stands alone."""
+    out: list[list[Any]] = []
+    for r in items:
+        last = out[-1][-1] if out else None
+        if (last is not None and continuous(r) and continuous(last)
+                and abs(last.t0_s + last.duration_s - r.t0_s) < 0.5 / fs_hz):
+            out[-1].append(r)
+        else:
+            out.append([r])
+    return out
+
+
 def write_wav(path: str | os.PathLike, counts: np.ndarray, sample_rate_hz: float, sidecar: dict[str, Any]) -> Path:
     """Write int16 counts (frames x axes) as PCM WAV plus its sidecar, each atomically.
 

@@ -50,7 +50,7 @@ import numpy as np
 
 from host_tools.data import pump_physics as ph
 from host_tools.data.bearing import BEARING_6205, BearingGeometry, defect_orders
-from host_tools.data.recording import write_wav
+from host_tools.data.recording import gap_free_groups, write_wav
 
 PLANT = "Fenmoor raw-water intake"
 START_T0_S = datetime(2026, 9, 7, tzinfo=timezone.utc).timestamp()  # invented start date
@@ -584,7 +584,7 @@ def write_history(out_dir: str | os.PathLike, h: History, axes: Sequence[str] = 
                       h.machine.sensor.fs_hz, sidecar(h, r, axes))
         files.append(p.name)
 
-    for group in _stretches(h.recordings):
+    for group in gap_free_groups(h.recordings, lambda r: r.kind == "continuous", h.machine.sensor.fs_hz):
         if group[0].kind == "continuous":
             for r, counts, hit in _stretch_counts(h, group):
                 put(r, counts)
@@ -602,18 +602,6 @@ def write_history(out_dir: str | os.PathLike, h: History, axes: Sequence[str] = 
     tmp.write_text(json.dumps(truth, indent=1) + "\n")
     os.replace(tmp, gt)
     return gt
-
-
-def _stretches(recs: Sequence[Recording]) -> list[list[Recording]]:
-    """Group gap-free continuous recordings; every periodic snapshot alone."""
-    out: list[list[Recording]] = []
-    for r in recs:
-        if (r.kind == "continuous" and out and out[-1][-1].kind == "continuous"
-                and abs(out[-1][-1].t0_s + out[-1][-1].duration_s - r.t0_s) < 1e-6):
-            out[-1].append(r)
-        else:
-            out.append([r])
-    return out
 
 
 def ground_truth(h: History, axes: Sequence[str] = AXES) -> dict:
