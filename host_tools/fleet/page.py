@@ -25,6 +25,7 @@ import numpy as np
 from firmware_py.detect.alarm import STATE_NAMES
 from host_tools.fleet.review import DRIFT_FLAG, SEVERITIES
 from host_tools.report.style import CSS, INK, MUTED, STATE_COLOURS, esc, png, pyplot, state_tag, style_axes
+from host_tools.twin.replay import stated_rate
 
 _SEV_COLOURS = {5: "#7356a3", 4: "#b8372a", 3: "#e3a32b", 2: "#4f88b4", 1: "#8fbf9f"}
 _CODE = {name: i for i, name in enumerate(STATE_NAMES)}
@@ -168,9 +169,8 @@ def _row(r: dict) -> str:
     now = f'{state_tag(r["state_now"])} {r["velocity_now_mm_s"]:.2f} mm/s, zone {esc(r["zone_now"])}'
     ev = f'{r["alarms"]} / {r["alerts"]} / {r["sensor_faults"]}'
     obs, obs_k = _num(r["alerts_per_30_days"], ".2f")
-    exp, _ = _num(r["expected_per_30_days"], ".2g")
-    if r.get("expected_upper_bound") and r["expected_per_30_days"] is not None:
-        exp = "at most " + exp
+    e = r["expected_per_30_days"]
+    exp = "-" if e is None else stated_rate(e, bool(r.get("expected_upper_bound")))
     drift, drift_k = _num(r["drift"], ".2f")
     age, age_k = _num(r["params_age_days"], ".0f")
     if r.get("params_before_overhaul"):

@@ -29,6 +29,7 @@ from typing import Any
 import numpy as np
 
 from host_tools.fleet import layout
+from host_tools.twin.replay import stated_rate
 
 _DAY_S = 86400.0
 DRIFT_DAYS = 7.0
@@ -130,8 +131,7 @@ def severity(row: dict[str, Any]) -> tuple[int, list[str]]:
     exp, obs = row.get("expected_per_30_days"), row.get("alerts_per_30_days")
     if exp and obs is not None and obs > RATE_FLAG * exp:
         rank = max(rank, 2)
-        reasons.append(f"{obs:.1f} alerts per 30 days against {'at most ' if row.get('expected_upper_bound') else ''}"
-                       f"{exp:.2g} expected")
+        reasons.append(f"{obs:.1f} alerts per 30 days against {stated_rate(exp, bool(row.get('expected_upper_bound')))} expected")
     return rank, reasons
 
 

@@ -147,6 +147,7 @@ def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet:
     """Train a set per gateway from its healthy/ recordings into out/<gateway>/; (JSON document, lines)."""
     from host_tools.fleet import engine, layout, work
     from host_tools.data.recording import atomic_write
+    from host_tools.twin.replay import stated_rate
 
     plans = plan(client, fleet, quiet, need_params=False, healthy=True)
     futs = {}
@@ -166,7 +167,7 @@ def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet:
     for g, d in sorted(done.items()):
         exp = d["expected_false_alerts_per_30_days"]
         lines.append(f"{g}: version {d['version']}, {d['modes']} modes, alert {d['alert']:.2f}, alarm {d['alarm']:.2f} spreads"
-                     + ("" if exp is None else f", expected {'at most ' if d.get('upper_bound') else ''}{exp:.2f} "
+                     + ("" if exp is None else f", expected {stated_rate(exp, bool(d.get('upper_bound')))} "
                                                "false alerts per 30 days")
                      + (f"; {len(d['warnings'])} warning(s)" if d["warnings"] else ""))
     lines += [f"{g}: ERROR {e}" for g, e in sorted(errors.items())]

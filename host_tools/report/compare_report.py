@@ -18,6 +18,7 @@ from host_tools.report.replay_report import check_report_folder, clock_for, wind
 from host_tools.report.style import (
     CSS, DRAW_ORDER, INK, STATE_COLOURS, duration_text, esc, html_table, png, pyplot, style_axes)
 from host_tools.twin.compare import RAISES, Comparison
+from host_tools.twin.replay import stated_rate
 
 SET_COLOURS = ("#4f6d8a", "#b0603a")   # old: slate blue, new: rust
 STATE_LABELS = {"normal": "normal", "alert": "alert", "alarm": "alarm", "idle": "idle (stopped)",
@@ -25,7 +26,7 @@ STATE_LABELS = {"normal": "normal", "alert": "alert", "alarm": "alarm", "idle": 
 
 
 def _rate(v: float | None, upper: bool = False) -> str:
-    return "unknown" if v is None else f"{'at most ' if upper else ''}{v:.2g}"
+    return "unknown" if v is None else stated_rate(v, upper)
 
 
 def _expected(r: dict) -> str:

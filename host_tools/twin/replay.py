@@ -533,7 +533,13 @@ def promise_text(rate: float, range_95: Sequence[float], upper: bool,
     """A stated rate as a person reads it: "at most 3.2 false alerts per 30 days of running (95 %
     range 1.1 to 9.6)" for an upper bound, without "at most" for the fit's estimate."""
     lo, hi = (_rate_text(v) for v in range_95)
-    return f"{'at most ' if upper else ''}{_rate_text(rate)}{unit} (95 % range {lo} to {hi})"
+    return f"{stated_rate(rate, upper)}{unit} (95 % range {lo} to {hi})"
+
+
+def stated_rate(rate: float, upper: bool) -> str:
+    """A stated false-alert rate as every page and summary writes it: "at most 1210" for an upper
+    bound (thin training data only bound it), the figure alone for the fit's estimate."""
+    return f"{'at most ' if upper else ''}{_rate_text(rate)}"
 
 
 def _rate_text(v: float) -> str:
