@@ -141,7 +141,7 @@ def test_count_bound_states_the_upper_limit_of_the_clusters_counted():
             c[(3 * j + 2) * SPAN:(3 * j + 2) * SPAN + K] = 2000.0
         seqs.append(c)
     hours = 3 * len(base) * WINDOW_S / 3600
-    got = rr.count_bound(seqs, 1500.0, SPAN, K, WINDOW_S, 1.0)
+    got, none = rr.count_bound(seqs, [(1500.0, 1.0), (2500.0, 1.0)], SPAN, K, WINDOW_S)
     assert got.clusters == 5 and got.hours == pytest.approx(hours, rel=1e-12)
     lo, hi = _garwood_by_definition(5)
     pr = got.promise
@@ -149,10 +149,9 @@ def test_count_bound_states_the_upper_limit_of_the_clusters_counted():
     assert pr.per_30_days == pytest.approx(hi * 720 / hours, rel=1e-8)
     assert pr.range_95 == (pytest.approx(lo * 720 / hours, rel=1e-8), pytest.approx(hi * 720 / hours, rel=1e-8))
     # nothing at or over the threshold: at most -ln(0.025) / H per hour, per 30 days x 720
-    none = rr.count_bound(seqs, 2500.0, SPAN, K, WINDOW_S, 1.0)
     assert none.clusters == 0 and none.promise.beyond_data
     assert none.promise.per_30_days == pytest.approx(-np.log(0.025) / hours * 720, rel=1e-12)
-    assert rr.count_bound([], 1500.0, SPAN, K, WINDOW_S, 1.0) is None
+    assert rr.count_bound([], [(1500.0, 1.0)], SPAN, K, WINDOW_S) is None
 
 
 def test_matched_weight_keeps_the_weighted_channel_under_the_reference():

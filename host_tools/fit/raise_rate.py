@@ -259,20 +259,24 @@ def garwood_95(n: int) -> tuple[float, float]:
     return (0.0 if n == 0 else float(chi2.ppf(0.025, 2 * n)) / 2), float(chi2.ppf(0.975, 2 * n + 2)) / 2
 
 
-def count_bound(sequences: Sequence[np.ndarray], x: float, span: int, k: int, window_s: float,
-                target_per_30_days: float) -> Count | None:
-    """Without a fit: the clusters of S at or over the threshold x on the held-out sequences
-    (runs declustering as in clusters()), over their running hours H, and the promise "at most"
-    the Garwood 95 % upper limit of that rate per 30 days (range: Garwood's two limits). None
-    without held-out running."""
+def count_bound(sequences: Sequence[np.ndarray], limits: Sequence[tuple[float, float]], span: int, k: int,
+                window_s: float) -> list[Count] | None:
+    """Without a fit, for each (threshold x, target per 30 days) of limits: the clusters of S at
+    or over x on the held-out sequences (runs declustering as in clusters()), over their running
+    hours H, and the promise "at most" the Garwood 95 % upper limit of that rate per 30 days
+    (range: Garwood's two limits). S is computed once for all the limits. None without held-out
+    running."""
     hours = sum(len(c) for c in sequences) * window_s / 3600.0
     if hours <= 0:
         return None
     parts = [raise_statistic(c, span, k) for c in sequences]
-    n = sum(len(clusters(p, x, span)) for p in parts)
-    lo, hi = (v * 720.0 / hours for v in garwood_95(n))
     s_max = max((float(p.max()) for p in parts if len(p)), default=-math.inf)
-    return Count(n, hours, Promise(x, hi, (lo, hi), target_per_30_days, False, x > s_max, True))
+    out = []
+    for x, target_per_30_days in limits:
+        n = sum(len(clusters(p, x, span)) for p in parts)
+        lo, hi = (v * 720.0 / hours for v in garwood_95(n))
+        out.append(Count(n, hours, Promise(x, hi, (lo, hi), target_per_30_days, False, x > s_max, True)))
+    return out
 
 
 def _ratio(rf: RateFit, per_h: float) -> float:

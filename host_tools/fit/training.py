@@ -59,7 +59,7 @@ from host_tools.progress import start
 from host_tools.data.recording import Recording
 from host_tools.twin.replay import (
     StreamFeatures, check_recordings, evidence_sequences, m_s2_per_count, physical_columns, promise_check,
-    promise_text,
+    promise_text, stated_rate,
     step_detector, stream_features,
     twin_for)
 
@@ -572,15 +572,16 @@ def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, ta
     except EdgevibError as e:
         # no tail to fit: the chi-square thresholds stay, and what the held-out running does show
         # at them is stated, as the exact Poisson upper limit of the count (an upper bound)
-        ca = raise_rate.count_bound(seqs, float(chi_alert), span, k, window_s, target)
-        cm = raise_rate.count_bound(seqs, float(chi_alarm), span, k, window_s, target / ALARM_RATE_RATIO)
-        if ca is None:
+        counts = raise_rate.count_bound(seqs, [(float(chi_alert), target), (float(chi_alarm), target / ALARM_RATE_RATIO)],
+                                        span, k, window_s)
+        if counts is None:
             warnings.append(f"{e}: thresholds from the device's conservative chi-square rule, no stated rate")
             return chi_alert, chi_alarm, {
                 "method": "the device's chi-square rule (no held-out running to count raises on)",
                 "expected_false_alerts_per_30_days": None, "range_95_per_30_days": None}
+        ca, cm = counts
         warnings.append(f"{e}: thresholds from the device's conservative chi-square rule; without a fit the data "
-                        f"support at most {ca.promise.per_30_days:.3g} false alerts per 30 days (95 % upper limit of "
+                        f"support {stated_rate(ca.promise.per_30_days, True)} false alerts per 30 days (95 % upper limit of "
                         f"{ca.clusters} raise-like stretches counted in {ca.hours:.2f} h of held-out running). Train on "
                         "more running time to promise fewer")
         return chi_alert, chi_alarm, {
