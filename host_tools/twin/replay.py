@@ -537,7 +537,7 @@ def promise_text(rate: float, range_95: Sequence[float], upper: bool,
 
 
 def stated_rate(rate: float, upper: bool) -> str:
-    """A stated false-alert rate as every page and summary writes it: "at most 1210" for an upper
+    """A stated false-alert rate as every page and summary writes it: "at most 1207" for an upper
     bound (thin training data only bound it), the figure alone for the fit's estimate."""
     return f"{'at most ' if upper else ''}{_rate_text(rate)}"
 
