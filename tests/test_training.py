@@ -229,22 +229,23 @@ def test_idle_floor_from_stops_inside_recordings_of_unknown_rpm():
 
 
 def test_half_order_is_scored_only_clear_of_the_1x_lobe():
-    # The 0.5x line is read as the 3-bin lobe around f/2 and the 1x's Hann main lobe reaches 2 bins
-    # below f (Harris 1978, Hann main lobe +-2 bins), so the two stay apart only for f > 6 bins.
-    # Checked with numpy, not with the rule: a lone 1x tone at f bins (every tenth of a bin, so
-    # the worst fractional position is seen) leaks into the 0.5x lobe at f/2 by less than the Hann
-    # first sidelobe (-31.5 dB, Harris 1978) everywhere above 6 bins, and by far more below it.
+    # The device reads the 0.5x line as the 4 bins floor(f/2)-1 .. floor(f/2)+2 and the 1x as
+    # floor(f)-1 .. floor(f)+2 (firmware_py/dsp/orders.py); the 1x's Hann main lobe spans +-2 bins
+    # (Harris 1978). Checked with numpy, not with the rule: a lone 1x tone at f bins (every tenth
+    # of a bin, so the worst fractional position is seen) leaks into that 0.5x read by less than
+    # the Hann first sidelobe (-31.5 dB, Harris 1978) everywhere from 7 bins, and by far more
+    # below it (6.5 bins: the read's top bin lies 1.5 bins under the 1x).
     from host_tools.fit.training import _feature_list
     n = 512
     w = np.hanning(n + 1)[:n]          # periodic Hann
 
     def leak_db(f_bins):
         p = np.abs(np.fft.rfft(w * np.cos(2 * np.pi * f_bins * np.arange(n) / n))) ** 2
-        k, j = int(round(f_bins / 2)), int(round(f_bins))
-        return 10 * np.log10(p[k - 1:k + 2].sum() / p[j - 1:j + 2].sum())
-    assert max(leak_db(f) for f in np.arange(6.1, 9.0, 0.1)) < -31.5
-    assert min(leak_db(f) for f in (3.9, 4.5, 5.5)) > -31.5
-    for f_bins, clear in ((3.9, False), (5.5, False), (6.5, True), (7.8, True)):
+        k, j = int(np.floor(f_bins / 2)), int(np.floor(f_bins))
+        return 10 * np.log10(p[k - 1:k + 3].sum() / p[j - 1:j + 3].sum())
+    assert max(leak_db(f) for f in np.arange(7.0, 9.0, 0.1)) < -31.5
+    assert min(leak_db(f) for f in (3.9, 4.5, 5.5, 6.5)) > -31.5
+    for f_bins, clear in ((3.9, False), (5.5, False), (6.5, False), (7.2, True), (7.8, True)):
         prm = pm.factory(PROFILE)
         prm.update(fc_speed_lo_q8=int(f_bins * FS / PROFILE["window_n"] * 256), fc_speed_hi_q8=60 * 256, fc_vane=6)
         pa = fi.per_axis(len(prm["fc_bands"]))

@@ -12,11 +12,18 @@
 #
 # Scales: p[k] <= 2**28 (fft.spectrum), a 4-bin sum < 2**30; f1_q8: 1x in bins Q8 (speed.py);
 # output log2 of counts**2, Q8, as the band powers. Two orders closer than 4 bins share bins:
-# 0.5x is clean of 1x only from 1x >= 8 bins (docs/fixed-point.md).
+# 0.5x is clean of 1x only from 1x >= HALF_CLEAR_BINS (docs/fixed-point.md).
+from micropython import const
+
 from firmware_py.dsp.feature_index import (
     F_ORD_1X, F_ORD_2X, F_ORD_3X, F_ORD_HALF, F_ORD_VANE, LOG2_ZERO_Q8)
 from firmware_py.dsp.fft import power_sum
 from firmware_py.dsp.fixmath import log2_q8
+
+# The lowest 1x (bins) whose 0.5x read lies clear of the 1x's main lobe: the read's top bin,
+# floor(f/2) + 2, must lie 2 bins or more under f, which holds for every f >= 7 (at 6 <= f < 7
+# it is bin 5, 1 to 2 bins under f). Training scores the 0.5x line only from there.
+HALF_CLEAR_BINS = const(7)
 
 
 def check_vane(n, fs_hz, vane, hi_q8):

@@ -47,7 +47,7 @@ import numpy as np
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.detect import alarm as al
-from firmware_py.dsp import feature_index as fi
+from firmware_py.dsp import feature_index as fi, orders
 from firmware_py.run import params as pm
 from firmware_py.detect.detector import W_IDLE, W_SCORED, Detector, default_feature_list
 from firmware_py.detect.iso_zones import ZONE_C
@@ -510,22 +510,18 @@ def _running_median(x: np.ndarray, span: int) -> np.ndarray:
     return np.concatenate([x[:span - 1], np.median(w, 1)])
 
 
-HALF_ORDER_MIN_BINS = 6.0   # the lowest 1x, in bins, at which the 0.5x line is read clear of it
-
-
 def _feature_list(p: dict) -> list[int]:
     """Scored features: the default list, plus the order lines (and vane pass) when the speed is
     estimated, and the envelope lines when the envelope is on. The 0.5x line only when the
-    slowest shaft of the range puts it clear of the 1x: 0.5x is read as the 3-bin lobe around
-    f/2 (bins), the 1x's Hann main lobe reaches 2 bins below f, so they stay apart only when
-    f/2 + 1 < f - 2, f > 6 bins (Harris, "On the use of windows for harmonic analysis with the
-    discrete Fourier transform", Proc. IEEE 66, 1978: Hann main lobe +-2 bins). Closer, the
-    0.5x feature is the 1x's leakage, which swings with the fraction of a bin the speed sits at."""
+    slowest shaft of the range reads it clear of the 1x's main lobe (orders.HALF_CLEAR_BINS;
+    Harris, "On the use of windows for harmonic analysis with the discrete Fourier transform",
+    Proc. IEEE 66, 1978: Hann main lobe +-2 bins). Closer, the 0.5x feature is the 1x's leakage,
+    which swings with the fraction of a bin the speed sits at."""
     pa = fi.per_axis(len(p["fc_bands"]))
     extra = []
     if p.get("fc_speed_hi_q8"):
         lo_bins = p["fc_speed_lo_q8"] / 256 * p["n"] / p["fs_hz"]
-        half = [fi.F_ORD_HALF] if lo_bins > HALF_ORDER_MIN_BINS else []
+        half = [fi.F_ORD_HALF] if lo_bins >= orders.HALF_CLEAR_BINS else []
         extra += half + [fi.F_ORD_1X, fi.F_ORD_2X, fi.F_ORD_3X] + ([fi.F_ORD_VANE] if p.get("fc_vane") else [])
     if p.get("fc_env_band") and p.get("fc_bear_q12"):
         extra += [fi.F_ENV_BPFO, fi.F_ENV_BPFI, fi.F_ENV_BSF, fi.F_ENV_FTF]
