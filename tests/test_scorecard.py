@@ -4,7 +4,7 @@ import json
 import numpy as np
 import pytest
 
-from host_tools.fit.scorecard import render_text, score_history, scorecard
+from host_tools.fit.scorecard import gapless_section, render_text, score_history, scorecard
 
 T0 = 1_000_000.0
 DAY = 86400.0
@@ -68,6 +68,30 @@ def test_machine_fault_delay_and_a_miss():
     assert card["machine_summary"]["detected"] == 1
     assert card["verdicts"]["every_machine_fault_detected"] is False
     assert "MISSED" in render_text(card) and "-60 min" in render_text(card)
+
+
+def test_gapless_delays_count_a_fault_not_raised_as_later_than_the_run():
+    def run(name, delay, at_start=False):
+        ev = None if delay is None else _ev(DAY + delay, "alert", feature="band x")
+        return {"history": name, "start_t_s": T0 + DAY - 7200.0, "end_t_s": T0 + DAY + 7200.0,
+                "visible_t_s": T0 + DAY, "raised_as": ev, "delay_s": delay, "at_start": at_start}
+    runs = [run("a", -7140.0, True), run("b", -600.0), run("c", 1200.0), run("d", None)]
+    healthy = [{"history": "h", "start_t_s": T0, "end_t_s": T0 + 4 * 3600.0, "running_h": 3.5, "stops": 1,
+                "false_raises": [_ev(3600.0, "alert", feature="band x")]}]
+    g = gapless_section(runs, healthy, 2.0)
+    # the median of -7140, -600, +1200 and the unraised one (later than any): the middle two's mean
+    assert g["median_delay_s"] == pytest.approx((-600.0 + 1200.0) / 2)
+    assert g["raised"] == 3 and g["max_delay_s"] is None
+    # half of them unraised: no median either
+    assert gapless_section(runs[2:], [], 2.0)["median_delay_s"] is None
+    # one false raise in 3.5 h of running: 720 / 3.5 per 30 days of running
+    assert g["false_raises"] == 1 and g["per_30_days"] == pytest.approx(720.0 / 3.5)
+    card = scorecard([])
+    card["gapless"] = g
+    text = render_text(card)
+    assert "<= -119 min" in text and "not yet" in text and "+20 min" in text
+    assert "median delay +5 min, worst over +2 h" in text
+    assert "1 false alert(s) and alarm(s); +60 min in: alert (score, band x)" in text and "205.71 per 30 days" in text
 
 
 def test_sensor_fault_named_first_or_not():

@@ -70,6 +70,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--evaluation", choices=("demo", "full", "off"), default="demo",
                    help="scorecard on the evaluation histories: demo (one machine, about a minute), full (two machines, "
                         "much longer) or off (default demo)")
+    p.add_argument("--gapless-hours", type=float, default=0.0, metavar="H",
+                   help="also run each machine fault of the scorecard without a gap, every window as a gateway sees it, "
+                        "from H hours before it is clearly visible to the first alert or H hours after (default 0: off)")
     p.add_argument("--fleet", action="store_true",
                    help="run the fleet part instead: a dozen invented pumps at two sites, trained and reviewed through Dask")
     p.add_argument("--pumps", type=int, default=12, metavar="N", help="--fleet: how many of the demo fleet's pumps (default 12)")
@@ -88,6 +91,11 @@ def run(args: argparse.Namespace) -> int:
     stretch_s = tuple(getattr(args, "continuous_s", DEFAULT_STRETCH_S))
     if not all(0 <= v <= 3000 for v in stretch_s):
         raise EdgevibError("--continuous-s takes two lengths from 0 to 3000 s (a stretch keeps within an hour of steady speed)")
+    gapless_h = getattr(args, "gapless_hours", 0.0)
+    if not 0 <= gapless_h <= 24:
+        raise EdgevibError("--gapless-hours must be from 0 to 24")
+    if gapless_h and getattr(args, "evaluation", "demo") == "off":
+        raise EdgevibError("--gapless-hours runs the scorecard's faults; it needs --evaluation demo or full")
     started = time.monotonic()
     from host_tools.report.replay_report import staging_folder, swap_in
     if args.fleet and not 1 <= args.pumps <= 12:
@@ -102,7 +110,7 @@ def run(args: argparse.Namespace) -> int:
                                                    "pumps": args.pumps}, indent=1) + "\n")
         else:
             lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs,
-                          getattr(args, "evaluation", "demo"), stretch_s)
+                          getattr(args, "evaluation", "demo"), stretch_s, gapless_h)
         swap_in(tmp, out)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -122,7 +130,8 @@ def _check_out(out: Path) -> None:
 
 
 def build(work: Path, final: Path, seed: int, days: float, training_days: float, interval_s: float,
-          jobs: int | None = None, evaluation: str = "off", stretch_s: tuple[float, float] = (0.0, 0.0)) -> list[str]:
+          jobs: int | None = None, evaluation: str = "off", stretch_s: tuple[float, float] = (0.0, 0.0),
+          gapless_h: float = 0.0) -> list[str]:
     """Run the demo into folder `work` (paths are printed as they will be under `final`);
     returns the summary lines. Prints the commissioning check as it goes."""
     from host_tools.data import demo_scenario as ds
@@ -149,7 +158,7 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     for r in results:
         lines += summary_lines(r, truth, final)
     if evaluation != "off":
-        lines += ["", *scorecard_lines(work, final, evaluation, jobs)]
+        lines += ["", *scorecard_lines(work, final, evaluation, jobs, gapless_h)]
     lines += ["", "edgevib is advisory condition monitoring, not machinery protection or a safety shutdown system;",
               "an all-clear is no guarantee."]
     (work / _MARKER).write_text(json.dumps({"seed": seed, "days": days, "training_days": training_days,
@@ -158,8 +167,9 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     return lines
 
 
-def scorecard_lines(work: Path, final: Path, scale: str, jobs: int | None) -> list[str]:
-    """Write the evaluation histories at `scale` into work/scenarios, train, replay and score them;
+def scorecard_lines(work: Path, final: Path, scale: str, jobs: int | None, gapless_h: float = 0.0) -> list[str]:
+    """Write the evaluation histories at `scale` into work/scenarios, train, replay and score them
+    (and run the machine faults without a gap, gapless_h hours either side of clearly visible);
     write work/scorecard.json and .txt; return the printed lines."""
     from host_tools.data.files import load_board
     from host_tools.data import scenarios as sc
@@ -167,7 +177,7 @@ def scorecard_lines(work: Path, final: Path, scale: str, jobs: int | None) -> li
     from host_tools.fit.scorecard import render_text
     j = max(1, min(jobs or (os.cpu_count() or 1), os.cpu_count() or 1))
     suite = sc.write_suite(work / "scenarios", scale=scale, jobs=j)
-    card, _ = evaluate_suite(suite, load_board(None), jobs=j,
+    card, _ = evaluate_suite(suite, load_board(None), jobs=j, gapless_h=gapless_h,
                              label=f"invented {sc.PLANT} histories, scale {scale}, detector as trained by edgevib train")
     text = render_text(card)
     (work / "scorecard.json").write_text(to_json(card))

@@ -442,6 +442,19 @@ def _stretch_counts(h: History, recs: Sequence[Recording]) -> Iterator[tuple[Rec
         yield r, counts, hits
 
 
+def gapless_counts(h: History, t0_s: float, chunk_n: int) -> Iterator[tuple[float, np.ndarray]]:
+    """The history's counts (int16, chunk_n x 3) without a gap from t0_s on, chunk after chunk,
+    each with its start time (Unix s): one running generator, as a gateway's sensor sees the
+    pump around the clock (it stops and restarts as the history plans; each sensor fault active
+    at a chunk's start acts on that chunk, with the fault's duty). Endless: the caller stops."""
+    s = _Synth(h, t0_s, True)
+    t = t0_s
+    while True:
+        counts, _ = _sense(h, s, t, s.next(chunk_n))
+        yield t, counts
+        t += chunk_n / s.fs
+
+
 def _sense(h: History, s: _Synth, t0: float, a: np.ndarray, sensor_faults: bool = True) -> tuple[np.ndarray, list]:
     """The sensor's counts of acceleration a (m/s^2) from t0, with the sensor faults active at t0:
     a loose mount acts on the motion the sensor receives, before its own noise and ADC (the

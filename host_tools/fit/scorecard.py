@@ -7,6 +7,9 @@ and its ground truth (host_tools.data.scenarios.ground_truth). Entry points:
 - `score_history(events, window_t_s, window_s, truth)` -> dict: one history's figures;
 - `scorecard(scored)` -> dict: the figures of many histories, with totals and verdicts against the
   targets of issue 9 (JSON-able);
+- `gapless_section(runs, healthy, hours)` -> dict: the card's `gapless` section, from the machine
+  faults and the healthy histories run without a gap (host_tools.ops.continuous): the delays and
+  false alerts of a gateway that analyses every window, without the wait for the next snapshot;
 - `render_text(card)` -> str: the table a person reads (the demo prints it).
 
 What is counted (issue 9, "How to prove it"):
@@ -187,6 +190,22 @@ def scorecard(scored: Sequence[dict], label: str = "") -> dict[str, Any]:
     return card
 
 
+def gapless_section(runs: Sequence[dict], healthy: Sequence[dict], hours: float) -> dict[str, Any]:
+    """The `gapless` section: each fault run (gapless_fault's dict), and the median and worst
+    delay over all of them, a fault not raised by `hours` after clearly visible counting as later
+    than that (median None if that is half of them or more, worst None if any); each healthy run
+    (gapless_healthy's dict), with the false raises per 30 days of running."""
+    d = sorted(math.inf if r["delay_s"] is None else r["delay_s"] for r in runs)
+    med = float(np.median(d)) if d else math.inf
+    run_h = sum(r["running_h"] for r in healthy)
+    n_false = sum(len(r["false_raises"]) for r in healthy)
+    return {"hours": hours, "faults": list(runs), "raised": sum(r["delay_s"] is not None for r in runs),
+            "median_delay_s": med if math.isfinite(med) else None,
+            "max_delay_s": d[-1] if d and math.isfinite(d[-1]) else None,
+            "healthy": list(healthy), "healthy_running_h": run_h, "false_raises": n_false,
+            "per_30_days": n_false / run_h * 720.0 if run_h > 0 else None}
+
+
 def _dur(s: float | None) -> str:
     if s is None:
         return "-"
@@ -229,6 +248,28 @@ def render_text(card: dict) -> str:
     lines.append(f"    detected {ms['detected']}/{ms['faults']}; median delay {_dur(ms['median_delay_s'])}, "
                  f"worst {_dur(ms['max_delay_s'])} (targets: all detected, median <= 0, none over +2 h: "
                  f"{ok[v['every_machine_fault_detected'] and v['median_delay_not_after_visible'] and v['no_delay_over_2_h']]})")
+    if "gapless" in card:
+        g = card["gapless"]
+        lines.append(f"  without a gap (every window, as a gateway sees them): each fault from {g['hours']:g} h before "
+                     f"clearly visible, or its onset, to the first alert or {g['hours']:g} h after:")
+        for r in g["faults"]:
+            d = "not yet" if r["raised_as"] is None else ("<= " if r["at_start"] else "") + _dur(r["delay_s"])
+            lines.append(f"    {r['history']:<28} {'run from ' + _dur(r['start_t_s'] - r['visible_t_s']):<28} "
+                         f"{d:>10}  {_what(r['raised_as'])}" + ("  (raised as soon as it could: the fault already stood "
+                                                              "out when the run began)" if r["at_start"] else ""))
+        late = f"over +{g['hours']:g} h"
+        lines.append(f"    raised {g['raised']}/{len(g['faults'])} within {g['hours']:g} h; median delay "
+                     f"{_dur(g['median_delay_s']) if g['median_delay_s'] is not None else late}, "
+                     f"worst {_dur(g['max_delay_s']) if g['max_delay_s'] is not None else late}")
+        if g["healthy"]:
+            lines.append(f"    and each healthy history's first {2 * g['hours']:g} h:")
+        for r in g["healthy"]:
+            lines.append(f"    {r['history']:<28} {(r['end_t_s'] - r['start_t_s']) / 3600:.1f} h, {r['running_h']:.1f} h "
+                         f"running, {r['stops']} stop(s): {len(r['false_raises'])} false alert(s) and alarm(s)"
+                         + "".join(f"; {_dur(e['t_s'] - r['start_t_s'])} in: {_what(e)}" for e in r["false_raises"][:3]))
+        if g["healthy"]:
+            lines.append(f"    false alerts and alarms: {g['false_raises']} in {g['healthy_running_h']:.1f} h of running "
+                         f"({_rate(g['per_30_days'])} per 30 days)")
     lines.append("  sensor faults (first concern after the first corrupted sample):")
     for f in card["sensor_faults"]:
         if f["first_hit_t_s"] is None:

@@ -9,8 +9,17 @@ memory for any length; the detector carries over from chunk to chunk, as on the 
 result holds the training's promise, the raises observed per running hour and the verdict of
 host_tools.twin.replay.promise_check.
 
-`edgevib bench --continuous-hours H` runs it (24 h: a few minutes on one core). The data are
-invented; edgevib is advisory condition monitoring, not machinery protection.
+`edgevib bench --continuous-hours H` runs it (24 h: a few minutes on one core).
+
+`gapless_fault(seed, scale, name, visible_t_s, params, profile, hours)` -> dict: one machine fault
+of the evaluation suite as a gateway analysing every window sees it: the history's signal without
+a gap (host_tools.data.scenarios.gapless_counts) from `hours` before the fault is clearly visible
+(not before its onset) until the first alert or `hours` after, through the feature twin and one
+device detector on the board's analyse_every. The scorecard's snapshots are 10 s every half hour
+or hour, so their delays include the wait for the next snapshot; this one does not.
+`edgevib demo --gapless-hours H` adds it to the scorecard.
+
+The data are invented; edgevib is advisory condition monitoring, not machinery protection.
 """
 from __future__ import annotations
 
@@ -24,9 +33,10 @@ import firmware_py  # noqa: F401
 from firmware_py.detect import alarm as al
 from firmware_py.detect.detector import Detector
 from host_tools.data.recording import Recording
-from host_tools.data.scenarios import StationarySpec, stationary_chunks
+from host_tools.data.scenarios import AXES, StationarySpec, evaluation_suite, gapless_counts, stationary_chunks
+from host_tools.data.units import feature_name
 from host_tools.fit.training import train
-from host_tools.twin.replay import promise_check, step_detector, twin_for
+from host_tools.twin.replay import CHUNK_WINDOWS, promise_check, step_detector, twin_for
 
 _BOARD = Path(__file__).resolve().parents[2] / "boards" / "desk.json"
 _T0 = 1_800_000_000.0
@@ -80,3 +90,71 @@ def continuous_check(train_s: float = 3600.0, test_s: float = 86400.0, seed_trai
             "check": promise_check(raises, running_h, params),
             "windows_per_state": {name: int(states[i]) for i, name in enumerate(al.STATE_NAMES)},
             "warnings": summary["warnings"]}
+
+
+def _gapless_raises(h: Any, t0: float, end: float, params: dict, profile: dict, first_only: bool) -> list[dict]:
+    """Entries into alert or alarm (dated as the scorecard's events: t_s, from, to, reason,
+    feature) of one device detector over history h's gapless signal from t0 to end (or to the
+    first, with first_only), on the board's analyse_every. Memory: one chunk of CHUNK_WINDOWS
+    analysed windows, whatever the span."""
+    twin = twin_for(params, profile)
+    every = int(profile["analyse_every"])
+    det = Detector(params, every)
+    n, fs = params["n"], float(params["fs_hz"])
+    axes = AXES[:params["axes"]]
+    raises: list[dict] = []
+    w0 = 0
+    chunks = gapless_counts(h, t0, CHUNK_WINDOWS * every * n)
+    t = t0
+    while t < end and not (first_only and raises):
+        t, counts = next(chunks)
+        x = counts[:, :params["axes"]].reshape(CHUNK_WINDOWS * every, n, -1)[::every]
+        st = step_detector(det, twin.features(x.reshape(-1, x.shape[2])), w0)
+        for w, old, new, reason, _mode, feat, _score in st.events:
+            t_s = t + ((w - w0) * every + 1) * n / fs
+            if new in (al.ALERT, al.ALARM) and old not in (al.ALERT, al.ALARM) and t_s <= end:
+                raises.append({"t_s": t_s, "from": al.STATE_NAMES[old], "to": al.STATE_NAMES[new],
+                               "reason": al.REASON_NAMES[reason],
+                               "feature": feature_name(feat, params, axes) if feat >= 0 else None})
+        w0 += CHUNK_WINDOWS
+        t += len(counts) / fs
+    return raises[:1] if first_only else raises
+
+
+def gapless_fault(seed: int, scale: str, name: str, visible_t_s: float, params: dict, profile: dict,
+                  hours: float) -> dict[str, Any]:
+    """See the module docstring. Returns {"history", "start_t_s", "end_t_s", "visible_t_s",
+    "raised_as" (the first entry into alert or alarm, as the scorecard's events: t_s, from, to,
+    reason, feature; None if none by the end), "delay_s" (its time minus visible_t_s), "at_start"
+    (raised within the least time a detector started cold needs to raise: the hold-off, the
+    steadiness span, the evidence span and twice the slow channel's time constant; so the fault
+    already stood out when the run began, and the delay is an upper bound)}."""
+    h = next(x for x in evaluation_suite(seed, scale) if x.name == name)
+    onset = min(f.onset_t_s for f in h.faults)
+    t0 = max(onset, visible_t_s - hours * 3600.0)
+    end = visible_t_s + hours * 3600.0
+    got = _gapless_raises(h, t0, end, params, profile, first_only=True)
+    first = got[0] if got else None
+    n, fs, every = params["n"], float(params["fs_hz"]), int(profile["analyse_every"])
+    warm_s = (params["det_hold_ms"] + params["det_steady_ms"] + params["det_persist_ms"]
+              + 2 * params.get("det_slow_ms", 0)) / 1000.0 + n * every / fs
+    return {"history": name, "start_t_s": t0, "end_t_s": end, "visible_t_s": visible_t_s, "raised_as": first,
+            "delay_s": None if first is None else first["t_s"] - visible_t_s,
+            "at_start": first is not None and first["t_s"] - t0 <= warm_s}
+
+
+def gapless_healthy(seed: int, scale: str, name: str, params: dict, profile: dict, hours: float) -> dict[str, Any]:
+    """A healthy history of the evaluation suite without a gap for its first `hours` (its stops,
+    restarts and speed changes as planned): every entry into alert or alarm is false. Returns
+    {"history", "start_t_s", "end_t_s", "running_h" (the plan's running time: shaft turning,
+    read each second), "stops" (planned stops that begin in the span), "false_raises" (dated
+    events)}."""
+    h = next(x for x in evaluation_suite(seed, scale) if x.name == name)
+    t0 = h.start_t_s
+    end = min(h.end_t_s, t0 + hours * 3600.0)
+    running_h = float((h.shaft_hz(np.arange(t0, end, 1.0)) > 0).sum()) / 3600.0
+    begins = [next((s[k] for k in ("run_down_t_s", "stopped_t_s", "run_up_t_s") if s[k] is not None), None)
+              for s in h.stops]
+    stops = sum(1 for b in begins if b is not None and t0 <= b < end)
+    return {"history": name, "start_t_s": t0, "end_t_s": end, "running_h": running_h, "stops": stops,
+            "false_raises": _gapless_raises(h, t0, end, params, profile, first_only=False)}
