@@ -14,7 +14,7 @@ test: $(STAMP)
 	$(PY) -m pytest -q
 
 demo: $(STAMP)
-	$(VENV)/bin/edgevib demo --out demo_out
+	$(VENV)/bin/edgevib demo --out demo_out --gapless-hours 2
 
 bench: $(STAMP)
 	$(VENV)/bin/edgevib bench --json

@@ -195,3 +195,13 @@ def test_bad_out_is_one_line_and_exit_2(tmp_path, capsys):
     assert cli.main(["demo", "--out", str(tmp_path / "missing" / "out"), *SMALL]) == 2
     assert capsys.readouterr().err.count("\n") == 1
     assert sorted(p.name for p in tmp_path.iterdir()) == ["not_a_folder"]
+
+
+@pytest.mark.parametrize("extra, says", [
+    (["--gapless-hours", "2"], "needs --evaluation demo or full"),      # SMALL has --evaluation off
+    (["--gapless-hours", "25", "--evaluation", "demo"], "--gapless-hours must be from 0 to 24"),
+])
+def test_bad_gapless_hours_is_one_line_and_exit_2(tmp_path, capsys, extra, says):
+    assert cli.main(["demo", "--out", str(tmp_path / "out"), *SMALL, *extra]) == 2
+    err = capsys.readouterr().err
+    assert err.count("\n") == 1 and says in err and not (tmp_path / "out").exists()

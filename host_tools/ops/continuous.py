@@ -33,7 +33,7 @@ import firmware_py  # noqa: F401
 from firmware_py.detect import alarm as al
 from firmware_py.detect.detector import Detector
 from host_tools.data.recording import Recording
-from host_tools.data.scenarios import AXES, StationarySpec, evaluation_suite, gapless_counts, stationary_chunks
+from host_tools.data.scenarios import AXES, History, StationarySpec, evaluation_suite, gapless_counts, stationary_chunks
 from host_tools.data.units import feature_name
 from host_tools.fit.training import train
 from host_tools.twin.replay import CHUNK_WINDOWS, promise_check, step_detector, twin_for
@@ -92,7 +92,7 @@ def continuous_check(train_s: float = 3600.0, test_s: float = 86400.0, seed_trai
             "warnings": summary["warnings"]}
 
 
-def _gapless_raises(h: Any, t0: float, end: float, params: dict, profile: dict, first_only: bool) -> list[dict]:
+def _gapless_raises(h: History, t0: float, end: float, params: dict, profile: dict, first_only: bool) -> list[dict]:
     """Entries into alert or alarm (dated as the scorecard's events: t_s, from, to, reason,
     feature) of one device detector over history h's gapless signal from t0 to end (or to the
     first, with first_only), on the board's analyse_every. Memory: one chunk of CHUNK_WINDOWS
