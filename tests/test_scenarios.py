@@ -184,8 +184,9 @@ def test_gapless_stream_is_chunk_free_and_quiet_when_the_plan_stops_the_pump():
 def test_suite_plan_covers_every_fault_once():
     hs = sc.evaluation_suite(scale="full")
     kinds = [(h.machine.name, f.kind) for h in hs for f in h.faults]
-    assert sorted(k for m, k in kinds if m == "RW-1") == sorted(sc.MACHINE_FAULTS)
-    assert {m for m, _ in kinds} == {"RW-1", "RW-2"}
+    # the five faults on each machine: the second one is judged on all of them too
+    for m in ("RW-1", "RW-2"):
+        assert sorted(k for mm, k in kinds if mm == m) == sorted(sc.MACHINE_FAULTS)
     assert sorted(f.kind for h in hs for f in h.sensor_faults) == sorted(sc.SENSOR_FAULTS)
     for h in hs:
         assert len(h.faults) + len(h.sensor_faults) <= 1   # one fault per history

@@ -661,7 +661,6 @@ SCALES = {
     "demo": {"train_days": 1.5, "healthy_days": 1.0, "fault_days": 2.2, "sensor_days": 1.3, "interval_s": 3600.0,
              "long_s": 120.0, "changes_per_day": 0.5, "machines": ("RW-1",)},
 }
-_FAULTS_OF = {"RW-1": MACHINE_FAULTS, "RW-2": ("bearing_outer_race", "looseness")}
 _GROWTH_DAYS = {"imbalance": 2.0, "misalignment": 2.0, "bearing_outer_race": 2.5, "cavitation": 1.5, "looseness": 2.0}
 
 
@@ -679,7 +678,7 @@ def evaluation_suite(seed: int = 2027, scale: str = "full", machines: Sequence[s
         out.append(plan_history(f"{name}-training", name, seed, c["train_days"], t_train, role="training", **base))
         out.append(plan_history(f"{name}-healthy", name, seed + 1, c["healthy_days"], t_field, role="healthy", **base))
         lead = 0.8 * DAY_S
-        for k, kind in enumerate(_FAULTS_OF[name]):
+        for k, kind in enumerate(MACHINE_FAULTS):
             onset = t_field + lead + (k % 3) * 0.1 * DAY_S
             f = MachineFault(kind, onset, _GROWTH_DAYS[kind] * DAY_S)
             out.append(plan_history(f"{name}-{kind.replace('_', '-')}", name, seed + 10 + k, c["fault_days"], t_field,

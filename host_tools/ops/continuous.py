@@ -17,7 +17,9 @@ a gap (host_tools.data.scenarios.gapless_counts) from `hours` before the fault i
 (not before its onset) until the first alert or `hours` after, through the feature twin and one
 device detector on the board's analyse_every. The scorecard's snapshots are 10 s every half hour
 or hour, so their delays include the wait for the next snapshot; this one does not.
-`edgevib demo --gapless-hours H` adds it to the scorecard.
+`gapless_healthy(seed, scale, name, params, profile, hours)` -> dict: a healthy history's first
+`hours` the same way, where every raise is false. `edgevib demo --gapless-hours H` adds both to
+the scorecard.
 
 The data are invented; edgevib is advisory condition monitoring, not machinery protection.
 """

@@ -80,14 +80,16 @@ def evaluate_suite(suite_json: str | os.PathLike, profile: dict, jobs: int = 1, 
 
 def _gapless(root: Path, suite: dict, params: dict, profile: dict, hours: float, jobs: int
              ) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
-    """gapless_fault for every machine-fault history of the suite and gapless_healthy (2 * hours)
-    for every healthy one, in up to `jobs` processes (minutes of work: a progress bar on stderr,
+    """gapless_fault for every machine-fault history of the suite whose fault becomes clearly
+    visible, and gapless_healthy (2 * hours) for every healthy one, in up to `jobs` processes (minutes of work: a progress bar on stderr,
     one step per history). Returns (fault runs, healthy runs)."""
     from host_tools.ops.continuous import gapless_fault, gapless_healthy
     from host_tools.progress import start
     faults = [h for h in suite["histories"] if h["role"] == "machine_fault"]
     healthy = [h for h in suite["histories"] if h["role"] == "healthy"]
     vis = [json.loads((root / h["ground_truth"]).read_text())["machine_faults"][0]["visible_t_s"] for h in faults]
+    # a fault never clearly visible in its history has no time to run around
+    faults, vis = [h for h, v in zip(faults, vis) if v is not None], [v for v in vis if v is not None]
     seed, scale = suite["seed"], suite["scale"]
     calls = ([(gapless_fault, (seed, scale, h["name"], v, params[h["machine"]], profile, hours)) for h, v in zip(faults, vis)]
              + [(gapless_healthy, (seed, scale, h["name"], params[h["machine"]], profile, 2 * hours)) for h in healthy])
