@@ -223,11 +223,19 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     else:
         k, lab = 1, np.zeros(len(z), int)
     floor = params["det_s_floor_q8"]
-    zm = np.where(mask, np.nan, z.astype(np.float64))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)     # a line masked in every window of a mode
-        centers = np.nan_to_num(np.array([np.nanmean(zm[lab == m], 0) for m in range(k)]), nan=0.0)
-        spread = np.nan_to_num(np.array([np.nanstd(zm[lab == m], 0) for m in range(k)]), nan=256.0)
+    # per mode, each feature's mean and spread (population) over the windows that read its line;
+    # a line masked in every window of a mode is neutral there (centre 0, spread 256). Counted
+    # here rather than by nanmean/nanstd, whose empty-slice warning would need a warnings filter,
+    # and filters are process-wide: two trainings in threads (a Dask worker) undo each other's
+    centers = np.zeros((k, d))
+    spread = np.full((k, d), 256.0)
+    for m in range(k):
+        zk, ok = z[lab == m].astype(np.float64), ~mask[lab == m]
+        cnt = ok.sum(0)
+        has = cnt > 0
+        centers[m, has] = np.where(ok, zk, 0.0).sum(0)[has] / cnt[has]
+        dev = np.where(ok, zk - centers[m], 0.0)
+        spread[m, has] = np.sqrt((dev * dev).sum(0)[has] / cnt[has])
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
     alert = (CHI_Q8[d - 1] * margin) >> 8
     return {
