@@ -206,7 +206,7 @@ def test_fleet_train_then_compare_leaves_the_sets_in_use_untouched(fleet, tmp_pa
     before = {g.name: (g / layout.PARAMS).read_bytes() for g in layout.gateways(root)}
     cand = tmp_path / "candidates"
     with engine.cluster(workers=2, processes=False) as client:
-        doc, lines = runs.train_fleet(client, root, cand, 1.0, 7, quiet=True)
+        doc, lines = runs.train_fleet(client, root, cand, 1.0, quiet=True)
         # this small fleet's healthy folders hold too little steady running for a set: training
         # refuses with its own one-line reason per gateway, never an internal error
         assert set(doc["gateways"]) | set(doc["errors"]) == set(before)
@@ -242,7 +242,7 @@ def trainable(tmp_path_factory, fleet):
 
 def test_fleet_train_equals_edgevib_train_alone_and_compare_runs_on_its_sets(trainable, tmp_path):
     # The issue's rule: a fleet run gives what each pump alone gives. The reference is `edgevib
-    # train` on the gateway's healthy/ folder in this process (same board, seed, version, target):
+    # train` on the gateway's healthy/ folder in this process (same board, version, target):
     # the parameter sets must be the same bytes. Then `fleet compare` replays each archive through
     # the set in use and that candidate, and the candidate's events and summary must equal
     # `edgevib replay`'s (host_tools.twin.replay.replay) of the archive with the set trained alone.
@@ -254,14 +254,14 @@ def test_fleet_train_equals_edgevib_train_alone_and_compare_runs_on_its_sets(tra
     version = load_body(gws[0] / layout.PARAMS)[1]["version"] + 1     # fleet train: one above the set in use
     cand, cmp_out = tmp_path / "candidates", tmp_path / "cmp"
     with engine.cluster(workers=2, processes=False) as client:
-        doc, lines = runs.train_fleet(client, root, cand, 1.0, 3, quiet=True)
+        doc, lines = runs.train_fleet(client, root, cand, 1.0, quiet=True)
         assert doc["errors"] == {} and set(doc["gateways"]) == set(before), doc["errors"]
         cdoc, clines = runs.compare_fleet(client, root, cand, cmp_out, None, None, quiet=True)
     board = Path(__file__).resolve().parent.parent / "boards" / f"{profile['name']}.json"
     for g in gws:
         alone = tmp_path / "alone" / f"{g.name}.msgpack"
         alone.parent.mkdir(exist_ok=True)
-        assert main(["--quiet", "train", str(g / layout.HEALTHY), "--board", str(board), "--seed", "3",
+        assert main(["--quiet", "train", str(g / layout.HEALTHY), "--board", str(board),
                      "--version", str(version), "--false-alerts-per-month", "1", "--jobs", "1", "--out", str(alone)]) == 0
         assert (cand / g.name / layout.PARAMS).read_bytes() == alone.read_bytes(), g.name
         assert (cand / g.name / layout.PARAMS_SUMMARY).read_bytes() == alone.with_suffix(".json").read_bytes()
@@ -288,6 +288,6 @@ def test_fleet_train_takes_the_bearing_from_the_manifest(trainable, tmp_path):
     g = layout.gateways(root)[0]
     other = {"n_elements": 12, "ball_diameter_mm": 6.0, "pitch_diameter_mm": 60.0}
     paths = sorted(str(p) for p in (g / layout.HEALTHY).glob("*.wav"))
-    work.train_gateway(g.name, paths, profile, str(tmp_path / "set"), 1.0, 3, 2, other)
+    work.train_gateway(g.name, paths, profile, str(tmp_path / "set"), 1.0, 2, other)
     _, params = load_body(tmp_path / "set" / layout.PARAMS)
     assert params["fc_bear_q12"] == orders_q12(BearingGeometry(12, 6.0, 60.0))

@@ -96,7 +96,7 @@ def test_modes_are_operating_points_told_apart_by_speed():
     rng.shuffle(plan)
     recs = [recording(harmonic_counts(rng, r, 20.0) if r else pump_counts(rng, 0.0, 20.0), 1000.0 + 600 * i, r)
             for i, r in enumerate(plan)]
-    params, summary = train(recs, PROFILE, seed=0)
+    params, summary = train(recs, PROFILE)
     assert params["det_modes"] == 2 and "speed" in summary["modes"]["criterion"]
     op = params["det_op_speed_q8"]
     for m, hz in enumerate((1480 / 60, 2950 / 60)):

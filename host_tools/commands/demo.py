@@ -217,7 +217,7 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
         return read_stream(data / part, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
 
     t = time.monotonic()
-    params, summary = train(stream("training"), profile, 1.0, seed=0)
+    params, summary = train(stream("training"), profile, 1.0)
     train_s = time.monotonic() - t
     field = stream("field")
     faults = pump_faults(truth, pump)

@@ -54,7 +54,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--reports", action="store_true", help="replay: also write each gateway's replay report")
     p.add_argument("--false-alerts-per-month", type=float, default=1.0, metavar="X",
                    help="train: target expected false alerts per 30 days of running (default 1)")
-    p.add_argument("--seed", type=int, default=0, help="train: k-means seed (default 0)")
     p.add_argument("--json", action="store_true", help="print the JSON written instead of the summary lines")
     g = p.add_argument_group("init: add a gateway")
     g.add_argument("--name", help="init: the fleet's name (default: the folder's name)")
@@ -95,7 +94,7 @@ def run(args: argparse.Namespace) -> int:
             if args.action == "compare":
                 doc, lines = runs.compare_fleet(client, Path(args.fleet), Path(args.candidates), tmp, since, until)
             elif args.action == "train":
-                doc, lines = runs.train_fleet(client, Path(args.fleet), tmp, args.false_alerts_per_month, args.seed)
+                doc, lines = runs.train_fleet(client, Path(args.fleet), tmp, args.false_alerts_per_month)
             else:
                 doc, lines = runs.replay_fleet(client, Path(args.fleet), tmp, since, until, args.action == "review",
                                           args.reports or args.action == "review")

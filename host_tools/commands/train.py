@@ -33,7 +33,6 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--false-alerts-per-month", type=float, default=1.0, metavar="X",
                    help="target expected false alerts per 30 days of running (default 1)")
     p.add_argument("--version", type=int, default=1, metavar="V", help="parameter set version (default 1)")
-    p.add_argument("--seed", type=int, default=0, help="k-means seed (default 0)")
     p.add_argument("--jobs", type=int, default=default_jobs(), metavar="J",
                    help="processes for the operating-mode fits (default: the cores available)")
 
@@ -64,7 +63,7 @@ def run(args: argparse.Namespace) -> int:
     streams = [read_stream(g, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale) for g in groups]
     note(f"train: {sum(len(s) for s in streams)} recordings, {profile['sample_rate_hz']} Hz, windows of "
          f"{profile['window_n']} samples, {profile['axes']} axes (board {profile['name']})")
-    params, summary = train(streams, profile, args.false_alerts_per_month, seed=args.seed, version=args.version,
+    params, summary = train(streams, profile, args.false_alerts_per_month, version=args.version,
                             jobs=max(1, args.jobs), progress=True)
     body = encode_set(params, profile)
     text = report_text(summary)

@@ -1,7 +1,6 @@
-"""Operating modes on the host: k-means (k-means++ seeding, several starts) and the choice of k
-by the silhouette, turned into the detector's parameter keys. k-means and the silhouette are
-scikit-learn's (sklearn.cluster.KMeans, sklearn.metrics.silhouette_score); our own code is only
-what mirrors the device's integer arithmetic.
+"""Operating modes on the host, turned into the detector's parameter keys: modes by the device's
+speed estimate (speed_modes, never by the health features), each mode's centre and spread in the
+detector's standardised features, and the ranges the device chooses a mode by.
 
 The baseline and the standardisation run through the device's own code (firmware_py.detect.modes), so
 the model the host fits is exactly in the space the device scores in.
@@ -9,14 +8,9 @@ the model the host fits is exactly in the space the device scores in.
 from __future__ import annotations
 
 import math
-import warnings
 from array import array
 
 import numpy as np
-from sklearn.cluster import KMeans
-from sklearn.exceptions import ConvergenceWarning
-from sklearn.metrics import silhouette_score
-from threadpoolctl import threadpool_limits
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.dsp import feature_index as fi
@@ -26,51 +20,7 @@ from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
 from firmware_py.dsp.tables import log2_table
 
-# Kaufman and Rousseeuw's reading of the average silhouette ("Finding Groups in Data", 1990;
-# from memory): 0.25 or less means no substantial structure, so one mode is kept.
-SILHOUETTE_MIN = 0.25
 MIN_MODE_N = 30         # a speed group with fewer windows joins its neighbour
-_SIL_SAMPLE = 2000      # the silhouette is O(n**2): score it on at most this many rows
-
-
-def kmeans(x: np.ndarray, k: int, n_init: int = 10, max_iter: int = 300, tol: float = 1e-4,
-           seed: int = 0) -> tuple[np.ndarray, np.ndarray, float]:
-    """k-means: scikit-learn's KMeans (Lloyd, k-means++ seeding, n_init starts, the start with
-    the least inertia kept). Returns (centers, labels, inertia = sum of squared distances to the
-    assigned centre). Fewer distinct points than k is allowed (some centres then coincide)."""
-    x = np.asarray(x, dtype=float)
-    # one thread: the fits here are small, and OpenMP threads that spin-wait on a busy machine
-    # cost far more than they give (measured 35x slower under load on 2 cores)
-    with warnings.catch_warnings(), threadpool_limits(1):
-        warnings.simplefilter("ignore", ConvergenceWarning)
-        km = KMeans(n_clusters=k, init="k-means++", n_init=n_init, max_iter=max_iter, tol=tol,
-                    random_state=seed).fit(x)
-    return km.cluster_centers_, km.labels_.astype(int), float(km.inertia_)
-
-
-def silhouette(x: np.ndarray, labels: np.ndarray) -> float:
-    """Mean silhouette (Rousseeuw 1987), Euclidean: scikit-learn's silhouette_score."""
-    if len(np.unique(labels)) < 2:
-        raise ValueError("the silhouette needs at least two clusters")
-    with threadpool_limits(1):
-        return float(silhouette_score(np.asarray(x, dtype=float), labels))
-
-
-def choose_k(x: np.ndarray, k_max: int = dm.KMAX, seed: int = 0) -> tuple[int, dict]:
-    """k in 1..k_max with the greatest mean silhouette, or 1 if none beats SILHOUETTE_MIN.
-    Returns (k, {k: silhouette})."""
-    x = np.asarray(x, dtype=float)
-    rng = np.random.default_rng(seed)
-    sample = rng.choice(len(x), size=min(len(x), _SIL_SAMPLE), replace=False)
-    scores = {}
-    for k in range(2, min(k_max, len(x) - 1) + 1):
-        _, lab, _ = kmeans(x, k, seed=seed)
-        if len(np.unique(lab[sample])) < 2:
-            continue
-        scores[k] = silhouette(x[sample], lab[sample])
-    if not scores or max(scores.values()) <= SILHOUETTE_MIN:
-        return 1, scores
-    return max(scores, key=lambda k: scores[k]), scores
 
 
 def transformed(feats: np.ndarray, params: dict) -> np.ndarray:
@@ -170,7 +120,7 @@ def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarr
 
 
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
-        k_max: int = dm.KMAX, margin_q8: int | None = None, seed: int = 0) -> dict:
+        k_max: int = dm.KMAX, margin_q8: int | None = None) -> dict:
     """Baseline, operating modes and conservative thresholds from healthy running windows (rows
     of raw feature vectors). Returns the detector keys to merge into the parameter set.
 

@@ -18,7 +18,7 @@ What is learned, and how (every step that the device also does runs the device's
 4. Which windows the device would score (running, past the start-up hold-off, sensor healthy,
    ISO zone A or B): found by stepping the device Detector over each stream in time order.
 5. Baseline and operating modes: host_tools.fit.modes_fit.fit (device Welford baseline and
-   standardisation, k-means with k-means++ seeding, k by the average silhouette).
+   standardisation; modes by the device's speed estimate, never by the health features).
 6. Thresholds: scores of healthy windows come from the device Detector itself (exact device
    scoring). Because scores of a model's own training windows are optimistic, and neighbouring
    windows are correlated, the scores used are held out by recording: the streams' recordings in
@@ -439,8 +439,7 @@ def _steadiness(feats: list[StreamFeatures], streams: list[list[Recording]], p: 
     return keys, why, warns
 
 
-def _hold_off(feats: list[StreamFeatures], p: dict, every: int, window_s: float, seed: int
-              ) -> tuple[int, str, list[str]]:
+def _hold_off(feats: list[StreamFeatures], p: dict, every: int, window_s: float) -> tuple[int, str, list[str]]:
     """det_hold_ms from the starts seen in the data. A mute detector with no hold-off scores
     every window once the speed is steady; a provisional model (from windows at least 2 minutes
     after any start) scores them; for each start the settling time is from its first steady
@@ -476,7 +475,7 @@ def _hold_off(feats: list[StreamFeatures], p: dict, every: int, window_s: float,
     allrows = np.concatenate(rows)
     if len(allrows) < MIN_WINDOWS:
         return int(HOLD_DEFAULT_S * 1000), f"{HOLD_DEFAULT_S:g} s (too few settled windows)", []
-    keys = modes_fit.fit(allrows, q, np.concatenate(ops), q["det_speed_tol_q12"] / 4096.0, seed=seed)
+    keys = modes_fit.fit(allrows, q, np.concatenate(ops), q["det_speed_tol_q12"] / 4096.0)
     keys.pop("det_idle_vel_q16")
     scored = _run(_mute(_with(q, **keys)), feats, every)
     span = min(al.windows_for(p["det_steady_ms"], p["n"], p["fs_hz"], every), _STEADY_MAX)
@@ -541,19 +540,19 @@ def zlam_q8(d: int) -> int:
     return int(round(256 * math.sqrt(chi2.isf(p, d)) / zmax))
 
 
-def _model(rows: np.ndarray, speeds: np.ndarray, params: dict, seed: int) -> dict:
+def _model(rows: np.ndarray, speeds: np.ndarray, params: dict) -> dict:
     """modes_fit.fit's baseline, modes by operating point; the idle floor stays the one set here."""
-    keys = modes_fit.fit(rows, params, speeds, params["det_speed_tol_q12"] / 4096.0, seed=seed)
+    keys = modes_fit.fit(rows, params, speeds, params["det_speed_tol_q12"] / 4096.0)
     keys.pop("det_idle_vel_q16")
     return keys
 
 
-def _fit_all(rows: list[np.ndarray], speeds: list[np.ndarray], params: dict, seed: int, jobs: int) -> list[dict]:
+def _fit_all(rows: list[np.ndarray], speeds: list[np.ndarray], params: dict, jobs: int) -> list[dict]:
     """_model over each row set, in up to `jobs` processes (the same result for any jobs)."""
     if jobs <= 1 or len(rows) == 1:
-        return [_model(r, s, params, seed) for r, s in zip(rows, speeds)]
+        return [_model(r, s, params) for r, s in zip(rows, speeds)]
     with ProcessPoolExecutor(max_workers=min(jobs, len(rows))) as pool:
-        return list(pool.map(_model, rows, speeds, [params] * len(rows), [seed] * len(rows)))
+        return list(pool.map(_model, rows, speeds, [params] * len(rows)))
 
 
 def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, target: float,
@@ -630,7 +629,7 @@ def _promise_fields(pr: raise_rate.Promise, pa: raise_rate.Promise) -> dict:
             "expected_false_alarms_per_30_days": pa.per_30_days, "beyond_training_max": bool(pr.beyond_data)}
 
 
-def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: float = 1.0, seed: int = 0,
+def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: float = 1.0,
           version: int = 1, folds: int = FOLDS, jobs: int = 1, bearing: BearingGeometry | None = None,
           progress: bool = False) -> tuple[dict, dict]:
     """A parameter set trained on healthy recordings of one gateway, and a JSON-able summary.
@@ -638,7 +637,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     recordings: Recording objects (one stream) or lists of them (one per stream), read at the
     board's counts scale (m/s^2 per count = g / counts_per_g). profile: board profile dict (its
     analyse_every decides which windows the device sees). false_alerts_per_month: target expected
-    false alerts per 30 days of running. seed: k-means. version: the set's version. folds:
+    false alerts per 30 days of running. version: the set's version. folds:
     held-out blocks. jobs: processes for the fits. bearing: the monitored bearing's geometry (or
     a sidecar "bearing"), for the envelope lines. progress: show the stages done (host_tools.progress).
     """
@@ -708,7 +707,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     p = _with(p, **keys)
     learned.update(why)
     warnings += w
-    hold_ms, learned["hold_off"], w = _hold_off(feats, p, every, window_s, seed)
+    hold_ms, learned["hold_off"], w = _hold_off(feats, p, every, window_s)
     p["det_hold_ms"] = hold_ms
     warnings += w
 
@@ -754,7 +753,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     sps = [np.concatenate([sp[u & (wf != f)] for sp, u, wf in zip(speeds, use, win_fold)]) for f in fold_ids]
     rows.append(np.concatenate([sf.feats[u] for sf, u in zip(feats, use)]))
     sps.append(np.concatenate([sp[u] for sp, u in zip(speeds, use)]))
-    fits = _fit_all(rows, sps, p, seed, jobs)
+    fits = _fit_all(rows, sps, p, jobs)
     bar.update(1)
     # held-out sequences: each feature's slow weight from its own held-out EWMA spread, then the
     # slow channel is weighted against the per-feature one, then the thresholds are fitted on the

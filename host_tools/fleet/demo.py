@@ -35,7 +35,7 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
         engine.watch(futs, "demo fleet: recordings")
         client.gather(futs)
         (work / "trained").mkdir()
-        tdoc, tlines = runs.train_fleet(client, fleet, work / "trained", 1.0, 0)
+        tdoc, tlines = runs.train_fleet(client, fleet, work / "trained", 1.0)
         for g in tdoc["gateways"]:
             d = work / "trained" / g
             layout.install_set(fleet / g, (d / layout.PARAMS).read_bytes(),

@@ -2,7 +2,7 @@
 
 Entry points: replay_fleet(client, fleet, out, since, until, review, reports, quiet),
 compare_fleet(client, fleet, candidates, out, since, until, quiet) and train_fleet(client, fleet,
-out, target, seed, quiet); each writes into folder `out` and returns
+out, target, quiet); each writes into folder `out` and returns
 (the JSON document written, summary lines). What they write is described with the `edgevib fleet`
 command (host_tools.commands.fleet), which, like `edgevib demo --fleet`, calls them.
 """
@@ -143,7 +143,7 @@ def compare_fleet(client, fleet: Path, candidates: Path, out: Path, since: float
     return doc, lines
 
 
-def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet: bool = False) -> tuple[dict, list[str]]:
+def train_fleet(client, fleet: Path, out: Path, target: float, quiet: bool = False) -> tuple[dict, list[str]]:
     """Train a set per gateway from its healthy/ recordings into out/<gateway>/; (JSON document, lines)."""
     from host_tools.fleet import engine, layout, work
     from host_tools.data.recording import atomic_write
@@ -156,7 +156,7 @@ def train_fleet(client, fleet: Path, out: Path, target: float, seed: int, quiet:
             paths = w.healthy_paths
             version = (w.params["version"] + 1) if w.params else 1
             futs[w.gateway] = client.submit(work.train_gateway, w.gateway, paths, w.profile, str(out / _safe(w.gateway)),
-                                            target, seed, version, w.manifest.bearing, key=f"train-{w.gateway}")
+                                            target, version, w.manifest.bearing, key=f"train-{w.gateway}")
     engine.watch(list(futs.values()), "fleet train", quiet)
     done, errors = _settle(plans, futs)
     doc = {"fleet": layout.read_fleet(fleet).get("name"), "target_false_alerts_per_30_days": target,

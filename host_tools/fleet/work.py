@@ -207,7 +207,7 @@ def compare_gateway(out_dir: str, results: Sequence[ReplayResult], sets: Sequenc
 # --- training and reports -------------------------------------------------------------------------
 
 def train_gateway(gateway: str, paths: Sequence[str], profile: dict, out_dir: str, false_alerts_per_month: float,
-                  seed: int, version: int, bearing: dict | None = None) -> dict[str, Any]:
+                  version: int, bearing: dict | None = None) -> dict[str, Any]:
     """Train a set on one gateway's healthy recordings (one stream) and write out_dir/params.msgpack,
     params.json and params.report.txt, each whole (task). Returns what the fleet summary shows.
     bearing: the manifest's bearing (layout.Manifest.bearing); it is the gateway's own record, so
@@ -218,7 +218,7 @@ def train_gateway(gateway: str, paths: Sequence[str], profile: dict, out_dir: st
     if not paths:
         raise EdgevibError(f"{gateway}: no healthy recordings in {layout.HEALTHY}/ to train on")
     recs = read_stream(list(paths), expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale_of(profile))
-    params, summary = train([recs], profile, false_alerts_per_month, seed=seed, version=version,
+    params, summary = train([recs], profile, false_alerts_per_month, version=version,
                             bearing=geometry_from_record(bearing) if bearing else None)
     body = encode_set(params, profile)
     out = Path(out_dir)

@@ -62,7 +62,7 @@ def continuous_check(train_s: float = 3600.0, test_s: float = 86400.0, seed_trai
                               sample_rate_hz=spec.fs_hz, axes=("x",),
                               t0_s=_T0 + i * part, rpm=spec.shaft_hz * 60.0, machine="RW-3",
                               vane_count=spec.vane_count))
-    params, summary = train(recs, profile, 1.0, seed=0)
+    params, summary = train(recs, profile, 1.0)
     twin = twin_for(params, profile)
     det = Detector(params, profile["analyse_every"])
     n = params["n"]

@@ -32,7 +32,7 @@ def _train_machine(folder: Path, profile: dict) -> tuple[dict, dict]:
     from firmware_py.run import params as pm
     scale = m_s2_per_count(pm.factory(profile))
     recs = read_stream(folder, expected_rate_hz=profile["sample_rate_hz"], m_s2_per_count=scale)
-    return train(recs, profile, 1.0, seed=0)
+    return train(recs, profile, 1.0)
 
 
 def evaluate_suite(suite_json: str | os.PathLike, profile: dict, jobs: int = 1, progress: bool = False,
