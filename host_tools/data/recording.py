@@ -53,6 +53,7 @@ import os
 import re
 import struct
 import tempfile
+import threading
 import warnings
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -452,6 +453,9 @@ def _to_counts(p: Path, data: np.ndarray, is_float: bool, unit: float, scale: fl
 
 # --- WAV ---------------------------------------------------------------------------------------
 
+_WAV_FILTER_LOCK = threading.Lock()
+
+
 def _read_wav(p: Path) -> tuple[np.ndarray, float, bool]:
     """Samples (frames x channels, memory-mapped), rate and whether they are floats."""
     with open(p, "rb") as f:
@@ -459,8 +463,10 @@ def _read_wav(p: Path) -> tuple[np.ndarray, float, bool]:
     if len(head) < 12 or head[:4] != b"RIFF" or head[8:12] != b"WAVE":
         raise EdgevibError(f"{p}: not a RIFF/WAVE file (little-endian RIFF expected)")
     try:
-        with warnings.catch_warnings():
-            warnings.simplefilter("error", wavfile.WavFileWarning)   # a damaged file is refused, not guessed at
+        # a damaged file is refused, not guessed at. Warning filters are process-wide: the lock
+        # keeps two reads in threads (a Dask worker) from restoring each other's filters midway
+        with _WAV_FILTER_LOCK, warnings.catch_warnings():
+            warnings.simplefilter("error", wavfile.WavFileWarning)
             rate, data = wavfile.read(p, mmap=True)
     except (ValueError, OSError, EOFError, struct.error, wavfile.WavFileWarning) as e:   # struct: a cut header
         raise EdgevibError(f"{p}: truncated or unreadable WAV ({_one_line(e)})") from None
