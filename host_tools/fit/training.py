@@ -59,7 +59,7 @@ from host_tools.progress import start
 from host_tools.data.recording import Recording
 from host_tools.twin.replay import (
     StreamFeatures, check_recordings, evidence_sequences, m_s2_per_count, physical_columns, promise_check,
-    promise_text, stated_rate,
+    is_raise, promise_text, stated_rate,
     step_detector, stream_features,
     twin_for)
 
@@ -792,8 +792,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         pf = _with(pf, det_thr_alert_q8=alert, det_thr_alarm_q8=alarm)
         for st, wf in zip(_run(pf, feats, every), win_fold):
             held_h += float((st.pushed.astype(bool) & (wf == f)).sum()) * window_s / 3600
-            held_raises += sum(1 for e in st.events if e[2] in (al.ALERT, al.ALARM)
-                               and e[1] not in (al.ALERT, al.ALARM) and wf[e[0]] == f)
+            held_raises += sum(1 for e in st.events if is_raise(e[1], e[2]) and wf[e[0]] == f)
     own = _run(p, feats, every)
     own_alerts = sum(1 for st in own for e in st.events if e[2] in (al.ALERT, al.ALARM))
     if own_alerts:

@@ -38,7 +38,7 @@ from host_tools.data.recording import Recording
 from host_tools.data.scenarios import AXES, History, StationarySpec, evaluation_suite, gapless_counts, stationary_chunks
 from host_tools.data.units import feature_name
 from host_tools.fit.training import train
-from host_tools.twin.replay import CHUNK_WINDOWS, promise_check, step_detector, twin_for
+from host_tools.twin.replay import CHUNK_WINDOWS, is_raise, promise_check, step_detector, twin_for
 
 _BOARD = Path(__file__).resolve().parents[2] / "boards" / "desk.json"
 _T0 = 1_800_000_000.0
@@ -76,7 +76,7 @@ def continuous_check(train_s: float = 3600.0, test_s: float = 86400.0, seed_trai
         carry = x[w * n:]
         st = step_detector(det, twin.features(x[:w * n]), w0)
         w0 += w
-        raises += sum(1 for e in st.events if e[2] in (al.ALERT, al.ALARM) and e[1] not in (al.ALERT, al.ALARM))
+        raises += sum(1 for e in st.events if is_raise(e[1], e[2]))
         pushed += int(st.pushed.sum())
         states += np.bincount(st.state.astype(np.int64), minlength=len(al.STATE_NAMES))
         if progress is not None:
@@ -114,7 +114,7 @@ def _gapless_raises(h: History, t0: float, end: float, params: dict, profile: di
         st = step_detector(det, twin.features(x.reshape(-1, x.shape[2])), w0)
         for w, old, new, reason, _mode, feat, _score in st.events:
             t_s = t + ((w - w0) * every + 1) * n / fs
-            if new in (al.ALERT, al.ALARM) and old not in (al.ALERT, al.ALARM) and t_s <= end:
+            if is_raise(old, new) and t_s <= end:
                 raises.append({"t_s": t_s, "from": al.STATE_NAMES[old], "to": al.STATE_NAMES[new],
                                "reason": al.REASON_NAMES[reason],
                                "feature": feature_name(feat, params, axes) if feat >= 0 else None})

@@ -228,6 +228,12 @@ class Steps:
     speed_q8: np.ndarray
 
 
+def is_raise(old: int, new: int) -> bool:
+    """Whether a detector event (old and new state) raises: an entry into alert or alarm from any
+    other state (an alert escalating to alarm is the same raise)."""
+    return new in (al.ALERT, al.ALARM) and old not in (al.ALERT, al.ALARM)
+
+
 def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     """Step `det` over the rows of feats (windows, features), window w given the clock first_w + w.
 
