@@ -166,17 +166,20 @@ class _Held:
     ew_n: int
 
 
-def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: list[np.ndarray] | None) -> _Held:
-    """Evidence of the muted set over the streams (windows in `select` only): see _Held."""
+def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: list[np.ndarray] | None,
+              sequences: bool = True) -> _Held:
+    """Evidence of the muted set over the streams (windows in `select` only): see _Held.
+    sequences=False: only the EWMA sums (the evidence sequences stay empty)."""
     out = _Held([], [], [], np.zeros(len(params["det_feat"])), 0)
     zlam = params["det_zlam_q8"] / 256.0
     for i, sf in enumerate(feats):
         sel = None if select is None else select[i]
         ch = _Channels(Detector(_mute(params), every), sel)
         st = step_detector(ch, sf.feats)
-        out.combined.extend(evidence_sequences(st, sel))
-        out.per_feature.extend(c * zlam for c in evidence_sequences(replace(st, score_q8=np.array(ch.zmax)), sel))
-        out.slow.extend(evidence_sequences(replace(st, score_q8=np.array(ch.smax)), sel))
+        if sequences:
+            out.combined.extend(evidence_sequences(st, sel))
+            out.per_feature.extend(c * zlam for c in evidence_sequences(replace(st, score_q8=np.array(ch.zmax)), sel))
+            out.slow.extend(evidence_sequences(replace(st, score_q8=np.array(ch.smax)), sel))
         out.ew_ss += ch.ew_ss
         out.ew_n += ch.ew_n
     return out
@@ -763,7 +766,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         warnings.append("a single recording: thresholds come from the model's own training windows (optimistic)")
     p = _with(p, **fits[-1])
     held = [(pf, [wf == f for wf in win_fold]) for f, pf in fold_sets] or [(p, None)]
-    parts = [_held_out(pf, feats, every, sel) for pf, sel in held]
+    parts = [_held_out(pf, feats, every, sel, sequences=False) for pf, sel in held]
     gains, learned["slow_gains"] = sgain_q8(sum(h.ew_ss for h in parts), sum(h.ew_n for h in parts),
                                             Detector(p, every).ew_shift)
     p["det_sgain_q8"] = gains
