@@ -21,7 +21,7 @@ from host_tools.fit import modes_fit
 from host_tools.cli import main
 from host_tools.data.recording import Recording, write_wav
 from host_tools.twin.replay import replay
-from host_tools.fit.training import train
+from host_tools.fit.training import report_text, train
 
 ROOT = Path(__file__).resolve().parent.parent
 BOARD = ROOT / "boards" / "desk.json"
@@ -101,6 +101,15 @@ def test_modes_are_operating_points_told_apart_by_speed():
     op = params["det_op_speed_q8"]
     for m, hz in enumerate((1480 / 60, 2950 / 60)):
         assert op[2 * m] / 256 < hz < op[2 * m + 1] / 256
+    # the 0.5x line: a 49 Hz shaft reads it clear of the 1x (7.9 bins of 6.25 Hz), a 25 Hz one
+    # (3.9 bins) does not, so the slow mode sets it aside (test_half_order_is_scored_only_clear_of_the_1x_lobe)
+    from firmware_py.detect.modes import Z_LIM
+    d, pa = len(params["det_feat"]), fi.per_axis(len(params["fc_bands"]))
+    half = [j for j, i in enumerate(params["det_feat"]) if i % pa == fi.F_ORD_HALF]
+    assert half and all(params["det_mode_s_q8"][j] == Z_LIM for j in half)
+    assert all(params["det_mode_s_q8"][d + j] < Z_LIM for j in half)
+    assert [m["half_aside"] for m in summary["modes"]["table"]] == [True, False]
+    assert "the 0.5x line is not judged here" in report_text(summary).split("mode 0:")[1].split("\n")[0]
     res = replay([recs], params, PROFILE)
     w = res.windows
     rpm = np.array([{str(r.path): r.rpm for r in recs}[p] for p in w["recording"]])
@@ -245,9 +254,22 @@ def test_half_order_is_scored_only_clear_of_the_1x_lobe():
         return 10 * np.log10(p[k - 1:k + 3].sum() / p[j - 1:j + 3].sum())
     assert max(leak_db(f) for f in np.arange(7.0, 9.0, 0.1)) < -31.5
     assert min(leak_db(f) for f in (3.9, 4.5, 5.5, 6.5)) > -31.5
+    hz = FS / PROFILE["window_n"]           # one bin in Hz
     for f_bins, clear in ((3.9, False), (5.5, False), (6.5, False), (7.2, True), (7.8, True)):
+        # the set scores 0.5x when its fastest shaft reads it clear...
         prm = pm.factory(PROFILE)
-        prm.update(fc_speed_lo_q8=int(f_bins * FS / PROFILE["window_n"] * 256), fc_speed_hi_q8=60 * 256, fc_vane=6)
+        prm.update(fc_speed_lo_q8=int(3.0 * hz * 256), fc_speed_hi_q8=int(f_bins * hz * 256), fc_vane=6)
         pa = fi.per_axis(len(prm["fc_bands"]))
         halves = [j for j in _feature_list(prm) if j % pa == fi.F_ORD_HALF]
         assert bool(halves) == clear
+        # ...and a mode whose slowest shaft does not read it clear sets it aside
+        prm.update(fc_speed_hi_q8=60 * 256, det_bands=len(prm["fc_bands"]))
+        prm["det_feat"] = _feature_list(prm)
+        aside = modes_fit.set_aside(prm, f_bins * hz)
+        assert [prm["det_feat"][j] for j in aside] == ([] if clear else [a * pa + fi.F_ORD_HALF for a in range(3)])
+    # more than the detector holds: the peaks go first (log peak = log crest + log r.m.s.)
+    prm = pm.factory(PROFILE)
+    prm.update(fc_speed_lo_q8=int(8 * hz * 256), fc_speed_hi_q8=60 * 256, fc_vane=6, fc_env_band=[1, 2], fc_bear_q12=[1, 2, 3, 4])
+    feats = _feature_list(prm)
+    assert len(feats) <= 64 and {fi.F_ORD_HALF, fi.F_BAND0 + len(prm["fc_bands"]) - 1} <= {j % pa for j in feats[-20:]}
+    assert 2 * pa + fi.F_PEAK not in feats

@@ -13,7 +13,7 @@ from array import array
 import numpy as np
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
-from firmware_py.dsp import feature_index as fi
+from firmware_py.dsp import feature_index as fi, orders
 from firmware_py.detect import modes as dm
 from firmware_py.detect.detector import CHI_Q8
 from firmware_py.detect.welford import Welford
@@ -119,6 +119,17 @@ def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarr
     return out
 
 
+def set_aside(params: dict, lo_hz: float) -> list[int]:
+    """Positions j in det_feat that a mode whose slowest speed is lo_hz cannot read: the 0.5x
+    lines when 1x lies under orders.HALF_CLEAR_BINS there (their 4-bin read takes in the 1x's main
+    lobe, training._feature_list). fit() gives them the largest spread in that mode, so their
+    departures count for next to nothing there (at most Z_LIM / Z_LIM spreads)."""
+    if lo_hz * params["n"] / params["fs_hz"] >= orders.HALF_CLEAR_BINS:
+        return []
+    pa = fi.per_axis(params["det_bands"])
+    return [j for j, i in enumerate(params["det_feat"]) if i % pa == fi.F_ORD_HALF]
+
+
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
         k_max: int = dm.KMAX, margin_q8: int | None = None) -> dict:
     """Baseline, operating modes and conservative thresholds from healthy running windows (rows
@@ -186,6 +197,8 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
         centers[m, has] = np.where(ok, zk, 0.0).sum(0)[has] / cnt[has]
         dev = np.where(ok, zk - centers[m], 0.0)
         spread[m, has] = np.sqrt((dev * dev).sum(0)[has] / cnt[has])
+    for m in range(k if op else 0):
+        spread[m, set_aside(params, op[2 * m] / 256.0)] = dm.Z_LIM
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
     alert = (CHI_Q8[d - 1] * margin) >> 8
     return {

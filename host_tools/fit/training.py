@@ -46,7 +46,7 @@ from typing import Any, Sequence
 import numpy as np
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
-from firmware_py.detect import alarm as al
+from firmware_py.detect import alarm as al, modes as dm
 from firmware_py.dsp import feature_index as fi, orders
 from firmware_py.run import params as pm
 from firmware_py.detect.detector import W_IDLE, W_SCORED, Detector, default_feature_list
@@ -514,22 +514,31 @@ def _running_median(x: np.ndarray, span: int) -> np.ndarray:
 
 def _feature_list(p: dict) -> list[int]:
     """Scored features: the default list, plus the order lines (and vane pass) when the speed is
-    estimated, and the envelope lines when the envelope is on. The 0.5x line only when the
-    slowest shaft of the range reads it clear of the 1x's main lobe (orders.HALF_CLEAR_BINS;
-    Harris, "On the use of windows for harmonic analysis with the discrete Fourier transform",
-    Proc. IEEE 66, 1978: Hann main lobe +-2 bins). Closer, the 0.5x feature is the 1x's leakage,
-    which swings with the fraction of a bin the speed sits at."""
+    estimated, and the envelope lines when the envelope is on. The 0.5x line when the fastest
+    shaft of the range reads it clear of the 1x's main lobe (orders.HALF_CLEAR_BINS; Harris, "On
+    the use of windows for harmonic analysis with the discrete Fourier transform", Proc. IEEE 66,
+    1978: Hann main lobe +-2 bins); a mode slower than that sets it aside
+    (modes_fit.set_aside). Closer, the 0.5x feature is the 1x's leakage, which swings with the
+    fraction of a bin the speed sits at.
+
+    At most dm.DMAX: over that, the peaks go first, the last axis's first. Compared on a log
+    scale, log peak = log crest + log r.m.s. (crest = peak / r.m.s.), so a peak adds nothing that
+    its axis's crest and r.m.s. do not hold."""
     pa = fi.per_axis(len(p["fc_bands"]))
     extra = []
     if p.get("fc_speed_hi_q8"):
-        lo_bins = p["fc_speed_lo_q8"] / 256 * p["n"] / p["fs_hz"]
-        half = [fi.F_ORD_HALF] if lo_bins >= orders.HALF_CLEAR_BINS else []
+        hi_bins = p["fc_speed_hi_q8"] / 256 * p["n"] / p["fs_hz"]
+        half = [fi.F_ORD_HALF] if hi_bins >= orders.HALF_CLEAR_BINS else []
         extra += half + [fi.F_ORD_1X, fi.F_ORD_2X, fi.F_ORD_3X] + ([fi.F_ORD_VANE] if p.get("fc_vane") else [])
     if p.get("fc_env_band") and p.get("fc_bear_q12"):
         extra += [fi.F_ENV_BPFO, fi.F_ENV_BPFI, fi.F_ENV_BSF, fi.F_ENV_FTF]
     out = list(default_feature_list(p["axes"], len(p["fc_bands"])))
     out += [a * pa + f for a in range(p["axes"]) for f in extra]
-    return sorted(out)[:64]
+    for a in reversed(range(p["axes"])):
+        if len(out) <= dm.DMAX:
+            break
+        out.remove(a * pa + fi.F_PEAK)
+    return sorted(out)[:dm.DMAX]
 
 
 def zlam_q8(d: int) -> int:
@@ -818,6 +827,9 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     for m in table:
         i = m["mode"]
         m["speed_hz"] = [op[2 * i] / 256, op[2 * i + 1] / 256] if op else None
+        m["half_aside"] = bool(op) and bool(modes_fit.set_aside(p, op[2 * i] / 256))
+    pa = fi.per_axis(len(p["fc_bands"]))
+    half_judged = any(i % pa == fi.F_ORD_HALF for i in p["det_feat"])
     summary = {
         "board": p["board"], "version": p["version"], "fs_hz": p["fs_hz"], "n": p["n"], "window_s": window_s,
         "analyse_every": every,
@@ -834,7 +846,9 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         "learned": {**learned, "speed_range_hz": [p["fc_speed_lo_q8"] / 256, p["fc_speed_hi_q8"] / 256],
                     "hold_off_s": p["det_hold_ms"] / 1000, "envelope_band": p["fc_env_band"],
                     "bearing_orders": [v / 4096 for v in p["fc_bear_q12"]]},
-        "modes": {"k": p["det_modes"], "criterion": MODE_CRITERION, "features": len(p["det_feat"]), "table": table},
+        "modes": {"k": p["det_modes"], "criterion": MODE_CRITERION, "features": len(p["det_feat"]), "table": table,
+                  "half_order": half_judged,
+                  "half_clear_hz": orders.HALF_CLEAR_BINS * p["fs_hz"] / p["n"] if p["fc_speed_hi_q8"] else None},
         "thresholds": {
             "alert_q8": alert, "alarm_q8": alarm, "alert": alert / 256, "alarm": alarm / 256,
             "clear": (alert * p["det_hyst_q8"] >> 8) / 256, "units": "spreads of the mode (combined score)",
@@ -877,8 +891,13 @@ def report_text(summary: dict) -> str:
         med = m["median"]
         sp = m.get("speed_hz")
         where = f"shaft {sp[0]:.1f}-{sp[1]:.1f} Hz, " if sp else ""
+        aside = "; the 0.5x line is not judged here" if m.get("half_aside") else ""
         lines.append(f"    mode {m['mode']}: {where}{m['windows']} windows ({100 * m['share']:.0f} %), median accel "
-                     f"{med['accel_rms_m_s2']} m/s^2 r.m.s., velocity {med['velocity_rms_mm_s']} mm/s r.m.s.")
+                     f"{med['accel_rms_m_s2']} m/s^2 r.m.s., velocity {med['velocity_rms_mm_s']} mm/s r.m.s.{aside}")
+    if s["modes"].get("half_clear_hz"):
+        lines.append(f"    0.5x line (looseness): judged only where the shaft turns at {s['modes']['half_clear_hz']:.1f} Hz "
+                     f"or faster; slower, this window cannot tell it from the 1x line"
+                     + ("" if s["modes"]["half_order"] else " (no mode here is that fast)"))
     lines.append(f"  thresholds (spreads of the mode): alert {t['alert']:.2f}, alarm {t['alarm']:.2f}, clear {t['clear']:.2f}; "
                  f"one feature alone counts {t['per_feature_weight']:.2f} times; raise on {t['persistence']}; "
                  f"alarm only after {t['escalation_s']:g} s in alert")
