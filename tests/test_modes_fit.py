@@ -41,3 +41,39 @@ def test_mode_ranges_stop_short_of_the_search_range_ends():
     lo, hi = mf.pinned_limits_q8(p)
     assert lo > p["fc_speed_lo_q8"] and hi < p["fc_speed_hi_q8"]
     assert op.min() >= lo and op.max() <= hi and len(op) == 2
+
+
+def test_band_edges_move_off_the_shaft_lines():
+    # A tone whose Hann main lobe (the bins within 2 of it; Harris, Proc. IEEE 66, 1978) reaches
+    # both sides of a band edge puts a share of its power on each side; further away only the
+    # sidelobes cross, under -30 dB (Hann's highest sidelobe is -31.5 dB, Harris): numpy.fft.rfft
+    # of the periodic Hann window. line_spans must hold every place where that happens.
+    from firmware_py.detect.detector import default_params
+    n, fs = 512, 3200
+    p = default_params(1, 2, 3200)
+    p.update(n=n, fs_hz=fs, fc_bands=[[4, 8], [8, 16], [16, 32]], fc_vane=6)
+    w = 0.5 - 0.5 * np.cos(2 * np.pi * np.arange(n) / n)
+    t = np.arange(n) / fs
+    hz = fs / n                                 # one bin in Hz
+
+    def across(x_bins, edge):
+        # share of a tone at x_bins (Hann-windowed, rfft) in the bins at and above `edge`
+        pw = np.abs(np.fft.rfft(w * np.cos(2 * np.pi * x_bins * hz * t))) ** 2
+        return pw[edge:].sum() / pw.sum()
+
+    for x in np.arange(10.0, 22.0, 0.25):       # a tone's place in bins; the edge between 15 and 16
+        share = across(x, 16)
+        lobe = 1e-3 < share < 1 - 1e-3
+        assert lobe == (14.0 < x < 17.0), (x, share)
+        (a, z), = mf.line_spans(dict(p, fc_vane=0), [(x * hz, x * hz)])[:1]
+        assert not lobe or a <= 16 <= z         # the span holds every edge the lobe crosses
+
+    # worked by hand, in bins: a 2-pole pump's 1x at 7.8-8.2 bins (49 Hz at 6.25 Hz a bin) reaches
+    # the edges 6.8-10.2, its 2x 14.6-18.4, 3x 22.4-26.6 and the vane pass 45.8-51.2. The edge at 8
+    # goes to the nearest bin no span holds within a quarter of 8 (2 bins): 7 and 9 are held, 6 is
+    # clear; the 16 within 4 bins: 15 and 17 are held, 14 is clear; 4 and 32 stay.
+    moved = mf.place_edges(p, [(7.8 * hz, 8.2 * hz)])
+    assert moved == [[4, 6], [6, 14], [14, 32]]
+    # a shaft whose lines stay clear of 4, 8, 16 and 32 leaves the board's bands as they are:
+    # 1x 12-12.2 bins (spans 11-14.2, 23-26.4, 35-38.6, 71-75.2)
+    assert mf.place_edges(p, [(12.0 * hz, 12.2 * hz)]) == [[4, 8], [8, 16], [16, 32]]

@@ -109,6 +109,26 @@ def test_modes_are_operating_points_told_apart_by_speed():
     assert half and all(params["det_mode_s_q8"][j] == Z_LIM for j in half)
     assert all(params["det_mode_s_q8"][d + j] < Z_LIM for j in half)
     assert [m["half_aside"] for m in summary["modes"]["table"]] == [True, False]
+    # the band edges: the 2950 r/min shaft's 2x (98.3 Hz, 15.7 bins) sits on the board's edge at
+    # 16 (100 Hz), so training moved it;
+    # at each edge it moved, a tone at either end of every mode's range, at 1x, 2x, 3x and the
+    # vane pass, lies wholly on one side: under 1e-3 of its Hann-windowed power (numpy rfft)
+    # across it, below the Hann sidelobes (-31.5 dB, Harris 1978). (The edge at 8, 50 Hz, had no
+    # clear bin within reach of it: 1x of the fast mode and 2x of the slow one both sit there.)
+    from firmware_py.run.params import factory
+    board = {e for b in factory(PROFILE)["fc_bands"] for e in b}
+    moved = sorted({e for b in params["fc_bands"] for e in b} - board)
+    assert moved and summary["learned"]["band_edges"].startswith("moved")
+    n = params["n"]
+    t = np.arange(n) / FS
+    w = np.hanning(n + 1)[:n]
+    for lo_q8, hi_q8 in zip(op[::2], op[1::2]):
+        for f in (lo_q8 / 256, hi_q8 / 256):
+            for o in (1, 2, 3, params["fc_vane"]):
+                pw = np.abs(np.fft.rfft(w * np.cos(2 * np.pi * o * f * t))) ** 2
+                for e in moved:
+                    share = pw[e:].sum() / pw.sum()
+                    assert share < 1e-3 or share > 1 - 1e-3, (f, o, e, share)
     assert "the 0.5x line is not judged here" in report_text(summary).split("mode 0:")[1].split("\n")[0]
     res = replay([recs], params, PROFILE)
     w = res.windows

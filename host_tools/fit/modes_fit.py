@@ -8,6 +8,7 @@ the model the host fits is exactly in the space the device scores in.
 from __future__ import annotations
 
 import math
+from typing import Sequence
 from array import array
 
 import numpy as np
@@ -128,6 +129,51 @@ def set_aside(params: dict, lo_hz: float) -> list[int]:
         return []
     pa = fi.per_axis(params["det_bands"])
     return [j for j, i in enumerate(params["det_feat"]) if i % pa == fi.F_ORD_HALF]
+
+
+def line_spans(params: dict, ranges_hz: Sequence[tuple[float, float]]) -> list[tuple[float, float]]:
+    """Where the shaft lines' main lobes reach, in bins, over the modes' speed ranges (lo, hi) Hz:
+    for each mode and line (1x, 2x, 3x and the vane pass), the band edges e (between bins e - 1
+    and e) with lobe bins on both sides. A tone at x bins fills the Hann main lobe, the bins k
+    with |k - x| < 2 (Harris, "On the use of windows for harmonic analysis with the discrete
+    Fourier transform", Proc. IEEE 66, 1978), which has bins k >= e and k <= e - 1 for
+    x - 1 < e < x + 2; returned closed, [o lo - 1, o hi + 2] in bins, the cautious side."""
+    per_bin = params["n"] / params["fs_hz"]
+    lines = [1, 2, 3] + ([params["fc_vane"]] if params.get("fc_vane") else [])
+    return [(o * lo * per_bin - 1.0, o * hi * per_bin + 2.0) for lo, hi in ranges_hz for o in lines]
+
+
+def place_edges(params: dict, ranges_hz: Sequence[tuple[float, float]]) -> list[list[int]]:
+    """The set's bands (fc_bands, contiguous [lo, hi) bin ranges) with each edge that a shaft
+    line's lobe reaches in some mode (line_spans) moved to the nearest bin no lobe reaches, by at
+    most a quarter of the edge (at least 1 bin) and keeping every band at least 1 bin wide; an
+    edge with no such bin stays. A band whose edge a line sits on gains or loses that line as the
+    speed moves within the mode: its power follows the speed, not the health (at 1024 samples the
+    evaluation histories' 2-pole pump raised false alerts on its 2x at the 103 Hz edge;
+    docs/evaluation.md). Bands that are not contiguous stay as they are."""
+    bands = [[int(b[0]), int(b[1])] for b in params["fc_bands"]]
+    if not bands or any(bands[i][1] != bands[i + 1][0] for i in range(len(bands) - 1)):
+        return bands
+    spans = line_spans(params, ranges_hz)
+    edges = [b[0] for b in bands] + [bands[-1][1]]
+    top = params["n"] // 2
+    for i, e in enumerate(edges):
+        if e <= 1 or e >= top or not any(a <= e <= z for a, z in spans):
+            continue
+        lo = edges[i - 1] + 1 if i > 0 else 2
+        hi = edges[i + 1] - 1 if i + 1 < len(edges) else top - 1
+        reach = max(1, e // 4)
+        for c in sorted(range(e - reach, e + reach + 1), key=lambda c: (abs(c - e), c)):
+            if lo <= c <= hi and not any(a <= c <= z for a, z in spans):
+                edges[i] = c
+                break
+    return [[edges[i], edges[i + 1]] for i in range(len(bands))]
+
+
+def mode_ranges_hz(params: dict) -> list[tuple[float, float]]:
+    """The learned modes' speed ranges (det_op_speed_q8), Hz."""
+    op = params.get("det_op_speed_q8") or []
+    return [(op[2 * i] / 256.0, op[2 * i + 1] / 256.0) for i in range(len(op) // 2)]
 
 
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,

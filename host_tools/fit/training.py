@@ -643,7 +643,7 @@ def _promise_fields(pr: raise_rate.Promise, pa: raise_rate.Promise) -> dict:
 
 def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: float = 1.0,
           version: int = 1, folds: int = FOLDS, jobs: int = 1, bearing: BearingGeometry | None = None,
-          progress: bool = False) -> tuple[dict, dict]:
+          progress: bool = False, bands: list[list[int]] | None = None) -> tuple[dict, dict]:
     """A parameter set trained on healthy recordings of one gateway, and a JSON-able summary.
 
     recordings: Recording objects (one stream) or lists of them (one per stream), read at the
@@ -652,12 +652,18 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     false alerts per 30 days of running. version: the set's version. folds:
     held-out blocks. jobs: processes for the fits. bearing: the monitored bearing's geometry (or
     a sidecar "bearing"), for the envelope lines. progress: show the stages done (host_tools.progress).
+    bands: the band edges (fc_bands) to train with. None: the board's octave bands, and when a
+    learned mode puts a shaft line on an edge (modes_fit.place_edges) a second pass with the
+    edges moved off the lines.
     """
     if not false_alerts_per_month > 0:
         raise EdgevibError("the false-alert target must be a positive number per 30 days")
     streams = _streams(recordings)
     base = pm.factory(profile)
     base["version"] = int(version)
+    board_bands = [list(b) for b in base["fc_bands"]]
+    if bands is not None:
+        base["fc_bands"] = [list(b) for b in bands]
     every = int(profile["analyse_every"])
     for s in streams:
         check_recordings(s, base)
@@ -844,6 +850,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
                    "knock_crest": [v / 4096 for v in knock], "knock_ratio": p["det_knock_ratio_q8"] / 256,
                    "rule": f"observed window means widened by their own range each side, at least +-{DC_MARGIN_G} g, within +-7/8 full scale"},
         "learned": {**learned, "speed_range_hz": [p["fc_speed_lo_q8"] / 256, p["fc_speed_hi_q8"] / 256],
+                    "band_edges": _edges_text(board_bands, p),
                     "hold_off_s": p["det_hold_ms"] / 1000, "envelope_band": p["fc_env_band"],
                     "bearing_orders": [v / 4096 for v in p["fc_bear_q12"]]},
         "modes": {"k": p["det_modes"], "criterion": MODE_CRITERION, "features": len(p["det_feat"]), "table": table,
@@ -867,7 +874,23 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     }
     bar.update(1)
     bar.close()
+    if bands is None:
+        moved = modes_fit.place_edges(p, modes_fit.mode_ranges_hz(p))
+        if moved != board_bands:
+            return train(recordings, profile, false_alerts_per_month, version, folds, jobs, bearing, progress, moved)
     return p, summary
+
+
+def _edges_text(board_bands: list[list[int]], p: dict) -> str:
+    """The band edges as trained, against the board's, in Hz, in a technician's words."""
+    hz = p["fs_hz"] / p["n"]
+    old = [b[0] for b in board_bands] + [board_bands[-1][1]] if board_bands else []
+    new = [b[0] for b in p["fc_bands"]] + [p["fc_bands"][-1][1]] if p["fc_bands"] else []
+    moves = [f"{a * hz:g} -> {b * hz:g} Hz" for a, b in zip(old, new) if a != b]
+    if not moves:
+        return "the board's, no shaft line of a mode on an edge"
+    return ("moved off the shaft lines of the modes (" + ", ".join(moves) + "): a line on an edge would move in "
+            "and out of a band with the speed, and the band would follow the speed, not the health")
 
 
 def report_text(summary: dict) -> str:
@@ -882,6 +905,7 @@ def report_text(summary: dict) -> str:
         "what the gateway learned, and why:",
         f"  speed: searched {lr['speed_range_hz'][0]:.1f}-{lr['speed_range_hz'][1]:.1f} Hz ({lr['speed']})",
         f"  vane pass: {lr['vane']}; bearing lines: {lr['envelope']}",
+        f"  band edges: {lr['band_edges']}",
         f"  steady running: {lr.get('steadiness', 'defaults')}",
         f"  after a start or a speed change: no judgement for {lr['hold_off_s']:g} s ({lr['hold_off']})",
         f"  stopped below {s['idle_floor']['mm_s']:.3f} mm/s velocity r.m.s. on the largest axis ({s['idle_floor']['rule']})",
