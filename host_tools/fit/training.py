@@ -834,7 +834,6 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         i = m["mode"]
         m["speed_hz"] = [op[2 * i] / 256, op[2 * i + 1] / 256] if op else None
         m["half_aside"] = bool(op) and bool(modes_fit.set_aside(p, op[2 * i] / 256))
-    pa = fi.per_axis(len(p["fc_bands"]))
     half_judged = any(i % pa == fi.F_ORD_HALF for i in p["det_feat"])
     summary = {
         "board": p["board"], "version": p["version"], "fs_hz": p["fs_hz"], "n": p["n"], "window_s": window_s,
