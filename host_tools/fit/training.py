@@ -780,6 +780,11 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     if n_folds < 2:
         warnings.append("a single recording: thresholds come from the model's own training windows (optimistic)")
     p = _with(p, **fits[-1])
+    if bands is None:      # the modes are known: train again at once if they put a line on an edge
+        moved = modes_fit.place_edges(p, modes_fit.mode_ranges_hz(p))
+        if moved != board_bands:
+            bar.close()
+            return train(recordings, profile, false_alerts_per_month, version, folds, jobs, bearing, progress, moved)
     held = [(pf, [wf == f for wf in win_fold]) for f, pf in fold_sets] or [(p, None)]
     parts = [_held_out(pf, feats, every, sel, sequences=False) for pf, sel in held]
     gains, learned["slow_gains"] = sgain_q8(sum(h.ew_ss for h in parts), sum(h.ew_n for h in parts),
@@ -829,11 +834,11 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
 
     n_windows = int(len(allf))
     n_scored = int(sum(s.sum() for s in scored))
-    op = p["det_op_speed_q8"]
+    ranges = modes_fit.mode_ranges_hz(p)
     for m in table:
         i = m["mode"]
-        m["speed_hz"] = [op[2 * i] / 256, op[2 * i + 1] / 256] if op else None
-        m["half_aside"] = bool(op) and bool(modes_fit.set_aside(p, op[2 * i] / 256))
+        m["speed_hz"] = list(ranges[i]) if ranges else None
+        m["half_aside"] = bool(ranges) and bool(modes_fit.set_aside(p, ranges[i][0]))
     half_judged = any(i % pa == fi.F_ORD_HALF for i in p["det_feat"])
     summary = {
         "board": p["board"], "version": p["version"], "fs_hz": p["fs_hz"], "n": p["n"], "window_s": window_s,
@@ -873,10 +878,6 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     }
     bar.update(1)
     bar.close()
-    if bands is None:
-        moved = modes_fit.place_edges(p, modes_fit.mode_ranges_hz(p))
-        if moved != board_bands:
-            return train(recordings, profile, false_alerts_per_month, version, folds, jobs, bearing, progress, moved)
     return p, summary
 
 
