@@ -29,7 +29,7 @@ def test_a_set_with_every_key_builds_them():
     ({"fc_vane": 2.5}, "fc_vane must be an integer"),
     ({"fc_env_band": "128-192"}, "fc_env_band must be a list"),
     ({"fc_speed_lo_q8": 40 * 256}, "0 < lo < hi"),
-    ({"fc_speed_lo_q8": 10 * 256}, "below 2.5 bins"),
+    ({"fc_speed_lo_q8": 10 * 256}, "below 2 bins"),
     ({"fc_speed_hi_q8": 600 * 256}, "3x of the top speed"),
     ({"fc_vane": 65}, "vane count"),
     ({"fc_vane": 60}, "vane pass at the top speed"),

@@ -22,6 +22,9 @@ CONFIGS = [
          speed=(80 * 256, 400 * 256), vane=5, env_band=(200, 456), bear=BEAR),
     dict(n=2048, fs=6667, bands=(), adc=(-32768, 32767), vel=(10, 1000), speed=(12 * 256, 22 * 256),
          vane=7, env_band=(600, 1024), bear=BEAR),
+    # a range from the estimator's floor of 2 bins (12.5 Hz), where the 1x peak search is cut at bin 1
+    dict(n=512, fs=3200, bands=((2, 9), (40, 256)), adc=(-32768, 32767), vel=(10, 1000),
+         speed=(3200, 20 * 256), vane=7, env_band=(100, 200), bear=BEAR, pump_hz=13.0),
 ]
 
 
@@ -53,7 +56,7 @@ def test_pump_windows_with_every_stage_live_bit_identical():
         n, fs = cfg["n"], cfg["fs"]
         rng = np.random.default_rng(n)
         t = np.arange(8 * n) / fs
-        f1 = (cfg["speed"][0] + cfg["speed"][1]) / 512 * (1 + 0.01 * np.sin(t))
+        f1 = cfg.get("pump_hz", (cfg["speed"][0] + cfg["speed"][1]) / 512) * (1 + 0.01 * np.sin(t))
         ph = 2 * np.pi * np.cumsum(f1) / fs
         x = 4000 * np.sin(ph) + 1500 * np.sin(2 * ph + 1) + 800 * np.sin(3 * ph) \
             + 600 * np.sin(cfg["vane"] * ph) + rng.normal(0, 300, t.size)
@@ -65,6 +68,8 @@ def test_pump_windows_with_every_stage_live_bit_identical():
         dev, twin, _, _ = _both(x, cfg)
         assert np.array_equal(dev, twin), cfg
         assert np.all(dev[:, fi.F_SPEED] > 0)            # an estimate in every window
+        if "pump_hz" in cfg:                             # the cut 1x search was taken
+            assert np.any(dev[:, fi.F_SPEED] * n < 2.5 * fs * 256)
 
 
 def test_random_windows_bit_identical_three_axes():

@@ -89,6 +89,13 @@ def test_every_stage_on_micropython_adversarial_and_pump_windows():
     got = _check_all_stages(list(adversarial(n, seed=3).values()) + pump, n, 3200,
                             ((2, 9), (40, 256)), (20 * 256, 60 * 256), 6, (100, 200), BEAR)
     assert np.all(got[-3:, fi.F_SPEED] > 0)
+    # from the estimator's floor of 2 bins (12.5 Hz), where the 1x peak search is cut at bin 1
+    slow = []
+    for f1 in (12.6, 13.1, 14.0):
+        x = 9000 * np.sin(2 * np.pi * f1 * t) + 4000 * np.sin(4 * np.pi * f1 * t + 1) + rng.normal(0, 600, n)
+        slow.append(np.clip(np.round(x), -32768, 32767).astype(np.int16))
+    got = _check_all_stages(slow, n, 3200, ((2, 9), (40, 256)), (3200, 20 * 256), 7, (100, 200), BEAR)
+    assert np.all(got[:, fi.F_SPEED] * n < 2.5 * 3200 * 256)
     _check_all_stages(list(random_windows(64, 8, seed=12)) + list(adversarial(64).values()), 64,
                       1000, ((1, 5),), (50 * 256, 70 * 256), 2, (10, 26),
                       (10240, 11469, 6144, 1638))

@@ -98,3 +98,23 @@ def test_the_adversarial_set_reaches_the_bounds_it_is_meant_to():
     # the peak of x - mean is 65535 - 128 counts, the largest any window can give at this n
     assert rows["impulse_pos_on_neg_dc"][fi.F_PEAK] >> 8 == 65535 - 128
     assert rows["one_lsb_step"][fi.F_RMS] > 0 and rows["tiny"][fi.F_RMS] > 0
+
+
+def test_viper_speed_from_the_floor_of_two_bins_equals_cpython_and_the_twin():
+    """A 1x from 2 bins up (12.5 Hz at n = 512), where the 1x peak search is cut to start at bin
+    1 (dsp/speed.py): pump-like windows with a strong 2x, on the native emitters."""
+    n = 512
+    adc, bands = _config(n)
+    opts = dict(speed=(3200, 20 * 256), vane=7, env_band=(64, 128), bear_q12=(9421, 7782, 5734, 1638))
+    rng = np.random.default_rng(13)
+    t = np.arange(n) / FS
+    windows = [np.clip(np.round(9000 * np.sin(2 * np.pi * f1 * t) + 4000 * np.sin(4 * np.pi * f1 * t + 1)
+                                + rng.normal(0, 600, n)), -32768, 32767).astype(np.int16)
+               for f1 in (12.6, 13.1, 14.0)]
+    got, clean, _ = guest_features(windows, n, FS, bands, adc, run=run_unix, **opts)
+    assert clean, "a viper window step allocated under heap_lock"
+    x = np.concatenate(windows)
+    cpy, _ = device_features(x, n=n, fs=FS, bands=bands, adc=adc, **opts)
+    assert np.array_equal(cpy, _twin(n, adc, bands, **opts).features(x))
+    assert np.array_equal(got, cpy)
+    assert np.all(cpy[:, fi.F_SPEED] * n < 2.5 * FS * 256)

@@ -22,7 +22,7 @@
 #    at 3 bins from DC, giving < 7.2e-3 bins; 5.3e-3 and < 0.024 bins at 2.5 bins), the kernel's
 #    finite-n correction (O(1/n**2)), and the quantisation: magnitudes keep >= 14 bits
 #    (sqrt_pow2 of p scaled to 2**28), d is rounded to 1/256 bin (tests/test_speed_estimate.py
-#    derives the total, 0.01 bin; 0.027 bin from 2.5 bins). A parabola through
+#    derives the total, 0.01 bin; 0.027 bin from 2.5 bins, 0.063 from 2). A parabola through
 #    the three log magnitudes would leave up to 0.016 bin of bias for Hann, through the linear
 #    magnitudes 0.053 bin (computed with numpy for a tone at 100 + d bins, n = 512); the ratio
 #    form costs two square roots and one division per harmonic instead.
@@ -37,9 +37,11 @@
 #
 # Scales: p[k] from fft.spectrum (<= 2**28, sum <= 1.5 * 2**28); bins Q8 (< m * 256 <= 2**19);
 # Hz Q8 = bins_q8 * fs / n (fixmath.mul_shift). The range is checked by check_range(): 1x at
-# >= 2.5 bins (the 1x peak search, 2 bins either side of round(c), starts at bin 1 and its
-# ratio's neighbour at bin 0 at worst; the 1x and 2x lobes share one bin at most) and
-# round(3 * hi) + 3 <= m.
+# >= 2 bins (the 1x peak search, 2 bins either side of round(c), is cut to start at bin 1, so
+# its ratio's neighbour is bin 0 at worst) and round(3 * hi) + 3 <= m. From 2.5 bins up the 1x
+# and 2x lobes share one bin at most; from 2 to 2.5 bins they share two, and a strong 2x leaks
+# into the 1x's ratio bins, so training searches there only for a duty that turns that slowly
+# (FINE_Q2; tests/test_speed_estimate.py derives the lone tone's bound there, 0.063 bin).
 import micropython
 from micropython import const
 
@@ -48,7 +50,8 @@ from firmware_py.dsp.fft import power_sum
 from firmware_py.dsp.fixmath import div_pow2, msb, mul_shift, sqrt_pow2
 from firmware_py.viper_stand import ptr32
 
-_MIN_Q2 = const(10)      # lowest 1x, quarter bins (2.5 bins): see the Scales note above
+MIN_Q2 = const(8)       # lowest 1x, quarter bins (2 bins): see the Scales note above
+FINE_Q2 = const(10)      # from here up (2.5 bins) the 1x and 2x lobes share one bin at most
 
 
 def bins_q2(hz_q8, n, fs_hz, up):
@@ -70,9 +73,9 @@ def check_range(n, fs_hz, lo_q8, hi_q8):
         return
     if not 0 < lo_q8 < hi_q8:
         raise ValueError("speed range must satisfy 0 < lo < hi (or both 0: no speed estimate)")
-    if bins_q2(lo_q8, n, fs_hz, True) < _MIN_Q2:
-        raise ValueError("speed range starts below 2.5 bins (%d Hz): use a longer window" % (
-            (5 * fs_hz + 2 * n - 1) // (2 * n)))
+    if bins_q2(lo_q8, n, fs_hz, True) < MIN_Q2:
+        raise ValueError("speed range starts below 2 bins (%d Hz): use a longer window" % (
+            (2 * fs_hz + n - 1) // n))
     if ((3 * bins_q2(hi_q8, n, fs_hz, False) + 2) >> 2) + 3 > n >> 1:
         raise ValueError("3x of the top speed must lie 3 bins below fs/2")
 
@@ -93,7 +96,7 @@ class SpeedEstimator:
         # the bins any family lobe can reach: confidence is the family's share of their power
         a = ((self.c_lo_q2 + 2) >> 2) - 3
         b = ((3 * self.c_hi_q2 + 2) >> 2) + 3
-        self.reach_lo = a if self.on else 0
+        self.reach_lo = a if self.on and a > 0 else 0
         self.reach_hi = b + 1 if self.on else 0
         self.fq_q8 = [0, 0, 0, 0]      # per harmonic 1..3: peak position, bins Q8
         self.pw = [0, 0, 0, 0]      # per harmonic: 3-bin lobe power at the peak
@@ -144,11 +147,12 @@ class SpeedEstimator:
         return 0
 
     def _harmonic(self, h, ch):
-        """Peak of harmonic h near bin ch: position (bins Q8) into fq[h], lobe power into pw[h]."""
+        """Peak of harmonic h near bin ch: position (bins Q8) into fq[h], lobe power into pw[h].
+        The search starts at bin 1 at the lowest (a 1x under 2.5 bins), so k - 1 >= 0."""
         p = self.p
-        k = ch - 2
+        k = ch - 2 if ch > 2 else 1
         top = p[k]
-        for j in range(ch - 1, ch + 3):
+        for j in range(k + 1, ch + 3):
             if p[j] > top:
                 top = p[j]
                 k = j

@@ -47,7 +47,7 @@ import numpy as np
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.detect import alarm as al, modes as dm
-from firmware_py.dsp import feature_index as fi, orders
+from firmware_py.dsp import feature_index as fi, orders, speed
 from firmware_py.run import params as pm
 from firmware_py.detect.detector import W_IDLE, W_SCORED, Detector, default_feature_list
 from firmware_py.detect.iso_zones import ZONE_C
@@ -325,8 +325,16 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
         lo_hz, hi_hz = 10.0, 60.0
         why_speed = "no sidecar rpm: 10-60 Hz, the shaft speeds of 2- to 12-pole motors at 50/60 Hz"
         warnings.append("no recording states its rpm: the speed search runs over 10-60 Hz; give the rpm in the sidecars")
-    floor_hz = math.ceil(2.5 * fs / n) + 0.5     # the estimator's lowest speed: 2.5 bins (dsp/speed.py)
-    if lo_hz < floor_hz:
+    # The estimator reads a 1x from 2 bins up, finely from 2.5 (dsp/speed.py: there the 1x and 2x
+    # lobes share one bin at most). The margin stops at 2.5 bins unless a duty turns slower.
+    fine_hz = math.ceil(speed.FINE_Q2 / 4 * fs / n) + 0.5
+    floor_hz = math.ceil(speed.MIN_Q2 * fs / n) / 4.0
+    slowest_hz = min(rpm) / 60.0 if rpm else lo_hz
+    if lo_hz < fine_hz <= slowest_hz:
+        why_speed += f"; the margin cut at {fine_hz:g} Hz, where the window still tells the 1x from the 2x line"
+        lo_hz = fine_hz
+        hi_hz = max(hi_hz, fine_hz * 1.2)
+    elif lo_hz < floor_hz:
         # a slower shaft reads at the floor (or a harmonic) window after window: still a steady
         # label for its operating point, though no longer its speed
         warnings.append(f"speeds under {floor_hz:g} Hz ({floor_hz * 60:.0f} r/min) lie below what a window of {n} samples "
@@ -334,6 +342,10 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
         why_speed += f"; raised to the estimator's floor of {floor_hz:g} Hz"
         lo_hz = floor_hz
         hi_hz = max(hi_hz, floor_hz * 1.2)
+    elif lo_hz < fine_hz:
+        warnings.append(f"speeds under {fine_hz:g} Hz ({fine_hz * 60:.0f} r/min) lie within 2.5 bins of a {n}-sample "
+                        "window, where the 1x and 2x lines overlap: the speed estimate there is coarser and the "
+                        "steady tolerance wider; a longer window would resolve them")
     hi_hz = min(hi_hz, fs / 8.0)   # 3x must stay well inside the spectrum
     vanes = sorted({int(r.vane_count) for s in streams for r in s if r.vane_count})
     vane = vanes[0] if len(vanes) == 1 else 0

@@ -76,7 +76,7 @@ class FeatureTwin:
             self.c_hi_q2 = speed.bins_q2(cfg.speed_hi_q8, n, cfg.fs_hz, False)
             self.b_lo_q8 = speed.bins_q(cfg.speed_lo_q8, n, cfg.fs_hz, 8, True)
             self.b_hi_q8 = speed.bins_q(cfg.speed_hi_q8, n, cfg.fs_hz, 8, False)
-            self.reach = (((self.c_lo_q2 + 2) >> 2) - 3, ((3 * self.c_hi_q2 + 2) >> 2) + 4)
+            self.reach = (max(((self.c_lo_q2 + 2) >> 2) - 3, 0), ((3 * self.c_hi_q2 + 2) >> 2) + 4)
         # envelope.Envelope's set-up: M points, the window and bit-reversed slots at a stride
         self.env_on = len(cfg.env_band) == 2 and len(cfg.bear_q12) == 4 and cfg.speed_hi_q8 > 0
         if self.env_on:
@@ -290,7 +290,9 @@ class FeatureTwin:
         rows = np.arange(wn)[:, None]
         for h in (1, 2, 3):
             ch = (h * cb + 2) >> 2
-            cand = ch[:, None] + np.arange(-2, 3)
+            # speed._harmonic's search: ch - 2 .. ch + 2, cut to start at bin 1 (a repeated last
+            # bin never wins: the first largest is taken, as the device's strict >)
+            cand = np.minimum(np.maximum(ch - 2, 1)[:, None] + np.arange(5), (ch + 2)[:, None])
             k = cand[rows[:, 0], p[rows, cand].argmax(axis=1)]
             top = p[rows[:, 0], k]
             lo = p[rows[:, 0], k - 1]
