@@ -198,7 +198,7 @@ def test_bad_out_is_one_line_and_exit_2(tmp_path, capsys):
 
 
 @pytest.mark.parametrize("extra, says", [
-    (["--gapless-hours", "2"], "needs --evaluation demo or full"),      # SMALL has --evaluation off
+    (["--gapless-hours", "2"], "needs --evaluation demo, full or other"),      # SMALL has --evaluation off
     (["--gapless-hours", "25", "--evaluation", "demo"], "--gapless-hours must be from 0 to 24"),
 ])
 def test_bad_gapless_hours_is_one_line_and_exit_2(tmp_path, capsys, extra, says):

@@ -67,9 +67,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
                         f"(default {DEFAULT_STRETCH_S[0]:g} {DEFAULT_STRETCH_S[1]:g}; 0 0: snapshots only)")
     p.add_argument("--seed", type=int, default=ds.DEFAULT_SEED, help=f"scenario seed (default {ds.DEFAULT_SEED})")
     p.add_argument("--jobs", type=int, default=None, help="worker processes (default: one per pump, at most the cores)")
-    p.add_argument("--evaluation", choices=("demo", "full", "off"), default="demo",
+    p.add_argument("--evaluation", choices=("demo", "full", "other", "off"), default="demo",
                    help="scorecard on the evaluation histories: demo (one machine, about a minute), full (two machines, "
-                        "much longer) or off (default demo)")
+                        "much longer), other (as full, on a slow 6-pole pump and a fixed-speed one) or off (default demo)")
     p.add_argument("--gapless-hours", type=float, default=0.0, metavar="H",
                    help="also run each machine fault of the scorecard without a gap, every window as a gateway sees it, "
                         "from H hours before it is clearly visible to the first alert or H hours after (default 0: off)")
@@ -95,7 +95,7 @@ def run(args: argparse.Namespace) -> int:
     if not 0 <= gapless_h <= 24:
         raise EdgevibError("--gapless-hours must be from 0 to 24")
     if gapless_h and getattr(args, "evaluation", "demo") == "off":
-        raise EdgevibError("--gapless-hours runs the scorecard's faults; it needs --evaluation demo or full")
+        raise EdgevibError("--gapless-hours runs the scorecard's faults; it needs --evaluation demo, full or other")
     started = time.monotonic()
     from host_tools.report.replay_report import staging_folder, swap_in
     if args.fleet and not 1 <= args.pumps <= 12:

@@ -5,8 +5,11 @@ are made from the physics in host_tools.data.pump_physics, so that a detector ca
 way a user would judge it, on histories whose truth is known exactly.
 
 Entry points
-- `MACHINES`: the two pumps (RW-1: 4-pole motor, 6 vanes, 6205 bearing; RW-2: 2-pole motor,
-  5 vanes, 6306 bearing), each with its operating modes on the drive.
+- `MACHINES`: the pumps, each with its operating modes on the drive. RW-1: 4-pole motor, 6 vanes,
+  6205 bearing; RW-2: 2-pole motor, 5 vanes, 6306 bearing (the "full" scale). Two more for the
+  "other" scale, machines unlike those the detector was tuned on: RW-5, a slow 6-pole pump (its
+  shaft 2.1-2.6 bins of a 512-sample window at 3200 Hz), 7 vanes, 6306 bearing, a housing mode at
+  900 Hz; RW-6, a 2-pole pump on a fixed-speed motor (one duty, only the slip moves), 4 vanes.
 - `plan_history(name, machine, seed, days, ...)` -> `History`: a cheap plan (speed profile with
   daily stops, run-ups, run-downs, mode changes and trims, slow load drift; machine faults with
   onset and growth; sensor-fault spans; the recording schedule). No signals yet.
@@ -105,6 +108,10 @@ MACHINES = {
                     0.22, 0.09, 0.30, 0.07, (0.10, -0.06, 0.18)),
     "RW-2": Machine("RW-2", 2, 0.015, (50.0, 45.0), 5, BEARING_6306, 1380.0, 17.0,
                     0.30, 0.12, 0.38, 0.10, (-0.07, 0.12, -0.11)),
+    "RW-5": Machine("RW-5", 6, 0.025, (50.0, 40.0), 7, BEARING_6306, 900.0, 12.0,
+                    0.18, 0.08, 0.25, 0.06, (0.05, 0.08, -0.09)),
+    "RW-6": Machine("RW-6", 2, 0.012, (50.0,), 4, BEARING_6205, 1450.0, 20.0,
+                    0.35, 0.10, 0.45, 0.12, (0.02, -0.05, 0.07)),
 }
 
 # Per-axis gains (x, y, z) of each source at the sensor: 1x radial (rotating force), 2x strongest
@@ -656,7 +663,10 @@ def ground_truth(h: History, axes: Sequence[str] = AXES) -> dict:
 SCALES = {
     # days of training, of the healthy field history and of each fault history; snapshot spacing
     "full": {"train_days": 2.5, "healthy_days": 3.0, "fault_days": 3.0, "sensor_days": 1.2, "interval_s": 1800.0,
-             "long_s": 600.0, "changes_per_day": 1.0},
+             "long_s": 600.0, "changes_per_day": 1.0, "machines": ("RW-1", "RW-2")},
+    # as full, on the two machines unlike RW-1 and RW-2 (a slow 6-pole pump, a fixed-speed one)
+    "other": {"train_days": 2.5, "healthy_days": 3.0, "fault_days": 3.0, "sensor_days": 1.2, "interval_s": 1800.0,
+              "long_s": 600.0, "changes_per_day": 1.0, "machines": ("RW-5", "RW-6")},
     # the demo's: one machine, shorter, hourly snapshots (a minute or so on two cores)
     "demo": {"train_days": 1.5, "healthy_days": 1.0, "fault_days": 2.2, "sensor_days": 1.3, "interval_s": 3600.0,
              "long_s": 120.0, "changes_per_day": 0.5, "machines": ("RW-1",)},
@@ -667,9 +677,9 @@ _GROWTH_DAYS = {"imbalance": 2.0, "misalignment": 2.0, "bearing_outer_race": 2.5
 def evaluation_suite(seed: int = 2027, scale: str = "full", machines: Sequence[str] | None = None) -> list[History]:
     """The histories a detector is judged on (see the module docstring). Training histories come
     first in time; every field history starts where its machine's training ends. machines:
-    default the scale's ("full": RW-1 and RW-2, "demo": RW-1)."""
+    default the scale's ("full": RW-1 and RW-2, "demo": RW-1, "other": RW-5 and RW-6)."""
     c = SCALES[scale]
-    machines = machines or c.get("machines", tuple(MACHINES))
+    machines = machines or c["machines"]
     out = []
     for mi, name in enumerate(machines):
         base = dict(interval_s=c["interval_s"], long_stretch_s=c["long_s"], mode_change_stretches_per_day=c["changes_per_day"])
