@@ -134,7 +134,9 @@ class SpeedEstimator:
         elif f1 > self.b_hi_q8:
             f1 = self.b_hi_q8
         f[off + F_SPEED] = mul_shift(f1, self.fs_hz, self.L)
-        fam = pw[1] + pw[2] + pw[3]     # < 3.5 * 2**28: lobes overlap by one bin at most
+        # fam < 2.25 * 2**28: a bin lies in three lobes at most, bins 1..m-1 hold at most half the
+        # two-sided Parseval sum (1.5 * 2**28), and bin 0 enters the 1x lobe alone
+        fam = pw[1] + pw[2] + pw[3]
         tot = power_sum(self.p, self.reach_lo, self.reach_hi)     # <= 1.5 * 2**28
         conf = div_pow2(fam, tot, 8) if tot > 0 else 0
         f[off + F_SPEED_CONF] = conf if conf < 256 else 256
