@@ -22,9 +22,9 @@ from host_tools import cli
 REPO = Path(__file__).resolve().parent.parent
 # 23 days (the bearing defect starts on day 20 and grows to the end), 6 healthy days to train on, a
 # snapshot every 6 hours: the smallest scenario that holds every fault of P-101, trains without
-# refusal, and gives the bearing defect 3 days of 6-hourly snapshots at all three duty speeds
-# (890 r/min, 2.4 bins of the window, with a coarser speed estimate), and an alert needs 5 s of
-# scored running over the threshold.
+# refusal, and gives the bearing defect 3 days of 6-hourly snapshots, of which those at 890 r/min
+# (2.4 bins of the window) stay unscored on P-101 (its speed reads too coarsely there; training
+# warns), and an alert needs 5 s of scored running over the threshold.
 # Continuous running: 2 min a training day and 1 min a field day (under half the default), enough
 # for a stated rate.
 SMALL = ["--days", "23", "--training-days", "6", "--interval-s", "21600", "--jobs", "1", "--evaluation", "off",

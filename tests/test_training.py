@@ -293,3 +293,61 @@ def test_half_order_is_scored_only_clear_of_the_1x_lobe():
     feats = _feature_list(prm)
     assert len(feats) <= 64 and {fi.F_ORD_HALF, fi.F_BAND0 + len(prm["fc_bands"]) - 1} <= {j % pa for j in feats[-20:]}
     assert 2 * pa + fi.F_PEAK not in feats
+
+
+def _search_hz(rpms, n=512):
+    """The speed search training chooses for recordings at these sidecar speeds (Hz)."""
+    from types import SimpleNamespace
+    from host_tools.fit.training import _feature_options
+    recs = [SimpleNamespace(rpm=r, vane_count=6, sidecar={}) for r in rpms]
+    warns: list[str] = []
+    keys, why = _feature_options([recs], {"fs_hz": FS, "n": n}, None, warns)
+    return keys["fc_speed_lo_q8"] / 256, keys["fc_speed_hi_q8"] / 256, why["speed"], warns
+
+
+def test_speed_search_keeps_every_duty_inside_and_stays_under_an_octave():
+    # A shaft at f has its 2x at 2 f (physics), so a candidate at f/2 inside the search would read
+    # f's line as its 2x: the search must not reach half its own top, hi < 2 lo. The 15 % margins
+    # of 890-1480 r/min would give 12.6-28.4 Hz (2.25 x); training narrows them evenly instead.
+    lo, hi, why, _ = _search_hz([890.0, 1180.0, 1480.0])
+    assert hi < 2 * lo
+    assert lo < 890 / 60 * 0.95 and hi > 1480 / 60 * 1.05      # each duty well inside (5 %+)
+    assert "within an octave" in why
+    # 1000-1520 r/min: the margin stops at 2.5 bins (16.5 Hz at 512 samples and 3200 Hz), where the
+    # 1x and 2x main lobes (+-2 bins, Hann; common practice) share one bin at most
+    lo, hi, why, warns = _search_hz([1000.0, 1520.0])
+    assert lo == 16.5 and hi < 2 * lo and not warns
+    # a 6-pole pump at 40 and 50 Hz (13.0-16.8 Hz): searched from the estimator's floor of 2 bins,
+    # with a warning that the window resolves it coarsely
+    lo, hi, why, warns = _search_hz([761.5, 1005.5])
+    assert lo == 2 * FS / 512 and hi < 2 * lo
+    assert any("a longer window would resolve them" in w for w in warns)
+
+
+def test_a_duty_whose_speed_reads_coarsely_keeps_the_search_at_two_and_a_half_bins():
+    # Windows of a duty under 2.5 bins (890 r/min, 14.8 Hz, at 512 samples and 3200 Hz) whose
+    # estimate (the most confident axis's F_SPEED, Hz Q8) agrees with the sidecar speed in 9 of 10
+    # windows keep the coarse search; one that jumps to another line (1.7 x here) in 4 of 10 does
+    # not, and the warning names it.
+    from types import SimpleNamespace
+    from host_tools.fit.training import _coarse_reads
+    pa = fi.per_axis(3)
+    p = {"fs_hz": FS, "n": 512, "axes": 1, "det_bands": 3, "fc_bands": [[2, 3], [3, 4], [4, 8]],
+         "fc_speed_lo_q8": int(13.7 * 256)}
+    rng = np.random.default_rng(3)
+    rpm = np.array([890.0] * 100 + [1480.0] * 100)
+    true_hz = rpm / 60
+    def reads(jump_share):
+        est = true_hz * (1 + rng.uniform(-0.05, 0.05, rpm.size))
+        jump = (rpm == 890) & (rng.random(rpm.size) < jump_share)
+        est[jump] = true_hz[jump] * 1.7
+        f = np.zeros((rpm.size, pa), np.int64)
+        f[:, fi.F_SPEED] = np.round(est * 256)
+        f[:, fi.F_SPEED_CONF] = 200
+        recs = [SimpleNamespace(rpm=r) for r in rpm]
+        return _coarse_reads([SimpleNamespace(feats=f, rec=np.arange(rpm.size))], [recs], p)
+    assert reads(0.0) is None
+    warn = reads(0.4)
+    assert warn is not None and "890 r/min" in warn
+    # a search that starts at 2.5 bins or above has no coarse duty to check
+    assert _coarse_reads([], [], dict(p, fc_speed_lo_q8=int(16.5 * 256))) is None

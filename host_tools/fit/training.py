@@ -65,6 +65,7 @@ from host_tools.twin.replay import (
 
 FOLDS = 3                 # held-out blocks of recordings (each model is fitted on the others)
 ALARM_RATE_RATIO = 10.0   # false alarms aimed 10 times rarer than false alerts
+OCTAVE_SAFE = 1.95        # widest speed search, top over bottom: under an octave (dsp/speed.py)
 DC_MARGIN_G = 0.25        # least half-width of the healthy DC range (g): tilt or a loose mount, not drift
 MIN_MODE_WINDOWS = 30     # a mode with fewer training windows is thinly supported
 MIN_WINDOWS = 50          # fewer running healthy windows cannot support a baseline and modes
@@ -308,7 +309,7 @@ def _mode_table(feats: np.ndarray, modes: np.ndarray, k: int, params: dict, scal
 
 
 def _feature_options(streams: list[list[Recording]], base: dict, bearing: BearingGeometry | None,
-                     warnings: list[str]) -> tuple[dict, dict]:
+                     warnings: list[str], coarse: bool = True) -> tuple[dict, dict]:
     """fc_ keys of the speed, order and envelope features, and why each was chosen.
 
     Speed range: the running recordings' sidecar rpm, 15 % below the slowest and above the
@@ -334,6 +335,10 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
         why_speed += f"; the margin cut at {fine_hz:g} Hz, where the window still tells the 1x from the 2x line"
         lo_hz = fine_hz
         hi_hz = max(hi_hz, fine_hz * 1.2)
+    elif lo_hz < fine_hz and not coarse:
+        why_speed += f"; raised to {fine_hz:g} Hz: the slower duties read their speed too coarsely under it"
+        lo_hz = fine_hz
+        hi_hz = max(hi_hz, fine_hz * 1.2)
     elif lo_hz < floor_hz:
         # a slower shaft reads at the floor (or a harmonic) window after window: still a steady
         # label for its operating point, though no longer its speed
@@ -346,6 +351,16 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
         warnings.append(f"speeds under {fine_hz:g} Hz ({fine_hz * 60:.0f} r/min) lie within 2.5 bins of a {n}-sample "
                         "window, where the 1x and 2x lines overlap: the speed estimate there is coarser and the "
                         "steady tolerance wider; a longer window would resolve them")
+    if rpm and hi_hz >= OCTAVE_SAFE * lo_hz:
+        # a search wider than an octave can take a strong line for the 2x of a shaft at half its
+        # speed (dsp/speed.py): the margins shrink, evenly, until it is 1.95 x at most
+        f_hz = max(rpm) / 60.0
+        m = max((OCTAVE_SAFE * slowest_hz - f_hz) / (OCTAVE_SAFE * slowest_hz + f_hz), 0.0)
+        lo_hz, hi_hz = max(slowest_hz * (1 - m), lo_hz), f_hz * (1 + m)
+        why_speed += f"; margins cut to {100 * m:.0f} % to keep the search within an octave"
+        if m < 0.03:
+            warnings.append("the duty speeds span nearly an octave: the speed search has little margin, and a strong 2x "
+                            "line may be taken for the 1x of half the speed")
     hi_hz = min(hi_hz, fs / 8.0)   # 3x must stay well inside the spectrum
     vanes = sorted({int(r.vane_count) for s in streams for r in s if r.vane_count})
     vane = vanes[0] if len(vanes) == 1 else 0
@@ -404,6 +419,31 @@ def _op_of(sf: StreamFeatures, params: dict) -> tuple[np.ndarray, np.ndarray, np
     rows = np.arange(len(best))
     vel = sf.feats[:, fi.F_VEL::pa][:, :axes].max(1)
     return sp[rows, best] / 256.0, conf[rows, best].astype(float), np.log2(np.maximum(vel, 1))
+
+
+COARSE_READ_TOL = 0.10    # a coarse duty's estimate within 10 % of its sidecar speed ...
+COARSE_READ_SHARE = 0.90  # ... in 9 windows of 10: drive duties usually lie 15-25 % apart
+
+
+def _coarse_reads(feats: list[StreamFeatures], streams: list[list[Recording]], p: dict) -> str | None:
+    """None if every duty under 2.5 bins (sidecar rpm) reads its speed within COARSE_READ_TOL of
+    the sidecar in COARSE_READ_SHARE of its windows, or the warning naming the first that does
+    not. Under 2.5 bins the 1x and 2x lobes overlap (dsp/speed.py): on some pumps the estimate
+    then jumps to another line, which would merge the operating points and widen the steady
+    tolerance for every speed; training then keeps the search at 2.5 bins, as for a faster pump."""
+    fine_hz = speed.FINE_Q2 / 4 * p["fs_hz"] / p["n"]
+    if p["fc_speed_lo_q8"] / 256.0 >= fine_hz:
+        return None
+    sp = np.concatenate([_op_of(sf, p)[0] for sf in feats])
+    rpm = np.concatenate([np.array([r.rpm or 0.0 for r in s])[sf.rec] for s, sf in zip(streams, feats)])
+    for r in sorted(set(rpm[(rpm > 0) & (rpm / 60.0 < fine_hz)].tolist())):
+        est = sp[rpm == r]
+        share = float(np.mean(np.abs(est - r / 60.0) <= COARSE_READ_TOL * r / 60.0))
+        if share < COARSE_READ_SHARE:
+            return (f"the duty at {r:g} r/min reads its speed within {100 * COARSE_READ_TOL:g} % in only {100 * share:.0f} % "
+                    f"of its windows at this window length: the speed search stays at 2.5 bins, so such windows are "
+                    "left unscored; a longer window would resolve them")
+    return None
 
 
 def _steadiness(feats: list[StreamFeatures], streams: list[list[Recording]], p: dict, every: int
@@ -655,7 +695,7 @@ def _promise_fields(pr: raise_rate.Promise, pa: raise_rate.Promise) -> dict:
 
 def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: float = 1.0,
           version: int = 1, folds: int = FOLDS, jobs: int = 1, bearing: BearingGeometry | None = None,
-          progress: bool = False, bands: list[list[int]] | None = None) -> tuple[dict, dict]:
+          progress: bool = False, bands: list[list[int]] | None = None, coarse: bool = True) -> tuple[dict, dict]:
     """A parameter set trained on healthy recordings of one gateway, and a JSON-able summary.
 
     recordings: Recording objects (one stream) or lists of them (one per stream), read at the
@@ -666,7 +706,9 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     a sidecar "bearing"), for the envelope lines. progress: show the stages done (host_tools.progress).
     bands: the band edges (fc_bands) to train with. None: the board's octave bands, and when a
     learned mode puts a shaft line on an edge (modes_fit.place_edges) a second pass with the
-    edges moved off the lines.
+    edges moved off the lines. coarse: the speed search may go under 2.5 bins for a duty that
+    turns that slowly (_feature_options); training passes again without it when such a duty's
+    windows do not read their sidecar speed (_coarse_reads).
     """
     if not false_alerts_per_month > 0:
         raise EdgevibError("the false-alert target must be a positive number per 30 days")
@@ -683,7 +725,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     machines = sorted({r.machine for s in streams for r in s if r.machine})
     if len(machines) > 1:
         warnings.append(f"training recordings name several machines ({', '.join(machines)}); a parameter set is for one gateway")
-    fc, learned = _feature_options(streams, base, bearing, warnings)
+    fc, learned = _feature_options(streams, base, bearing, warnings, coarse)
     p = _with(base, **fc)
     p["det_feat"] = _feature_list(p)
     d = len(p["det_feat"])
@@ -694,6 +736,12 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     bar = start(4, "stages", "train", enabled=progress)    # features, scoring probe, fits, check
     feats = [stream_features(s, twin, every) for s in streams]
     bar.update(1)
+    bad = _coarse_reads(feats, streams, p) if coarse else None
+    if bad:
+        bar.close()
+        p2, s2 = train(recordings, profile, false_alerts_per_month, version, folds, jobs, bearing, progress, bands, False)
+        s2["warnings"].insert(0, bad)
+        return p2, s2
     allf = np.concatenate([sf.feats for sf in feats])
     pa = fi.per_axis(len(p["fc_bands"]))
     axes = p["axes"]
