@@ -5,6 +5,7 @@ quantisation and the Cramer-Rao bound."""
 import math
 
 import numpy as np
+import pytest
 
 from firmware_py.dsp import feature_index as fi
 from tests.feature_helpers import device_features
@@ -60,30 +61,22 @@ LOW_BIAS_BINS = _low_bias(4)       # 0.027, from 2.5 bins
 FLOOR_BIAS_BINS = _low_bias(3)     # 0.063, from the floor of 2 bins: the image 2f - 1 = 3 bins away
 
 
-def test_lone_tone_down_to_two_and_a_half_bins_within_the_derived_bound():
-    # 100 tones from 15.7 to 20.5 Hz (2.51 to 3.3 bins), a speed range of 15.7-30 Hz: a 4-pole
-    # motor on a drive at 35 Hz turns at about 17 Hz. Still well inside the issue's tenth of a bin.
+@pytest.mark.parametrize("f_lo, f_hi, search_hi, bound", [
+    # 2.51 to 3.3 bins, searched 15.7-30 Hz: a 4-pole motor on a drive at 35 Hz turns at about 17 Hz
+    (15.7, 20.5, 30.0, LOW_BIAS_BINS),
+    # 2.0 to 2.51 bins, searched 12.5-25 Hz: a 6-pole motor at 40 Hz turns at about 13 Hz; the 1x
+    # peak search is cut to start at bin 1 there (dsp/speed.py)
+    (12.5, 15.7, 25.0, FLOOR_BIAS_BINS),
+], ids=["from-2.5-bins", "from-2-bins"])
+def test_lone_tone_below_three_bins_within_the_derived_bound(f_lo, f_hi, search_hi, bound):
+    # 100 tones across the span, each its own window; still inside the issue's tenth of a bin
     t = np.arange(N) / FS
-    fr = np.linspace(15.7, 20.5, 100)
+    fr = np.linspace(f_lo, f_hi, 100)
     x = np.concatenate([np.round(20000 * np.sin(2 * np.pi * f * t + 0.7 * f)) for f in fr])
-    est, conf = _speed(x.astype(np.int16), lo=15.7, hi=30.0)
+    est, conf = _speed(x.astype(np.int16), lo=f_lo, hi=search_hi)
     err = np.abs(est - fr) / BIN
-    assert err.max() <= LOW_BIAS_BINS, err.max()
-    assert LOW_BIAS_BINS < 0.1
-    assert conf.min() >= 240
-
-
-def test_lone_tone_from_the_floor_of_two_bins_within_the_derived_bound():
-    # 100 tones from 12.5 to 15.7 Hz (2.0 to 2.51 bins), a speed range of 12.5-25 Hz: a 6-pole
-    # motor on a drive at 40 Hz turns at about 13 Hz. The 1x peak search is cut to start at bin 1
-    # there (dsp/speed.py); the bound is still under the issue's tenth of a bin.
-    t = np.arange(N) / FS
-    fr = np.linspace(12.5, 15.7, 100)
-    x = np.concatenate([np.round(20000 * np.sin(2 * np.pi * f * t + 0.7 * f)) for f in fr])
-    est, conf = _speed(x.astype(np.int16), lo=12.5, hi=25.0)
-    err = np.abs(est - fr) / BIN
-    assert err.max() <= FLOOR_BIAS_BINS, err.max()
-    assert FLOOR_BIAS_BINS < 0.1
+    assert err.max() <= bound, err.max()
+    assert bound < 0.1
     assert conf.min() >= 240
 
 
