@@ -66,6 +66,7 @@ from host_tools.twin.replay import (
 FOLDS = 3                 # held-out blocks of recordings (each model is fitted on the others)
 ALARM_RATE_RATIO = 10.0   # false alarms aimed 10 times rarer than false alerts
 OCTAVE_SAFE = 1.95        # widest speed search, top over bottom: under an octave (dsp/speed.py)
+MIN_MARGIN = 0.03         # least speed margin each side: slip and a set-point trim
 DC_MARGIN_G = 0.25        # least half-width of the healthy DC range (g): tilt or a loose mount, not drift
 MIN_MODE_WINDOWS = 30     # a mode with fewer training windows is thinly supported
 MIN_WINDOWS = 50          # fewer running healthy windows cannot support a baseline and modes
@@ -353,14 +354,16 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
                         "steady tolerance wider; a longer window would resolve them")
     if rpm and hi_hz >= OCTAVE_SAFE * lo_hz:
         # a search wider than an octave can take a strong line for the 2x of a shaft at half its
-        # speed (dsp/speed.py): the margins shrink, evenly, until it is 1.95 x at most
+        # speed (dsp/speed.py): the margins shrink, evenly, until it is 1.95 x at most, unless
+        # that leaves a duty within MIN_MARGIN of an end, where its windows would read the range
         f_hz = max(rpm) / 60.0
-        m = max((OCTAVE_SAFE * slowest_hz - f_hz) / (OCTAVE_SAFE * slowest_hz + f_hz), 0.0)
-        lo_hz, hi_hz = max(slowest_hz * (1 - m), lo_hz), f_hz * (1 + m)
-        why_speed += f"; margins cut to {100 * m:.0f} % to keep the search within an octave"
-        if m < 0.03:
-            warnings.append("the duty speeds span nearly an octave: the speed search has little margin, and a strong 2x "
-                            "line may be taken for the 1x of half the speed")
+        m = (OCTAVE_SAFE * slowest_hz - f_hz) / (OCTAVE_SAFE * slowest_hz + f_hz)
+        if m >= MIN_MARGIN:
+            lo_hz, hi_hz = max(slowest_hz * (1 - m), lo_hz), f_hz * (1 + m)
+            why_speed += f"; margins cut to {100 * m:.0f} % to keep the search within an octave"
+        else:
+            warnings.append("the duty speeds span nearly an octave or more: the speed search does too, and a strong "
+                            "line may be taken for the 2x of a shaft at half its speed")
     hi_hz = min(hi_hz, fs / 8.0)   # 3x must stay well inside the spectrum
     vanes = sorted({int(r.vane_count) for s in streams for r in s if r.vane_count})
     vane = vanes[0] if len(vanes) == 1 else 0
