@@ -313,6 +313,10 @@ def test_speed_search_keeps_every_duty_inside_and_stays_under_an_octave():
     assert hi < 2 * lo
     assert lo < 890 / 60 * 0.95 and hi > 1480 / 60 * 1.05      # each duty well inside (5 %+)
     assert "within an octave" in why
+    # duties themselves nearly an octave apart (745-1480 r/min) keep the margins: narrowed to
+    # under 1.95 x, the top duty would sit at the end of the search and read the range
+    lo, hi, why, warns = _search_hz([745.0, 1480.0])
+    assert hi > 1480 / 60 * 1.03 and any("nearly an octave" in w for w in warns)
     # 1000-1520 r/min: the margin stops at 2.5 bins (16.5 Hz at 512 samples and 3200 Hz), where the
     # 1x and 2x main lobes (+-2 bins, Hann; common practice) share one bin at most
     lo, hi, why, warns = _search_hz([1000.0, 1520.0])
