@@ -67,6 +67,8 @@ FOLDS = 3                 # held-out blocks of recordings (each model is fitted 
 ALARM_RATE_RATIO = 10.0   # false alarms aimed 10 times rarer than false alerts
 OCTAVE_SAFE = 1.95        # widest speed search, top over bottom: under an octave (dsp/speed.py)
 MIN_MARGIN = 0.03         # least speed margin each side: slip and a set-point trim
+COARSE_READ_TOL = 0.10    # a duty under 2.5 bins keeps the search there if its estimate is within
+COARSE_READ_SHARE = 0.90  # 10 % of its sidecar speed in 9 windows of 10 (duties lie 15-25 % apart)
 DC_MARGIN_G = 0.25        # least half-width of the healthy DC range (g): tilt or a loose mount, not drift
 MIN_MODE_WINDOWS = 30     # a mode with fewer training windows is thinly supported
 MIN_WINDOWS = 50          # fewer running healthy windows cannot support a baseline and modes
@@ -422,10 +424,6 @@ def _op_of(sf: StreamFeatures, params: dict) -> tuple[np.ndarray, np.ndarray, np
     rows = np.arange(len(best))
     vel = sf.feats[:, fi.F_VEL::pa][:, :axes].max(1)
     return sp[rows, best] / 256.0, conf[rows, best].astype(float), np.log2(np.maximum(vel, 1))
-
-
-COARSE_READ_TOL = 0.10    # a coarse duty's estimate within 10 % of its sidecar speed ...
-COARSE_READ_SHARE = 0.90  # ... in 9 windows of 10: drive duties usually lie 15-25 % apart
 
 
 def _coarse_reads(feats: list[StreamFeatures], streams: list[list[Recording]], p: dict) -> str | None:
