@@ -311,6 +311,12 @@ def _mode_table(feats: np.ndarray, modes: np.ndarray, k: int, params: dict, scal
     return out
 
 
+def _fine_hz(fs: float, n: int) -> float:
+    """The lowest speed searched when no duty turns slower: 2.5 bins (speed.FINE_Q2) rounded up to
+    the next whole Hz plus 0.5, Hz."""
+    return math.ceil(speed.FINE_Q2 / 4 * fs / n) + 0.5
+
+
 def _feature_options(streams: list[list[Recording]], base: dict, bearing: BearingGeometry | None,
                      warnings: list[str], coarse: bool = True) -> tuple[dict, dict]:
     """fc_ keys of the speed, order and envelope features, and why each was chosen.
@@ -331,15 +337,12 @@ def _feature_options(streams: list[list[Recording]], base: dict, bearing: Bearin
         warnings.append("no recording states its rpm: the speed search runs over 10-60 Hz; give the rpm in the sidecars")
     # The estimator reads a 1x from 2 bins up, finely from 2.5 (dsp/speed.py: there the 1x and 2x
     # lobes share one bin at most). The margin stops at 2.5 bins unless a duty turns slower.
-    fine_hz = math.ceil(speed.FINE_Q2 / 4 * fs / n) + 0.5
+    fine_hz = _fine_hz(fs, n)
     floor_hz = math.ceil(speed.MIN_Q2 * fs / n) / 4.0
     slowest_hz = min(rpm) / 60.0 if rpm else lo_hz
-    if lo_hz < fine_hz <= slowest_hz:
-        why_speed += f"; the margin cut at {fine_hz:g} Hz, where the window still tells the 1x from the 2x line"
-        lo_hz = fine_hz
-        hi_hz = max(hi_hz, fine_hz * 1.2)
-    elif lo_hz < fine_hz and not coarse:
-        why_speed += f"; raised to {fine_hz:g} Hz: the slower duties read their speed too coarsely under it"
+    if lo_hz < fine_hz and (fine_hz <= slowest_hz or not coarse):
+        why_speed += (f"; the margin cut at {fine_hz:g} Hz, where the window still tells the 1x from the 2x line"
+                      if coarse else f"; raised to {fine_hz:g} Hz: the slower duties read their speed too coarsely under it")
         lo_hz = fine_hz
         hi_hz = max(hi_hz, fine_hz * 1.2)
     elif lo_hz < floor_hz:
@@ -432,7 +435,7 @@ def _coarse_reads(feats: list[StreamFeatures], streams: list[list[Recording]], p
     not. Under 2.5 bins the 1x and 2x lobes overlap (dsp/speed.py): on some pumps the estimate
     then jumps to another line, which would merge the operating points and widen the steady
     tolerance for every speed; training then keeps the search at 2.5 bins, as for a faster pump."""
-    fine_hz = speed.FINE_Q2 / 4 * p["fs_hz"] / p["n"]
+    fine_hz = _fine_hz(p["fs_hz"], p["n"])
     if p["fc_speed_lo_q8"] / 256.0 >= fine_hz:
         return None
     sp = np.concatenate([_op_of(sf, p)[0] for sf in feats])
