@@ -429,6 +429,11 @@ def _op_of(sf: StreamFeatures, params: dict) -> tuple[np.ndarray, np.ndarray, np
     return sp[rows, best] / 256.0, conf[rows, best].astype(float), np.log2(np.maximum(vel, 1))
 
 
+def _window_rpm(recs: list[Recording], sf: StreamFeatures) -> np.ndarray:
+    """Each window's sidecar rpm (the recording it ends in), nan where the sidecar gives none."""
+    return np.array([np.nan if r.rpm is None else r.rpm for r in recs])[sf.rec]
+
+
 def _coarse_reads(feats: list[StreamFeatures], streams: list[list[Recording]], p: dict) -> str | None:
     """None if every duty under 2.5 bins (sidecar rpm) reads its speed within COARSE_READ_TOL of
     the sidecar in COARSE_READ_SHARE of its windows, or the warning naming the first that does
@@ -439,7 +444,7 @@ def _coarse_reads(feats: list[StreamFeatures], streams: list[list[Recording]], p
     if p["fc_speed_lo_q8"] / 256.0 >= fine_hz:
         return None
     sp = np.concatenate([_op_of(sf, p)[0] for sf in feats])
-    rpm = np.concatenate([np.array([r.rpm or 0.0 for r in s])[sf.rec] for s, sf in zip(streams, feats)])
+    rpm = np.concatenate([_window_rpm(s, sf) for s, sf in zip(streams, feats)])
     for r in sorted(set(rpm[(rpm > 0) & (rpm / 60.0 < fine_hz)].tolist())):
         est = sp[rpm == r]
         share = float(np.mean(np.abs(est - r / 60.0) <= COARSE_READ_TOL * r / 60.0))
@@ -463,7 +468,7 @@ def _steadiness(feats: list[StreamFeatures], streams: list[list[Recording]], p: 
     h = span // 2
     sp_all, conf_all, spread, fall = [], [], [], []
     for sf, recs in zip(feats, streams):
-        rpm = np.array([np.nan if r.rpm is None else r.rpm for r in recs])[sf.rec]
+        rpm = _window_rpm(recs, sf)
         sp, conf, lv = _op_of(sf, p)
         # an estimate pinned at an end of the search range is the range, not the shaft (a shaft
         # slower than the window resolves): it would set the tolerance for every other speed
@@ -778,7 +783,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
             warnings.append(f"axis {axis_names[a]}: training windows hold runs of identical or zero samples longer than "
                             "the sensor's noise allows (a dropout in the training data?)")
     bb = allf[:, fi.F_VEL::pa][:, :axes].max(1).astype(np.float64)
-    rpm = np.concatenate([np.array([np.nan if r.rpm is None else r.rpm for r in s])[sf.rec] for s, sf in zip(streams, feats)])
+    rpm = np.concatenate([_window_rpm(s, sf) for s, sf in zip(streams, feats)])
     idle, idle_rule, w = _idle_floor(bb, rpm, scale)
     warnings += w
     p = _with(p, det_dc_lo_q8=dc_lo, det_dc_hi_q8=dc_hi, det_clip_max=0, det_idle_vel_q16=idle,
