@@ -64,7 +64,7 @@ def footprint_bytes(n, axes, ring_windows, n_bands):
     about 16 bytes each, come on top), the envelope's buffers included whether or not a set uses
     them. Used by board profiles to check the heap budget."""
     m = n >> 1
-    tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * 257 + 3 * (m + 1)   # trig, hann, pos, log2, vel
+    tables_b = 2 * 4 * (m + 1) + 2 * n + 2 * n + 2 * tables.LOG2_N + 3 * (m + 1)   # trig, hann, pos, log2, vel
     tw_b = fft.twiddle_bytes(m)                                          # radix-4 twiddles
     work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
     work_b += 4 * _S_LEN + 4 * n_bands                                   # window sums, band bins

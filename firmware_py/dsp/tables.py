@@ -11,6 +11,7 @@ import array
 # pi * 2**60, rounded down (hex digits of pi: 3.243F6A8885A308D3...; checked by a Machin-formula test)
 PI_Q60 = 0x3243F6A8885A308D
 _P = 60                      # working precision of the trig series, fraction bits
+LOG2_N = 257                 # entries of log2_table(), array('H'): i = 0..256
 
 
 def _isqrt_big(n):
@@ -111,9 +112,9 @@ def bitrev_positions(n):
 
 def log2_table():
     """log2(1 + i/256) for i = 0..256, Q15 in array('H'), by the bit-by-bit squaring method."""
-    t = array.array('H', bytes(2 * 257))
+    t = array.array('H', bytes(2 * LOG2_N))
     p = 48
-    for i in range(257):
+    for i in range(LOG2_N):
         y = (256 + i) << (p - 8)             # mantissa in [1, 2], Q48
         r = 0
         if y >= 2 << p:                      # i == 256: log2(2) == 1
