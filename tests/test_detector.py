@@ -7,7 +7,7 @@ import pytest
 from scipy import integrate, stats
 
 import firmware_py  # noqa: F401
-from firmware_py.detect import alarm as al
+from firmware_py.detect import alarm as al, event_ring
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import detector as dt
 from firmware_py.detect.detector import Detector, default_params
@@ -478,6 +478,14 @@ def test_event_ring_overwrites_the_oldest():
     ev = events(det)
     assert [e[0] for e in ev] == [6, 7, 8, 9]
     assert [e[2] for e in ev] == [NO, N, NO, N]
+
+
+def test_event_ring_is_at_most_cap_max_events():
+    # det_event_n sizes 7 int arrays, so board.memory_need counts the ring at CAP_MAX events
+    assert len(Detector(params(det_event_n=event_ring.CAP_MAX)).events.t) == event_ring.CAP_MAX
+    for n in (0, event_ring.CAP_MAX + 1, 4096):
+        with pytest.raises(ValueError, match="det_event_n must be an int in \\[1, 256\\]"):
+            Detector(params(det_event_n=n))
 
 
 def test_missing_parameter_is_refused():

@@ -37,6 +37,7 @@ API
     det.events         EventRing (firmware_py/detect/event_ring.py): i = det.events.pop() -> slot or -1;
                        read det.events.t[i], old[i], new[i], reason[i], mode[i], feat[i], score_q8[i]
     det.export()       the learned model as parameter keys (allocates; not for the window path)
+    footprint_bytes(axes)  heap bytes of a Detector's arrays for the largest set (board budgets)
     States and reasons: firmware_py/detect/alarm.py (STATE_NAMES, REASON_NAMES).
 """
 from array import array
@@ -44,10 +45,11 @@ from micropython import const
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import alarm as al
 from firmware_py.detect.alarm import Alarm, windows_for, SPAN_MAX
+from firmware_py.detect import event_ring, modes, welford
 from firmware_py.detect.event_ring import EventRing
 from firmware_py.detect.iso_zones import zone_of, bounds_in_vel_units, ZONE_C
 from firmware_py.detect.modes import ModeModel, KMAX, DMAX, is_log_field, transform, clamp
-from firmware_py.dsp.tables import log2_table
+from firmware_py.dsp.tables import log2_table, LOG2_N
 from firmware_py.detect.welford import Welford, N_MAX
 from firmware_py.dsp.fixmath import sqrt_pow2, log2_q8
 
@@ -120,7 +122,7 @@ PARAM_KEYS = (
     "det_learn_alarm_q8",   # learning: alarm threshold = alert threshold * this, Q8
     "det_drift_shift",      # drift: step 2**-shift per normal window; 0 off
     "det_drift_max_q8",     # drift: bound from the trained mean, Q8 spreads
-    "det_event_n",          # capacity of the event ring
+    "det_event_n",          # capacity of the event ring, events (1..event_ring.CAP_MAX)
 )
 
 # keys added after the first sets: a set without them reads 0 (the slow channel off), as before;
@@ -346,7 +348,7 @@ class Detector:
         self.alarm_ratio_q8 = _int(p, "det_learn_alarm_q8", 256, 1 << 12)
         self.drift_shift = _int(p, "det_drift_shift", 0, 20)
         self.drift_max_q8 = _int(p, "det_drift_max_q8", 0, 1 << 10)
-        self.events = EventRing(_int(p, "det_event_n", 1, 4096))
+        self.events = EventRing(_int(p, "det_event_n", 1, event_ring.CAP_MAX))
         self.tab = log2_table()
         self.u = array("i", bytes(4 * d))
         self.z = array("i", bytes(4 * d))
@@ -1059,3 +1061,25 @@ class Detector:
             "det_thr_alert_q8": self.thr_alert_q8, "det_thr_alarm_q8": self.thr_alarm_q8,
             "det_idle_vel_q16": self.idle_vel_q16,
         }
+
+
+def footprint_bytes(axes):
+    """Heap bytes the arrays of a Detector on `axes` axes (det_axes, 1 to 8) take for the largest
+    parameter set it accepts (array payloads; object headers and the instances' attribute tables come on top, and
+    board.memory_need allows for them): d = DMAX scored features, KMAX modes, an evidence span of
+    SPAN_MAX windows (one byte each) and an event ring of event_ring.CAP_MAX events. Array by
+    array as Detector.__init__ makes them, so a smaller set takes less. Used by board profiles
+    to check the heap budget."""
+    d = DMAX
+    # per scored feature, 6 int arrays (idx, mean0_q4, sgain_q8, u, z, ew_acc) and 3 byte
+    # arrays (logf, ord_axis, held)
+    feat_b = 4 * 6 * d + 3 * d
+    model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
+    learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
+        + welford.footprint_bytes(KMAX)           # wb, wm, lsp
+    op_b = 3 * 4 * 2 * KMAX                       # op_speed_q8, op_load_q8, lop_q8: lo, hi a mode
+    axis_b = 5 * 4 * axes                         # dc_lo, dc_hi, stuck, zero, knock_crest
+    steady_b = 3 * 4 * _STEADY_MAX                # ring_speed_q8, ring_level_q8, sort_q8
+    misc_b = 4 * 3 + 2 * LOG2_N + 4 * len(WHY_NAMES)   # iso bounds, log2 table, n_why
+    return (feat_b + model_b + learn_b + op_b + axis_b + steady_b + misc_b + SPAN_MAX
+            + event_ring.footprint_bytes(event_ring.CAP_MAX))

@@ -1,8 +1,19 @@
 """Fixed-size ring of detector events (state transitions), preallocated arrays, no allocation.
 When the ring is full the oldest event is overwritten and `lost` counts it.
 
-Entry points: EventRing."""
+Entry points: CAP_MAX, footprint_bytes(), EventRing."""
 from array import array
+from micropython import const
+
+# Most events a ring holds (det_event_n), in events of 7 ints (28 bytes each): 7 kB at most.
+# The gateway reads only the newest event (for its capture) and the host's replay drains the
+# ring after every window, so a longer ring buys no reader anything; 8 times the default of 32.
+CAP_MAX = const(256)
+
+
+def footprint_bytes(cap):
+    """Heap bytes of the arrays of EventRing(cap): 7 ints an event (object headers are extra)."""
+    return 7 * 4 * cap
 
 
 class EventRing:

@@ -10,7 +10,7 @@ Scales (all ints):
   t_q8[j]: the per-feature departures of the last distance(), each within [-768, 32767]
   terms below the mode count at most 3 spreads (ModeModel.distance)
 
-Entry points: is_log_field(), ModeModel, clamp(), transform()."""
+Entry points: is_log_field(), footprint_bytes(), ModeModel, clamp(), transform()."""
 from array import array
 from micropython import const
 from firmware_py.dsp import feature_index as fi
@@ -29,6 +29,12 @@ def is_log_field(field):
     kurtosis, velocity); band powers are log2 already; mean and clip count stay linear."""
     return field == fi.F_RMS or field == fi.F_PEAK or field == fi.F_CREST or \
         field == fi.F_KURT or field == fi.F_VEL
+
+
+def footprint_bytes(d):
+    """Heap bytes of the arrays of ModeModel(d): mean_q4, sd_q4 and t_q8 of d ints, c_q8 and s_q8
+    of d ints for each of KMAX modes (object headers are extra)."""
+    return 4 * d * (3 + 2 * KMAX)
 
 
 class ModeModel:

@@ -2,13 +2,18 @@
 integer form: allocation-free and with no growing sums, so a large constant offset costs no
 precision (the update works on differences from the running mean only).
 
-Entry points: Welford."""
+Entry points: footprint_bytes(), Welford."""
 from array import array
 from micropython import const
 
 IN_LIM = const(8191)     # inputs must satisfy |x| <= IN_LIM, so |x - mean| < 2**14
 N_MAX = const(65535)     # count saturates here: further samples are ignored
 _FQ = const(14)          # fraction bits used for the remainders of the mean
+
+
+def footprint_bytes(ch):
+    """Heap bytes of the arrays of Welford(ch): 5 ints a channel (object headers are extra)."""
+    return 5 * 4 * ch
 
 
 class Welford:
