@@ -19,6 +19,13 @@ _MIN_N = const(64)
 _MAX_N = const(8192)
 _MAX_BANDS = const(32)
 _HEADERS = const(1024)   # object headers of the buffers, about 16 bytes each, on top of payloads
+# The detector's objects on top of its array payloads (detector.footprint_bytes), in bytes: a
+# 16-byte header for each of its arrays and instances (one GC block of a 32-bit port), payloads
+# rounded up to whole blocks, and the instances' attribute tables (8 bytes a slot; the Detector's
+# hundred-odd attributes take 127 slots). tests/test_boards.py counts 2670 bytes for the largest
+# set on 3 axes and measures that within 2 blocks on MicroPython; the rest is margin for the
+# collector's stale pointers and a few attributes more.
+DETECTOR_OBJECTS = const(3072)
 _MAX_EVERY = const(64)
 # The application feeds its 8 s watchdog once per analysed window (app.WDT_MS), so analysed
 # windows must come at least twice that often.
@@ -132,8 +139,10 @@ def check(p):
 
 def memory_need(p):
     """Heap bytes the gateway allocates for this (checked) profile at start: the feature core's
-    buffers (features.footprint_bytes), the driver's bus buffer and read block, and an allowance
-    for object headers."""
+    buffers (features.footprint_bytes), the driver's bus buffer and read block, the detector's
+    arrays for the largest parameter set (detector.footprint_bytes), and allowances for object
+    headers (_HEADERS for the buffers, DETECTOR_OBJECTS for the detector's objects)."""
+    from firmware_py.detect import detector
     from firmware_py.dsp import features
     from firmware_py.drivers import driver_module
     axes = p["axes"]
@@ -143,7 +152,7 @@ def memory_need(p):
         need += drv.footprint_bytes(p["fifo_watermark"], axes)
     else:
         need += 2 * axes * p["fifo_watermark"]      # the virtual sensor's block
-    return need + _HEADERS
+    return need + detector.footprint_bytes(axes) + _HEADERS + DETECTOR_OBJECTS
 
 
 def capture_plan(p):
