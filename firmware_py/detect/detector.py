@@ -350,7 +350,7 @@ class Detector:
         self.drift_max_q8 = _int(p, "det_drift_max_q8", 0, 1 << 10)
         self.events = EventRing(_int(p, "det_event_n", 1, 4096))
         self.tab = log2_table()
-        self.half = HalfLines(axes, self.pa, n, every, self.speed_tol_q12, self.tab)
+        self.half = HalfLines(axes, self.pa, every, self.speed_tol_q12, self.tab)
         self.u = array("i", bytes(4 * d))
         self.z = array("i", bytes(4 * d))
         # per scored feature: the axis whose own 1x estimate its order or envelope line was read

@@ -13,11 +13,23 @@ Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the bins neares
 2.5x of the window's own 1x) of steady windows are collected while the taps stay on the same
 bins; a window that is not steady, or moves a tap to another bin, starts a new block. A full
 block gives, per half order, the mean power of the cells around the line's expected place over
-the mean power of the other cells, in log2; the three are averaged. The blocks' values are
+the mean power of the floor cells, in log2; the three are averaged. The blocks' values are
 averaged as an EWMA with weight 2**-SHIFT. The average counts only once 2**SHIFT blocks have
 entered it since the operating speed last moved by more than the steady tolerance (the floor
 around the lines differs between speeds); until then, and from the first window at a speed that
-far from the average's, the value is UNSET and the detector holds the feature neutral. Integer-only; push() allocates nothing.
+far from the average's, the value is UNSET and the detector holds the feature neutral.
+
+The whole orders leak into every tap through the per-window Hann window's side lobes (about
+-50 dB at 4 bins; a pump's 1x stands 50 dB and more over one bin's noise), and across the block
+they turn at a whole number of cycles per window from each other, so every whole order's leakage
+lands a whole multiple of x1 x every / 2 cycles per window from the line: its nearest images sit
++-ALIAS cells from it, ALIAS = (x1 x every / 2 mod 1) x BLK. Those cells are left out of the
+floor; and where they fall within HALF_WIDTH + ALIAS_WIDTH cells of the line the block cannot
+tell the line from the leakage and says nothing (its value does not enter the average). This is
+the physics of the time base, not a tuning: a 2-pole pump on 50 Hz mains at 512 samples and
+3200 Hz, or a 4-pole one at 1024, runs with x1 / 2 near a whole number of bins, and its half
+orders cannot be read this way there.
+Integer-only; push() allocates nothing.
 
 Scales: taps counts Q8 (|tap| <= 2**24). Each tap's block is shifted so that its largest
 component has its top bit at bit 13, then windowed (Hann, Q15): |t| <= 2**13 per component, and
@@ -27,7 +39,7 @@ and the cells' sum (Parseval: blk * sum |t|**2 / 2**12, from e = sum(|t|**2 >> 7
 2**20, as the Hann weights' squares sum to 3/8 blk) stays under 2**28, as does e * blk.
 Prominence and its average: log2 Q8.
 
-Entry point: HalfLines(axes, pa, n, every, tol_q12, tab); push(f, steady) once per window; cut() when
+Entry point: HalfLines(axes, pa, every, tol_q12, tab); push(f, steady) once per window; cut() when
 the next window will not follow the last; value[a].
 """
 from array import array
@@ -40,33 +52,26 @@ from firmware_py.dsp.half_taps import ODDS, tap_bin
 
 UNSET = const(-16384)          # no average yet (LOG2_ZERO_Q8)
 SHIFT = const(3)               # EWMA weight 2**-3 per block; counts from 8 blocks
-BLOCK_SAMPLES = const(16384)   # a block spans about this many samples (5.1 s at 3200 Hz)
 X1_LIM = const(1 << 20)        # a 1x beyond any window (bins Q8 < n / 2 * 256 <= 2**19)
 TAP_LIM = const(1 << 24)       # half_taps' bound
-BLK_MAX = const(32)
-BLK_MIN = const(8)
+# Analysed windows per block (5.1 s at 512 samples and 3200 Hz). Fewer would leave no floor:
+# the line's 7 cells and the two leakage images' 5 each need 17, and the floor wants as many.
+BLK = const(32)
 HALF_WIDTH = const(3)          # cells each side of the line: the Hann main lobe (2) and 1 for the
 #                                error of the block's mean speed
-
-
-def block_windows(n, every):
-    """Windows per block: BLOCK_SAMPLES / (n * every), within [BLK_MIN, BLK_MAX], a power of 2."""
-    b = BLK_MAX
-    while b > BLK_MIN and b * n * every > BLOCK_SAMPLES:
-        b >>= 1
-    return b
+ALIAS_WIDTH = const(2)         # cells each side of a whole order's image: the Hann main lobe
 
 
 class HalfLines:
     """See the module docstring. tol_q12: the steady speed tolerance (det_speed_tol_q12); tab:
     tables.log2_table() (the detector's own)."""
 
-    def __init__(self, axes, pa, n, every, tol_q12, tab):
+    def __init__(self, axes, pa, every, tol_q12, tab):
         self.axes = axes
         self.pa = pa
         self.every = every
         self.tol_q12 = tol_q12
-        b = self.blk = block_windows(n, every)
+        b = self.blk = BLK
         self.cos_q15, self.sin_q15 = tables.twiddles(b)
         self.hann_q15 = tables.hann(b, self.cos_q15)
         self.tap = array("i", bytes(4 * axes * 6 * b))   # per axis, window, tap: re, im
@@ -138,9 +143,16 @@ class HalfLines:
         """A full block of axis a: its prominence enters the average."""
         b = self.blk
         x1 = self.x1[a] // b                       # the block's mean 1x, bins Q8 (< 2**20)
+        # the whole orders' nearest images: ALIAS Q8 cells each side of the line (x1 * every
+        # mod 2 bins, Q8, times b / 2), the same for the three taps (module docstring)
+        d = (b >> 1) * ((x1 * self.every) % 512)
+        if d > b << 7:
+            d = (b << 8) - d
+        if d <= (HALF_WIDTH + ALIAS_WIDTH) << 8:
+            return                                 # the leakage sits on the line
         s = 0
         for i in range(3):
-            s += self._prominence(a, i, x1)
+            s += self._prominence(a, i, x1, d)
         p = s // 3
         if self.cnt[a] > 0 and self._moved(a, x1):
             self.cnt[a] = 0
@@ -157,10 +169,11 @@ class HalfLines:
         self.cnt[a] = c
         self.value[a] = self.acc[a] >> SHIFT if c >= 1 << SHIFT else UNSET
 
-    def _prominence(self, a, i, x1):
-        """log2 Q8 of (mean cell power within HALF_WIDTH of the line) / (mean of the others)
-        for tap i of axis a's block; x1: the block's mean 1x (bins Q8). Only the line's cells
-        are transformed; the others' total is the block's energy less theirs (Parseval: the
+    def _prominence(self, a, i, x1, d):
+        """log2 Q8 of (mean cell power within HALF_WIDTH of the line) / (mean of the floor
+        cells) for tap i of axis a's block; x1: the block's mean 1x (bins Q8); d: the whole
+        orders' images' distance from the line, Q8 cells. Only the line's and the images' cells
+        are transformed; the floor's total is the block's energy less theirs (Parseval: the
         cells' powers sum to blk times the samples' ones), which is what the floor needs."""
         b = self.blk
         tap = self.tap
@@ -205,13 +218,12 @@ class HalfLines:
         h = b >> 1
         line = 0
         nl = 0
+        side = 0
+        ns = 0
         for c in range(b):
-            d = (c << 8) - c0                      # circular distance to the line, Q8 cells
-            if d < 0:
-                d = -d
-            if d > b << 7:
-                d = (b << 8) - d
-            if d > HALF_WIDTH << 8:
+            on = _dist((c << 8) - c0, b) <= HALF_WIDTH << 8
+            if not on and (_dist((c << 8) - c0 - d, b) > ALIAS_WIDTH << 8
+                           and _dist((c << 8) - c0 + d, b) > ALIAS_WIDTH << 8):
                 continue
             yr = 0
             yi = 0
@@ -227,13 +239,23 @@ class HalfLines:
                 yi += (tr[j] * ci + ti[j] * cr) >> 15
             yr >>= 6                               # |Y| <= 2**13.5 * b / 2: now <= 2**11.6
             yi >>= 6
-            line += yr * yr + yi * yi
-            nl += 1
+            if on:
+                line += yr * yr + yi * yi
+                nl += 1
+            else:
+                side += yr * yr + yi * yi
+                ns += 1
         rest = (e * b) >> 5                        # sum of all cells' (Y >> 6)**2: e * 2**7 * b / 2**12
-        rest -= line
+        rest -= line + side
         if line <= 0:
             line = 1
         if rest <= 0:
             rest = 1
         t = self.tab
-        return (log2_q8(line, t) - log2_q8(nl, t)) - (log2_q8(rest, t) - log2_q8(b - nl, t))
+        return (log2_q8(line, t) - log2_q8(nl, t)) - (log2_q8(rest, t) - log2_q8(b - nl - ns, t))
+
+
+def _dist(v, b):
+    """|v| Q8 cells taken around a circle of b cells (|v| < 2 * b * 256)."""
+    v = v % (b << 8)
+    return (b << 8) - v if v > b << 7 else v

@@ -18,7 +18,7 @@ import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.dsp import feature_index as fi, orders
 from firmware_py.detect import modes as dm
 from firmware_py.detect.detector import CHI_Q8
-from firmware_py.detect.half_lines import HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET, block_windows
+from firmware_py.detect.half_lines import ALIAS_WIDTH, BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
 from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
 from firmware_py.dsp.tables import log2_table
@@ -164,15 +164,17 @@ def half_aside(params: dict, lo_hz: float, hi_hz: float, every: int) -> list[int
     x1 / 2 bins each side (0.5x: 1x; 1.5x: 1x and 2x; 2.5x: 2x and 3x). Within HALF_LEAK_BINS
     they leak into its tap through the Hann window's main lobe and first side lobe, and across
     the block they turn at every x x1 / 2 cycles per window from it: when that lies within the
-    line's cells plus the block window's main lobe (HALF_WIDTH + 2 cells) of a whole number for
-    some speed of the mode, the leakage sits on the line and moves with the speed's fraction of a
-    bin. fit() gives such a prominence the largest spread in that mode, as set_aside does."""
-    b = block_windows(params["n"], every)
+    line's cells plus the block window's main lobe (HALF_WIDTH + ALIAS_WIDTH cells) of a whole
+    number for some speed of the mode, the leakage sits on the line and moves with the speed's
+    fraction of a bin (the device then drops the block, half_lines; so strong a leakage also
+    reaches the line through the block window's side lobes where it is dropped less often). fit()
+    gives such a prominence the largest spread in that mode, as set_aside does."""
+    b = BLK
     lo = lo_hz * params["n"] / params["fs_hz"] / 2
     hi = hi_hz * params["n"] / params["fs_hz"] / 2
     if lo >= HALF_LEAK_BINS:
         return []
-    near = (HALF_WIDTH + 2) / b             # cycles per window
+    near = (HALF_WIDTH + ALIAS_WIDTH) / b   # cycles per window
     a, z = every * lo, every * min(hi, HALF_LEAK_BINS)
     if math.floor(z + near) < math.ceil(a - near):   # no whole number within reach
         return []

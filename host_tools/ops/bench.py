@@ -219,17 +219,17 @@ def _window_fuel(opts: dict) -> float:
 _HALF_BLOCKS = 2
 _HALF = f"""
 import array
-from firmware_py.detect.half_lines import HalfLines, block_windows
+from firmware_py.detect.half_lines import HalfLines, BLK
 from firmware_py.dsp import feature_index as fi
 from firmware_py.dsp.tables import log2_table
 pa = fi.per_axis(0)
-h = HalfLines(1, pa, {N}, 1, 205, log2_table())
-nw = {_HALF_BLOCKS} * block_windows({N}, 1)
+h = HalfLines(1, pa, 1, 205, log2_table())
+nw = {_HALF_BLOCKS} * BLK
 f = array.array('i', bytes(4 * pa * nw))
 seed = 777
 for w in range(nw):
-    f[w * pa + fi.F_TAP_X1] = 1000
-    for i in range(6):
+    f[w * pa + fi.F_TAP_X1] = 1152          # 4.5 bins: the whole orders' images 8 cells from the
+    for i in range(6):                      # lines, so every block transforms all 17 cells
         seed = (seed * 1103515245 + 12345) & 0x3fffffff
         f[w * pa + fi.F_TAP_RE + i] = (seed >> 10) - (1 << 19)
 row = array.array('i', bytes(4 * pa))
@@ -243,9 +243,9 @@ def run(steady):
 
 def _half_fuel() -> float:
     """Fuel of the half-order stage per window (heap locked), blocks closed included."""
-    from firmware_py.detect.half_lines import block_windows
+    from firmware_py.detect.half_lines import BLK
     return _fuel_diff(_HALF + "locked(lambda: run(False))\n", _HALF + "locked(lambda: run(True))\n") / (
-        _HALF_BLOCKS * block_windows(N, 1))
+        _HALF_BLOCKS * BLK)
 
 
 def device_figures() -> dict:
