@@ -13,7 +13,8 @@ def test_bench_json_has_every_figure_and_the_deterministic_ones_hold():
                 "allocs_per_window", "host_msamples_per_s", "host_vs_numpy_rfft_ratio",
                 "train_s_per_hour", "replay_msamples_per_s", "replay_msamples_per_s_2_jobs",
                 "replay_peak_rss_mb", "numpy_rfft_same_windows_s", "replay_vs_numpy_rfft_ratio", "fleet_replay_msamples_per_s_1_worker",
-                "fleet_replay_msamples_per_s_all_cores", "fleet_scaling_ratio"):
+                "fleet_replay_msamples_per_s_all_cores", "fleet_scaling_ratio",
+                "mpy_added_loop_equiv_per_sample_half_orders"):
         assert key in fig
     assert fig["allocs_per_window"] == 0
     assert fig["replay_stream_windows"] == int(2 * 60 * 3200) // 512     # 2 min at 3200 Hz, windows of 512

@@ -128,7 +128,7 @@ def _cpython(body):
 
 @pytest.fixture(scope="module")
 def both():
-    return run_guest(SCENARIO).out[0], _cpython(SCENARIO)[0]
+    return run_guest(SCENARIO, fuel=8_000_000_000).out[0], _cpython(SCENARIO)[0]
 
 
 def test_long_stream_allocates_nothing_on_micropython(both):

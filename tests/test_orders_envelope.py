@@ -84,9 +84,10 @@ def test_order_amplitude_reads_a_tone_mean_square():
 
 
 def _spectrum_only_core():
-    """A FeatureCore whose envelope stage asks for X but does not run (so X stays in buf)."""
-    fc = FeatureCore(N, 1, FS, -32768, 32767)
-    fc.env = types.SimpleNamespace(on=True, run=lambda *args: None)
+    """A FeatureCore with a speed range (so the spectrum stage keeps X for the half-order taps and
+    the envelope) whose envelope stage does not run (so X stays in buf)."""
+    fc = FeatureCore(N, 1, FS, -32768, 32767, speed_lo_q8=20 * 256, speed_hi_q8=60 * 256)
+    fc.env = types.SimpleNamespace(on=False, run=lambda *args: None)
     return fc
 
 
@@ -106,6 +107,29 @@ def test_spectrum_buffer_holds_the_complex_spectrum():
     assert np.abs(got[1:].real - X[1:M].real).max() <= bound
     assert np.abs(got[1:].imag - X[1:M].imag).max() <= bound
     assert abs(b[0] - X[0].real) <= bound and abs(b[1] - X[M].real) <= bound
+
+
+def test_half_order_taps_are_the_spectrum_at_the_nearest_bins():
+    # the taps (firmware_py/dsp/half_taps.py) against numpy.fft.rfft of the same windowed samples
+    # at round(0.5, 1.5, 2.5 x 1x): X * 2**(8 - u), within the per-component bound of the FFT
+    # scaled the same way (u <= 8 here, so the scaling itself is exact)
+    rng = np.random.default_rng(11)
+    for f1 in (43.1, 52.5):
+        x = np.round(_pump(f1, rng)).astype(np.int16)
+        fc = _spectrum_only_core()
+        fc.ring.push(array.array("h", x.tobytes()), N)
+        fc.process()
+        y, u, hann = _normalised(x, fc)
+        assert u <= 8
+        X = np.fft.rfft(y * hann) / M * 2.0 ** (8 - u)
+        f = np.array(fc.feats)
+        x1 = f[fi.F_TAP_X1]
+        assert abs(x1 / 256 * BIN - f1) < 0.1 * BIN          # the window's own 1x placed them
+        bound = _bound_per_component(M) * 2 ** (8 - u)
+        for i, odd in enumerate((1, 3, 5)):
+            k = (odd * x1 + 256) >> 9
+            got = f[fi.F_TAP_RE + 2 * i] + 1j * f[fi.F_TAP_RE + 2 * i + 1]
+            assert abs(got.real - X[k].real) <= bound and abs(got.imag - X[k].imag) <= bound
 
 
 # --- squared-envelope spectrum ----------------------------------------------------------------

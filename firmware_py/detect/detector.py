@@ -32,6 +32,7 @@ API
       W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8), det.load_q8 (log2 Q8): the operating point;
       det.pushed (1 if the window added to the persistence evidence) and det.resets (times that
       evidence was forgotten).
+    det.gap()          the next window does not follow the last (lost samples, a recording gap)
     det.ack(t_s)       acknowledge a latched alarm; det.learn(t_s) start learning (False if
                        refused: alarm latched or sensor fault); det.stop_learning(t_s) abandon it
     det.events         EventRing (firmware_py/detect/event_ring.py): i = det.events.pop() -> slot or -1;
@@ -45,8 +46,9 @@ from micropython import const
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import alarm as al
 from firmware_py.detect.alarm import Alarm, windows_for, SPAN_MAX
-from firmware_py.detect import event_ring, modes, welford
+from firmware_py.detect import event_ring, half_lines, modes, welford
 from firmware_py.detect.event_ring import EventRing
+from firmware_py.detect.half_lines import HalfLines, UNSET
 from firmware_py.detect.iso_zones import zone_of, bounds_in_vel_units, ZONE_C
 from firmware_py.detect.modes import ModeModel, KMAX, DMAX, is_log_field, transform, clamp
 from firmware_py.dsp.tables import log2_table, LOG2_N
@@ -173,13 +175,13 @@ _KNOCK_RATIO_DEFAULT = const(2048)
 
 def default_feature_list(axes, n_bands):
     """Scored features by default: every field of every axis but the mean, the clip count and the
-    sensor-run, speed, order and envelope fields (F_STUCK .. F_ENV_FTF), which a trained set
-    chooses for itself."""
+    sensor-run, speed, order, tap, half-order and envelope fields (F_STUCK .. F_HALF), which a
+    trained set chooses for itself."""
     pa = fi.per_axis(n_bands)
     out = []
     for a in range(axes):
         for f in range(pa):
-            if f != fi.F_MEAN and f != fi.F_CLIP and not fi.F_STUCK <= f <= fi.F_ENV_FTF:
+            if f != fi.F_MEAN and f != fi.F_CLIP and not fi.F_STUCK <= f <= fi.F_HALF:
                 out.append(a * pa + f)
     return out
 
@@ -350,6 +352,7 @@ class Detector:
         self.drift_max_q8 = _int(p, "det_drift_max_q8", 0, 1 << 10)
         self.events = EventRing(_int(p, "det_event_n", 1, event_ring.CAP_MAX))
         self.tab = log2_table()
+        self.half = HalfLines(axes, self.pa, every, self.speed_tol_q12, self.tab)
         self.u = array("i", bytes(4 * d))
         self.z = array("i", bytes(4 * d))
         # per scored feature: the axis whose own 1x estimate its order or envelope line was read
@@ -362,9 +365,13 @@ class Detector:
         self.ew_acc = array("i", bytes(4 * d))
         self.ew_mode = -1                         # the mode the EWMA belongs to
         self.s_drive = 0                          # j of the largest EWMA (smax_q8)
+        # per scored feature: the axis of a half-order prominence (F_HALF), which this detector
+        # keeps itself (self.half), else -1 (see _transform)
+        self.half_axis = array("b", bytes(d))
         for j in range(d):
             fj = self.idx[j] % self.pa
             self.ord_axis[j] = self.idx[j] // self.pa if fi.F_ORD_HALF <= fj <= fi.F_ENV_FTF else -1
+            self.half_axis[j] = self.idx[j] // self.pa if fj == fi.F_HALF else -1
         self.wb = Welford(d)                      # learning phase 1: baseline
         self.wm = Welford(d * KMAX)               # learning phase 2: per-mode statistics
         self.lop_q8 = array("i", bytes(8 * KMAX))   # learning: per mode speed lo, hi, Hz Q8
@@ -463,6 +470,11 @@ class Detector:
             self.resets += 1
 
     # -- commands -------------------------------------------------------------------------------
+    def gap(self):
+        """The next window does not follow the last one (samples lost; a gap between recordings
+        at the desk): what the detector follows over consecutive windows starts again."""
+        self.half.cut()
+
     def ack(self, t_s):
         """Acknowledge a latched alarm. Returns the state."""
         self.t = t_s
@@ -700,7 +712,10 @@ class Detector:
         # sensor health comes first: a bad window is never scored. A dropout run or a knock is
         # conclusive on its own (limits set for a false call once in a thousand months), so it
         # enters sensor_fault at once; the other checks need fault_k windows in a row.
+        if dropped:
+            self.half.cut()
         if self._sensor_bad(f, dropped):
+            self.half.push(f, False)
             self._count(W_FAULT)
             self.fault_good = 0
             if self.fault_reason == al.R_DROPOUT or self.fault_reason == al.R_COUPLING:
@@ -720,6 +735,7 @@ class Detector:
             # fault (a rattling mount, a loose connector) returns within seconds, and between its
             # bursts the signal is still the faulty sensor's
             self._count(W_FAULT)
+            self.half.push(f, False)
             if self.fault_good < _BIG:
                 self.fault_good += 1
             if self.fault_good < self.fault_clear_w:
@@ -738,6 +754,7 @@ class Detector:
                 vf = a * pa + fi.F_VEL
         self.bb_vel_q16 = vel
         if vel < self.idle_vel_q16:
+            self.half.push(f, False)
             self._count(W_IDLE)
             self.running = False
             self._restart()
@@ -758,6 +775,7 @@ class Detector:
                 self.steady_w += 1
         else:
             self.steady_w = 0
+        self.half.push(f, st == W_SCORED and self.steady_w >= self.hold_w)
         if self.starting:
             if self.steady_w < self.hold_w and self.run_w < self.hold_max_w:
                 self._count(W_HOLD if st == W_SCORED else st)
@@ -779,7 +797,7 @@ class Detector:
                 m = self._choose_mode()
                 why = W_SCORED if m >= 0 else W_OFF_POINT
             else:
-                transform(f, self.idx, self.logf, self.u, self.d, self.tab)
+                self._transform(f)
                 self.model.standardise(self.u, self.z)
                 m = self.model.nearest(self.z)
         if why == W_OFF_POINT or why == W_NO_SPEED:
@@ -830,7 +848,7 @@ class Detector:
         (zlam, slam: docs/detector.md, Score). zmax, smax <= 32767 and zlam, slam <= 4096, so
         the products stay < 2**27."""
         md = self.model
-        transform(f, self.idx, self.logf, self.u, self.d, self.tab)
+        self._transform(f)
         md.standardise(self.u, self.z)
         if self.op_on:
             self._mask_lines(f, m)
@@ -846,6 +864,17 @@ class Detector:
         if sc > self.score_q8:
             self.score_q8 = sc
             self.feat = self.idx[self.s_drive]
+
+    def _transform(self, f):
+        """u from the window's features (modes.transform), the half-order prominences from this
+        detector's own average (half_lines.HalfLines): 0 (no line over the floor) while it is
+        unset, which _mask_lines then holds neutral when scoring."""
+        transform(f, self.idx, self.logf, self.u, self.d, self.tab)
+        for j in range(self.d):
+            a = self.half_axis[j]
+            if a >= 0:
+                v = self.half.value[a]
+                self.u[j] = v if v != UNSET else 0
 
     def _slow(self, m):
         """The slow channel: each feature's departure t_j (md.t_q8, within [-768, 32767] Q8)
@@ -888,7 +917,8 @@ class Detector:
         steady tolerance from the window's operating speed were read at the wrong places (each
         axis reads its lines around its own estimate, and an axis where the rotating 1x is weak,
         the axial one, misses it often): they carry no evidence, so they are set to the mode's
-        centre (a neutral term). Same rule in training (host_tools/fit/modes_fit.line_mask).
+        centre (a neutral term). So is a half-order prominence with no average yet (UNSET). Same
+        rule in training (host_tools/fit/modes_fit.line_mask).
         op * tol_q12 < 2**17 * 2**12 = 2**29."""
         op = self.speed_q8
         tol = (self.speed_tol_q12 * op) >> 12
@@ -897,6 +927,10 @@ class Detector:
         for j in range(self.d):
             a = self.ord_axis[j]
             self.held[j] = 0
+            h = self.half_axis[j]
+            if h >= 0 and self.half.value[h] == UNSET:
+                self.z[j] = self.model.c_q8[b + j]
+                self.held[j] = 1
             if a >= 0:
                 e = f[a * pa + fi.F_SPEED] - op
                 if e > tol or e < -tol:
@@ -934,7 +968,7 @@ class Detector:
             self._count(W_HOLD if st == W_SCORED else st)
             return
         self._count(W_LEARN)
-        transform(f, self.idx, self.logf, self.u, self.d, self.tab)
+        self._transform(f)
         d = self.d
         if self.phase == 0:
             for j in range(d):
@@ -1071,9 +1105,9 @@ def footprint_bytes(axes):
     array as Detector.__init__ makes them, so a smaller set takes less. Used by board profiles
     to check the heap budget."""
     d = DMAX
-    # per scored feature, 6 int arrays (idx, mean0_q4, sgain_q8, u, z, ew_acc) and 3 byte
-    # arrays (logf, ord_axis, held)
-    feat_b = 4 * 6 * d + 3 * d
+    # per scored feature, 6 int arrays (idx, mean0_q4, sgain_q8, u, z, ew_acc) and 4 byte
+    # arrays (logf, ord_axis, held, half_axis)
+    feat_b = 4 * 6 * d + 4 * d
     model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
     learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
         + welford.footprint_bytes(KMAX)           # wb, wm, lsp
@@ -1082,4 +1116,4 @@ def footprint_bytes(axes):
     steady_b = 3 * 4 * _STEADY_MAX                # ring_speed_q8, ring_level_q8, sort_q8
     misc_b = 4 * 3 + 2 * LOG2_N + 4 * len(WHY_NAMES)   # iso bounds, log2 table, n_why
     return (feat_b + model_b + learn_b + op_b + axis_b + steady_b + misc_b + SPAN_MAX
-            + event_ring.footprint_bytes(event_ring.CAP_MAX))
+            + event_ring.footprint_bytes(event_ring.CAP_MAX) + half_lines.footprint_bytes(axes))

@@ -42,8 +42,20 @@ F_ENV_BPFO = const(16)   # outer-race ball pass
 F_ENV_BPFI = const(17)   # inner-race ball pass
 F_ENV_BSF = const(18)    # ball spin (1x BSF: the line at 2x BSF is read by nothing here)
 F_ENV_FTF = const(19)    # cage (fundamental train)
-F_BAND0 = const(20)  # first band power: log2 of the band's mean square in counts**2, Q8
-N_FIXED = const(20)  # fields before the band powers
+# Half-order taps (firmware_py/dsp/half_taps.py): the window's complex spectrum at the bins
+# nearest 0.5x, 1.5x and 2.5x of its own 1x estimate, for the detector to follow over consecutive
+# windows (firmware_py/detect/half_lines.py). Value = X[k] * 2**8 with X[k] the DFT of the
+# Hann-windowed (Q15 table), mean-removed counts divided by n/2, so counts Q8 whatever the
+# window's gain; |value| <= 2**24. All 0 when the window has no 1x estimate.
+F_TAP_X1 = const(20)     # the 1x the taps were placed by, bins Q8 (0: no taps)
+F_TAP_RE = const(21)     # re, im of the 0.5x tap; 1.5x at +2, 2.5x at +4
+# Half-order prominence, log2 Q8 (1.0 = 256): over a block of consecutive steady windows, the
+# power of the 0.5x, 1.5x and 2.5x lines against the floor around them, averaged over blocks. The
+# detector writes it from its own state (firmware_py/detect/half_lines.py); in the feature
+# vector the core leaves LOG2_ZERO_Q8 (the window alone does not know it).
+F_HALF = const(27)
+F_BAND0 = const(28)  # first band power: log2 of the band's mean square in counts**2, Q8
+N_FIXED = const(28)  # fields before the band powers
 
 # Log2 value stored for a band with no power at all (log2 of zero); -64 in Q8.
 LOG2_ZERO_Q8 = const(-16384)

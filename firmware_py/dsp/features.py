@@ -4,8 +4,8 @@ allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fi
 
 Per window and axis: one pass over the samples (statistics, stuck and zero runs: _scan), a
 second that normalises, windows and stores them bit-reversed (_shape), the FFT and power spectrum (fft), the moments and band powers (_finish),
-then the shaft speed (speed), the order amplitudes (orders) and the squared-envelope lines
-(envelope), each of which reads the spectrum the FFT left.
+then the shaft speed (speed), the order amplitudes (orders), the half-order taps (half_taps) and
+the squared-envelope lines (envelope), each of which reads the spectrum the FFT left.
 
 Entry points: check_config(), footprint_bytes(), FeatureCore. The per-sample passes (_scan,
 _shape), the FFT stages and the band powers (_bands) are viper-compiled on the boards
@@ -15,10 +15,10 @@ import array
 import micropython
 from micropython import const
 
-from firmware_py.dsp import envelope, fft, orders, speed, tables
+from firmware_py.dsp import envelope, fft, half_taps, orders, speed, tables
 from firmware_py.dsp.feature_index import (
-    F_BAND0, F_CLIP, F_CREST, F_ENV_FTF, F_KURT, F_MEAN, F_ORD_HALF, F_PEAK, F_RMS, F_SPEED,
-    F_SPEED_CONF, F_STUCK, F_VEL, F_ZERO, LOG2_ZERO_Q8, per_axis)
+    F_BAND0, F_CLIP, F_CREST, F_ENV_FTF, F_HALF, F_KURT, F_MEAN, F_ORD_HALF, F_PEAK, F_RMS,
+    F_SPEED, F_SPEED_CONF, F_STUCK, F_TAP_RE, F_TAP_X1, F_VEL, F_ZERO, LOG2_ZERO_Q8, per_axis)
 from firmware_py.dsp.fft import power_sum
 from firmware_py.dsp.fixmath import div_pow2, log2_q8, msb, sqrt_pow2
 from firmware_py.dsp.ring import SampleRing, footprint_bytes as _ring_bytes
@@ -114,6 +114,7 @@ class FeatureCore:
                                      self.log2_q15)
         for a in range(axes):       # the stages' fields as they stay while the stages are off
             self._stages(a * self.per, 0)
+            self.feats[a * self.per + F_HALF] = LOG2_ZERO_Q8   # the detector's field (feature_index)
         self.windows = 0
 
     def step(self):
@@ -166,16 +167,18 @@ class FeatureCore:
         m = self.m
         fft.cfft(self.buf, m, self.tw_q15)
         vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p,
-                          self.env.on)
+                          self.speed.on)
         self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
         if self.speed.on:           # off: no 1x, so neither orders nor envelope; fields as set
             self._stages(off, u)
 
     def _stages(self, off, u):
-        """Speed, orders and envelope from the spectrum the FFT left (u: the window's scale)."""
+        """Speed, orders, half-order taps and envelope from the spectrum the FFT left (u: the
+        window's scale). The taps read X before the envelope stage reuses buf."""
         f = self.feats
         f1 = self.speed.run(f, off)
         self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
+        half_taps.run(self.buf, self.m, f1, u, f, off)
         self.env.run(self.buf, f1, f, off)
 
     @micropython.native
@@ -207,6 +210,8 @@ class FeatureCore:
         f[off + F_SPEED_CONF] = 0
         for j in range(F_ORD_HALF, F_ENV_FTF + 1):
             f[off + j] = LOG2_ZERO_Q8
+        for j in range(F_TAP_X1, F_TAP_RE + 6):
+            f[off + j] = 0
         for b in range(self.n_bands):
             f[off + F_BAND0 + b] = LOG2_ZERO_Q8
         p = self.p

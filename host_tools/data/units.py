@@ -23,7 +23,11 @@ FIELD_NAMES = {fi.F_MEAN: "mean", fi.F_RMS: "accel_rms", fi.F_PEAK: "peak", fi.F
                fi.F_ORD_1X: "order_1x", fi.F_ORD_2X: "order_2x", fi.F_ORD_3X: "order_3x",
                fi.F_ORD_VANE: "order_vane_pass", fi.F_ENV_BPFO: "envelope_bpfo",
                fi.F_ENV_BPFI: "envelope_bpfi", fi.F_ENV_BSF: "envelope_bsf",
-               fi.F_ENV_FTF: "envelope_ftf"}
+               fi.F_ENV_FTF: "envelope_ftf", fi.F_TAP_X1: "tap_1x_bins",
+               fi.F_TAP_RE: "tap_0.5x_re", fi.F_TAP_RE + 1: "tap_0.5x_im",
+               fi.F_TAP_RE + 2: "tap_1.5x_re", fi.F_TAP_RE + 3: "tap_1.5x_im",
+               fi.F_TAP_RE + 4: "tap_2.5x_re", fi.F_TAP_RE + 5: "tap_2.5x_im",
+               fi.F_HALF: "half_orders"}
 
 
 def m_s2_per_count(params: dict) -> float:

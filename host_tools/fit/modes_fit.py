@@ -12,11 +12,13 @@ from typing import Sequence
 from array import array
 
 import numpy as np
+from scipy import special
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.dsp import feature_index as fi, orders
 from firmware_py.detect import modes as dm
 from firmware_py.detect.detector import CHI_Q8
+from firmware_py.detect.half_lines import ALIAS_WIDTH, BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
 from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
 from firmware_py.dsp.tables import log2_table
@@ -102,11 +104,34 @@ def pinned_limits_q8(params: dict) -> tuple[int, int]:
     return int(math.floor(lo + PIN_STEPS * step)) + 1, int(math.ceil(hi - PIN_STEPS * step)) - 1
 
 
+# Where the integer orders' leakage into a half-order tap matters: the periodic Hann window's
+# main lobe (2 bins) and first side lobe (-31.5 dB at about 2.4 bins, Harris, Proc. IEEE 66,
+# 1978); from 3 bins on its side lobes lie some 39 dB and more down
+HALF_LEAK_BINS = 3.0
+
+
+def half_spread_floor_q8() -> float:
+    """The least spread of a half-order prominence (F_HALF) within a mode, log2 Q8: what its
+    average wanders by on noise alone, so that a thin training set cannot make it look steadier
+    than the statistics allow. The line's mean power over the 2 HALF_WIDTH + 1 cells around it is
+    a mean of about that many over 1.5 (the Hann window's equivalent noise bandwidth in cells;
+    Harris, Proc. IEEE 66, 1978) independent exponential powers, a Gamma(k) variable whose log
+    has variance trigamma(k) (a textbook property of the Gamma distribution); the floor's mean
+    over many more cells is steady beside it. Three taps are averaged, and blocks enter an EWMA
+    of weight lam = 2**-SHIFT, whose spread is sqrt(lam / (2 - lam)) of its input's (Montgomery,
+    EWMA chart; common practice)."""
+    k = (2 * HALF_WIDTH + 1) / 1.5
+    per_tap = math.sqrt(float(special.polygamma(1, k))) / math.log(2.0)
+    lam = 2.0 ** -HALF_SHIFT
+    return 256.0 * per_tap / math.sqrt(3.0) * math.sqrt(lam / (2.0 - lam))
+
+
 def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarray:
     """(rows, d) booleans: True where a scored order or envelope line was read around an axis's own
     1x estimate (F_SPEED) more than the steady tolerance (det_speed_tol_q12) from the window's
-    operating speed: the device sets such a term neutral (firmware_py/detect/detector.py,
-    _mask_lines), so the model is fitted without it. Integer arithmetic as the device's."""
+    operating speed, or where a half-order prominence (F_HALF) has no average yet: the device sets
+    such a term neutral (firmware_py/detect/detector.py, _mask_lines), so the model is fitted
+    without it. Integer arithmetic as the device's."""
     feats = np.asarray(feats, dtype=np.int64)
     pa = fi.per_axis(params["det_bands"])
     idx = np.asarray(params["det_feat"])
@@ -114,7 +139,9 @@ def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarr
     tol = (int(params["det_speed_tol_q12"]) * op) >> 12
     out = np.zeros((len(feats), len(idx)), bool)
     for j, i in enumerate(idx.tolist()):
-        if fi.F_ORD_HALF <= i % pa <= fi.F_ENV_FTF:
+        if i % pa == fi.F_HALF:
+            out[:, j] = feats[:, i] == UNSET
+        elif fi.F_ORD_HALF <= i % pa <= fi.F_ENV_FTF:
             e = feats[:, (i // pa) * pa + fi.F_SPEED] - op
             out[:, j] = (e > tol) | (e < -tol)
     return out
@@ -129,6 +156,30 @@ def set_aside(params: dict, lo_hz: float) -> list[int]:
         return []
     pa = fi.per_axis(params["det_bands"])
     return [j for j, i in enumerate(params["det_feat"]) if i % pa == fi.F_ORD_HALF]
+
+
+def half_aside(params: dict, lo_hz: float, hi_hz: float, every: int) -> list[int]:
+    """Positions j in det_feat of the half-order prominences (F_HALF) that a mode running at
+    lo_hz..hi_hz cannot read apart from the integer orders. Each half order has integer orders
+    x1 / 2 bins each side (0.5x: 1x; 1.5x: 1x and 2x; 2.5x: 2x and 3x). Within HALF_LEAK_BINS
+    they leak into its tap through the Hann window's main lobe and first side lobe, and across
+    the block they turn at every x x1 / 2 cycles per window from it: when that lies within the
+    line's cells plus the block window's main lobe (HALF_WIDTH + ALIAS_WIDTH cells) of a whole
+    number for some speed of the mode, the leakage sits on the line and moves with the speed's
+    fraction of a bin (the device then drops the block, half_lines; so strong a leakage also
+    reaches the line through the block window's side lobes where it is dropped less often). fit()
+    gives such a prominence the largest spread in that mode, as set_aside does."""
+    b = BLK
+    lo = lo_hz * params["n"] / params["fs_hz"] / 2
+    hi = hi_hz * params["n"] / params["fs_hz"] / 2
+    if lo >= HALF_LEAK_BINS:
+        return []
+    near = (HALF_WIDTH + ALIAS_WIDTH) / b   # cycles per window
+    a, z = every * lo, every * min(hi, HALF_LEAK_BINS)
+    if math.floor(z + near) < math.ceil(a - near):   # no whole number within reach
+        return []
+    pa = fi.per_axis(params["det_bands"])
+    return [j for j, i in enumerate(params["det_feat"]) if i % pa == fi.F_HALF]
 
 
 def line_spans(params: dict, ranges_hz: Sequence[tuple[float, float]]) -> list[tuple[float, float]]:
@@ -177,7 +228,7 @@ def mode_ranges_hz(params: dict) -> list[tuple[float, float]]:
 
 
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
-        k_max: int = dm.KMAX, margin_q8: int | None = None) -> dict:
+        k_max: int = dm.KMAX, margin_q8: int | None = None, every: int = 1) -> dict:
     """Baseline, operating modes and conservative thresholds from healthy running windows (rows
     of raw feature vectors). Returns the detector keys to merge into the parameter set.
 
@@ -245,6 +296,12 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
         spread[m, has] = np.sqrt((dev * dev).sum(0)[has] / cnt[has])
     for m in range(k if op else 0):
         spread[m, set_aside(params, op[2 * m] / 256.0)] = dm.Z_LIM
+        spread[m, half_aside(params, op[2 * m] / 256.0, op[2 * m + 1] / 256.0, every)] = dm.Z_LIM
+    pa = fi.per_axis(params["det_bands"])
+    least = half_spread_floor_q8()
+    for j, i in enumerate(params["det_feat"]):
+        if i % pa == fi.F_HALF:
+            spread[:, j] = np.maximum(spread[:, j], least * 256.0 * 16.0 / max(int(model.sd_q4[j]), 1))
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
     alert = (CHI_Q8[d - 1] * margin) >> 8
     return {

@@ -60,7 +60,7 @@ from host_tools.data.recording import Recording
 from host_tools.twin.replay import (
     StreamFeatures, check_recordings, evidence_sequences, m_s2_per_count, physical_columns, promise_check,
     is_raise, promise_text, stated_rate,
-    step_detector, stream_features,
+    step_detector, stream_features, window_gaps,
     twin_for)
 
 FOLDS = 3                 # held-out blocks of recordings (each model is fitted on the others)
@@ -125,22 +125,38 @@ def _probe_model(params: dict) -> dict:
                        det_op_speed_q8=op, det_op_load_q8=[]))
 
 
+def _fill_half(feats: list[StreamFeatures], steps: list, p: dict) -> None:
+    """Write each window's half-order prominence (F_HALF, which the feature core leaves unset) as
+    the device's detector holds it after that window (Steps.half_q8), so that the model is fitted
+    on what the device scores. It depends on the steadiness keys and the hold-off only, which are
+    final by the probe run, so any later Detector on these windows holds the same values."""
+    pa = fi.per_axis(len(p["fc_bands"]))
+    for sf, st in zip(feats, steps):
+        for a in range(p["axes"]):
+            sf.feats[:, a * pa + fi.F_HALF] = st.half_q8[:, a]
+
+
 def _run(params: dict, feats: list[StreamFeatures], every: int):
     """Step a fresh device Detector (on the board's time base) over each stream; the Steps."""
-    return [step_detector(Detector(params, every), sf.feats) for sf in feats]
+    hop = params["n"] * every / params["fs_hz"]
+    return [step_detector(Detector(params, every), sf.feats, 0, window_gaps(sf.t_s, hop)) for sf in feats]
 
 
 class _Channels:
-    """A Detector that also keeps, per window, its per-feature and slow channels (zmax_q8,
-    smax_q8, unweighted) for step_detector to step like the device, and, over the windows that
-    enter the evidence with a mode (and lie in `select`, a mask by window index, when given),
-    each feature's sum of squared EWMAs (spreads squared, floats)."""
+    """A Detector that also keeps, per window, its per-feature and slow channels (unweighted,
+    Q8: the per-feature channel over the features the slow channel holds, those of non-zero
+    det_sgain_q8, so that the two are matched on the same features; and smax_q8) for
+    step_detector to step like the device, and, over the windows that enter the evidence with a
+    mode (and lie in `select`, a mask by window index, when given), each feature's sum of squared
+    EWMAs (spreads squared, floats)."""
 
     def __init__(self, det: Detector, select: np.ndarray | None = None):
         self.det, self.zmax, self.smax = det, [], []
         self.select = select
         self.ew_ss = np.zeros(det.d)
         self.ew_n = 0
+        self.slow_j = [j for j in range(det.d) if det.sgain_q8[j]]
+        self.all_slow = len(self.slow_j) == det.d
 
     def __getattr__(self, name: str) -> Any:
         return getattr(self.det, name)
@@ -148,7 +164,11 @@ class _Channels:
     def step(self, f: Any, t_s: int, dropped: int) -> int:
         det = self.det
         state = det.step(f, t_s, dropped)
-        self.zmax.append(det.zmax_q8)
+        if self.all_slow or det.mode < 0:
+            self.zmax.append(det.zmax_q8)
+        else:
+            t = det.model.t_q8
+            self.zmax.append(max(0, max(t[j] for j in self.slow_j)))
         self.smax.append(det.smax_q8)
         if det.pushed and det.mode >= 0 and (self.select is None or self.select[t_s]):
             e = np.asarray(det.ew_acc, dtype=np.float64) / (256 << det.ew_shift)
@@ -160,8 +180,9 @@ class _Channels:
 @dataclass
 class _Held:
     """Held-out evidence of one fold: sequences of the combined score, of the per-feature channel
-    weighted by det_zlam_q8 and of the slow channel before det_slam_q8 (Q8 spreads); and per
-    scored feature the sum of squared EWMAs and their count (_Channels)."""
+    (over the slow channel's features, _Channels) weighted by det_zlam_q8 and of the slow channel
+    before det_slam_q8 (Q8 spreads); and per scored feature the sum of squared EWMAs and their
+    count (_Channels)."""
 
     combined: list[np.ndarray]
     per_feature: list[np.ndarray]
@@ -179,7 +200,7 @@ def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: lis
     for i, sf in enumerate(feats):
         sel = None if select is None else select[i]
         ch = _Channels(Detector(_mute(params), every), sel)
-        st = step_detector(ch, sf.feats)
+        st = step_detector(ch, sf.feats, 0, window_gaps(sf.t_s, params["n"] * every / params["fs_hz"]))
         if sequences:
             out.combined.extend(evidence_sequences(st, sel))
             out.per_feature.extend(c * zlam for c in evidence_sequences(replace(st, score_q8=np.array(ch.zmax)), sel))
@@ -189,7 +210,7 @@ def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: lis
     return out
 
 
-def sgain_q8(ew_ss: np.ndarray, ew_n: int, shift: int) -> tuple[list[int], str]:
+def sgain_q8(ew_ss: np.ndarray, ew_n: int, shift: int, averaged: Sequence[bool] = ()) -> tuple[list[int], str]:
     """Per-feature weights of the slow channel, Q8: each feature's EWMA against its own healthy
     spread, so that one feature's small lasting rise is judged by how far its own EWMA wanders.
 
@@ -201,25 +222,32 @@ def sgain_q8(ew_ss: np.ndarray, ew_n: int, shift: int) -> tuple[list[int], str]:
     wanders with the process (the 1x line with the load) keeps most of its spread. Weight
     g_j = median_k(sigma_k) / sigma_j (the median makes the weights relative; the channel's
     overall weight det_slam_q8 is matched after), Q8 within [1, 4096]. All 256 (the unweighted
-    channel) when no window was scored."""
+    channel) when no window was scored. averaged: per feature, True for one that is an average
+    over minutes already (the half-order prominence): weight 0, as a second average adds nothing
+    to it, and its held-out spread on a short recording is no measure of how it wanders."""
     d = len(ew_ss)
+    off = np.zeros(d, bool)
+    off[:len(averaged)] = averaged
     if ew_n == 0:
-        return [256] * d, "all 1: no held-out scored window to measure the features' slow spreads"
+        return [0 if o else 256 for o in off], "all 1: no held-out scored window to measure the features' slow spreads"
     lam = 2.0 ** -shift
     floor = math.sqrt(lam / (2.0 - lam))
     sigma = np.maximum(np.sqrt(ew_ss / ew_n), floor)
-    g = np.median(sigma) / sigma
-    q8 = [int(v) for v in np.clip(np.round(256 * g), 1, 4096)]
+    g = np.median(sigma[~off]) / sigma
+    q8 = [0 if o else int(v) for o, v in zip(off, np.clip(np.round(256 * g), 1, 4096))]
+    on = [v for o, v in zip(off, q8) if not o]
     return q8, (f"each feature's {SLOW_MS / 1000:g}-s average against its own held-out spread ({floor:.2f} to "
-                f"{sigma.max():.2f} spreads; weights {min(q8) / 256:.2f} to {max(q8) / 256:.2f}): lines that wander "
-                "with the process count less, lines that only flicker count more")
+                f"{sigma[~off].max():.2f} spreads; weights {min(on) / 256:.2f} to {max(on) / 256:.2f}): lines that "
+                "wander with the process count less, lines that only flicker count more"
+                + ("; the half-order prominences, averages already, stay out" if off.any() else ""))
 
 
 def slam_q8(zseqs: list[np.ndarray], sseqs: list[np.ndarray], p: dict, every: int) -> tuple[int, str]:
     """Weight of the slow channel, Q8: the largest at which its raise statistic on held-out healthy
-    running stays at or under the weighted per-feature channel's at the matched upper quantiles
-    (raise_rate.matched_weight; docs/detector.md, Score), so that alone it crosses the alert
-    threshold no more often than that channel does. 0 (off) when there is nothing to match."""
+    running stays at or under the weighted per-feature channel's (over the same features) at the
+    matched upper quantiles (raise_rate.matched_weight; docs/detector.md, Score), so that alone it
+    crosses the alert threshold no more often than that channel does. 0 (off) when there is
+    nothing to match."""
     det = Detector(p, every)
     w = raise_rate.matched_weight(zseqs, sseqs, det.alarm.ev.span, det.alarm.k)
     q8 = min(int(math.floor(256 * w)), 1 << 12)
@@ -574,8 +602,9 @@ def _running_median(x: np.ndarray, span: int) -> np.ndarray:
 
 
 def _feature_list(p: dict) -> list[int]:
-    """Scored features: the default list, plus the order lines (and vane pass) when the speed is
-    estimated, and the envelope lines when the envelope is on. The 0.5x line when the fastest
+    """Scored features: the default list, plus the order lines (and vane pass) and the half-order
+    prominence (half_lines) when the speed is estimated, and the envelope lines when the envelope
+    is on. The 0.5x line when the fastest
     shaft of the range reads it clear of the 1x's main lobe (orders.HALF_CLEAR_BINS; Harris, "On
     the use of windows for harmonic analysis with the discrete Fourier transform", Proc. IEEE 66,
     1978: Hann main lobe +-2 bins); a mode slower than that sets it aside
@@ -584,21 +613,23 @@ def _feature_list(p: dict) -> list[int]:
 
     At most dm.DMAX: over that, the peaks go first, the last axis's first. Compared on a log
     scale, log peak = log crest + log r.m.s. (crest = peak / r.m.s.), so a peak adds nothing that
-    its axis's crest and r.m.s. do not hold."""
+    its axis's crest and r.m.s. do not hold. Then the window's own 0.5x lines, the last axis's
+    first: the half-order prominence reads that line over many windows, with 1.5x and 2.5x."""
     pa = fi.per_axis(len(p["fc_bands"]))
     extra = []
     if p.get("fc_speed_hi_q8"):
         hi_bins = p["fc_speed_hi_q8"] / 256 * p["n"] / p["fs_hz"]
         half = [fi.F_ORD_HALF] if hi_bins >= orders.HALF_CLEAR_BINS else []
         extra += half + [fi.F_ORD_1X, fi.F_ORD_2X, fi.F_ORD_3X] + ([fi.F_ORD_VANE] if p.get("fc_vane") else [])
+        extra.append(fi.F_HALF)
     if p.get("fc_env_band") and p.get("fc_bear_q12"):
         extra += [fi.F_ENV_BPFO, fi.F_ENV_BPFI, fi.F_ENV_BSF, fi.F_ENV_FTF]
     out = list(default_feature_list(p["axes"], len(p["fc_bands"])))
     out += [a * pa + f for a in range(p["axes"]) for f in extra]
-    for a in reversed(range(p["axes"])):
-        if len(out) <= dm.DMAX:
-            break
-        out.remove(a * pa + fi.F_PEAK)
+    for f in (fi.F_PEAK, fi.F_ORD_HALF):
+        for a in reversed(range(p["axes"])):
+            if len(out) > dm.DMAX and a * pa + f in out:
+                out.remove(a * pa + f)
     return sorted(out)[:dm.DMAX]
 
 
@@ -613,19 +644,19 @@ def zlam_q8(d: int) -> int:
     return int(round(256 * math.sqrt(chi2.isf(p, d)) / zmax))
 
 
-def _model(rows: np.ndarray, speeds: np.ndarray, params: dict) -> dict:
+def _model(rows: np.ndarray, speeds: np.ndarray, params: dict, every: int) -> dict:
     """modes_fit.fit's baseline, modes by operating point; the idle floor stays the one set here."""
-    keys = modes_fit.fit(rows, params, speeds, params["det_speed_tol_q12"] / 4096.0)
+    keys = modes_fit.fit(rows, params, speeds, params["det_speed_tol_q12"] / 4096.0, every=every)
     keys.pop("det_idle_vel_q16")
     return keys
 
 
-def _fit_all(rows: list[np.ndarray], speeds: list[np.ndarray], params: dict, jobs: int) -> list[dict]:
+def _fit_all(rows: list[np.ndarray], speeds: list[np.ndarray], params: dict, jobs: int, every: int) -> list[dict]:
     """_model over each row set, in up to `jobs` processes (the same result for any jobs)."""
     if jobs <= 1 or len(rows) == 1:
-        return [_model(r, s, params) for r, s in zip(rows, speeds)]
+        return [_model(r, s, params, every) for r, s in zip(rows, speeds)]
     with ProcessPoolExecutor(max_workers=min(jobs, len(rows))) as pool:
-        return list(pool.map(_model, rows, speeds, [params] * len(rows)))
+        return list(pool.map(_model, rows, speeds, [params] * len(rows), [every] * len(rows)))
 
 
 def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, target: float,
@@ -801,6 +832,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     # which windows the device scores, and which of those are fit for training (zone A/B)
     probe = _run(_probe_model(p), feats, every)
     bar.update(1)
+    _fill_half(feats, probe, p)
     scored = [st.why == W_SCORED for st in probe]
     vel = [sf.feats[:, fi.F_VEL::pa][:, :axes].max(1) for sf in feats]
     zone_c = [v >= p["det_iso_bounds"][ZONE_C - 1] for v in vel]
@@ -840,7 +872,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     sps = [np.concatenate([sp[u & (wf != f)] for sp, u, wf in zip(speeds, use, win_fold)]) for f in fold_ids]
     rows.append(np.concatenate([sf.feats[u] for sf, u in zip(feats, use)]))
     sps.append(np.concatenate([sp[u] for sp, u in zip(speeds, use)]))
-    fits = _fit_all(rows, sps, p, jobs)
+    fits = _fit_all(rows, sps, p, jobs, every)
     bar.update(1)
     # held-out sequences: each feature's slow weight from its own held-out EWMA spread, then the
     # slow channel is weighted against the per-feature one, then the thresholds are fitted on the
@@ -856,8 +888,10 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
             return train(recordings, profile, false_alerts_per_month, version, folds, jobs, bearing, progress, moved)
     held = [(pf, [wf == f for wf in win_fold]) for f, pf in fold_sets] or [(p, None)]
     parts = [_held_out(pf, feats, every, sel, sequences=False) for pf, sel in held]
+    pa = fi.per_axis(len(p["fc_bands"]))
     gains, learned["slow_gains"] = sgain_q8(sum(h.ew_ss for h in parts), sum(h.ew_n for h in parts),
-                                            Detector(p, every).ew_shift)
+                                            Detector(p, every).ew_shift,
+                                            [i % pa == fi.F_HALF for i in p["det_feat"]])
     p["det_sgain_q8"] = gains
     fold_sets = [(f, _with(pf, det_sgain_q8=gains)) for f, pf in fold_sets]
     held = [(_with(pf, det_sgain_q8=gains), sel) for pf, sel in held]
@@ -908,6 +942,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         i = m["mode"]
         m["speed_hz"] = list(ranges[i]) if ranges else None
         m["half_aside"] = bool(ranges) and bool(modes_fit.set_aside(p, ranges[i][0]))
+        m["half_orders_aside"] = bool(ranges) and bool(modes_fit.half_aside(p, ranges[i][0], ranges[i][1], every))
     half_judged = any(i % pa == fi.F_ORD_HALF for i in p["det_feat"])
     summary = {
         "board": p["board"], "version": p["version"], "fs_hz": p["fs_hz"], "n": p["n"], "window_s": window_s,
@@ -985,6 +1020,9 @@ def report_text(summary: dict) -> str:
         sp = m.get("speed_hz")
         where = f"shaft {sp[0]:.1f}-{sp[1]:.1f} Hz, " if sp else ""
         aside = "; the 0.5x line is not judged here" if m.get("half_aside") else ""
+        if m.get("half_orders_aside"):
+            aside += ("; nor are the half orders over many windows: at this speed the whole orders' leakage "
+                      "turns with them")
         lines.append(f"    mode {m['mode']}: {where}{m['windows']} windows ({100 * m['share']:.0f} %), median accel "
                      f"{med['accel_rms_m_s2']} m/s^2 r.m.s., velocity {med['velocity_rms_mm_s']} mm/s r.m.s.{aside}")
     if s["modes"].get("half_clear_hz"):

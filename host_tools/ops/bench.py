@@ -213,6 +213,41 @@ def _window_fuel(opts: dict) -> float:
     return _fuel_diff(body + "run(False)\n", body + "run(True)\n") / WINDOWS
 
 
+# The detector's half-order stage (firmware_py/detect/half_lines.py) on one axis: BLOCKS blocks
+# of steady windows whose taps the stage collects, lines up and transforms, against the same
+# windows unsteady (the stage then only notes that no block is open)
+_HALF_BLOCKS = 2
+_HALF = f"""
+import array
+from firmware_py.detect.half_lines import HalfLines, BLK
+from firmware_py.dsp import feature_index as fi
+from firmware_py.dsp.tables import log2_table
+pa = fi.per_axis(0)
+h = HalfLines(1, pa, 1, 205, log2_table())
+nw = {_HALF_BLOCKS} * BLK
+f = array.array('i', bytes(4 * pa * nw))
+seed = 777
+for w in range(nw):
+    f[w * pa + fi.F_TAP_X1] = 1152          # 4.5 bins: the whole orders' images 8 cells from the
+    for i in range(6):                      # lines, so every block transforms all 17 cells
+        seed = (seed * 1103515245 + 12345) & 0x3fffffff
+        f[w * pa + fi.F_TAP_RE + i] = (seed >> 10) - (1 << 19)
+row = array.array('i', bytes(4 * pa))
+def run(steady):
+    for w in range(nw):
+        for j in range(pa):
+            row[j] = f[w * pa + j]
+        h.push(row, steady)
+"""
+
+
+def _half_fuel() -> float:
+    """Fuel of the half-order stage per window (heap locked), blocks closed included."""
+    from firmware_py.detect.half_lines import BLK
+    return _fuel_diff(_HALF + "locked(lambda: run(False))\n", _HALF + "locked(lambda: run(True))\n") / (
+        _HALF_BLOCKS * BLK)
+
+
 def device_figures() -> dict:
     fixed = _window_fuel({})
     speed_orders = _window_fuel(SPEED_OPTS)
@@ -230,6 +265,9 @@ def device_figures() -> dict:
         "mpy_loop_equiv_per_sample_all_stages": round(every / N / loop, 2),
         "mpy_added_loop_equiv_per_sample_speed_orders": round((speed_orders - fixed) / N / loop, 2),
         "mpy_added_loop_equiv_per_sample_envelope": round((every - speed_orders) / N / loop, 2),
+        # the detector's half-order stage, per sample of one axis, its blocks' transforms spread
+        # over their windows (the feature core's taps are in the speed_orders figure)
+        "mpy_added_loop_equiv_per_sample_half_orders": round(_half_fuel() / N / loop, 2),
         "mpy_loop_fuel": round(loop, 1),
         "mpy_loop_fuel_in_function": round(loop_fn, 1),
         "mpy_loop_equiv_per_sample": round(fixed / N / loop, 2),
@@ -546,6 +584,8 @@ MEANING = {
     "mpy_loop_equiv_per_sample": "bytecode feature cost per sample, in module-level loop iterations",
     "mpy_loop_equiv_per_sample_vs_function_loop": "the same, in loop iterations inside a function",
     "mpy_naive_float_ratio": "fixed-point features / a plain float version, in fuel",
+    "mpy_added_loop_equiv_per_sample_half_orders": ("the detector's half-order stage per sample and axis, "
+                                                    "its block transforms spread over their windows"),
     "mpy_naive_float_window_fuel": "fuel of the plain float version per window",
     "core_heap_bytes": "heap the feature core takes at N = 512, 1 axis, 2 bands (bytes)",
     "allocs_per_window": "heap blocks allocated per window (must be 0)",

@@ -19,11 +19,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from firmware_py.dsp import envelope, fft, speed, tables
+from firmware_py.dsp import envelope, fft, half_taps, speed, tables
 from firmware_py.dsp.feature_index import (
-    F_BAND0, F_CLIP, F_CREST, F_ENV_BPFO, F_ENV_FTF, F_KURT, F_MEAN, F_ORD_1X, F_ORD_2X, F_ORD_3X,
-    F_ORD_HALF, F_ORD_VANE, F_PEAK, F_RMS, F_SPEED, F_SPEED_CONF, F_STUCK, F_VEL, F_ZERO,
-    LOG2_ZERO_Q8, per_axis)
+    F_BAND0, F_CLIP, F_CREST, F_ENV_BPFO, F_ENV_FTF, F_HALF, F_KURT, F_MEAN, F_ORD_1X, F_ORD_2X,
+    F_ORD_3X, F_ORD_HALF, F_ORD_VANE, F_PEAK, F_RMS, F_SPEED, F_SPEED_CONF, F_STUCK, F_TAP_RE,
+    F_TAP_X1, F_VEL, F_ZERO, LOG2_ZERO_Q8, per_axis)
 from firmware_py.dsp.features import Y_BITS, check_config
 from firmware_py.dsp.fixmath import log2_q8
 
@@ -168,7 +168,9 @@ class FeatureTwin:
         self._finish(f, pk, u, g.astype(np.int64), sh.astype(np.int64), sq, s4, vs, p)
         f1 = self._speed(p, f)
         self._orders(p, f1, self.log2_4_3_q8 - 512 * u, f)
+        self._taps(xr, xi, f1, u, f)
         self._envelope(xr, xi, f1, f)
+        f[:, F_HALF] = LOG2_ZERO_Q8
         # a flat window: no spectrum, zero features (features._flat)
         dead = ~live
         if dead.any():
@@ -179,6 +181,7 @@ class FeatureTwin:
             f[dead, F_SPEED] = 0
             f[dead, F_SPEED_CONF] = 0
             f[dead, F_ORD_HALF:F_ENV_FTF + 1] = LOG2_ZERO_Q8
+            f[dead, F_TAP_X1:F_TAP_RE + 6] = 0
             f[dead, F_BAND0:] = LOG2_ZERO_Q8
             p[dead] = 0
         return p
@@ -336,6 +339,19 @@ class FeatureTwin:
             s = p[rows, k - 1] + p[rows, k] + p[rows, k + 1] + p[rows, k + 2]
             f[:, field] = np.where(live & (s > 0), _log2_q8(np.maximum(s, 1), self.log2_q15) + c,
                                    LOG2_ZERO_Q8)
+
+    def _taps(self, xr, xi, f1, u, f):
+        """half_taps.run over all windows, from the spectra X (re, im: windows, m+1)."""
+        rows = np.arange(xr.shape[0])
+        f[:, F_TAP_X1] = f1
+        up = np.maximum(8 - u, 0)[:, None]
+        dn = np.maximum(u - 8, 0)[:, None]
+        for i, odd in enumerate(half_taps.ODDS):
+            k = np.where(f1 > 0, (odd * f1.astype(np.int64) + 256) >> 9, 0)
+            ok = (k >= 1) & (k < self.m)
+            kk = np.where(ok, k, 1)
+            pair = np.stack([xr[rows, kk], xi[rows, kk]], axis=1).astype(np.int64)
+            f[:, F_TAP_RE + 2 * i:F_TAP_RE + 2 * i + 2] = np.where(ok[:, None], (pair << up) >> dn, 0)
 
     def _envelope(self, xr, xi, f1, f):
         """envelope.Envelope.run over all windows, from the spectra X (re, im: windows, m+1)."""

@@ -214,7 +214,9 @@ class Steps:
     (w, old, new, reason, mode, feat, score_q8). why: firmware_py.detect.detector W_* (0 scored);
     pushed: 1 where the window added to the persistence evidence; resets: the detector's count of
     evidence resets after the window (a change marks a new evidence sequence); speed_q8: the
-    operating-point speed (Hz Q8, 0 none)."""
+    operating-point speed (Hz Q8, 0 none); half_q8: per axis the detector's half-order
+    prominence after the window (log2 Q8, half_lines.UNSET while it has none), what it scores
+    as F_HALF (windows, axes)."""
 
     state: np.ndarray
     score_q8: np.ndarray
@@ -226,6 +228,7 @@ class Steps:
     pushed: np.ndarray
     resets: np.ndarray
     speed_q8: np.ndarray
+    half_q8: np.ndarray
 
 
 def is_raise(old: int, new: int) -> bool:
@@ -234,8 +237,19 @@ def is_raise(old: int, new: int) -> bool:
     return new in (al.ALERT, al.ALARM) and old not in (al.ALERT, al.ALARM)
 
 
-def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
+def window_gaps(t_s: np.ndarray, hop_s: float, prev_t_s: float | None = None) -> np.ndarray:
+    """Per window (end times t_s, s): True where it does not follow the window before it (the
+    one at prev_t_s for the first) by one analysed hop hop_s: a gap between recordings."""
+    t = np.asarray(t_s, dtype=np.float64)
+    before = np.concatenate([[np.nan if prev_t_s is None else prev_t_s], t[:-1]])
+    return ~(np.abs(t - before - hop_s) < 0.5 * hop_s)
+
+
+def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0, gaps: np.ndarray | None = None) -> Steps:
     """Step `det` over the rows of feats (windows, features), window w given the clock first_w + w.
+    gaps: per window, True where it does not follow the one before (window_gaps); the detector is
+    told (det.gap()), as a gateway tells it of lost samples, so that nothing it follows over
+    consecutive windows spans the gap. None: the windows are consecutive.
 
     The loop is the detector's own code; it only reads the results and drains the event ring.
     Reading det.score_q8 when det.mode is -1 gives 0, as the device reports it.
@@ -250,9 +264,15 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
     pu = np.empty(n, np.int8)
     rs = np.empty(n, np.int32)
     sp = np.empty(n, np.int32)
+    hv = np.empty((n, det.axes), np.int32)
+    half = det.half.value
     ev: list[tuple[int, int, int, int, int, int, int]] = []
     step, ring = det.step, det.events
+    cut = [] if gaps is None else np.flatnonzero(gaps).tolist()
     for i, row in enumerate(rows):
+        if cut and cut[0] == i:
+            cut.pop(0)
+            det.gap()
         st[i] = step(row, first_w + i, 0)
         sc[i] = det.score_q8
         md[i] = det.mode
@@ -261,11 +281,12 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0) -> Steps:
         pu[i] = det.pushed
         rs[i] = det.resets
         sp[i] = det.speed_q8
+        hv[i] = half
         while ring.count:
             k = ring.pop()
             ev.append((ring.t[k], ring.old[k], ring.new[k], ring.reason[k], ring.mode[k],
                        ring.feat[k], ring.score_q8[k]))
-    return Steps(st, sc, md, ft, ev, ring.lost, wy, pu, rs, sp)
+    return Steps(st, sc, md, ft, ev, ring.lost, wy, pu, rs, sp, hv)
 
 
 def evidence_sequences(steps: Steps, select: np.ndarray | None = None) -> list[np.ndarray]:
@@ -460,7 +481,7 @@ class StreamReplay:
     def step(self, sf: StreamFeatures) -> ReplayChunk:
         """Step the detector over the next windows of the stream (features in stream order)."""
         first = self._done
-        steps = step_detector(self.detector, sf.feats, first)
+        steps = step_detector(self.detector, sf.feats, first, window_gaps(sf.t_s, self.window_s, self._t_last))
         p = self.params
         events = []
         for w, old, new, reason, mode, feat, score in steps.events:

@@ -1,0 +1,269 @@
+"""Half-order lines over consecutive windows: the prominence the detector scores as F_HALF.
+
+A looseness that lets a part lift and knock every other turn makes lines at 0.5x, 1.5x and 2.5x
+(common practice). In one window they sit within 2 bins of the integer orders and far under one
+bin's noise when they first show. Over a block of consecutive windows they do show: the complex
+value of one bin, window after window, turns at the line's offset from the bin's centre (the
+phase advances 2 pi x offset x every per analysed window), so a second, short DFT across the
+block splits that bin into `blk` cells and puts the line in one of them, while the noise spreads
+over all (the resolution of one block of n x every x blk samples; common practice in zoom
+analysis).
+
+Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the bins nearest 0.5x, 1.5x,
+2.5x of the window's own 1x) of steady windows are collected while the taps stay on the same
+bins; a window that is not steady, or moves a tap to another bin, starts a new block. A full
+block gives, per half order, the mean power of the cells around the line's expected place over
+the mean power of the floor cells, in log2; the three are averaged. The blocks' values are
+averaged as an EWMA with weight 2**-SHIFT. The average counts only once 2**SHIFT blocks have
+entered it since the operating speed last moved by more than the steady tolerance (the floor
+around the lines differs between speeds); until then, and from the first window at a speed that
+far from the average's, the value is UNSET and the detector holds the feature neutral.
+
+The whole orders leak into every tap through the per-window Hann window's side lobes (about
+-50 dB at 4 bins; a pump's 1x stands 50 dB and more over one bin's noise), and across the block
+they turn at a whole number of cycles per window from each other, so every whole order's leakage
+lands a whole multiple of x1 x every / 2 cycles per window from the line: its nearest images sit
++-ALIAS cells from it, ALIAS = (x1 x every / 2 mod 1) x BLK. Those cells are left out of the
+floor; and where they fall within HALF_WIDTH + ALIAS_WIDTH cells of the line the block cannot
+tell the line from the leakage and says nothing (its value does not enter the average). This is
+the physics of the time base, not a tuning: a 2-pole pump on 50 Hz mains at 512 samples and
+3200 Hz, or a 4-pole one at 1024, runs with x1 / 2 near a whole number of bins, and its half
+orders cannot be read this way there.
+Integer-only; push() allocates nothing.
+
+Scales: taps counts Q8 (|tap| <= 2**24). Each tap's block is shifted so that its largest
+component has its top bit at bit 13, then windowed (Hann, Q15): |t| <= 2**13 per component, and
+each DFT term (Q15 twiddle) <= 2**14. A cell Y sums blk <= 32 of them, |Y| <= sqrt(2) * 2**13 *
+blk / 2 (the Hann weights sum to blk / 2) <= 2**17.5; its power is taken as (Y >> 6)**2 <= 2**23,
+and the cells' sum (Parseval: blk * sum |t|**2 / 2**12, from e = sum(|t|**2 >> 7) <= 3/8 * blk *
+2**20, as the Hann weights' squares sum to 3/8 blk) stays under 2**28, as does e * blk.
+Prominence and its average: log2 Q8.
+
+Entry points: footprint_bytes(axes); HalfLines(axes, pa, every, tol_q12, tab); push(f, steady) once per window; cut() when
+the next window will not follow the last; value[a].
+"""
+from array import array
+from micropython import const
+
+from firmware_py.dsp import feature_index as fi
+from firmware_py.dsp import tables
+from firmware_py.dsp.fixmath import log2_q8, msb
+from firmware_py.dsp.half_taps import ODDS, tap_bin
+
+UNSET = const(-16384)          # no average yet (LOG2_ZERO_Q8)
+SHIFT = const(3)               # EWMA weight 2**-3 per block; counts from 8 blocks
+X1_LIM = const(1 << 20)        # a 1x beyond any window (bins Q8 < n / 2 * 256 <= 2**19)
+TAP_LIM = const(1 << 24)       # half_taps' bound
+# Analysed windows per block (5.1 s at 512 samples and 3200 Hz). Fewer would leave no floor:
+# the line's 7 cells and the two leakage images' 5 each need 17, and the floor wants as many.
+BLK = const(32)
+HALF_WIDTH = const(3)          # cells each side of the line: the Hann main lobe (2) and 1 for the
+#                                error of the block's mean speed
+ALIAS_WIDTH = const(2)         # cells each side of a whole order's image: the Hann main lobe
+
+
+def footprint_bytes(axes):
+    """Heap bytes of a HalfLines' arrays on `axes` axes (payloads, as __init__ makes them): the
+    taps of one block per axis (6 ints a window), 8 ints of state per axis, the scratch of one
+    tap's block (2 ints a window), the block's twiddles (2 x (BLK / 2 + 1) ints) and Hann
+    window (BLK halfwords)."""
+    return 4 * axes * 6 * BLK + 4 * 9 * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1) + 2 * BLK
+
+
+class HalfLines:
+    """See the module docstring. tol_q12: the steady speed tolerance (det_speed_tol_q12); tab:
+    tables.log2_table() (the detector's own)."""
+
+    def __init__(self, axes, pa, every, tol_q12, tab):
+        self.axes = axes
+        self.pa = pa
+        self.every = every
+        self.tol_q12 = tol_q12
+        b = self.blk = BLK
+        self.cos_q15, self.sin_q15 = tables.twiddles(b)
+        self.hann_q15 = tables.hann(b, self.cos_q15)
+        self.tap = array("i", bytes(4 * axes * 6 * b))   # per axis, window, tap: re, im
+        self.nb = array("i", bytes(4 * axes))             # windows in the axis's block
+        self.bins = array("i", bytes(4 * axes * 3))       # the block's three tap bins
+        self.x1 = array("i", bytes(4 * axes))             # sum of the block's 1x, bins Q8
+        self.acc = array("i", bytes(4 * axes))            # EWMA << SHIFT (a sum while filling)
+        self.cnt = array("i", bytes(4 * axes))            # blocks in the average, to 2**SHIFT
+        self.ref = array("i", bytes(4 * axes))            # 1x of the average, bins Q8
+        self.value = array("i", [UNSET] * axes)
+        self.tr = array("i", bytes(4 * b))                # scratch: one tap's windowed block
+        self.ti = array("i", bytes(4 * b))
+        self.tab = tab
+
+    def cut(self):
+        """The next window does not follow the last: every open block starts again."""
+        for a in range(self.axes):
+            self.nb[a] = 0
+
+    def push(self, f, steady):
+        """One window's features f; steady: the detector judged it steady past the hold-off."""
+        pa = self.pa
+        for a in range(self.axes):
+            o = a * pa
+            x1 = f[o + fi.F_TAP_X1]
+            if not steady or not 0 < x1 < X1_LIM or not self._sane(f, o):
+                self.nb[a] = 0
+                continue
+            if self.cnt[a] > 0 and self._moved(a, x1):
+                self.cnt[a] = 0                    # an average of another speed says nothing here
+                self.value[a] = UNSET
+            j = self.nb[a]
+            bb = 3 * a
+            if j > 0:
+                for i in range(3):
+                    if tap_bin(x1, ODDS[i]) != self.bins[bb + i]:
+                        j = 0
+            if j == 0:
+                for i in range(3):
+                    self.bins[bb + i] = tap_bin(x1, ODDS[i])
+                self.x1[a] = 0
+            t = (a * self.blk + j) * 6
+            for i in range(6):
+                self.tap[t + i] = f[o + fi.F_TAP_RE + i]
+            self.x1[a] += x1
+            j += 1
+            if j == self.blk:
+                self._close(a)
+                j = 0
+            self.nb[a] = j
+
+    def _moved(self, a, x1):
+        """x1 (bins Q8) lies more than the steady tolerance from the speed of axis a's average
+        (tol_q12 * ref < 2**12 * 2**20 = 2**32: ref is shifted first, exact to 1/4096 bin)."""
+        r = self.ref[a]
+        tol = self.tol_q12 * (r >> 12) + ((self.tol_q12 * (r & 4095)) >> 12)
+        return x1 - r > tol or r - x1 > tol
+
+    @staticmethod
+    def _sane(f, o):
+        """The taps within their bound (half_taps: |tap| <= 2**24), as the core writes them."""
+        for i in range(6):
+            v = f[o + fi.F_TAP_RE + i]
+            if v > TAP_LIM or v < -TAP_LIM:
+                return False
+        return True
+
+    def _close(self, a):
+        """A full block of axis a: its prominence enters the average."""
+        b = self.blk
+        x1 = self.x1[a] // b                       # the block's mean 1x, bins Q8 (< 2**20)
+        # the whole orders' nearest images: ALIAS Q8 cells each side of the line (x1 * every
+        # mod 2 bins, Q8, times b / 2), the same for the three taps (module docstring)
+        d = (b >> 1) * ((x1 * self.every) % 512)
+        if d > b << 7:
+            d = (b << 8) - d
+        if d <= (HALF_WIDTH + ALIAS_WIDTH) << 8:
+            return                                 # the leakage sits on the line
+        s = 0
+        for i in range(3):
+            s += self._prominence(a, i, x1, d)
+        p = s // 3
+        if self.cnt[a] > 0 and self._moved(a, x1):
+            self.cnt[a] = 0
+        c = self.cnt[a]
+        if c == 0:
+            self.ref[a] = x1
+            self.acc[a] = p
+            c = 1
+        elif c < 1 << SHIFT:
+            self.acc[a] += p                       # the first 2**SHIFT blocks: a plain sum
+            c += 1
+        else:
+            self.acc[a] += p - (self.acc[a] >> SHIFT)
+        self.cnt[a] = c
+        self.value[a] = self.acc[a] >> SHIFT if c >= 1 << SHIFT else UNSET
+
+    def _prominence(self, a, i, x1, d):
+        """log2 Q8 of (mean cell power within HALF_WIDTH of the line) / (mean of the floor
+        cells) for tap i of axis a's block; x1: the block's mean 1x (bins Q8); d: the whole
+        orders' images' distance from the line, Q8 cells. Only the line's and the images' cells
+        are transformed; the floor's total is the block's energy less theirs (Parseval: the
+        cells' powers sum to blk times the samples' ones), which is what the floor needs."""
+        b = self.blk
+        tap = self.tap
+        base = a * b * 6 + 2 * i
+        top = 0
+        for j in range(b):
+            v = tap[base + 6 * j]
+            w = tap[base + 6 * j + 1]
+            v = v if v >= 0 else -v
+            w = w if w >= 0 else -w
+            if v > top:
+                top = v
+            if w > top:
+                top = w
+        if top == 0:
+            return 0
+        sh = msb(top) - 13                         # the largest component's top bit to bit 13
+        tr = self.tr
+        ti = self.ti
+        hw = self.hann_q15
+        e = 0
+        for j in range(b):
+            v = tap[base + 6 * j]
+            w = tap[base + 6 * j + 1]
+            if sh >= 0:
+                v >>= sh
+                w >>= sh
+            else:
+                v <<= -sh
+                w <<= -sh
+            v = (v * hw[j]) >> 15                  # |.| <= 2**13
+            w = (w * hw[j]) >> 15
+            tr[j] = v
+            ti[j] = w
+            e += (v * v + w * w) >> 7              # <= 2**20 each; summed <= 3/8 blk 2**20
+        # where the line turns to: its offset from the bin centre in cycles per analysed window,
+        # times the block length, Q8 cells, modulo the block
+        off_q8 = ((ODDS[i] * x1) >> 1) - (self.bins[3 * a + i] << 8)
+        c0 = (off_q8 * self.every * b) % (b << 8)
+        ct = self.cos_q15
+        st = self.sin_q15
+        h = b >> 1
+        line = 0
+        nl = 0
+        side = 0
+        ns = 0
+        for c in range(b):
+            on = _dist((c << 8) - c0, b) <= HALF_WIDTH << 8
+            if not on and (_dist((c << 8) - c0 - d, b) > ALIAS_WIDTH << 8
+                           and _dist((c << 8) - c0 + d, b) > ALIAS_WIDTH << 8):
+                continue
+            yr = 0
+            yi = 0
+            for j in range(b):
+                k = (c * j) % b                    # e**(-2 pi i k / b)
+                if k <= h:
+                    cr = ct[k]
+                    ci = -st[k]
+                else:
+                    cr = ct[b - k]
+                    ci = st[b - k]
+                yr += (tr[j] * cr - ti[j] * ci) >> 15
+                yi += (tr[j] * ci + ti[j] * cr) >> 15
+            yr >>= 6                               # |Y| <= 2**13.5 * b / 2: now <= 2**11.6
+            yi >>= 6
+            if on:
+                line += yr * yr + yi * yi
+                nl += 1
+            else:
+                side += yr * yr + yi * yi
+                ns += 1
+        rest = (e * b) >> 5                        # sum of all cells' (Y >> 6)**2: e * 2**7 * b / 2**12
+        rest -= line + side
+        if line <= 0:
+            line = 1
+        if rest <= 0:
+            rest = 1
+        t = self.tab
+        return (log2_q8(line, t) - log2_q8(nl, t)) - (log2_q8(rest, t) - log2_q8(b - nl - ns, t))
+
+
+def _dist(v, b):
+    """|v| Q8 cells taken around a circle of b cells (|v| < 2 * b * 256)."""
+    v = v % (b << 8)
+    return (b << 8) - v if v > b << 7 else v
