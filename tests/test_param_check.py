@@ -181,9 +181,9 @@ def test_host_commands_refuse_the_sets_with_one_line(tmp_path, capsys):
 
 
 def test_a_board_with_room_for_one_set_tries_a_set_in_place_of_the_running_one(tmp_path, monkeypatch):
-    # The ESP32-S3 profile's heap budget (131072 bytes) holds its running set (92530 bytes by
-    # board.memory_need) but not a second feature core (88685 bytes, features.footprint_bytes):
-    # building beside it raises MemoryError, so the trial runs in the running set's place.
+    # A board whose heap holds its running set but not a second feature core and detector (the
+    # Pico: docs/boards.md, Memory budget): building beside it raises MemoryError (simulated on
+    # the desk profile), so the trial runs in the running set's place.
     gw = gateway(tmp_path)
     build = params_mod.build
 
