@@ -21,17 +21,16 @@ far from the average's, the value is UNSET and the detector holds the feature ne
 
 The whole orders leak into every tap through the per-window Hann window's side lobes (about
 -50 dB at 4 bins; a pump's 1x stands 50 dB and more over one bin's noise), and across the block
-they turn at a whole number of cycles per window from each other, so every whole order's leakage
+they turn a whole number of cycles per window from each other, so every whole order's leakage
 lands a whole multiple of x1 x every / 2 cycles per window from the line: its nearest images sit
-+-ALIAS cells from it, ALIAS = (x1 x every / 2 mod 1) x BLK. Those cells are left out of the
-floor; and where they fall within HALF_WIDTH + ALIAS_WIDTH cells of the line the block cannot
-tell the line from the leakage and says nothing (its value does not enter the average). This is
-the physics of the time base, not a tuning: a 2-pole pump on 50 Hz mains at 512 samples and
-3200 Hz, or a 4-pole one at 1024, runs with x1 / 2 near a whole number of bins, and its half
-orders cannot be read this way there.
++-ALIAS cells from it, ALIAS = (x1 x every / 2 mod 1) x BLK, on the line itself at speeds near a
+multiple of 2 bins. The taps null the two nearest whole orders (half_taps: 43 dB and more under
+the plain bin's leakage 3 bins or more away), and the images' cells are still left out of the
+floor, so what is left of them does not lift it.
+
 Integer-only; push() allocates nothing.
 
-Scales: taps counts Q8 (|tap| <= 2**24). Each tap's block is shifted so that its largest
+Scales: taps counts Q8 (|tap| < 2**27). Each tap's block is shifted so that its largest
 component has its top bit at bit 13, then windowed (Hann, Q15): |t| <= 2**13 per component, and
 each DFT term (Q15 twiddle) <= 2**14. A cell Y sums blk <= 32 of them, |Y| <= sqrt(2) * 2**13 *
 blk / 2 (the Hann weights sum to blk / 2) <= 2**17.5; its power is taken as (Y >> 6)**2 <= 2**23,
@@ -53,9 +52,9 @@ from firmware_py.dsp.half_taps import ODDS, tap_bin
 UNSET = const(-16384)          # no average yet (LOG2_ZERO_Q8)
 SHIFT = const(3)               # EWMA weight 2**-3 per block; counts from 8 blocks
 X1_LIM = const(1 << 20)        # a 1x beyond any window (bins Q8 < n / 2 * 256 <= 2**19)
-TAP_LIM = const(1 << 24)       # half_taps' bound
-# Analysed windows per block (5.1 s at 512 samples and 3200 Hz). Fewer would leave no floor:
-# the line's 7 cells and the two leakage images' 5 each need 17, and the floor wants as many.
+TAP_LIM = const(1 << 27)       # half_taps' bound
+# Analysed windows per block (5.1 s at 512 samples and 3200 Hz). Fewer would leave little floor:
+# the line's 7 cells and the two leakage images' 5 each take 17, and the floor wants as many.
 BLK = const(32)
 HALF_WIDTH = const(3)          # cells each side of the line: the Hann main lobe (2) and 1 for the
 #                                error of the block's mean speed
@@ -140,7 +139,7 @@ class HalfLines:
 
     @staticmethod
     def _sane(f, o):
-        """The taps within their bound (half_taps: |tap| <= 2**24), as the core writes them."""
+        """The taps within their bound (half_taps: |tap| < 2**27), as the core writes them."""
         for i in range(6):
             v = f[o + fi.F_TAP_RE + i]
             if v > TAP_LIM or v < -TAP_LIM:
@@ -154,10 +153,6 @@ class HalfLines:
         # the whole orders' nearest images: ALIAS Q8 cells each side of the line (x1 * every
         # mod 2 bins, Q8, times b / 2), the same for the three taps (module docstring)
         d = (b >> 1) * ((x1 * self.every) % 512)
-        if d > b << 7:
-            d = (b << 8) - d
-        if d <= (HALF_WIDTH + ALIAS_WIDTH) << 8:
-            return                                 # the leakage sits on the line
         s = 0
         for i in range(3):
             s += self._prominence(a, i, x1, d)

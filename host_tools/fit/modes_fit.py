@@ -166,9 +166,10 @@ def half_aside(params: dict, lo_hz: float, hi_hz: float, every: int) -> list[int
     the block they turn at every x x1 / 2 cycles per window from it: when that lies within the
     line's cells plus the block window's main lobe (HALF_WIDTH + ALIAS_WIDTH cells) of a whole
     number for some speed of the mode, the leakage sits on the line and moves with the speed's
-    fraction of a bin (the device then drops the block, half_lines; so strong a leakage also
-    reaches the line through the block window's side lobes where it is dropped less often). fit()
-    gives such a prominence the largest spread in that mode, as set_aside does."""
+    fraction of a bin. The taps' nulls (half_taps) take some 40 dB off it, but through the main
+    lobe it starts at about -6 dB of the 1x, and the null's depth there hangs on the speed
+    estimate's last hundredth of a bin. fit() gives such a prominence the largest spread in that
+    mode, as set_aside does."""
     b = BLK
     lo = lo_hz * params["n"] / params["fs_hz"] / 2
     hi = hi_hz * params["n"] / params["fs_hz"] / 2

@@ -45,6 +45,11 @@ class TwinConfig:
     bear_q12: tuple = ()
 
 
+def _bin(xr, xi, rows, k):
+    """(windows, 2) int64: re, im of each window's bin k (one bin per window)."""
+    return np.stack([xr[rows, k], xi[rows, k]], axis=1).astype(np.int64)
+
+
 class FeatureTwin:
     """Vectorised FeatureCore: features(counts) -> int32 array (windows, axes * per_axis)."""
 
@@ -341,17 +346,21 @@ class FeatureTwin:
                                    LOG2_ZERO_Q8)
 
     def _taps(self, xr, xi, f1, u, f):
-        """half_taps.run over all windows, from the spectra X (re, im: windows, m+1)."""
+        """half_taps.run over all windows, from the spectra X (re, im: windows, m+1); the weights
+        are half_taps.weight itself, on arrays."""
         rows = np.arange(xr.shape[0])
         f[:, F_TAP_X1] = f1
         up = np.maximum(8 - u, 0)[:, None]
         dn = np.maximum(u - 8, 0)[:, None]
+        x1 = f1.astype(np.int64)
         for i, odd in enumerate(half_taps.ODDS):
-            k = np.where(f1 > 0, (odd * f1.astype(np.int64) + 256) >> 9, 0)
-            ok = (k >= 1) & (k < self.m)
-            kk = np.where(ok, k, 1)
-            pair = np.stack([xr[rows, kk], xi[rows, kk]], axis=1).astype(np.int64)
-            f[:, F_TAP_RE + 2 * i:F_TAP_RE + 2 * i + 2] = np.where(ok[:, None], (pair << up) >> dn, 0)
+            k = np.where(f1 > 0, (odd * x1 + 256) >> 9, 0)
+            ok = (k >= 2) & (k <= self.m - 2)
+            kk = np.where(ok, k, 2)
+            p, q = half_taps.weight(x1, odd, kk, -1), half_taps.weight(x1, odd, kk, 1)
+            t = ((_bin(xr, xi, rows, kk) << 12) + p[:, None] * _bin(xr, xi, rows, kk - 1)
+                 + q[:, None] * _bin(xr, xi, rows, kk + 1)) >> 12
+            f[:, F_TAP_RE + 2 * i:F_TAP_RE + 2 * i + 2] = np.where(ok[:, None], (t << up) >> dn, 0)
 
     def _envelope(self, xr, xi, f1, f):
         """envelope.Envelope.run over all windows, from the spectra X (re, im: windows, m+1)."""
