@@ -228,27 +228,37 @@ def test_event_captures_last_2_s_fit_ram_and_flash_and_match_the_docs(name):
                                      str(fit), str(slots)], "update docs/boards.md, Event captures"
 
 
-def test_the_pico_capture_buffer_takes_what_the_plan_says_on_micropython():
-    """Heap the Pico's SnapshotRing takes on the WASI MicroPython (gc.mem_alloc around its
-    construction): the capture buffer's payload, the 1024-byte header writer, and at most 1024
-    bytes of object headers and bookkeeping (the allowance board.memory_need makes for the
-    core's headers); with the core's need it stays inside the profile's heap budget."""
+def _guest_heap(setup: str, construct: str) -> int:
+    """Heap bytes (gc.mem_alloc around it, collected before and after) that the expression
+    `construct` keeps on the WASI MicroPython, after the statements `setup`. The result's name
+    is bound before the first reading: naming a new global after it would grow the module's own
+    table."""
     from host_tools.twin.mpy_guest import run_guest
-    from firmware_py.store.snapshots import META_CAP, ram_bytes
-    p = profile("pico_adxl345")
-    pre, post, slots = board.capture_plan(p)
-    res = run_guest(f"""
+    body = setup + """
 import gc
-from firmware_py.store.snapshots import SnapshotRing
 def build():
-    return SnapshotRing('/nonexistent-edgevib', {slots}, {p['sample_rate_hz']}, {p['window_n']}, {p['axes']}, {pre}, {post})
+    return """ + construct + """
+r = None
 gc.collect()
 a0 = gc.mem_alloc()
 r = build()
 gc.collect()
 emit(gc.mem_alloc() - a0)
-""")
-    heap = res.out[0]
+"""
+    return run_guest(body).out[0]
+
+
+def test_the_pico_capture_buffer_takes_what_the_plan_says_on_micropython():
+    """Heap the Pico's SnapshotRing takes on the WASI MicroPython (gc.mem_alloc around its
+    construction): the capture buffer's payload, the 1024-byte header writer, and at most 1024
+    bytes of object headers and bookkeeping (the allowance board.memory_need makes for the
+    core's headers); with the core's need it stays inside the profile's heap budget."""
+    from firmware_py.store.snapshots import META_CAP, ram_bytes
+    p = profile("pico_adxl345")
+    pre, post, slots = board.capture_plan(p)
+    heap = _guest_heap("from firmware_py.store.snapshots import SnapshotRing",
+                       f"SnapshotRing('/nonexistent-edgevib', {slots}, {p['sample_rate_hz']}, {p['window_n']}, "
+                       f"{p['axes']}, {pre}, {post})")
     payload = ram_bytes(p["axes"], p["window_n"], pre + post) + META_CAP
     assert payload <= heap <= payload + 1024, (payload, heap)
     assert board.memory_need(p) + heap <= p["heap_budget_bytes"]
@@ -334,28 +344,14 @@ def test_the_detector_takes_what_its_footprint_says_on_micropython(axes):
     around its construction): its array payloads (detector.footprint_bytes), plus the headers,
     block rounding and attribute tables counted from the objects it holds and what the
     collector's stale pointers may add, which board.memory_need allows for in DETECTOR_OBJECTS."""
-    from host_tools.twin.mpy_guest import run_guest
     p = _largest_detector_set(axes)
     det = detector.Detector(p)
     assert (det.d, det.model.k, det.alarm.ev.span, det.events.cap) == (DMAX, KMAX, SPAN_MAX,
                                                                       event_ring.CAP_MAX)
     with pytest.raises(ValueError, match="det_persist_ms spans more than"):
         detector.Detector(dict(p, det_persist_ms=(SPAN_MAX + 1) * 160))
-    # `det = None` first: naming a new global after a0 would grow the module's own table
-    res = run_guest(f"""
-import gc, json
-from firmware_py.detect.detector import Detector
-p = json.loads({json.dumps(p)!r})
-def build():
-    return Detector(p)
-det = None
-gc.collect()
-a0 = gc.mem_alloc()
-det = build()
-gc.collect()
-emit(gc.mem_alloc() - a0)
-""")
-    heap = res.out[0]
+    heap = _guest_heap(f"import json\nfrom firmware_py.detect.detector import Detector\np = json.loads({json.dumps(p)!r})",
+                       "Detector(p)")
     payload = detector.footprint_bytes(axes)
     objects = _object_bytes(det, set())
     assert payload <= heap <= payload + objects + _STALE, (payload, objects, heap)
