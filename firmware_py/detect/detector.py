@@ -1099,11 +1099,11 @@ class Detector:
 
 def footprint_bytes(axes):
     """Heap bytes the arrays of a Detector on `axes` axes (det_axes, 1 to 8) take for the largest
-    parameter set it accepts (array payloads; object headers and the instances' attribute tables come on top, and
-    board.memory_need allows for them): d = DMAX scored features, KMAX modes, an evidence span of
-    SPAN_MAX windows (one byte each) and an event ring of event_ring.CAP_MAX events. Array by
-    array as Detector.__init__ makes them, so a smaller set takes less. Used by board profiles
-    to check the heap budget."""
+    parameter set it accepts (array payloads; object headers and the instances' attribute tables
+    come on top, and board.memory_need allows for them): d = DMAX scored features, KMAX modes, an
+    evidence span of SPAN_MAX windows (one byte each), an event ring of event_ring.CAP_MAX events
+    and the half-order stage. Array by array as Detector.__init__ makes them, so a smaller set
+    takes less. Used by board profiles to check the heap budget."""
     d = DMAX
     # per scored feature, 6 int arrays (idx, mean0_q4, sgain_q8, u, z, ew_acc) and 4 byte
     # arrays (logf, ord_axis, held, half_axis)

@@ -8,8 +8,8 @@
 # firmware_py/detect/half_lines.py). So each window hands over its raw complex values here.
 #
 # Each tap nulls the two whole orders beside its half order (1x and 2x for 1.5x, 2x and 3x for
-# 2.5x; for 0.5x the 1x and, as the window's mean is removed, the 1x's negative-frequency image). Through the Hann window a tone at delta bins from bin k reaches bin
-# k + j as -e**(-i pi delta) sin(pi delta) / (2 pi) / ((delta - j) ((delta - j)**2 - 1)) (the
+# 2.5x; for 0.5x the 1x and, as the window's mean is removed, the 1x's negative-frequency image).
+# Through the Hann window a tone at delta bins from bin k reaches bin k + j as -e**(-i pi delta) sin(pi delta) / (2 pi) / ((delta - j) ((delta - j)**2 - 1)) (the
 # periodic Hann is 0.5 D(d) - 0.25 D(d - 1) - 0.25 D(d + 1) of the Dirichlet kernel D; Harris,
 # Proc. IEEE 66, 1978; n large), a common factor times a rational function. So
 # T = X[k] + p X[k - 1] + q X[k + 1] reads a tone at delta as that factor times
@@ -27,12 +27,16 @@
 # Scales: buf holds X[k] = DFT(x)[k] / m in the packed real-FFT layout (fft.spectrum with keep_x),
 # where x = the Hann-windowed (Q15 table) window y = (counts - mean) * 2**u; |X| <= 2**14 per
 # component. p, q: Q12, |p| + |q| < 3.6 for whole orders at least half a bin from the tap (a 1x
-# of at least 2 bins, the speed search's floor). A tap is T * 2**(8 - u): counts Q8 of the same
+# of at least 2 bins, the speed search's floor). No taps for a 1x of X1_MAX or more (256 bins:
+# 1600 Hz at 512 samples and 3200 Hz, 100 Hz at 8192), which keeps the weights' products small. A tap is T * 2**(8 - u): counts Q8 of the same
 # transform, so windows of different gain u compare; u >= -2 (a peak under 2**16 counts), so
 # |tap| <= 4.6 * 2**14 * 2**10 < 2**27.
+from micropython import const
+
 from firmware_py.dsp.feature_index import F_TAP_RE, F_TAP_X1
 
 ODDS = (1, 3, 5)        # the half orders 0.5x, 1.5x, 2.5x as odd multiples of 0.5x
+X1_MAX = const(1 << 16)  # bins Q8: the largest 1x, exclusive, that gets taps
 
 
 def tap_bin(f1_q8, odd):
@@ -43,9 +47,9 @@ def tap_bin(f1_q8, odd):
 def weight(f1_q8, odd, k, side):
     """Q12 weight of bin k + side (side -1: p, +1: q) that, with bin k's 1, nulls the whole orders
     beside tap bin k (module comment); one at a time, as a pair would allocate a tuple. Offsets
-    a, b in Q8 bins (|.| < 2**15 for a 1x under 2**20 Q8), taken to Q6 for the products
-    (|ab| < 2**26, Q12), so 2 - ab >= 2 bins**2 (a <= 0 <= b) and K = 6 / (2 - ab) <= 3 in Q12
-    (6 * 2**24 < 2**27); K (a + b) / 3 from a + b in Q6 (< 2**28)."""
+    a, b in Q8 bins (|a| < 1.5 * X1_MAX + 2**8, b about x1 / 2), taken to Q6 for the products
+    (|ab| < 2**29.2, Q12), so 2 - ab >= 2 bins**2 (a <= 0 <= b) and K = 6 / (2 - ab) <= 3 in Q12
+    (6 * 2**24 < 2**27); K (a + b) / 3 from a + b in Q6 (|a + b| <= x1 + 2**8: K (a + b) < 2**28)."""
     lo = (odd - 1) >> 1 if odd > 1 else -1     # 0.5x: no DC (the mean is removed), but the 1x's
     a = lo * f1_q8 - (k << 8)                  # image at -1x
     b = ((odd + 1) >> 1) * f1_q8 - (k << 8)
@@ -61,7 +65,7 @@ def run(buf, m, f1_q8, u, f, off):
     get zeros. The sum X[k] 2**12 + p X[k - 1] + q X[k + 1] stays under 2**14 * 4.6 * 2**12."""
     f[off + F_TAP_X1] = f1_q8
     for i in range(3):
-        k = tap_bin(f1_q8, ODDS[i]) if f1_q8 > 0 else 0
+        k = tap_bin(f1_q8, ODDS[i]) if 0 < f1_q8 < X1_MAX else 0
         o = off + F_TAP_RE + 2 * i
         if k < 2 or k > m - 2:
             f[o] = 0

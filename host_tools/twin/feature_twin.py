@@ -354,7 +354,7 @@ class FeatureTwin:
         dn = np.maximum(u - 8, 0)[:, None]
         x1 = f1.astype(np.int64)
         for i, odd in enumerate(half_taps.ODDS):
-            k = np.where(f1 > 0, (odd * x1 + 256) >> 9, 0)
+            k = np.where((f1 > 0) & (f1 < half_taps.X1_MAX), (odd * x1 + 256) >> 9, 0)
             ok = (k >= 2) & (k <= self.m - 2)
             kk = np.where(ok, k, 2)
             p, q = half_taps.weight(x1, odd, kk, -1), half_taps.weight(x1, odd, kk, 1)
