@@ -32,14 +32,14 @@ Integer-only; push() allocates nothing.
 
 Scales: taps counts Q8 (|tap| < 2**27). Each tap's block is shifted so that its largest
 component has its top bit at bit 13, then windowed (Hann, Q15): |t| <= 2**13 per component, and
-each DFT term (Q15 twiddle) <= 2**14. A cell Y sums blk <= 32 of them, |Y| <= sqrt(2) * 2**13 *
+each DFT term (Q15 twiddle) <= 2**14. A cell Y sums blk = 32 of them, |Y| <= sqrt(2) * 2**13 *
 blk / 2 (the Hann weights sum to blk / 2) <= 2**17.5; its power is taken as (Y >> 6)**2 <= 2**23,
 and the cells' sum (Parseval: blk * sum |t|**2 / 2**12, from e = sum(|t|**2 >> 7) <= 3/8 * blk *
 2**20, as the Hann weights' squares sum to 3/8 blk) stays under 2**28, as does e * blk.
 Prominence and its average: log2 Q8.
 
-Entry points: footprint_bytes(axes); HalfLines(axes, pa, every, tol_q12, tab); push(f, steady) once per window; cut() when
-the next window will not follow the last; value[a].
+Entry points: footprint_bytes(axes); HalfLines(axes, pa, every, tol_q12, tab); push(f, steady)
+once per window; cut() when the next window will not follow the last; value[a].
 """
 from array import array
 from micropython import const
@@ -63,7 +63,7 @@ ALIAS_WIDTH = const(2)         # cells each side of a whole order's image: the H
 
 def footprint_bytes(axes):
     """Heap bytes of a HalfLines' arrays on `axes` axes (payloads, as __init__ makes them): the
-    taps of one block per axis (6 ints a window), 8 ints of state per axis, the scratch of one
+    taps of one block per axis (6 ints a window), 9 ints of state per axis, the scratch of one
     tap's block (2 ints a window), the block's twiddles (2 x (BLK / 2 + 1) ints) and Hann
     window (BLK halfwords)."""
     return 4 * axes * 6 * BLK + 4 * 9 * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1) + 2 * BLK
