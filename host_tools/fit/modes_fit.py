@@ -298,7 +298,6 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     for m in range(k if op else 0):
         spread[m, set_aside(params, op[2 * m] / 256.0)] = dm.Z_LIM
         spread[m, half_aside(params, op[2 * m] / 256.0, op[2 * m + 1] / 256.0, every)] = dm.Z_LIM
-    pa = fi.per_axis(params["det_bands"])
     least = half_spread_floor_q8()
     for j, i in enumerate(params["det_feat"]):
         if i % pa == fi.F_HALF:

@@ -136,10 +136,14 @@ def _fill_half(feats: list[StreamFeatures], steps: list, p: dict) -> None:
             sf.feats[:, a * pa + fi.F_HALF] = st.half_q8[:, a]
 
 
+def _gaps(sf: StreamFeatures, params: dict, every: int) -> np.ndarray:
+    """window_gaps of a stream on the board's time base (one analysed hop: n x every samples)."""
+    return window_gaps(sf.t_s, params["n"] * every / params["fs_hz"])
+
+
 def _run(params: dict, feats: list[StreamFeatures], every: int):
     """Step a fresh device Detector (on the board's time base) over each stream; the Steps."""
-    hop = params["n"] * every / params["fs_hz"]
-    return [step_detector(Detector(params, every), sf.feats, 0, window_gaps(sf.t_s, hop)) for sf in feats]
+    return [step_detector(Detector(params, every), sf.feats, 0, _gaps(sf, params, every)) for sf in feats]
 
 
 class _Channels:
@@ -200,7 +204,7 @@ def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: lis
     for i, sf in enumerate(feats):
         sel = None if select is None else select[i]
         ch = _Channels(Detector(_mute(params), every), sel)
-        st = step_detector(ch, sf.feats, 0, window_gaps(sf.t_s, params["n"] * every / params["fs_hz"]))
+        st = step_detector(ch, sf.feats, 0, _gaps(sf, params, every))
         if sequences:
             out.combined.extend(evidence_sequences(st, sel))
             out.per_feature.extend(c * zlam for c in evidence_sequences(replace(st, score_q8=np.array(ch.zmax)), sel))
@@ -888,7 +892,6 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
             return train(recordings, profile, false_alerts_per_month, version, folds, jobs, bearing, progress, moved)
     held = [(pf, [wf == f for wf in win_fold]) for f, pf in fold_sets] or [(p, None)]
     parts = [_held_out(pf, feats, every, sel, sequences=False) for pf, sel in held]
-    pa = fi.per_axis(len(p["fc_bands"]))
     gains, learned["slow_gains"] = sgain_q8(sum(h.ew_ss for h in parts), sum(h.ew_n for h in parts),
                                             Detector(p, every).ew_shift,
                                             [i % pa == fi.F_HALF for i in p["det_feat"]])
