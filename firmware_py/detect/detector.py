@@ -361,10 +361,9 @@ class Detector:
         self.held = array("b", bytes(d))          # 1 where _mask_lines neutralised the line
         # slow channel: per scored feature the EWMA of its departure t_j, kept as the accumulator
         # ew_acc = EWMA * 2**ew_shift (Q8 spreads << ew_shift) so that no precision is lost to
-        # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input); mode m's at
-        # m * d, each mode's against its own centroid
-        self.ew_acc = array("i", bytes(4 * d * KMAX))
-        self.ew_used = False                      # set by _slow: some accumulator may be non-zero
+        # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input)
+        self.ew_acc = array("i", bytes(4 * d))
+        self.ew_mode = -1                         # the mode the EWMA belongs to
         self.s_drive = 0                          # j of the largest EWMA (smax_q8)
         # per scored feature: the axis of a half-order prominence (F_HALF), which this detector
         # keeps itself (self.half), else -1 (see _transform)
@@ -463,12 +462,10 @@ class Detector:
             return al.UNSCORED
         return lv
 
-    def _forget(self, slow=True):
-        """Forget the persistence evidence (stop, fault, learning); the slow channel's with it
-        unless slow is False (a stop)."""
+    def _forget(self):
+        """Forget the persistence evidence (stop, fault, learning), the slow channel's with it."""
         self.alarm.reset()
-        if slow:
-            self._ew_reset()
+        self._ew_reset()
         if self.resets < _BIG:
             self.resets += 1
 
@@ -761,7 +758,7 @@ class Detector:
             self._count(W_IDLE)
             self.running = False
             self._restart()
-            self._forget(False)
+            self._forget()
             if not self.learning:
                 self._set(self._base_state(), al.R_STOPPED)
             return self.state
@@ -883,12 +880,12 @@ class Detector:
         """The slow channel: each feature's departure t_j (md.t_q8, within [-768, 32767] Q8)
         enters its EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >> shift
         is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12). A
-        line neutralised by _mask_lines carries no evidence: its EWMA holds. Each mode m keeps its
-        own accumulators (ew_acc[m * d:(m + 1) * d]), the departures being against its centroid, so
-        a return to a mode resumes its evidence. smax = the largest weighted EWMA (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and
+        line neutralised by _mask_lines carries no evidence: its EWMA holds. A new mode starts
+        from 0. smax = the largest weighted EWMA (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and
         sgain <= 4096, so the product < 2**27), at least 0 (rises only, like zmax); s_drive its j."""
-        self.ew_used = True
-        b = m * self.d
+        if m != self.ew_mode:
+            self._ew_reset()
+            self.ew_mode = m
         acc = self.ew_acc
         t = self.model.t_q8
         g = self.sgain_q8
@@ -898,22 +895,22 @@ class Detector:
         self.s_drive = 0
         for j in range(self.d):
             if not (op and self.held[j]):
-                acc[b + j] += t[j] - (acc[b + j] >> sh)
-            e = ((acc[b + j] >> sh) * g[j]) >> 8
+                acc[j] += t[j] - (acc[j] >> sh)
+            e = ((acc[j] >> sh) * g[j]) >> 8
             if e > top:
                 top = e
                 self.s_drive = j
         self.smax_q8 = top
 
     def _ew_reset(self):
-        """Start every mode's slow channel afresh (a sensor fault, learning). A stop keeps it: a
-        stop does not change the machine's condition. Only _slow fills it, and it sets ew_used,
-        so without it the accumulators are all 0 already (no loop)."""
-        if not self.ew_used:
+        """Start the slow channel afresh (stop, sensor fault, learning, a change of mode). Only
+        _slow fills it, and it sets ew_mode, so with ew_mode -1 it is all 0 already (an idle
+        window, which forgets the evidence each time, costs no loop)."""
+        if self.ew_mode < 0:
             return
-        for j in range(self.d * KMAX):
+        for j in range(self.d):
             self.ew_acc[j] = 0
-        self.ew_used = False
+        self.ew_mode = -1
 
     def _mask_lines(self, f, m):
         """Order and envelope lines of an axis whose own 1x estimate (F_SPEED) lies more than the
@@ -1108,9 +1105,9 @@ def footprint_bytes(axes):
     and the half-order stage. Array by array as Detector.__init__ makes them, so a smaller set
     takes less. Used by board profiles to check the heap budget."""
     d = DMAX
-    # per scored feature, 5 int arrays (idx, mean0_q4, sgain_q8, u, z), the slow channel's
-    # accumulators of every mode (ew_acc) and 4 byte arrays (logf, ord_axis, held, half_axis)
-    feat_b = 4 * 5 * d + 4 * d * KMAX + 4 * d
+    # per scored feature, 6 int arrays (idx, mean0_q4, sgain_q8, u, z, ew_acc) and 4 byte
+    # arrays (logf, ord_axis, held, half_axis)
+    feat_b = 4 * 6 * d + 4 * d
     model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
     learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
         + welford.footprint_bytes(KMAX)           # wb, wm, lsp
