@@ -9,7 +9,7 @@ from scipy import stats
 
 import firmware_py  # noqa: F401
 from firmware_py.detect import alarm as al
-from firmware_py.detect.detector import LATER_KEYS, Detector, default_params
+from firmware_py.detect.detector import LATER_KEYS, SLOW_HALF_S, Detector, default_params
 from firmware_py.dsp import feature_index as fi
 from firmware_py.run import param_check
 
@@ -39,9 +39,11 @@ def _frame(d):
     return f
 
 
-def _ewma(det):
-    """The slow channel's per-feature EWMA, Q8 spreads."""
-    return [a >> det.ew_shift for a in det.ew_acc]
+def _ewma(det, m=None):
+    """The slow channel's per-feature EWMA of mode m (default: the window's mode, else 0), Q8
+    spreads."""
+    m = (det.mode if det.mode >= 0 else 0) if m is None else m
+    return [a >> det.ew_shift for a in det.ew_acc[m * det.d:(m + 1) * det.d]]
 
 
 def test_shift_is_the_nearest_power_of_two_of_the_time_constant():
@@ -114,7 +116,7 @@ def test_step_response_and_driving_feature():
             assert det.feat == fi.F_BAND0 + 2
 
 
-def test_resets_on_stop_and_mode_change():
+def test_each_mode_keeps_its_own_ewma_through_stops_and_a_sensor_fault_forgets_all():
     d = 2
     p = _params(d, det_slow_ms=32 * W_MS, det_modes=2, det_mode_c_q8=[0, 0, 512, 512],
                 det_mode_s_q8=[256] * 4, det_op_speed_q8=[0, 25 * 256, 25 * 256 + 1, 60 * 256],
@@ -127,17 +129,73 @@ def test_resets_on_stop_and_mode_change():
     for i in range(50):
         det.step(f, i, 0)
     assert det.mode == 0 and _ewma(det)[0] > 256
-    f[fi.F_SPEED] = 30 * 256                  # the other operating point: a fresh EWMA
+    kept = _ewma(det, 0)
+    f[fi.F_SPEED] = 30 * 256                  # the other operating point: its own EWMA, from 0
     det.step(f, 50, 0)
     assert det.mode == 1
     # first window of mode 1: t = (2 - 2) spreads on feature 0, (0 - 2) on feature 1
     assert _ewma(det) == [0, (-512) >> 5]
     for i in range(51, 80):
         det.step(f, i, 0)
-    assert _ewma(det)[1] < 0
-    f[fi.F_VEL] = IDLE - 1                    # stopped: the evidence is forgotten, the EWMA too
-    det.step(f, 80, 0)
-    assert list(det.ew_acc) == [0, 0] and det.smax_q8 == 0
+    assert _ewma(det)[1] < 0 and _ewma(det, 0) == kept     # mode 0's evidence waits
+    f[fi.F_VEL] = IDLE - 1                    # stopped: the persistence span is forgotten, the
+    det.step(f, 80, 0)                        # machine's condition (the EWMAs) is not
+    assert det.smax_q8 == 0 and _ewma(det, 0) == kept and _ewma(det, 1)[1] < 0
+    f[fi.F_VEL] = VEL_PER_MM_S
+    f[fi.F_SPEED] = 20 * 256                  # back at mode 0: it goes on from where it was
+    det.step(f, 81, 0)
+    assert det.mode == 0 and _ewma(det)[0] >= kept[0] - 1
+    f[fi.F_ZERO] = det.zero_max[0] + 1        # a dropout: a sensor fault forgets every mode's
+    det.step(f, 82, 0)
+    assert det.state == al.SENSOR_FAULT and not any(det.ew_acc)
+
+
+def test_a_modes_evidence_halves_for_every_full_hour_it_was_not_scored():
+    # detector.SLOW_HALF_S: the accumulators of a mode are shifted right once per full hour of
+    # the detector's clock (windows of n / fs s, plus the seconds det.gap(s) reports) since the
+    # mode was last scored. Exact integers: the acc is an int, halved by >>, then one window's
+    # update acc += t - (acc >> shift) (the recursion, docs/detector.md).
+    d = 2
+    det = Detector(_params(d, det_slow_ms=32 * W_MS))
+    f = _frame(d)
+    f[fi.F_BAND0] = 2 * SD
+    for i in range(40):
+        det.step(f, i, 0)
+    acc = det.ew_acc[0]
+    det.gap(2 * SLOW_HALF_S + 5)              # 2 h 5 s missing: two halvings
+    det.step(f, 40, 0)
+    half = acc >> 2
+    assert det.ew_acc[0] == half + 512 - (half >> det.ew_shift)
+    acc = det.ew_acc[0]
+    det.gap(SLOW_HALF_S - 1)                  # 1 s short of an hour (the window's 0.16 s do
+    det.step(f, 41, 0)                        # not make it up): no halving
+    assert det.ew_acc[0] == acc + 512 - (acc >> det.ew_shift)
+    # stopped windows count on the clock too: 22 500 windows of 0.16 s are exactly an hour
+    acc = det.ew_acc[0]
+    f[fi.F_VEL] = IDLE - 1
+    for i in range(22500):
+        det.step(f, 42 + i, 0)
+    f[fi.F_VEL] = VEL_PER_MM_S
+    det.step(f, 30000, 0)
+    half = acc >> 1
+    assert det.ew_acc[0] == half + 512 - (half >> det.ew_shift)
+
+
+def test_the_clock_rebases_and_keeps_every_age_right():
+    # Gaps of _GAP_MAX_S push the clock over 2**29 s; it moves back by 2**28 with the modes'
+    # times, so every value stays a small int (< 2**30 on the device) and the age is unchanged:
+    # 300 days away is 7200 halvings, capped at 28, which leave 0 of a positive accumulator.
+    d = 2
+    det = Detector(_params(d, det_slow_ms=32 * W_MS))
+    f = _frame(d)
+    f[fi.F_BAND0] = 2 * SD
+    for i in range(40):
+        det.step(f, i, 0)
+    for _ in range(40):
+        det.gap(1 << 24)
+        assert det.clock_s < 1 << 29 and all(-(1 << 28) <= v < 1 << 29 for v in det.ew_seen_s)
+    det.step(f, 40, 0)
+    assert det.ew_acc[0] == 512                # the old evidence gone, one window's update left
 
 
 def _stream(d, n, seed):

@@ -14,7 +14,7 @@ from firmware_py.run import params as pm
 from host_tools.data import demo_scenario as ds
 from host_tools.cli import main
 from host_tools.data.recording import read_stream
-from host_tools.twin.replay import feature_name, replay
+from host_tools.twin.replay import feature_name, replay, window_gaps
 from host_tools.fit.training import train
 from tests.test_training import FS, PROFILE, healthy_stream, pump_counts, recording
 from tests.test_training import _write as write_recordings
@@ -339,3 +339,14 @@ def test_compare_lists_the_differences_of_two_separate_replays(tmp_path, capsys,
     assert (report / "index.html").is_file() and (report / "scores.png").stat().st_size > 0
     page = (report / "index.html").read_text()
     assert "strict.msgpack" in page and ("UTC" in page or "t = " in page)
+
+
+def test_window_gaps_gives_the_seconds_missing_between_recordings():
+    # Windows of 0.16 s: consecutive ends 0.16 s apart are -1; a jump from 0.32 s to 3600.96 s
+    # leaves 3600.96 - 0.32 - 0.16 = 3600.48 s without signal, 3600 whole seconds (what
+    # det.gap(s) ages the slow channel by); the first window without a predecessor is a gap of
+    # unknown length, 0; with one, it is measured like the others.
+    t = np.array([0.16, 0.32, 3600.96, 3601.12])
+    assert window_gaps(t, 0.16).tolist() == [0, -1, 3600, -1]
+    assert window_gaps(t, 0.16, prev_t_s=0.0).tolist() == [-1, -1, 3600, -1]
+    assert window_gaps(t, 0.16, prev_t_s=-10.0).tolist() == [10, -1, 3600, -1]

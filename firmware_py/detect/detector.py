@@ -32,7 +32,8 @@ API
       W_*); det.speed_q8 (Hz Q8), det.conf_q8 (Q8), det.load_q8 (log2 Q8): the operating point;
       det.pushed (1 if the window added to the persistence evidence) and det.resets (times that
       evidence was forgotten).
-    det.gap()          the next window does not follow the last (lost samples, a recording gap)
+    det.gap(s=0)       the next window does not follow the last (lost samples, a recording gap);
+                       s: whole seconds of signal missing, which age the slow channel's evidence
     det.ack(t_s)       acknowledge a latched alarm; det.learn(t_s) start learning (False if
                        refused: alarm latched or sensor fault); det.stop_learning(t_s) abandon it
     det.events         EventRing (firmware_py/detect/event_ring.py): i = det.events.pop() -> slot or -1;
@@ -132,6 +133,11 @@ PARAM_KEYS = (
 LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8")
 SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
 _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
+# A mode's slow-channel evidence halves for every full SLOW_HALF_S seconds it was not scored
+# (other modes, stops, gaps): kept over a stop or an excursion, gone after a day away.
+SLOW_HALF_S = const(3600)
+_CLOCK_REBASE = const(1 << 29)   # the detector's clock (s) is moved back by 2**28 past this
+_GAP_MAX_S = const(1 << 24)      # longest gap counted at once (194 days): the clock stays small
 
 # why a window was not scored (det.why; 0 = scored); det.n_why counts each, saturating
 W_SCORED = const(0)
@@ -307,6 +313,11 @@ class Detector:
             if not 0 <= self.sgain_q8[j] <= SGAIN_MAX:
                 raise ValueError("det_sgain_q8 must hold ints in [0, %d]" % SGAIN_MAX)
         self.ew_shift = _shift_for(windows_for(_int(q, "det_slow_ms", 0, _BIG), n, fs, every))
+        # the detector's own clock: analysed windows at win_ms each (n * every samples), plus the
+        # seconds of gaps; seconds in clock_s (< 2**29, rebased), the rest in clock_ms (< 1000)
+        self.win_ms = min((1000 * n * every) // fs, 1 << 20)
+        self.clock_s = 0
+        self.clock_ms = 0
         if self.ew_shift > _SHIFT_MAX:
             raise ValueError("det_slow_ms spans more than %d analysed windows" % (1 << _SHIFT_MAX))
         self.thr_alert_q8 = _int(p, "det_thr_alert_q8", 1, 1 << 16)
@@ -361,9 +372,11 @@ class Detector:
         self.held = array("b", bytes(d))          # 1 where _mask_lines neutralised the line
         # slow channel: per scored feature the EWMA of its departure t_j, kept as the accumulator
         # ew_acc = EWMA * 2**ew_shift (Q8 spreads << ew_shift) so that no precision is lost to
-        # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input)
-        self.ew_acc = array("i", bytes(4 * d))
-        self.ew_mode = -1                         # the mode the EWMA belongs to
+        # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input); mode m's at
+        # m * d, each mode's against its own centroid
+        self.ew_acc = array("i", bytes(4 * d * KMAX))
+        self.ew_used = False                      # set by _slow: some accumulator may be non-zero
+        self.ew_seen_s = array("i", bytes(4 * KMAX))   # clock_s when each mode was last scored
         self.s_drive = 0                          # j of the largest EWMA (smax_q8)
         # per scored feature: the axis of a half-order prominence (F_HALF), which this detector
         # keeps itself (self.half), else -1 (see _transform)
@@ -462,18 +475,37 @@ class Detector:
             return al.UNSCORED
         return lv
 
-    def _forget(self):
-        """Forget the persistence evidence (stop, fault, learning), the slow channel's with it."""
+    def _forget(self, slow=True):
+        """Forget the persistence evidence (stop, fault, learning); the slow channel's with it
+        unless slow is False (a stop)."""
         self.alarm.reset()
-        self._ew_reset()
+        if slow:
+            self._ew_reset()
         if self.resets < _BIG:
             self.resets += 1
 
     # -- commands -------------------------------------------------------------------------------
-    def gap(self):
+    def gap(self, s=0):
         """The next window does not follow the last one (samples lost; a gap between recordings
-        at the desk): what the detector follows over consecutive windows starts again."""
+        at the desk): what the detector follows over consecutive windows starts again. s: whole
+        seconds of signal missing (at most _GAP_MAX_S are counted), added to the clock that ages
+        the slow channel's evidence."""
         self.half.cut()
+        if s > 0:
+            self._tick(s if s < _GAP_MAX_S else _GAP_MAX_S, 0)
+
+    def _tick(self, s, ms):
+        """Advance the clock by s seconds and ms milliseconds (ms < 2**20); past _CLOCK_REBASE
+        it moves back by 2**28 with every mode's last-scored time (kept >= -2**28), so that
+        every value stays a small int and every age stays right."""
+        ms += self.clock_ms
+        self.clock_s += s + ms // 1000
+        self.clock_ms = ms % 1000
+        if self.clock_s >= _CLOCK_REBASE:
+            self.clock_s -= 1 << 28
+            for m in range(KMAX):
+                v = self.ew_seen_s[m] - (1 << 28)
+                self.ew_seen_s[m] = v if v > -(1 << 28) else -(1 << 28)
 
     def ack(self, t_s):
         """Acknowledge a latched alarm. Returns the state."""
@@ -701,6 +733,7 @@ class Detector:
     def step(self, f, t_s, dropped):
         """One window: features f, time t_s (s), dropped samples. Returns the state."""
         self.t = t_s
+        self._tick(0, self.win_ms)
         self.score_q8 = 0
         self.dist_q8 = 0
         self.zmax_q8 = 0
@@ -758,7 +791,7 @@ class Detector:
             self._count(W_IDLE)
             self.running = False
             self._restart()
-            self._forget()
+            self._forget(False)
             if not self.learning:
                 self._set(self._base_state(), al.R_STOPPED)
             return self.state
@@ -880,13 +913,23 @@ class Detector:
         """The slow channel: each feature's departure t_j (md.t_q8, within [-768, 32767] Q8)
         enters its EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >> shift
         is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12). A
-        line neutralised by _mask_lines carries no evidence: its EWMA holds. A new mode starts
-        from 0. smax = the largest weighted EWMA (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and
-        sgain <= 4096, so the product < 2**27), at least 0 (rises only, like zmax); s_drive its j."""
-        if m != self.ew_mode:
-            self._ew_reset()
-            self.ew_mode = m
+        line neutralised by _mask_lines carries no evidence: its EWMA holds. Each mode m keeps its
+        own accumulators (ew_acc[m * d:(m + 1) * d]), the departures being against its centroid, so
+        a return to a mode resumes its evidence, halved for every full SLOW_HALF_S seconds of the
+        clock since the mode was last scored (an arithmetic shift: a negative accumulator tends to
+        -1, an EWMA of -1/2**shift LSB, which cannot drive smax). smax = the largest weighted EWMA
+        (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and sgain <= 4096, so the product < 2**27), at
+        least 0 (rises only, like zmax); s_drive its j."""
+        self.ew_used = True
+        b = m * self.d
         acc = self.ew_acc
+        away = self.clock_s - self.ew_seen_s[m]
+        if away >= SLOW_HALF_S:
+            h = away // SLOW_HALF_S
+            h = h if h < 28 else 28                # |acc| < 2**27: 0 or -1 after 28
+            for j in range(self.d):
+                acc[b + j] >>= h
+        self.ew_seen_s[m] = self.clock_s
         t = self.model.t_q8
         g = self.sgain_q8
         sh = self.ew_shift
@@ -895,22 +938,22 @@ class Detector:
         self.s_drive = 0
         for j in range(self.d):
             if not (op and self.held[j]):
-                acc[j] += t[j] - (acc[j] >> sh)
-            e = ((acc[j] >> sh) * g[j]) >> 8
+                acc[b + j] += t[j] - (acc[b + j] >> sh)
+            e = ((acc[b + j] >> sh) * g[j]) >> 8
             if e > top:
                 top = e
                 self.s_drive = j
         self.smax_q8 = top
 
     def _ew_reset(self):
-        """Start the slow channel afresh (stop, sensor fault, learning, a change of mode). Only
-        _slow fills it, and it sets ew_mode, so with ew_mode -1 it is all 0 already (an idle
-        window, which forgets the evidence each time, costs no loop)."""
-        if self.ew_mode < 0:
+        """Start every mode's slow channel afresh (a sensor fault, learning). A stop keeps it: a
+        stop does not change the machine's condition. Only _slow fills it, and it sets ew_used,
+        so without it the accumulators are all 0 already (no loop)."""
+        if not self.ew_used:
             return
-        for j in range(self.d):
+        for j in range(self.d * KMAX):
             self.ew_acc[j] = 0
-        self.ew_mode = -1
+        self.ew_used = False
 
     def _mask_lines(self, f, m):
         """Order and envelope lines of an axis whose own 1x estimate (F_SPEED) lies more than the
@@ -1105,13 +1148,14 @@ def footprint_bytes(axes):
     and the half-order stage. Array by array as Detector.__init__ makes them, so a smaller set
     takes less. Used by board profiles to check the heap budget."""
     d = DMAX
-    # per scored feature, 6 int arrays (idx, mean0_q4, sgain_q8, u, z, ew_acc) and 4 byte
-    # arrays (logf, ord_axis, held, half_axis)
-    feat_b = 4 * 6 * d + 4 * d
+    # per scored feature, 5 int arrays (idx, mean0_q4, sgain_q8, u, z), the slow channel's
+    # accumulators of every mode (ew_acc) and 4 byte arrays (logf, ord_axis, held, half_axis)
+    feat_b = 4 * 5 * d + 4 * d * KMAX + 4 * d
     model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
     learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
         + welford.footprint_bytes(KMAX)           # wb, wm, lsp
-    op_b = 3 * 4 * 2 * KMAX                       # op_speed_q8, op_load_q8, lop_q8: lo, hi a mode
+    op_b = 3 * 4 * 2 * KMAX + 4 * KMAX            # op_speed_q8, op_load_q8, lop_q8: lo, hi a mode;
+                                                  # ew_seen_s: a mode's last scored time
     axis_b = 5 * 4 * axes                         # dc_lo, dc_hi, stuck, zero, knock_crest
     steady_b = 3 * 4 * _STEADY_MAX                # ring_speed_q8, ring_level_q8, sort_q8
     misc_b = 4 * 3 + 2 * LOG2_N + 4 * len(WHY_NAMES)   # iso bounds, log2 table, n_why

@@ -175,7 +175,7 @@ class _Channels:
             self.zmax.append(max(0, max(t[j] for j in self.slow_j)))
         self.smax.append(det.smax_q8)
         if det.pushed and det.mode >= 0 and (self.select is None or self.select[t_s]):
-            e = np.asarray(det.ew_acc, dtype=np.float64) / (256 << det.ew_shift)
+            e = np.asarray(det.ew_acc[det.mode * det.d:(det.mode + 1) * det.d], dtype=np.float64) / (256 << det.ew_shift)
             self.ew_ss += e * e
             self.ew_n += 1
         return state

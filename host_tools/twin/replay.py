@@ -238,18 +238,23 @@ def is_raise(old: int, new: int) -> bool:
 
 
 def window_gaps(t_s: np.ndarray, hop_s: float, prev_t_s: float | None = None) -> np.ndarray:
-    """Per window (end times t_s, s): True where it does not follow the window before it (the
-    one at prev_t_s for the first) by one analysed hop hop_s: a gap between recordings."""
+    """Per window (end times t_s, s): -1 where it follows the window before it (the one at
+    prev_t_s for the first) by one analysed hop hop_s; else a gap between recordings, given as
+    the whole seconds of signal missing (0 for the first window without prev_t_s, or a window
+    that starts over), int64."""
     t = np.asarray(t_s, dtype=np.float64)
     before = np.concatenate([[np.nan if prev_t_s is None else prev_t_s], t[:-1]])
-    return ~(np.abs(t - before - hop_s) < 0.5 * hop_s)
+    miss = t - before - hop_s
+    gap = np.where(np.abs(miss) < 0.5 * hop_s, -1.0, np.floor(np.maximum(miss, 0.0)))
+    return np.where(np.isnan(miss), 0.0, gap).astype(np.int64)
 
 
 def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0, gaps: np.ndarray | None = None) -> Steps:
     """Step `det` over the rows of feats (windows, features), window w given the clock first_w + w.
-    gaps: per window, True where it does not follow the one before (window_gaps); the detector is
-    told (det.gap()), as a gateway tells it of lost samples, so that nothing it follows over
-    consecutive windows spans the gap. None: the windows are consecutive.
+    gaps: per window, -1 where it follows the one before, else the whole seconds missing before it
+    (window_gaps); the detector is told (det.gap(s)), as a gateway tells it of lost samples, so
+    that nothing it follows over consecutive windows spans the gap and its clock counts the time.
+    None: the windows are consecutive.
 
     The loop is the detector's own code; it only reads the results and drains the event ring.
     Reading det.score_q8 when det.mode is -1 gives 0, as the device reports it.
@@ -268,11 +273,11 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0, gaps: np.n
     half = det.half.value
     ev: list[tuple[int, int, int, int, int, int, int]] = []
     step, ring = det.step, det.events
-    cut = [] if gaps is None else np.flatnonzero(gaps).tolist()
+    cut = [] if gaps is None else np.flatnonzero(gaps >= 0).tolist()
     for i, row in enumerate(rows):
         if cut and cut[0] == i:
             cut.pop(0)
-            det.gap()
+            det.gap(int(gaps[i]))
         st[i] = step(row, first_w + i, 0)
         sc[i] = det.score_q8
         md[i] = det.mode
