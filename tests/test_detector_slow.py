@@ -150,17 +150,23 @@ def test_each_mode_keeps_its_own_ewma_through_stops_and_a_sensor_fault_forgets_a
     assert det.state == al.SENSOR_FAULT and not any(det.ew_acc)
 
 
-def test_a_modes_evidence_halves_for_every_full_hour_it_was_not_scored():
-    # detector.SLOW_HALF_S: the accumulators of a mode are shifted right once per full hour of
-    # the detector's clock (windows of n / fs s, plus the seconds det.gap(s) reports) since the
-    # mode was last scored. Exact integers: the acc is an int, halved by >>, then one window's
-    # update acc += t - (acc >> shift) (the recursion, docs/detector.md).
-    d = 2
+def _two_s_up(d=2):
+    """A detector (slow channel of 32 windows) after 40 windows with feature 0 two spreads up,
+    and the frame that gave them."""
     det = Detector(_params(d, det_slow_ms=32 * W_MS))
     f = _frame(d)
     f[fi.F_BAND0] = 2 * SD
     for i in range(40):
         det.step(f, i, 0)
+    return det, f
+
+
+def test_a_modes_evidence_halves_for_every_full_hour_it_was_not_scored():
+    # detector.SLOW_HALF_S: the accumulators of a mode are shifted right once per full hour of
+    # the detector's clock (windows of n / fs s, plus the seconds det.gap(s) reports) since the
+    # mode was last scored. Exact integers: the acc is an int, halved by >>, then one window's
+    # update acc += t - (acc >> shift) (the recursion, docs/detector.md).
+    det, f = _two_s_up()
     acc = det.ew_acc[0]
     det.gap(2 * SLOW_HALF_S + 5)              # 2 h 5 s missing: two halvings
     det.step(f, 40, 0)
@@ -184,13 +190,9 @@ def test_a_modes_evidence_halves_for_every_full_hour_it_was_not_scored():
 def test_the_clock_rebases_and_keeps_every_age_right():
     # Gaps of _GAP_MAX_S push the clock over 2**29 s; it moves back by 2**28 with the modes'
     # times, so every value stays a small int (< 2**30 on the device) and the age is unchanged:
-    # 300 days away is 7200 halvings, capped at 28, which leave 0 of a positive accumulator.
-    d = 2
-    det = Detector(_params(d, det_slow_ms=32 * W_MS))
-    f = _frame(d)
-    f[fi.F_BAND0] = 2 * SD
-    for i in range(40):
-        det.step(f, i, 0)
+    # 40 gaps of 194 days are thousands of halvings, capped at 28, which leave 0 of a positive
+    # accumulator.
+    det, f = _two_s_up()
     for _ in range(40):
         det.gap(1 << 24)
         assert det.clock_s < 1 << 29 and all(-(1 << 28) <= v < 1 << 29 for v in det.ew_seen_s)
