@@ -375,7 +375,6 @@ class Detector:
         # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input); mode m's at
         # m * d, each mode's against its own centroid
         self.ew_acc = array("i", bytes(4 * d * KMAX))
-        self.ew_used = False                      # set by _slow: some accumulator may be non-zero
         self.ew_seen_s = array("i", bytes(4 * KMAX))   # clock_s when each mode was last scored
         self.s_drive = 0                          # j of the largest EWMA (smax_q8)
         # per scored feature: the axis of a half-order prominence (F_HALF), which this detector
@@ -920,7 +919,6 @@ class Detector:
         -1, an EWMA of -1/2**shift LSB, which cannot drive smax). smax = the largest weighted EWMA
         (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and sgain <= 4096, so the product < 2**27), at
         least 0 (rises only, like zmax); s_drive its j."""
-        self.ew_used = True
         b = m * self.d
         acc = self.ew_acc
         away = self.clock_s - self.ew_seen_s[m]
@@ -946,14 +944,11 @@ class Detector:
         self.smax_q8 = top
 
     def _ew_reset(self):
-        """Start every mode's slow channel afresh (a sensor fault, learning). A stop keeps it: a
-        stop does not change the machine's condition. Only _slow fills it, and it sets ew_used,
-        so without it the accumulators are all 0 already (no loop)."""
-        if not self.ew_used:
-            return
+        """Start every mode's slow channel afresh (a sensor fault, learning: once each, so the
+        loop over every mode costs nothing per window). A stop keeps it: a stop does not change
+        the machine's condition."""
         for j in range(self.d * KMAX):
             self.ew_acc[j] = 0
-        self.ew_used = False
 
     def _mask_lines(self, f, m):
         """Order and envelope lines of an axis whose own 1x estimate (F_SPEED) lies more than the
