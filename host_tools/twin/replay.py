@@ -273,11 +273,10 @@ def step_detector(det: Detector, feats: np.ndarray, first_w: int = 0, gaps: np.n
     half = det.half.value
     ev: list[tuple[int, int, int, int, int, int, int]] = []
     step, ring = det.step, det.events
-    cut = [] if gaps is None else np.flatnonzero(gaps >= 0).tolist()
+    gap = [-1] * n if gaps is None else gaps.tolist()
     for i, row in enumerate(rows):
-        if cut and cut[0] == i:
-            cut.pop(0)
-            det.gap(int(gaps[i]))
+        if gap[i] >= 0:
+            det.gap(gap[i])
         st[i] = step(row, first_w + i, 0)
         sc[i] = det.score_q8
         md[i] = det.mode
