@@ -1096,7 +1096,7 @@ class Detector:
             if n >= self.min_n or (m == top and wm.n[top * d] < self.min_n):
                 for j in range(d):
                     c.c_q8[k * d + j] = wm.mean_q(m * d + j, 0)
-                    s = sqrt_pow2(wm.var(m * d + j), 0)
+                    s = sqrt_pow2(wm.var(m * d + j), 0)     # of z within +-Z_LIM: at most Z_LIM
                     c.s_q8[k * d + j] = s if s > self.s_floor_q8 else self.s_floor_q8
                 w = (self.learn_op_q12 * lop[2 * m + 1]) >> 13
                 self.op_speed_q8[2 * k] = lop[2 * m] - w

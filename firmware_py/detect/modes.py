@@ -4,7 +4,8 @@ baseline, and scored by the distance to the nearest mode in units of that mode's
 Scales (all ints):
   u  transformed feature, log2 Q8 (256 per octave), clamped to +-U_LIM
   z  standardised feature, Q8 baseline spreads (256 = one baseline standard deviation), +-Z_LIM
-  centroids c_q8 in z units (Q8); per-mode spreads s_q8 in z units (Q8, floored when built)
+  centroids c_q8 in z units (Q8); per-mode spreads s_q8 in z units (Q8, floored when built);
+  both within +-Z_LIM, so they are kept as int16
   distance: sqrt(sum_j ((z_j - c_mj) / s_mj)**2), Q8 mode spreads (a diagonal Mahalanobis distance)
   zmax: max_j (z_j - c_mj) / s_mj, Q8 mode spreads (the per-feature channel: rises only)
   t_q8[j]: the per-feature departures of the last distance(), each within [-768, 32767]
@@ -33,8 +34,8 @@ def is_log_field(field):
 
 def footprint_bytes(d):
     """Heap bytes of the arrays of ModeModel(d): mean_q4, sd_q4 and t_q8 of d ints, c_q8 and s_q8
-    of d ints for each of KMAX modes (object headers are extra)."""
-    return 4 * d * (3 + 2 * KMAX)
+    of d int16 for each of KMAX modes (object headers are extra)."""
+    return 4 * d * 3 + 2 * 2 * d * KMAX
 
 
 class ModeModel:
@@ -46,8 +47,8 @@ class ModeModel:
         z = bytes(4 * d)
         self.mean_q4 = array("i", z)
         self.sd_q4 = array("i", z)
-        self.c_q8 = array("i", bytes(4 * d * KMAX))
-        self.s_q8 = array("i", bytes(4 * d * KMAX))
+        self.c_q8 = array("h", bytes(2 * d * KMAX))   # within +-Z_LIM (load, learning)
+        self.s_q8 = array("h", bytes(2 * d * KMAX))
         self.mode = -1         # nearest mode of the last score(), -1 if no model
         self.drive = -1        # index j (0..d-1) of the feature that contributed most, -1 none
         self.zmax_q8 = 0       # largest single-feature |z - c| / s of the last distance(), Q8
