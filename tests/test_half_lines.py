@@ -102,13 +102,13 @@ def _average_of(det, rows):
     return det.value[0]
 
 
-@pytest.mark.parametrize("every,x1_q8,amp", [(1, 1152, 3000.0), (1, 1300, 400.0), (2, 1234, 2000.0), (1, 1000, 2000.0)])
+@pytest.mark.parametrize("every,x1_q8,amp", [(1, 1664, 3000.0), (1, 1812, 400.0), (2, 1746, 2000.0), (1, 2072, 2000.0)])
 def test_block_prominence_matches_numpy(every, x1_q8, amp):
     # 2**SHIFT equal blocks make the average exactly the block's prominence (a sum of equal values
     # over 2**SHIFT); that value against the float reference, within the interval the floor
     # shifts allow, widened by the log2_q8 rounding (1 LSB, Q8, for each of the four logs) and the
     # integer mean of three (< 1 LSB)
-    b = hl.BLK                 # 1000: the whole orders' images 1.5 cells from the lines, within them
+    b = hl.BLK                 # 2072: the whole orders' images 1.5 cells from the lines, within them
     rng = np.random.default_rng(3)
     block = _taps(b, every, x1_q8, amp, 1500.0, rng, 1)
     rows = _rows(np.tile(block, (1 << hl.SHIFT, 1)), x1_q8)
@@ -122,7 +122,7 @@ def test_block_prominence_matches_numpy(every, x1_q8, amp):
 def test_line_is_looked_for_where_it_turns():
     # a line that turns by 2 pi x offset x 2 per window (one window in two analysed) stands out
     # only when the detector is told that time base: told every = 1, it looks in the wrong cells
-    x1 = 1234                  # images 5.75 cells from the lines told every = 2, 11.1 told 1
+    x1 = 1746                  # images 5.75 cells from the lines told every = 2, 13.1 told 1
     rng = np.random.default_rng(8)
     block = _taps(hl.BLK, 2, x1, 2000.0, 300.0, rng, 1 << hl.SHIFT)
     right = _average_of(hl.HalfLines(1, PA, 2, 205, TAB), _rows(block, x1))
@@ -131,7 +131,7 @@ def test_line_is_looked_for_where_it_turns():
 
 
 def test_average_counts_from_eight_blocks_and_again_after_a_speed_move():
-    x1 = 1300
+    x1 = 1812
     b = hl.BLK
     rng = np.random.default_rng(1)
     det = hl.HalfLines(1, PA, 1, 205, TAB)                      # steady tolerance 5 %
@@ -149,8 +149,40 @@ def test_average_counts_from_eight_blocks_and_again_after_a_speed_move():
     assert det.value[0] == hl.UNSET                        # from the first window there
 
 
+def test_each_speed_keeps_its_own_average():
+    # a pump that changes duty between snapshots: the average of one speed resumes after visits
+    # to others (its value comes back exactly), and a speed is forgotten only when it is the one
+    # fed longest ago and a new speed needs its slot; speeds are told apart by the steady tolerance
+    b = hl.BLK
+    rng = np.random.default_rng(5)
+    det = hl.HalfLines(1, PA, 1, 205, TAB)                      # steady tolerance 5 %
+    x1 = 1812
+    home = _rows(_taps(b, 1, x1, 500.0, 500.0, rng, (1 << hl.SHIFT) + 2), x1)
+    v = _average_of(det, home[:(1 << hl.SHIFT) * b])
+    assert v != hl.UNSET
+
+    def visit(y):
+        return _average_of(det, _rows(_taps(b, 1, y, 500.0, 500.0, rng, 1), y))
+
+    away = [2000, 2250, 2500, 2800, 3100, 3450, 3800, 4200]     # each over 5 % from the others
+    assert len(away) == hl.SLOTS
+    for y in away[:-1]:
+        assert visit(y) == hl.UNSET                            # one block: no average yet
+    det.push(home[-1], True)
+    assert det.value[0] == v                                   # resumed where it was left
+    v2 = _average_of(det, home[(1 << hl.SHIFT) * b:-b])        # one more block: now the freshest
+    assert v2 != hl.UNSET
+    visit(away[-1])                                            # every slot taken: the stalest goes
+    det.push(home[-1], True)
+    assert det.value[0] == v2
+    for y in (4600, 5100, 5600, 6200, 6800, 7500, 8300, 9200):
+        visit(y)
+    det.push(home[-1], True)
+    assert det.value[0] == hl.UNSET                            # now it was the stalest
+
+
 def test_a_gap_or_an_unsteady_window_restarts_the_block():
-    x1 = 1300
+    x1 = 1812
     b = hl.BLK
     rng = np.random.default_rng(2)
     rows = _rows(_taps(b, 1, x1, 500.0, 500.0, rng, 1), x1)
@@ -177,7 +209,7 @@ def _whole_orders(b, every, x1_q8, amp, blocks):
     return out
 
 
-@pytest.mark.parametrize("x1_q8", [1152, 1300])
+@pytest.mark.parametrize("x1_q8", [1664, 1812])
 def test_whole_orders_leaking_into_the_taps_leave_the_prominence_alone(x1_q8):
     # A healthy pump's 1x, 2x and 3x leak into the half orders' taps through the window's side
     # lobes, 30 dB over one cell's noise here. Their images are left out of the floor, so the
@@ -208,7 +240,9 @@ from firmware_py.dsp.tables import log2_table
 
 PA = fi.per_axis(0)
 AXES = 2
-NW = 720
+NW = 1120
+# after three phases, ten speeds 40 windows each (more than SLOTS: the stalest slot is taken)
+CYCLE = (1000, 1560, 1720, 1900, 2100, 2320, 2560, 2820, 3100, 3420)
 h = HalfLines(AXES, PA, 1, 205, log2_table())
 seed = [99]
 def rnd(a):
@@ -218,8 +252,9 @@ feats = array("i", bytes(4 * AXES * PA * NW))
 for w in range(NW):
     for a in range(AXES):
         b = (w * AXES + a) * PA
-        # read blocks, then a speed move to one whose whole orders' images sit on the line, then a third
-        feats[b + fi.F_TAP_X1] = 1152 if w < 320 else 1000 if w < 420 else 1300
+        # read blocks, then a speed move to one whose whole orders lie within 3 bins (its blocks are
+        # dropped), then a third
+        feats[b + fi.F_TAP_X1] = 1664 if w < 320 else 1000 if w < 420 else 1812 if w < 720 else CYCLE[(w - 720) // 40]
         for i in range(6):
             feats[b + fi.F_TAP_RE + i] = rnd((1 << 24) if w % 97 == 0 else 3000)
 out = array("i", bytes(4 * AXES * NW))
@@ -273,21 +308,21 @@ def _leak_on_line(f_hz, n=512, fs=3200.0, b=32):
     return math.log2(Y[line].mean() / Y[~line].mean()), 10 * math.log10(Y[line].mean() / tone)
 
 
-def test_half_orders_are_set_aside_where_the_whole_orders_leak_onto_them():
-    # training's rule (modes_fit.half_aside) against numpy, with no device code: where it sets the
-    # prominence aside, a healthy pump's 1x alone puts more than -40 dB of itself into the 0.5x
-    # line's cells at some speed of the mode; where it scores it, the 1x either turns elsewhere
-    # (its cells stay under the floor around them) or, more than 3 bins away, leaks under -40 dB
-    # (the Hann window's side lobes beyond its first, -31.5 dB one: Harris, Proc. IEEE 66, 1978)
+def test_blocks_are_dropped_where_the_whole_orders_leak_onto_the_lines():
+    # the device's rule (half_lines.drowned) against numpy alone, at every 0.25 Hz from 12 to 52 Hz
+    # (1.9 to 8.3 bins): where a healthy pump's 1x by itself puts more than -40 dB of itself into
+    # the 0.5x line's cells and stands over the cells around them, the block is dropped; where it
+    # is kept, the 1x either turns elsewhere (the line's cells stay under the floor around them)
+    # or, from 3 bins away, leaks under -40 dB (the Hann window's side lobes beyond its first,
+    # -31.5 dB one: Harris, Proc. IEEE 66, 1978). The speed it starts from is what training reports.
     from host_tools.fit import modes_fit
-    p = {"n": 512, "fs_hz": 3200, "det_bands": 0, "det_feat": [fi.F_HALF]}
-    for lo, hi, why in ((23.4, 25.4, "aside"), (12.5, 13.5, "aside"), (19.7, 21.3, "elsewhere"),
-                        (16.4, 17.8, "elsewhere"), (47.3, 51.3, "far")):
-        assert bool(modes_fit.half_aside(p, lo, hi, 1)) == (why == "aside")
-        got = [_leak_on_line(f) for f in np.linspace(lo, hi, 9)]
-        if why == "aside":
-            assert max(db for _, db in got) > -40
-        elif why == "elsewhere":
-            assert max(r for r, _ in got) < 0
-        else:
-            assert max(db for _, db in got) < -40
+    from_hz = modes_fit.half_orders_from_hz({"n": 512, "fs_hz": 3200})
+    assert from_hz == 6 * 3200 / 512
+    for f in np.arange(12.0, 52.01, 0.25):
+        x1 = int(round(f * 512 / 3200 * 256))
+        assert hl.drowned(x1) == (f < from_hz)
+        if not hl.drowned(x1):
+            ratio, db = _leak_on_line(f)
+            assert ratio < 0 or db < -40, (f, ratio, db)
+    bad = [f for f in np.arange(12.0, 52.01, 0.25) if (lambda r: r[0] >= 0 and r[1] > -40)(_leak_on_line(f))]
+    assert bad and max(bad) < from_hz               # RW-1's top duty (24.5 Hz) among them

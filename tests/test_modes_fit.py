@@ -1,8 +1,12 @@
 """Host-side operating modes by speed: set points told apart despite strays (scikit-learn's
-adjusted Rand index against the truth), mode ranges clear of the search range's ends."""
+adjusted Rand index against the truth), mode ranges clear of the search range's ends, and the
+half-order prominence's spread bound against simulation."""
+import math
+
 import numpy as np
 from sklearn.metrics import adjusted_rand_score
 
+from firmware_py.detect import modes as dm
 from host_tools.fit import modes_fit as mf
 
 
@@ -77,3 +81,25 @@ def test_band_edges_move_off_the_shaft_lines():
     # a shaft whose lines stay clear of 4, 8, 16 and 32 leaves the board's bands as they are:
     # 1x 12-12.2 bins (spans 11-14.2, 23-26.4, 35-38.6, 71-75.2)
     assert mf.place_edges(p, [(12.0 * hz, 12.2 * hz)]) == [[4, 8], [8, 16], [16, 32]]
+
+
+def test_half_spread_bound_covers_the_true_spread():
+    # mf.half_spread_bound against simulation alone: an EWMA of weight 2**-SHIFT over iid
+    # normal block values (started stationary), each held for BLK windows as the device holds it;
+    # the bound from the windows' population spread must reach the EWMA's true spread,
+    # sqrt(lam / (2 - lam)) (Montgomery, EWMA chart), in at least 95 % of trials. Allowed short:
+    # 3 binomial standard errors of 4000 trials at p = 0.95 (0.010)
+    from scipy.signal import lfilter
+    from firmware_py.detect.half_lines import BLK, SHIFT
+    rng = np.random.default_rng(12)
+    lam = 2.0 ** -SHIFT
+    sig = math.sqrt(lam / (2.0 - lam))
+    trials = 4000
+    for blocks in (60, 1000):
+        x = rng.standard_normal((trials, blocks))
+        zi = (1.0 - lam) * sig * rng.standard_normal((trials, 1))    # the state before the first block
+        e, _ = lfilter([lam], [1.0, lam - 1.0], x, axis=1, zi=zi)
+        s = e.std(axis=1)                                            # = the held windows' spread
+        got = np.mean([mf.half_spread_bound(v, blocks * BLK) >= sig for v in s])
+        assert got >= 0.95 - 3 * math.sqrt(0.95 * 0.05 / trials), (blocks, got)
+    assert mf.half_spread_bound(0.3, 8 * BLK) == dm.Z_LIM   # one block's worth: set aside

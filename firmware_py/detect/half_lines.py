@@ -14,10 +14,15 @@ Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the bins neares
 bins; a window that is not steady, or moves a tap to another bin, starts a new block. A full
 block gives, per half order, the mean power of the cells around the line's expected place over
 the mean power of the floor cells, in log2; the three are averaged. The blocks' values are
-averaged as an EWMA with weight 2**-SHIFT. The average counts only once 2**SHIFT blocks have
-entered it since the operating speed last moved by more than the steady tolerance (the floor
-around the lines differs between speeds); until then, and from the first window at a speed that
-far from the average's, the value is UNSET and the detector holds the feature neutral.
+averaged as an EWMA with weight 2**-SHIFT, one per operating speed: the floor around the lines
+differs between speeds, so each axis keeps SLOTS averages, each for the speeds within the steady
+tolerance of its first block's, and a block at a speed no slot holds restarts the one least
+recently fed. A pump that changes duty between recordings (a snapshot at one speed, the next at
+another) so resumes each speed's average where it left it, as its slow channel resumes each
+mode's. An average counts once 2**SHIFT blocks have entered it; the value is that of the slot
+holding the window's own speed, and UNSET (the detector holds the feature neutral) while that
+slot has fewer blocks or no slot holds the speed. The slots do not depend on the trained modes,
+so training reads the values the device will hold before it has fitted any.
 
 The whole orders leak into every tap through the per-window Hann window's side lobes (about
 -50 dB at 4 bins; a pump's 1x stands 50 dB and more over one bin's noise), and across the block
@@ -26,7 +31,8 @@ lands a whole multiple of x1 x every / 2 cycles per window from the line: its ne
 +-ALIAS cells from it, ALIAS = (x1 x every / 2 mod 1) x BLK, on the line itself at speeds near a
 multiple of 2 bins. The taps null the two nearest whole orders (half_taps: 43 dB and more under
 the plain bin's leakage 3 bins or more away), and the images' cells are still left out of the
-floor, so what is left of them does not lift it.
+floor, so what is left of them does not lift it. Nearer than 3 bins the nulls fail, and such a
+block is dropped (drowned()).
 
 Integer-only; push() allocates nothing.
 
@@ -39,7 +45,7 @@ and the cells' sum (Parseval: blk * sum |t|**2 / 2**12, from e = sum(|t|**2 >> 7
 Prominence and its average: log2 Q8.
 
 Entry points: footprint_bytes(axes); HalfLines(axes, pa, every, tol_q12, tab); push(f, steady)
-once per window; cut() when the next window will not follow the last; value[a].
+once per window; cut() when the next window will not follow the last; value[a] (the window's).
 """
 from array import array
 from micropython import const
@@ -51,6 +57,7 @@ from firmware_py.dsp.half_taps import ODDS, tap_bin
 
 UNSET = const(-16384)          # no average yet (LOG2_ZERO_Q8)
 SHIFT = const(3)               # EWMA weight 2**-3 per block; counts from 8 blocks
+SLOTS = const(8)               # speeds kept per axis (as many as a set's modes, modes.KMAX)
 X1_LIM = const(1 << 20)        # a 1x beyond any window (bins Q8 < n / 2 * 256 <= 2**19)
 TAP_LIM = const(1 << 27)       # half_taps' bound
 # Analysed windows per block (5.1 s at 512 samples and 3200 Hz). Fewer would leave little floor:
@@ -59,14 +66,18 @@ BLK = const(32)
 HALF_WIDTH = const(3)          # cells each side of the line: the Hann main lobe (2) and 1 for the
 #                                error of the block's mean speed
 ALIAS_WIDTH = const(2)         # cells each side of a whole order's image: the Hann main lobe
+# 1x under this (bins Q8) puts the whole orders within 3 bins of each half order, where the taps'
+# nulls are spoilt and their leakage stays strong (module docstring)
+LEAK_X1_Q8 = const(6 << 8)
 
 
 def footprint_bytes(axes):
     """Heap bytes of a HalfLines' arrays on `axes` axes (payloads, as __init__ makes them): the
-    taps of one block per axis (6 ints a window), 9 ints of state per axis, the scratch of one
-    tap's block (2 ints a window), the block's twiddles (2 x (BLK / 2 + 1) ints) and Hann
-    window (BLK halfwords)."""
-    return 4 * axes * 6 * BLK + 4 * 9 * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1) + 2 * BLK
+    taps of one block per axis (6 ints a window), 7 ints of state per axis and 4 per slot, the
+    scratch of one tap's block (2 ints a window), the block's twiddles (2 x (BLK / 2 + 1) ints)
+    and Hann window (BLK halfwords)."""
+    return (4 * axes * 6 * BLK + 4 * (7 + 4 * SLOTS) * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1)
+            + 2 * BLK)
 
 
 class HalfLines:
@@ -85,9 +96,12 @@ class HalfLines:
         self.nb = array("i", bytes(4 * axes))             # windows in the axis's block
         self.bins = array("i", bytes(4 * axes * 3))       # the block's three tap bins
         self.x1 = array("i", bytes(4 * axes))             # sum of the block's 1x, bins Q8
-        self.acc = array("i", bytes(4 * axes))            # EWMA << SHIFT (a sum while filling)
-        self.cnt = array("i", bytes(4 * axes))            # blocks in the average, to 2**SHIFT
-        self.ref = array("i", bytes(4 * axes))            # 1x of the average, bins Q8
+        ns = axes * SLOTS                                 # slot k = a * SLOTS + s
+        self.acc = array("i", bytes(4 * ns))              # EWMA << SHIFT (a sum while filling)
+        self.cnt = array("i", bytes(4 * ns))              # blocks in the average, to 2**SHIFT; 0: free
+        self.ref = array("i", bytes(4 * ns))              # 1x of the slot's first block, bins Q8
+        self.fed = array("i", bytes(4 * ns))              # the axis's block count when last fed
+        self.blocks = array("i", bytes(4 * axes))         # blocks closed on the axis (to 2**30)
         self.value = array("i", [UNSET] * axes)
         self.tr = array("i", bytes(4 * b))                # scratch: one tap's windowed block
         self.ti = array("i", bytes(4 * b))
@@ -107,9 +121,6 @@ class HalfLines:
             if not steady or not 0 < x1 < X1_LIM or not self._sane(f, o):
                 self.nb[a] = 0
                 continue
-            if self.cnt[a] > 0 and self._moved(a, x1):
-                self.cnt[a] = 0                    # an average of another speed says nothing here
-                self.value[a] = UNSET
             j = self.nb[a]
             bb = 3 * a
             if j > 0:
@@ -129,13 +140,34 @@ class HalfLines:
                 self._close(a)
                 j = 0
             self.nb[a] = j
+            k = self._slot(a, x1)
+            self.value[a] = self.acc[k] >> SHIFT if k >= 0 and self.cnt[k] >= 1 << SHIFT else UNSET
 
-    def _moved(self, a, x1):
-        """x1 (bins Q8) lies more than the steady tolerance from the speed of axis a's average
-        (tol_q12 * ref < 2**12 * 2**20 = 2**32: ref is shifted first, exact to 1/4096 bin)."""
-        r = self.ref[a]
-        tol = self.tol_q12 * (r >> 12) + ((self.tol_q12 * (r & 4095)) >> 12)
-        return x1 - r > tol or r - x1 > tol
+    def _slot(self, a, x1):
+        """The slot k of axis a whose speed is nearest x1 (bins Q8) within the steady tolerance,
+        or -1 (tol_q12 * ref < 2**12 * 2**20 = 2**32: ref is shifted first, exact to 1/4096
+        bin)."""
+        best = -1
+        gap = X1_LIM
+        for k in range(a * SLOTS, (a + 1) * SLOTS):
+            if self.cnt[k] > 0:
+                r = self.ref[k]
+                tol = self.tol_q12 * (r >> 12) + ((self.tol_q12 * (r & 4095)) >> 12)
+                e = x1 - r if x1 >= r else r - x1
+                if e <= tol and e < gap:
+                    gap = e
+                    best = k
+        return best
+
+    def _stalest(self, a):
+        """A free slot of axis a, else the one fed longest ago."""
+        best = a * SLOTS
+        for k in range(a * SLOTS, (a + 1) * SLOTS):
+            if self.cnt[k] == 0:
+                return k
+            if self.fed[k] < self.fed[best]:
+                best = k
+        return best
 
     @staticmethod
     def _sane(f, o):
@@ -150,6 +182,8 @@ class HalfLines:
         """A full block of axis a: its prominence enters the average."""
         b = self.blk
         x1 = self.x1[a] // b                       # the block's mean 1x, bins Q8 (< 2**20)
+        if drowned(x1):
+            return                                 # the block says nothing of the lines
         # the whole orders' nearest images: ALIAS Q8 cells each side of the line (x1 * every
         # mod 2 bins, Q8, times b / 2), the same for the three taps (module docstring)
         d = (b >> 1) * ((x1 * self.every) % 512)
@@ -157,20 +191,25 @@ class HalfLines:
         for i in range(3):
             s += self._prominence(a, i, x1, d)
         p = s // 3
-        if self.cnt[a] > 0 and self._moved(a, x1):
-            self.cnt[a] = 0
-        c = self.cnt[a]
+        k = self._slot(a, x1)
+        if k < 0:
+            k = self._stalest(a)
+            self.cnt[k] = 0                        # an average of another speed says nothing here
+        c = self.cnt[k]
         if c == 0:
-            self.ref[a] = x1
-            self.acc[a] = p
+            self.ref[k] = x1
+            self.acc[k] = p
             c = 1
         elif c < 1 << SHIFT:
-            self.acc[a] += p                       # the first 2**SHIFT blocks: a plain sum
+            self.acc[k] += p                       # the first 2**SHIFT blocks: a plain sum
             c += 1
         else:
-            self.acc[a] += p - (self.acc[a] >> SHIFT)
-        self.cnt[a] = c
-        self.value[a] = self.acc[a] >> SHIFT if c >= 1 << SHIFT else UNSET
+            self.acc[k] += p - (self.acc[k] >> SHIFT)
+        self.cnt[k] = c
+        n = self.blocks[a]
+        n = n + 1 if n < 1 << 30 else 1 << 30
+        self.blocks[a] = n
+        self.fed[k] = n
 
     def _prominence(self, a, i, x1, d):
         """log2 Q8 of (mean cell power within HALF_WIDTH of the line) / (mean of the floor
@@ -256,6 +295,16 @@ class HalfLines:
             rest = 1
         t = self.tab
         return (log2_q8(line, t) - log2_q8(nl, t)) - (log2_q8(rest, t) - log2_q8(b - nl - ns, t))
+
+
+def drowned(x1):
+    """True where a block at 1x x1 (bins Q8) cannot read the half orders: the whole orders lie
+    within 3 bins of them (x1 under LEAK_X1_Q8), where their leakage through the Hann main lobe
+    starts at about -6 dB of the 1x and the taps' null hangs on the estimate's last hundredth of a
+    bin. Their images then land on the lines at some speeds and beside them at others, and what
+    the block reads follows the whole orders' levels and the fraction of a bin the speed sits at,
+    not the half orders. Such a block is dropped."""
+    return x1 < LEAK_X1_Q8
 
 
 def _dist(v, b):

@@ -13,12 +13,13 @@ from array import array
 
 import numpy as np
 from scipy import special
+from scipy.stats import chi2
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.dsp import feature_index as fi, orders
 from firmware_py.detect import modes as dm
 from firmware_py.detect.detector import CHI_Q8
-from firmware_py.detect.half_lines import ALIAS_WIDTH, BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
+from firmware_py.detect.half_lines import BLK, HALF_WIDTH, LEAK_X1_Q8, SHIFT as HALF_SHIFT, UNSET
 from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
 from firmware_py.dsp.tables import log2_table
@@ -104,12 +105,6 @@ def pinned_limits_q8(params: dict) -> tuple[int, int]:
     return int(math.floor(lo + PIN_STEPS * step)) + 1, int(math.ceil(hi - PIN_STEPS * step)) - 1
 
 
-# Where the integer orders' leakage into a half-order tap matters: the periodic Hann window's
-# main lobe (2 bins) and first side lobe (-31.5 dB at about 2.4 bins, Harris, Proc. IEEE 66,
-# 1978); from 3 bins on its side lobes lie some 39 dB and more down
-HALF_LEAK_BINS = 3.0
-
-
 def half_spread_floor_q8() -> float:
     """The least spread of a half-order prominence (F_HALF) within a mode, log2 Q8: what its
     average wanders by on noise alone, so that a thin training set cannot make it look steadier
@@ -158,29 +153,34 @@ def set_aside(params: dict, lo_hz: float) -> list[int]:
     return [j for j, i in enumerate(params["det_feat"]) if i % pa == fi.F_ORD_HALF]
 
 
-def half_aside(params: dict, lo_hz: float, hi_hz: float, every: int) -> list[int]:
-    """Positions j in det_feat of the half-order prominences (F_HALF) that a mode running at
-    lo_hz..hi_hz cannot read apart from the integer orders. Each half order has integer orders
-    x1 / 2 bins each side (0.5x: 1x; 1.5x: 1x and 2x; 2.5x: 2x and 3x). Within HALF_LEAK_BINS
-    they leak into its tap through the Hann window's main lobe and first side lobe, and across
-    the block they turn at every x x1 / 2 cycles per window from it: when that lies within the
-    line's cells plus the block window's main lobe (HALF_WIDTH + ALIAS_WIDTH cells) of a whole
-    number for some speed of the mode, the leakage sits on the line and moves with the speed's
-    fraction of a bin. The taps' nulls (half_taps) take some 40 dB off it, but through the main
-    lobe it starts at about -6 dB of the 1x, and the null's depth there hangs on the speed
-    estimate's last hundredth of a bin. fit() gives such a prominence the largest spread in that
-    mode, as set_aside does."""
-    b = BLK
-    lo = lo_hz * params["n"] / params["fs_hz"] / 2
-    hi = hi_hz * params["n"] / params["fs_hz"] / 2
-    if lo >= HALF_LEAK_BINS:
-        return []
-    near = (HALF_WIDTH + ALIAS_WIDTH) / b   # cycles per window
-    a, z = every * lo, every * min(hi, HALF_LEAK_BINS)
-    if math.floor(z + near) < math.ceil(a - near):   # no whole number within reach
-        return []
-    pa = fi.per_axis(params["det_bands"])
-    return [j for j, i in enumerate(params["det_feat"]) if i % pa == fi.F_HALF]
+def half_spread_bound(s: float, readings: int) -> float:
+    """The spread a mode's half-order prominence (F_HALF) is judged with: the one-sided 95 % upper
+    confidence limit of its standard deviation s (any unit) measured over `readings` windows, or
+    Z_LIM (set aside) when they hold fewer than 2 independent values. Each window holds its axis's
+    average of blocks, an EWMA of weight lam = 2**-SHIFT over blocks of BLK windows: a first-order
+    autoregression of coefficient phi = 1 - lam over n blocks, whose sample variance counts as
+    n_eff = n (1 - phi**2) / (1 + phi**2) independent values (its variance is 2 sigma**4 (1 + 2 sum
+    rho_k**2) / n, rho_k = phi**k: Bartlett 1946, from memory) and, taken about the sample mean,
+    falls short by a factor 1 - 1 / n_mean, n_mean = n (1 - phi) / (1 + phi) (the effective count
+    for a mean, Bayley and Hammersley 1946); then
+    sigma <= s sqrt(nu / chi2.ppf(0.05, nu) / (1 - 1 / n_mean)) with nu = n_eff - 1 (the
+    chi-square interval for a normal standard deviation; a textbook result). A mode that held the
+    speed for a few blocks only in training, with its centre and spread from a handful of
+    averages, would otherwise judge the device's steady readings many spreads off."""
+    phi = 1.0 - 2.0 ** -HALF_SHIFT
+    blocks = readings / BLK
+    n_eff = blocks * (1.0 - phi * phi) / (1.0 + phi * phi)
+    n_mean = blocks * (1.0 - phi) / (1.0 + phi)
+    if n_eff < 2.0 or n_mean <= 1.0:
+        return float(dm.Z_LIM)
+    nu = n_eff - 1.0
+    return s * math.sqrt(nu / float(chi2.ppf(0.05, nu)) / (1.0 - 1.0 / n_mean))
+
+
+def half_orders_from_hz(params: dict) -> float:
+    """The shaft speed (Hz) under which the detector drops every block of half-order taps
+    (half_lines.drowned: the whole orders within 3 bins of the half orders)."""
+    return LEAK_X1_Q8 / 256.0 * params["fs_hz"] / params["n"]
 
 
 def line_spans(params: dict, ranges_hz: Sequence[tuple[float, float]]) -> list[tuple[float, float]]:
@@ -229,7 +229,7 @@ def mode_ranges_hz(params: dict) -> list[tuple[float, float]]:
 
 
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
-        k_max: int = dm.KMAX, margin_q8: int | None = None, every: int = 1) -> dict:
+        k_max: int = dm.KMAX, margin_q8: int | None = None) -> dict:
     """Baseline, operating modes and conservative thresholds from healthy running windows (rows
     of raw feature vectors). Returns the detector keys to merge into the parameter set.
 
@@ -288,6 +288,8 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     # and filters are process-wide: two trainings in threads (a Dask worker) undo each other's
     centers = np.zeros((k, d))
     spread = np.full((k, d), 256.0)
+    half = np.array([i % pa == fi.F_HALF for i in params["det_feat"]], bool)
+    least = half_spread_floor_q8()
     for m in range(k):
         zk, ok = z[lab == m].astype(np.float64), ~mask[lab == m]
         cnt = ok.sum(0)
@@ -295,13 +297,11 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
         centers[m, has] = np.where(ok, zk, 0.0).sum(0)[has] / cnt[has]
         dev = np.where(ok, zk - centers[m], 0.0)
         spread[m, has] = np.sqrt((dev * dev).sum(0)[has] / cnt[has])
+        for j in np.flatnonzero(half):
+            spread[m, j] = max(half_spread_bound(spread[m, j], int(cnt[j])),
+                               least * 256.0 * 16.0 / max(int(model.sd_q4[j]), 1))
     for m in range(k if op else 0):
         spread[m, set_aside(params, op[2 * m] / 256.0)] = dm.Z_LIM
-        spread[m, half_aside(params, op[2 * m] / 256.0, op[2 * m + 1] / 256.0, every)] = dm.Z_LIM
-    least = half_spread_floor_q8()
-    for j, i in enumerate(params["det_feat"]):
-        if i % pa == fi.F_HALF:
-            spread[:, j] = np.maximum(spread[:, j], least * 256.0 * 16.0 / max(int(model.sd_q4[j]), 1))
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
     alert = (CHI_Q8[d - 1] * margin) >> 8
     return {

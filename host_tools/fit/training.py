@@ -648,19 +648,19 @@ def zlam_q8(d: int) -> int:
     return int(round(256 * math.sqrt(chi2.isf(p, d)) / zmax))
 
 
-def _model(rows: np.ndarray, speeds: np.ndarray, params: dict, every: int) -> dict:
+def _model(rows: np.ndarray, speeds: np.ndarray, params: dict) -> dict:
     """modes_fit.fit's baseline, modes by operating point; the idle floor stays the one set here."""
-    keys = modes_fit.fit(rows, params, speeds, params["det_speed_tol_q12"] / 4096.0, every=every)
+    keys = modes_fit.fit(rows, params, speeds, params["det_speed_tol_q12"] / 4096.0)
     keys.pop("det_idle_vel_q16")
     return keys
 
 
-def _fit_all(rows: list[np.ndarray], speeds: list[np.ndarray], params: dict, jobs: int, every: int) -> list[dict]:
+def _fit_all(rows: list[np.ndarray], speeds: list[np.ndarray], params: dict, jobs: int) -> list[dict]:
     """_model over each row set, in up to `jobs` processes (the same result for any jobs)."""
     if jobs <= 1 or len(rows) == 1:
-        return [_model(r, s, params, every) for r, s in zip(rows, speeds)]
+        return [_model(r, s, params) for r, s in zip(rows, speeds)]
     with ProcessPoolExecutor(max_workers=min(jobs, len(rows))) as pool:
-        return list(pool.map(_model, rows, speeds, [params] * len(rows), [every] * len(rows)))
+        return list(pool.map(_model, rows, speeds, [params] * len(rows)))
 
 
 def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, target: float,
@@ -876,7 +876,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     sps = [np.concatenate([sp[u & (wf != f)] for sp, u, wf in zip(speeds, use, win_fold)]) for f in fold_ids]
     rows.append(np.concatenate([sf.feats[u] for sf, u in zip(feats, use)]))
     sps.append(np.concatenate([sp[u] for sp, u in zip(speeds, use)]))
-    fits = _fit_all(rows, sps, p, jobs, every)
+    fits = _fit_all(rows, sps, p, jobs)
     bar.update(1)
     # held-out sequences: each feature's slow weight from its own held-out EWMA spread, then the
     # slow channel is weighted against the per-feature one, then the thresholds are fitted on the
@@ -941,11 +941,14 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     n_windows = int(len(allf))
     n_scored = int(sum(s.sum() for s in scored))
     ranges = modes_fit.mode_ranges_hz(p)
+    half_from_hz = modes_fit.half_orders_from_hz(p)
     for m in table:
         i = m["mode"]
         m["speed_hz"] = list(ranges[i]) if ranges else None
         m["half_aside"] = bool(ranges) and bool(modes_fit.set_aside(p, ranges[i][0]))
-        m["half_orders_aside"] = bool(ranges) and bool(modes_fit.half_aside(p, ranges[i][0], ranges[i][1], every))
+        m["half_orders_under_hz"] = half_from_hz if ranges and ranges[i][0] < half_from_hz else None
+        m["half_orders_unjudged"] = [axis_names[f // pa] for j, f in enumerate(p["det_feat"]) if f % pa == fi.F_HALF
+                                     and p["det_mode_s_q8"][i * len(p["det_feat"]) + j] >= dm.Z_LIM]
     half_judged = any(i % pa == fi.F_ORD_HALF for i in p["det_feat"])
     summary = {
         "board": p["board"], "version": p["version"], "fs_hz": p["fs_hz"], "n": p["n"], "window_s": window_s,
@@ -1023,9 +1026,17 @@ def report_text(summary: dict) -> str:
         sp = m.get("speed_hz")
         where = f"shaft {sp[0]:.1f}-{sp[1]:.1f} Hz, " if sp else ""
         aside = "; the 0.5x line is not judged here" if m.get("half_aside") else ""
-        if m.get("half_orders_aside"):
-            aside += ("; nor are the half orders over many windows: at this speed the whole orders' leakage "
-                      "turns with them")
+        under = m.get("half_orders_under_hz")
+        unread = bool(under and sp and sp[1] < under)     # the whole mode under it
+        if unread:
+            aside += (f"; the half orders over many windows are not read here (under {under:.1f} Hz the whole orders "
+                      "lie within 3 bins of them)")
+        elif under:
+            aside += (f"; the half orders over many windows are not read under {under:.1f} Hz, where the whole orders "
+                      "lie within 3 bins of them")
+        if m.get("half_orders_unjudged") and not unread:
+            aside += (f"; the half orders over many windows are not judged on axis {', '.join(m['half_orders_unjudged'])}: "
+                      "training held too few of their averages here (fewer than 2 independent ones)")
         lines.append(f"    mode {m['mode']}: {where}{m['windows']} windows ({100 * m['share']:.0f} %), median accel "
                      f"{med['accel_rms_m_s2']} m/s^2 r.m.s., velocity {med['velocity_rms_mm_s']} mm/s r.m.s.{aside}")
     if s["modes"].get("half_clear_hz"):
