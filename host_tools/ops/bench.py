@@ -228,8 +228,8 @@ nw = {_HALF_BLOCKS} * BLK
 f = array.array('i', bytes(4 * pa * nw))
 seed = 777
 for w in range(nw):
-    f[w * pa + fi.F_TAP_X1] = 1152          # 4.5 bins: the whole orders' images 8 cells from the
-    for i in range(6):                      # lines, so every block transforms all 17 cells
+    f[w * pa + fi.F_TAP_X1] = 1664          # 6.5 bins (no block dropped): the whole orders' images
+    for i in range(6):                      # 8 cells from the lines, so every block transforms all 17
         seed = (seed * 1103515245 + 12345) & 0x3fffffff
         f[w * pa + fi.F_TAP_RE + i] = (seed >> 10) - (1 << 19)
 row = array.array('i', bytes(4 * pa))
