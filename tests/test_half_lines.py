@@ -18,6 +18,17 @@ PA = fi.per_axis(0)
 TAB = log2_table()
 
 
+class _Clocked(hl.HalfLines):
+    """The stage fed with a clock one second on per window (coarser than a real window's 0.16 s,
+    which changes nothing but the time an average takes to go stale)."""
+
+    now = 0
+
+    def step(self, f, steady=True):
+        self.push(f, steady, self.now)
+        self.now += 1
+
+
 def _rows(taps, x1_q8):
     """Feature rows of one axis carrying taps (windows, 3) complex and the 1x x1_q8 (bins Q8)."""
     rows = []
@@ -98,7 +109,7 @@ def _reference(block, x1_q8, every):
 
 def _average_of(det, rows):
     for f in rows:
-        det.push(f, True)
+        det.step(f, True)
     return det.value[0]
 
 
@@ -112,7 +123,7 @@ def test_block_prominence_matches_numpy(every, x1_q8, amp):
     rng = np.random.default_rng(3)
     block = _taps(b, every, x1_q8, amp, 1500.0, rng, 1)
     rows = _rows(np.tile(block, (1 << hl.SHIFT, 1)), x1_q8)
-    det = hl.HalfLines(1, PA, every, 205, TAB)
+    det = _Clocked(1, PA, every, 205, TAB)
     got = _average_of(det, rows) / 256
     ref, lo, hi = _reference(block, x1_q8, every)
     assert lo - 5 / 256 <= got <= hi + 5 / 256, (got, ref, lo, hi)
@@ -125,8 +136,8 @@ def test_line_is_looked_for_where_it_turns():
     x1 = 1746                  # images 5.75 cells from the lines told every = 2, 13.1 told 1
     rng = np.random.default_rng(8)
     block = _taps(hl.BLK, 2, x1, 2000.0, 300.0, rng, 1 << hl.SHIFT)
-    right = _average_of(hl.HalfLines(1, PA, 2, 205, TAB), _rows(block, x1))
-    wrong = _average_of(hl.HalfLines(1, PA, 1, 205, TAB), _rows(block, x1))
+    right = _average_of(_Clocked(1, PA, 2, 205, TAB), _rows(block, x1))
+    wrong = _average_of(_Clocked(1, PA, 1, 205, TAB), _rows(block, x1))
     assert right > 4 * 256 and wrong < 256
 
 
@@ -134,18 +145,18 @@ def test_average_counts_from_eight_blocks_and_again_after_a_speed_move():
     x1 = 1812
     b = hl.BLK
     rng = np.random.default_rng(1)
-    det = hl.HalfLines(1, PA, 1, 205, TAB)                      # steady tolerance 5 %
+    det = _Clocked(1, PA, 1, 205, TAB)                      # steady tolerance 5 %
     rows = _rows(_taps(b, 1, x1, 500.0, 500.0, rng, 1 << hl.SHIFT), x1)
     for f in rows[:-1]:
-        det.push(f, True)
+        det.step(f, True)
     assert det.value[0] == hl.UNSET                        # 8 blocks less one window
-    det.push(rows[-1], True)
+    det.step(rows[-1], True)
     assert det.value[0] != hl.UNSET
     moved = int(x1 * 1.2)                                  # a new operating speed: 20 % away
     near = int(x1 * 1.04)                                  # within the tolerance: the same one
-    det.push(_rows(_taps(b, 1, near, 500.0, 500.0, rng, 1), near)[0], True)
+    det.step(_rows(_taps(b, 1, near, 500.0, 500.0, rng, 1), near)[0], True)
     assert det.value[0] != hl.UNSET
-    det.push(_rows(_taps(b, 1, moved, 500.0, 500.0, rng, 1), moved)[0], True)
+    det.step(_rows(_taps(b, 1, moved, 500.0, 500.0, rng, 1), moved)[0], True)
     assert det.value[0] == hl.UNSET                        # from the first window there
 
 
@@ -155,7 +166,7 @@ def test_each_speed_keeps_its_own_average():
     # fed longest ago and a new speed needs its slot; speeds are told apart by the steady tolerance
     b = hl.BLK
     rng = np.random.default_rng(5)
-    det = hl.HalfLines(1, PA, 1, 205, TAB)                      # steady tolerance 5 %
+    det = _Clocked(1, PA, 1, 205, TAB)                      # steady tolerance 5 %
     x1 = 1812
     home = _rows(_taps(b, 1, x1, 500.0, 500.0, rng, (1 << hl.SHIFT) + 2), x1)
     v = _average_of(det, home[:(1 << hl.SHIFT) * b])
@@ -168,16 +179,16 @@ def test_each_speed_keeps_its_own_average():
     assert len(away) == hl.SLOTS
     for y in away[:-1]:
         assert visit(y) == hl.UNSET                            # one block: no average yet
-    det.push(home[-1], True)
+    det.step(home[-1], True)
     assert det.value[0] == v                                   # resumed where it was left
     v2 = _average_of(det, home[(1 << hl.SHIFT) * b:-b])        # one more block: now the freshest
     assert v2 != hl.UNSET
     visit(away[-1])                                            # every slot taken: the stalest goes
-    det.push(home[-1], True)
+    det.step(home[-1], True)
     assert det.value[0] == v2
     for y in (4600, 5100, 5600, 6200, 6800, 7500, 8300, 9200):
         visit(y)
-    det.push(home[-1], True)
+    det.step(home[-1], True)
     assert det.value[0] == hl.UNSET                            # now it was the stalest
 
 
@@ -186,13 +197,13 @@ def test_a_gap_or_an_unsteady_window_restarts_the_block():
     b = hl.BLK
     rng = np.random.default_rng(2)
     rows = _rows(_taps(b, 1, x1, 500.0, 500.0, rng, 1), x1)
-    det = hl.HalfLines(1, PA, 1, 205, TAB)
+    det = _Clocked(1, PA, 1, 205, TAB)
     for f in rows[:-1]:
-        det.push(f, True)
+        det.step(f, True)
     det.cut()
-    det.push(rows[-1], True)
+    det.step(rows[-1], True)
     for f in rows[:-2]:
-        det.push(f, False if f is rows[5] else True)
+        det.step(f, False if f is rows[5] else True)
     assert det.cnt[0] == 0                                 # no block was closed
 
 
@@ -227,7 +238,7 @@ def test_whole_orders_leaking_into_the_taps_leave_the_prominence_alone(x1_q8):
     taps = _taps(b, 1, x1_q8, 0.0, noise, rng, 1 << hl.SHIFT)
     lead = noise * math.sqrt(2) * math.sqrt(b * 3 / 8) * 10 ** (30 / 20) / (b / 2)   # 30 dB over a cell
     taps = taps + np.round(_whole_orders(b, 1, x1_q8, lead, 1 << hl.SHIFT))
-    got = _average_of(hl.HalfLines(1, PA, 1, 205, TAB), _rows(taps, x1_q8)) / 256
+    got = _average_of(_Clocked(1, PA, 1, 205, TAB), _rows(taps, x1_q8)) / 256
     sd = math.sqrt(float(special.polygamma(1, (2 * hl.HALF_WIDTH + 1) / 1.5))) / math.log(2) / math.sqrt(3 * (1 << hl.SHIFT))
     assert abs(got) < 4 * sd, (got, sd)
 
@@ -259,6 +270,7 @@ for w in range(NW):
             feats[b + fi.F_TAP_RE + i] = rnd((1 << 24) if w % 97 == 0 else 3000)
 out = array("i", bytes(4 * AXES * NW))
 f = array("i", bytes(4 * AXES * PA))
+clock = [CLOCK0]
 
 def run_all():
     for w in range(NW):
@@ -266,7 +278,14 @@ def run_all():
             f[j] = feats[w * AXES * PA + j]
         if w == 250:
             h.cut()
-        h.push(f, w % 150 != 0)
+        # the clock as the detector keeps it: a day and a second skipped at window 300 (the
+        # first phase's average goes stale and its next block starts it again), and moved back
+        # by 2**28 past 2**29
+        clock[0] += 86402 if w == 300 else 1
+        if clock[0] >= 1 << 29:
+            clock[0] -= 1 << 28
+            h.rebase(1 << 28)
+        h.push(f, w % 150 != 0, clock[0])
         for a in range(AXES):
             out[w * AXES + a] = h.value[a]
     return 0
@@ -276,15 +295,52 @@ emit([ok, list(out)])
 """
 
 
-def test_same_bits_and_no_allocation_on_micropython():
-    # every path of push() and the block's close under the guest's heap lock, against CPython
-    guest = run_guest(SCENARIO).out[0]
+def _host_run(clock0):
     host = []
-    exec(textwrap.dedent(SCENARIO), {"emit": lambda v: host.append(json.loads(json.dumps(v))),
-                                     "locked": lambda fn: (True, fn())})
+    exec(textwrap.dedent(SCENARIO.replace("CLOCK0", str(clock0))),
+         {"emit": lambda v: host.append(json.loads(json.dumps(v))), "locked": lambda fn: (True, fn())})
+    return host[0][1]
+
+
+def test_same_bits_and_no_allocation_on_micropython():
+    # every path of push() and the block's close under the guest's heap lock, against CPython;
+    # the clock is started so that it moves back at window 700
+    start = (1 << 29) - 86402 - 700
+    guest = run_guest(SCENARIO.replace("CLOCK0", str(start))).out[0]
+    host = _host_run(start)
     assert guest[0] is True
-    assert guest[1] == host[0][1]
-    assert any(v != hl.UNSET for v in host[0][1])          # averages were made
+    assert guest[1] == host
+    assert any(v != hl.UNSET for v in host)                # averages were made
+    # moving the clock back changes no value: the same run from 0, where it never moves back
+    assert _host_run(0) == host
+    # the jump of a day and a second at window 300: the average of its speed (1664, read since
+    # its 8th block at window 246) is not read from the next steady window (301: window 300 is
+    # not steady, and an unsteady window leaves the value as it was)
+    at = [host[w * 2] for w in (298, 299, 301, 302)]
+    assert at[0] != hl.UNSET and at[1] == at[0] and at[2] == hl.UNSET and at[3] == hl.UNSET, at
+
+
+def test_an_average_a_day_old_is_not_read_and_starts_again():
+    # STALE_S of the detector's clock without a block: the average is not read, and the next block
+    # at its speed starts it afresh, so that 8 new blocks give what they give a new stage
+    b = hl.BLK
+    rng = np.random.default_rng(6)
+    x1 = 1812
+    old = _rows(_taps(b, 1, x1, 3000.0, 500.0, rng, 1 << hl.SHIFT), x1)   # a strong line
+    new = _rows(_taps(b, 1, x1, 0.0, 500.0, rng, 1 << hl.SHIFT), x1)      # none
+    det = _Clocked(1, PA, 1, 205, TAB)
+    v_old = _average_of(det, old)
+    det.now += hl.STALE_S - 1                        # its last block closed one second before
+    det.step(new[0])
+    assert det.value[0] == v_old                     # exactly STALE_S old: still read
+    det.step(new[1])
+    assert det.value[0] == hl.UNSET                  # older: not read
+    for f in new[2:-1]:
+        det.step(f)
+    assert det.value[0] == hl.UNSET                  # 8 blocks less one window since
+    det.step(new[-1])
+    assert det.value[0] == _average_of(_Clocked(1, PA, 1, 205, TAB), new)
+    assert det.value[0] < v_old - 256                # the old line's average is gone
 
 
 def _leak_on_line(f_hz, n=512, fs=3200.0, b=32):

@@ -495,8 +495,9 @@ class Detector:
 
     def _tick(self, s, ms):
         """Advance the clock by s seconds and ms milliseconds (ms < 2**20); past _CLOCK_REBASE
-        it moves back by 2**28 with every mode's last-scored time (kept >= -2**28), so that
-        every value stays a small int and every age stays right."""
+        it moves back by 2**28 with every mode's last-scored time and the half-order averages'
+        last-fed ones (kept >= -2**28), so that every value stays a small int and every age stays
+        right."""
         ms += self.clock_ms
         self.clock_s += s + ms // 1000
         self.clock_ms = ms % 1000
@@ -505,6 +506,7 @@ class Detector:
             for m in range(KMAX):
                 v = self.ew_seen_s[m] - (1 << 28)
                 self.ew_seen_s[m] = v if v > -(1 << 28) else -(1 << 28)
+            self.half.rebase(1 << 28)
 
     def ack(self, t_s):
         """Acknowledge a latched alarm. Returns the state."""
@@ -747,7 +749,7 @@ class Detector:
         if dropped:
             self.half.cut()
         if self._sensor_bad(f, dropped):
-            self.half.push(f, False)
+            self.half.push(f, False, self.clock_s)
             self._count(W_FAULT)
             self.fault_good = 0
             if self.fault_reason == al.R_DROPOUT or self.fault_reason == al.R_COUPLING:
@@ -767,7 +769,7 @@ class Detector:
             # fault (a rattling mount, a loose connector) returns within seconds, and between its
             # bursts the signal is still the faulty sensor's
             self._count(W_FAULT)
-            self.half.push(f, False)
+            self.half.push(f, False, self.clock_s)
             if self.fault_good < _BIG:
                 self.fault_good += 1
             if self.fault_good < self.fault_clear_w:
@@ -786,7 +788,7 @@ class Detector:
                 vf = a * pa + fi.F_VEL
         self.bb_vel_q16 = vel
         if vel < self.idle_vel_q16:
-            self.half.push(f, False)
+            self.half.push(f, False, self.clock_s)
             self._count(W_IDLE)
             self.running = False
             self._restart()
@@ -807,7 +809,7 @@ class Detector:
                 self.steady_w += 1
         else:
             self.steady_w = 0
-        self.half.push(f, st == W_SCORED and self.steady_w >= self.hold_w)
+        self.half.push(f, st == W_SCORED and self.steady_w >= self.hold_w, self.clock_s)
         if self.starting:
             if self.steady_w < self.hold_w and self.run_w < self.hold_max_w:
                 self._count(W_HOLD if st == W_SCORED else st)

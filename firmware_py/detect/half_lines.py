@@ -21,7 +21,9 @@ recently fed. A pump that changes duty between recordings (a snapshot at one spe
 another) so resumes each speed's average where it left it, as its slow channel resumes each
 mode's. An average counts once 2**SHIFT blocks have entered it; the value is that of the slot
 holding the window's own speed, and UNSET (the detector holds the feature neutral) while that
-slot has fewer blocks or no slot holds the speed. The slots do not depend on the trained modes,
+slot has fewer blocks or no slot holds the speed. An average not fed for STALE_S of the
+detector's clock is not read, and its next block starts it afresh: it tells of a machine as it
+was a day ago, and a looseness can have come, or been mended, since. The slots do not depend on the trained modes,
 so training reads the values the device will hold before it has fitted any.
 
 The whole orders leak into every tap through the per-window Hann window's side lobes (about
@@ -44,8 +46,9 @@ and the cells' sum (Parseval: blk * sum |t|**2 / 2**12, from e = sum(|t|**2 >> 7
 2**20, as the Hann weights' squares sum to 3/8 blk) stays under 2**28, as does e * blk.
 Prominence and its average: log2 Q8.
 
-Entry points: footprint_bytes(axes); HalfLines(axes, pa, every, tol_q12, tab); push(f, steady)
-once per window; cut() when the next window will not follow the last; value[a] (the window's).
+Entry points: footprint_bytes(axes); HalfLines(axes, pa, every, tol_q12, tab); push(f, steady,
+now_s) once per window (now_s: the detector's clock, s); cut() when the next window will not follow
+the last; rebase(d) when that clock moves back by d; value[a] (the window's).
 """
 from array import array
 from micropython import const
@@ -69,14 +72,19 @@ ALIAS_WIDTH = const(2)         # cells each side of a whole order's image: the H
 # 1x under this (bins Q8) puts the whole orders within 3 bins of each half order, where the taps'
 # nulls are spoilt and their leakage stays strong (module docstring)
 LEAK_X1_Q8 = const(6 << 8)
+# An average this old (s of the detector's clock: running and the gaps between recordings) is
+# started afresh: a water pump's duties follow the day's demand (common practice), so a duty not
+# run within a day is not part of the current routine
+STALE_S = const(86400)
+CLOCK_MIN = const(-(1 << 28))  # the oldest time a slot keeps through rebase(), s
 
 
 def footprint_bytes(axes):
     """Heap bytes of a HalfLines' arrays on `axes` axes (payloads, as __init__ makes them): the
-    taps of one block per axis (6 ints a window), 7 ints of state per axis and 4 per slot, the
+    taps of one block per axis (6 ints a window), 6 ints of state per axis and 4 per slot, the
     scratch of one tap's block (2 ints a window), the block's twiddles (2 x (BLK / 2 + 1) ints)
     and Hann window (BLK halfwords)."""
-    return (4 * axes * 6 * BLK + 4 * (7 + 4 * SLOTS) * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1)
+    return (4 * axes * 6 * BLK + 4 * (6 + 4 * SLOTS) * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1)
             + 2 * BLK)
 
 
@@ -100,8 +108,7 @@ class HalfLines:
         self.acc = array("i", bytes(4 * ns))              # EWMA << SHIFT (a sum while filling)
         self.cnt = array("i", bytes(4 * ns))              # blocks in the average, to 2**SHIFT; 0: free
         self.ref = array("i", bytes(4 * ns))              # 1x of the slot's first block, bins Q8
-        self.fed = array("i", bytes(4 * ns))              # the axis's block count when last fed
-        self.blocks = array("i", bytes(4 * axes))         # blocks closed on the axis (to 2**30)
+        self.fed = array("i", bytes(4 * ns))              # clock when last fed, s (>= CLOCK_MIN)
         self.value = array("i", [UNSET] * axes)
         self.tr = array("i", bytes(4 * b))                # scratch: one tap's windowed block
         self.ti = array("i", bytes(4 * b))
@@ -112,8 +119,16 @@ class HalfLines:
         for a in range(self.axes):
             self.nb[a] = 0
 
-    def push(self, f, steady):
-        """One window's features f; steady: the detector judged it steady past the hold-off."""
+    def rebase(self, d):
+        """The clock moved back by d seconds: so do the slots' times (kept >= CLOCK_MIN, which
+        is older than STALE_S for any clock the detector keeps)."""
+        for k in range(self.axes * SLOTS):
+            v = self.fed[k] - d
+            self.fed[k] = v if v > CLOCK_MIN else CLOCK_MIN
+
+    def push(self, f, steady, now_s):
+        """One window's features f; steady: the detector judged it steady past the hold-off;
+        now_s: the detector's clock (s, < 2**29)."""
         pa = self.pa
         for a in range(self.axes):
             o = a * pa
@@ -137,11 +152,12 @@ class HalfLines:
             self.x1[a] += x1
             j += 1
             if j == self.blk:
-                self._close(a)
+                self._close(a, now_s)
                 j = 0
             self.nb[a] = j
             k = self._slot(a, x1)
-            self.value[a] = self.acc[k] >> SHIFT if k >= 0 and self.cnt[k] >= 1 << SHIFT else UNSET
+            self.value[a] = (self.acc[k] >> SHIFT if k >= 0 and self.cnt[k] >= 1 << SHIFT
+                             and now_s - self.fed[k] <= STALE_S else UNSET)
 
     def _slot(self, a, x1):
         """The slot k of axis a whose speed is nearest x1 (bins Q8) within the steady tolerance,
@@ -160,7 +176,7 @@ class HalfLines:
         return best
 
     def _stalest(self, a):
-        """A free slot of axis a, else the one fed longest ago."""
+        """A free slot of axis a, else the one fed longest ago (the first of equals)."""
         best = a * SLOTS
         for k in range(a * SLOTS, (a + 1) * SLOTS):
             if self.cnt[k] == 0:
@@ -178,8 +194,8 @@ class HalfLines:
                 return False
         return True
 
-    def _close(self, a):
-        """A full block of axis a: its prominence enters the average."""
+    def _close(self, a, now_s):
+        """A full block of axis a, at clock now_s: its prominence enters the average."""
         b = self.blk
         x1 = self.x1[a] // b                       # the block's mean 1x, bins Q8 (< 2**20)
         if drowned(x1):
@@ -195,6 +211,8 @@ class HalfLines:
         if k < 0:
             k = self._stalest(a)
             self.cnt[k] = 0                        # an average of another speed says nothing here
+        elif now_s - self.fed[k] > STALE_S:
+            self.cnt[k] = 0                        # nor does one of a day ago
         c = self.cnt[k]
         if c == 0:
             self.ref[k] = x1
@@ -206,10 +224,7 @@ class HalfLines:
         else:
             self.acc[k] += p - (self.acc[k] >> SHIFT)
         self.cnt[k] = c
-        n = self.blocks[a]
-        n = n + 1 if n < 1 << 30 else 1 << 30
-        self.blocks[a] = n
-        self.fed[k] = n
+        self.fed[k] = now_s
 
     def _prominence(self, a, i, x1, d):
         """log2 Q8 of (mean cell power within HALF_WIDTH of the line) / (mean of the floor

@@ -237,7 +237,7 @@ def run(steady):
     for w in range(nw):
         for j in range(pa):
             row[j] = f[w * pa + j]
-        h.push(row, steady)
+        h.push(row, steady, w)
 """
 
 
