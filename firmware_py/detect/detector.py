@@ -474,12 +474,14 @@ class Detector:
             return al.UNSCORED
         return lv
 
-    def _forget(self, slow=True):
-        """Forget the persistence evidence (stop, fault, learning); the slow channel's with it
-        unless slow is False (a stop)."""
+    def _forget(self):
+        """Forget the persistence evidence and the slow channel's (a sensor fault, learning)."""
+        self._forget_evidence()
+        self._ew_reset()
+
+    def _forget_evidence(self):
+        """Forget the persistence evidence only (a stop: each mode's slow average outlives it)."""
         self.alarm.reset()
-        if slow:
-            self._ew_reset()
         if self.resets < _BIG:
             self.resets += 1
 
@@ -792,7 +794,7 @@ class Detector:
             self._count(W_IDLE)
             self.running = False
             self._restart()
-            self._forget(False)
+            self._forget_evidence()
             if not self.learning:
                 self._set(self._base_state(), al.R_STOPPED)
             return self.state
