@@ -23,8 +23,8 @@ mode's. An average counts once 2**SHIFT blocks have entered it; the value is tha
 holding the window's own speed, and UNSET (the detector holds the feature neutral) while that
 slot has fewer blocks or no slot holds the speed. An average not fed for STALE_S of the
 detector's clock is not read, and its next block starts it afresh: it tells of a machine as it
-was a day ago, and a looseness can have come, or been mended, since. The slots do not depend on the trained modes,
-so training reads the values the device will hold before it has fitted any.
+was a day ago, and a looseness can have come, or been mended, since. The slots do not depend on
+the trained modes, so training reads the values the device will hold before it has fitted any.
 
 The whole orders leak into every tap through the per-window Hann window's side lobes (about
 -50 dB at 4 bins; a pump's 1x stands 50 dB and more over one bin's noise), and across the block
