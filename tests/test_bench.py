@@ -14,7 +14,7 @@ def test_bench_json_has_every_figure_and_the_deterministic_ones_hold():
                 "train_s_per_hour", "replay_msamples_per_s", "replay_msamples_per_s_2_jobs",
                 "replay_peak_rss_mb", "numpy_rfft_same_windows_s", "replay_vs_numpy_rfft_ratio", "fleet_replay_msamples_per_s_1_worker",
                 "fleet_replay_msamples_per_s_all_cores", "fleet_scaling_ratio",
-                "mpy_added_loop_equiv_per_sample_half_orders"):
+                "mpy_added_loop_equiv_per_sample_half_orders", "mpy_added_loop_equiv_per_sample_half_taps"):
         assert key in fig
     assert fig["allocs_per_window"] == 0
     assert fig["replay_stream_windows"] == int(2 * 60 * 3200) // 512     # 2 min at 3200 Hz, windows of 512
@@ -30,7 +30,7 @@ def test_bench_json_has_every_figure_and_the_deterministic_ones_hold():
     assert {"dsp.fft.cfft", "dsp.fft.spectrum", "dsp.features._shape", "dsp.ring.scatter16",
             "dsp.speed._best_candidate", "dsp.envelope._band_in", "dsp.envelope._square",
             "dsp.envelope._rescale", "dsp.envelope._demean", "dsp.envelope._lobe_power",
-            "drivers.unpack_words"} <= set(thumb)
+            "dsp.half_taps._mix", "drivers.unpack_words"} <= set(thumb)
     # the Pico's application feeds its read block once it holds more than 128 frames, read 16 at
     # a time (the profile's FIFO watermark): 144 frames per feed
     assert fig["mpy_viper_feed_block_frames"] == 144

@@ -343,42 +343,25 @@ def test_an_average_a_day_old_is_not_read_and_starts_again():
     assert det.value[0] < v_old - 256                # the old line's average is gone
 
 
-def _leak_on_line(f_hz, n=512, fs=3200.0, b=32):
-    """numpy alone: a lone 1x tone at f_hz (no half-order line at all; white noise 60 dB down),
-    Hann windows of n, the rfft bin nearest 0.5x followed over b windows, Hann across them, its
-    fft. Returns the mean power of the cells within HALF_WIDTH of where a 0.5x line would turn
-    to, over the others' (log2), and over the tone's own peak cell, the 1x bin followed the same
-    way (dB)."""
-    rng = np.random.default_rng(4)
-    t = np.arange(n * b) / fs
-    x = np.cos(2 * np.pi * f_hz * t) + 1e-3 * rng.standard_normal(len(t))
-    w = np.hanning(n + 1)[:n]
-    X = np.fft.rfft(x.reshape(b, n) * w, axis=1)
-    wb = np.hanning(b + 1)[:b]
-    half = 0.5 * f_hz * n / fs
-    k = int(round(half))
-    Y = np.abs(np.fft.fft(X[:, k] * wb)) ** 2
-    tone = (np.abs(np.fft.fft(X[:, int(round(2 * half))] * wb)) ** 2).max()
-    d = np.abs((np.arange(b) - (half - k) * b + b / 2) % b - b / 2)
-    line = d <= hl.HALF_WIDTH
-    return math.log2(Y[line].mean() / Y[~line].mean()), 10 * math.log10(Y[line].mean() / tone)
-
-
-def test_blocks_are_dropped_where_the_whole_orders_leak_onto_the_lines():
-    # the device's rule (half_lines.drowned) against numpy alone, at every 0.25 Hz from 12 to 52 Hz
-    # (1.9 to 8.3 bins): where a healthy pump's 1x by itself puts more than -40 dB of itself into
-    # the 0.5x line's cells and stands over the cells around them, the block is dropped; where it
-    # is kept, the 1x either turns elsewhere (the line's cells stay under the floor around them)
-    # or, from 3 bins away, leaks under -40 dB (the Hann window's side lobes beyond its first,
-    # -31.5 dB one: Harris, Proc. IEEE 66, 1978). The speed it starts from is what training reports.
-    from host_tools.fit import modes_fit
-    from_hz = modes_fit.half_orders_from_hz({"n": 512, "fs_hz": 3200})
-    assert from_hz == 6 * 3200 / 512
-    for f in np.arange(12.0, 52.01, 0.25):
-        x1 = int(round(f * 512 / 3200 * 256))
-        assert hl.drowned(x1) == (f < from_hz)
-        if not hl.drowned(x1):
-            ratio, db = _leak_on_line(f)
-            assert ratio < 0 or db < -40, (f, ratio, db)
-    bad = [f for f in np.arange(12.0, 52.01, 0.25) if (lambda r: r[0] >= 0 and r[1] > -40)(_leak_on_line(f))]
-    assert bad and max(bad) < from_hz               # RW-1's top duty (24.5 Hz) among them
+def test_taps_mixed_at_an_outlying_speed_enter_as_zeros():
+    # a window whose taps were mixed at a 1x more than 1/32 off the block's mean so far (within
+    # the steady tolerance, so no new block) counts as a zero in the block, and its 1x stays out
+    # of the block's mean: the same average as the block with those taps zeroed by hand; a block
+    # of more such windows than good ones gives none
+    b = hl.BLK
+    x1, off = 1812, 1812 + 1812 // 16                      # 6 % off: beyond 1/32, within 10 %
+    rng = np.random.default_rng(7)
+    taps = _taps(b, 1, x1, 800.0, 500.0, rng, 1 << hl.SHIFT)
+    odd = np.arange(len(taps)) % 4 == 3
+    mixed = _rows(taps, x1)
+    for w in np.flatnonzero(odd):
+        mixed[w][fi.F_TAP_X1] = off
+    zeroed = _rows(np.where(odd[:, None], 0, taps), x1)
+    got = _average_of(_Clocked(1, PA, 1, 410, TAB), mixed)
+    assert got != hl.UNSET and got == _average_of(_Clocked(1, PA, 1, 410, TAB), zeroed)
+    mostly = _rows(taps, x1)
+    for w in range(len(mostly)):
+        if w % b >= b // 2 - 1:
+            mostly[w][fi.F_TAP_X1] = off
+    det = _Clocked(1, PA, 1, 410, TAB)
+    assert _average_of(det, mostly) == hl.UNSET and max(det.cnt) == 0

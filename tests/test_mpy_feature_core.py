@@ -86,9 +86,13 @@ def test_every_stage_on_micropython_adversarial_and_pump_windows():
         for k in range(0, n - 40, 37):
             x[k:k + 40] += 12000 * np.exp(-np.arange(40) / 6) * np.sin(2 * np.pi * 0.4 * np.arange(40))
         pump.append(np.clip(np.round(x), -32768, 32767).astype(np.int16))
+    # and one whose mean jumps by 15000 counts from the window before: the half-order taps'
+    # samples, taken about that window's mean, clamp (half_taps)
+    pump.append(np.clip(pump[-1].astype(np.int32) + 15000, -32768, 32767).astype(np.int16))
     got = _check_all_stages(list(adversarial(n, seed=3).values()) + pump, n, 3200,
                             ((2, 9), (40, 256)), (20 * 256, 60 * 256), 6, (100, 200), BEAR)
-    assert np.all(got[-3:, fi.F_SPEED] > 0)
+    assert np.all(got[-4:, fi.F_SPEED] > 0)
+    assert np.all(got[-3:, fi.F_TAP_X1] > 0)      # the taps of windows that follow a pump window
     # from the estimator's floor of 2 bins (12.5 Hz), where the 1x peak search is cut at bin 1
     slow = []
     for f1 in (12.6, 13.1, 14.0):

@@ -109,67 +109,6 @@ def test_spectrum_buffer_holds_the_complex_spectrum():
     assert abs(b[0] - X[0].real) <= bound and abs(b[1] - X[M].real) <= bound
 
 
-def test_half_order_taps_are_the_spectrum_at_the_nearest_bins():
-    # the taps (firmware_py/dsp/half_taps.py) against numpy.fft.rfft of the same windowed samples
-    # at k = round(0.5, 1.5, 2.5 x 1x): (X[k] + p X[k - 1] + q X[k + 1]) * 2**(8 - u) with the
-    # device's weights p, q (Q12; what they null is checked against numpy below). Bound: the
-    # FFT's per-component bound on each of the three bins, weighted by 1, |p|, |q|, plus 1 LSB
-    # for the product's floor shift, scaled the same way (u <= 8 here, so the scaling is exact)
-    from firmware_py.dsp import half_taps
-    rng = np.random.default_rng(11)
-    for f1 in (43.1, 52.5):
-        x = np.round(_pump(f1, rng)).astype(np.int16)
-        fc = _spectrum_only_core()
-        fc.ring.push(array.array("h", x.tobytes()), N)
-        fc.process()
-        y, u, hann = _normalised(x, fc)
-        assert u <= 8
-        X = np.fft.rfft(y * hann) / M
-        f = np.array(fc.feats)
-        x1 = int(f[fi.F_TAP_X1])
-        assert abs(x1 / 256 * BIN - f1) < 0.1 * BIN          # the window's own 1x placed them
-        for i, odd in enumerate((1, 3, 5)):
-            k = (odd * x1 + 256) >> 9
-            p, q = half_taps.weight(x1, odd, k, -1), half_taps.weight(x1, odd, k, 1)
-            want = (X[k] + p / 4096 * X[k - 1] + q / 4096 * X[k + 1]) * 2.0 ** (8 - u)
-            bound = (_bound_per_component(M) * (1 + (abs(p) + abs(q)) / 4096) + 1) * 2 ** (8 - u)
-            got = f[fi.F_TAP_RE + 2 * i] + 1j * f[fi.F_TAP_RE + 2 * i + 1]
-            assert abs(got.real - want.real) <= bound and abs(got.imag - want.imag) <= bound
-
-
-def test_half_order_taps_null_the_whole_orders_beside_them():
-    # numpy alone, against the device's weights: a lone tone at a whole order beside a half order
-    # (1x and 2x for 1.5x, 2x and 3x for 2.5x, 1x and its image for 0.5x), Hann-windowed and
-    # transformed by numpy.fft.rfft, leaves T = X[k] + p X[k - 1] + q X[k + 1] within what the
-    # weights' derivation neglects: the Dirichlet kernel's phase e**(-i pi j / n) on the side bins
-    # (pi / n of their terms) and its magnitude's (pi d / n)**2 / 6 (n sin(pi d / n) against
-    # pi d; Taylor), the weights' Q12 rounding (2 LSB each) and the float FFT's rounding. 1x
-    # multiples of 4 Q8 make the offsets exact in the weights' Q6. A line at the half order itself
-    # passes at 0.75 - K / 4 of its amplitude (module comment of half_taps), K <= 6 / 4.25 for
-    # whole orders at least 1.5 bins away, times the Hann window's scalloping at up to half a bin
-    # (0.85, -1.42 dB; Harris, Proc. IEEE 66, 1978): over half the N / 4 a unit cosine gives the
-    # plain bin at its centre.
-    from firmware_py.dsp import half_taps
-    rng = np.random.default_rng(12)
-    hann = 0.5 - 0.5 * np.cos(2 * np.pi * np.arange(N) / N)
-    for x1 in range(2 * 256 + 40, 24 * 256, 4 * 37):
-        for odd in (1, 3, 5):
-            k = half_taps.tap_bin(x1, odd)
-            p, q = half_taps.weight(x1, odd, k, -1), half_taps.weight(x1, odd, k, 1)
-            for whole in {(odd + 1) // 2, (odd - 1) // 2 or (odd + 1) // 2}:
-                x = np.cos(2 * np.pi * whole * x1 / 256 * np.arange(N) / N + rng.uniform(0, 2 * np.pi)) * hann
-                X = np.fft.rfft(x)
-                t = X[k] + p / 4096 * X[k - 1] + q / 4096 * X[k + 1]
-                d = abs(whole * x1 / 256 - k) + 1
-                side = (abs(p * X[k - 1]) + abs(q * X[k + 1])) / 4096
-                bound = ((math.pi / N + (math.pi * d / N) ** 2 / 6) * side + (math.pi * d / N) ** 2 / 6 * abs(X[k])
-                         + 2 / 4096 * (abs(X[k - 1]) + abs(X[k + 1])) + 3 * 4 * math.log2(N) * 2 ** -52 * np.abs(x).sum())
-                assert abs(t) <= bound, (x1, odd, whole)
-            if min(abs(w * x1 / 256 - k) for w in ((odd + 1) // 2, (odd - 1) // 2 or -1)) >= 1.5:
-                line = np.fft.rfft(np.cos(2 * np.pi * odd / 2 * x1 / 256 * np.arange(N) / N) * hann)
-                assert abs(line[k] + p / 4096 * line[k - 1] + q / 4096 * line[k + 1]) >= 0.5 * N / 4
-
-
 # --- squared-envelope spectrum ----------------------------------------------------------------
 
 BAND = (128, 192)                    # 800-1200 Hz, around the 1000 Hz resonance below

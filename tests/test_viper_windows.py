@@ -80,6 +80,7 @@ def test_viper_features_equal_cpython_and_the_twin_bit_for_bit(n, with_stages):
         # the stages ran their whole path on some of these windows, not only the early exits
         assert (cpy[:, fi.F_SPEED] > 0).any() and (cpy[:, fi.F_ORD_VANE] != fi.LOG2_ZERO_Q8).any()
         assert (cpy[:, fi.F_ENV_BPFO:fi.F_ENV_FTF + 1] != fi.LOG2_ZERO_Q8).any()
+        assert (cpy[:, fi.F_TAP_X1] > 0).any()     # half-order taps over two windows
     if n in WASI_NS:
         wasi, clean, _ = guest_features(windows, n, FS, bands, adc, run=_WASI, **opts)
         assert clean, "a bytecode window step allocated (or passed 2**30) under heap_lock"

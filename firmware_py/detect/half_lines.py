@@ -3,15 +3,20 @@
 A looseness that lets a part lift and knock every other turn makes lines at 0.5x, 1.5x and 2.5x
 (common practice). In one window they sit within 2 bins of the integer orders and far under one
 bin's noise when they first show. Over a block of consecutive windows they do show: the complex
-value of one bin, window after window, turns at the line's offset from the bin's centre (the
-phase advances 2 pi x offset x every per analysed window), so a second, short DFT across the
-block splits that bin into `blk` cells and puts the line in one of them, while the noise spreads
-over all (the resolution of one block of n x every x blk samples; common practice in zoom
-analysis).
+value at a half order, window after window, turns at the line's offset from the nearest bin's
+centre (the phase advances 2 pi x offset x every per analysed window), so a second, short DFT
+across the block splits that bin into `blk` cells and puts the line in one of them, while the
+noise spreads over all (the resolution of one block of n x every x blk samples; common practice
+in zoom analysis).
 
-Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the bins nearest 0.5x, 1.5x,
-2.5x of the window's own 1x) of steady windows are collected while the taps stay on the same
-bins; a window that is not steady, or moves a tap to another bin, starts a new block. A full
+Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the complex values at 0.5x,
+1.5x, 2.5x of the speed the window before measured) of steady windows are collected; a window
+that is not steady, or at a speed beyond the steady tolerance of the block's, starts a new block.
+A window whose taps were mixed at a speed more than 1/32
+off the block's mean so far (DRIFT_SHIFT), or that has none, enters as zeros: its taps let the
+whole orders through (half_taps: their leakage goes with the square of that error), and the
+speed estimate scatters by 1 to 5 % from window to window on slow shafts, so cutting the block
+there would seldom let one fill. A block of fewer than half such windows is dropped. A full
 block gives, per half order, the mean power of the cells around the line's expected place over
 the mean power of the floor cells, in log2; the three are averaged. The blocks' values are
 averaged as an EWMA with weight 2**-SHIFT, one per operating speed: the floor around the lines
@@ -26,15 +31,13 @@ detector's clock is not read, and its next block starts it afresh: it tells of a
 was a day ago, and a looseness can have come, or been mended, since. The slots do not depend on
 the trained modes, so training reads the values the device will hold before it has fitted any.
 
-The whole orders leak into every tap through the per-window Hann window's side lobes (about
--50 dB at 4 bins; a pump's 1x stands 50 dB and more over one bin's noise), and across the block
-they turn a whole number of cycles per window from each other, so every whole order's leakage
-lands a whole multiple of x1 x every / 2 cycles per window from the line: its nearest images sit
-+-ALIAS cells from it, ALIAS = (x1 x every / 2 mod 1) x BLK, on the line itself at speeds near a
-multiple of 2 bins. The taps null the two nearest whole orders (half_taps: 43 dB and more under
-the plain bin's leakage 3 bins or more away), and the images' cells are still left out of the
-floor, so what is left of them does not lift it. Nearer than 3 bins the nulls fail, and such a
-block is dropped (drowned()).
+The whole orders reach the taps only through the speed estimate's error (half_taps: a triangle
+over two windows puts them on double zeros of its transform, so their leakage goes with the
+square of that error), and across the block they turn a whole number of cycles per window from
+each other, so every whole order's residue lands a whole multiple of x1 x every / 2 cycles per
+window from the line: its nearest images sit +-ALIAS cells from it, ALIAS = (x1 x every / 2 mod 1)
+x BLK, on the line itself at speeds near a multiple of 2 bins. The images' cells are left out of
+the floor, so what is left of them does not lift it.
 
 Integer-only; push() allocates nothing.
 
@@ -56,7 +59,7 @@ from micropython import const
 from firmware_py.dsp import feature_index as fi
 from firmware_py.dsp import tables
 from firmware_py.dsp.fixmath import log2_q8, msb
-from firmware_py.dsp.half_taps import ODDS, tap_bin
+from firmware_py.dsp.half_taps import ODDS
 
 UNSET = const(-16384)          # no average yet (LOG2_ZERO_Q8)
 SHIFT = const(3)               # EWMA weight 2**-3 per block; counts from 8 blocks
@@ -69,22 +72,22 @@ BLK = const(32)
 HALF_WIDTH = const(3)          # cells each side of the line: the Hann main lobe (2) and 1 for the
 #                                error of the block's mean speed
 ALIAS_WIDTH = const(2)         # cells each side of a whole order's image: the Hann main lobe
-# 1x under this (bins Q8) puts the whole orders within 3 bins of each half order, where the taps'
-# nulls are spoilt and their leakage stays strong (module docstring)
-LEAK_X1_Q8 = const(6 << 8)
 # An average this old (s of the detector's clock: running and the gaps between recordings) is
 # started afresh: a water pump's duties follow the day's demand (common practice), so a duty not
 # run within a day is not part of the current routine
 STALE_S = const(86400)
+# A window's taps mixed at a 1x more than 2**-DRIFT_SHIFT off the block's mean so far enter the
+# block as zeros (module docstring)
+DRIFT_SHIFT = const(5)
 CLOCK_MIN = const(-(1 << 28))  # the oldest time a slot keeps through rebase(), s
 
 
 def footprint_bytes(axes):
     """Heap bytes of a HalfLines' arrays on `axes` axes (payloads, as __init__ makes them): the
-    taps of one block per axis (6 ints a window), 6 ints of state per axis and 4 per slot, the
+    taps of one block per axis (6 ints a window), 4 ints of state per axis and 4 per slot, the
     scratch of one tap's block (2 ints a window), the block's twiddles (2 x (BLK / 2 + 1) ints)
     and Hann window (BLK halfwords)."""
-    return (4 * axes * 6 * BLK + 4 * (6 + 4 * SLOTS) * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1)
+    return (4 * axes * 6 * BLK + 4 * (4 + 4 * SLOTS) * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1)
             + 2 * BLK)
 
 
@@ -102,8 +105,8 @@ class HalfLines:
         self.hann_q15 = tables.hann(b, self.cos_q15)
         self.tap = array("i", bytes(4 * axes * 6 * b))   # per axis, window, tap: re, im
         self.nb = array("i", bytes(4 * axes))             # windows in the axis's block
-        self.bins = array("i", bytes(4 * axes * 3))       # the block's three tap bins
         self.x1 = array("i", bytes(4 * axes))             # sum of the block's 1x, bins Q8
+        self.nx = array("i", bytes(4 * axes))             # windows in that sum
         ns = axes * SLOTS                                 # slot k = a * SLOTS + s
         self.acc = array("i", bytes(4 * ns))              # EWMA << SHIFT (a sum while filling)
         self.cnt = array("i", bytes(4 * ns))              # blocks in the average, to 2**SHIFT; 0: free
@@ -133,47 +136,56 @@ class HalfLines:
         for a in range(self.axes):
             o = a * pa
             x1 = f[o + fi.F_TAP_X1]
-            if not steady or not 0 < x1 < X1_LIM or not self._sane(f, o):
+            if not steady or not 0 <= x1 < X1_LIM or not self._sane(f, o):
                 self.nb[a] = 0
                 continue
             j = self.nb[a]
-            bb = 3 * a
-            if j > 0:
-                for i in range(3):
-                    if tap_bin(x1, ODDS[i]) != self.bins[bb + i]:
-                        j = 0
+            c = self.nx[a] if j else 0
+            m = self.x1[a] // c if c else x1       # the block's mean 1x so far
+            if x1 and c and not self._near(x1, m):
+                j = 0                              # another speed: a block of its own
+                c = 0
+                m = x1
             if j == 0:
-                for i in range(3):
-                    self.bins[bb + i] = tap_bin(x1, ODDS[i])
                 self.x1[a] = 0
+                self.nx[a] = 0
+            use = x1 > 0 and -(m >> DRIFT_SHIFT) <= x1 - m <= m >> DRIFT_SHIFT
             t = (a * self.blk + j) * 6
             for i in range(6):
-                self.tap[t + i] = f[o + fi.F_TAP_RE + i]
-            self.x1[a] += x1
+                self.tap[t + i] = f[o + fi.F_TAP_RE + i] if use else 0
+            if use:
+                self.x1[a] += x1
+                self.nx[a] = c + 1
             j += 1
             if j == self.blk:
-                self._close(a, now_s)
+                if self.nx[a] >= self.blk >> 1:
+                    self._close(a, now_s)
                 j = 0
             self.nb[a] = j
-            k = self._slot(a, x1)
-            self.value[a] = (self.acc[k] >> SHIFT if k >= 0 and self.cnt[k] >= 1 << SHIFT
-                             and now_s - self.fed[k] <= STALE_S else UNSET)
+            if x1:
+                k = self._slot(a, x1)
+                self.value[a] = (self.acc[k] >> SHIFT if k >= 0 and self.cnt[k] >= 1 << SHIFT
+                                 and now_s - self.fed[k] <= STALE_S else UNSET)
 
     def _slot(self, a, x1):
         """The slot k of axis a whose speed is nearest x1 (bins Q8) within the steady tolerance,
-        or -1 (tol_q12 * ref < 2**12 * 2**20 = 2**32: ref is shifted first, exact to 1/4096
-        bin)."""
+        or -1."""
         best = -1
         gap = X1_LIM
         for k in range(a * SLOTS, (a + 1) * SLOTS):
-            if self.cnt[k] > 0:
-                r = self.ref[k]
-                tol = self.tol_q12 * (r >> 12) + ((self.tol_q12 * (r & 4095)) >> 12)
-                e = x1 - r if x1 >= r else r - x1
-                if e <= tol and e < gap:
+            if self.cnt[k] > 0 and self._near(x1, self.ref[k]):
+                e = x1 - self.ref[k]
+                e = e if e >= 0 else -e
+                if e < gap:
                     gap = e
                     best = k
         return best
+
+    def _near(self, x1, r):
+        """x1 within the steady tolerance of r (both bins Q8; tol_q12 * r < 2**12 * 2**20 =
+        2**32, so r is split first, exact to 1/4096 bin)."""
+        tol = self.tol_q12 * (r >> 12) + ((self.tol_q12 * (r & 4095)) >> 12)
+        return -tol <= x1 - r <= tol
 
     def _stalest(self, a):
         """A free slot of axis a, else the one fed longest ago (the first of equals)."""
@@ -197,9 +209,7 @@ class HalfLines:
     def _close(self, a, now_s):
         """A full block of axis a, at clock now_s: its prominence enters the average."""
         b = self.blk
-        x1 = self.x1[a] // b                       # the block's mean 1x, bins Q8 (< 2**20)
-        if drowned(x1):
-            return                                 # the block says nothing of the lines
+        x1 = self.x1[a] // self.nx[a]              # the block's mean 1x, bins Q8 (< 2**20)
         # the whole orders' nearest images: ALIAS Q8 cells each side of the line (x1 * every
         # mod 2 bins, Q8, times b / 2), the same for the three taps (module docstring)
         d = (b >> 1) * ((x1 * self.every) % 512)
@@ -266,9 +276,10 @@ class HalfLines:
             tr[j] = v
             ti[j] = w
             e += (v * v + w * w) >> 7              # <= 2**20 each; summed <= 3/8 blk 2**20
-        # where the line turns to: its offset from the bin centre in cycles per analysed window,
-        # times the block length, Q8 cells, modulo the block
-        off_q8 = ((ODDS[i] * x1) >> 1) - (self.bins[3 * a + i] << 8)
+        # where the line turns to: its place in bins (Q8) modulo one bin, as whole bins turn
+        # whole cycles per window; in cycles per analysed window, times the block length, Q8
+        # cells, modulo the block
+        off_q8 = ((ODDS[i] * x1) >> 1) & 255
         c0 = (off_q8 * self.every * b) % (b << 8)
         ct = self.cos_q15
         st = self.sin_q15
@@ -310,16 +321,6 @@ class HalfLines:
             rest = 1
         t = self.tab
         return (log2_q8(line, t) - log2_q8(nl, t)) - (log2_q8(rest, t) - log2_q8(b - nl - ns, t))
-
-
-def drowned(x1):
-    """True where a block at 1x x1 (bins Q8) cannot read the half orders: the whole orders lie
-    within 3 bins of them (x1 under LEAK_X1_Q8), where their leakage through the Hann main lobe
-    starts at about -6 dB of the 1x and the taps' null hangs on the estimate's last hundredth of a
-    bin. Their images then land on the lines at some speeds and beside them at others, and what
-    the block reads follows the whole orders' levels and the fraction of a bin the speed sits at,
-    not the half orders. Such a block is dropped."""
-    return x1 < LEAK_X1_Q8
 
 
 def _dist(v, b):

@@ -4,8 +4,9 @@ allocates nothing and keeps every intermediate below 2**30 in magnitude (docs/fi
 
 Per window and axis: one pass over the samples (statistics, stuck and zero runs: _scan), a
 second that normalises, windows and stores them bit-reversed (_shape), the FFT and power spectrum (fft), the moments and band powers (_finish),
-then the shaft speed (speed), the order amplitudes (orders), the half-order taps (half_taps) and
-the squared-envelope lines (envelope), each of which reads the spectrum the FFT left.
+then the shaft speed (speed), the order amplitudes (orders) and the squared-envelope lines
+(envelope), each of which reads the spectrum the FFT left, and the half-order taps (half_taps),
+which read the samples around the boundary with the window before, at that window's speed.
 
 Entry points: check_config(), footprint_bytes(), FeatureCore. The per-sample passes (_scan,
 _shape), the FFT stages and the band powers (_bands) are viper-compiled on the boards
@@ -69,7 +70,7 @@ def footprint_bytes(n, axes, ring_windows, n_bands):
     work_b = 4 * n + 4 * (m + 1) + 4 * axes * per_axis(n_bands)          # fft buf, power, feats
     work_b += 4 * _S_LEN + 4 * n_bands                                   # window sums, band bins
     return (_ring_bytes(axes, n, ring_windows) + tables_b + tw_b + work_b
-            + envelope.buffer_bytes(n))
+            + envelope.buffer_bytes(n) + half_taps.footprint_bytes(axes))
 
 
 class FeatureCore:
@@ -105,6 +106,8 @@ class FeatureCore:
         # band mean square = 4/3 * 2**-2u * sum(p) (Hann power normalisation); 4/3 as log2, Q8
         self.log2_4_3_q8 = 512 - log2_q8(3, self.log2_q15)
         self.per = per_axis(self.n_bands)
+        self.taps = half_taps.HalfTaps(axes, n, self.cos_q15, self.sin_q15)
+        self.follows = True
         self.feats = array.array('i', bytes(4 * axes * self.per))
         self.st = array.array('i', bytes(4 * _S_LEN))    # window sums, see _scan and _shape
         self.speed = speed.SpeedEstimator(n, fs_hz, speed_lo_q8, speed_hi_q8, self.p)
@@ -113,33 +116,37 @@ class FeatureCore:
                                      self.pos, self.tw_q15, self.cos_q15, self.sin_q15,
                                      self.log2_q15)
         for a in range(axes):       # the stages' fields as they stay while the stages are off
-            self._stages(a * self.per, 0)
+            self._stages(None, a, 0, 0)
             self.feats[a * self.per + F_HALF] = LOG2_ZERO_Q8   # the detector's field (feature_index)
         self.windows = 0
 
-    def step(self):
+    def step(self, follows=True):
         """Process the oldest waiting window of every axis into self.feats and free its slot;
-        False if no window waits."""
-        if not self.process():
+        False if no window waits. follows: as process()."""
+        if not self.process(follows):
             return False
         self.ring.release()
         return True
 
     @micropython.native
-    def process(self):
+    def process(self, follows=True):
         """As step(), but the window stays in the ring (ring.window(a) still reads it) until
-        ring.release(): the caller may save it, e.g. as an event snapshot."""
+        ring.release(): the caller may save it, e.g. as an event snapshot. follows: the window
+        starts where the last one processed ended (no sample lost or skipped between them),
+        which the half-order taps need."""
         ring = self.ring
         if not ring.ready():
             return False
+        self.follows = follows
         for a in range(self.axes):
-            self._axis(ring.window(a), a * self.per)
+            self._axis(ring.window(a), a)
         self.windows += 1
         return True
 
     @micropython.native
-    def _axis(self, win, off):
+    def _axis(self, win, a):
         n = self.n
+        off = a * self.per
         L = self.L
         f = self.feats
         st = self.st
@@ -158,6 +165,7 @@ class FeatureCore:
         f[off + F_ZERO] = st[_S_ZERO]
         if pk == 0:
             self._flat(off)
+            self.taps.cut(a)
             return
         # normalise: y = (x - mean) * 2**u, peak's top bit at Y_BITS
         u = Y_BITS - msb(pk)
@@ -169,16 +177,17 @@ class FeatureCore:
         vs = fft.spectrum(self.buf, m, self.cos_q15, self.sin_q15, self.vmant, self.vsh2, self.p,
                           self.speed.on)
         self._finish(off, pk, u, g, sh, st[_S_SQ], st[_S_S4], vs)
-        if self.speed.on:           # off: no 1x, so neither orders nor envelope; fields as set
-            self._stages(off, u)
+        if self.speed.on:           # off: no 1x, so no orders, taps or envelope; fields as set
+            self._stages(win, a, u, mean)
 
-    def _stages(self, off, u):
-        """Speed, orders, half-order taps and envelope from the spectrum the FFT left (u: the
-        window's scale). The taps read X before the envelope stage reuses buf."""
+    def _stages(self, win, a, u, mean):
+        """Speed, orders and envelope from the spectrum the FFT left, the half-order taps from
+        the samples (win: axis a's window, u: its scale, mean: its integer mean, counts)."""
         f = self.feats
+        off = a * self.per
         f1 = self.speed.run(f, off)
         self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
-        half_taps.run(self.buf, self.m, f1, u, f, off)
+        self.taps.run(win, mean, u, f1, self.follows, f, off, a)
         self.env.run(self.buf, f1, f, off)
 
     @micropython.native

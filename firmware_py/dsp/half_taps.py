@@ -1,78 +1,223 @@
-# Half-order taps of one window: the complex spectrum at the bins nearest 0.5x, 1.5x and 2.5x of
-# the window's own 1x estimate, in integers, allocation-free.
+# Half-order taps: per window and axis, the complex value at 0.5x, 1.5x and 2.5x over a triangle
+# of 2 L samples centred on the boundary between the window before and this one, in integers,
+# allocation-free.
 #
 # Why: the lines at half orders (a part that lifts and knocks every other turn: looseness, common
-# practice) sit within 2 bins of the integer orders at the speeds of most pumps in a 512-sample
-# window, and far under one bin's noise when they first show. One window cannot see them; a run of
-# consecutive windows can, if their complex values are lined up in time (the detector does that:
-# firmware_py/detect/half_lines.py). So each window hands over its raw complex values here.
+# practice) sit within 2 bins of the integer orders at the speeds of most pumps, and far under one
+# bin's noise when they first show. One window cannot see them; a run of consecutive windows can,
+# if their complex values are lined up in time (firmware_py/detect/half_lines.py does that). So
+# each window hands over a complex value per half order here.
 #
-# Each tap nulls the two whole orders beside its half order (1x and 2x for 1.5x, 2x and 3x for
-# 2.5x; for 0.5x the 1x and, as the window's mean is removed, the 1x's negative-frequency image).
-# Through the Hann window a tone at delta bins from bin k reaches bin k + j as -e**(-i pi delta) sin(pi delta) / (2 pi) / ((delta - j) ((delta - j)**2 - 1)) (the
-# periodic Hann is 0.5 D(d) - 0.25 D(d - 1) - 0.25 D(d + 1) of the Dirichlet kernel D; Harris,
-# Proc. IEEE 66, 1978; n large), a common factor times a rational function. So
-# T = X[k] + p X[k - 1] + q X[k + 1] reads a tone at delta as that factor times
-# N(delta) / ((delta - 2)(delta - 1) delta (delta + 1)(delta + 2)) with the quadratic
-# N = p (delta - 1)(delta - 2) + (delta**2 - 4) + q (delta + 1)(delta + 2); N vanishes at the two
-# whole orders' offsets a < 0 < b when N = K (delta - a)(delta - b): K = 6 / (2 - ab),
-# p = (K - 1 + K (a + b) / 3) / 2, q = (K - 1 - K (a + b) / 3) / 2. A line at the bin's centre
-# passes at 0.75 - K / 4 of its amplitude (X[k] alone: 0.5). Why: a pump's 1x stands 50 dB and
-# more over one bin's noise and leaks into the 0.5x bin at about -50 dB; across a block of windows
-# that leakage turns a whole multiple of x1 / 2 cycles per window from the half-order line, on top
-# of it at speeds near a multiple of 2 bins (a 2-pole pump at 49 Hz, 512 samples at 3200 Hz).
+# What each value must leave out is the whole orders (a pump's 1x stands 50 dB and more over one
+# bin's noise), which lie at odd multiples of x1 / 2 from every half order. A rectangle of L
+# samples has the transform sin(pi f L) / sin(pi f): zeros at every multiple of 1 / L; a triangle
+# of 2 L samples, the rectangle convolved with itself, has its square, so double zeros there
+# (Harris, Proc. IEEE 66, 1978). Mixed down by exactly a half order, with L a whole number of
+# 0.5x periods (2 n / x1 samples each), every whole order falls on a double zero: its leakage goes
+# with the square of the speed estimate's relative error (1 % leaves 1e-4, -80 dB), where a Hann
+# window's nulls, or a rectangle's single ones, go with its first power. A window of n samples
+# holds one 0.5x period only from a 1x of 2 bins up, so a triangle of two periods needs two
+# windows: the half after the boundary is summed in this window, the half before it was summed in
+# the window before, with that window's estimate (the same speed for both halves, so the double
+# zeros stay where the whole orders were put) and kept here. A window that does not follow the one
+# before (cut(), or not follows) has no tap.
 #
-# Entry points: tap_bin(f1_q8, odd), weight(f1_q8, odd, k, side), run(buf, m, f1_q8, u, f, off).
+# L: the fewest whole 0.5x periods that reach n / 2, m = ceil(x1 / 4) of them (span()); so
+# n / 2 <= L <= n. Samples d = -L..L-1 about the boundary (between d = -1 and d = 0), weighed by
+# the triangle at their centres d + 1/2: the j-th sample from the boundary, on either side, by
+# w = ((2 L - 1 - 2 j) * inv) >> 16, inv = 2**27 // L (Q12, < 4096; (2 L - 1) inv < 2**28).
+# Phase: the half order h (bins: cycles per n samples, so entries of the n-point table per sample)
+# times (d + 1/2), kept as Q10 table entries modulo n * 2**10; the value is then the line's phase
+# at the boundary, whatever the estimate's error (the window is symmetric about it).
 #
-# Scales: buf holds X[k] = DFT(x)[k] / m in the packed real-FFT layout (fft.spectrum with keep_x),
-# where x = the Hann-windowed (Q15 table) window y = (counts - mean) * 2**u; |X| <= 2**14 per
-# component. p, q: Q12, |p| + |q| < 3.6 for whole orders at least half a bin from the tap (a 1x
-# of at least 2 bins, the speed search's floor). No taps for a 1x of X1_MAX or more (256 bins:
-# 1600 Hz at 512 samples and 3200 Hz, 100 Hz at 8192), which keeps the weights' products small. A tap is T * 2**(8 - u): counts Q8 of the same
-# transform, so windows of different gain u compare; u >= -2 (a peak under 2**16 counts), so
-# |tap| <= 4.6 * 2**14 * 2**10 < 2**27.
+# Entry points: span(f1_q8, n), footprint_bytes(axes), HalfTaps(axes, n, cos_q15, sin_q15) with
+# run(win, dc, u, f1_q8, follows, f, off, a) and cut(a).
+#
+# Scales: win holds int16 counts; dc: the integer mean of the window the tap's first half was
+# summed in (counts); u: this window's gain exponent (features: y = (x - dc) * 2**u, peak's top
+# bit at bit 13), so |y| <= 2**14 for the window's own mean, clamped to +-32767 (a window twice as
+# loud as the one before, or a mean that jumps: only then). Per sample ((y w) >> 12) times cos or
+# sin (Q15, |.| <= 32768), rounded: y w < 2**27, the product < 2**30, |term| <= 32759; a half sums
+# L <= 4096 of them, |H| < 2**27, and is brought to counts Q8 as round(8 H / L) / 2 * 2**(6 - u)
+# (|.| <= 2**17 * 2**8 for u >= -2: a peak under 2**16 counts). A tap is the two halves' sum, the
+# mean over the triangle's 2 L samples of (x - dc) w / 4096 e**(-i phase): a line of amplitude A
+# counts reads A / 2 (Q8); |tap| < 2**26.
+import micropython
+from array import array
 from micropython import const
 
 from firmware_py.dsp.feature_index import F_TAP_RE, F_TAP_X1
+from firmware_py.viper_stand import SX32, ptr16, ptr32
 
-ODDS = (1, 3, 5)        # the half orders 0.5x, 1.5x, 2.5x as odd multiples of 0.5x
-X1_MAX = const(1 << 16)  # bins Q8: the largest 1x, exclusive, that gets taps
-
-
-def tap_bin(f1_q8, odd):
-    """The bin nearest odd/2 x 1x, for 1x = f1_q8 (bins Q8): round(odd * f1 / 2)."""
-    return (odd * f1_q8 + 256) >> 9
-
-
-def weight(f1_q8, odd, k, side):
-    """Q12 weight of bin k + side (side -1: p, +1: q) that, with bin k's 1, nulls the whole orders
-    beside tap bin k (module comment); one at a time, as a pair would allocate a tuple. Offsets
-    a, b in Q8 bins (|a| < 1.5 * X1_MAX + 2**8, b about x1 / 2), taken to Q6 for the products
-    (|ab| < 2**29.2, Q12), so 2 - ab >= 2 bins**2 (a <= 0 <= b) and K = 6 / (2 - ab) <= 3 in Q12
-    (6 * 2**24 < 2**27); K (a + b) / 3 from a + b in Q6 (|a + b| <= x1 + 2**8: K (a + b) < 2**28)."""
-    lo = (odd - 1) >> 1 if odd > 1 else -1     # 0.5x: no DC (the mean is removed), but the 1x's
-    a = lo * f1_q8 - (k << 8)                  # image at -1x
-    b = ((odd + 1) >> 1) * f1_q8 - (k << 8)
-    kk = (6 << 24) // (8192 - (a >> 2) * (b >> 2))
-    ks = (kk * ((a + b) >> 2)) // 192
-    return (kk - 4096 - side * ks) >> 1
+ODDS = (1, 3, 5)         # the half orders 0.5x, 1.5x, 2.5x as odd multiples of 0.5x
+# bins Q8: the slowest 1x with taps. One 0.5x period fits a window from 2 bins; under 2.5 bins
+# the speed estimate wanders by a tenth of a bin from window to window (speed.FINE_Q2: the 1x and
+# 2x lobes share two bins), which spoils the zeros and cuts every block (half_lines' drift)
+X1_MIN = const(640)
+X1_MAX = const(1 << 16)  # bins Q8: the fastest, exclusive (256 bins), which bounds m (<= 64)
+_K1 = const(0)           # state per axis: the 1x the first half was mixed at (0: none), bins Q8
+_KL = const(1)           # its L
+_KDC = const(2)          # its dc, counts
+_KH = const(3)           # the first half's three (re, im), counts Q8
+_KLEN = const(9)
 
 
-def run(buf, m, f1_q8, u, f, off):
-    """Write F_TAP_X1 and the three (re, im) taps at f[off + ...] from the spectrum X in buf.
-    f1_q8: 1x in bins Q8 (0: none); u: the window's gain exponent. A tap whose bins k - 1..k + 1
-    fall outside 1..m-1 (where the packed layout holds complex values) and a window without 1x
-    get zeros. The sum X[k] 2**12 + p X[k - 1] + q X[k + 1] stays under 2**14 * 4.6 * 2**12."""
-    f[off + F_TAP_X1] = f1_q8
-    for i in range(3):
-        k = tap_bin(f1_q8, ODDS[i]) if 0 < f1_q8 < X1_MAX else 0
-        o = off + F_TAP_RE + 2 * i
-        if k < 2 or k > m - 2:
-            f[o] = 0
-            f[o + 1] = 0
-            continue
-        p = weight(f1_q8, ODDS[i], k, -1)
-        q = weight(f1_q8, ODDS[i], k, 1)
-        for c in range(2):
-            t = ((buf[2 * k + c] << 12) + p * buf[2 * k - 2 + c] + q * buf[2 * k + 2 + c]) >> 12
-            f[o + c] = t << (8 - u) if u <= 8 else t >> (u - 8)
+def span(f1_q8, n):
+    """L for a 1x of f1_q8 (bins Q8, X1_MIN <= f1 < X1_MAX): m = ceil(x1 / 4) periods of 0.5x,
+    each 512 n / f1_q8 samples, rounded (m n 1024 <= 2**28; L <= n from 2 bins)."""
+    m = (f1_q8 + 1023) >> 10
+    return (m * n * 1024 // f1_q8 + 1) >> 1
+
+
+def footprint_bytes(axes):
+    """Heap bytes of a HalfTaps' arrays: the state per axis, the mixer's phases and its sums."""
+    return 4 * _KLEN * axes + 4 * 6 + 4 * 6
+
+
+class HalfTaps:
+    """See the module comment. cos_q15, sin_q15: the feature core's n-point tables (0..n/2)."""
+
+    def __init__(self, axes, n, cos_q15, sin_q15):
+        self.n = n
+        self.ct = cos_q15
+        self.st = sin_q15
+        self.k = array("i", bytes(4 * _KLEN * axes))
+        self.par = array("i", bytes(4 * 6))     # per half order: phase, step (Q10 table entries)
+        self.out = array("i", bytes(4 * 6))     # per half order: re, im of one half
+
+    def run(self, win, dc, u, f1_q8, follows, f, off, a):
+        """Write F_TAP_X1 and the three (re, im) taps at f[off + ...] for axis a's window win of
+        integer mean dc and gain exponent u, whose own 1x is f1_q8 (bins Q8, 0: none); follows:
+        it starts where the window before ended. Then sum this window's half of the next tap."""
+        k = self.k
+        b = a * _KLEN
+        n = self.n
+        f1 = k[b + _K1] if follows else 0
+        f[off + F_TAP_X1] = f1
+        if f1:
+            L = k[b + _KL]
+            self._mix(win, 0, 1, L, k[b + _KDC], u, f1)
+            for i in range(6):
+                f[off + F_TAP_RE + i] = k[b + _KH + i] + _q8(self.out[i], L, u)
+        else:
+            for i in range(6):
+                f[off + F_TAP_RE + i] = 0
+        if X1_MIN <= f1_q8 < X1_MAX:
+            L = span(f1_q8, n)
+            self._mix(win, n - 1, -1, L, dc, u, (n << 10) - f1_q8)
+            for i in range(6):
+                k[b + _KH + i] = _q8(self.out[i], L, u)
+            k[b + _K1] = f1_q8
+            k[b + _KL] = L
+            k[b + _KDC] = dc
+        else:
+            k[b + _K1] = 0
+
+    def cut(self, a):
+        """Axis a's next window will not follow this one: no tap from it."""
+        self.k[a * _KLEN + _K1] = 0
+
+    def _mix(self, win, i0, di, L, dc, u, f1):
+        """One half into self.out, walking L samples from win[i0] by di away from the boundary,
+        phases from the one beside it: d + 1/2 = +-1/2, times each half order h = odd f1 / 2,
+        Q10 entries (odd f1 < 5 * 2**22). f1 is the 1x, or (n << 10) - 1x for the half before the
+        boundary, whose phases run backwards (the same walk, mirrored)."""
+        pm = (self.n << 10) - 1
+        par = self.par
+        for j in range(3):
+            h = ODDS[j] * f1
+            par[2 * j] = h & pm
+            par[2 * j + 1] = (2 * h) & pm
+        inv = (1 << 27) // L
+        _mix(win, i0, di, L, dc, u, (2 * L - 1) * inv, 2 * inv, self.ct, self.st, self.n, par,
+             self.out)
+
+
+def _q8(h, L, u):
+    """A half's sum h as counts Q8 (module comment): round(8 h / L) / 2, times 2**(6 - u)."""
+    q = ((h << 3) // L + 1) >> 1
+    return q << (6 - u) if u <= 6 else (q + (1 << (u - 7))) >> (u - 6)
+
+
+@micropython.viper
+def _mix(win, i: int, di: int, cnt: int, dc: int, u: int, wa: int, dw: int, ct, st, n: int,
+         par, out):
+    """out[2 j], out[2 j + 1] = sum over cnt samples from win[i], stepping di, of
+    y w e**(-i phase_j) as the module comment scales them: y = (win - dc) * 2**u, +-32767 where
+    |win - dc| exceeds 32767 >> u (u >= 0; for u < 0, |win - dc| >> -u <= 2**15 - 1 as is);
+    w = wa >> 16 with wa falling by dw a sample; phase_j from par[2 j] by par[2 j + 1] a sample
+    (Q10 entries of the n-point table, modulo n * 2**10). Table values may be negative:
+    sign-extended with SX32; win's int16 with the 16-bit rule."""
+    w16 = ptr16(win)
+    cp = ptr32(ct)
+    sp = ptr32(st)
+    pp = ptr32(par)
+    op = ptr32(out)
+    sx = int(SX32)
+    h = n >> 1
+    tm = n - 1
+    pm = (n << 10) - 1
+    lim = 65535                    # |win - dc| past lim clamps, before the shift (which would
+    if u >= 0:                     # leave 32 bits); int16 minus int16 never passes 65535
+        lim = 32767 >> u
+    p0 = pp[0]
+    s0 = pp[1]
+    p1 = pp[2]
+    s1 = pp[3]
+    p2 = pp[4]
+    s2 = pp[5]
+    r0 = 0
+    q0 = 0
+    r1 = 0
+    q1 = 0
+    r2 = 0
+    q2 = 0
+    for _ in range(cnt):
+        y = (((w16[i] & 0xFFFF) ^ 0x8000) - 0x8000) - dc
+        if y > lim:
+            y = 32767
+        elif y < 0 - lim:
+            y = -32767
+        elif u >= 0:
+            y = y << u
+        else:
+            y = y >> (0 - u)
+        v = (y * (wa >> 16)) >> 12
+        wa -= dw
+        i += di
+        k = ((p0 + 512) >> 10) & tm
+        if k <= h:
+            c = (cp[k] << sx) >> sx
+            s = (sp[k] << sx) >> sx
+        else:
+            c = (cp[n - k] << sx) >> sx
+            s = 0 - ((sp[n - k] << sx) >> sx)
+        r0 += (v * c + 16384) >> 15
+        q0 -= (v * s + 16384) >> 15
+        p0 = (p0 + s0) & pm
+        k = ((p1 + 512) >> 10) & tm
+        if k <= h:
+            c = (cp[k] << sx) >> sx
+            s = (sp[k] << sx) >> sx
+        else:
+            c = (cp[n - k] << sx) >> sx
+            s = 0 - ((sp[n - k] << sx) >> sx)
+        r1 += (v * c + 16384) >> 15
+        q1 -= (v * s + 16384) >> 15
+        p1 = (p1 + s1) & pm
+        k = ((p2 + 512) >> 10) & tm
+        if k <= h:
+            c = (cp[k] << sx) >> sx
+            s = (sp[k] << sx) >> sx
+        else:
+            c = (cp[n - k] << sx) >> sx
+            s = 0 - ((sp[n - k] << sx) >> sx)
+        r2 += (v * c + 16384) >> 15
+        q2 -= (v * s + 16384) >> 15
+        p2 = (p2 + s2) & pm
+    op[0] = r0
+    op[1] = q0
+    op[2] = r1
+    op[3] = q1
+    op[4] = r2
+    op[5] = q2

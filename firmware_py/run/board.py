@@ -23,7 +23,7 @@ _HEADERS = const(1024)   # object headers of the buffers, about 16 bytes each, o
 # 16-byte header for each of its arrays and instances (one GC block of a 32-bit port), payloads
 # rounded up to whole blocks, and the instances' attribute tables (8 bytes a slot; the Detector's
 # hundred-odd attributes take 127 slots; its half-order stage's a dozen more). tests/test_boards.py
-# counts 3182 bytes for the largest set on 3 axes and measures that within 2 blocks on MicroPython;
+# counts 3174 bytes for the largest set on 3 axes and measures that within 2 blocks on MicroPython;
 # the rest is margin for the collector's stale pointers and a few attributes more.
 DETECTOR_OBJECTS = const(3584)
 _MAX_EVERY = const(64)

@@ -162,15 +162,15 @@ class Gateway:
         Allocation-free: may run with micropython.heap_lock() held.
         """
         core = self.core
-        if not core.process():
+        g = self.gaps
+        k = self.windows % len(g)
+        if not core.process(g[k] == 0):     # a gap: the half-order taps start again
             return False
         ring = core.ring
         for a in range(core.axes):
             ring.copy_window(a, self.raw, a * core.n)
         ring.release()
         self.raw_valid = True
-        g = self.gaps
-        k = self.windows % len(g)
         self.raw_gap = g[k]
         g[k] = 0
         self.snapshots.keep(self.raw, self.raw_gap)    # the event capture's history

@@ -19,7 +19,7 @@ import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.dsp import feature_index as fi, orders
 from firmware_py.detect import modes as dm
 from firmware_py.detect.detector import CHI_Q8
-from firmware_py.detect.half_lines import BLK, HALF_WIDTH, LEAK_X1_Q8, SHIFT as HALF_SHIFT, UNSET
+from firmware_py.detect.half_lines import BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
 from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
 from firmware_py.dsp.tables import log2_table
@@ -175,12 +175,6 @@ def half_spread_bound(s: float, readings: int) -> float:
         return float(dm.Z_LIM)
     nu = n_eff - 1.0
     return s * math.sqrt(nu / float(chi2.ppf(0.05, nu)) / (1.0 - 1.0 / n_mean))
-
-
-def half_orders_from_hz(params: dict) -> float:
-    """The shaft speed (Hz) under which the detector drops every block of half-order taps
-    (half_lines.drowned: the whole orders within 3 bins of the half orders)."""
-    return LEAK_X1_Q8 / 256.0 * params["fs_hz"] / params["n"]
 
 
 def line_spans(params: dict, ranges_hz: Sequence[tuple[float, float]]) -> list[tuple[float, float]]:

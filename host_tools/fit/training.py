@@ -941,12 +941,10 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     n_windows = int(len(allf))
     n_scored = int(sum(s.sum() for s in scored))
     ranges = modes_fit.mode_ranges_hz(p)
-    half_from_hz = modes_fit.half_orders_from_hz(p)
     for m in table:
         i = m["mode"]
         m["speed_hz"] = list(ranges[i]) if ranges else None
         m["half_aside"] = bool(ranges) and bool(modes_fit.set_aside(p, ranges[i][0]))
-        m["half_orders_under_hz"] = half_from_hz if ranges and ranges[i][0] < half_from_hz else None
         m["half_orders_unjudged"] = [axis_names[f // pa] for j, f in enumerate(p["det_feat"]) if f % pa == fi.F_HALF
                                      and p["det_mode_s_q8"][i * len(p["det_feat"]) + j] >= dm.Z_LIM]
     half_judged = any(i % pa == fi.F_ORD_HALF for i in p["det_feat"])
@@ -1026,15 +1024,7 @@ def report_text(summary: dict) -> str:
         sp = m.get("speed_hz")
         where = f"shaft {sp[0]:.1f}-{sp[1]:.1f} Hz, " if sp else ""
         aside = "; the 0.5x line is not judged here" if m.get("half_aside") else ""
-        under = m.get("half_orders_under_hz")
-        unread = bool(under and sp and sp[1] < under)     # the whole mode under it
-        if unread:
-            aside += (f"; the half orders over many windows are not read here (under {under:.1f} Hz the whole orders "
-                      "lie within 3 bins of them)")
-        elif under:
-            aside += (f"; the half orders over many windows are not read under {under:.1f} Hz, where the whole orders "
-                      "lie within 3 bins of them")
-        if m.get("half_orders_unjudged") and not unread:
+        if m.get("half_orders_unjudged"):
             aside += (f"; the half orders over many windows are not judged on axis {', '.join(m['half_orders_unjudged'])}: "
                       "training held too few of their averages here (fewer than 2 independent ones)")
         lines.append(f"    mode {m['mode']}: {where}{m['windows']} windows ({100 * m['share']:.0f} %), median accel "

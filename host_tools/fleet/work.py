@@ -14,7 +14,7 @@ The replay of one gateway is
 
 built from host_tools.twin.replay's streaming pieces: the chunks are replay.plan_chunks of the
 gateway's stream (with FLEET_CHUNK_WINDOWS windows each, so a task is a second or so of work),
-their samples are read with replay.read_chunk and turned into features by the set's feature twin,
+their samples (and each chunk's lead window) are turned into features by replay.chunk_features,
 and gateway_pass steps one replay.StreamReplay (one device Detector, state carried) over the
 chunks' features in order, then replay.assemble makes its ReplayResult. That is what `edgevib
 replay` does with the same recordings in one process, so the results are identical; only where
@@ -42,7 +42,8 @@ from host_tools.fleet import layout
 from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
 from host_tools.twin.replay import (
     TRACK_CAP, ChunkPlan, ReplayResult, StreamFeatures, StreamReplay, WindowKeeper, assemble, m_s2_per_count,
-    plan_chunks, read_chunk, twin_for)
+    plan_chunks, twin_for)
+from host_tools.twin import replay
 
 # Windows per feature task: 8192 windows of 512 samples are 4.2 M frames, about 22 min of one
 # gateway's data at 3200 Hz and a second or so of work: small next to the scheduler's few
@@ -53,13 +54,14 @@ FLEET_CHUNK_WINDOWS = 8192
 
 @dataclass
 class ChunkTask:
-    """One feature task: consecutive chunks of replay.plan_chunks, each as (pieces, t_s, rec):
-    samples to read as (path, first frame, end frame) pieces, the end times t_s (s) and owning
-    recordings rec (index into the gateway's paths) of its windows. Chunks never span a gap, so
-    an archive of snapshots has one chunk per snapshot; a task takes as many as make
-    FLEET_CHUNK_WINDOWS windows."""
+    """One feature task: consecutive chunks of replay.plan_chunks, each as (pieces, t_s, rec,
+    lead, follows): samples to read as (path, first frame, end frame) pieces, the end times t_s (s)
+    and owning recordings rec (index into the gateway's paths) of its windows, the pieces of the
+    window before it where it continues a chunk (ChunkPlan.lead), and whether its windows follow
+    each other. Chunks never span a gap, so an archive of snapshots has one chunk per snapshot; a
+    task takes as many as make FLEET_CHUNK_WINDOWS windows."""
 
-    chunks: list[tuple[list[tuple[str, int, int]], np.ndarray, np.ndarray]]
+    chunks: list[tuple[list[tuple[str, int, int]], np.ndarray, np.ndarray, list[tuple[str, int, int]], bool]]
 
 
 @dataclass
@@ -144,7 +146,8 @@ def _chunk_tasks(recs: Sequence[Any], profile: dict, chunk_windows: int) -> tupl
         if size >= chunk_windows:
             tasks.append(ChunkTask([]))
             size = 0
-        tasks[-1].chunks.append(([(paths[i], a, b) for i, a, b in pl.pieces], pl.t_s, pl.rec))
+        tasks[-1].chunks.append(([(paths[i], a, b) for i, a, b in pl.pieces], pl.t_s, pl.rec,
+                                 [(paths[i], a, b) for i, a, b in pl.lead], pl.follows))
         size += len(pl.t_s)
     return paths, tasks
 
@@ -156,11 +159,13 @@ def chunk_features(task: ChunkTask, cfg: TwinConfig, axes: int, scale: float) ->
     and counts scale `scale` (m/s^2 per count), and compute their features (task)."""
     twin = FeatureTwin(cfg, axes)
     feats = []
-    for pieces, t_s, rec in task.chunks:
-        files = [open_recording(p, cfg.fs_hz, scale) for p, _, _ in pieces]
-        local = ChunkPlan(0, t_s, rec, [(k, a, b) for k, (_, a, b) in enumerate(pieces)])
-        feats.append(twin.features(read_chunk(files, local)))
-    # each window's features depend on its own samples only: joining chunks changes nothing
+    for pieces, t_s, rec, lead, follows in task.chunks:
+        files = [open_recording(p, cfg.fs_hz, scale) for p, _, _ in pieces + lead]
+        local = ChunkPlan(0, t_s, rec, [(k, a, b) for k, (_, a, b) in enumerate(pieces)],
+                          [(len(pieces) + k, a, b) for k, (_, a, b) in enumerate(lead)], follows)
+        feats.append(replay.chunk_features(twin, files, local))
+    # each window's features depend on its own samples and the window before, which a chunk
+    # reads as its lead: joining chunks changes nothing
     return StreamFeatures(np.concatenate(feats), np.concatenate([c[1] for c in task.chunks]),
                           np.concatenate([c[2] for c in task.chunks]))
 

@@ -228,7 +228,7 @@ nw = {_HALF_BLOCKS} * BLK
 f = array.array('i', bytes(4 * pa * nw))
 seed = 777
 for w in range(nw):
-    f[w * pa + fi.F_TAP_X1] = 1664          # 6.5 bins (no block dropped): the whole orders' images
+    f[w * pa + fi.F_TAP_X1] = 1664          # 6.5 bins: the whole orders' images
     for i in range(6):                      # 8 cells from the lines, so every block transforms all 17
         seed = (seed * 1103515245 + 12345) & 0x3fffffff
         f[w * pa + fi.F_TAP_RE + i] = (seed >> 10) - (1 << 19)
@@ -239,6 +239,31 @@ def run(steady):
             row[j] = f[w * pa + j]
         h.push(row, steady, w)
 """
+
+
+# The feature core's half-order taps (firmware_py/dsp/half_taps.py) on one axis at a 1x of 3.3
+# bins (21 Hz at 512 samples and 3200 Hz: L = 310 samples a half, both halves summed every
+# window), against the same windows without them
+_TAPS = _SETUP + f"""
+from firmware_py.dsp import feature_index as fi
+from firmware_py.dsp import tables
+from firmware_py.dsp.half_taps import HalfTaps
+cos_t, sin_t = tables.twiddles({N})
+taps = HalfTaps(1, {N}, cos_t, sin_t)
+f = array.array('i', bytes(4 * fi.per_axis(0)))
+win = array.array('h', bytes(2 * {N}))
+def run(on):
+    for w in range({WINDOWS}):
+        for i in range({N}):
+            win[i] = src[w * {N} + i]
+        if on:
+            taps.run(win, 0, 2, 845, True, f, 0, 0)
+"""
+
+
+def _taps_fuel() -> float:
+    """Fuel of the half-order taps per window (heap locked)."""
+    return _fuel_diff(_TAPS + "locked(lambda: run(False))\n", _TAPS + "locked(lambda: run(True))\n") / WINDOWS
 
 
 def _half_fuel() -> float:
@@ -266,8 +291,10 @@ def device_figures() -> dict:
         "mpy_added_loop_equiv_per_sample_speed_orders": round((speed_orders - fixed) / N / loop, 2),
         "mpy_added_loop_equiv_per_sample_envelope": round((every - speed_orders) / N / loop, 2),
         # the detector's half-order stage, per sample of one axis, its blocks' transforms spread
-        # over their windows (the feature core's taps are in the speed_orders figure)
+        # over their windows; the feature core's taps that feed it (also in the speed_orders
+        # figure, which runs them at whatever 1x its signal gives)
         "mpy_added_loop_equiv_per_sample_half_orders": round(_half_fuel() / N / loop, 2),
+        "mpy_added_loop_equiv_per_sample_half_taps": round(_taps_fuel() / N / loop, 2),
         "mpy_loop_fuel": round(loop, 1),
         "mpy_loop_fuel_in_function": round(loop_fn, 1),
         "mpy_loop_equiv_per_sample": round(fixed / N / loop, 2),
@@ -586,6 +613,8 @@ MEANING = {
     "mpy_naive_float_ratio": "fixed-point features / a plain float version, in fuel",
     "mpy_added_loop_equiv_per_sample_half_orders": ("the detector's half-order stage per sample and axis, "
                                                     "its block transforms spread over their windows"),
+    "mpy_added_loop_equiv_per_sample_half_taps": ("the feature core's half-order taps per sample and axis, "
+                                                  "1x at 3.3 bins (two halves of 310 samples a window)"),
     "mpy_naive_float_window_fuel": "fuel of the plain float version per window",
     "core_heap_bytes": "heap the feature core takes at N = 512, 1 axis, 2 bands (bytes)",
     "allocs_per_window": "heap blocks allocated per window (must be 0)",

@@ -67,14 +67,15 @@ def continuous_check(train_s: float = 3600.0, test_s: float = 86400.0, seed_trai
     det = Detector(params, profile["analyse_every"])
     n = params["n"]
     window_s = n / params["fs_hz"]
-    raises, pushed, w0, carry = 0, 0, 0, np.zeros((0, 1), np.int16)
+    raises, pushed, w0, carry, lead = 0, 0, 0, np.zeros((0, 1), np.int16), None
     states = np.zeros(len(al.STATE_NAMES), np.int64)
     chunk_s = 600.0
     for k, c in enumerate(stationary_chunks(seed_test, test_s, chunk_s, spec)):
         x = np.concatenate([carry, c])
         w = len(x) // n
         carry = x[w * n:]
-        st = step_detector(det, twin.features(x[:w * n]), w0)
+        st = step_detector(det, twin.features(x[:w * n], lead=lead), w0)
+        lead = x[(w - 1) * n:w * n] if w else lead
         w0 += w
         raises += sum(1 for e in st.events if is_raise(e[1], e[2]))
         pushed += int(st.pushed.sum())
@@ -106,12 +107,14 @@ def _gapless_raises(h: History, t0: float, end: float, params: dict, profile: di
     axes = AXES[:params["axes"]]
     raises: list[dict] = []
     w0 = 0
+    lead = None
     chunks = gapless_counts(h, t0, CHUNK_WINDOWS * every * n)
     t = t0
     while t < end and not (first_only and raises):
         t, counts = next(chunks)
         x = counts[:, :params["axes"]].reshape(CHUNK_WINDOWS * every, n, -1)[::every]
-        st = step_detector(det, twin.features(x.reshape(-1, x.shape[2])), w0)
+        st = step_detector(det, twin.features(x.reshape(-1, x.shape[2]), lead=lead, follows=every == 1), w0)
+        lead = x[-1] if every == 1 else None
         for w, old, new, reason, _mode, feat, _score in st.events:
             t_s = t + ((w - w0) * every + 1) * n / fs
             if is_raise(old, new) and t_s <= end:

@@ -9,7 +9,10 @@ divisions (fixmath.mul_shift and div_pow2 are exact floors, so a plain int64 pro
 division give the same bits).
 
 Windows are consecutive, non-overlapping runs of n samples from the start of the recording, as
-the device's ring delivers them.
+the device's ring delivers them. Each window's features depend on its own samples, except its
+half-order taps (firmware_py/dsp/half_taps.py), which also read the window before: features()
+takes that window as `lead` where a run continues one computed before, so that a stream cut
+into chunks gives the same bits as one pass.
 
 Entry points: TwinConfig, FeatureTwin.
 """
@@ -43,11 +46,6 @@ class TwinConfig:
     vane: int = 0
     env_band: tuple = ()
     bear_q12: tuple = ()
-
-
-def _bin(xr, xi, rows, k):
-    """(windows, 2) int64: re, im of each window's bin k (one bin per window)."""
-    return np.stack([xr[rows, k], xi[rows, k]], axis=1).astype(np.int64)
 
 
 class FeatureTwin:
@@ -118,12 +116,21 @@ class FeatureTwin:
     def windows(self, counts: np.ndarray) -> int:
         return counts.shape[0] // self.n
 
-    def features(self, counts: np.ndarray, keep_power: bool = False):
+    def features(self, counts: np.ndarray, keep_power: bool = False, lead: np.ndarray | None = None,
+                 follows: bool = True):
         """counts: int16 (frames, axes). Returns feats (windows, axes*per) int32, and with
-        keep_power also the power spectra (windows, axes, m+1) int32."""
+        keep_power also the power spectra (windows, axes, m+1) int32. lead: the n frames just
+        before counts, when the device processed them as the window before the first (its
+        features are not returned); follows: False where the windows are not consecutive
+        (taken one in every few, or spliced), so none follows the one before."""
         counts = np.asarray(counts)
         if counts.ndim == 1:
             counts = counts[:, None]
+        if lead is not None:
+            lead = np.asarray(lead)
+            lead = lead[:, None] if lead.ndim == 1 else lead
+            out = self.features(np.concatenate([lead[: self.n], counts]), keep_power, None, follows)
+            return (out[0][1:], out[1][1:]) if keep_power else out[1:]
         if counts.shape[1] != self.axes:
             raise ValueError(f"expected {self.axes} axes, got {counts.shape[1]}")
         w = self.windows(counts)
@@ -131,7 +138,7 @@ class FeatureTwin:
         power = np.zeros((w, self.axes, self.m + 1), dtype=np.int32) if keep_power else None
         for a in range(self.axes):
             x = counts[: w * self.n, a].astype(np.int32).reshape(w, self.n)
-            p = self._axis(x, feats[:, a * self.per:(a + 1) * self.per])
+            p = self._axis(x, feats[:, a * self.per:(a + 1) * self.per], follows)
             if keep_power:
                 power[:, a] = p
         return (feats, power) if keep_power else feats
@@ -145,7 +152,7 @@ class FeatureTwin:
         u = np.where(pk > 0, Y_BITS - _msb(np.maximum(pk, 1)), 0)
         return power.astype(np.float64) * np.exp2(-2.0 * u)[..., None] * (4.0 / 3.0)
 
-    def _axis(self, x, f):
+    def _axis(self, x, f, follows):
         n, L, cfg = self.n, self.L, self.cfg
         s = x.sum(axis=1, dtype=np.int64)
         mx = x.max(axis=1).astype(np.int64)
@@ -173,7 +180,7 @@ class FeatureTwin:
         self._finish(f, pk, u, g.astype(np.int64), sh.astype(np.int64), sq, s4, vs, p)
         f1 = self._speed(p, f)
         self._orders(p, f1, self.log2_4_3_q8 - 512 * u, f)
-        self._taps(xr, xi, f1, u, f)
+        self._taps(x, mean, u, np.where(live, f1, 0), follows, f)
         self._envelope(xr, xi, f1, f)
         f[:, F_HALF] = LOG2_ZERO_Q8
         # a flat window: no spectrum, zero features (features._flat)
@@ -345,22 +352,62 @@ class FeatureTwin:
             f[:, field] = np.where(live & (s > 0), _log2_q8(np.maximum(s, 1), self.log2_q15) + c,
                                    LOG2_ZERO_Q8)
 
-    def _taps(self, xr, xi, f1, u, f):
-        """half_taps.run over all windows, from the spectra X (re, im: windows, m+1); the weights
-        are half_taps.weight itself, on arrays."""
-        rows = np.arange(xr.shape[0])
-        f[:, F_TAP_X1] = f1
-        up = np.maximum(8 - u, 0)[:, None]
-        dn = np.maximum(u - 8, 0)[:, None]
-        x1 = f1.astype(np.int64)
-        for i, odd in enumerate(half_taps.ODDS):
-            k = np.where((f1 > 0) & (f1 < half_taps.X1_MAX), (odd * x1 + 256) >> 9, 0)
-            ok = (k >= 2) & (k <= self.m - 2)
-            kk = np.where(ok, k, 2)
-            p, q = half_taps.weight(x1, odd, kk, -1), half_taps.weight(x1, odd, kk, 1)
-            t = ((_bin(xr, xi, rows, kk) << 12) + p[:, None] * _bin(xr, xi, rows, kk - 1)
-                 + q[:, None] * _bin(xr, xi, rows, kk + 1)) >> 12
-            f[:, F_TAP_RE + 2 * i:F_TAP_RE + 2 * i + 2] = np.where(ok[:, None], (t << up) >> dn, 0)
+    def _taps(self, x, mean, u, f1, follows, f):
+        """half_taps.HalfTaps.run over all windows of a run: window j's tap is the half summed
+        in window j - 1 (at its 1x, L and mean) plus the half of window j at the same; x: the
+        windows' counts (windows, n), mean and u their integer means and gain exponents, f1
+        their 1x (bins Q8, 0 where the window is flat or has none)."""
+        n = self.n
+        wn = x.shape[0]
+        f1 = f1.astype(np.int64)
+        own = (f1 >= half_taps.X1_MIN) & (f1 < half_taps.X1_MAX)
+        f1s = np.where(own, f1, half_taps.X1_MIN)
+        L = ((((f1s + 1023) >> 10) * n * 1024 // f1s) + 1) >> 1      # half_taps.span
+        mean = mean.astype(np.int64)
+        u = u.astype(np.int64)
+        prev = np.zeros(wn, dtype=bool)
+        prev[1:] = own[:-1] & follows
+        b = np.maximum(np.arange(wn) - 1, 0)                          # the window before
+        before = self._half(x[:, ::-1], mean, u, (n << 10) - f1s, L, u)
+        after = self._half(x, mean[b], u, f1s[b], L[b], u)
+        f[:, F_TAP_X1] = np.where(prev, f1[b], 0)
+        f[:, F_TAP_RE:F_TAP_RE + 6] = np.where(prev[:, None], before[b] + after, 0)
+
+    def _half(self, xs, dc, u, f1m, L, uq):
+        """HalfTaps._mix and _q8 over all windows: xs (windows, n) the samples walked from the
+        boundary outward, dc, u, the mixing 1x f1m and L per window; returns (windows, 6) int64,
+        each half's (re, im) per half order in counts Q8 (uq: the gain exponent of the window
+        the samples are from)."""
+        n, h = self.n, self.n >> 1
+        pm = (n << 10) - 1
+        out = np.zeros((xs.shape[0], 6), dtype=np.int64)
+        step = max(1, (1 << 22) // n)                 # rows at a time: temporaries of a few MB
+        for r0 in range(0, xs.shape[0], step):
+            sl = slice(r0, r0 + step)
+            j = np.arange(n, dtype=np.int64)[None, :]
+            Lr, ur = L[sl][:, None], u[sl][:, None]
+            y = xs[sl].astype(np.int64) - dc[sl][:, None]
+            lim = np.where(ur >= 0, 32767 >> np.maximum(ur, 0), 65535)
+            y = np.where(y > lim, 32767, np.where(y < -lim, -32767,
+                         np.where(ur >= 0, y << np.maximum(ur, 0), y >> np.maximum(-ur, 0))))
+            inv = (1 << 27) // Lr
+            v = (y * np.maximum(((2 * Lr - 1) * inv - 2 * inv * j) >> 16, 0)) >> 12
+            v = np.where(j < Lr, v, 0)
+            for i, odd in enumerate(half_taps.ODDS):
+                hh = odd * f1m[sl][:, None]
+                ph = ((hh & pm) + j * ((2 * hh) & pm)) & pm
+                k = ((ph + 512) >> 10) & (n - 1)
+                lo = k <= h
+                idx = np.where(lo, k, n - k)
+                c = self.cos[idx].astype(np.int64)
+                s = np.where(lo, self.sin[idx], -self.sin[idx]).astype(np.int64)
+                out[sl, 2 * i] = ((v * c + 16384) >> 15).sum(axis=1)
+                out[sl, 2 * i + 1] = -((v * s + 16384) >> 15).sum(axis=1)
+            q = (((out[sl] << 3) // L[sl][:, None]) + 1) >> 1
+            uu = uq[sl][:, None]
+            out[sl] = np.where(uu <= 6, q << np.maximum(6 - uu, 0),
+                               (q + (1 << np.maximum(uu - 7, 0))) >> np.maximum(uu - 6, 0))
+        return out
 
     def _envelope(self, xr, xi, f1, f):
         """envelope.Envelope.run over all windows, from the spectra X (re, im: windows, m+1)."""

@@ -107,12 +107,16 @@ class StreamFeatures:
 class ChunkPlan:
     """One chunk of a stream: windows first_w.. (index in the stream), their end times t_s and
     owning recordings rec, and the samples to read as (recording index, start, stop) pieces,
-    whose frames joined in order are the chunk's windows."""
+    whose frames joined in order are the chunk's windows; lead: the pieces of the window just
+    before the first, where the chunk continues the one before it (the half-order taps read it:
+    FeatureTwin.features), else empty; follows: whether the windows follow each other (every 1)."""
 
     first_w: int
     t_s: np.ndarray
     rec: np.ndarray
     pieces: list[tuple[int, int, int]]
+    lead: list[tuple[int, int, int]] = field(default_factory=list)
+    follows: bool = True
 
 
 def plan_chunks(recs: Sequence[Any], n: int, fs: float, chunk_windows: int = CHUNK_WINDOWS,
@@ -144,10 +148,12 @@ def plan_chunks(recs: Sequence[Any], n: int, fs: float, chunk_windows: int = CHU
             wins = kept[c:c + chunk_windows]
             w_end = (wins + 1) * n
             spans = [(wins[0] * n, w_end[-1])] if every == 1 else [(a * n, (a + 1) * n) for a in wins.tolist()]
-            pieces = [(i + r, max(lo, starts[r]) - starts[r], min(hi, ends[r]) - starts[r])
-                      for lo, hi in spans for r in range(len(ends)) if starts[r] < hi and ends[r] > lo]
+            lead = [((wins[0] - 1) * n, wins[0] * n)] if every == 1 and c > 0 else []
+            pieces, lead = ([(i + r, max(lo, starts[r]) - starts[r], min(hi, ends[r]) - starts[r])
+                             for lo, hi in sp for r in range(len(ends)) if starts[r] < hi and ends[r] > lo]
+                            for sp in (spans, lead))
             plans.append(ChunkPlan(w0, t0 + w_end / fs, i + np.searchsorted(np.asarray(ends), w_end, side="left"),
-                                   pieces))
+                                   pieces, lead, every == 1))
             w0 += len(wins)
         i = j
     if not plans:
@@ -157,8 +163,22 @@ def plan_chunks(recs: Sequence[Any], n: int, fs: float, chunk_windows: int = CHU
 
 def read_chunk(recs: Sequence[Any], plan: ChunkPlan) -> np.ndarray:
     """The int16 counts (frames x axes) of one chunk, read from its recordings."""
-    parts = [recs[r].read_counts(a, b) for r, a, b in plan.pieces]
+    return _read(recs, plan.pieces)
+
+
+def read_lead(recs: Sequence[Any], plan: ChunkPlan) -> np.ndarray | None:
+    """The counts of the window before a chunk that continues the one before it, else None."""
+    return _read(recs, plan.lead) if plan.lead else None
+
+
+def _read(recs: Sequence[Any], pieces: list[tuple[int, int, int]]) -> np.ndarray:
+    parts = [recs[r].read_counts(a, b) for r, a, b in pieces]
     return parts[0] if len(parts) == 1 else np.concatenate(parts)
+
+
+def chunk_features(twin: FeatureTwin, recs: Sequence[Any], plan: ChunkPlan) -> np.ndarray:
+    """The twin's features of one chunk, as the device computes them in the stream."""
+    return twin.features(read_chunk(recs, plan), lead=read_lead(recs, plan), follows=plan.follows)
 
 
 def feature_chunks(recs: Sequence[Any], twin: FeatureTwin, jobs: int = 1,
@@ -167,16 +187,18 @@ def feature_chunks(recs: Sequence[Any], twin: FeatureTwin, jobs: int = 1,
 
     jobs > 1: the chunks' features are computed in that many worker processes, at most 2 * jobs
     chunks in flight (memory stays bounded), and handed back in order. Each window depends only
-    on its own samples, so the result is the same for every jobs and chunk_windows."""
+    on its own samples and the window before (which a chunk reads as its lead), so the result is
+    the same for every jobs and chunk_windows."""
     plans = plan_chunks(recs, twin.n, float(twin.cfg.fs_hz), chunk_windows, every)
     if jobs <= 1:
         for pl in plans:
-            yield StreamFeatures(twin.features(read_chunk(recs, pl)), pl.t_s, pl.rec)
+            yield StreamFeatures(chunk_features(twin, recs, pl), pl.t_s, pl.rec)
         return
     with ProcessPoolExecutor(max_workers=jobs, initializer=_worker_twin, initargs=(twin.cfg, twin.axes)) as pool:
         pending: deque = deque()
         for pl in plans:
-            pending.append((pool.submit(_worker_features, read_chunk(recs, pl)), pl))
+            pending.append((pool.submit(_worker_features, read_chunk(recs, pl), read_lead(recs, pl),
+                                        pl.follows), pl))
             if len(pending) >= 2 * jobs:
                 fut, done = pending.popleft()
                 yield StreamFeatures(fut.result(), done.t_s, done.rec)
@@ -193,9 +215,9 @@ def _worker_twin(cfg: TwinConfig, axes: int) -> None:
     _TWIN = FeatureTwin(cfg, axes)
 
 
-def _worker_features(counts: np.ndarray) -> np.ndarray:
+def _worker_features(counts: np.ndarray, lead: np.ndarray | None, follows: bool) -> np.ndarray:
     assert _TWIN is not None
-    return _TWIN.features(counts)
+    return _TWIN.features(counts, lead=lead, follows=follows)
 
 
 def stream_features(recs: Sequence[Any], twin: FeatureTwin, every: int = 1) -> StreamFeatures:
