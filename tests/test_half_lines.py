@@ -224,13 +224,13 @@ def _whole_orders(b, every, x1_q8, amp, blocks):
 def test_whole_orders_leaking_into_the_taps_leave_the_prominence_alone(x1_q8):
     # A healthy pump's 1x, 2x and 3x leak into the half orders' taps through the window's side
     # lobes, 30 dB over one cell's noise here. Their images are left out of the floor, so the
-    # prominence stays where noise alone puts it: the mean of 8 blocks' log2 ratio of two means
-    # of exponential powers, whose spread per tap is at most sqrt(trigamma(7 / 1.5)) / ln 2 (the
-    # line's 7 cells over the Hann window's ENBW of 1.5 cells, Harris, Proc. IEEE 66, 1978; the
-    # log of a Gamma(k) variable has variance trigamma(k), a textbook property), over 3 taps and
-    # 8 blocks; 4 standard deviations either side (a normal tail of 6e-5). Left in the floor, the
+    # prominence stays where noise alone puts it: the mean of 8 blocks' log2 ratio of two sums of
+    # exponential powers, whose spread per block is at most modes_fit.half_block_spread (Gamma
+    # moments of the Hann cells' sums, Isserlis' theorem and the log of a Gamma(k) variable's
+    # variance trigamma(k), textbook properties; checked on noise in test_modes_fit), over 8
+    # blocks; 4 standard deviations either side (a normal tail of 6e-5). Left in the floor, the
     # same leakage would pull it far under: the check that fails without the images' exclusion.
-    from scipy import special
+    from host_tools.fit.modes_fit import half_block_spread
     b = hl.BLK                 # images away from the lines (on them, only the taps' nulls help:
     assert _images(x1_q8, 1, b) > hl.HALF_WIDTH + hl.ALIAS_WIDTH   # test_orders_envelope)
     rng = np.random.default_rng(11)
@@ -239,7 +239,7 @@ def test_whole_orders_leaking_into_the_taps_leave_the_prominence_alone(x1_q8):
     lead = noise * math.sqrt(2) * math.sqrt(b * 3 / 8) * 10 ** (30 / 20) / (b / 2)   # 30 dB over a cell
     taps = taps + np.round(_whole_orders(b, 1, x1_q8, lead, 1 << hl.SHIFT))
     got = _average_of(_Clocked(1, PA, 1, 205, TAB), _rows(taps, x1_q8)) / 256
-    sd = math.sqrt(float(special.polygamma(1, (2 * hl.HALF_WIDTH + 1) / 1.5))) / math.log(2) / math.sqrt(3 * (1 << hl.SHIFT))
+    sd = half_block_spread() / math.sqrt(1 << hl.SHIFT)
     assert abs(got) < 4 * sd, (got, sd)
 
 

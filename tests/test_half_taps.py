@@ -174,13 +174,13 @@ def _images_clear(x1_bins):
 def test_a_half_order_line_stands_out_of_a_healthy_pump_from_2_6_bins(x1_bins):
     # From the speed estimate's clean range (2.5 bins) up, where the taps of the Hann bins could not
     # read the half orders under 6 bins: with no line, the average sits where noise alone puts it,
-    # 0 within 4 standard deviations of a mean of log2 ratios of exponential powers over 3 taps and
-    # 8 blocks (the line's 7 cells over the Hann ENBW of 1.5 cells: sd per tap
-    # sqrt(trigamma(7 / 1.5)) / ln 2; the log of a Gamma(k) variable has variance trigamma(k), a
-    # textbook property; Harris 1978 for the ENBW), where the whole orders' images clear the line;
-    # a line at one bin's noise lifts it by more than 8 such deviations at every speed.
-    from scipy import special
-    sd = math.sqrt(float(special.polygamma(1, (2 * hl.HALF_WIDTH + 1) / 1.5))) / math.log(2) / math.sqrt(3 * 8)
+    # 0 within 4 standard deviations of a mean of 8 blocks' log2 ratios of sums of exponential
+    # powers (sd per block at most modes_fit.half_block_spread: Gamma moments of the Hann cells'
+    # sums, Isserlis' theorem and the log of a Gamma(k) variable's variance trigamma(k), textbook
+    # properties; checked on noise in test_modes_fit), where the whole orders' images clear the
+    # line; a line at one bin's noise lifts it by more than 8 such deviations at every speed.
+    from host_tools.fit.modes_fit import half_block_spread
+    sd = half_block_spread() / math.sqrt(1 << hl.SHIFT)
     rng = np.random.default_rng(int(x1_bins * 10))
     clean = _chain(x1_bins, None, rng)
     line = _chain(x1_bins, 0.0, rng)

@@ -51,7 +51,8 @@ Prominence and its average: log2 Q8.
 
 Entry points: footprint_bytes(axes); HalfLines(axes, pa, every, tol_q12, tab); push(f, steady,
 now_s) once per window (now_s: the detector's clock, s); cut() when the next window will not follow
-the last; rebase(d) when that clock moves back by d; value[a] (the window's).
+the last; rebase(d) when that clock moves back by d; value[a] (the window's); cell_kind(c, c0, d,
+b), which cells of a block are the line's, the images' and the floor's (training's spread uses it).
 """
 from array import array
 from micropython import const
@@ -289,9 +290,8 @@ class HalfLines:
         side = 0
         ns = 0
         for c in range(b):
-            on = _dist((c << 8) - c0, b) <= HALF_WIDTH << 8
-            if not on and (_dist((c << 8) - c0 - d, b) > ALIAS_WIDTH << 8
-                           and _dist((c << 8) - c0 + d, b) > ALIAS_WIDTH << 8):
+            kind = cell_kind(c, c0, d, b)
+            if kind == 0:
                 continue
             yr = 0
             yi = 0
@@ -307,7 +307,7 @@ class HalfLines:
                 yi += (tr[j] * ci + ti[j] * cr) >> 15
             yr >>= 6                               # |Y| <= 2**13.5 * b / 2: now <= 2**11.6
             yi >>= 6
-            if on:
+            if kind == 1:
                 line += yr * yr + yi * yi
                 nl += 1
             else:
@@ -321,6 +321,16 @@ class HalfLines:
             rest = 1
         t = self.tab
         return (log2_q8(line, t) - log2_q8(nl, t)) - (log2_q8(rest, t) - log2_q8(b - nl - ns, t))
+
+
+def cell_kind(c, c0, d, b):
+    """What cell c of a block of b holds, for a line at c0 and the whole orders' images at c0 +- d
+    (Q8 cells): 1 the line (within HALF_WIDTH), 2 an image (within ALIAS_WIDTH), 0 the floor."""
+    if _dist((c << 8) - c0, b) <= HALF_WIDTH << 8:
+        return 1
+    if _dist((c << 8) - c0 - d, b) <= ALIAS_WIDTH << 8 or _dist((c << 8) - c0 + d, b) <= ALIAS_WIDTH << 8:
+        return 2
+    return 0
 
 
 def _dist(v, b):

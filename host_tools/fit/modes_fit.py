@@ -7,6 +7,7 @@ the model the host fits is exactly in the space the device scores in.
 """
 from __future__ import annotations
 
+import functools
 import math
 from typing import Sequence
 from array import array
@@ -16,13 +17,12 @@ from scipy import special
 from scipy.stats import chi2
 
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
-from firmware_py.dsp import feature_index as fi, orders
-from firmware_py.detect import modes as dm
+from firmware_py.dsp import feature_index as fi, orders, tables
+from firmware_py.detect import half_lines as hl, modes as dm
 from firmware_py.detect.detector import CHI_Q8
 from firmware_py.detect.half_lines import BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
 from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
-from firmware_py.dsp.tables import log2_table
 
 MIN_MODE_N = 30         # a speed group with fewer windows joins its neighbour
 
@@ -32,7 +32,7 @@ def transformed(feats: np.ndarray, params: dict) -> np.ndarray:
     idx = array("i", params["det_feat"])
     pa = fi.per_axis(params["det_bands"])
     logf = array("b", [1 if dm.is_log_field(i % pa) else 0 for i in idx])
-    tab = log2_table()
+    tab = tables.log2_table()
     u = array("i", bytes(4 * len(idx)))
     out = np.empty((len(feats), len(idx)), dtype=np.int64)
     for r, row in enumerate(np.asarray(feats, dtype=np.int64)):
@@ -105,20 +105,50 @@ def pinned_limits_q8(params: dict) -> tuple[int, int]:
     return int(math.floor(lo + PIN_STEPS * step)) + 1, int(math.ceil(hi - PIN_STEPS * step)) - 1
 
 
+@functools.lru_cache(maxsize=1)
+def half_block_spread() -> float:
+    """The standard deviation (log2) of one block's half-order prominence on noise alone, the
+    largest over the places a line and the whole orders' images can take in the block
+    (half_lines.cell_kind). With white taps the Hann-windowed cells Y_c are complex normal with
+    Cov(Y_c, Y_c') proportional to R(c - c'), the DFT of the squared window, so the powers have
+    Cov(|Y_c|**2, |Y_c'|**2) proportional to |R(c - c')|**2 (Isserlis' theorem): the line's and
+    the floor's sums have the mean and variance of Gamma(k) variables with k = mean**2 / variance,
+    whose logs have variance trigamma(k) (textbook properties of the Gamma distribution), less
+    twice their relative covariance (the delta method) for the cells where they touch. Hann's
+    neighbouring cells correlate (-2/3 in amplitude), so k falls short of the cell count, and
+    the floor holds about 15 cells, so its spread counts beside the line's. Three taps, each on
+    its own frequencies, are averaged. Against the device's own integer code on noise this is a
+    few per cent high (tests/test_modes_fit.py): a floor on the safe side."""
+    b = BLK
+    w = np.asarray(tables.hann(b, tables.twiddles(b)[0]), dtype=np.float64) / 32768.0
+    r = np.abs(np.fft.fft(w * w)) ** 2
+    cells = np.arange(b)
+    cov = r[(cells[:, None] - cells[None, :]) % b] / r[0]      # the powers' covariance, mean 1 each
+    worst = 0.0
+    # c0 = off * every * b mod b * 256 (half_lines._prominence) is a multiple of b, and the images'
+    # distance d a multiple of b / 2 (Q8 cells)
+    for c0 in range(0, 256, math.gcd(b, 256)):
+        for d in range(0, b << 8, b >> 1):
+            kind = np.array([hl.cell_kind(c, c0, d, b) for c in range(b)])
+            on, fl = (kind == 1).astype(np.float64), (kind == 0).astype(np.float64)
+            nl, nf = on.sum(), fl.sum()
+            k_line = nl * nl / (on @ cov @ on)
+            k_floor = nf * nf / (fl @ cov @ fl)
+            touch = (on @ cov @ fl) / (nl * nf)
+            v = float(special.polygamma(1, k_line) + special.polygamma(1, k_floor)) - 2.0 * touch
+            worst = max(worst, v)
+    return math.sqrt(worst / 3.0) / math.log(2.0)
+
+
 def half_spread_floor_q8() -> float:
     """The least spread of a half-order prominence (F_HALF) within a mode, log2 Q8: what its
-    average wanders by on noise alone, so that a thin training set cannot make it look steadier
-    than the statistics allow. The line's mean power over the 2 HALF_WIDTH + 1 cells around it is
-    a mean of about that many over 1.5 (the Hann window's equivalent noise bandwidth in cells;
-    Harris, Proc. IEEE 66, 1978) independent exponential powers, a Gamma(k) variable whose log
-    has variance trigamma(k) (a textbook property of the Gamma distribution); the floor's mean
-    over many more cells is steady beside it. Three taps are averaged, and blocks enter an EWMA
-    of weight lam = 2**-SHIFT, whose spread is sqrt(lam / (2 - lam)) of its input's (Montgomery,
-    EWMA chart; common practice)."""
-    k = (2 * HALF_WIDTH + 1) / 1.5
-    per_tap = math.sqrt(float(special.polygamma(1, k))) / math.log(2.0)
+    average wanders by on noise alone (half_block_spread), so that a thin training set cannot make
+    it look steadier than the statistics allow. Blocks enter an EWMA of weight lam = 2**-SHIFT,
+    whose spread is sqrt(lam / (2 - lam)) of its input's (Montgomery, EWMA chart; common
+    practice). A device analysing every window feeds it consecutive blocks: on noise they are
+    independent, and the spread holds as it does for snapshots hours apart."""
     lam = 2.0 ** -HALF_SHIFT
-    return 256.0 * per_tap / math.sqrt(3.0) * math.sqrt(lam / (2.0 - lam))
+    return 256.0 * half_block_spread() * math.sqrt(lam / (2.0 - lam))
 
 
 def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarray:
@@ -153,20 +183,25 @@ def set_aside(params: dict, lo_hz: float) -> list[int]:
     return [j for j, i in enumerate(params["det_feat"]) if i % pa == fi.F_ORD_HALF]
 
 
-def half_spread_bound(s: float, readings: int) -> float:
-    """The spread a mode's half-order prominence (F_HALF) is judged with: the one-sided 95 % upper
-    confidence limit of its standard deviation s (any unit) measured over `readings` windows, or
-    Z_LIM (set aside) when they hold fewer than 2 independent values. Each window holds its axis's
-    average of blocks, an EWMA of weight lam = 2**-SHIFT over blocks of BLK windows: a first-order
-    autoregression of coefficient phi = 1 - lam over n blocks, whose sample variance counts as
-    n_eff = n (1 - phi**2) / (1 + phi**2) independent values (its variance is 2 sigma**4 (1 + 2 sum
-    rho_k**2) / n, rho_k = phi**k: Bartlett 1946, from memory) and, taken about the sample mean,
-    falls short by a factor 1 - 1 / n_mean, n_mean = n (1 - phi) / (1 + phi) (the effective count
-    for a mean, Bayley and Hammersley 1946); then
+def half_spread_bound(s: float, readings: int, least: float) -> float:
+    """The spread a mode's half-order prominence (F_HALF) is judged with, in the unit of s and
+    least: the one-sided 95 % upper confidence limit of its standard deviation s measured over
+    `readings` windows, at least `least` (half_spread_floor_q8 in that unit), widened by the
+    error of the mode's centre; or Z_LIM (set aside) when the windows hold fewer than 2
+    independent values. Each window holds its axis's average of blocks, an EWMA of weight
+    lam = 2**-SHIFT over blocks of BLK windows: a first-order autoregression of coefficient
+    phi = 1 - lam over n blocks (counted as readings / BLK, exact without gaps; snapshots hold a
+    block's value over more windows, so they count a little high), whose sample variance counts
+    as n_eff = n (1 - phi**2) / (1 + phi**2) independent values (its variance is 2 sigma**4 (1 + 2
+    sum rho_k**2) / n, rho_k = phi**k: Bartlett 1946, from memory) and, taken about the sample
+    mean, falls short by a factor 1 - 1 / n_mean, n_mean = n (1 - phi) / (1 + phi) (the effective
+    count for a mean, Bayley and Hammersley 1946); then
     sigma <= s sqrt(nu / chi2.ppf(0.05, nu) / (1 - 1 / n_mean)) with nu = n_eff - 1 (the
-    chi-square interval for a normal standard deviation; a textbook result). A mode that held the
-    speed for a few blocks only in training, with its centre and spread from a handful of
-    averages, would otherwise judge the device's steady readings many spreads off."""
+    chi-square interval for a normal standard deviation; a textbook result). The centre is that
+    mean, off by sigma / sqrt(n_mean), so a new reading departs from it by sigma sqrt(1 + 1 /
+    n_mean) (the prediction interval; a textbook result). A mode that held the speed for a few
+    blocks only in training, with its centre and spread from a handful of averages, would
+    otherwise judge the device's steady readings many spreads off."""
     phi = 1.0 - 2.0 ** -HALF_SHIFT
     blocks = readings / BLK
     n_eff = blocks * (1.0 - phi * phi) / (1.0 + phi * phi)
@@ -174,7 +209,8 @@ def half_spread_bound(s: float, readings: int) -> float:
     if n_eff < 2.0 or n_mean <= 1.0:
         return float(dm.Z_LIM)
     nu = n_eff - 1.0
-    return s * math.sqrt(nu / float(chi2.ppf(0.05, nu)) / (1.0 - 1.0 / n_mean))
+    sigma = max(s * math.sqrt(nu / float(chi2.ppf(0.05, nu)) / (1.0 - 1.0 / n_mean)), least)
+    return sigma * math.sqrt(1.0 + 1.0 / n_mean)
 
 
 def line_spans(params: dict, ranges_hz: Sequence[tuple[float, float]]) -> list[tuple[float, float]]:
@@ -292,8 +328,8 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
         dev = np.where(ok, zk - centers[m], 0.0)
         spread[m, has] = np.sqrt((dev * dev).sum(0)[has] / cnt[has])
         for j in np.flatnonzero(half):
-            spread[m, j] = max(half_spread_bound(spread[m, j], int(cnt[j])),
-                               least * 256.0 * 16.0 / max(int(model.sd_q4[j]), 1))
+            spread[m, j] = half_spread_bound(spread[m, j], int(cnt[j]),
+                                             least * 256.0 * 16.0 / max(int(model.sd_q4[j]), 1))
     for m in range(k if op else 0):
         spread[m, set_aside(params, op[2 * m] / 256.0)] = dm.Z_LIM
     margin = params["det_learn_margin_q8"] if margin_q8 is None else margin_q8
