@@ -172,6 +172,9 @@ def _mix(win, i: int, di: int, cnt: int, dc: int, u: int, wa: int, dw: int, ct, 
     q1 = 0
     r2 = 0
     q2 = 0
+    # the three half orders are written out, not looped over: their phases and sums stay in
+    # locals (registers under viper); a loop over them through par and out measured 23.8 loop-eq
+    # per sample in bytecode against 16.1 (edgevib bench, half_taps)
     for _ in range(cnt):
         y = (((w16[i] & 0xFFFF) ^ 0x8000) - 0x8000) - dc
         if y > lim:
