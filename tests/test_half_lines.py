@@ -113,10 +113,23 @@ def _average_of(det, rows):
     return det.value[0]
 
 
+def _blocks_apart(det, rows):
+    """As _average_of, with a cut after every BLK windows (as between recordings): each block
+    stands alone, where running on would also make the blocks that overlap them by half."""
+    for i, f in enumerate(rows):
+        det.step(f, True)
+        if (i + 1) % hl.BLK == 0:
+            det.cut()
+    return det.value[0]
+
+
+FIRST = hl.BLK + ((1 << hl.SHIFT) - 1) * (hl.BLK // 2)   # windows to the 8th block without a cut
+
+
 @pytest.mark.parametrize("every,x1_q8,amp", [(1, 1664, 3000.0), (1, 1812, 400.0), (2, 1746, 2000.0), (1, 2072, 2000.0)])
 def test_block_prominence_matches_numpy(every, x1_q8, amp):
-    # 2**SHIFT equal blocks make the average exactly the block's prominence (a sum of equal values
-    # over 2**SHIFT); that value against the float reference, within the interval the floor
+    # 2**SHIFT equal blocks, cut apart, make the average exactly the block's prominence (a sum of
+    # equal values over 2**SHIFT); that value against the float reference, within the interval the floor
     # shifts allow, widened by the log2_q8 rounding (1 LSB, Q8, for each of the four logs) and the
     # integer mean of three (< 1 LSB)
     b = hl.BLK                 # 2072: the whole orders' images 1.5 cells from the lines, within them
@@ -124,7 +137,7 @@ def test_block_prominence_matches_numpy(every, x1_q8, amp):
     block = _taps(b, every, x1_q8, amp, 1500.0, rng, 1)
     rows = _rows(np.tile(block, (1 << hl.SHIFT, 1)), x1_q8)
     det = _Clocked(1, PA, every, 205, TAB)
-    got = _average_of(det, rows) / 256
+    got = _blocks_apart(det, rows) / 256
     ref, lo, hi = _reference(block, x1_q8, every)
     assert lo - 5 / 256 <= got <= hi + 5 / 256, (got, ref, lo, hi)
     assert abs(got - ref) < 0.1
@@ -146,10 +159,10 @@ def test_average_counts_from_eight_blocks_and_again_after_a_speed_move():
     b = hl.BLK
     rng = np.random.default_rng(1)
     det = _Clocked(1, PA, 1, 205, TAB)                      # steady tolerance 5 %
-    rows = _rows(_taps(b, 1, x1, 500.0, 500.0, rng, 1 << hl.SHIFT), x1)
+    rows = _rows(_taps(b, 1, x1, 500.0, 500.0, rng, 1 << hl.SHIFT), x1)[:FIRST]
     for f in rows[:-1]:
         det.step(f, True)
-    assert det.value[0] == hl.UNSET                        # 8 blocks less one window
+    assert det.value[0] == hl.UNSET                        # 8 blocks (overlapping by half) less one window
     det.step(rows[-1], True)
     assert det.value[0] != hl.UNSET
     moved = int(x1 * 1.2)                                  # a new operating speed: 20 % away
@@ -330,14 +343,16 @@ def test_an_average_a_day_old_is_not_read_and_starts_again():
     new = _rows(_taps(b, 1, x1, 0.0, 500.0, rng, 1 << hl.SHIFT), x1)      # none
     det = _Clocked(1, PA, 1, 205, TAB)
     v_old = _average_of(det, old)
+    det.cut()                                        # a day unrun
     det.now += hl.STALE_S - 1                        # its last block closed one second before
+    new = new[:FIRST]
     det.step(new[0])
     assert det.value[0] == v_old                     # exactly STALE_S old: still read
     det.step(new[1])
     assert det.value[0] == hl.UNSET                  # older: not read
     for f in new[2:-1]:
         det.step(f)
-    assert det.value[0] == hl.UNSET                  # 8 blocks less one window since
+    assert det.value[0] == hl.UNSET                  # 8 blocks (overlapping) less one window since
     det.step(new[-1])
     assert det.value[0] == _average_of(_Clocked(1, PA, 1, 205, TAB), new)
     assert det.value[0] < v_old - 256                # the old line's average is gone

@@ -174,13 +174,20 @@ def _images_clear(x1_bins):
 def test_a_half_order_line_stands_out_of_a_healthy_pump_from_2_6_bins(x1_bins):
     # From the speed estimate's clean range (2.5 bins) up, where the taps of the Hann bins could not
     # read the half orders under 6 bins: with no line, the average sits where noise alone puts it,
-    # 0 within 4 standard deviations of a mean of 8 blocks' log2 ratios of sums of exponential
+    # 0 within 4 standard deviations of an average of blocks' log2 ratios of sums of exponential
     # powers (sd per block at most modes_fit.half_block_spread: Gamma moments of the Hann cells'
     # sums, Isserlis' theorem and the log of a Gamma(k) variable's variance trigamma(k), textbook
     # properties; checked on noise in test_modes_fit), where the whole orders' images clear the
     # line; a line at one bin's noise lifts it by more than 8 such deviations at every speed.
     from host_tools.fit.modes_fit import half_block_spread
-    sd = half_block_spread() / math.sqrt(1 << hl.SHIFT)
+    # _chain's 10 x BLK + 1 windows make (10 x BLK + 1 - BLK) // (BLK / 2) + 1 = 19 blocks
+    # (overlapping by half, nearly independent under Hann: Welch's segments correlate 0.167 in
+    # amplitude, 0.03 in power); the average is their mean over the first 2**SHIFT, then an EWMA of
+    # weight lam over the rest: variance (1 - lam)**(2 k) / 8 + lam**2 sum (1 - lam)**(2 i) of a
+    # block's (the variance of a weighted sum of independent values)
+    lam, k = 2.0 ** -hl.SHIFT, (10 * hl.BLK + 1 - hl.BLK) // (hl.BLK // 2) + 1 - (1 << hl.SHIFT)
+    var = (1 - lam) ** (2 * k) / (1 << hl.SHIFT) + lam ** 2 * sum((1 - lam) ** (2 * i) for i in range(k))
+    sd = half_block_spread() * math.sqrt(var)
     rng = np.random.default_rng(int(x1_bins * 10))
     clean = _chain(x1_bins, None, rng)
     line = _chain(x1_bins, 0.0, rng)

@@ -86,7 +86,8 @@ def test_band_edges_move_off_the_shaft_lines():
 
 def test_half_spread_bound_covers_the_true_spread():
     # mf.half_spread_bound against simulation alone: an EWMA of weight 2**-SHIFT over iid
-    # normal block values (started stationary), each held for BLK windows as the device holds it;
+    # normal block values (started stationary), each held for BLK / 2 windows as the device holds
+    # them (its blocks overlap by half);
     # the bound from the windows' population spread must reach the EWMA's true spread,
     # sqrt(lam / (2 - lam)) (Montgomery, EWMA chart), in at least 95 % of trials. Allowed short:
     # 3 binomial standard errors of 4000 trials at p = 0.95 (0.010)
@@ -101,9 +102,9 @@ def test_half_spread_bound_covers_the_true_spread():
         zi = (1.0 - lam) * sig * rng.standard_normal((trials, 1))    # the state before the first block
         e, _ = lfilter([lam], [1.0, lam - 1.0], x, axis=1, zi=zi)
         s = e.std(axis=1)                                            # = the held windows' spread
-        got = np.mean([mf.half_spread_bound(v, blocks * BLK, 0.0) >= sig for v in s])
+        got = np.mean([mf.half_spread_bound(v, blocks * BLK // 2, 0.0) >= sig for v in s])
         assert got >= 0.95 - 3 * math.sqrt(0.95 * 0.05 / trials), (blocks, got)
-    assert mf.half_spread_bound(0.3, 8 * BLK, 0.0) == dm.Z_LIM   # one block's worth: set aside
+    assert mf.half_spread_bound(0.3, 4 * BLK, 0.0) == dm.Z_LIM   # one block's worth: set aside
 
 
 def test_half_block_spread_covers_the_device_on_noise():

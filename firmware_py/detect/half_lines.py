@@ -9,27 +9,31 @@ across the block splits that bin into `blk` cells and puts the line in one of th
 noise spreads over all (the resolution of one block of n x every x blk samples; common practice
 in zoom analysis).
 
-Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the complex values at 0.5x,
-1.5x, 2.5x of the speed the window before measured) of steady windows are collected; a window
-that is not steady, or at a speed beyond the steady tolerance of the block's, starts a new block.
-A window whose taps were mixed at a speed more than 1/32
-off the block's mean so far (DRIFT_SHIFT), or that has none, enters as zeros: its taps let the
-whole orders through (half_taps: their leakage goes with the square of that error), and the
-speed estimate scatters by 1 to 5 % from window to window on slow shafts, so cutting the block
-there would seldom let one fill. A block of fewer than half such windows is dropped. A full
-block gives, per half order, the mean power of the cells around the line's expected place over
-the mean power of the floor cells, in log2; the three are averaged. The blocks' values are
-averaged as an EWMA with weight 2**-SHIFT, one per operating speed: the floor around the lines
-differs between speeds, so each axis keeps SLOTS averages, each for the speeds within the steady
-tolerance of its first block's, and a block at a speed no slot holds restarts the one least
-recently fed. A pump that changes duty between recordings (a snapshot at one speed, the next at
-another) so resumes each speed's average where it left it, as its slow channel resumes each
-mode's. An average counts once 2**SHIFT blocks have entered it; the value is that of the slot
-holding the window's own speed, and UNSET (the detector holds the feature neutral) while that
-slot has fewer blocks or no slot holds the speed. An average not fed for STALE_S of the
-detector's clock is not read, and its next block starts it afresh: it tells of a machine as it
-was a day ago, and a looseness can have come, or been mended, since. The slots do not depend on
-the trained modes, so training reads the values the device will hold before it has fitted any.
+Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the complex values at 0.5x, 1.5x,
+2.5x of the speed the window before measured) of steady windows are collected; a window that is not
+steady, or at a speed beyond the steady tolerance of the block's, starts a new block. A window
+whose taps were mixed at a speed more than 1/32 off the block's mean so far (DRIFT_SHIFT), or that
+has none, enters as zeros: its taps let the whole orders through (half_taps: their leakage goes
+with the square of that error), and the speed estimate scatters by 1 to 5 % from window to window
+on slow shafts, so cutting the block there would seldom let one fill. A block of fewer than half
+such windows is dropped. Blocks overlap by half: a full block's second half starts the next (the
+kept windows' speed taken as the block's mean), so a 10 s recording at 512 samples makes two blocks
+and running without a gap one every BLK / 2 windows; under the Hann window across the block two
+such blocks correlate 0.167 in amplitude, 0.03 in power (Welch's overlapped segments, 1967), so
+their prominences count as nearly independent. A full block gives, per half order, the mean power
+of the cells around the line's expected place over the mean power of the floor cells, in log2; the
+three are averaged. The blocks' values are averaged as an EWMA with weight 2**-SHIFT, one per
+operating speed: the floor around the lines differs between speeds, so each axis keeps SLOTS
+averages, each for the speeds within the steady tolerance of its first block's, and a block at a
+speed no slot holds restarts the one least recently fed. A pump that changes duty between
+recordings (a snapshot at one speed, the next at another) so resumes each speed's average where it
+left it, as its slow channel resumes each mode's. An average counts once 2**SHIFT blocks have
+entered it; the value is that of the slot holding the window's own speed, and UNSET (the detector
+holds the feature neutral) while that slot has fewer blocks or no slot holds the speed. An average
+not fed for STALE_S of the detector's clock is not read, and its next block starts it afresh: it
+tells of a machine as it was a day ago, and a looseness can have come, or been mended, since. The
+slots do not depend on the trained modes, so training reads the values the device will hold before
+it has fitted any.
 
 The whole orders reach the taps only through the speed estimate's error (half_taps: a triangle
 over two windows puts them on double zeros of its transform, so their leakage goes with the
@@ -161,12 +165,36 @@ class HalfLines:
             if j == self.blk:
                 if self.nx[a] >= self.blk >> 1:
                     self._close(a, now_s)
-                j = 0
+                j = self._keep_half(a)
             self.nb[a] = j
             if x1:
                 k = self._slot(a, x1)
                 self.value[a] = (self.acc[k] >> SHIFT if k >= 0 and self.cnt[k] >= 1 << SHIFT
                                  and now_s - self.fed[k] <= STALE_S else UNSET)
+
+    def _keep_half(self, a):
+        """After a full block of axis a: its second half becomes the next block's first (blocks
+        overlap by half, so a short recording makes two), the block's mean 1x standing for the
+        kept windows' (those with taps: a zero-filled window is all zeros). Returns the windows
+        kept."""
+        b = self.blk
+        h = b >> 1
+        base = a * b * 6
+        n = 0
+        for j in range(h):
+            t = base + 6 * j
+            s = t + 6 * h
+            on = 0
+            for i in range(6):
+                v = self.tap[s + i]
+                self.tap[t + i] = v
+                if v:
+                    on = 1
+            n += on
+        c = self.nx[a]
+        self.x1[a] = (self.x1[a] // c) * n if c else 0
+        self.nx[a] = n
+        return h
 
     def _slot(self, a, x1):
         """The slot k of axis a whose speed is nearest x1 (bins Q8) within the steady tolerance,
@@ -328,7 +356,8 @@ def cell_kind(c, c0, d, b):
     (Q8 cells): 1 the line (within HALF_WIDTH), 2 an image (within ALIAS_WIDTH), 0 the floor."""
     if _dist((c << 8) - c0, b) <= HALF_WIDTH << 8:
         return 1
-    if _dist((c << 8) - c0 - d, b) <= ALIAS_WIDTH << 8 or _dist((c << 8) - c0 + d, b) <= ALIAS_WIDTH << 8:
+    if (_dist((c << 8) - c0 - d, b) <= ALIAS_WIDTH << 8
+            or _dist((c << 8) - c0 + d, b) <= ALIAS_WIDTH << 8):
         return 2
     return 0
 

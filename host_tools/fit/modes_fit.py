@@ -189,9 +189,10 @@ def half_spread_bound(s: float, readings: int, least: float) -> float:
     `readings` windows, at least `least` (half_spread_floor_q8 in that unit), widened by the
     error of the mode's centre; or Z_LIM (set aside) when the windows hold fewer than 2
     independent values. Each window holds its axis's average of blocks, an EWMA of weight
-    lam = 2**-SHIFT over blocks of BLK windows: a first-order autoregression of coefficient
-    phi = 1 - lam over n blocks (counted as readings / BLK, exact without gaps; snapshots hold a
-    block's value over more windows, so they count a little high), whose sample variance counts
+    lam = 2**-SHIFT over blocks of BLK windows that overlap by half (nearly independent,
+    half_lines): a first-order autoregression of coefficient phi = 1 - lam over n blocks (counted
+    as readings / (BLK / 2), exact without gaps; snapshots hold a block's value over more windows,
+    so they count a little high), whose sample variance counts
     as n_eff = n (1 - phi**2) / (1 + phi**2) independent values (its variance is 2 sigma**4 (1 + 2
     sum rho_k**2) / n, rho_k = phi**k: Bartlett 1946, from memory) and, taken about the sample
     mean, falls short by a factor 1 - 1 / n_mean, n_mean = n (1 - phi) / (1 + phi) (the effective
@@ -203,7 +204,7 @@ def half_spread_bound(s: float, readings: int, least: float) -> float:
     blocks only in training, with its centre and spread from a handful of averages, would
     otherwise judge the device's steady readings many spreads off."""
     phi = 1.0 - 2.0 ** -HALF_SHIFT
-    blocks = readings / BLK
+    blocks = readings / (BLK // 2)
     n_eff = blocks * (1.0 - phi * phi) / (1.0 + phi * phi)
     n_mean = blocks * (1.0 - phi) / (1.0 + phi)
     if n_eff < 2.0 or n_mean <= 1.0:
