@@ -299,6 +299,32 @@ def test_order_lines_read_around_a_missed_speed_are_neutral():
     assert det.speed_q8 == 25 * 256 and det.score_q8 == 0
 
 
+def test_a_line_that_follows_the_speed_is_scored_at_the_modes_reference_speed():
+    # the 1x order line's power grows as speed**4 (force ~ speed**2 from a fixed unbalance,
+    # acceleration ~ force above the mount's resonance; common practice), so its log2 power grows
+    # 4 octaves per octave of speed: with det_follow_q8 = 4 (1024) a healthy window anywhere in
+    # the mode's range (24-26 Hz, reference its centre 25 Hz) departs from the centroid only by
+    # the log2 table's rounding, while with a fixed centroid it departs by 4 log2(f / 25)
+    p = op_params(det_feat=[fi.F_ORD_1X], det_base_mean_q4=[0], det_steady_ms=0)
+    fixed, followed = Detector(p), Detector({**p, "det_follow_q8": [1024]})
+    for hz in (24.0, 24.6, 25.0, 25.5, 26.0):
+        line = round(256 * 4 * np.log2(hz / 25))           # numpy: log2 power over the centre's
+        for det in (fixed, followed):
+            running(det, speed=hz, conf=200)
+            f = win(0, speed=hz, conf=200)
+            f[fi.F_ORD_1X] = line
+            det.step(f, 0, 0)
+        # log2_q8 rounds within 1 LSB for speed and reference, so the followed line is within
+        # 4 x 2 LSB of the centre: 8/100 of a spread here (baseline spread 100 Q8)
+        assert abs(followed.model.t_q8[0]) <= 256 * 8 // 100 + 1
+        assert abs(fixed.model.t_q8[0] - round(256 * line / 100)) <= 1
+    # a set with slopes but no operating points is refused: there is no reference speed
+    with pytest.raises(ValueError):
+        Detector(params(det_follow_q8=[1024]))
+    with pytest.raises(ValueError):
+        Detector({**p, "det_follow_q8": [4096]})           # beyond 8 octaves per octave
+
+
 # -- persistence and escalation in running time --------------------------------------------
 
 def test_k_of_span_persistence():

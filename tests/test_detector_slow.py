@@ -332,6 +332,10 @@ def test_gains_are_checked():
     for bad in ([256, -1], [256, 4097]):
         with pytest.raises(ValueError):
             Detector({**_params(2), "det_sgain_q8": bad})
+    # the speed slopes likewise: one per scored feature, or none ([] or absent)
+    param_check.validate({**good, "det_follow_q8": []}, prof)
+    with pytest.raises(ValueError):
+        param_check.validate({**good, "det_follow_q8": [256]}, prof)
 
 
 def test_training_gains_from_ewma_spread():

@@ -131,3 +131,60 @@ def test_half_block_spread_covers_the_device_on_noise():
     s = got.std()
     kurt = np.mean((got - got.mean()) ** 4) / s ** 4
     assert s <= mf.half_block_spread() * (1.0 + 3.0 * math.sqrt((kurt - 1.0) / (4.0 * blocks))), (s, kurt)
+
+
+def _ar1(rng, n, rho, sd):
+    """An AR(1) series of n values, lag-1 correlation rho, stationary spread sd (Box and Jenkins)."""
+    e = rng.normal(0.0, sd * math.sqrt(1 - rho * rho), n)
+    x = np.empty(n)
+    x[0] = rng.normal(0.0, sd)
+    for i in range(1, n):
+        x[i] = rho * x[i - 1] + e[i]
+    return x
+
+
+def test_follow_slopes_are_least_squares_with_one_level_per_mode():
+    # three modes at different levels; the 1x line's log2 power grows 4 octaves per octave of
+    # speed (speed**4, common practice), a band not at all. The pooled slope equals ordinary least
+    # squares on the speed plus one indicator per mode (the Frisch-Waugh-Lovell theorem; numpy's
+    # lstsq as the reference), to the Q8 rounding of the result (half an LSB)
+    rng = np.random.default_rng(17)
+    centres, n = (17.5, 21.0, 24.5), 1500
+    lab = np.repeat(np.arange(3), n)
+    sp = np.concatenate([c * 2.0 ** _ar1(rng, n, 0.95, 0.02) for c in centres])
+    op = [v for c in centres for v in (int(c * 0.9 * 256), int(c * 1.1 * 256))]
+    dl = mf.speed_offsets_q8(sp, mf.follow_refs_q8(op), lab)
+    level = np.array([300.0, 900.0, 1500.0])[lab]
+    u = np.rint(np.c_[level + 4.0 * 256 * np.log2(sp) + _ar1(rng, 3 * n, 0.9, 40.0),
+                      level + _ar1(rng, 3 * n, 0.9, 40.0)]).astype(np.int64)
+    slopes, t = mf.follow_slopes(u, dl, lab, np.zeros(u.shape, bool), np.array([True, True]))
+    design = np.c_[dl, lab[:, None] == np.arange(3)].astype(np.float64)
+    ref = np.linalg.lstsq(design, u[:, 0].astype(np.float64), rcond=None)[0][0]
+    assert abs(slopes[0] - 256 * ref) <= 0.5 + 1e-9
+    assert abs(t[0]) >= mf.FOLLOW_T
+    assert slopes[1] == 0 and abs(t[1]) < mf.FOLLOW_T      # no speed law: a fixed centroid
+    # not a candidate (a band power): never followed, however strong its law
+    assert mf.follow_slopes(u, dl, lab, np.zeros(u.shape, bool), np.array([False, False]))[0] == [0, 0]
+
+
+def test_follow_slope_standard_error_allows_for_autocorrelation():
+    # windows in time order: the speed and the line's wander both AR(1) with lag-1 correlation
+    # 0.9, no true slope. Over R independent histories the spread of the fitted slope (Monte
+    # Carlo, the reference) matches the standard error follow_slopes states; the plain OLS error
+    # would be (1 - 0.81) / (1 + 0.81) of the variance, 9.5 times too small. Tolerance: the
+    # variance of R draws has relative standard error sqrt(2 / (R - 1)) (normal theory), 3 of them
+    rng = np.random.default_rng(23)
+    r_n, n = 300, 2000
+    b, se2 = [], []
+    lab = np.zeros(n, int)
+    for _ in range(r_n):
+        dl = np.rint(256 * _ar1(rng, n, 0.9, 0.03)).astype(np.int64)
+        u = np.rint(_ar1(rng, n, 0.9, 60.0)).astype(np.int64)[:, None]
+        _, t = mf.follow_slopes(u, dl, lab, np.zeros(u.shape, bool), np.array([True]))
+        x = dl - dl.mean()
+        bj = float(x @ (u[:, 0] - u[:, 0].mean())) / float(x @ x)
+        b.append(bj)
+        se2.append((bj / t[0]) ** 2)
+    ratio = np.var(b, ddof=1) / np.mean(se2)
+    print("slope variance over stated", ratio)
+    assert abs(ratio - 1.0) <= 3 * math.sqrt(2.0 / (r_n - 1))

@@ -75,13 +75,14 @@ def healthy_stream(seed=1, per_point=4, seconds=20.0, stops=3, t_start=1000.0):
 
 # --- operating modes -------------------------------------------------------------------------------
 
-def harmonic_counts(rng, rpm, seconds):
-    """Invented pump vibration with a full harmonic series (1x 10 counts, 2x 6, 3x 4, on x and z),
-    broadband noise of 2 counts, 1 g on z: a shaft whose speed the device can estimate."""
+def harmonic_counts(rng, rpm, seconds, gain=1.0):
+    """Invented pump vibration with a full harmonic series (1x 10 counts, 2x 6, 3x 4, on x and z,
+    each times gain), broadband noise of 2 counts, 1 g on z: a shaft whose speed the device can
+    estimate."""
     n = int(seconds * FS)
     t = np.arange(n) / FS
     fr = rpm / 60.0
-    x = sum(a * np.cos(2 * np.pi * h * fr * t + rng.uniform(0, 6.3)) for h, a in ((1, 10.0), (2, 6.0), (3, 4.0)))
+    x = sum(gain * a * np.cos(2 * np.pi * h * fr * t + rng.uniform(0, 6.3)) for h, a in ((1, 10.0), (2, 6.0), (3, 4.0)))
     c = x[:, None] * [1.0, 0.3, 0.8] + 2.0 * rng.standard_normal((n, 3))
     c[:, 2] += COUNTS_PER_G
     return np.clip(np.rint(c), -4096, 4095).astype(np.int16)
@@ -150,6 +151,41 @@ def test_modes_are_operating_points_told_apart_by_speed():
 def _twin_rows(recs, params):
     from host_tools.twin.replay import stream_features, twin_for
     return stream_features(recs, twin_for(params, PROFILE)).feats
+
+
+def test_a_line_whose_force_grows_as_speed_squared_follows_the_speed_within_its_mode():
+    # one duty trimmed anywhere in -6 .. +6 %: every harmonic's amplitude grows as the speed squared (a force
+    # from a fixed unbalance, acceleration ~ force above the mount's resonance; common practice),
+    # so the 1x line's power as speed**4, a slope of 4 octaves per octave. The slope training keeps
+    # for the x axis's 1x line agrees with scipy's linregress of the recordings' mean log2 line
+    # power (numpy rfft of each recording's Hann windows at the sidecar speed's 1x bin) on log2 of
+    # their speed, within 3 of linregress's standard errors (the noise floor does not scale).
+    from scipy import stats
+    rng = np.random.default_rng(29)
+    trims = rng.uniform(0.94, 1.06, 36)           # a continuum of trims: one mode
+    recs = [recording(harmonic_counts(rng, 1480.0 * k, 8.0, k * k), 1000.0 + 600 * i, 1480.0 * k)
+            for i, k in enumerate(trims)]
+    params, summary = train(recs, PROFILE)
+    assert params["det_modes"] == 1
+    pa = fi.per_axis(len(params["fc_bands"]))
+    j = params["det_feat"].index(fi.F_ORD_1X)
+    slope = params["det_follow_q8"][j] / 256
+    n = params["n"]
+    w = np.hanning(n + 1)[:n]
+    pw, ls = [], []
+    for r in recs:
+        x = r.counts[:, 0].astype(np.float64)
+        fr = r.rpm / 60.0
+        b = int(round(fr * n / FS))
+        p = [np.abs(np.fft.rfft(w * (x[i:i + n] - x[i:i + n].mean())))[b - 1:b + 2] ** 2
+             for i in range(0, len(x) - n, n)]
+        pw.append(np.mean(np.log2(np.sum(p, axis=1))))
+        ls.append(np.log2(fr))
+    ref = stats.linregress(ls, pw)
+    print("1x slope", slope, "linregress", ref.slope, "+-", ref.stderr)
+    assert abs(slope - ref.slope) <= 3 * ref.stderr
+    assert any(f["feature"] == "order_1x axis x" for f in summary["modes"]["follow"])
+    assert "levels judged at each mode's own speed" in report_text(summary)
 
 
 def test_idle_floor_between_stopped_and_running_and_sensor_limits():

@@ -51,7 +51,8 @@ from firmware_py.detect import event_ring, half_lines, modes, welford
 from firmware_py.detect.event_ring import EventRing
 from firmware_py.detect.half_lines import HalfLines, UNSET
 from firmware_py.detect.iso_zones import zone_of, bounds_in_vel_units, ZONE_C
-from firmware_py.detect.modes import ModeModel, KMAX, DMAX, is_log_field, transform, clamp
+from firmware_py.detect.modes import ModeModel, KMAX, DMAX, FOLLOW_MAX, is_log_field, transform, clamp, \
+    follow, speed_offset_q8
 from firmware_py.dsp.tables import log2_table, LOG2_N
 from firmware_py.detect.welford import Welford, N_MAX
 from firmware_py.dsp.fixmath import sqrt_pow2, log2_q8
@@ -88,6 +89,7 @@ PARAM_KEYS = (
     "det_slow_ms",          # slow channel: EWMA time constant, nearest 2**shift analysed windows
     "det_slam_q8",          # weight of the slow channel in the combined score, Q8 (0 = off)
     "det_sgain_q8",         # per scored feature, the weight of its EWMA in the slow channel, Q8
+    "det_follow_q8",        # per scored feature, its slope on log2 of the speed, Q8 ([] = none)
     "det_thr_alert_q8",     # combined score at or over which a window counts toward an alert, Q8
     "det_thr_alarm_q8",     # combined score at or over which a window counts toward an alarm, Q8
     "det_hyst_q8",          # clear threshold as a fraction of det_thr_alert_q8, Q8 (205 = 0.8)
@@ -129,8 +131,9 @@ PARAM_KEYS = (
 )
 
 # keys added after the first sets: a set without them reads 0 (the slow channel off), as before;
-# without det_sgain_q8 (or with it empty) every feature's EWMA weighs 256 (1), as before
-LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8")
+# without det_sgain_q8 (or with it empty) every feature's EWMA weighs 256 (1), as before;
+# without det_follow_q8 (or with it empty) no line follows the speed, as before
+LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8", "det_follow_q8")
 SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
 _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
 # A mode's slow-channel evidence halves for every full SLOW_HALF_S seconds it was not scored
@@ -313,6 +316,20 @@ class Detector:
             if not 0 <= self.sgain_q8[j] <= SGAIN_MAX:
                 raise ValueError("det_sgain_q8 must hold ints in [0, %d]" % SGAIN_MAX)
         self.ew_shift = _shift_for(windows_for(_int(q, "det_slow_ms", 0, _BIG), n, fs, every))
+        # per scored feature, its slope on log2 of the speed within a mode (Q8 octaves per
+        # octave, 0 = a fixed centroid): a line brought to the mode's reference speed before scoring
+        fo = p.get("det_follow_q8") or []
+        self.follow_q8 = array("h", bytes(2 * d))
+        if len(fo):
+            if not self.op_on:
+                raise ValueError("det_follow_q8 needs det_op_speed_q8")
+            v = _ints(p, "det_follow_q8", d)
+            for j in range(d):
+                if not -FOLLOW_MAX <= v[j] <= FOLLOW_MAX:
+                    raise ValueError("det_follow_q8 must hold ints in [-%d, %d]" % (FOLLOW_MAX, FOLLOW_MAX))
+                self.follow_q8[j] = v[j]
+        self.follow_on = len(fo) > 0
+        self.op_ref_q8 = array("i", bytes(4 * KMAX))   # per mode log2 of its range centre, Q8
         # the detector's own clock: analysed windows at win_ms each (n * every samples), plus the
         # seconds of gaps; seconds in clock_s (< 2**29, rebased), the rest in clock_ms (< 1000)
         self.win_ms = min((1000 * n * every) // fs, 1 << 20)
@@ -363,6 +380,7 @@ class Detector:
         self.drift_max_q8 = _int(p, "det_drift_max_q8", 0, 1 << 10)
         self.events = EventRing(_int(p, "det_event_n", 1, event_ring.CAP_MAX))
         self.tab = log2_table()
+        self._refs()
         self.half = HalfLines(axes, self.pa, every, self.speed_tol_q12, self.tab)
         self.u = array("i", bytes(4 * d))
         self.z = array("i", bytes(4 * d))
@@ -454,6 +472,13 @@ class Detector:
                     self.op_load_q8[2 * m] > self.op_load_q8[2 * m + 1]:
                 raise ValueError("operating-point ranges must be [lo, hi] with lo <= hi")
         return True
+
+    def _refs(self):
+        """Each mode's reference speed for det_follow_q8: log2 Q8 of its range centre (Hz Q8),
+        the same integers training uses (host_tools/fit/modes_fit.follow_refs_q8)."""
+        for m in range(self.model.k if self.op_on else 0):
+            c = (self.op_speed_q8[2 * m] >> 1) + (self.op_speed_q8[2 * m + 1] >> 1)
+            self.op_ref_q8[m] = log2_q8(c if c > 1 else 1, self.tab)
 
     # -- events ---------------------------------------------------------------------------------
     def _set(self, new, reason):
@@ -885,6 +910,8 @@ class Detector:
         the products stay < 2**27."""
         md = self.model
         self._transform(f)
+        if self.follow_on:
+            follow(self.u, self.follow_q8, speed_offset_q8(self.speed_q8, self.op_ref_q8[m], self.tab), self.d)
         md.standardise(self.u, self.z)
         if self.op_on:
             self._mask_lines(f, m)
@@ -1110,6 +1137,8 @@ class Detector:
                 k += 1
         c.k = k
         self.op_on = self.l_op
+        self.follow_on = False                            # learned here: fixed centroids
+        self._refs()
         self.thr_alert_q8 = (CHI_Q8[d - 1] * self.margin_q8) >> 8
         self.thr_alarm_q8 = (self.thr_alert_q8 * self.alarm_ratio_q8) >> 8
         f = self.min_bb_vel_q16 >> 2                      # a quarter of the quietest learned window
@@ -1134,6 +1163,7 @@ class Detector:
             "det_mode_s_q8": list(m.s_q8)[:kd],
             "det_op_speed_q8": list(self.op_speed_q8)[:2 * m.k] if op else [],
             "det_op_load_q8": list(self.op_load_q8)[:2 * m.k] if op else [],   # +-(2**30 - 1) = open
+            "det_follow_q8": list(self.follow_q8) if self.follow_on else [],
             "det_thr_alert_q8": self.thr_alert_q8, "det_thr_alarm_q8": self.thr_alarm_q8,
             "det_idle_vel_q16": self.idle_vel_q16,
         }
@@ -1148,13 +1178,14 @@ def footprint_bytes(axes):
     takes less. Used by board profiles to check the heap budget."""
     d = DMAX
     # per scored feature, 5 int arrays (idx, mean0_q4, sgain_q8, u, z), the slow channel's
-    # accumulators of every mode (ew_acc) and 4 byte arrays (logf, ord_axis, held, half_axis)
-    feat_b = 4 * 5 * d + 4 * d * KMAX + 4 * d
+    # accumulators of every mode (ew_acc), 4 byte arrays (logf, ord_axis, held, half_axis) and
+    # the int16 follow slopes
+    feat_b = 4 * 5 * d + 4 * d * KMAX + 4 * d + 2 * d
     model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
     learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
         + welford.footprint_bytes(KMAX)           # wb, wm, lsp
-    op_b = 3 * 4 * 2 * KMAX + 4 * KMAX            # op_speed_q8, op_load_q8, lop_q8: lo, hi a mode;
-                                                  # ew_seen_s: a mode's last scored time
+    op_b = 3 * 4 * 2 * KMAX + 2 * 4 * KMAX        # op_speed_q8, op_load_q8, lop_q8: lo, hi a mode;
+                                                  # ew_seen_s, op_ref_q8: one int a mode
     axis_b = 5 * 4 * axes                         # dc_lo, dc_hi, stuck, zero, knock_crest
     steady_b = 3 * 4 * _STEADY_MAX                # ring_speed_q8, ring_level_q8, sort_q8
     misc_b = 4 * 3 + 2 * LOG2_N + 4 * len(WHY_NAMES)   # iso bounds, log2 table, n_why

@@ -11,7 +11,10 @@ Scales (all ints):
   t_q8[j]: the per-feature departures of the last distance(), each within [-768, 32767]
   terms below the mode count at most 3 spreads (ModeModel.distance)
 
-Entry points: is_log_field(), footprint_bytes(), ModeModel, clamp(), transform()."""
+  follow slopes: Q8 octaves of u per octave of the shaft speed (follow())
+
+Entry points: is_log_field(), footprint_bytes(), ModeModel, clamp(), transform(), speed_offset_q8(),
+follow()."""
 from array import array
 from micropython import const
 from firmware_py.dsp import feature_index as fi
@@ -140,3 +143,22 @@ def transform(feats, idx, logf, u, d, tab):
         if logf[j]:
             x = log2_q8(x if x > 1 else 1, tab)
         u[j] = clamp(x, U_LIM)
+
+
+FOLLOW_MAX = const(2048)  # |slope| bound, Q8: 8 octaves of a line's power per octave of speed
+_DL_LIM = const(256)      # |log2 speed - reference| bound, Q8: one octave
+
+
+def speed_offset_q8(speed_q8, ref_q8, tab):
+    """log2 of the speed (Hz Q8) less a mode's reference (log2 of its range centre, the same
+    units), log2 Q8, clamped to one octave: a mode's range spans far less."""
+    return clamp(log2_q8(speed_q8 if speed_q8 > 1 else 1, tab) - ref_q8, _DL_LIM)
+
+
+def follow(u, slope_q8, dl_q8, d):
+    """Bring each line to the mode's reference speed: u[j] -= slope_j * dl (log2 Q8), clamped to
+    +-U_LIM. slope_q8 within +-FOLLOW_MAX and dl within +-_DL_LIM, so the product < 2**20."""
+    for j in range(d):
+        s = slope_q8[j]
+        if s:
+            u[j] = clamp(u[j] - ((s * dl_q8) >> 8), U_LIM)

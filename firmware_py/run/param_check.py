@@ -109,6 +109,8 @@ def validate(p, profile):
         _int_list(p, k, d)
     if p.get("det_sgain_q8"):                             # absent or [] = 256 each (detector)
         _int_list(p, "det_sgain_q8", d)
+    if p.get("det_follow_q8"):                            # absent or [] = fixed centroids
+        _int_list(p, "det_follow_q8", d)
     k_modes = p["det_modes"]
     if not 0 <= k_modes <= 64:
         raise ValueError("'det_modes' must be 0..64")

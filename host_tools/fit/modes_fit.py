@@ -22,7 +22,7 @@ from firmware_py.detect import half_lines as hl, modes as dm
 from firmware_py.detect.detector import CHI_Q8
 from firmware_py.detect.half_lines import BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
 from firmware_py.detect.welford import Welford
-from firmware_py.dsp.fixmath import sqrt_pow2
+from firmware_py.dsp.fixmath import log2_q8, sqrt_pow2
 
 MIN_MODE_N = 30         # a speed group with fewer windows joins its neighbour
 
@@ -259,6 +259,82 @@ def mode_ranges_hz(params: dict) -> list[tuple[float, float]]:
     return [(op[2 * i] / 256.0, op[2 * i + 1] / 256.0) for i in range(len(op) // 2)]
 
 
+FOLLOW_T = 4.0          # a slope is kept only this many standard errors from 0
+# magnitudes whose level follows the speed as a smooth power law: broadband r.m.s., peak and
+# velocity (sums of many lines), and each line read at its own order or envelope order. Not the
+# band powers (a line crossing an edge makes an S over its lobe, not a power law) nor the
+# shape figures (crest factor, kurtosis), which do not scale with the speed.
+_FOLLOWS = (fi.F_RMS, fi.F_PEAK, fi.F_VEL)
+
+
+def follows(field: int) -> bool:
+    """Whether a per-axis field may follow the speed within a mode (det_follow_q8)."""
+    return field in _FOLLOWS or fi.F_ORD_HALF <= field <= fi.F_ENV_FTF
+
+
+def follow_refs_q8(op: Sequence[int]) -> list[int]:
+    """Each mode's reference: log2 Q8 of its speed range's centre (Hz Q8), as the device computes
+    it (Detector._refs)."""
+    tab = tables.log2_table()
+    out = []
+    for m in range(len(op) // 2):
+        c = (op[2 * m] >> 1) + (op[2 * m + 1] >> 1)
+        out.append(log2_q8(c if c > 1 else 1, tab))
+    return out
+
+
+def speed_offsets_q8(speed_hz: np.ndarray, refs: Sequence[int], lab: np.ndarray) -> np.ndarray:
+    """Per window, log2 of its speed less its mode's reference, log2 Q8 (modes.speed_offset_q8)."""
+    tab = tables.log2_table()
+    sq = np.rint(np.asarray(speed_hz, dtype=np.float64) * 256).astype(np.int64)
+    return np.array([dm.speed_offset_q8(int(v), refs[m], tab) for v, m in zip(sq.tolist(), lab.tolist())], np.int64)
+
+
+def _ar1(x: np.ndarray) -> float:
+    """Lag-1 autocorrelation of a series, 0 for fewer than 3 values or no spread."""
+    x = x - x.mean()
+    ss = float(x @ x)
+    return float(x[1:] @ x[:-1]) / ss if len(x) > 2 and ss > 0 else 0.0
+
+
+def follow_slopes(u: np.ndarray, dl_q8: np.ndarray, lab: np.ndarray, mask: np.ndarray,
+                  cand: np.ndarray) -> tuple[list[int], list[float]]:
+    """Each candidate feature's slope on log2 of the speed within the modes, Q8 (det_follow_q8),
+    and its t value: ordinary least squares pooled within the modes (each mode's own mean taken
+    out of both, so that levels differing between modes do not pass for a slope; Wooldridge,
+    "Introductory Econometrics", the within estimator), over the windows that read the feature
+    (mask False), in the rows' order (time). Its standard error allows for the windows'
+    autocorrelation: residuals and speeds that both run as AR(1) with lag-1 correlations re and
+    rx inflate the slope's variance by (1 + rx re) / (1 - rx re) (the AR(1) form of Bartlett's
+    correction, common practice; from memory). A slope under FOLLOW_T standard errors, or a
+    feature not a candidate, is 0 (a fixed centroid); the rest are clamped to +-FOLLOW_MAX."""
+    n, d = u.shape
+    out, tv = [0] * d, [0.0] * d
+    for j in np.flatnonzero(cand):
+        ok = ~mask[:, j]
+        x, y, g = dl_q8[ok].astype(np.float64), u[ok, j].astype(np.float64), lab[ok]
+        if len(x) < 3:
+            continue
+        for m in np.unique(g):
+            x[g == m] -= x[g == m].mean()
+            y[g == m] -= y[g == m].mean()
+        sxx = float(x @ x)
+        if sxx <= 0:
+            continue
+        b = float(x @ y) / sxx
+        e = y - b * x
+        dof = len(x) - len(np.unique(g)) - 1
+        if dof < 1:
+            continue
+        r = _ar1(x) * _ar1(e)
+        r = min(max(r, 0.0), 0.99)
+        se = math.sqrt(float(e @ e) / dof / sxx * (1 + r) / (1 - r))
+        tv[j] = b / se if se > 0 else math.inf
+        if abs(tv[j]) >= FOLLOW_T:
+            out[j] = int(np.clip(round(256 * b), -dm.FOLLOW_MAX, dm.FOLLOW_MAX))
+    return out, tv
+
+
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
         k_max: int = dm.KMAX, margin_q8: int | None = None) -> dict:
     """Baseline, operating modes and conservative thresholds from healthy running windows (rows
@@ -282,6 +358,32 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     vel = np.asarray(feats)[:, fi.F_VEL::pa][:, :params["det_axes"]]
     idle = max(int(params["det_idle_vel_q16"]), int(vel.max(1).min()) >> 2)
     mask = line_mask(feats, params, speed_hz) if speed_hz is not None else np.zeros(u.shape, bool)
+    # the modes first: each feature's slope on the speed is fitted within them, and every window
+    # is brought to its mode's reference speed (the device's modes.follow) before the baseline
+    op: list[int] = []
+    slopes: list[int] = []
+    if speed_hz is not None:
+        widen = 2.0 * max(speed_tol, 0.01)
+        k, lab = speed_modes(speed_hz, widen / 2, MIN_MODE_N, k_max)
+        lo_q8, hi_q8 = pinned_limits_q8(params)
+        for m in range(k):
+            sp = np.asarray(speed_hz)[lab == m]
+            a, b = np.percentile(sp, [100 * STRAY_Q, 100 * (1 - STRAY_Q)])
+            op += [max(int(math.floor(a * (1 - widen) * 256)), lo_q8),
+                   min(int(math.ceil(b * (1 + widen) * 256)), hi_q8)]
+        dl = speed_offsets_q8(speed_hz, follow_refs_q8(op), lab)
+        cand = np.array([follows(i % pa) for i in params["det_feat"]], bool)
+        slopes, _ = follow_slopes(u, dl, lab, mask, cand)
+        if any(slopes):
+            sl = array("h", slopes)
+            for r in range(len(u)):
+                row = array("i", u[r].tolist())
+                dm.follow(row, sl, int(dl[r]), d)
+                u[r] = row
+        else:
+            slopes = []
+    else:
+        k, lab = 1, np.zeros(len(u), int)
     w = Welford(d)
     for row, mk in zip(u, mask):
         for j in range(d):
@@ -300,18 +402,6 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     for r, row in enumerate(u):
         model.standardise(array("i", row.tolist()), zb)
         z[r] = zb
-    op: list[int] = []
-    if speed_hz is not None:
-        widen = 2.0 * max(speed_tol, 0.01)
-        k, lab = speed_modes(speed_hz, widen / 2, MIN_MODE_N, k_max)
-        lo_q8, hi_q8 = pinned_limits_q8(params)
-        for m in range(k):
-            sp = np.asarray(speed_hz)[lab == m]
-            a, b = np.percentile(sp, [100 * STRAY_Q, 100 * (1 - STRAY_Q)])
-            op += [max(int(math.floor(a * (1 - widen) * 256)), lo_q8),
-                   min(int(math.ceil(b * (1 + widen) * 256)), hi_q8)]
-    else:
-        k, lab = 1, np.zeros(len(z), int)
     floor = params["det_s_floor_q8"]
     # per mode, each feature's mean and spread (population) over the windows that read its line;
     # a line masked in every window of a mode is neutral there (centre 0, spread 256). Counted
@@ -341,7 +431,7 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
         "det_modes": int(k),
         "det_mode_c_q8": [int(v) for v in np.clip(np.rint(centers), -dm.Z_LIM, dm.Z_LIM).ravel()],
         "det_mode_s_q8": [int(v) for v in np.clip(np.rint(spread), floor, dm.Z_LIM).ravel()],
-        "det_op_speed_q8": op, "det_op_load_q8": [],
+        "det_op_speed_q8": op, "det_op_load_q8": [], "det_follow_q8": slopes,
         "det_thr_alert_q8": int(alert),
         "det_thr_alarm_q8": int((alert * params["det_learn_alarm_q8"]) >> 8),
         "det_idle_vel_q16": idle,

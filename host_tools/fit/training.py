@@ -966,6 +966,8 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
                     "hold_off_s": p["det_hold_ms"] / 1000, "envelope_band": p["fc_env_band"],
                     "bearing_orders": [v / 4096 for v in p["fc_bear_q12"]]},
         "modes": {"k": p["det_modes"], "criterion": MODE_CRITERION, "features": len(p["det_feat"]), "table": table,
+                  "follow": [{"feature": units.feature_name(i, p, axis_names), "octaves_per_octave": v / 256}
+                             for i, v in zip(p["det_feat"], p.get("det_follow_q8") or []) if v],
                   "half_order": half_judged,
                   "half_clear_hz": orders.HALF_CLEAR_BINS * p["fs_hz"] / p["n"] if p["fc_speed_hi_q8"] else None},
         "thresholds": {
@@ -1029,6 +1031,13 @@ def report_text(summary: dict) -> str:
                       "training held too few of their averages here (fewer than 2 independent ones)")
         lines.append(f"    mode {m['mode']}: {where}{m['windows']} windows ({100 * m['share']:.0f} %), median accel "
                      f"{med['accel_rms_m_s2']} m/s^2 r.m.s., velocity {med['velocity_rms_mm_s']} mm/s r.m.s.{aside}")
+    fo = s["modes"].get("follow") or []
+    if fo:
+        lines.append("    levels judged at each mode's own speed (they follow the shaft speed within a mode; octaves of "
+                     "level per octave of speed, 4 for a line whose force grows as speed squared): "
+                     + ", ".join(f"{f['feature']} {f['octaves_per_octave']:.1f}" for f in fo))
+    elif s["modes"]["k"]:
+        lines.append("    no level follows the speed within a mode clearly enough in this data: fixed centres")
     if s["modes"].get("half_clear_hz"):
         lines.append(f"    0.5x line (looseness): judged only where the shaft turns at {s['modes']['half_clear_hz']:.1f} Hz "
                      f"or faster; slower, this window cannot tell it from the 1x line"
