@@ -261,15 +261,17 @@ def mode_ranges_hz(params: dict) -> list[tuple[float, float]]:
 
 FOLLOW_T = 4.0          # a slope is kept only this many standard errors from 0
 # magnitudes whose level follows the speed as a smooth power law: broadband r.m.s., peak and
-# velocity (sums of many lines), and each line read at its own order or envelope order. Not the
-# band powers (a line crossing an edge makes an S over its lobe, not a power law) nor the
+# velocity, sums of many lines. Not the band powers (a line crossing an edge makes an S over its
+# lobe, not a power law), nor the lines read at an order: on a slow shaft (2-4 bins) each takes
+# in its neighbours' leakage, which swings with the fraction of a bin the speed sits at; nor the
 # shape figures (crest factor, kurtosis), which do not scale with the speed.
 _FOLLOWS = (fi.F_RMS, fi.F_PEAK, fi.F_VEL)
 
 
 def follows(field: int) -> bool:
-    """Whether a per-axis field may follow the speed within a mode (det_follow_q8)."""
-    return field in _FOLLOWS or fi.F_ORD_HALF <= field <= fi.F_ENV_FTF
+    """Whether a per-axis field may follow the speed within a mode (det_follow_q8; why these:
+    docs/detector.md, Levels that follow the speed)."""
+    return field in _FOLLOWS
 
 
 def follow_refs_q8(op: Sequence[int]) -> list[int]:
