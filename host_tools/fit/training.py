@@ -1034,7 +1034,7 @@ def report_text(summary: dict) -> str:
     fo = s["modes"].get("follow") or []
     if fo:
         lines.append("    levels judged at each mode's own speed (they follow the shaft speed within a mode; octaves of "
-                     "level per octave of speed, 4 for a line whose force grows as speed squared): "
+                     "level per octave of speed, 2 where the pump's forces grow as speed squared): "
                      + ", ".join(f"{f['feature']} {f['octaves_per_octave']:.1f}" for f in fo))
     elif s["modes"]["k"]:
         lines.append("    no level follows the speed within a mode clearly enough in this data: fixed centres")
