@@ -132,7 +132,7 @@ PARAM_KEYS = (
 
 # keys added after the first sets: a set without them reads 0 (the slow channel off), as before;
 # without det_sgain_q8 (or with it empty) every feature's EWMA weighs 256 (1), as before;
-# without det_follow_q8 (or with it empty) no line follows the speed, as before
+# without det_follow_q8 (or with it empty) no level follows the speed, as before
 LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8", "det_follow_q8")
 SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
 _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
@@ -317,7 +317,7 @@ class Detector:
                 raise ValueError("det_sgain_q8 must hold ints in [0, %d]" % SGAIN_MAX)
         self.ew_shift = _shift_for(windows_for(_int(q, "det_slow_ms", 0, _BIG), n, fs, every))
         # per scored feature, its slope on log2 of the speed within a mode (Q8 octaves per
-        # octave, 0 = a fixed centroid): a line brought to the mode's reference speed before scoring
+        # octave, 0 = a fixed centroid): a level brought to the mode's reference speed before scoring
         fo = p.get("det_follow_q8") or []
         self.follow_q8 = array("h", bytes(2 * d))
         if len(fo):

@@ -145,7 +145,7 @@ def transform(feats, idx, logf, u, d, tab):
         u[j] = clamp(x, U_LIM)
 
 
-FOLLOW_MAX = const(2048)  # |slope| bound, Q8: 8 octaves of a line's power per octave of speed
+FOLLOW_MAX = const(2048)  # |slope| bound, Q8: 8 octaves of a level per octave of speed
 _DL_LIM = const(256)      # |log2 speed - reference| bound, Q8: one octave
 
 
@@ -156,7 +156,7 @@ def speed_offset_q8(speed_q8, ref_q8, tab):
 
 
 def follow(u, slope_q8, dl_q8, d):
-    """Bring each line to the mode's reference speed: u[j] -= slope_j * dl (log2 Q8), clamped to
+    """Bring each level to the mode's reference speed: u[j] -= slope_j * dl (log2 Q8), clamped to
     +-U_LIM. slope_q8 within +-FOLLOW_MAX and dl within +-_DL_LIM, so the product < 2**20."""
     for j in range(d):
         s = slope_q8[j]

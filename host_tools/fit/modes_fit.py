@@ -310,7 +310,7 @@ def follow_slopes(u: np.ndarray, dl_q8: np.ndarray, lab: np.ndarray, mask: np.nd
     rx inflate the slope's variance by (1 + rx re) / (1 - rx re) (the AR(1) form of Bartlett's
     correction, common practice; from memory). A slope under FOLLOW_T standard errors, or a
     feature not a candidate, is 0 (a fixed centroid); the rest are clamped to +-FOLLOW_MAX."""
-    n, d = u.shape
+    d = u.shape[1]
     out, tv = [0] * d, [0.0] * d
     for j in np.flatnonzero(cand):
         ok = ~mask[:, j]
