@@ -154,7 +154,6 @@ EXTREMES = """
 from array import array
 from firmware_py.detect.detector import Detector, default_params
 from firmware_py.dsp import feature_index as fi
-
 from firmware_py.detect.modes import FOLLOW_MAX
 
 NB = 8
@@ -247,7 +246,7 @@ p["det_op_speed_q8"] = [0, (1 << 30) - 1] * 8   # every mode's range holds any s
                                                 # choice scans all 8
 p["det_mode_c_q8"] = [(m * 37 + j * 11) % 512 - 256 for m in range(8) for j in range(d)]
 p["det_mode_s_q8"] = [256] * (8 * d)
-p["det_follow_q8"] = [512] * d                  # every line follows the speed
+p["det_follow_q8"] = [512] * d                  # every feature follows the speed
 p["det_learn_base_n"] = 2
 p["det_learn_op_q12"] = 1
 det = Detector(p)

@@ -186,5 +186,4 @@ def test_follow_slope_standard_error_allows_for_autocorrelation():
         b.append(bj)
         se2.append((bj / t[0]) ** 2)
     ratio = np.var(b, ddof=1) / np.mean(se2)
-    print("slope variance over stated", ratio)
     assert abs(ratio - 1.0) <= 3 * math.sqrt(2.0 / (r_n - 1))

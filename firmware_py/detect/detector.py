@@ -52,7 +52,7 @@ from firmware_py.detect.event_ring import EventRing
 from firmware_py.detect.half_lines import HalfLines, UNSET
 from firmware_py.detect.iso_zones import zone_of, bounds_in_vel_units, ZONE_C
 from firmware_py.detect.modes import ModeModel, KMAX, DMAX, FOLLOW_MAX, is_log_field, transform, clamp, \
-    follow, speed_offset_q8
+    follow, range_ref_q8, speed_offset_q8
 from firmware_py.dsp.tables import log2_table, LOG2_N
 from firmware_py.detect.welford import Welford, N_MAX
 from firmware_py.dsp.fixmath import sqrt_pow2, log2_q8
@@ -474,11 +474,9 @@ class Detector:
         return True
 
     def _refs(self):
-        """Each mode's reference speed for det_follow_q8: log2 Q8 of its range centre (Hz Q8),
-        the same integers training uses (host_tools/fit/modes_fit.follow_refs_q8)."""
+        """Each mode's reference speed for det_follow_q8 (modes.range_ref_q8, as training)."""
         for m in range(self.model.k if self.op_on else 0):
-            c = (self.op_speed_q8[2 * m] >> 1) + (self.op_speed_q8[2 * m + 1] >> 1)
-            self.op_ref_q8[m] = log2_q8(c if c > 1 else 1, self.tab)
+            self.op_ref_q8[m] = range_ref_q8(self.op_speed_q8[2 * m], self.op_speed_q8[2 * m + 1], self.tab)
 
     # -- events ---------------------------------------------------------------------------------
     def _set(self, new, reason):

@@ -13,8 +13,8 @@ Scales (all ints):
 
   follow slopes: Q8 octaves of u per octave of the shaft speed (follow())
 
-Entry points: is_log_field(), footprint_bytes(), ModeModel, clamp(), transform(), speed_offset_q8(),
-follow()."""
+Entry points: is_log_field(), footprint_bytes(), ModeModel, clamp(), transform(), range_ref_q8(),
+speed_offset_q8(), follow()."""
 from array import array
 from micropython import const
 from firmware_py.dsp import feature_index as fi
@@ -147,6 +147,13 @@ def transform(feats, idx, logf, u, d, tab):
 
 FOLLOW_MAX = const(2048)  # |slope| bound, Q8: 8 octaves of a level per octave of speed
 _DL_LIM = const(256)      # |log2 speed - reference| bound, Q8: one octave
+
+
+def range_ref_q8(lo_q8, hi_q8, tab):
+    """A mode's reference speed for follow(): log2 Q8 of the centre of its speed range [lo, hi]
+    (Hz Q8, each under 2**30, halved before the sum so it stays a small int)."""
+    c = (lo_q8 >> 1) + (hi_q8 >> 1)
+    return log2_q8(c if c > 1 else 1, tab)
 
 
 def speed_offset_q8(speed_q8, ref_q8, tab):

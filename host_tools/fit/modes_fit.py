@@ -22,7 +22,7 @@ from firmware_py.detect import half_lines as hl, modes as dm
 from firmware_py.detect.detector import CHI_Q8
 from firmware_py.detect.half_lines import BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
 from firmware_py.detect.welford import Welford
-from firmware_py.dsp.fixmath import log2_q8, sqrt_pow2
+from firmware_py.dsp.fixmath import sqrt_pow2
 
 MIN_MODE_N = 30         # a speed group with fewer windows joins its neighbour
 
@@ -275,14 +275,9 @@ def follows(field: int) -> bool:
 
 
 def follow_refs_q8(op: Sequence[int]) -> list[int]:
-    """Each mode's reference: log2 Q8 of its speed range's centre (Hz Q8), as the device computes
-    it (Detector._refs)."""
+    """Each mode's reference speed, log2 Q8 (modes.range_ref_q8, as the device's Detector._refs)."""
     tab = tables.log2_table()
-    out = []
-    for m in range(len(op) // 2):
-        c = (op[2 * m] >> 1) + (op[2 * m + 1] >> 1)
-        out.append(log2_q8(c if c > 1 else 1, tab))
-    return out
+    return [dm.range_ref_q8(op[2 * m], op[2 * m + 1], tab) for m in range(len(op) // 2)]
 
 
 def speed_offsets_q8(speed_hz: np.ndarray, refs: Sequence[int], lab: np.ndarray) -> np.ndarray:
@@ -317,7 +312,8 @@ def follow_slopes(u: np.ndarray, dl_q8: np.ndarray, lab: np.ndarray, mask: np.nd
         x, y, g = dl_q8[ok].astype(np.float64), u[ok, j].astype(np.float64), lab[ok]
         if len(x) < 3:
             continue
-        for m in np.unique(g):
+        groups = np.unique(g)
+        for m in groups:
             x[g == m] -= x[g == m].mean()
             y[g == m] -= y[g == m].mean()
         sxx = float(x @ x)
@@ -325,7 +321,7 @@ def follow_slopes(u: np.ndarray, dl_q8: np.ndarray, lab: np.ndarray, mask: np.nd
             continue
         b = float(x @ y) / sxx
         e = y - b * x
-        dof = len(x) - len(np.unique(g)) - 1
+        dof = len(x) - len(groups) - 1
         if dof < 1:
             continue
         r = _ar1(x) * _ar1(e)
