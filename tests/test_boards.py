@@ -114,8 +114,8 @@ BAD = [
     (("analyse_every",), 12.5, "analyse_every"),
     # 13 windows of 1024 at 3200 Hz: 4160 ms between analysed windows, watchdog fed too seldom
     (("analyse_every",), 13, "4160 ms of samples, over 4000 ms"),
-    # 5 s of captures: 16 windows of 6144 bytes, more than the 56 534 bytes the budget leaves
-    (("capture_ms",), 5000, "event captures of 5000 ms need 98304 bytes of RAM, more than the 56534"),
+    # 5 s of captures: 16 windows of 6144 bytes, more than the 56 470 bytes the budget leaves
+    (("capture_ms",), 5000, "event captures of 5000 ms need 98304 bytes of RAM, more than the 56470"),
     (("capture_ms",), KeyError, "capture_ms"),
     (("flash_free_bytes",), 100_000, "holds 0 event captures of 50180 bytes; at least 2 must fit"),
 ]
@@ -333,7 +333,7 @@ def _largest_detector_set(axes):
     p.update(det_feat=[j % nf for j in range(d)], det_base_mean_q4=[0] * d,
              det_base_sd_q4=[256] * d, det_sgain_q8=[256] * d, det_follow_q8=[256] * d, det_modes=k,
              det_mode_c_q8=[0] * (k * d), det_mode_s_q8=[256] * (k * d),
-             det_op_speed_q8=[256, 512] * k, det_op_load_q8=[0, 256] * k,
+             det_op_speed_q8=[256, 512] * k, det_op_load_q8=[0, 256] * k, det_op_seen_q8=[256, 512] * k,
              det_persist_ms=SPAN_MAX * 160, det_event_n=event_ring.CAP_MAX)
     return p
 

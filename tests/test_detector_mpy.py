@@ -170,6 +170,7 @@ p.update(det_flat_rms_q8=0, det_clip_max=BIG, det_dc_lo_q8=[-BIG, -BIG], det_dc_
          det_steady_ms=640, det_conf_min_q8=0,
          det_op_speed_q8=[(-1) ** m * BIG if j else -BIG for m in range(8) for j in range(2)],
          det_op_load_q8=[-BIG, BIG] * 8, det_zlam_q8=4096,
+         det_op_seen_q8=[2, 1 << 17] * 4 + [-BIG, BIG] * 4,   # some speeds outside the trained ones
          det_base_mean_q4=[(-1) ** j * BIG for j in range(d)], det_base_sd_q4=[1] * d,
          det_modes=8, det_mode_c_q8=[(-1) ** (j + m) * BIG for m in range(8) for j in range(d)],
          det_mode_s_q8=[1] * (8 * d), det_thr_alert_q8=1, det_thr_alarm_q8=2, det_drift_shift=1,
@@ -182,7 +183,7 @@ assert det.ew_shift == 12
 # a twin that learns from the same absurd stream: no model yet and the guard out of reach, so
 # nothing latches and learning runs to its end
 p.update(det_iso_bounds=[BIG, BIG, BIG], det_modes=0, det_mode_c_q8=[], det_mode_s_q8=[],
-         det_op_speed_q8=[], det_op_load_q8=[], det_follow_q8=[], det_steady_ms=0)
+         det_op_speed_q8=[], det_op_load_q8=[], det_op_seen_q8=[], det_follow_q8=[], det_steady_ms=0)
 twin = Detector(p)
 VALS = (0, 1, 2, BIG, BIG - 1, 1 << 29, fi.LOG2_ZERO_Q8, -BIG, -1)
 NW = 400
@@ -247,6 +248,7 @@ p["det_op_speed_q8"] = [0, (1 << 30) - 1] * 8   # every mode's range holds any s
 p["det_mode_c_q8"] = [(m * 37 + j * 11) % 512 - 256 for m in range(8) for j in range(d)]
 p["det_mode_s_q8"] = [256] * (8 * d)
 p["det_follow_q8"] = [512] * d                  # every feature follows the speed
+p["det_op_seen_q8"] = [0, (1 << 30) - 1] * 8    # and every speed was trained at: every EWMA moves
 p["det_learn_base_n"] = 2
 p["det_learn_op_q12"] = 1
 det = Detector(p)

@@ -150,6 +150,60 @@ def test_each_mode_keeps_its_own_ewma_through_stops_and_a_sensor_fault_forgets_a
     assert det.state == al.SENSOR_FAULT and not any(det.ew_acc)
 
 
+def test_evidence_gathers_only_at_the_speeds_the_mode_was_trained_at():
+    # One mode whose range (15-25 Hz) reaches past the speeds it was trained at (18-22 Hz,
+    # det_op_seen_q8). Feature 0 stands 2 spreads up everywhere. Within the trained speeds the
+    # EWMA follows the step response of the EWMA recursion, delta (1 - (1 - lam)**k) (Roberts
+    # 1959), to its last bit; at 16 Hz, a trim the model never saw, the window is scored (the
+    # per-window channels) but every EWMA holds to the bit and the evidence so far is still read;
+    # back at 20 Hz it goes on from where it was.
+    d, shift = 2, 5
+    lam = 2.0 ** -shift
+    p = _params(d, det_slow_ms=32 * W_MS, det_slam_q8=256, det_op_speed_q8=[15 * 256, 25 * 256],
+                det_op_seen_q8=[18 * 256, 22 * 256], det_conf_min_q8=0)
+    det = Detector(p)
+    f = _frame(d)
+    f[fi.F_SPEED_CONF] = 200
+    f[fi.F_BAND0] = 2 * SD
+    f[fi.F_SPEED] = 20 * 256
+    for i in range(20):
+        det.step(f, i, 0)
+    assert det.mode == 0 and abs(_ewma(det)[0] / 256 - 2 * (1 - (1 - lam) ** 20)) < 1 / 256
+    kept = list(det.ew_acc)
+    f[fi.F_SPEED] = 16 * 256
+    for i in range(20, 40):
+        det.step(f, i, 0)
+        assert det.mode == 0 and det.dist_q8 >= 2 * 256 - 1 and list(det.ew_acc) == kept
+        assert det.smax_q8 == _ewma(det)[0] > 0 and det.score_q8 >= det.smax_q8
+    f[fi.F_SPEED] = 20 * 256
+    for i in range(40, 60):
+        det.step(f, i, 0)
+    assert abs(_ewma(det)[0] / 256 - 2 * (1 - (1 - lam) ** 40)) < 2 / 256
+    # a set without the key (or with it empty) gathers evidence anywhere in the range
+    for q in ({k: v for k, v in p.items() if k != "det_op_seen_q8"}, {**p, "det_op_seen_q8": []}):
+        det = Detector(q)
+        f[fi.F_SPEED] = 16 * 256
+        for i in range(20):
+            det.step(f, i, 0)
+        assert abs(_ewma(det)[0] / 256 - 2 * (1 - (1 - lam) ** 20)) < 1 / 256
+    assert Detector(p).export()["det_op_seen_q8"] == [18 * 256, 22 * 256]
+
+
+def test_trained_speeds_are_checked():
+    good = {**_params(1, det_op_speed_q8=[15 * 256, 25 * 256], det_op_seen_q8=[18 * 256, 22 * 256]),
+            "version": 1, "board": "b", "fs_hz": 3200, "n": 512, "axes": 1,
+            "counts_per_g": 256, "fc_bands": [[3, 8]], "fc_vel_hz": [10, 1000]}
+    prof = {"name": "b", "sample_rate_hz": 3200, "window_n": 512, "axes": 1}
+    param_check.validate(good, prof)
+    with pytest.raises(ValueError):
+        param_check.validate({**good, "det_op_seen_q8": [18 * 256]}, prof)
+    for bad in ({"det_op_seen_q8": [22 * 256, 18 * 256]},                 # lo > hi
+                {"det_op_seen_q8": [18 * 256]},                           # not k x 2
+                {"det_op_speed_q8": [], "det_follow_q8": []}):            # no operating points
+        with pytest.raises(ValueError):
+            Detector({**good, **bad})
+
+
 def _two_s_up(d=2):
     """A detector (slow channel of 32 windows) after 40 windows with feature 0 two spreads up,
     and the frame that gave them."""

@@ -46,6 +46,14 @@ def test_mode_ranges_stop_short_of_the_search_range_ends():
     lo, hi = mf.pinned_limits_q8(p)
     assert lo > p["fc_speed_lo_q8"] and hi < p["fc_speed_hi_q8"]
     assert op.min() >= lo and op.max() <= hi and len(op) == 2
+    # the speeds each mode was trained at (det_op_seen_q8, where the slow channel gathers
+    # evidence) are its windows' 0.5 and 99.5 % points (numpy.percentile, linear), to the Q8 step
+    # outward, and lie inside the mode's widened range
+    seen = np.array(keys["det_op_seen_q8"]).reshape(-1, 2)
+    for m, s in enumerate((sp[:n // 2], sp[n // 2:])):
+        a, b = np.percentile(s, [100 * mf.STRAY_Q, 100 * (1 - mf.STRAY_Q)])
+        assert 0 <= a * 256 - seen[m, 0] < 1 and 0 <= seen[m, 1] - b * 256 < 1
+        assert op[m, 0] < seen[m, 0] <= seen[m, 1] < op[m, 1]
 
 
 def test_band_edges_move_off_the_shaft_lines():

@@ -84,6 +84,8 @@ PARAM_KEYS = (
     "det_mode_s_q8",        # k x d per-mode spreads, Q8 baseline spreads
     "det_op_speed_q8",      # k x 2 speed range [lo, hi] of each mode, Hz Q8 ([] = no operating point)
     "det_op_load_q8",       # k x 2 load-proxy range [lo, hi] of each mode, log2 Q8 ([] = not used)
+    "det_op_seen_q8",       # k x 2 speeds [lo, hi] each mode was trained at, Hz Q8: the slow
+                            # channel gathers evidence only there ([] = anywhere in its range)
     "det_conf_min_q8",      # least F_SPEED_CONF for a usable speed estimate, Q8 (256 = 1)
     "det_zlam_q8",          # weight of the per-feature channel in the combined score, Q8
     "det_slow_ms",          # slow channel: EWMA time constant, nearest 2**shift analysed windows
@@ -132,8 +134,9 @@ PARAM_KEYS = (
 
 # keys added after the first sets: a set without them reads 0 (the slow channel off), as before;
 # without det_sgain_q8 (or with it empty) every feature's EWMA weighs 256 (1), as before;
-# without det_follow_q8 (or with it empty) no level follows the speed, as before
-LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8", "det_follow_q8")
+# without det_follow_q8 (or with it empty) no level follows the speed, as before; without
+# det_op_seen_q8 (or with it empty) the slow channel gathers evidence anywhere in a mode's range
+LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8", "det_follow_q8", "det_op_seen_q8")
 SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
 _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
 # A mode's slow-channel evidence halves for every full SLOW_HALF_S seconds it was not scored
@@ -302,7 +305,9 @@ class Detector:
         # operating points: speed (and load proxy) range per mode, k x 2, Hz Q8 and log2 Q8
         self.op_speed_q8 = array("i", bytes(8 * KMAX))
         self.op_load_q8 = array("i", bytes(8 * KMAX))
+        self.op_seen_q8 = array("i", bytes(8 * KMAX))
         self.op_on = self._load_op(p, k)
+        self.seen_on = self._load_seen(p, k)
         self.cand = ModeModel(d)                  # the model being learned
         self.mean0_q4 = array("i", self.model.mean_q4)  # trained baseline, the drift anchor
         self.conf_min_q8 = _int(p, "det_conf_min_q8", 0, 256)
@@ -471,6 +476,22 @@ class Detector:
             if self.op_speed_q8[2 * m] > self.op_speed_q8[2 * m + 1] or \
                     self.op_load_q8[2 * m] > self.op_load_q8[2 * m + 1]:
                 raise ValueError("operating-point ranges must be [lo, hi] with lo <= hi")
+        return True
+
+    def _load_seen(self, p, k):
+        """Fill the speeds each mode was trained at (det_op_seen_q8, k x 2, Hz Q8); True if the
+        set has them (the slow channel then gathers evidence only there)."""
+        v = p.get("det_op_seen_q8") or []
+        if len(v) == 0:
+            return False
+        if not self.op_on:
+            raise ValueError("det_op_seen_q8 needs det_op_speed_q8")
+        v = _ints(p, "det_op_seen_q8", 2 * k)
+        for m in range(k):
+            if v[2 * m] > v[2 * m + 1]:
+                raise ValueError("det_op_seen_q8 must hold [lo, hi] pairs with lo <= hi")
+            self.op_seen_q8[2 * m] = clamp(v[2 * m], _SPEED_MAX)
+            self.op_seen_q8[2 * m + 1] = clamp(v[2 * m + 1], _SPEED_MAX)
         return True
 
     def _refs(self):
@@ -947,7 +968,10 @@ class Detector:
         clock since the mode was last scored (an arithmetic shift: a negative accumulator tends to
         -1, an EWMA of -1/2**shift LSB, which cannot drive smax). smax = the largest weighted EWMA
         (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and sgain <= 4096, so the product < 2**27), at
-        least 0 (rises only, like zmax); s_drive its j."""
+        least 0 (rises only, like zmax); s_drive its j. At a speed outside the span mode m was
+        trained at (det_op_seen_q8) every EWMA holds: the centroid is known only there, and a
+        small lasting offset of a trim the model never saw is the operating point, not health;
+        the evidence gathered so far is still read."""
         b = m * self.d
         acc = self.ew_acc
         away = self.clock_s - self.ew_seen_s[m]
@@ -961,10 +985,12 @@ class Detector:
         g = self.sgain_q8
         sh = self.ew_shift
         op = self.op_on                           # held[] is set only with operating points
+        sp = self.speed_q8
+        seen = not self.seen_on or self.op_seen_q8[2 * m] <= sp <= self.op_seen_q8[2 * m + 1]
         top = 0
         self.s_drive = 0
         for j in range(self.d):
-            if not (op and self.held[j]):
+            if seen and not (op and self.held[j]):
                 acc[b + j] += t[j] - (acc[b + j] >> sh)
             e = ((acc[b + j] >> sh) * g[j]) >> 8
             if e > top:
@@ -1130,11 +1156,14 @@ class Detector:
                 w = (self.learn_op_q12 * lop[2 * m + 1]) >> 13
                 self.op_speed_q8[2 * k] = lop[2 * m] - w
                 self.op_speed_q8[2 * k + 1] = lop[2 * m + 1] + w
+                self.op_seen_q8[2 * k] = lop[2 * m]
+                self.op_seen_q8[2 * k + 1] = lop[2 * m + 1]
                 self.op_load_q8[2 * k] = -_BIG
                 self.op_load_q8[2 * k + 1] = _BIG
                 k += 1
         c.k = k
         self.op_on = self.l_op
+        self.seen_on = self.l_op                          # the speeds it learned each mode at
         self.follow_on = False                            # learned here: fixed centroids
         self._refs()
         self.thr_alert_q8 = (CHI_Q8[d - 1] * self.margin_q8) >> 8
@@ -1161,6 +1190,7 @@ class Detector:
             "det_mode_s_q8": list(m.s_q8)[:kd],
             "det_op_speed_q8": list(self.op_speed_q8)[:2 * m.k] if op else [],
             "det_op_load_q8": list(self.op_load_q8)[:2 * m.k] if op else [],   # +-(2**30 - 1) = open
+            "det_op_seen_q8": list(self.op_seen_q8)[:2 * m.k] if self.seen_on else [],
             "det_follow_q8": list(self.follow_q8) if self.follow_on else [],
             "det_thr_alert_q8": self.thr_alert_q8, "det_thr_alarm_q8": self.thr_alarm_q8,
             "det_idle_vel_q16": self.idle_vel_q16,
@@ -1182,8 +1212,8 @@ def footprint_bytes(axes):
     model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
     learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
         + welford.footprint_bytes(KMAX)           # wb, wm, lsp
-    op_b = 3 * 4 * 2 * KMAX + 2 * 4 * KMAX        # op_speed_q8, op_load_q8, lop_q8: lo, hi a mode;
-                                                  # ew_seen_s, op_ref_q8: one int a mode
+    op_b = 4 * 4 * 2 * KMAX + 2 * 4 * KMAX        # op_speed_q8, op_load_q8, op_seen_q8, lop_q8:
+                                                  # lo, hi a mode; ew_seen_s, op_ref_q8: one int
     axis_b = 5 * 4 * axes                         # dc_lo, dc_hi, stuck, zero, knock_crest
     steady_b = 3 * 4 * _STEADY_MAX                # ring_speed_q8, ring_level_q8, sort_q8
     misc_b = 4 * 3 + 2 * LOG2_N + 4 * len(WHY_NAMES)   # iso bounds, log2 table, n_why

@@ -116,6 +116,8 @@ def validate(p, profile):
         raise ValueError("'det_modes' must be 0..64")
     for k in _MODEL:
         _int_list(p, k, k_modes * d)
+    if p.get("det_op_seen_q8"):                           # absent or [] = the whole of each range
+        _int_list(p, "det_op_seen_q8", 2 * k_modes)
     for k in _AXIAL:
         _int_list(p, k, p["axes"])
     for k, hi in _RANGED:

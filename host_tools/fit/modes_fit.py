@@ -341,8 +341,9 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     Modes come from the operating point, never from the health features: with speed_hz (the
     device's speed estimate of each window, Hz), speed_modes() groups the windows at gaps wider
     than speed_tol (the steady tolerance, at least 1 %), and each mode's speed range
-    (det_op_speed_q8) is its windows' range widened by twice that each side; the load proxy is left open (docs/detector.md, Operating
-    point). Without speed_hz: one mode and no operating points. The baseline is the device's
+    (det_op_speed_q8) is its windows' range widened by twice that each side; the range itself,
+    unwidened, is where the slow channel gathers evidence (det_op_seen_q8); the load proxy is
+    left open (docs/detector.md, Operating point). Without speed_hz: one mode and no operating points. The baseline is the device's
     fixed-point Welford; z is standardised by the device's code; each mode's centroid and spread
     are its members' mean and standard deviation per feature, the spread floored at
     det_s_floor_q8. Thresholds: the chi-square tail point of the device (CHI_Q8, p = 1e-4) times
@@ -359,6 +360,7 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     # the modes first: each feature's slope on the speed is fitted within them, and every window
     # is brought to its mode's reference speed (the device's modes.follow) before the baseline
     op: list[int] = []
+    seen: list[int] = []
     slopes: list[int] = []
     if speed_hz is not None:
         widen = 2.0 * max(speed_tol, 0.01)
@@ -367,6 +369,7 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
         for m in range(k):
             sp = np.asarray(speed_hz)[lab == m]
             a, b = np.percentile(sp, [100 * STRAY_Q, 100 * (1 - STRAY_Q)])
+            seen += [int(math.floor(a * 256)), int(math.ceil(b * 256))]
             op += [max(int(math.floor(a * (1 - widen) * 256)), lo_q8),
                    min(int(math.ceil(b * (1 + widen) * 256)), hi_q8)]
         dl = speed_offsets_q8(speed_hz, follow_refs_q8(op), lab)
@@ -429,7 +432,7 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
         "det_modes": int(k),
         "det_mode_c_q8": [int(v) for v in np.clip(np.rint(centers), -dm.Z_LIM, dm.Z_LIM).ravel()],
         "det_mode_s_q8": [int(v) for v in np.clip(np.rint(spread), floor, dm.Z_LIM).ravel()],
-        "det_op_speed_q8": op, "det_op_load_q8": [], "det_follow_q8": slopes,
+        "det_op_speed_q8": op, "det_op_load_q8": [], "det_follow_q8": slopes, "det_op_seen_q8": seen,
         "det_thr_alert_q8": int(alert),
         "det_thr_alarm_q8": int((alert * params["det_learn_alarm_q8"]) >> 8),
         "det_idle_vel_q16": idle,

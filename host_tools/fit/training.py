@@ -122,7 +122,7 @@ def _probe_model(params: dict) -> dict:
     d = len(params["det_feat"])
     op = [0, (1 << 30) - 1] if params.get("fc_speed_hi_q8") else []
     return _mute(_with(params, det_modes=1, det_mode_c_q8=[0] * d, det_mode_s_q8=[256] * d,
-                       det_op_speed_q8=op, det_op_load_q8=[]))
+                       det_op_speed_q8=op, det_op_load_q8=[], det_op_seen_q8=[]))
 
 
 def _fill_half(feats: list[StreamFeatures], steps: list, p: dict) -> None:
@@ -941,9 +941,11 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     n_windows = int(len(allf))
     n_scored = int(sum(s.sum() for s in scored))
     ranges = modes_fit.mode_ranges_hz(p)
+    seen = p.get("det_op_seen_q8") or []
     for m in table:
         i = m["mode"]
         m["speed_hz"] = list(ranges[i]) if ranges else None
+        m["trained_hz"] = [seen[2 * i] / 256, seen[2 * i + 1] / 256] if seen else None
         m["half_aside"] = bool(ranges) and bool(modes_fit.set_aside(p, ranges[i][0]))
         m["half_orders_unjudged"] = [axis_names[f // pa] for j, f in enumerate(p["det_feat"]) if f % pa == fi.F_HALF
                                      and p["det_mode_s_q8"][i * len(p["det_feat"]) + j] >= dm.Z_LIM]
@@ -1024,7 +1026,9 @@ def report_text(summary: dict) -> str:
     for m in s["modes"]["table"]:
         med = m["median"]
         sp = m.get("speed_hz")
-        where = f"shaft {sp[0]:.1f}-{sp[1]:.1f} Hz, " if sp else ""
+        tr = m.get("trained_hz")
+        where = (f"shaft {sp[0]:.1f}-{sp[1]:.1f} Hz" + (f" (trained at {tr[0]:.1f}-{tr[1]:.1f} Hz)" if tr else "")
+                 + ", ") if sp else ""
         aside = "; the 0.5x line is not judged here" if m.get("half_aside") else ""
         if m.get("half_orders_unjudged"):
             aside += (f"; the half orders over many windows are not judged on axis {', '.join(m['half_orders_unjudged'])}: "
@@ -1045,7 +1049,8 @@ def report_text(summary: dict) -> str:
     lines.append(f"  thresholds (spreads of the mode): alert {t['alert']:.2f}, alarm {t['alarm']:.2f}, clear {t['clear']:.2f}; "
                  f"one feature alone counts {t['per_feature_weight']:.2f} times; raise on {t['persistence']}; "
                  f"alarm only after {t['escalation_s']:g} s in alert")
-    lines.append(f"  a small lasting rise of one feature, averaged over the last {t['slow_s']:g} s of judged running, "
+    at = " at the speeds each mode was trained at" if any(m.get("trained_hz") for m in s["modes"]["table"]) else ""
+    lines.append(f"  a small lasting rise of one feature, averaged over the last {t['slow_s']:g} s of judged running{at}, "
                  f"counts {t['slow_weight']:.2f} times ({lr['slow_channel']}); {lr['slow_gains']}")
     lines.append(f"    method: {t['method']}; {t['validation']}")
     lines.append(f"    alarm: {t['alarm_rule']}")
