@@ -122,6 +122,14 @@ def test_device_learning_agrees_with_the_host_fit():
     for m in range(2):
         dc = np.array(det.model.c_q8[m * d:(m + 1) * d])
         assert np.sqrt(((hc - dc) ** 2).mean(1)).min() < 128
+    # each mode's learned speeds (det_op_seen_q8, where the slow channel gathers evidence) hold
+    # its set point and lie within 6 sigma of it: the window speeds drawn above scatter N(0, 20)
+    # Q8 about 20 or 25 Hz, and every one of some 10**4 Gaussian draws stays within 6 sigma but
+    # with probability 2e-5 (scipy: 1e4 * 2 * norm.sf(6)); the host's 0.5-99.5 % points likewise
+    seen = np.array(det.export()["det_op_seen_q8"]).reshape(2, 2)
+    for span in (seen, np.array(host["det_op_seen_q8"]).reshape(2, 2)):
+        for (lo, hi), hz in zip(sorted(span.tolist()), (20, 25)):
+            assert hz * 256 - 6 * 20 <= lo <= hz * 256 <= hi <= hz * 256 + 6 * 20
     # and a detector built from the host's keys is quiet on healthy data
     p = params()
     p.update(host)

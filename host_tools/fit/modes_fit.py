@@ -343,11 +343,12 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     than speed_tol (the steady tolerance, at least 1 %), and each mode's speed range
     (det_op_speed_q8) is its windows' range widened by twice that each side; the range itself,
     unwidened, is where the slow channel gathers evidence (det_op_seen_q8); the load proxy is
-    left open (docs/detector.md, Operating point). Without speed_hz: one mode and no operating points. The baseline is the device's
-    fixed-point Welford; z is standardised by the device's code; each mode's centroid and spread
-    are its members' mean and standard deviation per feature, the spread floored at
-    det_s_floor_q8. Thresholds: the chi-square tail point of the device (CHI_Q8, p = 1e-4) times
-    the margin (training replaces them with the fitted raise rate). The idle floor
+    left open (docs/detector.md, Operating point). Without speed_hz: one mode and no operating
+    points. The baseline is the device's fixed-point Welford; z is standardised by the device's
+    code; each mode's centroid and spread are its members' mean and standard deviation per
+    feature, the spread floored at det_s_floor_q8. Thresholds: the chi-square tail point of the
+    device (CHI_Q8, p = 1e-4) times the margin (training replaces them with the fitted raise
+    rate). The idle floor
     (det_idle_vel_q16, counts/s Q16) is a quarter of the quietest window's broadband velocity, as
     the device's own learning sets it, and never under the set's.
     """
