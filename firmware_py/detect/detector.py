@@ -390,7 +390,8 @@ class Detector:
         self.u = array("i", bytes(4 * d))
         self.z = array("i", bytes(4 * d))
         # per scored feature: the axis whose own 1x estimate its order or envelope line was read
-        # around (F_ORD_HALF .. F_ENV_FTF), else -1 (see _score)
+        # around (F_ORD_HALF .. F_ENV_FTF), or its half-order prominence (F_HALF: the taps are
+        # mixed and the average kept at that axis's own 1x), else -1 (see _mask_lines)
         self.ord_axis = array("b", bytes(d))
         self.held = array("b", bytes(d))          # 1 where _mask_lines neutralised the line
         # slow channel: per scored feature the EWMA of its departure t_j, kept as the accumulator
@@ -405,7 +406,8 @@ class Detector:
         self.half_axis = array("b", bytes(d))
         for j in range(d):
             fj = self.idx[j] % self.pa
-            self.ord_axis[j] = self.idx[j] // self.pa if fi.F_ORD_HALF <= fj <= fi.F_ENV_FTF else -1
+            lines = fi.F_ORD_HALF <= fj <= fi.F_ENV_FTF or fj == fi.F_HALF
+            self.ord_axis[j] = self.idx[j] // self.pa if lines else -1
             self.half_axis[j] = self.idx[j] // self.pa if fj == fi.F_HALF else -1
         self.wb = Welford(d)                      # learning phase 1: baseline
         self.wm = Welford(d * KMAX)               # learning phase 2: per-mode statistics
@@ -1006,12 +1008,15 @@ class Detector:
             self.ew_acc[j] = 0
 
     def _mask_lines(self, f, m):
-        """Order and envelope lines of an axis whose own 1x estimate (F_SPEED) lies more than the
-        steady tolerance from the window's operating speed were read at the wrong places (each
-        axis reads its lines around its own estimate, and an axis where the rotating 1x is weak,
-        the axial one, misses it often): they carry no evidence, so they are set to the mode's
-        centre (a neutral term). So is a half-order prominence with no average yet (UNSET). Same
-        rule in training (host_tools/fit/modes_fit.line_mask).
+        """Order and envelope lines and the half-order prominence of an axis whose own 1x
+        estimate (F_SPEED) lies more than the steady tolerance from the window's operating speed
+        were read at the wrong places (each axis reads its lines, and keeps its half-order
+        average, around its own estimate, and an axis where the rotating 1x is weak, the axial
+        one, misses it often: on a slow shaft it reads its 2x as a 1x at the top of the range
+        window after window, and the half orders of that are lines of no order of the shaft):
+        they carry no evidence, so they are set to the mode's centre (a neutral term). So is a
+        half-order prominence with no average yet (UNSET). Same rule in training
+        (host_tools/fit/modes_fit.line_mask).
         op * tol_q12 < 2**17 * 2**12 = 2**29."""
         op = self.speed_q8
         tol = (self.speed_tol_q12 * op) >> 12

@@ -152,11 +152,11 @@ def half_spread_floor_q8() -> float:
 
 
 def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarray:
-    """(rows, d) booleans: True where a scored order or envelope line was read around an axis's own
-    1x estimate (F_SPEED) more than the steady tolerance (det_speed_tol_q12) from the window's
-    operating speed, or where a half-order prominence (F_HALF) has no average yet: the device sets
-    such a term neutral (firmware_py/detect/detector.py, _mask_lines), so the model is fitted
-    without it. Integer arithmetic as the device's."""
+    """(rows, d) booleans: True where a scored order or envelope line or half-order prominence
+    (F_HALF) was read around an axis's own 1x estimate (F_SPEED) more than the steady tolerance
+    (det_speed_tol_q12) from the window's operating speed, or where a half-order prominence has no
+    average yet: the device sets such a term neutral (firmware_py/detect/detector.py,
+    _mask_lines), so the model is fitted without it. Integer arithmetic as the device's."""
     feats = np.asarray(feats, dtype=np.int64)
     pa = fi.per_axis(params["det_bands"])
     idx = np.asarray(params["det_feat"])
@@ -164,11 +164,11 @@ def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarr
     tol = (int(params["det_speed_tol_q12"]) * op) >> 12
     out = np.zeros((len(feats), len(idx)), bool)
     for j, i in enumerate(idx.tolist()):
-        if i % pa == fi.F_HALF:
-            out[:, j] = feats[:, i] == UNSET
-        elif fi.F_ORD_HALF <= i % pa <= fi.F_ENV_FTF:
+        if i % pa == fi.F_HALF or fi.F_ORD_HALF <= i % pa <= fi.F_ENV_FTF:
             e = feats[:, (i // pa) * pa + fi.F_SPEED] - op
             out[:, j] = (e > tol) | (e < -tol)
+        if i % pa == fi.F_HALF:
+            out[:, j] |= feats[:, i] == UNSET
     return out
 
 
