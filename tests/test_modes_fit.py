@@ -27,6 +27,24 @@ def test_speed_modes_split_set_points_despite_strays():
     assert mf.speed_modes(rng.uniform(19.0, 26.0, 4000), 0.03, mf.MIN_MODE_N)[0] == 1
 
 
+def test_a_set_point_seen_in_too_few_recordings_joins_its_neighbour():
+    # a pump's levels wander over tens of seconds, so one recording's windows are one sample of
+    # them: a trim seen only in one 10 s snapshot (62 windows of 0.16 s) must not become a mode
+    # of its own, whose centre would be that snapshot's levels; seen in MIN_MODE_STRETCHES
+    # recordings it does. Set points as in the test above (scikit-learn's adjusted Rand index)
+    rng = np.random.default_rng(7)
+    main = 24.5 * rng.uniform(0.99, 1.01, 3000)
+    trim = 24.5 * 1.08 * rng.uniform(0.995, 1.005, 62)
+    x = np.concatenate([main, trim])
+    rec = np.r_[np.arange(3000) // 62, np.full(62, 999)]
+    assert mf.speed_modes(x, 0.03, mf.MIN_MODE_N)[0] == 2                 # by windows alone
+    assert mf.speed_modes(x, 0.03, mf.MIN_MODE_N, stretch=rec,
+                          min_stretches=mf.MIN_MODE_STRETCHES)[0] == 1
+    rec3 = np.r_[np.arange(3000) // 62, 997 + np.arange(62) % mf.MIN_MODE_STRETCHES]
+    k, lab = mf.speed_modes(x, 0.03, mf.MIN_MODE_N, stretch=rec3, min_stretches=mf.MIN_MODE_STRETCHES)
+    assert k == 2 and adjusted_rand_score(np.r_[np.zeros(3000), np.ones(62)], lab) == 1.0
+
+
 def test_mode_ranges_stop_short_of_the_search_range_ends():
     # a speed read at an end of the search range (19.5-29 Hz) is the range, not the shaft: no mode
     # may cover it, so the gateway leaves such windows unscored

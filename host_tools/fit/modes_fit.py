@@ -25,6 +25,12 @@ from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
 
 MIN_MODE_N = 30         # a speed group with fewer windows joins its neighbour
+# ... as does one seen in fewer recordings: a pump's levels wander over tens of seconds (1x,
+# vane pass, flow noise), so the windows of one recording share its levels and count as one
+# sample of them, however many there are; a centroid from one or two such samples carries their
+# offset as a lasting departure, which the slow channel finds at once (docs/evaluation.md, Four
+# fresh seeds: a trim seen in one 10 s snapshot made a mode and a false alert)
+MIN_MODE_STRETCHES = 3
 
 
 def transformed(feats: np.ndarray, params: dict) -> np.ndarray:
@@ -41,10 +47,13 @@ def transformed(feats: np.ndarray, params: dict) -> np.ndarray:
     return out
 
 
-def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KMAX) -> tuple[int, np.ndarray]:
+def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KMAX,
+                stretch: np.ndarray | None = None, min_stretches: int = 1) -> tuple[int, np.ndarray]:
     """Operating modes from the shaft speed alone, by the gaps between speeds: sorted speeds are
     cut wherever two neighbours lie more than `gap` (a fraction of the speed) apart, groups with
-    fewer than min_n windows join their nearer neighbour, and while more than k_max remain the
+    fewer than min_n windows, or windows from fewer than min_stretches distinct values of
+    `stretch` (a recording id per window, when given), join their nearer neighbour, and while
+    more than k_max remain the
     two nearest merge. A gap may hold a few strays (up to 1 window in STRAY_DIV: an estimate that
     missed by a bin). A continuum of speeds (a drive trimmed slowly) stays one mode; distinct
     set points, with (almost) no speeds between them, become modes. Returns (k, label per window),
@@ -64,8 +73,15 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
 
     def centre(g):
         return float(np.median(xs[g[0]:g[1]]))
+    st = None if stretch is None else np.asarray(stretch)[order]
+
+    def size(g):
+        """A group's windows, 0 when they come from too few recordings (it joins a neighbour)."""
+        if st is not None and len(np.unique(st[g[0]:g[1]])) < min_stretches:
+            return 0
+        return g[1] - g[0]
     while len(groups) > 1:
-        sizes = [b - a for a, b in groups]
+        sizes = [size(g) for g in groups]
         small = int(np.argmin(sizes))
         if sizes[small] >= min_n and len(groups) <= k_max:
             break
@@ -334,13 +350,14 @@ def follow_slopes(u: np.ndarray, dl_q8: np.ndarray, lab: np.ndarray, mask: np.nd
 
 
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
-        k_max: int = dm.KMAX, margin_q8: int | None = None) -> dict:
+        k_max: int = dm.KMAX, margin_q8: int | None = None, stretch: np.ndarray | None = None) -> dict:
     """Baseline, operating modes and conservative thresholds from healthy running windows (rows
     of raw feature vectors). Returns the detector keys to merge into the parameter set.
 
     Modes come from the operating point, never from the health features: with speed_hz (the
     device's speed estimate of each window, Hz), speed_modes() groups the windows at gaps wider
-    than speed_tol (the steady tolerance, at least 1 %), and each mode's speed range
+    than speed_tol (the steady tolerance, at least 1 %; with `stretch`, each window's recording,
+    a group must come from MIN_MODE_STRETCHES recordings), and each mode's speed range
     (det_op_speed_q8) is its windows' range widened by twice that each side; the range itself,
     unwidened, is where the slow channel gathers evidence (det_op_seen_q8); the load proxy is
     left open (docs/detector.md, Operating point). Without speed_hz: one mode and no operating
@@ -365,7 +382,7 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     slopes: list[int] = []
     if speed_hz is not None:
         widen = 2.0 * max(speed_tol, 0.01)
-        k, lab = speed_modes(speed_hz, widen / 2, MIN_MODE_N, k_max)
+        k, lab = speed_modes(speed_hz, widen / 2, MIN_MODE_N, k_max, stretch, MIN_MODE_STRETCHES)
         lo_q8, hi_q8 = pinned_limits_q8(params)
         for m in range(k):
             sp = np.asarray(speed_hz)[lab == m]

@@ -571,7 +571,8 @@ def _hold_off(feats: list[StreamFeatures], p: dict, every: int, window_s: float)
     allrows = np.concatenate(rows)
     if len(allrows) < MIN_WINDOWS:
         return int(HOLD_DEFAULT_S * 1000), f"{HOLD_DEFAULT_S:g} s (too few settled windows)", []
-    keys = modes_fit.fit(allrows, q, np.concatenate(ops), q["det_speed_tol_q12"] / 4096.0)
+    strs = np.concatenate([r[m] for r, m in zip(_recording_ids(feats), settled)])
+    keys = modes_fit.fit(allrows, q, np.concatenate(ops), q["det_speed_tol_q12"] / 4096.0, stretch=strs)
     keys.pop("det_idle_vel_q16")
     scored = _run(_mute(_with(q, **keys)), feats, every)
     span = min(al.windows_for(p["det_steady_ms"], p["n"], p["fs_hz"], every), _STEADY_MAX)
@@ -648,19 +649,26 @@ def zlam_q8(d: int) -> int:
     return int(round(256 * math.sqrt(chi2.isf(p, d)) / zmax))
 
 
-def _model(rows: np.ndarray, speeds: np.ndarray, params: dict) -> dict:
-    """modes_fit.fit's baseline, modes by operating point; the idle floor stays the one set here."""
-    keys = modes_fit.fit(rows, params, speeds, params["det_speed_tol_q12"] / 4096.0)
+def _model(rows: np.ndarray, speeds: np.ndarray, params: dict, stretch: np.ndarray) -> dict:
+    """modes_fit.fit's baseline, modes by operating point (stretch: each row's recording); the
+    idle floor stays the one set here."""
+    keys = modes_fit.fit(rows, params, speeds, params["det_speed_tol_q12"] / 4096.0, stretch=stretch)
     keys.pop("det_idle_vel_q16")
     return keys
 
 
-def _fit_all(rows: list[np.ndarray], speeds: list[np.ndarray], params: dict, jobs: int) -> list[dict]:
+def _fit_all(rows: list[np.ndarray], speeds: list[np.ndarray], params: dict, jobs: int,
+             stretches: list[np.ndarray]) -> list[dict]:
     """_model over each row set, in up to `jobs` processes (the same result for any jobs)."""
     if jobs <= 1 or len(rows) == 1:
-        return [_model(r, s, params) for r, s in zip(rows, speeds)]
+        return [_model(r, s, params, t) for r, s, t in zip(rows, speeds, stretches)]
     with ProcessPoolExecutor(max_workers=min(jobs, len(rows))) as pool:
-        return list(pool.map(_model, rows, speeds, [params] * len(rows)))
+        return list(pool.map(_model, rows, speeds, [params] * len(rows), stretches))
+
+
+def _recording_ids(feats: list[StreamFeatures]) -> list[np.ndarray]:
+    """Each window's recording as one id over all streams (stream index << 20 | recording)."""
+    return [(i << 20) + sf.rec for i, sf in enumerate(feats)]
 
 
 def _thresholds(seqs: list[np.ndarray], p: dict, every: int, window_s: float, target: float,
@@ -876,7 +884,10 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     sps = [np.concatenate([sp[u & (wf != f)] for sp, u, wf in zip(speeds, use, win_fold)]) for f in fold_ids]
     rows.append(np.concatenate([sf.feats[u] for sf, u in zip(feats, use)]))
     sps.append(np.concatenate([sp[u] for sp, u in zip(speeds, use)]))
-    fits = _fit_all(rows, sps, p, jobs)
+    rid = _recording_ids(feats)
+    strs = [np.concatenate([r[u & (wf != f)] for r, u, wf in zip(rid, use, win_fold)]) for f in fold_ids]
+    strs.append(np.concatenate([r[u] for r, u in zip(rid, use)]))
+    fits = _fit_all(rows, sps, p, jobs, strs)
     bar.update(1)
     # held-out sequences: each feature's slow weight from its own held-out EWMA spread, then the
     # slow channel is weighted against the per-feature one, then the thresholds are fitted on the
