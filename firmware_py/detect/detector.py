@@ -1012,7 +1012,7 @@ class Detector:
         estimate (F_SPEED) lies more than the steady tolerance from the window's operating speed
         were read at the wrong places (each axis reads its lines, and keeps its half-order
         average, around its own estimate, and an axis where the rotating 1x is weak, the axial
-        one, misses it often: on a slow shaft it reads its 2x as a 1x at the top of the range
+        one, misses it often: on a slow shaft it can read its speed at the top of the range
         window after window, and the half orders of that are lines of no order of the shaft):
         they carry no evidence, so they are set to the mode's centre (a neutral term). So is a
         half-order prominence with no average yet (UNSET). Same rule in training

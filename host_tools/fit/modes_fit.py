@@ -53,8 +53,7 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
     cut wherever two neighbours lie more than `gap` (a fraction of the speed) apart, groups with
     fewer than min_n windows, or windows from fewer than min_stretches distinct values of
     `stretch` (a recording id per window, when given), join their nearer neighbour, and while
-    more than k_max remain the
-    two nearest merge. A gap may hold a few strays (up to 1 window in STRAY_DIV: an estimate that
+    more than k_max remain the two nearest merge. A gap may hold a few strays (up to 1 window in STRAY_DIV: an estimate that
     missed by a bin). A continuum of speeds (a drive trimmed slowly) stays one mode; distinct
     set points, with (almost) no speeds between them, become modes. Returns (k, label per window),
     numbered by rising speed."""
