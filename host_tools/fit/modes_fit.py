@@ -179,10 +179,11 @@ def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarr
     tol = (int(params["det_speed_tol_q12"]) * op) >> 12
     out = np.zeros((len(feats), len(idx)), bool)
     for j, i in enumerate(idx.tolist()):
-        if i % pa == fi.F_HALF or fi.F_ORD_HALF <= i % pa <= fi.F_ENV_FTF:
+        f = i % pa
+        if f == fi.F_HALF or fi.F_ORD_HALF <= f <= fi.F_ENV_FTF:
             e = feats[:, (i // pa) * pa + fi.F_SPEED] - op
             out[:, j] = (e > tol) | (e < -tol)
-        if i % pa == fi.F_HALF:
+        if f == fi.F_HALF:
             out[:, j] |= feats[:, i] == UNSET
     return out
 

@@ -880,14 +880,13 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     n_folds = len(np.unique(np.concatenate(rec_fold)))
     fold_ids = [f for f in range(n_folds if n_folds > 1 else 0)
                 if sum((u & (wf != f)).sum() for u, wf in zip(use, win_fold)) >= MIN_WINDOWS]
-    rows = [np.concatenate([sf.feats[u & (wf != f)] for sf, u, wf in zip(feats, use, win_fold)]) for f in fold_ids]
-    sps = [np.concatenate([sp[u & (wf != f)] for sp, u, wf in zip(speeds, use, win_fold)]) for f in fold_ids]
-    rows.append(np.concatenate([sf.feats[u] for sf, u in zip(feats, use)]))
-    sps.append(np.concatenate([sp[u] for sp, u in zip(speeds, use)]))
-    rid = _recording_ids(feats)
-    strs = [np.concatenate([r[u & (wf != f)] for r, u, wf in zip(rid, use, win_fold)]) for f in fold_ids]
-    strs.append(np.concatenate([r[u] for r, u in zip(rid, use)]))
-    fits = _fit_all(rows, sps, p, jobs, strs)
+    # each fold model's windows (those outside the fold), then the full model's (all)
+    masks = [[u & (wf != f) for u, wf in zip(use, win_fold)] for f in fold_ids] + [use]
+
+    def pick(per_stream: list[np.ndarray]) -> list[np.ndarray]:
+        return [np.concatenate([x[m] for x, m in zip(per_stream, ms)]) for ms in masks]
+    rows = pick([sf.feats for sf in feats])
+    fits = _fit_all(rows, pick(speeds), p, jobs, pick(_recording_ids(feats)))
     bar.update(1)
     # held-out sequences: each feature's slow weight from its own held-out EWMA spread, then the
     # slow channel is weighted against the per-feature one, then the thresholds are fitted on the
