@@ -197,11 +197,15 @@ def test_trained_speeds_are_checked():
     param_check.validate(good, prof)
     with pytest.raises(ValueError):
         param_check.validate({**good, "det_op_seen_q8": [18 * 256]}, prof)
-    for bad in ({"det_op_seen_q8": [22 * 256, 18 * 256]},                 # lo > hi
-                {"det_op_seen_q8": [18 * 256]},                           # not k x 2
+    for bad in ({"det_op_seen_q8": [18 * 256]},                           # not k x 2
                 {"det_op_speed_q8": [], "det_follow_q8": []}):            # no operating points
         with pytest.raises(ValueError):
             Detector({**good, **bad})
+    # every range pair is [lo, hi]: the set is refused with the key named
+    for key, pair in (("det_op_seen_q8", [22 * 256, 18 * 256]), ("det_op_speed_q8", [25 * 256, 15 * 256]),
+                      ("det_op_load_q8", [5, -5])):
+        with pytest.raises(ValueError, match=key + " must hold"):
+            Detector({**good, key: pair})
 
 
 def _two_s_up(d=2):

@@ -261,6 +261,17 @@ def _int(p, key, lo, hi):
     return v
 
 
+def _pairs(p, key, k, out, lim):
+    """Fill out[0:2k] with p[key]'s k [lo, hi] pairs, each clamped to +-lim; ValueError unless
+    lo <= hi in each (set-up only: the message allocates)."""
+    v = _ints(p, key, 2 * k)
+    for m in range(k):
+        if v[2 * m] > v[2 * m + 1]:
+            raise ValueError(key + " must hold [lo, hi] pairs with lo <= hi")
+        out[2 * m] = clamp(v[2 * m], lim)
+        out[2 * m + 1] = clamp(v[2 * m + 1], lim)
+
+
 def _ints(p, key, n):
     """p[key] as array('i') of n ints, each a small int (reading a larger one would allocate)."""
     v = p[key]
@@ -457,43 +468,27 @@ class Detector:
 
     def _load_op(self, p, k):
         """Fill the operating-point ranges; True if the set has them (modes chosen by speed)."""
-        sp = p["det_op_speed_q8"]
-        ld = p["det_op_load_q8"]
-        if len(sp) == 0:
-            if len(ld):
+        if len(p["det_op_speed_q8"]) == 0:
+            if len(p["det_op_load_q8"]):
                 raise ValueError("det_op_load_q8 needs det_op_speed_q8")
             return False
-        v = _ints(p, "det_op_speed_q8", 2 * k)
-        for i in range(2 * k):
-            self.op_speed_q8[i] = clamp(v[i], _SPEED_MAX)   # so centres and gaps stay small ints
-        if len(ld):
-            v = _ints(p, "det_op_load_q8", 2 * k)
-            for i in range(2 * k):
-                self.op_load_q8[i] = v[i]
+        _pairs(p, "det_op_speed_q8", k, self.op_speed_q8, _SPEED_MAX)  # centres and gaps stay small ints
+        if len(p["det_op_load_q8"]):
+            _pairs(p, "det_op_load_q8", k, self.op_load_q8, _BIG)
         else:
             for m in range(k):
                 self.op_load_q8[2 * m] = -_BIG
                 self.op_load_q8[2 * m + 1] = _BIG
-        for m in range(k):
-            if self.op_speed_q8[2 * m] > self.op_speed_q8[2 * m + 1] or \
-                    self.op_load_q8[2 * m] > self.op_load_q8[2 * m + 1]:
-                raise ValueError("operating-point ranges must be [lo, hi] with lo <= hi")
         return True
 
     def _load_seen(self, p, k):
         """Fill the speeds each mode was trained at (det_op_seen_q8, k x 2, Hz Q8); True if the
         set has them (the slow channel then gathers evidence only there)."""
-        v = p.get("det_op_seen_q8") or []
-        if len(v) == 0:
+        if len(p.get("det_op_seen_q8") or []) == 0:
             return False
         if not self.op_on:
             raise ValueError("det_op_seen_q8 needs det_op_speed_q8")
-        v = _ints(p, "det_op_seen_q8", 2 * k)
-        for m in range(k):
-            if v[2 * m] > v[2 * m + 1]:
-                raise ValueError("det_op_seen_q8 must hold [lo, hi] pairs with lo <= hi")
-            self.op_seen_q8[2 * m] = clamp(v[2 * m], _SPEED_MAX)
-            self.op_seen_q8[2 * m + 1] = clamp(v[2 * m + 1], _SPEED_MAX)
+        _pairs(p, "det_op_seen_q8", k, self.op_seen_q8, _SPEED_MAX)
         return True
 
     def _refs(self):
