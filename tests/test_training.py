@@ -382,19 +382,24 @@ def test_a_duty_whose_speed_reads_coarsely_keeps_the_search_at_two_and_a_half_bi
     p = {"fs_hz": FS, "n": 512, "axes": 1, "det_bands": 3, "fc_bands": [[2, 3], [3, 4], [4, 8]],
          "fc_speed_lo_q8": int(13.7 * 256)}
     rng = np.random.default_rng(3)
-    rpm = np.array([890.0] * 100 + [1480.0] * 100)
-    true_hz = rpm / 60
-    def reads(jump_share):
+
+    def reads(jump_share, duties=(890.0, 1480.0)):
+        rpm = np.repeat(duties, 100)
+        true_hz = rpm / 60
         est = true_hz * (1 + rng.uniform(-0.05, 0.05, rpm.size))
-        jump = (rpm == 890) & (rng.random(rpm.size) < jump_share)
+        jump = (rpm == duties[0]) & (rng.random(rpm.size) < jump_share)
         est[jump] = true_hz[jump] * 1.7
         f = np.zeros((rpm.size, pa), np.int64)
         f[:, fi.F_SPEED] = np.round(est * 256)
         f[:, fi.F_SPEED_CONF] = 200
         recs = [SimpleNamespace(rpm=r) for r in rpm]
         return _coarse_reads([SimpleNamespace(feats=f, rec=np.arange(rpm.size))], [recs], p)
-    assert reads(0.0) is None
-    warn = reads(0.4)
-    assert warn is not None and "890 r/min" in warn
+    assert reads(0.0) == (False, None)
+    again, warn = reads(0.4)
+    assert again and "890 r/min" in warn and "stays at 2.5 bins" in warn
+    # a pump with no duty clear of 2.5 bins (a 6-pole pump at 12.7 and 16.8 Hz; 2.5 bins is 15.6 Hz,
+    # searched from 16.5) has nothing to score at 2.5 bins: the coarse search stays, with the warning
+    again, warn = reads(0.4, (761.5, 1005.5))
+    assert not again and "761.5 r/min" in warn and "no duty turns clear" in warn
     # a search that starts at 2.5 bins or above has no coarse duty to check
-    assert _coarse_reads([], [], dict(p, fc_speed_lo_q8=int(16.5 * 256))) is None
+    assert _coarse_reads([], [], dict(p, fc_speed_lo_q8=int(16.5 * 256))) == (False, None)
