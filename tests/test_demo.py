@@ -200,8 +200,10 @@ def test_bad_out_is_one_line_and_exit_2(tmp_path, capsys):
 @pytest.mark.parametrize("extra, says", [
     (["--gapless-hours", "2"], "needs --evaluation demo, full or other"),      # SMALL has --evaluation off
     (["--gapless-hours", "25", "--evaluation", "demo"], "--gapless-hours must be from 0 to 24"),
+    (["--evaluation-seed", "97"], "--evaluation-seed chooses the scorecard's histories; it needs --evaluation"),
+    (["--evaluation-seed", "-1", "--evaluation", "demo"], "--evaluation-seed must be from 0 to 2147483647"),
 ])
-def test_bad_gapless_hours_is_one_line_and_exit_2(tmp_path, capsys, extra, says):
+def test_bad_scorecard_options_are_one_line_and_exit_2(tmp_path, capsys, extra, says):
     assert cli.main(["demo", "--out", str(tmp_path / "out"), *SMALL, *extra]) == 2
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and says in err and not (tmp_path / "out").exists()

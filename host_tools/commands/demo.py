@@ -56,6 +56,7 @@ _MARKER = "demo.json"         # what a finished demo folder holds, so a rerun ma
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     from host_tools.data import demo_scenario as ds
+    from host_tools.data.scenarios import EVALUATION_SEED
     p.add_argument("--out", required=True, metavar="DIR", help="folder to write (made, or replaced if it holds an earlier demo)")
     p.add_argument("--days", type=float, default=DEFAULT_DAYS, help=f"length of the scenario in days (default {DEFAULT_DAYS:g})")
     p.add_argument("--training-days", type=float, default=ds.TRAINING_DAYS,
@@ -70,6 +71,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--evaluation", choices=("demo", "full", "other", "off"), default="demo",
                    help="scorecard on the evaluation histories: demo (one machine, about a minute), full (two machines, "
                         "much longer), other (as full, on a slow 6-pole pump and a fixed-speed one) or off (default demo)")
+    p.add_argument("--evaluation-seed", type=int, default=None, metavar="N",
+                   help=f"seed of the evaluation histories (default {EVALUATION_SEED}, those the detector was developed "
+                        "on; any other gives histories it has never seen)")
     p.add_argument("--gapless-hours", type=float, default=0.0, metavar="H",
                    help="also run each machine fault of the scorecard without a gap, every window as a gateway sees it, "
                         "from H hours before it is clearly visible to the first alert or H hours after (default 0: off)")
@@ -96,8 +100,14 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError("--gapless-hours must be from 0 to 24")
     if gapless_h and getattr(args, "evaluation", "demo") == "off":
         raise EdgevibError("--gapless-hours runs the scorecard's faults; it needs --evaluation demo, full or other")
+    ev_seed = getattr(args, "evaluation_seed", None)
+    if ev_seed is not None and getattr(args, "evaluation", "demo") == "off":
+        raise EdgevibError("--evaluation-seed chooses the scorecard's histories; it needs --evaluation demo, full or other")
+    if ev_seed is not None and not 0 <= ev_seed < 2 ** 31:
+        raise EdgevibError("--evaluation-seed must be from 0 to 2147483647")
     started = time.monotonic()
     from host_tools.report.replay_report import staging_folder, swap_in
+    from host_tools.data import scenarios as sc
     if args.fleet and not 1 <= args.pumps <= 12:
         raise EdgevibError("--pumps must be from 1 to 12")
     tmp = staging_folder(out)
@@ -110,7 +120,8 @@ def run(args: argparse.Namespace) -> int:
                                                    "pumps": args.pumps}, indent=1) + "\n")
         else:
             lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs,
-                          getattr(args, "evaluation", "demo"), stretch_s, gapless_h)
+                          getattr(args, "evaluation", "demo"), stretch_s, gapless_h,
+                          sc.EVALUATION_SEED if ev_seed is None else ev_seed)
         swap_in(tmp, out)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -131,7 +142,7 @@ def _check_out(out: Path) -> None:
 
 def build(work: Path, final: Path, seed: int, days: float, training_days: float, interval_s: float,
           jobs: int | None = None, evaluation: str = "off", stretch_s: tuple[float, float] = (0.0, 0.0),
-          gapless_h: float = 0.0) -> list[str]:
+          gapless_h: float = 0.0, evaluation_seed: int = 0) -> list[str]:
     """Run the demo into folder `work` (paths are printed as they will be under `final`);
     returns the summary lines. Prints the commissioning check as it goes."""
     from host_tools.data import demo_scenario as ds
@@ -158,7 +169,7 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     for r in results:
         lines += summary_lines(r, truth, final)
     if evaluation != "off":
-        lines += ["", *scorecard_lines(work, final, evaluation, jobs, gapless_h)]
+        lines += ["", *scorecard_lines(work, final, evaluation, jobs, gapless_h, evaluation_seed)]
     lines += ["", "edgevib is advisory condition monitoring, not machinery protection or a safety shutdown system;",
               "an all-clear is no guarantee."]
     (work / _MARKER).write_text(json.dumps({"seed": seed, "days": days, "training_days": training_days,
@@ -167,18 +178,20 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
     return lines
 
 
-def scorecard_lines(work: Path, final: Path, scale: str, jobs: int | None, gapless_h: float = 0.0) -> list[str]:
-    """Write the evaluation histories at `scale` into work/scenarios, train, replay and score them
-    (and run the machine faults without a gap, gapless_h hours either side of clearly visible);
-    write work/scorecard.json and .txt; return the printed lines."""
+def scorecard_lines(work: Path, final: Path, scale: str, jobs: int | None, gapless_h: float = 0.0,
+                    seed: int = 0) -> list[str]:
+    """Write the evaluation histories at `scale` and `seed` into work/scenarios, train, replay and
+    score them (and run the machine faults without a gap, gapless_h hours either side of clearly
+    visible); write work/scorecard.json and .txt; return the printed lines."""
     from host_tools.data.files import load_board
     from host_tools.data import scenarios as sc
     from host_tools.ops.evaluate import evaluate_suite, to_json
     from host_tools.fit.scorecard import render_text
     j = max(1, min(jobs or (os.cpu_count() or 1), os.cpu_count() or 1))
-    suite = sc.write_suite(work / "scenarios", scale=scale, jobs=j)
+    suite = sc.write_suite(work / "scenarios", seed=seed, scale=scale, jobs=j)
     card, _ = evaluate_suite(suite, load_board(None), jobs=j, gapless_h=gapless_h,
-                             label=f"invented {sc.PLANT} histories, scale {scale}, detector as trained by edgevib train")
+                             label=f"invented {sc.PLANT} histories, scale {scale}, seed {seed}, detector as trained by "
+                                   "edgevib train")
     text = render_text(card)
     (work / "scorecard.json").write_text(to_json(card))
     (work / "scorecard.txt").write_text(text + "\n")
