@@ -107,7 +107,6 @@ def run(args: argparse.Namespace) -> int:
         raise EdgevibError("--evaluation-seed must be from 0 to 2147483647")
     started = time.monotonic()
     from host_tools.report.replay_report import staging_folder, swap_in
-    from host_tools.data import scenarios as sc
     if args.fleet and not 1 <= args.pumps <= 12:
         raise EdgevibError("--pumps must be from 1 to 12")
     tmp = staging_folder(out)
@@ -120,8 +119,7 @@ def run(args: argparse.Namespace) -> int:
                                                    "pumps": args.pumps}, indent=1) + "\n")
         else:
             lines = build(tmp, out, args.seed, args.days, args.training_days, args.interval_s, args.jobs,
-                          getattr(args, "evaluation", "demo"), stretch_s, gapless_h,
-                          sc.EVALUATION_SEED if ev_seed is None else ev_seed)
+                          getattr(args, "evaluation", "demo"), stretch_s, gapless_h, ev_seed)
         swap_in(tmp, out)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -142,7 +140,7 @@ def _check_out(out: Path) -> None:
 
 def build(work: Path, final: Path, seed: int, days: float, training_days: float, interval_s: float,
           jobs: int | None = None, evaluation: str = "off", stretch_s: tuple[float, float] = (0.0, 0.0),
-          gapless_h: float = 0.0, evaluation_seed: int = 0) -> list[str]:
+          gapless_h: float = 0.0, evaluation_seed: int | None = None) -> list[str]:
     """Run the demo into folder `work` (paths are printed as they will be under `final`);
     returns the summary lines. Prints the commissioning check as it goes."""
     from host_tools.data import demo_scenario as ds
@@ -179,15 +177,17 @@ def build(work: Path, final: Path, seed: int, days: float, training_days: float,
 
 
 def scorecard_lines(work: Path, final: Path, scale: str, jobs: int | None, gapless_h: float = 0.0,
-                    seed: int = 0) -> list[str]:
-    """Write the evaluation histories at `scale` and `seed` into work/scenarios, train, replay and
-    score them (and run the machine faults without a gap, gapless_h hours either side of clearly
-    visible); write work/scorecard.json and .txt; return the printed lines."""
+                    seed: int | None = None) -> list[str]:
+    """Write the evaluation histories at `scale` and `seed` (None: scenarios.EVALUATION_SEED) into
+    work/scenarios, train, replay and score them (and run the machine faults without a gap,
+    gapless_h hours either side of clearly visible); write work/scorecard.json and .txt; return
+    the printed lines."""
     from host_tools.data.files import load_board
     from host_tools.data import scenarios as sc
     from host_tools.ops.evaluate import evaluate_suite, to_json
     from host_tools.fit.scorecard import render_text
     j = max(1, min(jobs or (os.cpu_count() or 1), os.cpu_count() or 1))
+    seed = sc.EVALUATION_SEED if seed is None else seed
     suite = sc.write_suite(work / "scenarios", seed=seed, scale=scale, jobs=j)
     card, _ = evaluate_suite(suite, load_board(None), jobs=j, gapless_h=gapless_h,
                              label=f"invented {sc.PLANT} histories, scale {scale}, seed {seed}, detector as trained by "
