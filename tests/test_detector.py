@@ -11,6 +11,7 @@ from firmware_py.detect import alarm as al, event_ring
 from firmware_py.dsp import feature_index as fi
 from firmware_py.detect import detector as dt
 from firmware_py.detect.detector import Detector, default_params
+from firmware_py.detect.modes import FOLLOW_MAX
 from host_tools.fit import modes_fit as mf
 
 PA = fi.per_axis(1)
@@ -347,7 +348,34 @@ def test_a_line_that_follows_the_speed_is_scored_at_the_modes_reference_speed():
     with pytest.raises(ValueError):
         Detector(params(det_follow_q8=[1024]))
     with pytest.raises(ValueError):
-        Detector({**p, "det_follow_q8": [4096]})           # beyond 8 octaves per octave
+        Detector({**p, "det_follow_q8": [FOLLOW_MAX + 1]})  # beyond 64 octaves per octave
+
+
+def test_each_modes_own_slope_holds_only_over_the_speeds_it_was_trained_at():
+    # a band level with a law of its own in each mode (3 octaves per octave of speed in mode 0,
+    # -2 in mode 1: a line's lobe moving across the band's edge, det_mfollow_q8) and trained at
+    # 24.5-25.5 and 14.5-15.5 Hz (det_op_seen_q8). Within those speeds the level is brought to
+    # the mode's reference speed (its range's centre, 25 and 15 Hz); beyond them the speed is
+    # held at the nearer end, so what the level does there counts as departure: the reference,
+    # numpy's log2 of the law past the end. log2_q8 rounds within 1 LSB for the speed and the
+    # reference, so a departure is within |slope| x 2 LSB, 6/100 of a spread (baseline 0 +- 100)
+    seen = [round(24.5 * 256), round(25.5 * 256), round(14.5 * 256), round(15.5 * 256)]
+    p = op_params(det_base_mean_q4=[0], det_steady_ms=0, det_op_seen_q8=seen, det_mfollow_q8=[768, -512])
+    det = Detector(p)
+    for m, (slope, ref, lo, hi, centre) in enumerate(((3, 25, 24.5, 25.5, 0), (-2, 15, 14.5, 15.5, 500))):
+        for hz in (ref * 0.965, lo, ref * 0.99, ref, ref * 1.01, hi, ref * 1.035):
+            running(det, speed=hz, conf=200, band=centre)
+            det.step(win(band=centre + round(256 * slope * np.log2(hz / ref)), speed=hz, conf=200), 0, 0)
+            held = min(max(hz, lo), hi)
+            past = 256 * slope * np.log2(hz / held)            # numpy: the law beyond the trained speeds
+            assert det.mode == m
+            assert abs(det.model.t_q8[0] - 256 * past / 100) <= 256 * 2 * abs(slope) / 100 + 1
+    # refused: slopes of each mode without the speeds they hold over, a list not k x d long,
+    # a slope beyond 8 octaves per octave
+    for bad in ({"det_op_seen_q8": []}, {"det_mfollow_q8": [768]}, {"det_mfollow_q8": [768, FOLLOW_MAX + 1]}):
+        with pytest.raises(ValueError):
+            Detector({**p, **bad})
+    assert Detector(p).export()["det_mfollow_q8"] == [768, -512]
 
 
 # -- persistence and escalation in running time --------------------------------------------

@@ -8,6 +8,7 @@ import numpy as np
 from sklearn.metrics import adjusted_rand_score
 
 from firmware_py.detect import modes as dm
+from firmware_py.dsp import feature_index as fi
 from host_tools.fit import modes_fit as mf
 
 
@@ -49,7 +50,6 @@ def test_mode_ranges_stop_short_of_the_search_range_ends():
     # a speed read at an end of the search range (19.5-29 Hz) is the range, not the shaft: no mode
     # may cover it, so the gateway leaves such windows unscored
     from firmware_py.detect.detector import default_params
-    from firmware_py.dsp import feature_index as fi
     p = default_params(1, 1, 6680)
     p.update(fc_speed_lo_q8=int(19.5 * 256), fc_speed_hi_q8=29 * 256, det_bands=1)
     rng = np.random.default_rng(6)
@@ -213,3 +213,40 @@ def test_follow_slope_standard_error_allows_for_autocorrelation():
         se2.append((bj / t[0]) ** 2)
     ratio = np.var(b, ddof=1) / np.mean(se2)
     assert abs(ratio - 1.0) <= 3 * math.sqrt(2.0 / (r_n - 1))
+
+
+def _edge_share_log2(x_bins: float, edge: int, n: int = 1024) -> float:
+    """log2 of the power a tone at x_bins puts at bins >= edge, with a floor of white noise 40 dB
+    under the tone in each bin: numpy's rfft of the Hann-windowed tone (numpy, the reference)."""
+    t = np.arange(n)
+    spec = np.abs(np.fft.rfft(np.hanning(n) * np.sin(2 * np.pi * x_bins * t / n))) ** 2
+    return float(np.log2(spec[edge:].sum() + 1e-4 * spec.max() * (len(spec) - edge)))
+
+
+def test_each_modes_band_slope_is_least_squares_over_that_mode():
+    # a band from bin 16 up: in mode 0 the 1x's Hann lobe (|k - x| < 2, Harris 1978) moves across
+    # its edge as the speed is trimmed +-3 % about 15 bins, so the band's level climbs with the
+    # speed (numpy's FFT of the windowed tone, the reference, plus AR(1) wander); in mode 1 the
+    # line at 8 bins never reaches the edge and the level is the noise floor's, no law. Each mode's
+    # slope is the least-squares slope over that mode's windows (numpy's polyfit, the reference),
+    # to the Q8 rounding of the result (half an LSB), and it is kept only in mode 0; the speed
+    # offsets are those held within the trained speeds (det_op_seen_q8), as the device's
+    rng = np.random.default_rng(29)
+    n = 1500
+    lab = np.repeat(np.arange(2), n)
+    sp = np.concatenate([c * 2.0 ** np.clip(_ar1(rng, n, 0.95, 0.02), -0.04, 0.04) for c in (15.0, 8.0)])
+    op = [int(c * 0.94 * 256) for c in (15.0, 8.0)]
+    op = [op[0], int(15.0 * 1.06 * 256), op[1], int(8.0 * 1.06 * 256)]
+    seen = [int(np.floor(sp[lab == m].min() * 256)) for m in (0, 1)]
+    seen = [seen[0], int(np.ceil(sp[lab == 0].max() * 256)), seen[1], int(np.ceil(sp[lab == 1].max() * 256))]
+    dl = mf.speed_offsets_q8(sp, mf.follow_refs_q8(op), lab, seen)
+    level = np.array([_edge_share_log2(x, 16) for x in sp])
+    u = np.rint(256 * level + _ar1(rng, 2 * n, 0.9, 20.0)).astype(np.int64)[:, None]
+    got = mf.mode_slopes(u, dl, lab, np.zeros(u.shape, bool), np.array([True]), 2)
+    ref = np.polyfit(dl[lab == 0].astype(np.float64), u[lab == 0, 0].astype(np.float64), 1)[0]
+    assert abs(got[0] - 256 * ref) <= 0.5 + 1e-9 and 0 < got[0] < dm.FOLLOW_MAX
+    assert got[1] == 0
+    assert mf.mode_slopes(u, dl, lab, np.zeros(u.shape, bool), np.array([False]), 2) == [0, 0]
+    # only band powers are candidates (the whole-window levels follow one law in every mode)
+    assert mf.follows_in_mode(fi.F_BAND0) and not mf.follows_in_mode(fi.F_RMS)
+    assert not mf.follows_in_mode(fi.F_ORD_1X)

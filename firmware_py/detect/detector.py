@@ -92,6 +92,8 @@ PARAM_KEYS = (
     "det_slam_q8",          # weight of the slow channel in the combined score, Q8 (0 = off)
     "det_sgain_q8",         # per scored feature, the weight of its EWMA in the slow channel, Q8
     "det_follow_q8",        # per scored feature, its slope on log2 of the speed, Q8 ([] = none)
+    "det_mfollow_q8",       # k x d, mode-major: each mode's own slope of each scored feature on
+                            # log2 of the speed, the speed held within det_op_seen_q8, Q8 ([] = none)
     "det_thr_alert_q8",     # combined score at or over which a window counts toward an alert, Q8
     "det_thr_alarm_q8",     # combined score at or over which a window counts toward an alarm, Q8
     "det_hyst_q8",          # clear threshold as a fraction of det_thr_alert_q8, Q8 (205 = 0.8)
@@ -135,8 +137,10 @@ PARAM_KEYS = (
 # keys added after the first sets: a set without them reads 0 (the slow channel off), as before;
 # without det_sgain_q8 (or with it empty) every feature's EWMA weighs 256 (1), as before;
 # without det_follow_q8 (or with it empty) no level follows the speed, as before; without
-# det_op_seen_q8 (or with it empty) the slow channel gathers evidence anywhere in a mode's range
-LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8", "det_follow_q8", "det_op_seen_q8")
+# det_op_seen_q8 (or with it empty) the slow channel gathers evidence anywhere in a mode's range;
+# without det_mfollow_q8 (or with it empty) no mode has slopes of its own
+LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8", "det_follow_q8", "det_op_seen_q8",
+              "det_mfollow_q8")
 SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
 _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
 # A mode's slow-channel evidence halves for every full SLOW_HALF_S seconds it was not scored
@@ -334,17 +338,16 @@ class Detector:
         self.ew_shift = _shift_for(windows_for(_int(q, "det_slow_ms", 0, _BIG), n, fs, every))
         # per scored feature, its slope on log2 of the speed within a mode (Q8 octaves per
         # octave, 0 = a fixed centroid): a level brought to the mode's reference speed before scoring
-        fo = p.get("det_follow_q8") or []
         self.follow_q8 = array("h", bytes(2 * d))
-        if len(fo):
-            if not self.op_on:
-                raise ValueError("det_follow_q8 needs det_op_speed_q8")
-            v = _ints(p, "det_follow_q8", d)
-            for j in range(d):
-                if not -FOLLOW_MAX <= v[j] <= FOLLOW_MAX:
-                    raise ValueError("det_follow_q8 must hold ints in [-%d, %d]" % (FOLLOW_MAX, FOLLOW_MAX))
-                self.follow_q8[j] = v[j]
-        self.follow_on = len(fo) > 0
+        self.follow_on = self._load_slopes(p, "det_follow_q8", d, self.follow_q8)
+        # per mode and scored feature, a slope of the mode's own (same units) over the speeds it
+        # was trained at: a band whose edge a shaft line's lobe straddles there gains or loses
+        # that line as the speed moves (an S, not a power law), so the speed is held within the
+        # mode's trained speeds, where the line was fitted, and the level beyond them kept
+        self.mfollow_q8 = array("h", bytes(2 * k * d))
+        self.mfollow_on = self._load_slopes(p, "det_mfollow_q8", k * d, self.mfollow_q8)
+        if self.mfollow_on and not self.seen_on:
+            raise ValueError("det_mfollow_q8 needs det_op_seen_q8")
         self.op_ref_q8 = array("i", bytes(4 * KMAX))   # per mode log2 of its range centre, Q8
         # the detector's own clock: analysed windows at win_ms each (n * every samples), plus the
         # seconds of gaps; seconds in clock_s (< 2**29, rebased), the rest in clock_ms (< 1000)
@@ -489,6 +492,20 @@ class Detector:
         if not self.op_on:
             raise ValueError("det_op_seen_q8 needs det_op_speed_q8")
         _pairs(p, "det_op_seen_q8", k, self.op_seen_q8, _SPEED_MAX)
+        return True
+
+    def _load_slopes(self, p, key, n, out):
+        """Fill out[0:n] with p[key]'s slopes (Q8, within +-FOLLOW_MAX); True if the set has them,
+        False for [] or none (set-up only: the messages allocate)."""
+        if len(p.get(key) or []) == 0:
+            return False
+        if not self.op_on:
+            raise ValueError("%s needs det_op_speed_q8" % key)
+        v = _ints(p, key, n)
+        for j in range(n):
+            if not -FOLLOW_MAX <= v[j] <= FOLLOW_MAX:
+                raise ValueError("%s must hold ints in [-%d, %d]" % (key, FOLLOW_MAX, FOLLOW_MAX))
+            out[j] = v[j]
         return True
 
     def _refs(self):
@@ -927,7 +944,13 @@ class Detector:
         md = self.model
         self._transform(f)
         if self.follow_on:
-            follow(self.u, self.follow_q8, speed_offset_q8(self.speed_q8, self.op_ref_q8[m], self.tab), self.d)
+            follow(self.u, self.follow_q8, 0, speed_offset_q8(self.speed_q8, self.op_ref_q8[m], self.tab), self.d)
+        if self.mfollow_on:
+            sp = self.speed_q8
+            lo = self.op_seen_q8[2 * m]
+            hi = self.op_seen_q8[2 * m + 1]
+            sp = lo if sp < lo else (hi if sp > hi else sp)
+            follow(self.u, self.mfollow_q8, m * self.d, speed_offset_q8(sp, self.op_ref_q8[m], self.tab), self.d)
         md.standardise(self.u, self.z)
         if self.op_on:
             self._mask_lines(f, m)
@@ -1165,6 +1188,7 @@ class Detector:
         self.op_on = self.l_op
         self.seen_on = self.l_op                          # the speeds it learned each mode at
         self.follow_on = False                            # learned here: fixed centroids
+        self.mfollow_on = False
         self._refs()
         self.thr_alert_q8 = (CHI_Q8[d - 1] * self.margin_q8) >> 8
         self.thr_alarm_q8 = (self.thr_alert_q8 * self.alarm_ratio_q8) >> 8
@@ -1192,6 +1216,7 @@ class Detector:
             "det_op_load_q8": list(self.op_load_q8)[:2 * m.k] if op else [],   # +-(2**30 - 1) = open
             "det_op_seen_q8": list(self.op_seen_q8)[:2 * m.k] if self.seen_on else [],
             "det_follow_q8": list(self.follow_q8) if self.follow_on else [],
+            "det_mfollow_q8": list(self.mfollow_q8)[:kd] if self.mfollow_on else [],
             "det_thr_alert_q8": self.thr_alert_q8, "det_thr_alarm_q8": self.thr_alarm_q8,
             "det_idle_vel_q16": self.idle_vel_q16,
         }
@@ -1206,9 +1231,9 @@ def footprint_bytes(axes):
     takes less. Used by board profiles to check the heap budget."""
     d = DMAX
     # per scored feature, 5 int arrays (idx, mean0_q4, sgain_q8, u, z), the slow channel's
-    # accumulators of every mode (ew_acc), 4 byte arrays (logf, ord_axis, held, half_axis) and
-    # the int16 follow slopes
-    feat_b = 4 * 5 * d + 4 * d * KMAX + 4 * d + 2 * d
+    # accumulators of every mode (ew_acc), 4 byte arrays (logf, ord_axis, held, half_axis), the
+    # int16 follow slopes and those of every mode (mfollow_q8)
+    feat_b = 4 * 5 * d + 4 * d * KMAX + 4 * d + 2 * d + 2 * d * KMAX
     model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
     learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
         + welford.footprint_bytes(KMAX)           # wb, wm, lsp

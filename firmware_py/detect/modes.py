@@ -145,7 +145,10 @@ def transform(feats, idx, logf, u, d, tab):
         u[j] = clamp(x, U_LIM)
 
 
-FOLLOW_MAX = const(2048)  # |slope| bound, Q8: 8 octaves of a level per octave of speed
+# |slope| bound, Q8: 64 octaves of a level per octave of speed. A whole-window level follows at
+# 2-4 (a power law), but a band whose edge a line's lobe straddles can swing 5 dB over a 3 % trim,
+# some 20 octaves per octave (docs/detector.md); int16 holds it
+FOLLOW_MAX = const(16384)
 _DL_LIM = const(256)      # |log2 speed - reference| bound, Q8: one octave
 
 
@@ -162,10 +165,11 @@ def speed_offset_q8(speed_q8, ref_q8, tab):
     return clamp(log2_q8(speed_q8 if speed_q8 > 1 else 1, tab) - ref_q8, _DL_LIM)
 
 
-def follow(u, slope_q8, dl_q8, d):
-    """Bring each level to the mode's reference speed: u[j] -= slope_j * dl (log2 Q8), clamped to
-    +-U_LIM. slope_q8 within +-FOLLOW_MAX and dl within +-_DL_LIM, so the product < 2**20."""
+def follow(u, slope_q8, off, dl_q8, d):
+    """Bring each level to the mode's reference speed: u[j] -= slope_q8[off + j] * dl (log2 Q8),
+    clamped to +-U_LIM (off: where the slopes in use start, 0 or a mode's m * d). slope_q8
+    within +-FOLLOW_MAX and dl within +-_DL_LIM, so the product < 2**22."""
     for j in range(d):
-        s = slope_q8[j]
+        s = slope_q8[off + j]
         if s:
             u[j] = clamp(u[j] - ((s * dl_q8) >> 8), U_LIM)

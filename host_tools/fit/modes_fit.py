@@ -290,16 +290,30 @@ def follows(field: int) -> bool:
     return field in _FOLLOWS
 
 
+def follows_in_mode(field: int) -> bool:
+    """Whether a per-axis field may have a slope of each mode's own over the speeds it was trained
+    at (det_mfollow_q8): the band powers. Within the few per cent of a mode's speeds the S that a
+    line makes crossing an edge is close to a line, and the device holds the speed within those
+    speeds, so the fitted line is never carried past them (docs/detector.md)."""
+    return field >= fi.F_BAND0
+
+
 def follow_refs_q8(op: Sequence[int]) -> list[int]:
     """Each mode's reference speed, log2 Q8 (modes.range_ref_q8, as the device's Detector._refs)."""
     tab = tables.log2_table()
     return [dm.range_ref_q8(op[2 * m], op[2 * m + 1], tab) for m in range(len(op) // 2)]
 
 
-def speed_offsets_q8(speed_hz: np.ndarray, refs: Sequence[int], lab: np.ndarray) -> np.ndarray:
-    """Per window, log2 of its speed less its mode's reference, log2 Q8 (modes.speed_offset_q8)."""
+def speed_offsets_q8(speed_hz: np.ndarray, refs: Sequence[int], lab: np.ndarray,
+                     seen: Sequence[int] = ()) -> np.ndarray:
+    """Per window, log2 of its speed less its mode's reference, log2 Q8 (modes.speed_offset_q8);
+    with seen (det_op_seen_q8, Hz Q8 pairs), the speed held within its mode's pair first, as the
+    device does for det_mfollow_q8."""
     tab = tables.log2_table()
     sq = np.rint(np.asarray(speed_hz, dtype=np.float64) * 256).astype(np.int64)
+    if len(seen):
+        pairs = np.asarray(seen, np.int64).reshape(-1, 2)[lab]
+        sq = np.clip(sq, pairs[:, 0], pairs[:, 1])
     return np.array([dm.speed_offset_q8(int(v), refs[m], tab) for v, m in zip(sq.tolist(), lab.tolist())], np.int64)
 
 
@@ -325,28 +339,58 @@ def follow_slopes(u: np.ndarray, dl_q8: np.ndarray, lab: np.ndarray, mask: np.nd
     out, tv = [0] * d, [0.0] * d
     for j in np.flatnonzero(cand):
         ok = ~mask[:, j]
-        x, y, g = dl_q8[ok].astype(np.float64), u[ok, j].astype(np.float64), lab[ok]
-        if len(x) < 3:
-            continue
-        groups = np.unique(g)
-        for m in groups:
-            x[g == m] -= x[g == m].mean()
-            y[g == m] -= y[g == m].mean()
-        sxx = float(x @ x)
-        if sxx <= 0:
-            continue
-        b = float(x @ y) / sxx
-        e = y - b * x
-        dof = len(x) - len(groups) - 1
-        if dof < 1:
-            continue
-        r = _ar1(x) * _ar1(e)
-        r = min(max(r, 0.0), 0.99)
-        se = math.sqrt(float(e @ e) / dof / sxx * (1 + r) / (1 - r))
-        tv[j] = b / se if se > 0 else math.inf
-        if abs(tv[j]) >= FOLLOW_T:
-            out[j] = int(np.clip(round(256 * b), -dm.FOLLOW_MAX, dm.FOLLOW_MAX))
+        out[j], tv[j] = _slope(dl_q8[ok], u[ok, j], lab[ok])
     return out, tv
+
+
+def mode_slopes(u: np.ndarray, dl_q8: np.ndarray, lab: np.ndarray, mask: np.ndarray,
+                cand: np.ndarray, k: int) -> list[int]:
+    """Each mode's own slope of each candidate feature on log2 of the speed, Q8, k x d mode-major
+    (det_mfollow_q8; dl_q8 from the speed held within the mode's trained speeds): follow_slopes'
+    estimate and test over one mode's windows at a time, 0 where it fails the test."""
+    d = u.shape[1]
+    out = [0] * (k * d)
+    for m in range(k):
+        rows = lab == m
+        for j in np.flatnonzero(cand):
+            ok = rows & ~mask[:, j]
+            out[m * d + j] = _slope(dl_q8[ok], u[ok, j], lab[ok])[0]
+    return out
+
+
+def _slope(dl_q8: np.ndarray, u: np.ndarray, lab: np.ndarray) -> tuple[int, float]:
+    """follow_slopes' estimate for one feature, in the rows' order: the slope (Q8, 0 unless it is
+    FOLLOW_T standard errors from 0) and its t value (0 when too few rows)."""
+    x, y, g = dl_q8.astype(np.float64), u.astype(np.float64), lab
+    if len(x) < 3:
+        return 0, 0.0
+    groups = np.unique(g)
+    for m in groups:
+        x[g == m] -= x[g == m].mean()
+        y[g == m] -= y[g == m].mean()
+    sxx = float(x @ x)
+    dof = len(x) - len(groups) - 1
+    if sxx <= 0 or dof < 1:
+        return 0, 0.0
+    b = float(x @ y) / sxx
+    e = y - b * x
+    r = _ar1(x) * _ar1(e)
+    r = min(max(r, 0.0), 0.99)
+    se = math.sqrt(float(e @ e) / dof / sxx * (1 + r) / (1 - r))
+    t = b / se if se > 0 else math.inf
+    return (int(np.clip(round(256 * b), -dm.FOLLOW_MAX, dm.FOLLOW_MAX)) if abs(t) >= FOLLOW_T else 0), t
+
+
+def _follow(u: np.ndarray, slopes: list[int], dl_q8: np.ndarray, lab: np.ndarray, step: int) -> None:
+    """Bring each row of u to its mode's reference speed in place, with the device's modes.follow:
+    slopes start at lab * step (0: one slope per feature for every mode; d: each mode's own)."""
+    if not any(slopes):
+        return
+    sl = array("h", slopes)
+    for r in range(len(u)):
+        row = array("i", u[r].tolist())
+        dm.follow(row, sl, int(lab[r]) * step, int(dl_q8[r]), u.shape[1])
+        u[r] = row
 
 
 def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, speed_tol: float = 0.01,
@@ -390,19 +434,17 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
             seen += [int(math.floor(a * 256)), int(math.ceil(b * 256))]
             op += [max(int(math.floor(a * (1 - widen) * 256)), lo_q8),
                    min(int(math.ceil(b * (1 + widen) * 256)), hi_q8)]
-        dl = speed_offsets_q8(speed_hz, follow_refs_q8(op), lab)
-        cand = np.array([follows(i % pa) for i in params["det_feat"]], bool)
-        slopes, _ = follow_slopes(u, dl, lab, mask, cand)
-        if any(slopes):
-            sl = array("h", slopes)
-            for r in range(len(u)):
-                row = array("i", u[r].tolist())
-                dm.follow(row, sl, int(dl[r]), d)
-                u[r] = row
-        else:
-            slopes = []
+        refs = follow_refs_q8(op)
+        dl = speed_offsets_q8(speed_hz, refs, lab)
+        slopes = follow_slopes(u, dl, lab, mask, np.array([follows(i % pa) for i in params["det_feat"]], bool))[0]
+        _follow(u, slopes, dl, lab, 0)
+        dls = speed_offsets_q8(speed_hz, refs, lab, seen)
+        mslopes = mode_slopes(u, dls, lab, mask, np.array([follows_in_mode(i % pa) for i in params["det_feat"]], bool), k)
+        _follow(u, mslopes, dls, lab, d)
+        slopes = slopes if any(slopes) else []
+        mslopes = mslopes if any(mslopes) else []
     else:
-        k, lab = 1, np.zeros(len(u), int)
+        k, lab, mslopes = 1, np.zeros(len(u), int), []
     w = Welford(d)
     for row, mk in zip(u, mask):
         for j in range(d):
@@ -451,6 +493,7 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
         "det_mode_c_q8": [int(v) for v in np.clip(np.rint(centers), -dm.Z_LIM, dm.Z_LIM).ravel()],
         "det_mode_s_q8": [int(v) for v in np.clip(np.rint(spread), floor, dm.Z_LIM).ravel()],
         "det_op_speed_q8": op, "det_op_load_q8": [], "det_follow_q8": slopes, "det_op_seen_q8": seen,
+        "det_mfollow_q8": mslopes,
         "det_thr_alert_q8": int(alert),
         "det_thr_alarm_q8": int((alert * params["det_learn_alarm_q8"]) >> 8),
         "det_idle_vel_q16": idle,

@@ -122,7 +122,7 @@ def _probe_model(params: dict) -> dict:
     d = len(params["det_feat"])
     op = [0, (1 << 30) - 1] if params.get("fc_speed_hi_q8") else []
     return _mute(_with(params, det_modes=1, det_mode_c_q8=[0] * d, det_mode_s_q8=[256] * d,
-                       det_op_speed_q8=op, det_op_load_q8=[], det_op_seen_q8=[]))
+                       det_op_speed_q8=op, det_op_load_q8=[], det_op_seen_q8=[], det_mfollow_q8=[]))
 
 
 def _fill_half(feats: list[StreamFeatures], steps: list, p: dict) -> None:
@@ -993,6 +993,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         "modes": {"k": p["det_modes"], "criterion": MODE_CRITERION, "features": len(p["det_feat"]), "table": table,
                   "follow": [{"feature": units.feature_name(i, p, axis_names), "octaves_per_octave": v / 256}
                              for i, v in zip(p["det_feat"], p.get("det_follow_q8") or []) if v],
+                  "mode_follow": _mode_follow(p, axis_names),
                   "half_order": half_judged,
                   "half_clear_hz": orders.HALF_CLEAR_BINS * p["fs_hz"] / p["n"] if p["fc_speed_hi_q8"] else None},
         "thresholds": {
@@ -1026,6 +1027,16 @@ def _edges_text(board_bands: list[list[int]], p: dict) -> str:
         return "the board's, no shaft line of a mode on an edge"
     return ("moved off the shaft lines of the modes (" + ", ".join(moves) + "): a line on an edge would move in "
             "and out of a band with the speed, and the band would follow the speed, not the health")
+
+
+def _mode_follow(p: dict, axis_names: Sequence[str]) -> list[dict]:
+    """Each mode's own slopes (det_mfollow_q8) that are not 0, for the report: octaves of level per
+    octave of speed."""
+    v, feat = p.get("det_mfollow_q8") or [], p["det_feat"]
+    rows = [{"mode": m, "follow": [{"feature": units.feature_name(i, p, axis_names), "octaves_per_octave": s / 256}
+                                   for i, s in zip(feat, v[m * len(feat):(m + 1) * len(feat)]) if s]}
+            for m in range(len(v) // len(feat))]
+    return [r for r in rows if r["follow"]]
 
 
 def report_text(summary: dict) -> str:
@@ -1065,6 +1076,10 @@ def report_text(summary: dict) -> str:
                      + ", ".join(f"{f['feature']} {f['octaves_per_octave']:.1f}" for f in fo))
     elif s["modes"]["k"]:
         lines.append("    no level follows the speed within a mode clearly enough in this data: fixed centres")
+    for mf in s["modes"].get("mode_follow") or []:
+        lines.append(f"    mode {mf['mode']}: bands judged at the mode's own speed, within the speeds it was trained at "
+                     "(a shaft line moves across their edges as the speed moves): "
+                     + ", ".join(f"{f['feature']} {f['octaves_per_octave']:+.1f}" for f in mf["follow"]))
     if s["modes"].get("half_clear_hz"):
         lines.append(f"    0.5x line (looseness): judged only where the shaft turns at {s['modes']['half_clear_hz']:.1f} Hz "
                      f"or faster; slower, this window cannot tell it from the 1x line"
