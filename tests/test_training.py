@@ -188,6 +188,20 @@ def test_a_level_driven_by_a_force_that_grows_as_speed_squared_follows_the_speed
     assert dilution * ref.slope - room <= slope <= ref.slope + room
     assert any(f["feature"] == "accel_rms axis x" for f in summary["modes"]["follow"])
     assert "levels judged at each mode's own speed" in report_text(summary)
+    # the 1x (23.2-26.1 Hz, 3.7-4.2 bins of 6.25 Hz) has its Hann lobe across the 25 Hz edge
+    # between the 18.75-25 and 25-50 Hz bands: each band then follows the speed in the mode, the
+    # way the line's power moves between them. The direction from numpy's FFT of a Hann-windowed
+    # tone at the trims' ends (the reference): the 25-50 Hz band gains as the speed rises, the
+    # 18.75-25 Hz band loses
+    t = np.arange(params["n"])
+    def share(x, lo, hi):
+        spec = np.abs(np.fft.rfft(np.hanning(params["n"]) * np.sin(2 * np.pi * x * t / params["n"]))) ** 2
+        return spec[lo:hi].sum()
+    x0, x1 = (1480.0 / 60 * k * params["n"] / params["fs_hz"] for k in (trims.min(), trims.max()))
+    got = {f["feature"]: f["octaves_per_octave"] for f in summary["modes"]["mode_follow"][0]["follow"]}
+    for band, (lo, hi) in (("18.75-25", (3, 4)), ("25-50", (4, 8))):
+        assert np.sign(got[f"band {band} Hz axis x"]) == np.sign(np.log2(share(x1, lo, hi) / share(x0, lo, hi)))
+    assert "bands judged at the mode's own speed" in report_text(summary)
 
 
 def test_idle_floor_between_stopped_and_running_and_sensor_limits():
