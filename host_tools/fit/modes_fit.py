@@ -404,7 +404,10 @@ def fit(feats: np.ndarray, params: dict, speed_hz: np.ndarray | None = None, spe
     a group must come from MIN_MODE_STRETCHES recordings), and each mode's speed range
     (det_op_speed_q8) is its windows' range widened by twice that each side; the range itself,
     unwidened, is where the slow channel gathers evidence (det_op_seen_q8); the load proxy is
-    left open (docs/detector.md, Operating point). Without speed_hz: one mode and no operating
+    left open (docs/detector.md, Operating point); within the modes, the broadband levels' pooled
+    slopes on the speed (follow_slopes, det_follow_q8), then each mode's own band slopes on the
+    speed held within its trained speeds (mode_slopes, det_mfollow_q8), each taken out of the
+    windows with the device's modes.follow. Without speed_hz: one mode and no operating
     points. The baseline is the device's fixed-point Welford; z is standardised by the device's
     code; each mode's centroid and spread are its members' mean and standard deviation per
     feature, the spread floored at det_s_floor_q8. Thresholds: the chi-square tail point of the
