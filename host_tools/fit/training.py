@@ -991,8 +991,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
                     "hold_off_s": p["det_hold_ms"] / 1000, "envelope_band": p["fc_env_band"],
                     "bearing_orders": [v / 4096 for v in p["fc_bear_q12"]]},
         "modes": {"k": p["det_modes"], "criterion": MODE_CRITERION, "features": len(p["det_feat"]), "table": table,
-                  "follow": [{"feature": units.feature_name(i, p, axis_names), "octaves_per_octave": v / 256}
-                             for i, v in zip(p["det_feat"], p.get("det_follow_q8") or []) if v],
+                  "follow": _named_slopes(p, p.get("det_follow_q8") or [], axis_names),
                   "mode_follow": _mode_follow(p, axis_names),
                   "half_order": half_judged,
                   "half_clear_hz": orders.HALF_CLEAR_BINS * p["fs_hz"] / p["n"] if p["fc_speed_hi_q8"] else None},
@@ -1029,13 +1028,17 @@ def _edges_text(board_bands: list[list[int]], p: dict) -> str:
             "and out of a band with the speed, and the band would follow the speed, not the health")
 
 
+def _named_slopes(p: dict, slopes: Sequence[int], axis_names: Sequence[str]) -> list[dict]:
+    """The slopes (Q8, one per scored feature) that are not 0, named, for the report: octaves of
+    level per octave of speed."""
+    return [{"feature": units.feature_name(i, p, axis_names), "octaves_per_octave": v / 256}
+            for i, v in zip(p["det_feat"], slopes) if v]
+
+
 def _mode_follow(p: dict, axis_names: Sequence[str]) -> list[dict]:
-    """Each mode's own slopes (det_mfollow_q8) that are not 0, for the report: octaves of level per
-    octave of speed."""
-    v, feat = p.get("det_mfollow_q8") or [], p["det_feat"]
-    rows = [{"mode": m, "follow": [{"feature": units.feature_name(i, p, axis_names), "octaves_per_octave": s / 256}
-                                   for i, s in zip(feat, v[m * len(feat):(m + 1) * len(feat)]) if s]}
-            for m in range(len(v) // len(feat))]
+    """Each mode's own slopes (det_mfollow_q8) that are not 0, per mode, for the report."""
+    v, d = p.get("det_mfollow_q8") or [], len(p["det_feat"])
+    rows = [{"mode": m, "follow": _named_slopes(p, v[m * d:(m + 1) * d], axis_names)} for m in range(len(v) // d)]
     return [r for r in rows if r["follow"]]
 
 
