@@ -614,3 +614,24 @@ def test_fixed_point_score_against_a_float_reference():
         assert abs(det.score_q8 / 256 - ref) <= 0.02 * np.sqrt(d) + d / 256 / max(ref, 1)
         # the per-feature channel of the chosen mode: its largest rise, to the same budget
         assert abs(det.zmax_q8 / 256 - max(t[det.mode].max(), 0.0)) <= 0.02 + 1 / 64
+
+
+def test_the_operating_point_comes_from_an_axis_not_pinned_at_an_end_of_the_range():
+    # The estimator holds its 1x inside the search range (firmware_py/dsp/speed.py), so an
+    # estimate at an end is the range, not the shaft: an axial axis whose 2x outweighs its 1x
+    # reads a shaft above the range there (docs/evaluation.md, RW-1's night). The operating point
+    # comes from the most confident axis inside, whatever the pinned one's confidence; with every
+    # axis pinned, from the most confident.
+    from firmware_py.detect.detector import op_axis, pinned_limits_q8
+    pa = fi.per_axis(0)
+    lo, hi = pinned_limits_q8(16 * 256, 29 * 256, 3200, 512)
+    assert (lo, hi) == (16 * 256 + 13, 29 * 256 - 13)     # 2 steps of fs / n = 6.25 Hz-Q8 units
+    f = array("i", bytes(4 * 3 * pa))
+    for a, (sp, c) in enumerate(((29 * 256, 250), (17 * 256 + 128, 150), (17 * 256 + 120, 140))):
+        f[a * pa + fi.F_SPEED], f[a * pa + fi.F_SPEED_CONF] = sp, c
+    assert op_axis(f, 3, pa, lo, hi) == 1
+    f[pa + fi.F_SPEED] = 16 * 256                           # the bottom end: pinned too
+    assert op_axis(f, 3, pa, lo, hi) == 2
+    f[2 * pa + fi.F_SPEED] = 0                              # no estimate at all
+    assert op_axis(f, 3, pa, lo, hi) == 0                   # every estimate pinned: most confident
+    assert op_axis(f, 3, pa, 0, (1 << 30) - 1) == 0         # no search range: most confident

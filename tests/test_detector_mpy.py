@@ -178,14 +178,15 @@ p.update(det_flat_rms_q8=0, det_clip_max=BIG, det_dc_lo_q8=[-BIG, -BIG], det_dc_
          det_learn_op_q12=1, det_learn_margin_q8=4096, det_learn_alarm_q8=4096, det_dwell_ms=0,
          det_persist_ms=160, det_slam_q8=4096, det_slow_ms=600000,   # slow channel: weight
          det_follow_q8=[(-1) ** j * FOLLOW_MAX for j in range(d)],    # and time constant (4096
-         det_mfollow_q8=[(-1) ** (j + m) * FOLLOW_MAX for m in range(8) for j in range(d)])
+         det_mfollow_q8=[(-1) ** (j + m) * FOLLOW_MAX for m in range(8) for j in range(d)],
+         det_mslam_q8=[4096] * 8)
 det = Detector(p)                               # windows), the speed slopes, all at their largest
 assert det.ew_shift == 12
 # a twin that learns from the same absurd stream: no model yet and the guard out of reach, so
 # nothing latches and learning runs to its end
 p.update(det_iso_bounds=[BIG, BIG, BIG], det_modes=0, det_mode_c_q8=[], det_mode_s_q8=[],
          det_op_speed_q8=[], det_op_load_q8=[], det_op_seen_q8=[], det_follow_q8=[], det_mfollow_q8=[],
-         det_steady_ms=0)
+         det_mslam_q8=[], det_steady_ms=0)
 twin = Detector(p)
 VALS = (0, 1, 2, BIG, BIG - 1, 1 << 29, fi.LOG2_ZERO_Q8, -BIG, -1)
 NW = 400
@@ -252,6 +253,7 @@ p["det_mode_s_q8"] = [256] * (8 * d)
 p["det_follow_q8"] = [512] * d                  # every feature follows the speed
 p["det_mfollow_q8"] = [256] * (8 * d)           # and in every mode by a slope of its own
 p["det_op_seen_q8"] = [0, (1 << 30) - 1] * 8    # and every speed was trained at: every EWMA moves
+p["det_mslam_q8"] = [256 * (m + 1) for m in range(8)]   # each mode its own slow weight
 p["det_learn_base_n"] = 2
 p["det_learn_op_q12"] = 1
 det = Detector(p)

@@ -150,6 +150,42 @@ def test_each_mode_keeps_its_own_ewma_through_stops_and_a_sensor_fault_forgets_a
     assert det.state == al.SENSOR_FAULT and not any(det.ew_acc)
 
 
+def test_each_mode_weighs_its_slow_channel_by_its_own_weight():
+    # Two modes (under and over 25 Hz) with their own slow weights, 2 and 6 (det_mslam_q8), the
+    # pooled one 4: the same 1.5-spread step on feature 1 enters each window's score as
+    # smax * mslam[mode] / 256, the combination of docs/detector.md (Score); exported as given.
+    d, shift, delta = 2, 5, 1.5
+    p = _params(d, det_slow_ms=32 * W_MS, det_slam_q8=4 * 256, det_mslam_q8=[2 * 256, 6 * 256],
+                det_modes=2, det_mode_c_q8=[0] * 4, det_mode_s_q8=[256] * 4,
+                det_op_speed_q8=[0, 25 * 256, 25 * 256 + 1, 60 * 256], det_conf_min_q8=0)
+    det = Detector(p)
+    f = _frame(d)
+    f[fi.F_SPEED_CONF] = 200
+    f[fi.F_BAND0 + 1] = int(delta * SD)
+    for i, (hz, w) in enumerate([(20, 2)] * 40 + [(30, 6)] * 40):
+        f[fi.F_SPEED] = hz * 256
+        det.step(f, i, 0)
+        assert det.mode == (0 if hz == 20 else 1)
+        assert det.score_q8 == max(det.dist_q8, det.zmax_q8, (det.smax_q8 * w * 256) >> 8)
+    assert det.export()["det_mslam_q8"] == [512, 1536]
+    # without it, every mode weighs by det_slam_q8
+    det = Detector({**p, "det_mslam_q8": []})
+    for i in range(40):
+        f[fi.F_SPEED] = 30 * 256
+        det.step(f, i, 0)
+    assert det.score_q8 == max(det.dist_q8, det.zmax_q8, (det.smax_q8 * 4 * 256) >> 8)
+    assert det.export()["det_mslam_q8"] == []
+
+
+def test_mode_weights_are_checked():
+    base = _params(1, det_modes=2, det_mode_c_q8=[0, 0], det_mode_s_q8=[256, 256],
+                   det_op_speed_q8=[0, 25 * 256, 25 * 256 + 1, 60 * 256])
+    Detector({**base, "det_mslam_q8": [0, 4096]})
+    for bad in ([256], [256, 256, 256], [-1, 256], [256, 4097]):
+        with pytest.raises(ValueError):
+            Detector({**base, "det_mslam_q8": bad})
+
+
 def test_evidence_gathers_only_at_the_speeds_the_mode_was_trained_at():
     # One mode whose range (15-25 Hz) reaches past the speeds it was trained at (18-22 Hz,
     # det_op_seen_q8). Feature 0 stands 2 spreads up everywhere. Within the trained speeds the
@@ -430,3 +466,21 @@ def test_training_gains_from_ewma_spread():
     floor2 = lam / (2 - lam)
     q8b, _ = sgain_q8(np.array([floor2, 4.0, 1e-12]) * len(e), len(e), shift)
     assert q8b[2] == q8b[0] == 256 and q8b[1] == round(256 * np.sqrt(floor2) / 2)
+
+
+def test_training_weighs_each_mode_against_its_own_held_out_running():
+    # mslam_q8 makes slam_q8's match per mode. The persistence statistic (the k-th largest in a
+    # span) commutes with a positive factor, so a mode whose slow channel runs twice as high over
+    # the same per-feature channel gets half the weight, up to the floor to Q8 (the match itself
+    # is a ratio of quantiles: numpy's); a mode with nothing held out keeps the pooled weight; a
+    # set of one mode has no weights of its own.
+    from host_tools.fit.training import mslam_q8
+    p = _params(2, det_slow_ms=32 * W_MS, det_modes=3, det_mode_c_q8=[0] * 6, det_mode_s_q8=[256] * 6,
+                det_op_speed_q8=[0, 20 * 256, 20 * 256 + 1, 30 * 256, 30 * 256 + 1, 60 * 256])
+    rng = np.random.default_rng(8)
+    z = [np.abs(rng.normal(0, 600, 400)) for _ in range(6)]
+    s = [np.abs(rng.normal(0, 150, 400)) for _ in range(6)]
+    got, why = mslam_q8([(z, s), (z, [2.0 * c for c in s]), ([], [])], 1000, p, 1)
+    assert got[2] == 1000 and "mode 1" in why
+    assert abs(got[1] - got[0] / 2) <= 1                # both floored to Q8 from w and w / 2
+    assert mslam_q8([(z, s)], 1000, p, 1) == ([], "")

@@ -110,6 +110,27 @@ def test_band_edges_move_off_the_shaft_lines():
     assert mf.place_edges(p, [(12.0 * hz, 12.2 * hz)]) == [[4, 8], [8, 16], [16, 32]]
 
 
+def test_band_edges_are_kept_clear_over_the_trained_speeds():
+    # The evaluation pump RW-1 as trained on full 13 with the night scored (6 vanes, 512 samples
+    # at 3200 Hz, 6.25 Hz a bin): trained at 16.67-18.11, 20.04-21.58 and 23.90-25.24 Hz, its
+    # ranges widened to 16.55-20.33, 17.59-24.22 and 20.98-28.32 Hz. By the lobe rule above,
+    # over the widened ranges the edge at 16 finds no clear bin within a quarter of it (12-20:
+    # 12-13 and 14-15 held by the day duties' 3x, 15-20 by the night's vane pass); over the
+    # trained speeds the night's vane pass reaches 15.0-19.4 and the day duties' 3x at most 14.1,
+    # so the edge goes to 15. The edges at 8 and 32 stay (8: every bin 6-10 held by a 2x or 3x;
+    # 32: clear of every line).
+    from firmware_py.detect.detector import default_params
+    p = default_params(1, 2, 3200)
+    p.update(n=512, fs_hz=3200, fc_bands=[[8, 16], [16, 32]], fc_vane=6,
+             det_op_speed_q8=[4237, 5204, 4504, 6200, 5372, 7251],
+             det_op_seen_q8=[4268, 4637, 5131, 5525, 6119, 6462])
+    assert mf.edge_ranges_hz(p) == [(4268 / 256, 4637 / 256), (5131 / 256, 5525 / 256), (6119 / 256, 6462 / 256)]
+    assert mf.place_edges(p, mf.mode_ranges_hz(p)) == [[8, 16], [16, 32]]
+    assert mf.place_edges(p, mf.edge_ranges_hz(p)) == [[8, 15], [15, 32]]
+    # a set without trained speeds keeps the edges clear over the whole ranges
+    assert mf.edge_ranges_hz(dict(p, det_op_seen_q8=[])) == mf.mode_ranges_hz(p)
+
+
 def test_half_spread_bound_covers_the_true_spread():
     # mf.half_spread_bound against simulation alone: an EWMA of weight 2**-SHIFT over iid
     # normal block values (started stationary), each held for BLK / 2 windows as the device holds

@@ -90,6 +90,8 @@ PARAM_KEYS = (
     "det_zlam_q8",          # weight of the per-feature channel in the combined score, Q8
     "det_slow_ms",          # slow channel: EWMA time constant, nearest 2**shift analysed windows
     "det_slam_q8",          # weight of the slow channel in the combined score, Q8 (0 = off)
+    "det_mslam_q8",         # k: each mode's own weight of the slow channel, Q8 ([] = det_slam_q8
+                            # in every mode)
     "det_sgain_q8",         # per scored feature, the weight of its EWMA in the slow channel, Q8
     "det_follow_q8",        # per scored feature, its slope on log2 of the speed, Q8 ([] = none)
     "det_mfollow_q8",       # k x d, mode-major: each mode's own slope of each scored feature on
@@ -138,9 +140,10 @@ PARAM_KEYS = (
 # without det_sgain_q8 (or with it empty) every feature's EWMA weighs 256 (1), as before;
 # without det_follow_q8 (or with it empty) no level follows the speed, as before; without
 # det_op_seen_q8 (or with it empty) the slow channel gathers evidence anywhere in a mode's range;
-# without det_mfollow_q8 (or with it empty) no mode has slopes of its own
+# without det_mfollow_q8 (or with it empty) no mode has slopes of its own; without det_mslam_q8
+# (or with it empty) every mode weighs its slow channel by det_slam_q8
 LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8", "det_follow_q8", "det_op_seen_q8",
-              "det_mfollow_q8")
+              "det_mfollow_q8", "det_mslam_q8")
 SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
 _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
 # A mode's slow-channel evidence halves for every full SLOW_HALF_S seconds it was not scored
@@ -148,6 +151,41 @@ _SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 
 SLOW_HALF_S = const(3600)
 _CLOCK_REBASE = const(1 << 29)   # the detector's clock (s) is moved back by 2**28 past this
 _GAP_MAX_S = const(1 << 24)      # longest gap counted at once (194 days): the clock stays small
+
+PIN_STEPS = const(2)   # an estimate this close to an end of the 1x search range (bins-Q8 steps) is the range
+
+
+def pinned_limits_q8(lo_q8, hi_q8, fs, n):
+    """The least and greatest speed estimate (Hz Q8) that is a measurement, not an end of the
+    search range [lo_q8, hi_q8] (Hz Q8; hi 0: no search, every speed counts): the estimator
+    clamps its 1x (bins Q8) to the range, so a pinned estimate is an end itself, up to the
+    conversion to Hz Q8, one bins-Q8 step being fs / n Hz-Q8 units; PIN_STEPS of them of room.
+    fs, n < 2**20, so PIN_STEPS * fs stays small."""
+    if not hi_q8:
+        return 0, _BIG
+    room = (PIN_STEPS * fs) // n
+    return lo_q8 + room + 1, hi_q8 - room - 1
+
+
+def op_axis(f, axes, pa, lo_q8, hi_q8):
+    """The axis whose speed estimate gives the operating point of features f (axes of pa
+    fields): the most confident of those with an estimate inside [lo_q8, hi_q8]
+    (pinned_limits_q8), else the most confident with one; 0 if none has one."""
+    best = 0
+    conf = -1
+    free = False                      # the best so far reads a speed inside the range
+    for a in range(axes):
+        c = f[a * pa + fi.F_SPEED_CONF]
+        s = f[a * pa + fi.F_SPEED]
+        if s <= 0:
+            continue
+        inside = lo_q8 <= s <= hi_q8
+        if (inside and not free) or (inside == free and c > conf):
+            conf = c
+            best = a
+            free = inside
+    return best
+
 
 # why a window was not scored (det.why; 0 = scored); det.n_why counts each, saturating
 W_SCORED = const(0)
@@ -322,6 +360,10 @@ class Detector:
         self.op_load_q8 = array("i", bytes(8 * KMAX))
         self.op_seen_q8 = array("i", bytes(8 * KMAX))
         self.op_on = self._load_op(p, k)
+        # an axis whose estimate is pinned at an end of the search range does not give the
+        # operating point (the axial axis reads a 2x beyond the range as its top end)
+        self.pin_lo_q8, self.pin_hi_q8 = pinned_limits_q8(p.get("fc_speed_lo_q8") or 0,
+                                                          p.get("fc_speed_hi_q8") or 0, fs, n)
         self.seen_on = self._load_seen(p, k)
         self.cand = ModeModel(d)                  # the model being learned
         self.mean0_q4 = array("i", self.model.mean_q4)  # trained baseline, the drift anchor
@@ -329,6 +371,16 @@ class Detector:
         self.zlam_q8 = _int(p, "det_zlam_q8", 0, 1 << 12)
         q = {k: p.get(k, 0) for k in LATER_KEYS}
         self.slam_q8 = _int(q, "det_slam_q8", 0, 1 << 12)
+        # per mode, the slow channel's own weight (same units): matched on that mode's held-out
+        # running, so a duty whose averages wander more does not lower the weight of the others
+        self.mslam_q8 = array("h", bytes(2 * KMAX))
+        self.mslam_on = len(p.get("det_mslam_q8") or []) > 0
+        if self.mslam_on:
+            v = _ints(p, "det_mslam_q8", k)
+            for m in range(k):
+                if not 0 <= v[m] <= 1 << 12:
+                    raise ValueError("det_mslam_q8 must hold ints in [0, 4096]")
+                self.mslam_q8[m] = v[m]
         # per-feature slow weights, Q8: each feature's EWMA against its own healthy spread
         g = p.get("det_sgain_q8") or [256] * d
         self.sgain_q8 = _ints({"det_sgain_q8": g}, "det_sgain_q8", d)
@@ -686,21 +738,16 @@ class Detector:
 
     def _operating_point(self, f):
         """Speed (Hz Q8), its confidence (Q8) and the load proxy (log2 Q8) of this window, from
-        the axis with the most confident speed estimate. Load proxy: the vane-pass line's power
+        the axis op_axis picks. Load proxy: the vane-pass line's power
         less 4 log2 of the speed, log2 Q8. By the pump affinity laws pressure pulsation, and so
         the force and acceleration at vane pass, grow as speed squared (power as speed**4), so
         what remains after dividing by speed**4 follows the hydraulic duty (flow against the
         best-efficiency point), and none of the five mechanical faults acts on that line
         (docs/detector.md, Operating point)."""
         pa = self.pa
-        best = 0
-        conf = -1
-        for a in range(self.axes):
-            c = f[a * pa + fi.F_SPEED_CONF]
-            if c > conf and f[a * pa + fi.F_SPEED] > 0:
-                conf = c
-                best = a
+        best = op_axis(f, self.axes, pa, self.pin_lo_q8, self.pin_hi_q8)
         self.op_axis = best
+        conf = f[best * pa + fi.F_SPEED_CONF] if f[best * pa + fi.F_SPEED] > 0 else -1
         b = best * pa
         sp = f[b + fi.F_SPEED]
         sp = sp if sp < _SPEED_MAX else _SPEED_MAX
@@ -773,11 +820,9 @@ class Detector:
             return 0
         return t[k >> 1]
 
-    def _choose_mode(self):
-        """The trained mode whose operating-point range holds this window's speed and load
-        (the nearest speed centre if several do); -1 if none."""
-        sp = self.speed_q8
-        ld = self.load_q8
+    def mode_at(self, sp, ld):
+        """The trained mode whose operating-point range holds the speed sp (Hz Q8) and load ld
+        (log2 Q8) (the nearest speed centre if several do); -1 if none."""
         best = -1
         gap = _BIG
         for m in range(self.model.k):
@@ -888,7 +933,7 @@ class Detector:
             if self.model.k == 0:
                 why = W_NO_MODEL
             elif self.op_on:
-                m = self._choose_mode()
+                m = self.mode_at(self.speed_q8, self.load_q8)
                 why = W_SCORED if m >= 0 else W_OFF_POINT
             else:
                 self._transform(f)
@@ -957,7 +1002,7 @@ class Detector:
         dist = md.distance(self.z, m)
         self._slow(m)
         zc = (md.zmax_q8 * self.zlam_q8) >> 8
-        sc = (self.smax_q8 * self.slam_q8) >> 8
+        sc = (self.smax_q8 * (self.mslam_q8[m] if self.mslam_on else self.slam_q8)) >> 8
         self.dist_q8 = dist
         self.zmax_q8 = md.zmax_q8
         self.score_q8 = dist if dist >= zc else zc
@@ -1189,6 +1234,7 @@ class Detector:
         self.seen_on = self.l_op                          # the speeds it learned each mode at
         self.follow_on = False                            # learned here: fixed centroids
         self.mfollow_on = False
+        self.mslam_on = False                             # one weight for the modes learned here
         self._refs()
         self.thr_alert_q8 = (CHI_Q8[d - 1] * self.margin_q8) >> 8
         self.thr_alarm_q8 = (self.thr_alert_q8 * self.alarm_ratio_q8) >> 8
@@ -1217,6 +1263,7 @@ class Detector:
             "det_op_seen_q8": list(self.op_seen_q8)[:2 * m.k] if self.seen_on else [],
             "det_follow_q8": list(self.follow_q8) if self.follow_on else [],
             "det_mfollow_q8": list(self.mfollow_q8)[:kd] if self.mfollow_on else [],
+            "det_mslam_q8": list(self.mslam_q8)[:m.k] if self.mslam_on else [],
             "det_thr_alert_q8": self.thr_alert_q8, "det_thr_alarm_q8": self.thr_alarm_q8,
             "det_idle_vel_q16": self.idle_vel_q16,
         }
@@ -1234,6 +1281,7 @@ def footprint_bytes(axes):
     # accumulators of every mode (ew_acc), 4 byte arrays (logf, ord_axis, held, half_axis), the
     # int16 follow slopes and those of every mode (mfollow_q8)
     feat_b = 4 * 5 * d + 4 * d * KMAX + 4 * d + 2 * d + 2 * d * KMAX
+    feat_b += 2 * KMAX                            # mslam_q8: each mode's slow weight, int16
     model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
     learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
         + welford.footprint_bytes(KMAX)           # wb, wm, lsp

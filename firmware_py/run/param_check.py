@@ -120,6 +120,8 @@ def validate(p, profile):
         _int_list(p, "det_op_seen_q8", 2 * k_modes)
     if p.get("det_mfollow_q8"):                           # absent or [] = no mode's own slopes
         _int_list(p, "det_mfollow_q8", k_modes * d)
+    if p.get("det_mslam_q8"):                             # absent or [] = det_slam_q8 in every mode
+        _int_list(p, "det_mslam_q8", k_modes)
     for k in _AXIAL:
         _int_list(p, k, p["axes"])
     for k, hi in _RANGED:

@@ -19,7 +19,7 @@ from scipy.stats import chi2
 import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.dsp import feature_index as fi, orders, tables
 from firmware_py.detect import half_lines as hl, modes as dm
-from firmware_py.detect.detector import CHI_Q8
+from firmware_py.detect.detector import CHI_Q8, pinned_limits_q8 as pinned_limits
 from firmware_py.detect.half_lines import BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
 from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
@@ -101,7 +101,6 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
 
 STRAY_DIV = 200         # up to 1 window in 200 may stray into a gap between set points
 STRAY_Q = 0.005         # a mode's speed range: its windows' 0.5-99.5 % points (strays left out), widened
-PIN_STEPS = 2           # an estimate this close to an end of the search range (bins-Q8 steps) is the range, not the shaft
 
 
 def pinned_limits_q8(params: dict) -> tuple[int, int]:
@@ -111,13 +110,8 @@ def pinned_limits_q8(params: dict) -> tuple[int, int]:
     but not a speed, and windows of different operating points share it. Keeping the ends out of
     every mode leaves such windows unscored (off_point) instead of judging them against the
     wrong mode."""
-    lo, hi = params.get("fc_speed_lo_q8") or 0, params.get("fc_speed_hi_q8") or 0
-    if not hi:
-        return 0, (1 << 30) - 1
-    # the estimator clamps its 1x (bins Q8) to the range, so a pinned speed is an end itself, up to
-    # the conversion to Hz Q8: one bins-Q8 step is fs / n Hz-Q8 units; PIN_STEPS of them of room
-    step = params["fs_hz"] / params["n"]
-    return int(math.floor(lo + PIN_STEPS * step)) + 1, int(math.ceil(hi - PIN_STEPS * step)) - 1
+    return pinned_limits(params.get("fc_speed_lo_q8") or 0, params.get("fc_speed_hi_q8") or 0,
+                         params["fs_hz"], params["n"])
 
 
 @functools.lru_cache(maxsize=1)
@@ -273,6 +267,20 @@ def mode_ranges_hz(params: dict) -> list[tuple[float, float]]:
     """The learned modes' speed ranges (det_op_speed_q8), Hz."""
     op = params.get("det_op_speed_q8") or []
     return [(op[2 * i] / 256.0, op[2 * i + 1] / 256.0) for i in range(len(op) // 2)]
+
+
+def edge_ranges_hz(params: dict) -> list[tuple[float, float]]:
+    """The speeds place_edges keeps the band edges clear over, Hz: each mode's trained speeds
+    (det_op_seen_q8), where the slow channel gathers its evidence and would find the lasting
+    offset of a band gaining part of a line; the modes' whole ranges (mode_ranges_hz) for a set
+    without them. A mode's range reaches twice the steady tolerance past its trained speeds, and
+    an unsteady duty widens it to where no edge is clear (docs/evaluation.md, "The night's edge
+    kept clear over its trained speeds"); there windows are judged one by one, where a few dB are
+    a few spreads."""
+    seen = params.get("det_op_seen_q8") or []
+    if not seen:
+        return mode_ranges_hz(params)
+    return [(seen[2 * i] / 256.0, seen[2 * i + 1] / 256.0) for i in range(len(seen) // 2)]
 
 
 FOLLOW_T = 4.0          # a slope is kept only this many standard errors from 0

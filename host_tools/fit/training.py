@@ -49,7 +49,7 @@ import firmware_py  # noqa: F401  (installs the micropython stand-in)
 from firmware_py.detect import alarm as al, modes as dm
 from firmware_py.dsp import feature_index as fi, orders, speed
 from firmware_py.run import params as pm
-from firmware_py.detect.detector import W_IDLE, W_SCORED, Detector, default_feature_list
+from firmware_py.detect.detector import W_IDLE, W_SCORED, Detector, default_feature_list, op_axis
 from firmware_py.detect.iso_zones import ZONE_C
 from host_tools.data.bearing import BearingGeometry, defect_orders, geometry_from_record
 from host_tools.fit import modes_fit, raise_rate, sensor_fit
@@ -122,7 +122,7 @@ def _probe_model(params: dict) -> dict:
     d = len(params["det_feat"])
     op = [0, (1 << 30) - 1] if params.get("fc_speed_hi_q8") else []
     return _mute(_with(params, det_modes=1, det_mode_c_q8=[0] * d, det_mode_s_q8=[256] * d,
-                       det_op_speed_q8=op, det_op_load_q8=[], det_op_seen_q8=[], det_mfollow_q8=[]))
+                       det_op_speed_q8=op, det_op_load_q8=[], det_op_seen_q8=[], det_mfollow_q8=[], det_mslam_q8=[]))
 
 
 def _fill_half(feats: list[StreamFeatures], steps: list, p: dict) -> None:
@@ -185,30 +185,43 @@ class _Channels:
 class _Held:
     """Held-out evidence of one fold: sequences of the combined score, of the per-feature channel
     (over the slow channel's features, _Channels) weighted by det_zlam_q8 and of the slow channel
-    before det_slam_q8 (Q8 spreads); and per scored feature the sum of squared EWMAs and their
-    count (_Channels)."""
+    before det_slam_q8 (Q8 spreads); the last two again per mode of the full model (by_mode[m]:
+    its windows only); and per scored feature the sum of squared EWMAs and their count
+    (_Channels)."""
 
     combined: list[np.ndarray]
     per_feature: list[np.ndarray]
     slow: list[np.ndarray]
+    by_mode: list[tuple[list[np.ndarray], list[np.ndarray]]]
     ew_ss: np.ndarray
     ew_n: int
 
 
 def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: list[np.ndarray] | None,
-              sequences: bool = True) -> _Held:
+              sequences: bool = True, full: Detector | None = None) -> _Held:
     """Evidence of the muted set over the streams (windows in `select` only): see _Held.
-    sequences=False: only the EWMA sums (the evidence sequences stay empty)."""
-    out = _Held([], [], [], np.zeros(len(params["det_feat"])), 0)
+    sequences=False: only the EWMA sums (the evidence sequences stay empty). full: the full
+    model's detector, whose mode each scored window's operating point falls in (Detector.mode_at)
+    sorts by_mode; a fold's model learned its own modes, so its numbers do not name them."""
+    k = full.model.k if full is not None and full.op_on else 0
+    out = _Held([], [], [], [([], []) for _ in range(k)], np.zeros(len(params["det_feat"])), 0)
     zlam = params["det_zlam_q8"] / 256.0
     for i, sf in enumerate(feats):
         sel = None if select is None else select[i]
         ch = _Channels(Detector(_mute(params), every), sel)
         st = step_detector(ch, sf.feats, 0, _gaps(sf, params, every))
         if sequences:
+            zst, sst = replace(st, score_q8=np.array(ch.zmax)), replace(st, score_q8=np.array(ch.smax))
             out.combined.extend(evidence_sequences(st, sel))
-            out.per_feature.extend(c * zlam for c in evidence_sequences(replace(st, score_q8=np.array(ch.zmax)), sel))
-            out.slow.extend(evidence_sequences(replace(st, score_q8=np.array(ch.smax)), sel))
+            out.per_feature.extend(c * zlam for c in evidence_sequences(zst, sel))
+            out.slow.extend(evidence_sequences(sst, sel))
+            if k:
+                # the full model's mode of each scored window (its load proxy is open: 0 serves)
+                fm = np.array([full.mode_at(int(v), 0) if m >= 0 else -1 for v, m in zip(st.speed_q8, st.mode)])
+                for m, (zs, ss) in enumerate(out.by_mode):
+                    keep = fm == m if sel is None else sel & (fm == m)
+                    zs.extend(c * zlam for c in evidence_sequences(zst, keep))
+                    ss.extend(evidence_sequences(sst, keep))
         out.ew_ss += ch.ew_ss
         out.ew_n += ch.ew_n
     return out
@@ -260,6 +273,38 @@ def slam_q8(zseqs: list[np.ndarray], sseqs: list[np.ndarray], p: dict, every: in
     return q8, (f"weight {q8 / 256:.2f}: the slow channel's persistence statistic stays at or under the "
                 f"per-feature channel's at its {', '.join(f'{100 * q:g} %' for q in raise_rate.MATCH_LEVELS)} "
                 "points on held-out healthy running")
+
+
+def mslam_q8(by_mode: list[tuple[list[np.ndarray], list[np.ndarray]]], slam: int, p: dict,
+             every: int) -> tuple[list[int], str]:
+    """Each mode's own weight of the slow channel, Q8 (det_mslam_q8): slam_q8's match made on
+    that mode's held-out windows alone (by_mode[m]: their per-feature and slow sequences), so that
+    in each mode the slow channel alone crosses the alert threshold no more often than the
+    per-feature channel does there, and over all modes no more often than it does overall. A mode
+    with nothing to match keeps slam. [] and no text for a set of one mode or none (det_slam_q8
+    serves)."""
+    if len(by_mode) < 2 or not slam:
+        return [], ""
+    det = Detector(p, every)
+    out = []
+    for zs, ss in by_mode:
+        w = raise_rate.matched_weight(zs, ss, det.alarm.ev.span, det.alarm.k)
+        q8 = min(int(math.floor(256 * w)), 1 << 12)
+        out.append(q8 if q8 > 0 else slam)
+    return out, ("each mode its own weight, matched on its own held-out running, so that a duty whose "
+                 "averages wander more does not lower the others': "
+                 + ", ".join(f"mode {m} {v / 256:.2f}" for m, v in enumerate(out)))
+
+
+def _fold_mslam(pf: dict, full: Detector, mslam: list[int], slam: int) -> list[int]:
+    """det_mslam_q8 for a fold's model, whose modes are its own: each takes the weight of the
+    full model's mode its range centre falls in (Detector.mode_at), the pooled slam where none
+    does; [] when the full model has one weight."""
+    if not mslam:
+        return []
+    op = pf.get("det_op_speed_q8") or []
+    at = [full.mode_at((op[2 * m] >> 1) + (op[2 * m + 1] >> 1), 0) for m in range(len(op) // 2)]
+    return [mslam[a] if a >= 0 else slam for a in at] if len(at) == pf["det_modes"] else []
 
 
 def _dc_range(feats: np.ndarray, params: dict, profile: dict) -> tuple[list[int], list[int]]:
@@ -450,12 +495,14 @@ def _envelope_band(base: dict, top_hz: float) -> tuple[list[int], str]:
 
 def _op_of(sf: StreamFeatures, params: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Speed (Hz), confidence (Q8) and broadband level (log2 of F_VEL) of each window, from the
-    axis with the most confident speed estimate, as the device picks it."""
+    axis the device's op_axis picks (the most confident estimate not pinned at an end of the
+    search range, else the most confident)."""
     pa = fi.per_axis(len(params["fc_bands"]))
     axes = params["axes"]
     conf = sf.feats[:, fi.F_SPEED_CONF::pa][:, :axes]
     sp = sf.feats[:, fi.F_SPEED::pa][:, :axes]
-    best = np.argmax(np.where(sp > 0, conf, -1), axis=1)
+    lo, hi = modes_fit.pinned_limits_q8(params)
+    best = np.array([op_axis(row, axes, pa, lo, hi) for row in sf.feats.tolist()], dtype=np.int64)
     rows = np.arange(len(best))
     vel = sf.feats[:, fi.F_VEL::pa][:, :axes].max(1)
     return sp[rows, best] / 256.0, conf[rows, best].astype(float), np.log2(np.maximum(vel, 1))
@@ -909,7 +956,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         warnings.append("a single recording: thresholds come from the model's own training windows (optimistic)")
     p = _with(p, **fits[-1])
     if bands is None:      # the modes are known: train again at once if they put a line on an edge
-        moved = modes_fit.place_edges(p, modes_fit.mode_ranges_hz(p))
+        moved = modes_fit.place_edges(p, modes_fit.edge_ranges_hz(p))
         if moved != board_bands:
             bar.close()
             return train(recordings, profile, false_alerts_per_month, version, folds, jobs, bearing, progress, moved)
@@ -921,13 +968,17 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     p["det_sgain_q8"] = gains
     fold_sets = [(f, _with(pf, det_sgain_q8=gains)) for f, pf in fold_sets]
     held = [(_with(pf, det_sgain_q8=gains), sel) for pf, sel in held]
-    parts = [_held_out(pf, feats, every, sel) for pf, sel in held]
+    full = Detector(p, every)
+    parts = [_held_out(pf, feats, every, sel, full=full) for pf, sel in held]
     slam, learned["slow_channel"] = slam_q8([c for h in parts for c in h.per_feature],
                                             [c for h in parts for c in h.slow], p, every)
-    p["det_slam_q8"] = slam
-    fold_sets = [(f, _with(pf, det_slam_q8=slam)) for f, pf in fold_sets]
+    mslam, learned["slow_by_mode"] = mslam_q8([([c for h in parts for c in h.by_mode[m][0]],
+                                                [c for h in parts for c in h.by_mode[m][1]])
+                                               for m in range(full.model.k if full.op_on else 0)], slam, p, every)
+    p["det_slam_q8"], p["det_mslam_q8"] = slam, mslam
+    fold_sets = [(f, _with(pf, det_slam_q8=slam, det_mslam_q8=_fold_mslam(pf, full, mslam, slam))) for f, pf in fold_sets]
     if slam:
-        held = [(_with(pf, det_slam_q8=slam), sel) for pf, sel in held]
+        held = [(_with(pf, det_slam_q8=slam, det_mslam_q8=_fold_mslam(pf, full, mslam, slam)), sel) for pf, sel in held]
         seqs = [c for pf, sel in held for c in _held_out(pf, feats, every, sel).combined]
     else:
         seqs = [c for h in parts for c in h.combined]
@@ -1092,7 +1143,8 @@ def report_text(summary: dict) -> str:
                  f"alarm only after {t['escalation_s']:g} s in alert")
     at = " at the speeds each mode was trained at" if any(m.get("trained_hz") for m in s["modes"]["table"]) else ""
     lines.append(f"  a small lasting rise of one feature, averaged over the last {t['slow_s']:g} s of judged running{at}, "
-                 f"counts {t['slow_weight']:.2f} times ({lr['slow_channel']}); {lr['slow_gains']}")
+                 f"counts {t['slow_weight']:.2f} times ({lr['slow_channel']}); {lr['slow_gains']}"
+                 + (f"; {lr['slow_by_mode']}" if lr.get("slow_by_mode") else ""))
     lines.append(f"    method: {t['method']}; {t['validation']}")
     lines.append(f"    alarm: {t['alarm_rule']}")
     if t.get("expected_false_alerts_per_30_days") is not None:
