@@ -274,9 +274,8 @@ def edge_ranges_hz(params: dict) -> list[tuple[float, float]]:
     (det_op_seen_q8), where the slow channel gathers its evidence and would find the lasting
     offset of a band gaining part of a line; the modes' whole ranges (mode_ranges_hz) for a set
     without them. A mode's range reaches twice the steady tolerance past its trained speeds, and
-    an unsteady duty widens it to where no edge is clear (docs/evaluation.md, "The night's edge
-    kept clear over its trained speeds"); there windows are judged one by one, where a few dB are
-    a few spreads."""
+    an unsteady duty widens it to where no edge is clear (docs/evaluation.md, "The night
+    scored"); there windows are judged one by one, where a few dB are a few spreads."""
     seen = params.get("det_op_seen_q8") or []
     if not seen:
         return mode_ranges_hz(params)

@@ -285,12 +285,7 @@ def mslam_q8(by_mode: list[tuple[list[np.ndarray], list[np.ndarray]]], slam: int
     serves)."""
     if len(by_mode) < 2 or not slam:
         return [], ""
-    det = Detector(p, every)
-    out = []
-    for zs, ss in by_mode:
-        w = raise_rate.matched_weight(zs, ss, det.alarm.ev.span, det.alarm.k)
-        q8 = min(int(math.floor(256 * w)), 1 << 12)
-        out.append(q8 if q8 > 0 else slam)
+    out = [slam_q8(zs, ss, p, every)[0] or slam for zs, ss in by_mode]
     return out, ("each mode its own weight, matched on its own held-out running, so that a duty whose "
                  "averages wander more does not lower the others': "
                  + ", ".join(f"mode {m} {v / 256:.2f}" for m, v in enumerate(out)))
@@ -974,7 +969,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
                                             [c for h in parts for c in h.slow], p, every)
     mslam, learned["slow_by_mode"] = mslam_q8([([c for h in parts for c in h.by_mode[m][0]],
                                                 [c for h in parts for c in h.by_mode[m][1]])
-                                               for m in range(full.model.k if full.op_on else 0)], slam, p, every)
+                                               for m in range(len(parts[0].by_mode))], slam, p, every)
     p["det_slam_q8"], p["det_mslam_q8"] = slam, mslam
     fold_sets = [(f, _with(pf, det_slam_q8=slam, det_mslam_q8=_fold_mslam(pf, full, mslam, slam))) for f, pf in fold_sets]
     if slam:
