@@ -25,9 +25,10 @@ F_SPEED = const(9)
 # lowest 1x candidate to three above the highest 3x one), times 256. 256: nothing but the family
 # there; white noise alone reads about 9 bins' share of that span.
 F_SPEED_CONF = const(10)
-# Order amplitudes: log2 of the mean square (counts**2), Q8, of the Hann main lobe (the 4 bins
-# within 2 bins of order x F_SPEED, summed, so the leakage of the window is accounted for; a
-# tone of amplitude A reads log2(A**2 / 2)). Same scale as the band powers (firmware_py/dsp/orders.py).
+# Order amplitudes: log2 of the mean square (counts**2), Q8, of the line at order x F_SPEED: the
+# two bins that bracket it, with the part of the Hann main lobe they miss restored (the window's
+# scalloping loss), so a tone of amplitude A reads log2(A**2 / 2) and a line 3 bins away adds
+# nothing. Same scale as the band powers (firmware_py/dsp/orders.py).
 F_ORD_HALF = const(11)   # 0.5x
 F_ORD_1X = const(12)     # 1x
 F_ORD_2X = const(13)     # 2x

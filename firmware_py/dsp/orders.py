@@ -3,16 +3,24 @@
 #
 # Entry point: OrderReader(m, vane, p).run(f1_q8, c_q8, f, off) writes F_ORD_HALF..F_ORD_VANE.
 #
-# Leakage: a tone at position x (bins) spreads over the Hann main lobe, the bins with |k - x| < 2:
-# the 4 bins floor(x)-1 .. floor(x)+2. They hold the whole tone for x on a bin and 99.9 % of it
-# at half a bin (1.4987 of 1.5, the periodic Hann window's equivalent noise bandwidth in bins,
-# common practice; the same 1.5 as HANN_ENBW_BINS in host_tools/data/lines.py). Their sum,
-# scaled like a band power (4/3 * 2**-2u: Hann power normalisation, which divides by that 1.5
-# and doubles for one side), is the tone's mean square A**2 / 2 in counts**2.
+# Read: a tone at position x (bins) spreads over the Hann main lobe, the bins with |k - x| < 2,
+# 1.5 bins' worth of power (the periodic Hann window's equivalent noise bandwidth, common
+# practice; HANN_ENBW_BINS in host_tools/data/lines.py). Only the two bins that bracket it,
+# floor(x) and floor(x) + 1, are read, and the part of the lobe they hold is restored from the
+# window's kernel (scallop_q8: + 15 to 67 Q8, the scalloping loss; Harris, "On the use
+# of windows for harmonic analysis with the discrete Fourier transform", Proc. IEEE 66, 1978).
+# Why not the whole lobe: the lines of a slow shaft lie 2 to 4 bins apart, and a 4-bin read
+# reaches into the neighbouring line's main lobe. On a weak axis the 2x read was then mostly the
+# 1x's leakage, which swings with the fraction of a bin the speed sits at (docs/evaluation.md,
+# "Order lines read clear of their neighbours"). The two bracketing bins lie at least D - 1 bins
+# from a line D bins away, so they are clear of its main lobe for D >= 3, and for 2x next to a 1x
+# of 2.5 bins or more. The sum, scaled like a band power (4/3 * 2**-2u: Hann power normalisation,
+# which divides by that 1.5 and doubles for one side), is the tone's mean square A**2 / 2 in
+# counts**2.
 #
-# Scales: p[k] <= 2**28 (fft.spectrum), a 4-bin sum < 2**30; f1_q8: 1x in bins Q8 (speed.py);
-# output log2 of counts**2, Q8, as the band powers. Two orders closer than 4 bins share bins:
-# 0.5x is clean of 1x only from 1x >= HALF_CLEAR_BINS (docs/fixed-point.md).
+# Scales: p[k] <= 2**28 (fft.spectrum), a 2-bin sum < 2**29; f1_q8: 1x in bins Q8 (speed.py);
+# output log2 of counts**2, Q8, as the band powers. 0.5x is clean of 1x only from 1x >=
+# HALF_CLEAR_BINS (docs/fixed-point.md).
 from micropython import const
 
 from firmware_py.dsp.feature_index import (
@@ -21,9 +29,26 @@ from firmware_py.dsp.fft import power_sum
 from firmware_py.dsp.fixmath import log2_q8
 
 # The lowest 1x (bins) whose 0.5x read lies clear of the 1x's main lobe: the read's top bin,
-# floor(f/2) + 2, must lie 2 bins or more under f, which holds for every f >= 7 (at 6 <= f < 7
-# it is bin 5, 1 to 2 bins under f). Training scores the 0.5x line only from there.
-HALF_CLEAR_BINS = const(7)
+# floor(f/2) + 1, must lie 2 bins or more under f, which holds for every f >= 5 (at 4 <= f < 5
+# it is bin 3, 1 to 2 bins under f). Training scores the 0.5x line only from there.
+HALF_CLEAR_BINS = const(5)
+
+# The scalloping loss of the two-bin read: 256 log2(1.5 / (W(d)**2 + W(1 - d)**2)), with d the
+# line's fraction of a bin above the lower bin and W the Hann kernel sin(pi d) / (pi d (1 - d**2))
+# (Harris 1978; 1.5 bins is the lobe's whole power). It depends on d only through
+# e = d (1 - d) and is a quadratic in e to within 0.019 LSB: coefficients least-squares fitted to
+# the formula at the 256 values of d, Q16 (tests/test_orders_envelope.py checks it).
+_SC0 = const(4412599)
+_SC1 = const(-222)
+_SC2 = const(48)
+
+
+def scallop_q8(d):
+    """log2 Q8 to add to the two bins' power for a line d/256 of a bin above the lower one
+    (0 <= d < 256): 67 on a bin, 15 at half a bin. e = d (256 - d) <= 2**14 (Q16), e**2 < 2**29.
+    Integer ops only, so numpy arrays of d give the same values (the host twin)."""
+    e = d * (256 - d)
+    return (_SC0 + _SC1 * e + _SC2 * ((e * e) >> 16) + 32768) >> 16
 
 
 def check_vane(n, fs_hz, vane, hi_q8):
@@ -60,7 +85,8 @@ class OrderReader:
         f[off + F_ORD_VANE] = self._lobe(self.vane * f1_q8, c) if self.vane else LOG2_ZERO_Q8
 
     def _lobe(self, x_q8, c):
-        """log2 Q8 of the mean square in the Hann main lobe around x_q8 (bins Q8)."""
+        """log2 Q8 of the mean square in the Hann main lobe around x_q8 (bins Q8), from the two
+        bins that bracket it."""
         k = x_q8 >> 8
-        s = power_sum(self.p, k - 1, k + 3)      # viper on the boards (fft.power_sum)
-        return log2_q8(s, self.log2_q15) + c if s > 0 else LOG2_ZERO_Q8
+        s = power_sum(self.p, k, k + 2)          # viper on the boards (fft.power_sum)
+        return log2_q8(s, self.log2_q15) + c + scallop_q8(x_q8 & 255) if s > 0 else LOG2_ZERO_Q8

@@ -184,8 +184,8 @@ def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarr
 
 def set_aside(params: dict, lo_hz: float) -> list[int]:
     """Positions j in det_feat that a mode whose slowest speed is lo_hz cannot read: the 0.5x
-    lines when 1x lies under orders.HALF_CLEAR_BINS there (their 4-bin read takes in the 1x's main
-    lobe, training._feature_list). fit() gives them the largest spread in that mode, so their
+    lines when 1x lies under orders.HALF_CLEAR_BINS there (their 2-bin read reaches into the 1x's
+    main lobe, training._feature_list). fit() gives them the largest spread in that mode, so their
     departures count for next to nothing there (at most Z_LIM / Z_LIM spreads)."""
     if lo_hz * params["n"] / params["fs_hz"] >= orders.HALF_CLEAR_BINS:
         return []
@@ -285,9 +285,10 @@ def edge_ranges_hz(params: dict) -> list[tuple[float, float]]:
 FOLLOW_T = 4.0          # a slope is kept only this many standard errors from 0
 # magnitudes whose level follows the speed as a smooth power law: broadband r.m.s., peak and
 # velocity, sums of many lines. Not the band powers (a line crossing an edge makes an S over its
-# lobe, not a power law), nor the lines read at an order: on a slow shaft (2-4 bins) each takes
-# in its neighbours' leakage, which swings with the fraction of a bin the speed sits at; nor the
-# shape figures (crest factor, kurtosis), which do not scale with the speed.
+# lobe, not a power law), nor the lines read at an order: a slope, pooled or of each mode's own,
+# there made imbalance show later on the evaluation histories (docs/detector.md, "Levels that
+# follow the speed within a mode"); nor the shape figures (crest factor, kurtosis), which do not
+# scale with the speed.
 _FOLLOWS = (fi.F_RMS, fi.F_PEAK, fi.F_VEL)
 
 

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from firmware_py.dsp import envelope, fft, half_taps, speed, tables
+from firmware_py.dsp import envelope, fft, half_taps, orders, speed, tables
 from firmware_py.dsp.feature_index import (
     F_BAND0, F_CLIP, F_CREST, F_ENV_BPFO, F_ENV_FTF, F_HALF, F_KURT, F_MEAN, F_ORD_1X, F_ORD_2X,
     F_ORD_3X, F_ORD_HALF, F_ORD_VANE, F_PEAK, F_RMS, F_SPEED, F_SPEED_CONF, F_STUCK, F_TAP_RE,
@@ -348,9 +348,9 @@ class FeatureTwin:
                 f[:, field] = LOG2_ZERO_Q8
                 continue
             k = np.where(live, x >> 8, 1)
-            s = p[rows, k - 1] + p[rows, k] + p[rows, k + 1] + p[rows, k + 2]
-            f[:, field] = np.where(live & (s > 0), _log2_q8(np.maximum(s, 1), self.log2_q15) + c,
-                                   LOG2_ZERO_Q8)
+            s = p[rows, k] + p[rows, k + 1]
+            v = _log2_q8(np.maximum(s, 1), self.log2_q15) + c + orders.scallop_q8(x & 255)
+            f[:, field] = np.where(live & (s > 0), v, LOG2_ZERO_Q8)
 
     def _taps(self, x, mean, u, f1, follows, f):
         """half_taps.HalfTaps.run over all windows of a run: window j's tap is the half summed
