@@ -46,6 +46,42 @@ def test_a_set_point_seen_in_too_few_recordings_joins_its_neighbour():
     assert k == 2 and adjusted_rand_score(np.r_[np.zeros(3000), np.ones(62)], lab) == 1.0
 
 
+def test_set_points_told_apart_by_their_recordings_when_single_estimates_blur():
+    # A 6-pole pump at 2 bins of the window (13.1 and 16.2 Hz, drives of 40 and 50 Hz, each
+    # recording trimmed +-4 %): single estimates scatter by 3.5 % (normal), so the windows fill the
+    # 14 % between the set points more densely than STRAY_DIV allows, and the steady tolerance is
+    # wide (11.7 %). A recording's median of 62 windows scatters by sqrt(pi / 2) * 3.5 % / sqrt(62)
+    # = 0.56 % (the median's asymptotic spread, Kendall and Stuart; from memory): by recordings the
+    # gap is clear, and a short recording of 16 windows between the set points, fewer than the
+    # strays allowed, does not bridge it. Windows within 5 % of their recording's set point fall
+    # with it (scikit-learn's adjusted Rand index against the truth).
+    rng = np.random.default_rng(11)
+    speeds, recs, truth = [], [], []
+    for r in range(120):
+        duty = r % 2
+        v = (13.1, 16.2)[duty] * rng.uniform(0.96, 1.04)
+        speeds.append(v * rng.normal(1.0, 0.035, 62))
+        recs.append(np.full(62, r))
+        truth.append(np.full(62, duty))
+    x = np.concatenate(speeds + [np.full(16, 14.6) * rng.normal(1.0, 0.035, 16)])
+    rec = np.concatenate(recs + [np.full(16, 999)])
+    gap = 0.117
+    assert mf.speed_modes(x[:-16], gap, mf.MIN_MODE_N)[0] == 1             # by windows alone
+    k, lab = mf.speed_modes(x, gap, mf.MIN_MODE_N, stretch=rec, min_stretches=mf.MIN_MODE_STRETCHES)
+    assert k == 2
+    t = np.concatenate(truth)
+    med = np.repeat([np.median(v) for v in speeds], 62)
+    near = np.abs(x[:-16] / med - 1) < 0.05
+    assert adjusted_rand_score(t[near], lab[:-16][near]) == 1.0
+    # a duty trimmed anywhere in +-6 % over 36 recordings stays one mode: by chance its medians
+    # leave gaps of about 0.12 ln(36) / 36 = 1.2 % (the largest spacing of N uniform points,
+    # common practice), wider than a tolerance of 1 %, but such gaps are what a continuum leaves
+    one = 16.2 * rng.uniform(0.94, 1.06, 36)
+    xc = np.repeat(one, 62) * rng.normal(1.0, 0.002, 36 * 62)
+    assert mf.speed_modes(xc, 0.01, mf.MIN_MODE_N, stretch=np.repeat(np.arange(36), 62),
+                          min_stretches=mf.MIN_MODE_STRETCHES)[0] == 1
+
+
 def test_mode_ranges_stop_short_of_the_search_range_ends():
     # a speed read at an end of the search range (19.5-29 Hz) is the range, not the shaft: no mode
     # may cover it, so the gateway leaves such windows unscored

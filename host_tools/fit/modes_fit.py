@@ -50,7 +50,8 @@ def transformed(feats: np.ndarray, params: dict) -> np.ndarray:
 def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KMAX,
                 stretch: np.ndarray | None = None, min_stretches: int = 1) -> tuple[int, np.ndarray]:
     """Operating modes from the shaft speed alone, by the gaps between speeds: sorted speeds are
-    cut wherever two neighbours lie more than `gap` (a fraction of the speed) apart, groups with
+    cut wherever two neighbours lie more than `gap` (a fraction of the speed) apart (with
+    `stretch`, the recordings' median speeds, each weighing its windows), groups with
     fewer than min_n windows, or windows from fewer than min_stretches distinct values of
     `stretch` (a recording id per window, when given), join their nearer neighbour, and while
     more than k_max remain the two nearest merge. A gap may hold a few strays (up to 1 window in STRAY_DIV: an estimate that
@@ -60,14 +61,35 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
     x = np.log(np.asarray(speed_hz, dtype=float))
     order = np.argsort(x, kind="stable")
     xs = x[order]
-    # a gap is a stretch wider than `gap` holding at most `stray` windows: single estimates that
-    # miss by a bin (0.16 s windows) land between set points and must not bridge them
-    stray = len(xs) // STRAY_DIV
     wide = math.log1p(gap)
+    # With the recordings known, the gaps are sought among their median speeds, each weighing
+    # its windows: a window's estimate can miss by a bin (at 2 bins, by a tenth of the speed), a
+    # recording's median does not; every window then falls on its side of each cut by its speed.
+    ks, ws = xs, np.ones(len(xs), np.int64)
+    if stretch is not None:
+        ids, inv = np.unique(np.asarray(stretch), return_inverse=True)
+        med = np.array([np.median(x[inv == i]) for i in range(len(ids))])
+        o = np.argsort(med, kind="stable")
+        ks, ws = med[o], np.bincount(inv)[o]
+    # a gap is a stretch wider than `gap` holding at most `stray` windows: single estimates that
+    # miss by a bin (0.16 s windows), or a short recording caught between set points, must not
+    # bridge them. And it must be wider than a continuum of set points would leave somewhere
+    # among the N speeds: with the density found within `gap` either side, a Poisson process of
+    # density r leaves a stretch of width g empty somewhere with chance N exp(-r g) (the
+    # spacings of a Poisson process, common practice); a cut needs that under GAP_ALPHA (a few
+    # dozen recordings of a drive trimmed anywhere leave gaps wider than the tolerance by chance)
+    stray = len(xs) // STRAY_DIV
+    cum = np.concatenate([[0], np.cumsum(ws)])
+    need = math.log(len(ks) / GAP_ALPHA)
     cut_at = set()
-    for i in np.flatnonzero(xs[stray + 1:] - xs[:len(xs) - stray - 1] > wide):
-        cut_at.add(int(i + 1 + np.argmax(np.diff(xs[i:i + stray + 2]))))
-    cuts = [0] + sorted(cut_at) + [len(xs)]
+    for i in range(len(ks)):
+        j = int(np.searchsorted(ks, ks[i] + wide, side="right"))
+        if j < len(ks) and cum[j] - cum[i + 1] <= stray:
+            near = (int(np.searchsorted(ks, ks[j] + wide, side="right"))
+                    - int(np.searchsorted(ks, ks[i] - wide, side="left")) - (j - i - 1))
+            if near / (2 * wide) * (ks[j] - ks[i]) >= need:
+                cut_at.add(int(np.searchsorted(xs, 0.5 * (ks[i] + ks[j]))))
+    cuts = [0] + sorted(c for c in cut_at if 0 < c < len(xs)) + [len(xs)]
     groups = [[a, b] for a, b in zip(cuts[:-1], cuts[1:])]
 
     def centre(g):
@@ -100,6 +122,7 @@ def speed_modes(speed_hz: np.ndarray, gap: float, min_n: int, k_max: int = dm.KM
 
 
 STRAY_DIV = 200         # up to 1 window in 200 may stray into a gap between set points
+GAP_ALPHA = 0.01        # chance that a continuum of set points leaves a gap that cuts it
 STRAY_Q = 0.005         # a mode's speed range: its windows' 0.5-99.5 % points (strays left out), widened
 
 
