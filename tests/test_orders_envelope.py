@@ -147,8 +147,11 @@ def test_order_read_is_clear_of_the_neighbouring_line():
         lo = np.sum(np.maximum(own - rest, 0) ** 2) * scale
         hi = np.sum((own + rest) ** 2) * scale
         got = f[0, fi.F_ORD_2X] / 256
-        # log2_q8 and its constant 1 LSB each, the scalloping term's rounding 0.52
-        assert math.log2(lo) - 3 / 256 <= got <= math.log2(hi) + 3 / 256, f_bins
+        # log2_q8 and its constant 1 LSB each, the scalloping term's rounding 0.52, and the
+        # device reading it at its own position, floored to 1/256 bin, where pos (from the Hz Q8
+        # estimate) may differ by up to 1/256 + 2/(256 * 6.25) bin: 0.86 LSB per 1/256 bin (the
+        # term's steepest step, test above), 1.2 LSB; 3.7 LSB in all
+        assert math.log2(lo) - 4 / 256 <= got <= math.log2(hi) + 4 / 256, f_bins
         # the 2x's mean square a2**2 / 2 lies inside that bound
         assert math.log2(lo) <= math.log2(a2 * a2 / 2) <= math.log2(hi)
         # the whole lobe (the 4 bins |k - x| < 2) reaches into the 1x's: numpy reads it several
