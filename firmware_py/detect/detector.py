@@ -747,9 +747,9 @@ class Detector:
         pa = self.pa
         best = op_axis(f, self.axes, pa, self.pin_lo_q8, self.pin_hi_q8)
         self.op_axis = best
-        conf = f[best * pa + fi.F_SPEED_CONF] if f[best * pa + fi.F_SPEED] > 0 else -1
         b = best * pa
         sp = f[b + fi.F_SPEED]
+        conf = f[b + fi.F_SPEED_CONF] if sp > 0 else -1
         sp = sp if sp < _SPEED_MAX else _SPEED_MAX
         self.speed_q8 = sp if sp > 0 and conf >= 0 else 0
         self.conf_q8 = conf if conf > 0 else 0
