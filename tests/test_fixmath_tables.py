@@ -57,6 +57,32 @@ def test_sqrt_pow2_within_its_precision(s, e):
         assert abs(got - exact) <= 1 + exact * 2**-13
 
 
+@given(st.floats(min_value=-math.pi, max_value=math.pi), st.floats(min_value=10.0, max_value=26.9))
+def test_atan2_q16_within_its_derived_bound_of_math_atan2(angle, log2_r):
+    # CORDIC's error (fixmath.atan2_q16's docstring): the last step's angle atan(2**-14), the table's
+    # own rounding against math.atan summed over its steps, and the shifts' truncation, under one
+    # unit per component and step, carried with the gain 1.65: 15 * sqrt(2) * 1.65 units against a
+    # vector of length r or more (angle error <= perturbation / length, in radians)
+    r = 2.0 ** log2_r
+    x, y = round(r * math.cos(angle)), round(r * math.sin(angle))
+    lsb = 65536 / (2 * math.pi)                                   # Q16 turns per radian
+    table = sum(abs(t - math.atan(2.0 ** -i) * lsb) for i, t in enumerate(fixmath._ATAN_Q16))
+    bound = math.atan(2.0 ** -14) * lsb + table + 15 * math.sqrt(2) * 1.65 / math.hypot(x, y) * lsb
+    got = fixmath.atan2_q16(y, x)
+    assert -32767 <= got <= 32768
+    d = (got - math.atan2(y, x) * lsb + 32768) % 65536 - 32768
+    assert abs(d) <= bound, (x, y, got, d, bound)
+
+
+def test_atan2_q16_on_numpy_arrays_is_the_scalar_function():
+    # the host twin calls it elementwise on int64 arrays: the same bits as one call per element
+    rng = np.random.default_rng(5)
+    v = rng.integers(-(2**27) + 1, 2**27, size=(2, 2000))
+    v[:, :4] = [[0, 0, 5, -5], [0, 7, 0, 0]]
+    want = [fixmath.atan2_q16(int(y), int(x)) for y, x in v.T]
+    assert fixmath.atan2_q16(v[0], v[1]).tolist() == want
+
+
 def test_log2_q8_within_one_lsb_of_math_log2():
     t = tables.log2_table()
     rng = random.Random(7)

@@ -10,13 +10,12 @@ noise spreads over all (the resolution of one block of n x every x blk samples; 
 in zoom analysis).
 
 Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the complex values at 0.5x, 1.5x,
-2.5x of the speed the window before measured) of steady windows are collected; a window that is not
-steady, or at a speed beyond the steady tolerance of the block's, starts a new block. A window
-whose taps were mixed at a speed more than 1/32 off the block's mean so far (DRIFT_SHIFT), or that
-has none, enters as zeros: its taps let the whole orders through (half_taps: their leakage goes
-with the square of that error), and the speed estimate scatters by 1 to 5 % from window to window
-on slow shafts, so cutting the block there would seldom let one fill. A block of fewer than half
-such windows is dropped. Blocks overlap by half: a full block's second half starts the next (the
+2.5x of the speed the shaft turned at between the windows before) of steady windows are collected;
+a window that is not steady, or at a speed beyond the steady tolerance of the block's, starts a new
+block. A window whose taps were mixed at a speed more than 1/32 off the block's mean so far
+(DRIFT_SHIFT), or that has none, enters as zeros: its taps let the whole orders through
+(half_taps: their leakage goes with the square of that error), and one such window should not
+cost the block. A block of fewer than half such windows is dropped. Blocks overlap by half: a full block's second half starts the next (the
 kept windows' speed taken as the block's mean), so a 10 s recording at 512 samples makes two blocks
 and running without a gap one every BLK / 2 windows; under the Hann window across the block two
 such blocks correlate 0.167 in amplitude, 0.03 in power (Welch's overlapped segments, 1967), so

@@ -187,7 +187,8 @@ class FeatureCore:
         off = a * self.per
         f1 = self.speed.run(f, off)
         self.orders.run(f1, self.log2_4_3_q8 - 512 * u, f, off)
-        self.taps.run(win, mean, u, f1, self.follows, f, off, a)
+        x1 = self.taps.speed(self.buf, f1, self.follows, a)
+        self.taps.run(win, mean, u, x1, self.follows, f, off, a)
         self.env.run(self.buf, f1, f, off)
 
     @micropython.native

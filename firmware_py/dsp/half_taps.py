@@ -18,9 +18,25 @@
 # window's nulls, or a rectangle's single ones, go with its first power. A window of n samples
 # holds one 0.5x period only from a 1x of 2 bins up, so a triangle of two periods needs two
 # windows: the half after the boundary is summed in this window, the half before it was summed in
-# the window before, with that window's estimate (the same speed for both halves, so the double
+# the window before, at that window's mixing speed (the same speed for both halves, so the double
 # zeros stay where the whole orders were put) and kept here. A window that does not follow the one
 # before (cut(), or not follows) has no tap.
+#
+# The mixing speed is not the window's own estimate but how far the shaft turned between the window
+# before and this one, from the phase its 1x advanced by (the phase vocoder's frequency: Flanagan
+# and Golden, Bell System Technical Journal 45, 1966; from memory). A line at f bins turns f cycles
+# in n samples, so the phase of the spectrum's bin k near it advances by 2 pi (f - k), modulo a
+# turn, from one window to the next (the window's own phase term is the same in both and cancels):
+# mix_speed() takes that angle from bin k of this window times the conjugate of the window
+# before's (fixmath.atan2_q16) and puts f within half a bin of the window's own estimate. Under
+# 2.5 bins the 1x and 2x lobes share two bins (speed.FINE_Q2), and one window's estimate is off by
+# up to 10 % and scatters by 4 % (a 1x series at 2.05 to 2.4 bins, and a slow 6-pole pump at 2.1
+# bins; measured); the phase advance is left only the neighbours' sidelobes and the noise,
+# 0.0015 bin there (numpy, the same series). The zeros take the error squared, and half_lines
+# drops a window mixed more than 1/32 off its block's mean, so with the window's own estimate no
+# block filled under 2.5 bins. The speed is that between the two windows' centres; the tap mixed
+# at it is centred half a window later, where a shaft that runs steadily turns as fast. The first
+# window of a run has no phase before it: it sums no half, and the second has no tap.
 #
 # L: the fewest whole 0.5x periods that reach n / 2, m = ceil(x1 / 4) of them (span()); so
 # n / 2 <= L <= n. Samples d = -L..L-1 about the boundary (between d = -1 and d = 0), weighed by
@@ -30,8 +46,9 @@
 # times (d + 1/2), kept as Q10 table entries modulo n * 2**10; the value is then the line's phase
 # at the boundary, whatever the estimate's error (the window is symmetric about it).
 #
-# Entry points: span(f1_q8, n), footprint_bytes(axes), HalfTaps(axes, n, cos_q15, sin_q15) with
-# run(win, dc, u, f1_q8, follows, f, off, a) and cut(a).
+# Entry points: span(f1_q8, n), mix_speed(k, pr, pi, xr, xi, f1_q8), footprint_bytes(axes),
+# HalfTaps(axes, n, cos_q15, sin_q15) with speed(x, f1_q8, follows, a),
+# run(win, dc, u, x1, follows, f, off, a) and cut(a).
 #
 # Scales: win holds int16 counts; dc: the integer mean of the window the tap's first half was
 # summed in (counts); u: this window's gain exponent (features: y = (x - dc) * 2**u, peak's top
@@ -41,25 +58,26 @@
 # L <= 4096 of them, |H| < 2**27, and is brought to counts Q8 as round(8 H / L) / 2 * 2**(6 - u)
 # (|.| <= 2**17 * 2**8 for u >= -2: a peak under 2**16 counts). A tap is the two halves' sum, the
 # mean over the triangle's 2 L samples of (x - dc) w / 4096 e**(-i phase): a line of amplitude A
-# counts reads A / 2 (Q8); |tap| < 2**26.
+# counts reads A / 2 (Q8); |tap| < 2**26. x: the window's spectrum X as features left it (fft.spectrum,
+# packed: X[k] at x[2 k], x[2 k + 1]; |.| <= 2**14 a component).
 import micropython
 from array import array
 from micropython import const
 
 from firmware_py.dsp.feature_index import F_TAP_RE, F_TAP_X1
+from firmware_py.dsp.fixmath import atan2_q16
 from firmware_py.viper_stand import SX32, ptr16, ptr32
 
 ODDS = (1, 3, 5)         # the half orders 0.5x, 1.5x, 2.5x as odd multiples of 0.5x
-# bins Q8: the slowest 1x with taps. One 0.5x period fits a window from 2 bins; under 2.5 bins
-# the speed estimate wanders by a tenth of a bin from window to window (speed.FINE_Q2: the 1x and
-# 2x lobes share two bins), which spoils the zeros and cuts every block (half_lines' drift)
-X1_MIN = const(640)
+X1_MIN = const(512)      # bins Q8: the slowest 1x with taps (one 0.5x period fits a window)
 X1_MAX = const(1 << 16)  # bins Q8: the fastest, exclusive (256 bins), which bounds m (<= 64)
 _K1 = const(0)           # state per axis: the 1x the first half was mixed at (0: none), bins Q8
 _KL = const(1)           # its L
 _KDC = const(2)          # its dc, counts
 _KH = const(3)           # the first half's three (re, im), counts Q8
-_KLEN = const(9)
+_KB = const(9)           # the bin this window's X was kept at for the next (0: none)
+_KX = const(10)          # that X (re, im), as the spectrum holds it
+_KLEN = const(12)
 
 
 def span(f1_q8, n):
@@ -67,6 +85,18 @@ def span(f1_q8, n):
     each 512 n / f1_q8 samples, rounded (m n 1024 <= 2**28; L <= n from 2 bins)."""
     m = (f1_q8 + 1023) >> 10
     return (m * n * 1024 // f1_q8 + 1) >> 1
+
+
+def mix_speed(k, pr, pi, xr, xi, f1_q8):
+    """The 1x between two windows' centres, bins Q8: from the phase bin k advanced by, pr + i pi
+    in the window before, xr + i xi in this one (the spectrum's, |.| <= 2**14 a component), put
+    within half a bin of this window's own estimate f1_q8 (bins Q8). The product's components
+    (< 2**29) are shifted by 3 for fixmath.atan2_q16; its angle, turns Q16, is the offset from
+    bin k in bins Q16. Elementwise, so the host twin calls it with numpy arrays."""
+    re = (xr * pr + xi * pi) >> 3
+    im = (xi * pr - xr * pi) >> 3
+    p = (k << 8) + ((atan2_q16(im, re) + 128) >> 8)
+    return p + (((f1_q8 - p + 128) >> 8) << 8)
 
 
 def footprint_bytes(axes):
@@ -85,10 +115,27 @@ class HalfTaps:
         self.par = array("i", bytes(4 * 6))     # per half order: phase, step (Q10 table entries)
         self.out = array("i", bytes(4 * 6))     # per half order: re, im of one half
 
-    def run(self, win, dc, u, f1_q8, follows, f, off, a):
+    def speed(self, x, f1_q8, follows, a):
+        """The mixing speed (bins Q8, 0: none) of axis a's window of spectrum x, whose own 1x is
+        f1_q8 (bins Q8, 0: none): mix_speed() from the window before, if this one follows it;
+        then X at the bin nearest f1_q8 is kept for the next."""
+        k = self.k
+        b = a * _KLEN
+        x1 = 0
+        kb = k[b + _KB] if follows else 0
+        if kb and f1_q8:
+            x1 = mix_speed(kb, k[b + _KX], k[b + _KX + 1], x[2 * kb], x[2 * kb + 1], f1_q8)
+        kb = (f1_q8 + 128) >> 8         # 2 <= kb < n / 6 in the speed range (speed.check_range)
+        k[b + _KB] = kb
+        k[b + _KX] = x[2 * kb]
+        k[b + _KX + 1] = x[2 * kb + 1]
+        return x1
+
+    def run(self, win, dc, u, x1, follows, f, off, a):
         """Write F_TAP_X1 and the three (re, im) taps at f[off + ...] for axis a's window win of
-        integer mean dc and gain exponent u, whose own 1x is f1_q8 (bins Q8, 0: none); follows:
-        it starts where the window before ended. Then sum this window's half of the next tap."""
+        integer mean dc and gain exponent u, mixing speed x1 (bins Q8, 0: none; speed());
+        follows: it starts where the window before ended. Then sum this window's half of the
+        next tap at x1."""
         k = self.k
         b = a * _KLEN
         n = self.n
@@ -102,20 +149,21 @@ class HalfTaps:
         else:
             for i in range(6):
                 f[off + F_TAP_RE + i] = 0
-        if X1_MIN <= f1_q8 < X1_MAX:
-            L = span(f1_q8, n)
-            self._mix(win, n - 1, -1, L, dc, u, (n << 10) - f1_q8)
+        if X1_MIN <= x1 < X1_MAX:
+            L = span(x1, n)
+            self._mix(win, n - 1, -1, L, dc, u, (n << 10) - x1)
             for i in range(6):
                 k[b + _KH + i] = _q8(self.out[i], L, u)
-            k[b + _K1] = f1_q8
+            k[b + _K1] = x1
             k[b + _KL] = L
             k[b + _KDC] = dc
         else:
             k[b + _K1] = 0
 
     def cut(self, a):
-        """Axis a's next window will not follow this one: no tap from it."""
+        """Axis a's next window will not follow this one: no tap from it, nor a phase."""
         self.k[a * _KLEN + _K1] = 0
+        self.k[a * _KLEN + _KB] = 0
 
     def _mix(self, win, i0, di, L, dc, u, f1):
         """One half into self.out, walking L samples from win[i0] by di away from the boundary,

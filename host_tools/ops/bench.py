@@ -243,7 +243,8 @@ def run(steady):
 
 # The feature core's half-order taps (firmware_py/dsp/half_taps.py) on one axis at a 1x of 3.3
 # bins (21 Hz at 512 samples and 3200 Hz: L = 310 samples a half, both halves summed every
-# window), against the same windows without them
+# window), their mixing speed from the phase advance included (HalfTaps.speed: one CORDIC, on a
+# spectrum bin filled from the samples), against the same windows without them
 _TAPS = _SETUP + f"""
 from firmware_py.dsp import feature_index as fi
 from firmware_py.dsp import tables
@@ -252,11 +253,15 @@ cos_t, sin_t = tables.twiddles({N})
 taps = HalfTaps(1, {N}, cos_t, sin_t)
 f = array.array('i', bytes(4 * fi.per_axis(0)))
 win = array.array('h', bytes(2 * {N}))
+xs = array.array('i', bytes(4 * {N}))
 def run(on):
     for w in range({WINDOWS}):
         for i in range({N}):
             win[i] = src[w * {N} + i]
+        xs[6] = win[0]
+        xs[7] = win[1]
         if on:
+            taps.speed(xs, 845, True, 0)
             taps.run(win, 0, 2, 845, True, f, 0, 0)
 """
 
@@ -614,7 +619,8 @@ MEANING = {
     "mpy_added_loop_equiv_per_sample_half_orders": ("the detector's half-order stage per sample and axis, "
                                                     "its block transforms spread over their windows"),
     "mpy_added_loop_equiv_per_sample_half_taps": ("the feature core's half-order taps per sample and axis, "
-                                                  "1x at 3.3 bins (two halves of 310 samples a window)"),
+                                                  "1x at 3.3 bins (two halves of 310 samples a window, and the "
+                                                  "mixing speed's CORDIC)"),
     "mpy_naive_float_window_fuel": "fuel of the plain float version per window",
     "core_heap_bytes": "heap the feature core takes at N = 512, 1 axis, 2 bands (bytes)",
     "allocs_per_window": "heap blocks allocated per window (must be 0)",

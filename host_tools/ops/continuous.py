@@ -75,7 +75,7 @@ def continuous_check(train_s: float = 3600.0, test_s: float = 86400.0, seed_trai
         w = len(x) // n
         carry = x[w * n:]
         st = step_detector(det, twin.features(x[:w * n], lead=lead), w0)
-        lead = x[(w - 1) * n:w * n] if w else lead
+        lead = twin.lead_after(lead, x[:w * n])
         w0 += w
         raises += sum(1 for e in st.events if is_raise(e[1], e[2]))
         pushed += int(st.pushed.sum())
@@ -114,7 +114,7 @@ def _gapless_raises(h: History, t0: float, end: float, params: dict, profile: di
         t, counts = next(chunks)
         x = counts[:, :params["axes"]].reshape(CHUNK_WINDOWS * every, n, -1)[::every]
         st = step_detector(det, twin.features(x.reshape(-1, x.shape[2]), lead=lead, follows=every == 1), w0)
-        lead = x[-1] if every == 1 else None
+        lead = twin.lead_after(lead, x.reshape(-1, x.shape[2])) if every == 1 else None
         for w, old, new, reason, _mode, feat, _score in st.events:
             t_s = t + ((w - w0) * every + 1) * n / fs
             if is_raise(old, new) and t_s <= end:

@@ -10,11 +10,12 @@ division give the same bits).
 
 Windows are consecutive, non-overlapping runs of n samples from the start of the recording, as
 the device's ring delivers them. Each window's features depend on its own samples, except its
-half-order taps (firmware_py/dsp/half_taps.py), which also read the window before: features()
-takes that window as `lead` where a run continues one computed before, so that a stream cut
-into chunks gives the same bits as one pass.
+half-order taps (firmware_py/dsp/half_taps.py), which also read the window before, mixed at the
+speed its 1x's phase advanced by from the one before that: features() takes those LEAD_WINDOWS
+as `lead` where a run continues one computed before (lead_after() keeps them), so that a stream
+cut into chunks gives the same bits as one pass.
 
-Entry points: TwinConfig, FeatureTwin.
+Entry points: LEAD_WINDOWS, TwinConfig, FeatureTwin.
 """
 from __future__ import annotations
 
@@ -29,6 +30,11 @@ from firmware_py.dsp.feature_index import (
     F_TAP_X1, F_VEL, F_ZERO, LOG2_ZERO_Q8, per_axis)
 from firmware_py.dsp.features import Y_BITS, check_config
 from firmware_py.dsp.fixmath import log2_q8
+
+
+# Windows before a window that its features depend on: its tap's first half, summed in the window
+# before at the speed from the one before that (half_taps)
+LEAD_WINDOWS = 2
 
 
 @dataclass
@@ -119,18 +125,21 @@ class FeatureTwin:
     def features(self, counts: np.ndarray, keep_power: bool = False, lead: np.ndarray | None = None,
                  follows: bool = True):
         """counts: int16 (frames, axes). Returns feats (windows, axes*per) int32, and with
-        keep_power also the power spectra (windows, axes, m+1) int32. lead: the n frames just
-        before counts, when the device processed them as the window before the first (its
-        features are not returned); follows: False where the windows are not consecutive
-        (taken one in every few, or spliced), so none follows the one before."""
+        keep_power also the power spectra (windows, axes, m+1) int32. lead: whole windows just
+        before counts, when the device processed them as the windows before the first (their
+        features are not returned; the last LEAD_WINDOWS count); follows: False where the
+        windows are not consecutive (taken one in every few, or spliced), so none follows the one
+        before."""
         counts = np.asarray(counts)
         if counts.ndim == 1:
             counts = counts[:, None]
         if lead is not None:
             lead = np.asarray(lead)
             lead = lead[:, None] if lead.ndim == 1 else lead
-            out = self.features(np.concatenate([lead[: self.n], counts]), keep_power, None, follows)
-            return (out[0][1:], out[1][1:]) if keep_power else out[1:]
+            k = min(len(lead) // self.n, LEAD_WINDOWS)
+            out = self.features(np.concatenate([lead[len(lead) - k * self.n:], counts]), keep_power, None,
+                                follows)
+            return (out[0][k:], out[1][k:]) if keep_power else out[k:]
         if counts.shape[1] != self.axes:
             raise ValueError(f"expected {self.axes} axes, got {counts.shape[1]}")
         w = self.windows(counts)
@@ -142,6 +151,12 @@ class FeatureTwin:
             if keep_power:
                 power[:, a] = p
         return (feats, power) if keep_power else feats
+
+    def lead_after(self, lead: np.ndarray | None, counts: np.ndarray) -> np.ndarray:
+        """The lead for the chunk after counts (whole windows, frames x axes) that followed lead:
+        the last LEAD_WINDOWS windows of the two."""
+        both = counts if lead is None else np.concatenate([lead, counts])
+        return both[max(0, len(both) - LEAD_WINDOWS * self.n):]
 
     def mean_square_per_bin(self, feats, power):
         """Spectra from features(keep_power=True) as mean square per bin, counts**2, shape
@@ -180,7 +195,7 @@ class FeatureTwin:
         self._finish(f, pk, u, g.astype(np.int64), sh.astype(np.int64), sq, s4, vs, p)
         f1 = self._speed(p, f)
         self._orders(p, f1, self.log2_4_3_q8 - 512 * u, f)
-        self._taps(x, mean, u, np.where(live, f1, 0), follows, f)
+        self._taps(x, mean, u, self._mixing(xr, xi, np.where(live, f1, 0), follows), follows, f)
         self._envelope(xr, xi, f1, f)
         f[:, F_HALF] = LOG2_ZERO_Q8
         # a flat window: no spectrum, zero features (features._flat)
@@ -352,11 +367,28 @@ class FeatureTwin:
             v = _log2_q8(np.maximum(s, 1), self.log2_q15) + c + orders.scallop_q8(x & 255)
             f[:, field] = np.where(live & (s > 0), v, LOG2_ZERO_Q8)
 
+    @staticmethod
+    def _mixing(xr, xi, f1, follows):
+        """Each window's mixing speed as half_taps.HalfTaps.run finds it (bins Q8, 0: none): from
+        the spectra X (xr, xi: windows, m+1) at the bin nearest the window before's own 1x, f1 the
+        windows' own (bins Q8, 0 where the window is flat or has none)."""
+        f1 = f1.astype(np.int64)
+        x1 = np.zeros(len(f1), dtype=np.int64)
+        if not follows or len(f1) < 2:
+            return x1
+        kb = (f1[:-1] + 128) >> 8                 # the bin each window keeps for the next
+        ok = (kb > 0) & (f1[1:] > 0)
+        k = np.where(ok, kb, 1)
+        j = np.arange(1, len(f1))
+        x = [a.astype(np.int64) for a in (xr[j - 1, k], xi[j - 1, k], xr[j, k], xi[j, k])]
+        x1[1:] = np.where(ok, half_taps.mix_speed(k, *x, f1[1:]), 0)
+        return x1
+
     def _taps(self, x, mean, u, f1, follows, f):
         """half_taps.HalfTaps.run over all windows of a run: window j's tap is the half summed
-        in window j - 1 (at its 1x, L and mean) plus the half of window j at the same; x: the
-        windows' counts (windows, n), mean and u their integer means and gain exponents, f1
-        their 1x (bins Q8, 0 where the window is flat or has none)."""
+        in window j - 1 (at its mixing speed, L and mean) plus the half of window j at the same;
+        x: the windows' counts (windows, n), mean and u their integer means and gain exponents,
+        f1 their mixing speeds (bins Q8, 0: none)."""
         n = self.n
         wn = x.shape[0]
         f1 = f1.astype(np.int64)

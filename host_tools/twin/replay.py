@@ -58,7 +58,7 @@ from firmware_py.detect.detector import Detector, WHY_NAMES
 from firmware_py.detect.iso_zones import ZONE_NAMES, zone_of
 from host_tools.data.units import band_hz, feature_name, m_s2_per_count
 from host_tools.errors import EdgevibError
-from host_tools.twin.feature_twin import FeatureTwin, TwinConfig
+from host_tools.twin.feature_twin import LEAD_WINDOWS, FeatureTwin, TwinConfig
 from host_tools.data.recording import Recording, RecordingFile, open_stream
 from host_tools.progress import progress_bar
 
@@ -107,9 +107,10 @@ class StreamFeatures:
 class ChunkPlan:
     """One chunk of a stream: windows first_w.. (index in the stream), their end times t_s and
     owning recordings rec, and the samples to read as (recording index, start, stop) pieces,
-    whose frames joined in order are the chunk's windows; lead: the pieces of the window just
-    before the first, where the chunk continues the one before it (the half-order taps read it:
-    FeatureTwin.features), else empty; follows: whether the windows follow each other (every 1)."""
+    whose frames joined in order are the chunk's windows; lead: the pieces of the windows just
+    before the first (up to LEAD_WINDOWS of the segment), where the chunk continues the one before
+    it (the half-order taps read them: FeatureTwin.features), else empty; follows: whether the
+    windows follow each other (every 1)."""
 
     first_w: int
     t_s: np.ndarray
@@ -148,7 +149,7 @@ def plan_chunks(recs: Sequence[Any], n: int, fs: float, chunk_windows: int = CHU
             wins = kept[c:c + chunk_windows]
             w_end = (wins + 1) * n
             spans = [(wins[0] * n, w_end[-1])] if every == 1 else [(a * n, (a + 1) * n) for a in wins.tolist()]
-            lead = [((wins[0] - 1) * n, wins[0] * n)] if every == 1 and c > 0 else []
+            lead = [(max(0, wins[0] - LEAD_WINDOWS) * n, wins[0] * n)] if every == 1 and c > 0 else []
             pieces, lead = ([(i + r, max(lo, starts[r]) - starts[r], min(hi, ends[r]) - starts[r])
                              for lo, hi in sp for r in range(len(ends)) if starts[r] < hi and ends[r] > lo]
                             for sp in (spans, lead))
@@ -187,8 +188,8 @@ def feature_chunks(recs: Sequence[Any], twin: FeatureTwin, jobs: int = 1,
 
     jobs > 1: the chunks' features are computed in that many worker processes, at most 2 * jobs
     chunks in flight (memory stays bounded), and handed back in order. Each window depends only
-    on its own samples and the window before (which a chunk reads as its lead), so the result is
-    the same for every jobs and chunk_windows."""
+    on its own samples and the LEAD_WINDOWS before (which a chunk reads as its lead), so the
+    result is the same for every jobs and chunk_windows."""
     plans = plan_chunks(recs, twin.n, float(twin.cfg.fs_hz), chunk_windows, every)
     if jobs <= 1:
         for pl in plans:
