@@ -2,7 +2,6 @@
 import csv
 import io
 import json
-import math
 from array import array
 from pathlib import Path
 
@@ -53,22 +52,15 @@ def field_stream(seed=12, t_start=100000.0):
 
 def by_hand(recs, p):
     """The device path written out: firmware_py's own FeatureCore fed each recording's whole
-    windows, then Detector.step, draining the event ring after every window. Between recordings
-    the samples are missing, as a gateway that lost them would tell both: the first window does
-    not follow the last (FeatureCore.step(False)) and the detector hears of the whole seconds
-    missing (Detector.gap)."""
+    windows, then Detector.step, draining the event ring after every window."""
     core, det = pm.build(p, PROFILE)
     n, axes = p["n"], p["axes"]
     states, scores, events = [], [], []
     w = 0
-    end = None
     for r in recs:
         for k in range(r.n_frames // n):
             core.ring.push(array("h", r.counts[k * n:(k + 1) * n].ravel().tolist()), n)
-            new = k == 0 and end is not None
-            if new:
-                det.gap(int(math.floor(max(0.0, r.t0_s - end))))
-            assert core.step(not new)
+            assert core.step()
             states.append(det.step(core.feats, w, 0))
             scores.append(det.score_q8)
             while det.events.count:
@@ -76,7 +68,6 @@ def by_hand(recs, p):
                 e = det.events
                 events.append((e.t[i], e.old[i], e.new[i], e.reason[i], e.mode[i], e.feat[i], e.score_q8[i]))
             w += 1
-        end = r.t0_s + (r.n_frames // n) * n / FS
     assert axes == recs[0].counts.shape[1]
     return states, scores, events
 

@@ -4,7 +4,6 @@ Synthetic pump signals here are invented test data (tones at 1x, 2x and vane pas
 speed, white sensor noise, gravity on z), in ADXL345-like counts (256 counts per g, +-4096).
 """
 import json
-import math
 from pathlib import Path
 
 import msgpack
@@ -418,53 +417,3 @@ def test_a_duty_whose_speed_reads_coarsely_keeps_the_search_at_two_and_a_half_bi
     assert not again and "761.5 r/min" in warn and "no duty turns clear" in warn
     # a search that starts at 2.5 bins or above has no coarse duty to check
     assert _coarse_reads([], [], dict(p, fc_speed_lo_q8=int(16.5 * 256))) == (False, None)
-
-
-def test_the_operating_speed_is_the_phase_advance_where_the_taps_have_one():
-    # A slow pump whose 1x lies at 2.3 bins (a 6-pole motor at 40 Hz and 512 samples is about 2.1;
-    # a harmonic series, 2x at -10 dB and 3x at -20 dB of the 1x, in white noise 50 dB under the
-    # 1x in one bin) on three axes. There the 1x and 2x lobes share two bins, and a window's own
-    # estimate (F_SPEED) is off by up to a tenth of a bin, with the lines' phases (0.046 bin here;
-    # docs/evaluation.md); the phase the 1x's bin advanced by between two windows is not
-    # (half_taps.mix_speed, tests/test_half_taps.py). The detector's
-    # operating speed takes it where the axis has taps (from a run's third window), its own
-    # estimate before; training's twin of it (_op_of) gives the same speed window for window.
-    # Bound, as tests/test_half_taps.py derives it: in each window the others' share of the line in
-    # bin k (2, nearest the estimates) turns its phase by asin(share) at most: the 2x's and 3x's
-    # and the images' Hann kernel there, and the noise's, 10**-2.5 r.m.s. of a complex Gaussian,
-    # over 5.3 times that with a chance of exp(-5.3**2) = 7e-13, and the FFT's rounding (log2 n + 1
-    # LSB against |X[k]|, from memory); the advance by twice that, in
-    # turns (bins); then the Q8 rounding of bins and the floor into Hz Q8 (1/256 bin each).
-    from array import array
-    from types import SimpleNamespace
-    from firmware_py.detect.detector import Detector
-    from host_tools.fit.training import _op_of
-    from host_tools.twin.replay import twin_for
-    n, fs = PROFILE["window_n"], FS
-    f_hz = 2.3 * fs / n
-    prm = pm.factory(PROFILE)
-    prm.update(fc_speed_lo_q8=int(12.5 * 256), fc_speed_hi_q8=25 * 256)
-    rng = np.random.default_rng(23)
-    t = np.arange(n * 12) / fs
-    th = 2 * np.pi * f_hz * t
-    bin_amp = np.sqrt(n * 3 / 8) / (n / 4) * 20.0          # a tone whose Hann bin equals the noise's
-    x = 10 ** 2.5 * bin_amp * (np.cos(th) + 10 ** -0.5 * np.cos(2 * th + 2) + 0.1 * np.cos(3 * th + 0.5))
-    counts = np.round(np.stack([x + 20.0 * rng.standard_normal(len(t)) for _ in range(3)], 1)).astype(np.int16)
-    feats, power = twin_for(prm, PROFILE).features(counts, keep_power=True)
-    want = np.rint(_op_of(SimpleNamespace(feats=feats), prm)[0] * 256).astype(np.int64)
-    det = Detector(prm, 1)
-    got = []
-    for row in feats.tolist():
-        det._operating_point(array("i", row))
-        got.append(det.speed_q8)
-    assert got == want.tolist()
-    bins = np.asarray(got) / 256 * n / fs
-    own = feats[:, det.op_axis * fi.per_axis(len(prm["fc_bands"])) + fi.F_SPEED] / 256 * n / fs
-    from tests.test_half_taps import _hann_kernel
-    amps, k = (1.0, 10 ** -0.5, 0.1), 2
-    share = sum(a * (_hann_kernel((h + 1) * 2.3 - k) * (h > 0) + _hann_kernel(k + (h + 1) * 2.3))
-                for h, a in enumerate(amps)) / _hann_kernel(2.3 - k) + 5.3 * 10 ** -2.5
-    share += (math.log2(n) + 1) / np.sqrt(power[:, det.op_axis, k].min())   # the FFT's rounding
-    bound = 2 * math.asin(share) / (2 * math.pi) + 2 / 256
-    assert np.abs(bins[2:] - 2.3).max() <= bound
-    assert np.abs(bins[:2] - own[:2]).max() == 0 and np.abs(own - 2.3).max() > 2 * bound

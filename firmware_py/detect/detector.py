@@ -55,8 +55,7 @@ from firmware_py.detect.modes import ModeModel, KMAX, DMAX, FOLLOW_MAX, is_log_f
     follow, range_ref_q8, speed_offset_q8
 from firmware_py.dsp.tables import log2_table, LOG2_N
 from firmware_py.detect.welford import Welford, N_MAX
-from firmware_py.dsp.fixmath import log2_q8, msb, mul_shift, sqrt_pow2
-from firmware_py.dsp.half_taps import X1_MAX
+from firmware_py.dsp.fixmath import sqrt_pow2, log2_q8
 
 # sqrt of the chi-square upper quantile at p = 1e-4 for d = 1..64 degrees of freedom, Q8
 # (scipy.stats.chi2.isf(1e-4, d); tests/test_detector_learning.py recomputes it). For d
@@ -405,8 +404,6 @@ class Detector:
         # the detector's own clock: analysed windows at win_ms each (n * every samples), plus the
         # seconds of gaps; seconds in clock_s (< 2**29, rebased), the rest in clock_ms (< 1000)
         self.win_ms = min((1000 * n * every) // fs, 1 << 20)
-        self.fs_hz = fs                 # a speed in bins Q8 as Hz Q8: mul_shift(., fs, log2 n), as
-        self.n_log2 = msb(n)            # the speed stage does (n a power of 2: features.check_config)
         self.clock_s = 0
         self.clock_ms = 0
         if self.ew_shift > _SHIFT_MAX:
@@ -741,11 +738,8 @@ class Detector:
 
     def _operating_point(self, f):
         """Speed (Hz Q8), its confidence (Q8) and the load proxy (log2 Q8) of this window, from
-        the axis op_axis picks. Speed: the shaft's phase advance between the two windows before
-        (F_TAP_X1, half_taps.mix_speed: off by a few thousandths of a bin, where the window's own
-        estimate is off by up to 10 % under 2.5 bins, and by up to 27 % where a looseness's half
-        orders crowd the 1x) where the axis has one, else its own estimate. Load proxy: the
-        vane-pass line's power less 4 log2 of the speed, log2 Q8. By the pump affinity laws pressure pulsation, and so
+        the axis op_axis picks. Load proxy: the vane-pass line's power
+        less 4 log2 of the speed, log2 Q8. By the pump affinity laws pressure pulsation, and so
         the force and acceleration at vane pass, grow as speed squared (power as speed**4), so
         what remains after dividing by speed**4 follows the hydraulic duty (flow against the
         best-efficiency point), and none of the five mechanical faults acts on that line
@@ -754,7 +748,7 @@ class Detector:
         best = op_axis(f, self.axes, pa, self.pin_lo_q8, self.pin_hi_q8)
         self.op_axis = best
         b = best * pa
-        sp = self._axis_speed(f, b)
+        sp = f[b + fi.F_SPEED]
         conf = f[b + fi.F_SPEED_CONF] if sp > 0 else -1
         sp = sp if sp < _SPEED_MAX else _SPEED_MAX
         self.speed_q8 = sp if sp > 0 and conf >= 0 else 0
@@ -764,16 +758,6 @@ class Detector:
             self.load_q8 = v - 4 * log2_q8(sp, self.tab)
         else:
             self.load_q8 = -_BIG
-
-    def _axis_speed(self, f, b):
-        """The speed (Hz Q8, <= 0: none) of the axis whose fields start at f[b]: its phase advance
-        (F_TAP_X1, bins Q8, as Hz Q8 the way the speed stage converts) where it has one, else its
-        own estimate (F_SPEED). x1 < X1_MAX < 2**20 and fs < 2**20: mul_shift's bounds."""
-        sp = f[b + fi.F_SPEED]
-        x1 = f[b + fi.F_TAP_X1]
-        if sp > 0 and 0 < x1 < X1_MAX:
-            return mul_shift(x1, self.fs_hz, self.n_log2)
-        return sp
 
     def _steadiness(self, level_q8):
         """Push this window's speed and level into the steadiness span; W_SCORED (0) if the
@@ -1087,11 +1071,10 @@ class Detector:
             self.ew_acc[j] = 0
 
     def _mask_lines(self, f, m):
-        """Order and envelope lines of an axis whose own 1x estimate (F_SPEED), and the half-order
-        prominence of one whose speed (_axis_speed: the taps were mixed at its phase advance)
-        lies more than the steady tolerance from the window's operating speed were read at the
-        wrong places (each axis reads its lines, and keeps its half-order
-        average, around its own speed, and an axis where the rotating 1x is weak, the axial
+        """Order and envelope lines and the half-order prominence of an axis whose own 1x
+        estimate (F_SPEED) lies more than the steady tolerance from the window's operating speed
+        were read at the wrong places (each axis reads its lines, and keeps its half-order
+        average, around its own estimate, and an axis where the rotating 1x is weak, the axial
         one, misses it often: on a slow shaft it can read its speed at the top of the range
         window after window, and the half orders of that are lines of no order of the shaft):
         they carry no evidence, so they are set to the mode's centre (a neutral term). So is a
@@ -1110,7 +1093,7 @@ class Detector:
                 self.z[j] = self.model.c_q8[b + j]
                 self.held[j] = 1
             if a >= 0:
-                e = (self._axis_speed(f, a * pa) if h >= 0 else f[a * pa + fi.F_SPEED]) - op
+                e = f[a * pa + fi.F_SPEED] - op
                 if e > tol or e < -tol:
                     self.z[j] = self.model.c_q8[b + j]
                     self.held[j] = 1

@@ -21,7 +21,6 @@ from firmware_py.dsp import feature_index as fi, orders, tables
 from firmware_py.detect import half_lines as hl, modes as dm
 from firmware_py.detect.detector import CHI_Q8, pinned_limits_q8 as pinned_limits
 from firmware_py.detect.half_lines import BLK, HALF_WIDTH, SHIFT as HALF_SHIFT, UNSET
-from firmware_py.dsp.half_taps import X1_MAX
 from firmware_py.detect.welford import Welford
 from firmware_py.dsp.fixmath import sqrt_pow2
 
@@ -184,22 +183,9 @@ def half_spread_floor_q8() -> float:
     return 256.0 * half_block_spread() * math.sqrt(lam / (2.0 - lam))
 
 
-def axis_speeds_q8(feats: np.ndarray, params: dict, pa: int) -> np.ndarray:
-    """(rows, axes) each axis's speed, Hz Q8 (<= 0: none), as Detector._axis_speed takes it: its
-    phase advance (F_TAP_X1, bins Q8, as Hz Q8 by mul_shift's exact floor) where it has one, else
-    its own estimate (F_SPEED)."""
-    feats = np.asarray(feats, dtype=np.int64)
-    axes = feats.shape[1] // pa
-    sp = feats[:, fi.F_SPEED::pa][:, :axes]
-    x1 = feats[:, fi.F_TAP_X1::pa][:, :axes]
-    phase = (x1 * int(params["fs_hz"])) >> (int(params["n"]).bit_length() - 1)
-    return np.where((sp > 0) & (x1 > 0) & (x1 < X1_MAX), phase, sp)
-
-
 def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarray:
-    """(rows, d) booleans: True where a scored order or envelope line was read around an axis's
-    own 1x estimate (F_SPEED), or a half-order prominence (F_HALF) around its speed
-    (axis_speeds_q8), more than the steady tolerance
+    """(rows, d) booleans: True where a scored order or envelope line or half-order prominence
+    (F_HALF) was read around an axis's own 1x estimate (F_SPEED) more than the steady tolerance
     (det_speed_tol_q12) from the window's operating speed, or where a half-order prominence has no
     average yet: the device sets such a term neutral (firmware_py/detect/detector.py,
     _mask_lines), so the model is fitted without it. Integer arithmetic as the device's."""
@@ -209,11 +195,10 @@ def line_mask(feats: np.ndarray, params: dict, speed_hz: np.ndarray) -> np.ndarr
     op = np.rint(np.asarray(speed_hz, dtype=np.float64) * 256).astype(np.int64)
     tol = (int(params["det_speed_tol_q12"]) * op) >> 12
     out = np.zeros((len(feats), len(idx)), bool)
-    ax_sp = axis_speeds_q8(feats, params, pa)
     for j, i in enumerate(idx.tolist()):
         f = i % pa
         if f == fi.F_HALF or fi.F_ORD_HALF <= f <= fi.F_ENV_FTF:
-            e = (ax_sp[:, i // pa] if f == fi.F_HALF else feats[:, (i // pa) * pa + fi.F_SPEED]) - op
+            e = feats[:, (i // pa) * pa + fi.F_SPEED] - op
             out[:, j] = (e > tol) | (e < -tol)
         if f == fi.F_HALF:
             out[:, j] |= feats[:, i] == UNSET

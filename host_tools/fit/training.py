@@ -491,12 +491,11 @@ def _envelope_band(base: dict, top_hz: float) -> tuple[list[int], str]:
 def _op_of(sf: StreamFeatures, params: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Speed (Hz), confidence (Q8) and broadband level (log2 of F_VEL) of each window, from the
     axis the device's op_axis picks (the most confident estimate not pinned at an end of the
-    search range, else the most confident); its speed as the detector takes it (the phase
-    advance where the axis has one: modes_fit.axis_speeds_q8)."""
+    search range, else the most confident)."""
     pa = fi.per_axis(len(params["fc_bands"]))
     axes = params["axes"]
     conf = sf.feats[:, fi.F_SPEED_CONF::pa][:, :axes]
-    sp = modes_fit.axis_speeds_q8(sf.feats, params, pa)
+    sp = sf.feats[:, fi.F_SPEED::pa][:, :axes]
     lo, hi = modes_fit.pinned_limits_q8(params)
     best = np.array([op_axis(row, axes, pa, lo, hi) for row in sf.feats.tolist()], dtype=np.int64)
     rows = np.arange(len(best))
