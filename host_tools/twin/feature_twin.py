@@ -369,7 +369,7 @@ class FeatureTwin:
 
     @staticmethod
     def _mixing(xr, xi, f1, follows):
-        """Each window's mixing speed as half_taps.HalfTaps.run finds it (bins Q8, 0: none): from
+        """Each window's mixing speed as half_taps.HalfTaps.speed finds it (bins Q8, 0: none): from
         the spectra X (xr, xi: windows, m+1) at the bin nearest the window before's own 1x, f1 the
         windows' own (bins Q8, 0 where the window is flat or has none)."""
         f1 = f1.astype(np.int64)
