@@ -58,8 +58,8 @@
 # L <= 4096 of them, |H| < 2**27, and is brought to counts Q8 as round(8 H / L) / 2 * 2**(6 - u)
 # (|.| <= 2**17 * 2**8 for u >= -2: a peak under 2**16 counts). A tap is the two halves' sum, the
 # mean over the triangle's 2 L samples of (x - dc) w / 4096 e**(-i phase): a line of amplitude A
-# counts reads A / 2 (Q8); |tap| < 2**26. x: the window's spectrum X as features left it (fft.spectrum,
-# packed: X[k] at x[2 k], x[2 k + 1]; |.| <= 2**14 a component).
+# counts reads A / 2 (Q8); |tap| < 2**26. x: the window's spectrum X as features left it
+# (fft.spectrum, packed: X[k] at x[2 k], x[2 k + 1]; |.| <= 2**14 a component).
 import micropython
 from array import array
 from micropython import const
@@ -125,7 +125,7 @@ class HalfTaps:
         kb = k[b + _KB] if follows else 0
         if kb and f1_q8:
             x1 = mix_speed(kb, k[b + _KX], k[b + _KX + 1], x[2 * kb], x[2 * kb + 1], f1_q8)
-        kb = (f1_q8 + 128) >> 8         # 2 <= kb < n / 6 in the speed range (speed.check_range)
+        kb = (f1_q8 + 128) >> 8         # 0: no estimate; else 2 <= kb <= n / 6 (speed.check_range)
         k[b + _KB] = kb
         k[b + _KX] = x[2 * kb]
         k[b + _KX + 1] = x[2 * kb + 1]
