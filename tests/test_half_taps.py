@@ -15,6 +15,7 @@ from firmware_py.dsp import tables
 from firmware_py.dsp.fixmath import msb
 from firmware_py.dsp.tables import log2_table
 from host_tools.twin.feature_twin import LEAD_WINDOWS, FeatureTwin, TwinConfig
+from tests.test_orders_envelope import _hann_kernel_sq
 
 N, FS = 512, 3200
 PA = fi.per_axis(0)
@@ -183,16 +184,6 @@ def _images_clear(x1_bins):
     return min(d, hl.BLK - d) > hl.HALF_WIDTH + hl.ALIAS_WIDTH
 
 
-def _hann_kernel(d):
-    """|W(d)| / W(0) of the Hann window d bins from a line (textbook: sin(pi d) / (pi d (1 - d**2)))."""
-    d = abs(d)
-    if d < 1e-9:
-        return 1.0
-    if abs(d - 1) < 1e-9:
-        return 0.5
-    return abs(math.sin(math.pi * d) / (math.pi * d * (1 - d * d)))
-
-
 @pytest.mark.parametrize("x1_bins", [2.05, 2.15, 2.3, 2.45, 3.3])
 def test_mixing_speed_from_the_phase_advance_within_its_derived_bound(x1_bins):
     # A harmonic series (2x at -10 dB, 3x at -20 dB of the 1x) at a known speed, no noise, runs of
@@ -213,6 +204,7 @@ def test_mixing_speed_from_the_phase_advance_within_its_derived_bound(x1_bins):
     tw = FeatureTwin(TwinConfig(n=N, fs_hz=FS, adc_min=-32768, adc_max=32767,
                                 speed_lo_q8=int(12.5 * 256), speed_hi_q8=25 * 256), 1)
     fixed = 4.3 / 65536 + 1 / 512
+    w = lambda d: float(np.sqrt(_hann_kernel_sq(d)))        # noqa: E731  |W(d)|, W(0) = 1
     for phase in np.linspace(0, 2 * np.pi, 7)[:-1]:
         th = 2 * np.pi * f_hz * t + phase
         x = np.round(12000 * sum(a * np.cos((h + 1) * th + h) for h, a in enumerate(amps))).astype(np.int16)
@@ -222,11 +214,11 @@ def test_mixing_speed_from_the_phase_advance_within_its_derived_bound(x1_bins):
         assert (got > 0).all()
         for j in range(2, len(feats)):
             k = int(round(own[j - 2]))
-            others = sum(a * (_hann_kernel((h + 1) * x1_bins - k) * (h > 0) + _hann_kernel(k + (h + 1) * x1_bins))
+            others = sum(a * (w((h + 1) * x1_bins - k) * (h > 0) + w(k + (h + 1) * x1_bins))
                          for h, a in enumerate(amps))
             x_min = np.sqrt(power[j - 2:j, 0, k].astype(float)).min()
             trunc = 15 * math.sqrt(2) * 1.65 / (x_min ** 2 / 8) / (2 * math.pi)
-            e = others / _hann_kernel(x1_bins - k) + (math.log2(N) + 1) / x_min
+            e = others / w(x1_bins - k) + (math.log2(N) + 1) / x_min
             bound = 2 * math.asin(min(1.0, e)) / (2 * math.pi) + fixed + trunc
             assert abs(got[j - 2] - x1_bins) <= bound, (j, got[j - 2], x1_bins, bound)
             assert bound < 0.02     # a fifth of the own estimate's error at 2.3 to 2.45 bins
