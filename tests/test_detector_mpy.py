@@ -176,12 +176,13 @@ p.update(det_flat_rms_q8=0, det_clip_max=BIG, det_dc_lo_q8=[-BIG, -BIG], det_dc_
          det_mode_s_q8=[1] * (8 * d), det_thr_alert_q8=1, det_thr_alarm_q8=2, det_drift_shift=1,
          det_drift_max_q8=1024, det_learn_base_n=40, det_learn_mode_n=60, det_learn_min_n=1,
          det_learn_op_q12=1, det_learn_margin_q8=4096, det_learn_alarm_q8=4096, det_dwell_ms=0,
-         det_persist_ms=160, det_slam_q8=4096, det_slow_ms=600000,   # slow channel: weight
-         det_follow_q8=[(-1) ** j * FOLLOW_MAX for j in range(d)],    # and time constant (4096
+         det_persist_ms=160, det_slam_q8=4096, det_slow_ms=2621440,  # slow channel: weight
+         det_follow_q8=[(-1) ** j * FOLLOW_MAX for j in range(d)],    # and time constant (16384
          det_mfollow_q8=[(-1) ** (j + m) * FOLLOW_MAX for m in range(8) for j in range(d)],
-         det_mslam_q8=[4096] * 8)
+         det_mslam_q8=[4096] * 8, det_wander_ms=40960,  # averages over running time,
+         det_slow_wander=[j % 2 for j in range(d)])     # half the features wandering
 det = Detector(p)                               # windows), the speed slopes, all at their largest
-assert det.ew_shift == 12
+assert det.ew_shift == det.ew_long == 14 and det.ew_wshift == 8
 # a twin that learns from the same absurd stream: no model yet and the guard out of reach, so
 # nothing latches and learning runs to its end
 p.update(det_iso_bounds=[BIG, BIG, BIG], det_modes=0, det_mode_c_q8=[], det_mode_s_q8=[],

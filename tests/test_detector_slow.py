@@ -1,6 +1,7 @@
 """The detector's slow channel (firmware_py/detect/detector.py, _slow): an EWMA of each feature's
-departure, checked against the EWMA chart's textbook formulas, its integer bounds, its resets,
-and the unchanged behaviour of every set that leaves it off (det_slam_q8 = 0)."""
+departure, checked against the EWMA chart's textbook formulas, its weight by the running time a
+window stands for (the credit of unwatched time), its integer bounds, its resets, and the
+unchanged behaviour of every set that leaves it off (det_slam_q8 = 0)."""
 from array import array
 
 import numpy as np
@@ -43,7 +44,17 @@ def _ewma(det, m=None):
     """The slow channel's per-feature EWMA of mode m (default: the window's mode, else 0), Q8
     spreads."""
     m = (det.mode if det.mode >= 0 else 0) if m is None else m
-    return [a >> det.ew_shift for a in det.ew_acc[m * det.d:(m + 1) * det.d]]
+    return [a >> det.ew_long for a in det.ew_acc[m * det.d:(m + 1) * det.d]]
+
+
+def _sparse(det, f, t):
+    """One window of a sparse stream: SPARSE_S unwatched seconds, then the window. Every window
+    then stands for unwatched time, so each weighs 2**-ew_shift (the plain EWMA recursion)."""
+    det.gap(SPARSE_S)
+    return det.step(f, t, 0)
+
+
+SPARSE_S = 400               # > the 327.5 s a window spends at the shortest shift below (3), < 1 h
 
 
 def test_shift_is_the_nearest_power_of_two_of_the_time_constant():
@@ -52,7 +63,82 @@ def test_shift_is_the_nearest_power_of_two_of_the_time_constant():
     for ms, shift in ((5000, 5), (2500, 4), (3500, 4), (3700, 5), (0, 0), (160, 0)):
         assert Detector(_params(1, det_slow_ms=ms)).ew_shift == shift
     with pytest.raises(ValueError):
-        Detector(_params(1, det_slow_ms=4097 * 2 * W_MS))      # beyond 4096 windows
+        Detector(_params(1, det_slow_ms=16385 * 2 * W_MS))     # beyond 16384 windows
+    # running time (with det_wander_ms): SLOW_HALF_S = 3600 s is 22 500 windows of 0.16 s,
+    # under 16384 * sqrt(2) = 23 170: 2**14; without it the accumulator's scale is the one shift
+    assert Detector(_params(1, det_wander_ms=40960)).ew_long == 14
+    assert Detector(_params(1)).ew_long == Detector(_params(1)).ew_shift == 6
+
+
+def test_averages_weigh_the_running_time_a_window_stands_for():
+    # docs/detector.md (Slow channel): with det_wander_ms the averages run over running time. A
+    # wandering feature's (det_slow_wander 1) time constant is 2**L windows (L = 14, the power
+    # of two nearest an hour of 0.16 s windows); a window that follows unwatched time stands for
+    # 2**r of them (r = L - w, w = 5 from det_wander_ms: 2**9) and so weighs 2**-5, while the
+    # mode's credit of that time lasts, and a window of unbroken running weighs 2**-14. A
+    # flickering feature (0) weighs 2**-s (s = 3 from det_slow_ms) and 2**-(s + r) = 2**-12.
+    # A fresh detector's credit is full: 2**s = 8 windows' worth, each spending (2**9 - 1) * 160
+    # = 81 760 ms. A step of delta spreads follows the recursion's closed form with the weights
+    # in that order, delta * (1 - (1 - 2**-w)**min(k, 8) * (1 - 2**-L)**max(k - 8, 0)) (Roberts
+    # 1959; Montgomery, EWMA chapter; likewise s, s + r).
+    # Integer arithmetic floors once a window in units of 2**-14 of a Q8 spread, so the error
+    # stays under 1/256 spread.
+    d, delta = 2, 1.5
+    det = Detector(_params(d, det_slow_ms=8 * W_MS, det_wander_ms=32 * W_MS, det_slow_wander=[1, 0]))
+    assert (det.ew_shift, det.ew_wshift, det.ew_long, det.ew_frun, det.ew_spend_ms) == (3, 5, 14, 12, 81760)
+    assert det.ew_cap_ms == 8 * 81760 and det.ew_credit_ms[0] == det.ew_cap_ms
+    f = _frame(d)
+    f[fi.F_BAND0] = f[fi.F_BAND0 + 1] = int(delta * SD)
+
+    def ref(k, kc, a, b):
+        return delta * (1 - (1 - 2.0 ** -a) ** min(k, kc) * (1 - 2.0 ** -b) ** max(k - kc, 0))
+
+    for k in range(1, 400):
+        det.step(f, k, 0)
+        assert abs(_ewma(det)[0] / 256 - ref(k, 8, 5, 14)) < 1 / 256
+        assert abs(_ewma(det)[1] / 256 - ref(k, 8, 3, 12)) < 1 / 256
+    # 10 minutes unwatched (a gap, or the pump stopped or in another mode): the first second is
+    # not counted, the rest is credit for floor(599 000 / 81 760) = 7 windows at 2**-5; an hour
+    # would be capped at 8
+    e0 = _ewma(det)[0] / 256
+    det.gap(600)
+    for k in range(1, 20):
+        det.step(f, 400 + k, 0)
+        w = (1 - 2.0 ** -5) ** min(k, 7) * (1 - 2.0 ** -14) ** max(k - 7, 0)
+        assert abs(_ewma(det)[0] / 256 - (delta - (delta - e0) * w)) < 1 / 256
+    # and the test can fail: one more credited window would move it by 1/32 of the rest, > 1/256
+    assert (delta - e0) * (1 - 2.0 ** -5) ** 7 * 2.0 ** -5 > 1 / 256
+    # 50 minutes unwatched (under the hour that halves evidence): capped at 8 credited windows
+    f[fi.F_BAND0] = 0
+    e0 = _ewma(det)[0] / 256
+    det.gap(3000)
+    for k in range(1, 20):
+        det.step(f, 500 + k, 0)
+        w = (1 - 2.0 ** -5) ** min(k, 8) * (1 - 2.0 ** -14) ** max(k - 8, 0)
+        assert abs(_ewma(det)[0] / 256 - e0 * w) < 1 / 256
+    # a set without det_wander_ms weighs every window 2**-s, credit or not (the earlier rule)
+    f[fi.F_BAND0] = int(delta * SD)
+    det = Detector(_params(d, det_slow_ms=8 * W_MS, det_slow_wander=[1, 0]))
+    assert (det.ew_long, det.ew_spend_ms) == (3, 0)
+    for k in range(1, 100):
+        det.step(f, k, 0)
+        assert _ewma(det)[0] == _ewma(det)[1] and abs(_ewma(det)[0] / 256 - ref(k, k, 3, 3)) < 1 / 256
+
+
+def test_wander_flags_are_checked():
+    good = {**_params(2), "version": 1, "board": "b", "fs_hz": 3200, "n": 512, "axes": 1,
+            "counts_per_g": 256, "fc_bands": [[3, 8]] * 2, "fc_vel_hz": [10, 1000]}
+    prof = {"name": "b", "sample_rate_hz": 3200, "window_n": 512, "axes": 1}
+    for ok in ([], [0, 1], [1, 1]):
+        param_check.validate({**good, "det_slow_wander": ok}, prof)
+        Detector({**good, "det_slow_wander": ok})
+    for bad in ([1], [0, 2], [0, 1, 0]):
+        with pytest.raises(ValueError):
+            param_check.validate({**good, "det_slow_wander": bad}, prof)
+        with pytest.raises(ValueError):
+            Detector({**good, "det_slow_wander": bad})
+    with pytest.raises(ValueError):
+        param_check.validate({**good, "det_wander_ms": 600001}, prof)
 
 
 def test_ewma_sd_and_mean_against_the_ewma_chart_formula():
@@ -71,7 +157,7 @@ def test_ewma_sd_and_mean_against_the_ewma_chart_formula():
     ew = np.empty((n, d))
     for i, row in enumerate(x.tolist()):
         f[fi.F_BAND0:fi.F_BAND0 + d] = array("i", row)
-        det.step(f, i, 0)
+        _sparse(det, f, i)                 # each window after unwatched time: weight 2**-3
         ew[i] = _ewma(det)
     ew = ew[20 << shift:] / 256.0          # past the start-up: (1 - lam)**160 < 1e-9 of it left
     z = stats.norm
@@ -84,6 +170,7 @@ def test_ewma_sd_and_mean_against_the_ewma_chart_formula():
     # independent, so pooled errors shrink by sqrt(d). 4 standard errors, plus the quantisation:
     # z is floored to 1/256 spread and the EWMA floored to 1/256, a bias of at most 2/256 spread
     # in the mean and a variance change of at most 2 * (1/256)**2 / 12 (negligible, added).
+    # (The recursion keeps 2**-14 of a Q8 spread; the read floors to 1/256.)
     rho = 1 - lam
     k = len(ew)
     se_var = sd_ref ** 2 * np.sqrt(2 / (k * d) * (1 + rho ** 2) / (1 - rho ** 2))
@@ -94,11 +181,12 @@ def test_ewma_sd_and_mean_against_the_ewma_chart_formula():
 
 
 def test_step_response_and_driving_feature():
-    # A step of delta spreads on feature 2 (from 0): the EWMA after k windows is
-    # delta * (1 - (1 - lam)**k) (the recursion's closed form, Montgomery, EWMA chapter). Integer
-    # arithmetic: the accumulator keeps every bit (ew_acc = EWMA * 2**shift, floored once per
-    # window), so the error is under 1 / 256 spread at every k. With the slow channel weighted
-    # 8x it drives the score once 8 x EWMA passes the distance (the step itself: delta).
+    # A step of delta spreads on feature 2 (from 0), in sparse windows (each after unwatched
+    # time: weight lam = 2**-shift): the EWMA after k windows is delta * (1 - (1 - lam)**k) (the
+    # recursion's closed form, Montgomery, EWMA chapter). Integer arithmetic: the accumulator
+    # keeps 2**-14 of a Q8 spread (ew_acc = EWMA * 2**ew_long, floored once per window), so the
+    # error is under 1 / 256 spread at every k. With the slow channel weighted 8x it drives the
+    # score once 8 x EWMA passes the distance (the step itself: delta).
     d, shift, delta = 3, 5, 1.5
     lam = 2.0 ** -shift
     det = Detector(_params(d, det_slow_ms=32 * W_MS, det_slam_q8=8 * 256, det_zlam_q8=256))
@@ -106,7 +194,7 @@ def test_step_response_and_driving_feature():
     det.step(f, 0, 0)
     f[fi.F_BAND0 + 2] = int(delta * SD)
     for k in range(1, 200):
-        det.step(f, k, 0)
+        _sparse(det, f, k)
         ref = delta * (1 - (1 - lam) ** k)
         assert abs(_ewma(det)[2] / 256 - ref) < 1 / 256 + 1e-12
         assert det.smax_q8 == _ewma(det)[2]
@@ -203,24 +291,24 @@ def test_evidence_gathers_only_at_the_speeds_the_mode_was_trained_at():
     f[fi.F_BAND0] = 2 * SD
     f[fi.F_SPEED] = 20 * 256
     for i in range(20):
-        det.step(f, i, 0)
+        _sparse(det, f, i)
     assert det.mode == 0 and abs(_ewma(det)[0] / 256 - 2 * (1 - (1 - lam) ** 20)) < 1 / 256
     kept = list(det.ew_acc)
     f[fi.F_SPEED] = 16 * 256
     for i in range(20, 40):
-        det.step(f, i, 0)
+        _sparse(det, f, i)
         assert det.mode == 0 and det.dist_q8 >= 2 * 256 - 1 and list(det.ew_acc) == kept
         assert det.smax_q8 == _ewma(det)[0] > 0 and det.score_q8 >= det.smax_q8
     f[fi.F_SPEED] = 20 * 256
     for i in range(40, 60):
-        det.step(f, i, 0)
+        _sparse(det, f, i)
     assert abs(_ewma(det)[0] / 256 - 2 * (1 - (1 - lam) ** 40)) < 2 / 256
     # a set without the key (or with it empty) gathers evidence anywhere in the range
     for q in ({k: v for k, v in p.items() if k != "det_op_seen_q8"}, {**p, "det_op_seen_q8": []}):
         det = Detector(q)
         f[fi.F_SPEED] = 16 * 256
         for i in range(20):
-            det.step(f, i, 0)
+            _sparse(det, f, i)
         assert abs(_ewma(det)[0] / 256 - 2 * (1 - (1 - lam) ** 20)) < 1 / 256
     assert Detector(p).export()["det_op_seen_q8"] == [18 * 256, 22 * 256]
 
@@ -259,17 +347,19 @@ def test_a_modes_evidence_halves_for_every_full_hour_it_was_not_scored():
     # detector.SLOW_HALF_S: the accumulators of a mode are shifted right once per full hour of
     # the detector's clock (windows of n / fs s, plus the seconds det.gap(s) reports) since the
     # mode was last scored. Exact integers: the acc is an int, halved by >>, then one window's
-    # update acc += t - (acc >> shift) (the recursion, docs/detector.md).
+    # update acc += (t << (L - s)) - (acc >> s) (the recursion, docs/detector.md; the window
+    # follows unwatched time, so it weighs 2**-s).
     det, f = _two_s_up()
+    sh, up = det.ew_shift, det.ew_long - det.ew_shift
     acc = det.ew_acc[0]
     det.gap(2 * SLOW_HALF_S + 5)              # 2 h 5 s missing: two halvings
     det.step(f, 40, 0)
     half = acc >> 2
-    assert det.ew_acc[0] == half + 512 - (half >> det.ew_shift)
+    assert det.ew_acc[0] == half + (512 << up) - (half >> sh)
     acc = det.ew_acc[0]
     det.gap(SLOW_HALF_S - 1)                  # 1 s short of an hour (the window's 0.16 s do
     det.step(f, 41, 0)                        # not make it up): no halving
-    assert det.ew_acc[0] == acc + 512 - (acc >> det.ew_shift)
+    assert det.ew_acc[0] == acc + (512 << up) - (acc >> sh)
     # stopped windows count on the clock too: 22 500 windows of 0.16 s are exactly an hour
     acc = det.ew_acc[0]
     f[fi.F_VEL] = IDLE - 1
@@ -278,20 +368,21 @@ def test_a_modes_evidence_halves_for_every_full_hour_it_was_not_scored():
     f[fi.F_VEL] = VEL_PER_MM_S
     det.step(f, 30000, 0)
     half = acc >> 1
-    assert det.ew_acc[0] == half + 512 - (half >> det.ew_shift)
+    assert det.ew_acc[0] == half + (512 << up) - (half >> sh)
 
 
 def test_the_clock_rebases_and_keeps_every_age_right():
     # Gaps of _GAP_MAX_S push the clock over 2**29 s; it moves back by 2**28 with the modes'
     # times, so every value stays a small int (< 2**30 on the device) and the age is unchanged:
-    # 40 gaps of 194 days are thousands of halvings, capped at 28, which leave 0 of a positive
-    # accumulator.
+    # 40 gaps of 194 days are thousands of halvings, capped at 29, which leave 0 of a positive
+    # accumulator; the credit is full, so the one window's update weighs 2**-s.
     det, f = _two_s_up()
     for _ in range(40):
         det.gap(1 << 24)
         assert det.clock_s < 1 << 29 and all(-(1 << 28) <= v < 1 << 29 for v in det.ew_seen_s)
     det.step(f, 40, 0)
-    assert det.ew_acc[0] == 512                # the old evidence gone, one window's update left
+    assert det.ew_acc[0] == 512 << (det.ew_long - det.ew_shift)   # the old evidence gone, one
+    assert det.ew_credit_ms[0] == det.ew_cap_ms - det.ew_spend_ms  # window's update left
 
 
 def _stream(d, n, seed):
@@ -359,22 +450,23 @@ def test_slow_channel_keys_are_range_checked():
 
 def test_accumulator_stays_under_its_bound_at_the_extremes():
     # The departures the EWMA averages lie in [-768, 32767] Q8 (modes.ModeModel.distance); at the
-    # longest time constant (shift 12) ew_acc = EWMA * 2**12 must stay within 32767 * 2**12 + 1 <
-    # 2**27 (the docstring's bound; small ints on the device end at 2**30), and the EWMA must
-    # reach the input (no precision lost to the shift). Driven directly: at shift 12 settling
-    # takes tens of thousands of windows.
+    # longest time constant (shift 14) ew_acc = EWMA * 2**14 must stay within 32767 * 2**14 + 1 <
+    # 2**29 (the docstring's bound; small ints on the device end at 2**30), and the EWMA must
+    # reach the input (no precision lost to the shift). Driven directly: at shift 14 settling
+    # takes 12 * 16384 windows, which leave (1 - 2**-14)**(12 * 16384) < e**-12 of the 33 535
+    # Q8 between the extremes, 0.2 Q8: within the last bit.
     d = 2
-    det = Detector(_params(d, det_slow_ms=4096 * W_MS))
-    assert det.ew_shift == 12
+    det = Detector(_params(d, det_slow_ms=16384 * W_MS))
+    assert det.ew_shift == det.ew_long == 14
     t = det.model.t_q8
-    bound = 32767 * 4096 + 1
+    bound = 32767 * 16384 + 1
     for hi, lo in ((32767, -768), (-768, 32767)):
         t[0], t[1] = hi, lo
         top = 0
-        for _ in range(20 * 4096):
+        for _ in range(12 * 16384):
             det._slow(0)
             top = max(top, max(abs(a) for a in det.ew_acc))
-        assert top <= bound < 1 << 27
+        assert top <= bound < 1 << 29
         assert _ewma(det) == [hi, lo] or max(abs(e - v) for e, v in zip(_ewma(det), (hi, lo))) <= 1
 
 
@@ -395,7 +487,7 @@ def test_per_feature_gains_weigh_each_ewma():
     for j, s in enumerate(steps):
         f[fi.F_BAND0 + j] = int(s * SD)
     for k in range(1, 120):
-        det.step(f, k, 0)
+        _sparse(det, f, k)
         ref = [s * g / 256 * (1 - (1 - lam) ** k) for s, g in zip(steps, gains)]
         assert abs(det.smax_q8 / 256 - max(ref)) <= (max(gains) / 256 + 1) / 256 + 1e-12
         if k > 10:
@@ -466,6 +558,36 @@ def test_training_gains_from_ewma_spread():
     floor2 = lam / (2 - lam)
     q8b, _ = sgain_q8(np.array([floor2, 4.0, 1e-12]) * len(e), len(e), shift)
     assert q8b[2] == q8b[0] == 256 and q8b[1] == round(256 * np.sqrt(floor2) / 2)
+
+
+def test_training_names_the_features_whose_averages_wander():
+    # training.slow_wander: a feature wanders when its held-out EWMA's r.m.s. is at least
+    # WANDER_RATIO (2) times sqrt(lam / (2 - lam)), the EWMA spread of independent unit
+    # departures (Montgomery, EWMA chart). For AR(1) input of coefficient phi that ratio is
+    # sqrt((1 + (1 - lam) phi) / (1 - (1 - lam) phi)) (as in the test above): at lam = 1/16,
+    # 1 for phi = 0 (flickers), 1.66 for phi = 0.5 (flickers), 3.43 for phi = 0.9 (wanders).
+    # 200 000 values put each ratio within 4 Bartlett s.e. (1.2 % here) of its value, far from 2.
+    # A feature averaged already (the half-order prominence) never wanders, however it moves.
+    from scipy.signal import lfilter
+    from host_tools.fit.training import WANDER_RATIO, sgain_q8, slow_wander
+    shift, n = 4, 200_000
+    lam = 2.0 ** -shift
+    rng = np.random.default_rng(4)
+    x = rng.standard_normal((n, 4))
+    for j, phi in ((1, 0.5), (2, 0.9), (3, 0.9)):
+        x[:, j] = lfilter([np.sqrt(1 - phi ** 2)], [1, -phi], x[:, j])
+    e = lfilter([lam], [1, -(1 - lam)], x, axis=0)[1000:]
+    ratio = [np.sqrt((1 + (1 - lam) * phi) / (1 - (1 - lam) * phi)) for phi in (0, 0.5, 0.9)]
+    assert ratio[1] < WANDER_RATIO < ratio[2]
+    flags, why = slow_wander((e * e).sum(0), len(e), shift, [False, False, False, True])
+    assert flags == [0, 0, 1, 0] and why.startswith("1 of 4 features wander")
+    assert slow_wander(np.zeros(4), 0, shift)[0] == [0] * 4
+    # the gains then floor each feature at its own EWMA's independent-departure spread: a
+    # wandering one at its longer time constant's (shift 6: sqrt(1/127)), so a feature quieter
+    # than that still weighs as one at it
+    lo = (2.0 ** -6) / (2 - 2.0 ** -6)
+    q8, _ = sgain_q8(np.array([lam / (2 - lam), 1e-12, lo]) * 1000, 1000, [shift, 6, 6])
+    assert q8[1] == q8[2] and abs(q8[0] / q8[2] - np.sqrt(lo / (lam / (2 - lam)))) < 1 / 256
 
 
 def test_training_weighs_each_mode_against_its_own_held_out_running():

@@ -89,6 +89,10 @@ PARAM_KEYS = (
     "det_conf_min_q8",      # least F_SPEED_CONF for a usable speed estimate, Q8 (256 = 1)
     "det_zlam_q8",          # weight of the per-feature channel in the combined score, Q8
     "det_slow_ms",          # slow channel: EWMA time constant, nearest 2**shift analysed windows
+    "det_wander_ms",        # slow channel: the same for a wandering feature's window that stands
+                            # for unwatched time (_slow), nearest 2**shift analysed windows
+    "det_slow_wander",      # per scored feature, 1 where its average wanders with the process:
+                            # it averages over running time (_slow) ([] = none)
     "det_slam_q8",          # weight of the slow channel in the combined score, Q8 (0 = off)
     "det_mslam_q8",         # k: each mode's own weight of the slow channel, Q8 ([] = det_slam_q8
                             # in every mode)
@@ -141,13 +145,18 @@ PARAM_KEYS = (
 # without det_follow_q8 (or with it empty) no level follows the speed, as before; without
 # det_op_seen_q8 (or with it empty) the slow channel gathers evidence anywhere in a mode's range;
 # without det_mfollow_q8 (or with it empty) no mode has slopes of its own; without det_mslam_q8
-# (or with it empty) every mode weighs its slow channel by det_slam_q8
+# (or with it empty) every mode weighs its slow channel by det_slam_q8; without det_slow_wander
+# (or with it empty) every feature's EWMA runs over scored windows (det_slow_ms), as before, and
+# without det_wander_ms a wandering one's time constant is det_slow_ms
 LATER_KEYS = ("det_slow_ms", "det_slam_q8", "det_sgain_q8", "det_follow_q8", "det_op_seen_q8",
-              "det_mfollow_q8", "det_mslam_q8")
+              "det_mfollow_q8", "det_mslam_q8", "det_wander_ms", "det_slow_wander")
 SGAIN_MAX = const(4096)    # largest per-feature slow weight, Q8 (16)
-_SHIFT_MAX = const(12)     # slow channel: at most 4096 windows, so |ew_acc| <= 32767 * 2**12 + 1
+# slow channel: in unbroken running a window weighs 2**-long, long the shift nearest SLOW_HALF_S
+# of windows, at most _SHIFT_MAX (16384 windows), so |ew_acc| <= 32767 * 2**14 + 1 < 2**29
+_SHIFT_MAX = const(14)
 # A mode's slow-channel evidence halves for every full SLOW_HALF_S seconds it was not scored
-# (other modes, stops, gaps): kept over a stop or an excursion, gone after a day away.
+# (other modes, stops, gaps): kept over a stop or an excursion, gone after a day away. In unbroken
+# running the channel averages over the same hour.
 SLOW_HALF_S = const(3600)
 _CLOCK_REBASE = const(1 << 29)   # the detector's clock (s) is moved back by 2**28 past this
 _GAP_MAX_S = const(1 << 24)      # longest gap counted at once (194 days): the clock stays small
@@ -388,6 +397,27 @@ class Detector:
             if not 0 <= self.sgain_q8[j] <= SGAIN_MAX:
                 raise ValueError("det_sgain_q8 must hold ints in [0, %d]" % SGAIN_MAX)
         self.ew_shift = _shift_for(windows_for(_int(q, "det_slow_ms", 0, _BIG), n, fs, every))
+        # with det_wander_ms, averages run over running time (_slow): a wandering feature's over
+        # 2**ew_long windows (the shift nearest SLOW_HALF_S, at most _SHIFT_MAX), whose window
+        # after unwatched time stands for 2**(ew_long - ew_wshift) of them; a flickering one's
+        # over that many times 2**ew_shift (ew_frun). Without it every window weighs 2**-ew_shift.
+        self.ew_wshift = self.ew_shift
+        lg = self.ew_shift
+        if p.get("det_wander_ms") is not None:
+            self.ew_wshift = _shift_for(windows_for(_int(p, "det_wander_ms", 0, _BIG), n, fs, every))
+            lg = _shift_for(windows_for(1000 * SLOW_HALF_S, n, fs, every))
+            lg = lg if lg < _SHIFT_MAX else _SHIFT_MAX
+            lg = lg if lg > self.ew_wshift else self.ew_wshift
+            lg = lg if lg > self.ew_shift else self.ew_shift
+        self.ew_long = lg
+        r = lg - self.ew_wshift
+        self.ew_frun = self.ew_shift + r if self.ew_shift + r < lg else lg
+        wf = p.get("det_slow_wander") or [0] * d
+        self.wander = array("b", bytes(d))        # 1: a wandering feature (its average: 2**ew_long)
+        for j, v in enumerate(_ints({"det_slow_wander": wf}, "det_slow_wander", d)):
+            if v != 0 and v != 1:
+                raise ValueError("det_slow_wander must hold 0 or 1")
+            self.wander[j] = v
         # per scored feature, its slope on log2 of the speed within a mode (Q8 octaves per
         # octave, 0 = a fixed centroid): a level brought to the mode's reference speed before scoring
         self.follow_q8 = array("h", bytes(2 * d))
@@ -406,8 +436,15 @@ class Detector:
         self.win_ms = min((1000 * n * every) // fs, 1 << 20)
         self.clock_s = 0
         self.clock_ms = 0
-        if self.ew_shift > _SHIFT_MAX:
-            raise ValueError("det_slow_ms spans more than %d analysed windows" % (1 << _SHIFT_MAX))
+        if self.ew_shift > _SHIFT_MAX or self.ew_wshift > _SHIFT_MAX:
+            raise ValueError("det_slow_ms or det_wander_ms spans more than %d analysed windows" % (1 << _SHIFT_MAX))
+        # a window that stands for time the mode was not watched (its credit) counts as
+        # 2**(ew_long - ew_wshift) windows: it spends the time of those beyond its own (ms); the
+        # credit is capped at 2**ew_shift such windows (a snapshot's worth): a longer stretch of
+        # unbroken running holds little more of a wander than a snapshot does
+        self.ew_spend_ms = ((1 << (self.ew_long - self.ew_wshift)) - 1) * self.win_ms
+        self.ew_cap_ms = min((1 << self.ew_shift) * self.ew_spend_ms, 1 << 28)
+        self.ew_cap_s = self.ew_cap_ms // 1000 + 1
         self.thr_alert_q8 = _int(p, "det_thr_alert_q8", 1, 1 << 16)
         self.thr_alarm_q8 = _int(p, "det_thr_alarm_q8", 1, 1 << 16)
         self.hyst_q8 = _int(p, "det_hyst_q8", 1, 256)
@@ -461,11 +498,14 @@ class Detector:
         self.ord_axis = array("b", bytes(d))
         self.held = array("b", bytes(d))          # 1 where _mask_lines neutralised the line
         # slow channel: per scored feature the EWMA of its departure t_j, kept as the accumulator
-        # ew_acc = EWMA * 2**ew_shift (Q8 spreads << ew_shift) so that no precision is lost to
+        # ew_acc = EWMA * 2**ew_long (Q8 spreads << ew_long) so that no precision is lost to
         # the shift (a plain Q8 EWMA would stick up to 2**shift LSB from its input); mode m's at
         # m * d, each mode's against its own centroid
         self.ew_acc = array("i", bytes(4 * d * KMAX))
         self.ew_seen_s = array("i", bytes(4 * KMAX))   # clock_s when each mode was last scored
+        self.ew_credit_ms = array("i", bytes(4 * KMAX))  # each mode's unwatched time not yet spent, ms
+        for m in range(KMAX):
+            self.ew_credit_ms[m] = self.ew_cap_ms     # nothing known yet: as after long unwatched
         self.s_drive = 0                          # j of the largest EWMA (smax_q8)
         # per scored feature: the axis of a half-order prominence (F_HALF), which this detector
         # keeps itself (self.half), else -1 (see _transform)
@@ -1025,39 +1065,67 @@ class Detector:
 
     def _slow(self, m):
         """The slow channel: each feature's departure t_j (md.t_q8, within [-768, 32767] Q8)
-        enters its EWMA with weight 2**-shift, ew_acc += t - (ew_acc >> shift), so ew_acc >> shift
-        is the EWMA in Q8 spreads and |ew_acc| <= 32767 * 2**shift + 1 < 2**27 (shift <= 12). A
-        line neutralised by _mask_lines carries no evidence: its EWMA holds. Each mode m keeps its
-        own accumulators (ew_acc[m * d:(m + 1) * d]), the departures being against its centroid, so
-        a return to a mode resumes its evidence, halved for every full SLOW_HALF_S seconds of the
-        clock since the mode was last scored (an arithmetic shift: a negative accumulator tends to
-        -1, an EWMA of -1/2**shift LSB, which cannot drive smax). smax = the largest weighted EWMA
-        (EWMA * sgain_q8 >> 8, Q8; |EWMA| <= 32767 and sgain <= 4096, so the product < 2**27), at
-        least 0 (rises only, like zmax); s_drive its j. At a speed outside the span mode m was
-        trained at (det_op_seen_q8) every EWMA holds: the centroid is known only there, and a
-        small lasting offset of a trim the model never saw is the operating point, not health;
-        the evidence gathered so far is still read."""
+        enters its EWMA, kept as ew_acc = EWMA * 2**L (L = ew_long), with weight 2**-k:
+        ew_acc += (t << (L - k)) - (ew_acc >> k), so |ew_acc| <= 32767 * 2**L + 1 < 2**29
+        (L <= 14). A set without det_wander_ms: k = ew_shift in every scored window (L = ew_shift
+        too). With it, the averages run over running time. A mode scored again after time
+        unwatched (a gap between snapshots, other modes, a stop) gains that time as credit
+        (whole seconds past the first, ms); while it lasts a window stands for 2**r windows (r =
+        L - ew_wshift) and spends the time of those beyond its own, for at most 2**ew_shift
+        windows (the cap: a 60-s recording holds little more of a slow wander than a snapshot).
+        A wandering feature (det_slow_wander 1: its level moves with the process for longer
+        than a snapshot lasts, the 1x line with the load) then weighs 2**-ew_wshift, a
+        flickering one (0: its departures are the window's own noise) 2**-ew_shift. In unbroken
+        running (no credit) a window is its own share of the same running time: 2**-L and
+        2**-(ew_shift + r) (ew_frun). So half-hourly snapshots average some five of them in a
+        wandering feature and two in a flickering one, as over scored windows, and unbroken
+        running an hour and some 11 min, not seconds of a wander slower than that, which
+        training never saw as a whole. A line neutralised by _mask_lines carries no evidence:
+        its EWMA holds. Each mode m keeps its own accumulators (ew_acc[m * d:(m + 1) * d]), the
+        departures being against its centroid, so a return to a mode resumes its evidence,
+        halved for every full SLOW_HALF_S seconds of the clock since the mode was last scored
+        (an arithmetic shift: a negative accumulator tends to -1, an EWMA of -1/2**L LSB, which
+        cannot drive smax). smax = the largest weighted EWMA (EWMA * sgain_q8 >> 8, Q8; |EWMA|
+        <= 32767 and sgain <= 4096, so the product < 2**27), at least 0 (rises only, like
+        zmax); s_drive its j. At a speed outside the span mode m was trained at
+        (det_op_seen_q8) every EWMA holds and no credit is spent: the centroid is known only
+        there, and a small lasting offset of a trim the model never saw is the operating point,
+        not health; the evidence gathered so far is still read."""
         b = m * self.d
         acc = self.ew_acc
         away = self.clock_s - self.ew_seen_s[m]
         if away >= SLOW_HALF_S:
             h = away // SLOW_HALF_S
-            h = h if h < 28 else 28                # |acc| < 2**27: 0 or -1 after 28
+            h = h if h < 29 else 29                # |acc| < 2**29: 0 or -1 after 29
             for j in range(self.d):
                 acc[b + j] >>= h
+        cr = self.ew_credit_ms[m]
+        if away > 1:
+            # away can reach 2**29 s: capped before the product, which stays a small int
+            cr += (away - 1) * 1000 if away <= self.ew_cap_s else self.ew_cap_ms
+            cr = cr if cr < self.ew_cap_ms else self.ew_cap_ms
         self.ew_seen_s[m] = self.clock_s
         t = self.model.t_q8
         g = self.sgain_q8
-        sh = self.ew_shift
+        lg = self.ew_long
+        ks = self.ew_shift
         op = self.op_on                           # held[] is set only with operating points
         sp = self.speed_q8
         seen = not self.seen_on or self.op_seen_q8[2 * m] <= sp <= self.op_seen_q8[2 * m + 1]
+        kw = lg
+        kf = self.ew_frun
+        if seen and cr >= self.ew_spend_ms:
+            cr -= self.ew_spend_ms
+            kw = self.ew_wshift
+            kf = ks
+        self.ew_credit_ms[m] = cr
         top = 0
         self.s_drive = 0
         for j in range(self.d):
             if seen and not (op and self.held[j]):
-                acc[b + j] += t[j] - (acc[b + j] >> sh)
-            e = ((acc[b + j] >> sh) * g[j]) >> 8
+                k = kw if self.wander[j] else kf
+                acc[b + j] += (t[j] << (lg - k)) - (acc[b + j] >> k)
+            e = ((acc[b + j] >> lg) * g[j]) >> 8
             if e > top:
                 top = e
                 self.s_drive = j
@@ -1069,6 +1137,8 @@ class Detector:
         the machine's condition."""
         for j in range(self.d * KMAX):
             self.ew_acc[j] = 0
+        for m in range(KMAX):
+            self.ew_credit_ms[m] = self.ew_cap_ms   # nothing known: like a long time unwatched
 
     def _mask_lines(self, f, m):
         """Order and envelope lines and the half-order prominence of an axis whose own 1x
@@ -1278,15 +1348,16 @@ def footprint_bytes(axes):
     takes less. Used by board profiles to check the heap budget."""
     d = DMAX
     # per scored feature, 5 int arrays (idx, mean0_q4, sgain_q8, u, z), the slow channel's
-    # accumulators of every mode (ew_acc), 4 byte arrays (logf, ord_axis, held, half_axis), the
-    # int16 follow slopes and those of every mode (mfollow_q8)
-    feat_b = 4 * 5 * d + 4 * d * KMAX + 4 * d + 2 * d + 2 * d * KMAX
+    # accumulators of every mode (ew_acc), 5 byte arrays (logf, ord_axis, held, half_axis,
+    # wander), the int16 follow slopes and those of every mode (mfollow_q8)
+    feat_b = 4 * 5 * d + 4 * d * KMAX + 5 * d + 2 * d + 2 * d * KMAX
     feat_b += 2 * KMAX                            # mslam_q8: each mode's slow weight, int16
     model_b = 2 * modes.footprint_bytes(d)        # the model in use and the one being learned
     learn_b = welford.footprint_bytes(d) + welford.footprint_bytes(d * KMAX) \
         + welford.footprint_bytes(KMAX)           # wb, wm, lsp
-    op_b = 4 * 4 * 2 * KMAX + 2 * 4 * KMAX        # op_speed_q8, op_load_q8, op_seen_q8, lop_q8:
-                                                  # lo, hi a mode; ew_seen_s, op_ref_q8: one int
+    op_b = 4 * 4 * 2 * KMAX + 3 * 4 * KMAX        # op_speed_q8, op_load_q8, op_seen_q8, lop_q8:
+                                                  # lo, hi a mode; ew_seen_s, ew_credit_ms,
+                                                  # op_ref_q8: one int
     axis_b = 5 * 4 * axes                         # dc_lo, dc_hi, stuck, zero, knock_crest
     steady_b = 3 * 4 * _STEADY_MAX                # ring_speed_q8, ring_level_q8, sort_q8
     misc_b = 4 * 3 + 2 * LOG2_N + 4 * len(WHY_NAMES)   # iso bounds, log2 table, n_why

@@ -34,9 +34,9 @@ _SIZED = ("det_base_mean_q4", "det_base_sd_q4")        # one int per scored feat
 _MODEL = ("det_mode_c_q8", "det_mode_s_q8")            # det_modes x scored features
 _AXIAL = ("det_dc_lo_q8", "det_dc_hi_q8", "det_stuck_max", "det_zero_max",
           "det_knock_crest_q12")                       # one int per axis
-# slow channel (docs/detector.md, Score): weight Q8 up to 16; time constant up to 10 min (the
-# Detector also refuses one over 4096 analysed windows on this board's time base)
-_RANGED = (("det_slam_q8", 1 << 12), ("det_slow_ms", 600000))
+# slow channel (docs/detector.md, Score): weight Q8 up to 16; time constants up to 10 min (the
+# Detector also refuses one over 16384 analysed windows on this board's time base)
+_RANGED = (("det_slam_q8", 1 << 12), ("det_slow_ms", 600000), ("det_wander_ms", 600000))
 
 
 def _is_int(v):
@@ -109,6 +109,10 @@ def validate(p, profile):
         _int_list(p, k, d)
     if p.get("det_sgain_q8"):                             # absent or [] = 256 each (detector)
         _int_list(p, "det_sgain_q8", d)
+    if p.get("det_slow_wander"):                          # absent or [] = none wanders (detector)
+        for v in _int_list(p, "det_slow_wander", d):
+            if v not in (0, 1):
+                raise ValueError("'det_slow_wander' must hold 0 or 1 per scored feature")
     if p.get("det_follow_q8"):                            # absent or [] = fixed centroids
         _int_list(p, "det_follow_q8", d)
     k_modes = p["det_modes"]

@@ -78,8 +78,17 @@ MIN_HOURS = 1.0           # less scored running time than this is thin training 
 # independent departures is sqrt(1/127) = 0.089 of a window's and that it averages a level's
 # wander of 15-45 s more than 5 s did, about the persistence span (10 s) that it feeds. Within
 # one 10 s snapshot it settles to 1 - (1 - 1/64)**44 = 50 % of a step; it carries on to the next
-# snapshot of the same operating mode (measured against 5 s and 20 s: docs/evaluation.md).
+# snapshot of the same operating mode (measured against 5 s and 20 s: docs/evaluation.md). In
+# unbroken running it stands for an average over 2**12 windows (11 min) once WANDER_MS is set.
 SLOW_MS = 10240
+# A wandering feature's EWMA (docs/detector.md, Score): 2**8 windows of 0.16 s while its window
+# stands for unwatched time, so a half-hourly snapshot of ~50 scored windows weighs 1 - (1 -
+# 1/256)**50 = 18 % and the average spans some five snapshots (2.5 h); in unbroken running 2**14
+# windows (44 min, the nearest to SLOW_HALF_S). WANDER_RATIO: the EWMA spread, against that of
+# independent departures, from which a feature counts as wandering (3/4 of its variance shared
+# across a snapshot).
+WANDER_MS = 40960
+WANDER_RATIO = 2.0
 _THR_MAX = 1 << 16        # the detector's limit on thresholds (Q8 spreads)
 _STEADY_MAX = 32          # the detector's most windows in the steadiness span
 HOLD_FLOOR_S = 1.0        # least hold-off once steady: the run-up itself is already unsteady and unscored
@@ -175,7 +184,7 @@ class _Channels:
             self.zmax.append(max(0, max(t[j] for j in self.slow_j)))
         self.smax.append(det.smax_q8)
         if det.pushed and det.mode >= 0 and (self.select is None or self.select[t_s]):
-            e = np.asarray(det.ew_acc[det.mode * det.d:(det.mode + 1) * det.d], dtype=np.float64) / (256 << det.ew_shift)
+            e = np.asarray(det.ew_acc[det.mode * det.d:(det.mode + 1) * det.d], dtype=np.float64) / (256 << det.ew_long)
             self.ew_ss += e * e
             self.ew_n += 1
         return state
@@ -227,12 +236,35 @@ def _held_out(params: dict, feats: list[StreamFeatures], every: int, select: lis
     return out
 
 
-def sgain_q8(ew_ss: np.ndarray, ew_n: int, shift: int, averaged: Sequence[bool] = ()) -> tuple[list[int], str]:
+def slow_wander(ew_ss: np.ndarray, ew_n: int, shift: int, averaged: Sequence[bool] = (),
+                long_min: float = 0.0) -> tuple[list[int], str]:
+    """det_slow_wander: 1 for each feature whose held-out EWMA (over scored windows, 2**-shift
+    each) wanders: its r.m.s. at least WANDER_RATIO times sqrt(lam / (2 - lam)), the spread of
+    an EWMA of independent departures of unit spread (Montgomery, EWMA chart; common practice).
+    Then at least (WANDER_RATIO**2 - 1) / WANDER_RATIO**2 = 3/4 of its variance moves together
+    over the windows of a snapshot, which no average over those windows removes and an average
+    over several snapshots does (the detector's running-time EWMA). 0 for a feature that is an
+    average over minutes already (averaged, the half-order prominence) and for all when no
+    window was scored. long_min: the span such a feature then averages over in unbroken running
+    (minutes, for the report)."""
+    d = len(ew_ss)
+    if ew_n == 0:
+        return [0] * d, "none: no held-out scored window to measure the features' slow spreads"
+    lam = 2.0 ** -shift
+    ratio = np.sqrt(ew_ss / ew_n) / math.sqrt(lam / (2.0 - lam))
+    out = [int(r >= WANDER_RATIO and not (j < len(averaged) and averaged[j])) for j, r in enumerate(ratio)]
+    return out, (f"{sum(out)} of {d} features wander with the process (their {SLOW_MS / 1000:g}-s averages "
+                 f"spread {WANDER_RATIO:g} times or more what window-to-window noise leaves): they average over "
+                 f"several snapshots, or about {long_min:.0f} min of unbroken running, instead")
+
+
+def sgain_q8(ew_ss: np.ndarray, ew_n: int, shift: int | Sequence[int], averaged: Sequence[bool] = ()) -> tuple[list[int], str]:
     """Per-feature weights of the slow channel, Q8: each feature's EWMA against its own healthy
     spread, so that one feature's small lasting rise is judged by how far its own EWMA wanders.
 
     sigma_j = the r.m.s. of feature j's EWMA over held-out scored windows (ew_ss / ew_n, spreads
-    squared), at least sqrt(lam / (2 - lam)) with lam = 2**-shift: the EWMA spread of
+    squared), at least sqrt(lam / (2 - lam)) with lam = 2**-shift (shift: one, or each feature's,
+    the weight of its window after unwatched time for a wandering one): the EWMA spread of
     independent departures of unit spread (Montgomery, EWMA chart; common practice), so that thin
     data cannot make a feature look quieter than its per-window noise allows. A line whose
     departures are per-window noise (an envelope line) averages down to that floor; one that
@@ -247,13 +279,13 @@ def sgain_q8(ew_ss: np.ndarray, ew_n: int, shift: int, averaged: Sequence[bool] 
     off[:len(averaged)] = averaged
     if ew_n == 0:
         return [0 if o else 256 for o in off], "all 1: no held-out scored window to measure the features' slow spreads"
-    lam = 2.0 ** -shift
-    floor = math.sqrt(lam / (2.0 - lam))
+    lam = 2.0 ** -np.broadcast_to(np.asarray(shift, dtype=np.float64), (d,))
+    floor = np.sqrt(lam / (2.0 - lam))
     sigma = np.maximum(np.sqrt(ew_ss / ew_n), floor)
     g = np.median(sigma[~off]) / sigma
     q8 = [0 if o else int(v) for o, v in zip(off, np.clip(np.round(256 * g), 1, 4096))]
     on = [v for o, v in zip(off, q8) if not o]
-    return q8, (f"each feature's {SLOW_MS / 1000:g}-s average against its own held-out spread ({floor:.2f} to "
+    return q8, (f"each feature's average against its own held-out spread ({floor.min():.2f} to "
                 f"{sigma[~off].max():.2f} spreads; weights {min(on) / 256:.2f} to {max(on) / 256:.2f}): lines that "
                 "wander with the process count less, lines that only flicker count more"
                 + ("; the half-order prominences, averages already, stay out" if off.any() else ""))
@@ -835,7 +867,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
     p["det_feat"] = _feature_list(p)
     d = len(p["det_feat"])
     p.update(det_base_mean_q4=[0] * d, det_base_sd_q4=[256] * d, det_zlam_q8=zlam_q8(d), det_slow_ms=SLOW_MS,
-             det_slam_q8=0, det_sgain_q8=[256] * d)
+             det_wander_ms=WANDER_MS, det_slow_wander=[0] * d, det_slam_q8=0, det_sgain_q8=[256] * d)
     pm.build(p, profile)
     twin = twin_for(p, profile)
     bar = start(4, "stages", "train", enabled=progress)    # features, scoring probe, fits, check
@@ -956,10 +988,21 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
             bar.close()
             return train(recordings, profile, false_alerts_per_month, version, folds, jobs, bearing, progress, moved)
     held = [(pf, [wf == f for wf in win_fold]) for f, pf in fold_sets] or [(p, None)]
+    averaged = [i % pa == fi.F_HALF for i in p["det_feat"]]
     parts = [_held_out(pf, feats, every, sel, sequences=False) for pf, sel in held]
+    det = Detector(p, every)
+    wander, learned["slow_wander"] = slow_wander(sum(h.ew_ss for h in parts), sum(h.ew_n for h in parts),
+                                                 det.ew_shift, averaged,
+                                                 (1 << det.ew_long) * window_s / 60)
+    learned["slow_run_min"] = (1 << det.ew_frun) * window_s / 60
+    if any(wander):
+        p["det_slow_wander"] = wander
+        fold_sets = [(f, _with(pf, det_slow_wander=wander)) for f, pf in fold_sets]
+        held = [(_with(pf, det_slow_wander=wander), sel) for pf, sel in held]
+        parts = [_held_out(pf, feats, every, sel, sequences=False) for pf, sel in held]
+    shifts = [det.ew_wshift if w else det.ew_shift for w in wander]
     gains, learned["slow_gains"] = sgain_q8(sum(h.ew_ss for h in parts), sum(h.ew_n for h in parts),
-                                            Detector(p, every).ew_shift,
-                                            [i % pa == fi.F_HALF for i in p["det_feat"]])
+                                            shifts, averaged)
     p["det_sgain_q8"] = gains
     fold_sets = [(f, _with(pf, det_sgain_q8=gains)) for f, pf in fold_sets]
     held = [(_with(pf, det_sgain_q8=gains), sel) for pf, sel in held]
@@ -1137,8 +1180,11 @@ def report_text(summary: dict) -> str:
                  f"one feature alone counts {t['per_feature_weight']:.2f} times; raise on {t['persistence']}; "
                  f"alarm only after {t['escalation_s']:g} s in alert")
     at = " at the speeds each mode was trained at" if any(m.get("trained_hz") for m in s["modes"]["table"]) else ""
-    lines.append(f"  a small lasting rise of one feature, averaged over the last {t['slow_s']:g} s of judged running{at}, "
-                 f"counts {t['slow_weight']:.2f} times ({lr['slow_channel']}); {lr['slow_gains']}"
+    span = (f"over {t['slow_s']:g} s of judged running after time unwatched, or about {lr['slow_run_min']:.0f} min "
+            "of unbroken running" if lr.get("slow_run_min") else f"over the last {t['slow_s']:g} s of judged running")
+    lines.append(f"  a small lasting rise of one feature, averaged {span}{at}, "
+                 f"counts {t['slow_weight']:.2f} times ({lr['slow_channel']}); "
+                 + (f"{lr['slow_wander']}; " if lr.get("slow_wander") else "") + lr["slow_gains"]
                  + (f"; {lr['slow_by_mode']}" if lr.get("slow_by_mode") else ""))
     lines.append(f"    method: {t['method']}; {t['validation']}")
     lines.append(f"    alarm: {t['alarm_rule']}")

@@ -132,8 +132,9 @@ def gapless_fault(seed: int, scale: str, name: str, visible_t_s: float, params: 
     "raised_as" (the first entry into alert or alarm, as the scorecard's events: t_s, from, to,
     reason, feature; None if none by the end), "delay_s" (its time minus visible_t_s), "at_start"
     (raised within the least time a detector started cold needs to raise: the hold-off, the
-    steadiness span, the evidence span and twice the slow channel's time constant; so the fault
-    already stood out when the run began, and the delay is an upper bound)}."""
+    steadiness span, the evidence span and twice the slow channel's time constant, a wandering
+    feature's when the set has one; so the fault already stood out when the run began, and the
+    delay is an upper bound)}."""
     h = next(x for x in evaluation_suite(seed, scale) if x.name == name)
     onset = min(f.onset_t_s for f in h.faults)
     t0 = max(onset, visible_t_s - hours * 3600.0)
@@ -141,8 +142,10 @@ def gapless_fault(seed: int, scale: str, name: str, visible_t_s: float, params: 
     got = _gapless_raises(h, t0, end, params, profile, first_only=True)
     first = got[0] if got else None
     n, fs, every = params["n"], float(params["fs_hz"]), int(profile["analyse_every"])
+    wanders = any(params.get("det_slow_wander") or ())
+    slow_ms = max(params.get("det_slow_ms", 0), params.get("det_wander_ms", 0) if wanders else 0)
     warm_s = (params["det_hold_ms"] + params["det_steady_ms"] + params["det_persist_ms"]
-              + 2 * params.get("det_slow_ms", 0)) / 1000.0 + n * every / fs
+              + 2 * slow_ms) / 1000.0 + n * every / fs
     return {"history": name, "start_t_s": t0, "end_t_s": end, "visible_t_s": visible_t_s, "raised_as": first,
             "delay_s": None if first is None else first["t_s"] - visible_t_s,
             "at_start": first is not None and first["t_s"] - t0 <= warm_s}
