@@ -333,9 +333,9 @@ def test_trained_speeds_are_checked():
 
 
 def _two_s_up(d=2):
-    """A detector (slow channel of 32 windows) after 40 windows with feature 0 two spreads up,
-    and the frame that gave them."""
-    det = Detector(_params(d, det_slow_ms=32 * W_MS))
+    """A detector (slow channel of 32 windows, over running time: det_wander_ms) after 40
+    windows with feature 0 two spreads up, and the frame that gave them."""
+    det = Detector(_params(d, det_slow_ms=32 * W_MS, det_wander_ms=128 * W_MS))
     f = _frame(d)
     f[fi.F_BAND0] = 2 * SD
     for i in range(40):
