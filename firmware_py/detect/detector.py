@@ -489,7 +489,7 @@ class Detector:
         self.events = EventRing(_int(p, "det_event_n", 1, event_ring.CAP_MAX))
         self.tab = log2_table()
         self._refs()
-        self.half = HalfLines(axes, self.pa, every, self.speed_tol_q12, self.tab)
+        self.half = HalfLines(axes, self.pa, n, every, self.speed_tol_q12, self.tab)
         self.u = array("i", bytes(4 * d))
         self.z = array("i", bytes(4 * d))
         # per scored feature: the axis whose own 1x estimate its order or envelope line was read

@@ -34,6 +34,21 @@ tells of a machine as it was a day ago, and a looseness can have come, or been m
 slots do not depend on the trained modes, so training reads the values the device will hold before
 it has fitted any.
 
+Noise is not spread evenly over a block's cells once neighbouring taps share samples. A tap's
+triangle reaches L samples each side of its boundary (half_taps.span: the fewest whole 0.5x
+periods reaching n / 2, so n / 2 <= L <= n), and the next analysed window's tap is every x n
+samples on: from a 1x of just over 4 bins (two periods, L near n) the two triangles overlap by most
+of a window. On white noise two triangles of half-width L, g samples apart, correlate
+rho = (2 - g / L)**3 / 4 for L <= g <= 2 L (the triangle's autocorrelation, textbook; 0.25 at
+g = L, 0 from g = 2 L, so never when every > 1), and the shared samples' phase turns by the half
+order per window, as the line's does. Across the block the noise so has the spectrum of a
+first-order moving average: each cell's expected power is S0 + 2 rho S1 cos(2 pi (c - c0) / blk)
+(S0 the Hann weights' squares summed, S1 their neighbours' products), highest at the line's own
+place c0. Left as it is, a pump trimmed from just under to just over 4 bins would read as a line
+growing by up to 0.7 octave (measured on a healthy harmonic series through the device's code).
+So the line's and the floor's mean powers are each taken over their cells' expected share of the
+noise (_lean, _share), which is the plain cell count when rho = 0.
+
 The whole orders reach the taps only through the speed estimate's error (half_taps: a triangle
 over two windows puts them on double zeros of its transform, so their leakage goes with the
 square of that error), and across the block they turn a whole number of cycles per window from
@@ -52,7 +67,7 @@ and the cells' sum (Parseval: blk * sum |t|**2 / 2**12, from e = sum(|t|**2 >> 7
 2**20, as the Hann weights' squares sum to 3/8 blk) stays under 2**28, as does e * blk.
 Prominence and its average: log2 Q8.
 
-Entry points: footprint_bytes(axes); HalfLines(axes, pa, every, tol_q12, tab); push(f, steady,
+Entry points: footprint_bytes(axes); HalfLines(axes, pa, n, every, tol_q12, tab); push(f, steady,
 now_s) once per window (now_s: the detector's clock, s); cut() when the next window will not follow
 the last; rebase(d) when that clock moves back by d; value[a] (the window's); cell_kind(c, c0, d,
 b), which cells of a block are the line's, the images' and the floor's (training's spread uses it).
@@ -63,7 +78,7 @@ from micropython import const
 from firmware_py.dsp import feature_index as fi
 from firmware_py.dsp import tables
 from firmware_py.dsp.fixmath import log2_q8, msb
-from firmware_py.dsp.half_taps import ODDS
+from firmware_py.dsp.half_taps import ODDS, X1_MIN, X1_MAX, span
 
 UNSET = const(-16384)          # no average yet (LOG2_ZERO_Q8)
 SHIFT = const(3)               # EWMA weight 2**-3 per block; counts from 8 blocks
@@ -96,12 +111,14 @@ def footprint_bytes(axes):
 
 
 class HalfLines:
-    """See the module docstring. tol_q12: the steady speed tolerance (det_speed_tol_q12); tab:
-    tables.log2_table() (the detector's own)."""
+    """See the module docstring. n: samples a window; every: the board's analyse_every; tol_q12:
+    the steady speed tolerance (det_speed_tol_q12); tab: tables.log2_table() (the detector's
+    own)."""
 
-    def __init__(self, axes, pa, every, tol_q12, tab):
+    def __init__(self, axes, pa, n, every, tol_q12, tab):
         self.axes = axes
         self.pa = pa
+        self.n = n
         self.every = every
         self.tol_q12 = tol_q12
         b = self.blk = BLK
@@ -241,9 +258,10 @@ class HalfLines:
         # the whole orders' nearest images: ALIAS Q8 cells each side of the line (x1 * every
         # mod 2 bins, Q8, times b / 2), the same for the three taps (module docstring)
         d = (b >> 1) * ((x1 * self.every) % 512)
+        lean = self._lean(a, x1)
         s = 0
         for i in range(3):
-            s += self._prominence(a, i, x1, d)
+            s += self._prominence(a, i, x1, d, lean)
         p = s // 3
         k = self._slot(a, x1)
         if k < 0:
@@ -264,12 +282,15 @@ class HalfLines:
         self.cnt[k] = c
         self.fed[k] = now_s
 
-    def _prominence(self, a, i, x1, d):
-        """log2 Q8 of (mean cell power within HALF_WIDTH of the line) / (mean of the floor
-        cells) for tap i of axis a's block; x1: the block's mean 1x (bins Q8); d: the whole
-        orders' images' distance from the line, Q8 cells. Only the line's and the images' cells
-        are transformed; the floor's total is the block's energy less theirs (Parseval: the
-        cells' powers sum to blk times the samples' ones), which is what the floor needs."""
+    def _prominence(self, a, i, x1, d, lean):
+        """log2 Q8 of the line's cells' power (within HALF_WIDTH of its place) over what noise
+        alone would put there, relative to the same for the floor cells, for tap i of axis a's
+        block; x1: the block's mean 1x (bins Q8); d: the whole orders' images' distance from the
+        line, Q8 cells; lean: the noise's lean towards the line (_lean, Q12). Each cell's share of
+        the noise is _share(): 2**15 for every cell when lean = 0, and the value is then the ratio
+        of the two mean powers. Only the line's and the images' cells are transformed; the
+        floor's total is the block's energy less theirs (Parseval: the cells' powers sum to blk
+        times the samples' ones), which is what the floor needs."""
         b = self.blk
         tap = self.tap
         base = a * b * 6 + 2 * i
@@ -313,12 +334,13 @@ class HalfLines:
         st = self.sin_q15
         h = b >> 1
         line = 0
-        nl = 0
+        gl = 0
         side = 0
-        ns = 0
+        gf = 0
         for c in range(b):
             kind = cell_kind(c, c0, d, b)
             if kind == 0:
+                gf += self._share(c, c0, lean)
                 continue
             yr = 0
             yi = 0
@@ -336,10 +358,9 @@ class HalfLines:
             yi >>= 6
             if kind == 1:
                 line += yr * yr + yi * yi
-                nl += 1
+                gl += self._share(c, c0, lean)
             else:
                 side += yr * yr + yi * yi
-                ns += 1
         rest = (e * b) >> 5                        # sum of all cells' (Y >> 6)**2: e * 2**7 * b / 2**12
         rest -= line + side
         if line <= 0:
@@ -347,7 +368,55 @@ class HalfLines:
         if rest <= 0:
             rest = 1
         t = self.tab
-        return (log2_q8(line, t) - log2_q8(nl, t)) - (log2_q8(rest, t) - log2_q8(b - nl - ns, t))
+        return (log2_q8(line, t) - log2_q8(gl, t)) - (log2_q8(rest, t) - log2_q8(gf, t))
+
+    def _lean(self, a, x1):
+        """How far the noise of axis a's block leans towards the line's cells, Q12: 2 rho S1 / S0
+        (module docstring), rho the correlation of neighbouring taps' noise at a 1x of
+        x1 (bins Q8), S0 the sum of the Hann weights' squares over the windows with taps, S1 that
+        of neighbouring ones' products (a zero-filled window has no noise to share); 0 to 2048. Hann weights are taken Q9 (<= 512): S0, S1 <= 32 * 2**18, and rho (<= 1024) times
+        S1 >> 6 stays under 2**28."""
+        n = self.n
+        if not X1_MIN <= x1 < X1_MAX:
+            return 0
+        L = span(x1, n)
+        g = self.every * n                         # samples between neighbouring taps' centres
+        if g >= 2 * L:
+            return 0
+        t = 8192 - (g << 12) // L                  # 2 - g / L, Q12 (n >= L: <= 4096; g < 2 L
+        #                                            <= 2 * 8192, the board's largest window, so
+        #                                            g << 12 < 2**26)
+        rho = ((((t * t) >> 12) * t) >> 12) >> 2   # (2 - g / L)**3 / 4, Q12
+        b = self.blk
+        tap = self.tap
+        hw = self.hann_q15
+        base = a * b * 6
+        s0 = 0
+        s1 = 0
+        w0 = 0
+        for j in range(b):
+            o = base + 6 * j
+            w = 0
+            for i in range(6):
+                if tap[o + i]:
+                    w = hw[j] >> 6
+            s0 += w * w
+            s1 += w * w0
+            w0 = w
+        s0 >>= 6
+        return (2 * rho * (s1 >> 6)) // s0 if s0 else 0
+
+    def _share(self, c, c0, k):
+        """Cell c's expected share of the block's noise, 2**15 when the taps' noise is
+        independent: 2**15 (1 + k cos(2 pi (c - c0) / blk)), k Q12 the lean (_lean), c0 the line's
+        place (Q8 cells); the cosine interpolated linearly in the block's own table (within
+        (2 pi / blk)**2 / 8 = 0.005 at blk = 32). <= 1.5 * 2**15 a cell."""
+        v = _dist((c << 8) - c0, self.blk)         # 0 .. blk * 128: the table's 0 .. pi
+        i = v >> 8
+        f = v & 255
+        ct = self.cos_q15
+        cs = ct[i] + (((ct[i + 1] - ct[i]) * f) >> 8) if f else ct[i]
+        return 32768 + ((k * cs) >> 12)
 
 
 def cell_kind(c, c0, d, b):

@@ -223,7 +223,7 @@ from firmware_py.detect.half_lines import HalfLines, BLK
 from firmware_py.dsp import feature_index as fi
 from firmware_py.dsp.tables import log2_table
 pa = fi.per_axis(0)
-h = HalfLines(1, pa, 1, 205, log2_table())
+h = HalfLines(1, pa, 512, 1, 205, log2_table())
 nw = {_HALF_BLOCKS} * BLK
 f = array.array('i', bytes(4 * pa * nw))
 seed = 777
