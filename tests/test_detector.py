@@ -268,6 +268,37 @@ def test_speed_change_and_run_down_are_not_scored():
     assert NO not in st and det2.n_why[dt.W_RUNDOWN] >= 5
 
 
+def test_half_order_blocks_take_running_windows_past_the_start_but_no_run_down():
+    # The half orders' blocks check the speed their taps were mixed at themselves (half_lines), so
+    # the detector hands them every running window once the start-up hold-off has passed, judged
+    # steady or not, but none of a run-up before it, of a run-down, or of a stop: a trim of the
+    # speed that trips the steadiness rule (and the hold-off after it) leaves the block running
+    p = op_params(det_steady_ms=4 * W_MS, det_hold_ms=3 * W_MS, det_speed_tol_q12=82)
+    det = Detector(p)
+    fed = []
+    push = det.half.push
+    det.half.push = lambda f, steady, now: (fed.append(steady), push(f, steady, now))
+    up = [10, 12, 14, 16, 18, 20, 22, 24, 25, 25, 25, 25, 25, 25, 25]
+    st = [det.step(win(9, speed=s, conf=200), i, 0) for i, s in enumerate(up)]
+    assert st[:12] == [ID] * 12 and st[12] == N                 # as in the run-up test above
+    assert fed[:13] == [False] * 13 and fed[13:] == [True] * 2   # from the window after the start
+    trim = [26] * 7                                            # 4 %: over the 2 % tolerance
+    fed.clear()
+    for i, s in enumerate(trim):
+        det.step(win(9, speed=s, conf=200), 20 + i, 0)
+    assert det.n_why[dt.W_UNSTEADY] > 0 and det.n_why[dt.W_HOLD] > 0   # not scored meanwhile
+    assert fed == [True] * len(trim)
+    fed.clear()
+    down = [24, 22, 20, 18, 16, 14, 12]
+    for i, s in enumerate(down):
+        det.step(win(9, speed=s, conf=200, vel=1.0 - 0.1 * i), 40 + i, 0)
+    assert det.n_why[dt.W_RUNDOWN] >= 5
+    assert fed.count(True) <= len(down) - det.n_why[dt.W_RUNDOWN]
+    fed.clear()
+    det.step(win(9, speed=0, conf=0, vel=0.0), 60, 0)           # stopped
+    assert fed == [False]
+
+
 def test_unscored_windows_neither_add_to_nor_dilute_the_evidence():
     # a fault seen in short stretches, each preceded by windows that are not scored (off every
     # trained point): the span counts judged windows only, so 3 of 5 judged windows over raise

@@ -10,9 +10,9 @@ noise spreads over all (the resolution of one block of n x every x blk samples; 
 in zoom analysis).
 
 Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the complex values at 0.5x, 1.5x,
-2.5x of the speed the shaft turned at between the windows before) of steady windows are collected;
-a window that is not steady, or at a speed beyond the steady tolerance of the block's, starts a new
-block. A window whose taps were mixed at a speed more than 1/32 off the block's mean so far
+2.5x of the speed the shaft turned at between the windows before) of the windows the detector
+passes as steady (running past the start-up hold-off, not running down) are collected; a window
+it does not pass, or at a speed beyond the steady tolerance of the block's, starts a new block. A window whose taps were mixed at a speed more than 1/32 off the block's mean so far
 (DRIFT_SHIFT), or that has none, enters as zeros: its taps let the whole orders through
 (half_taps: their leakage goes with the square of that error), and one such window should not
 cost the block. A block of fewer than half such windows is dropped. Blocks overlap by half: a full block's second half starts the next (the
@@ -151,8 +151,9 @@ class HalfLines:
             self.fed[k] = v if v > CLOCK_MIN else CLOCK_MIN
 
     def push(self, f, steady, now_s):
-        """One window's features f; steady: the detector judged it steady past the hold-off;
-        now_s: the detector's clock (s, < 2**29)."""
+        """One window's features f; steady: the detector has it running past the start-up
+        hold-off and not running down (its own steadiness verdict aside: the block checks the
+        taps' speeds); now_s: the detector's clock (s, < 2**29)."""
         pa = self.pa
         for a in range(self.axes):
             o = a * pa
