@@ -10,18 +10,19 @@ noise spreads over all (the resolution of one block of n x every x blk samples; 
 in zoom analysis).
 
 Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the complex values at 0.5x, 1.5x,
-2.5x of the speed the shaft turned at between the windows before) of the windows the detector
-passes as steady (running past the start-up hold-off, not running down) are collected; a window
-it does not pass, or at a speed beyond the steady tolerance of the block's, starts a new block. A window whose taps were mixed at a speed more than 1/32 off the block's mean so far
-(DRIFT_SHIFT), or that has none, enters as zeros: its taps let the whole orders through
-(half_taps: their leakage goes with the square of that error), and one such window should not
-cost the block. A block of fewer than half such windows is dropped. Blocks overlap by half: a full block's second half starts the next (the
+2.5x of the speed the shaft turned at between the windows before) of the windows the detector passes
+as steady (running past the start-up hold-off, not running down) are collected; a window it does not
+pass, or at a speed beyond the steady tolerance of the block's, starts a new block. A window whose
+taps were mixed at a speed more than 1/32 off the block's mean so far (DRIFT_SHIFT), or that has
+none, enters as zeros: its taps let the whole orders through (half_taps: their leakage goes with the
+square of that error), and one such window should not cost the block. A block of fewer than half
+such windows is dropped. Blocks overlap by half: a full block's second half starts the next (the
 kept windows' speed taken as the block's mean), so a 10 s recording at 512 samples makes two blocks
 and running without a gap one every BLK / 2 windows; under the Hann window across the block two
 such blocks correlate 0.167 in amplitude, 0.03 in power (Welch's overlapped segments, 1967), so
-their prominences count as nearly independent. A full block gives, per half order, the mean power
-of the cells around the line's expected place over the mean power of the floor cells, in log2; the
-three are averaged. The blocks' values are averaged as an EWMA with weight 2**-SHIFT, one per
+their prominences count as nearly independent. A full block gives, per half order, the power of
+the cells around the line's expected place over that of the floor cells, each over its cells'
+share of the noise (below), in log2; the three are averaged. The blocks' values are averaged as an EWMA with weight 2**-SHIFT, one per
 operating speed: the floor around the lines differs between speeds, so each axis keeps SLOTS
 averages, each for the speeds within the steady tolerance of its first block's, and a block at a
 speed no slot holds restarts the one least recently fed. A pump that changes duty between
@@ -375,7 +376,8 @@ class HalfLines:
         """How far the noise of axis a's block leans towards the line's cells, Q12: 2 rho S1 / S0
         (module docstring), rho the correlation of neighbouring taps' noise at a 1x of
         x1 (bins Q8), S0 the sum of the Hann weights' squares over the windows with taps, S1 that
-        of neighbouring ones' products (a zero-filled window has no noise to share); 0 to 2048. Hann weights are taken Q9 (<= 512): S0, S1 <= 32 * 2**18, and rho (<= 1024) times
+        of neighbouring ones' products (a zero-filled window has no noise to share); 0 to 2048.
+        Hann weights are taken Q9 (<= 512): S0, S1 <= 32 * 2**18, and rho (<= 1024) times
         S1 >> 6 stays under 2**28."""
         n = self.n
         if not X1_MIN <= x1 < X1_MAX:
