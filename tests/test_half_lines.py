@@ -420,3 +420,35 @@ def test_taps_mixed_at_an_outlying_speed_enter_as_zeros():
             mostly[w][fi.F_TAP_X1] = off
     det = _Clocked(1, PA, N, 1, 410, TAB)
     assert _average_of(det, mostly) == hl.UNSET and max(det.cnt) == 0
+
+
+def test_a_lone_window_at_another_speed_enters_as_zeros():
+    # the speed estimate's own slip: one window in 11 whose taps were mixed 30 % off the block's
+    # 1x (beyond the 10 % tolerance) counts as a zero in the block, as by hand, and does not
+    # restart it (restarted, no block would ever fill: the average would stay unset)
+    b = hl.BLK
+    x1, slip = 1812, 1812 * 7 // 10
+    rng = np.random.default_rng(9)
+    taps = _taps(b, 1, x1, 800.0, 500.0, rng, 1 << hl.SHIFT)
+    lone = np.arange(len(taps)) % 11 == 4
+    slipped = _rows(taps, x1)
+    for w in np.flatnonzero(lone):
+        slipped[w][fi.F_TAP_X1] = slip
+    zeroed = _rows(np.where(lone[:, None], 0, taps), x1)
+    got = _average_of(_Clocked(1, PA, N, 1, 410, TAB), slipped)
+    assert got != hl.UNSET and got == _average_of(_Clocked(1, PA, N, 1, 410, TAB), zeroed)
+
+
+def test_two_windows_in_a_row_at_another_speed_start_a_block_of_their_own():
+    # a real change of speed: its first window enters the old block as zeros, the second starts
+    # a block, so the new speed's average is that of a fresh stage fed from the second window on
+    b = hl.BLK
+    x1, moved = 1812, 1812 * 6 // 5                        # 20 % away: beyond the 10 % tolerance
+    rng = np.random.default_rng(10)
+    home = _rows(_taps(b, 1, x1, 500.0, 500.0, rng, 1 << hl.SHIFT), x1)[:FIRST]
+    away = _rows(_taps(b, 1, moved, 800.0, 500.0, rng, (1 << hl.SHIFT) + 1), moved)[:FIRST + 1]
+    det = _Clocked(1, PA, N, 1, 410, TAB)
+    assert _average_of(det, home) != hl.UNSET
+    assert _average_of(det, away[:-1]) == hl.UNSET            # from the second window: 8 blocks less one window
+    got = _average_of(det, away[-1:])
+    assert got != hl.UNSET and got == _average_of(_Clocked(1, PA, N, 1, 410, TAB), away[1:])

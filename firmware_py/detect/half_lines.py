@@ -12,28 +12,32 @@ in zoom analysis).
 Per axis, the feature core's taps (firmware_py/dsp/half_taps.py: the complex values at 0.5x, 1.5x,
 2.5x of the speed the shaft turned at between the windows before) of the windows the detector passes
 as steady (running past the start-up hold-off, not running down) are collected; a window it does not
-pass, or at a speed beyond the steady tolerance of the block's, starts a new block. A window whose
-taps were mixed at a speed more than 1/32 off the block's mean so far (DRIFT_SHIFT), or that has
-none, enters as zeros: its taps let the whole orders through (half_taps: their leakage goes with the
-square of that error), and one such window should not cost the block. A block of fewer than half
-such windows is dropped. Blocks overlap by half: a full block's second half starts the next (the
-kept windows' speed taken as the block's mean), so a 10 s recording at 512 samples makes two blocks
-and running without a gap one every BLK / 2 windows; under the Hann window across the block two
-such blocks correlate 0.167 in amplitude, 0.03 in power (Welch's overlapped segments, 1967), so
-their prominences count as nearly independent. A full block gives, per half order, the power of
-the cells around the line's expected place over that of the floor cells, each over its cells'
-share of the noise (below), in log2; the three are averaged. The blocks' values are averaged as an EWMA with weight 2**-SHIFT, one per
-operating speed: the floor around the lines differs between speeds, so each axis keeps SLOTS
-averages, each for the speeds within the steady tolerance of its first block's, and a block at a
-speed no slot holds restarts the one least recently fed. A pump that changes duty between
-recordings (a snapshot at one speed, the next at another) so resumes each speed's average where it
-left it, as its slow channel resumes each mode's. An average counts once 2**SHIFT blocks have
-entered it; the value is that of the slot holding the window's own speed, and UNSET (the detector
-holds the feature neutral) while that slot has fewer blocks or no slot holds the speed. An average
-not fed for STALE_S of the detector's clock is not read, and its next block starts it afresh: it
-tells of a machine as it was a day ago, and a looseness can have come, or been mended, since. The
-slots do not depend on the trained modes, so training reads the values the device will hold before
-it has fitted any.
+pass starts a new block, as does the second of two in a row at a speed beyond the steady tolerance
+of the block's (a new speed). A window whose taps were mixed at a speed more than 1/32 off the
+block's mean so far (DRIFT_SHIFT), a lone one beyond the tolerance among them, or that has none,
+enters as zeros: its taps let the whole orders through (half_taps: their leakage goes with the
+square of that error), and one such window should not cost the block. A lone one is common: a window
+whose own 1x estimate slips by a bin unwraps the next window's mixing speed a bin off
+(half_taps.mix_speed), and on a slow shaft that happened every dozen windows or so, so that a block
+restarted before it filled and a snapshot made none. A block with taps in fewer than half its
+windows is dropped. Blocks overlap by half: a full block's second half starts the next (the kept
+windows' speed taken as the block's mean), so a 10 s recording at 512 samples makes two blocks and
+running without a gap one every BLK / 2 windows; under the Hann window across the block two such
+blocks correlate 0.167 in amplitude, 0.03 in power (Welch's overlapped segments, 1967), so their
+prominences count as nearly independent. A full block gives, per half order, the power of the cells
+around the line's expected place over that of the floor cells, each over its cells' share of the
+noise (below), in log2; the three are averaged. The blocks' values are averaged as an EWMA with
+weight 2**-SHIFT, one per operating speed: the floor around the lines differs between speeds, so
+each axis keeps SLOTS averages, each for the speeds within the steady tolerance of its first
+block's, and a block at a speed no slot holds restarts the one least recently fed. A pump that
+changes duty between recordings (a snapshot at one speed, the next at another) so resumes each
+speed's average where it left it, as its slow channel resumes each mode's. An average counts once
+2**SHIFT blocks have entered it; the value is that of the slot holding the window's own speed, and
+UNSET (the detector holds the feature neutral) while that slot has fewer blocks or no slot holds the
+speed. An average not fed for STALE_S of the detector's clock is not read, and its next block starts
+it afresh: it tells of a machine as it was a day ago, and a looseness can have come, or been mended,
+since. The slots do not depend on the trained modes, so training reads the values the device will
+hold before it has fitted any.
 
 Noise is not spread evenly over a block's cells once neighbouring taps share samples. A tap's
 triangle reaches L samples each side of its boundary (half_taps.span: the fewest whole 0.5x
@@ -104,10 +108,10 @@ CLOCK_MIN = const(-(1 << 28))  # the oldest time a slot keeps through rebase(), 
 
 def footprint_bytes(axes):
     """Heap bytes of a HalfLines' arrays on `axes` axes (payloads, as __init__ makes them): the
-    taps of one block per axis (6 ints a window), 4 ints of state per axis and 4 per slot, the
+    taps of one block per axis (6 ints a window), 5 ints of state per axis and 4 per slot, the
     scratch of one tap's block (2 ints a window), the block's twiddles (2 x (BLK / 2 + 1) ints)
     and Hann window (BLK halfwords)."""
-    return (4 * axes * 6 * BLK + 4 * (4 + 4 * SLOTS) * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1)
+    return (4 * axes * 6 * BLK + 4 * (5 + 4 * SLOTS) * axes + 4 * 2 * BLK + 4 * 2 * (BLK // 2 + 1)
             + 2 * BLK)
 
 
@@ -129,6 +133,8 @@ class HalfLines:
         self.nb = array("i", bytes(4 * axes))             # windows in the axis's block
         self.x1 = array("i", bytes(4 * axes))             # sum of the block's 1x, bins Q8
         self.nx = array("i", bytes(4 * axes))             # windows in that sum
+        self.far = array("i", bytes(4 * axes))            # 1: the last window's 1x was beyond
+        #                                                   the steady tolerance of the block's
         ns = axes * SLOTS                                 # slot k = a * SLOTS + s
         self.acc = array("i", bytes(4 * ns))              # EWMA << SHIFT (a sum while filling)
         self.cnt = array("i", bytes(4 * ns))              # blocks in the average, to 2**SHIFT; 0: free
@@ -165,14 +171,17 @@ class HalfLines:
             j = self.nb[a]
             c = self.nx[a] if j else 0
             m = self.x1[a] // c if c else x1       # the block's mean 1x so far
-            if x1 and c and not self._near(x1, m):
-                j = 0                              # another speed: a block of its own
-                c = 0
+            far = x1 > 0 and c > 0 and not self._near(x1, m)
+            if far and self.far[a]:
+                j = 0                              # a second in a row: another speed, a block
+                c = 0                              # of its own
                 m = x1
+                far = False
+            self.far[a] = 1 if far else 0
             if j == 0:
                 self.x1[a] = 0
                 self.nx[a] = 0
-            use = x1 > 0 and -(m >> DRIFT_SHIFT) <= x1 - m <= m >> DRIFT_SHIFT
+            use = not far and x1 > 0 and -(m >> DRIFT_SHIFT) <= x1 - m <= m >> DRIFT_SHIFT
             t = (a * self.blk + j) * 6
             for i in range(6):
                 self.tap[t + i] = f[o + fi.F_TAP_RE + i] if use else 0
