@@ -97,6 +97,11 @@ def test_summary_reports_the_bearing_fault_as_detected_with_its_time(demo):
     assert (m.group(3), m.group(4)) == (first["to"], first["reason"])
     delay_h = (first["t_s"] - bearing["start_t0_s"]) / 3600
     assert float(m.group(5)) * (24 if m.group(6) == "days" else 1) == pytest.approx(delay_h, abs=0.05 * 24)
+    # and how far it had grown by then: a defect that grows from nothing (the scenario's own
+    # account of it) is raised while a fraction of the size it reaches, and said so
+    m = re.search(r"after it began, when it stood at ([\d.]+) % of the size it grows to",
+                  text[text.index("bearing outer race"):].split("\n", 1)[0])
+    assert m and 0.0 < float(m.group(1)) < 100.0, text
     # the loose cable shows as a sensor fault, not as a machine alert
     assert re.search(r"loose cable \(from [^)]*\): detected [^)]*\), day [\d.]+ of the scenario as sensor_fault", text)
     assert "Commissioning check:" in text

@@ -267,7 +267,16 @@ def pump_run(work: Path, pump: str, truth: dict) -> dict[str, Any]:
             "healthy_running_h": healthy_h,
             "modes": summary["modes"]["k"], "warnings": summary.get("warnings", []),
             "false": false,
-            "detections": detections(result.events, faults)}
+            "detections": [{**d, "size_then": _size_then(d)} for d in detections(result.events, faults)]}
+
+
+def _size_then(d: dict) -> float | None:
+    """A detected fault's size when it was raised, as a fraction of the largest it reaches (the
+    scenario's growth law, host_tools.data.demo_scenario.Fault.severity); None when not raised."""
+    from host_tools.data.demo_scenario import Fault
+    if d["detected_t_s"] is None:
+        return None
+    return Fault(d["pump"], d["kind"], d["start_t0_s"], d["end_t0_s"], d["description"]).severity(d["detected_t_s"])
 
 
 class HealthyRunning:
@@ -337,7 +346,9 @@ def summary_lines(r: dict, truth: dict, final: Path) -> list[str]:
         else:
             out.append(f"  {what} (from {_when(d['start_t0_s'], start)}): detected "
                        f"{_when(d['detected_t_s'], start, d.get('recording'), d.get('offset_s'))} "
-                       f"as {d['detected_as']}, {_delay(d['delay_s'])} after it began")
+                       f"as {d['detected_as']}, {_delay(d['delay_s'])} after it began"
+                       + (f", when it stood at {100 * d['size_then']:.2g} % of the size it grows to"
+                          if d["size_then"] < 1.0 else ""))
     folder = final / r["pump"]
     out.append(f"  report: {folder / 'report' / 'index.html'}")
     out.append(f"  files:  {folder / 'params.msgpack'}, params.json, events.json, windows.csv")
