@@ -398,6 +398,22 @@ def test_an_average_a_day_old_is_not_read_and_starts_again():
     assert det.value[0] < v_old - 256                # the old line's average is gone
 
 
+def _slipped_and_zeroed(off, period, seed):
+    """The average of 8 blocks' taps (x1 = 1812, a line over noise) with every period-th window's
+    taps said to be mixed at off (bins Q8), and that of the same taps with those windows zeroed by
+    hand, each through a fresh stage at a 10 % steady tolerance."""
+    x1 = 1812
+    rng = np.random.default_rng(seed)
+    taps = _taps(hl.BLK, 1, x1, 800.0, 500.0, rng, 1 << hl.SHIFT)
+    odd = np.arange(len(taps)) % period == period - 1
+    mixed = _rows(taps, x1)
+    for w in np.flatnonzero(odd):
+        mixed[w][fi.F_TAP_X1] = off
+    zeroed = _rows(np.where(odd[:, None], 0, taps), x1)
+    return (_average_of(_Clocked(1, PA, N, 1, 410, TAB), mixed),
+            _average_of(_Clocked(1, PA, N, 1, 410, TAB), zeroed))
+
+
 def test_taps_mixed_at_an_outlying_speed_enter_as_zeros():
     # a window whose taps were mixed at a 1x more than 1/32 off the block's mean so far (within
     # the steady tolerance, so no new block) counts as a zero in the block, and its 1x stays out
@@ -405,16 +421,9 @@ def test_taps_mixed_at_an_outlying_speed_enter_as_zeros():
     # of more such windows than good ones gives none
     b = hl.BLK
     x1, off = 1812, 1812 + 1812 // 16                      # 6 % off: beyond 1/32, within 10 %
-    rng = np.random.default_rng(7)
-    taps = _taps(b, 1, x1, 800.0, 500.0, rng, 1 << hl.SHIFT)
-    odd = np.arange(len(taps)) % 4 == 3
-    mixed = _rows(taps, x1)
-    for w in np.flatnonzero(odd):
-        mixed[w][fi.F_TAP_X1] = off
-    zeroed = _rows(np.where(odd[:, None], 0, taps), x1)
-    got = _average_of(_Clocked(1, PA, N, 1, 410, TAB), mixed)
-    assert got != hl.UNSET and got == _average_of(_Clocked(1, PA, N, 1, 410, TAB), zeroed)
-    mostly = _rows(taps, x1)
+    got, ref = _slipped_and_zeroed(off, 4, 7)
+    assert got != hl.UNSET and got == ref
+    mostly = _rows(_taps(b, 1, x1, 800.0, 500.0, np.random.default_rng(7), 1 << hl.SHIFT), x1)
     for w in range(len(mostly)):
         if w % b >= b // 2 - 1:
             mostly[w][fi.F_TAP_X1] = off
@@ -426,17 +435,8 @@ def test_a_lone_window_at_another_speed_enters_as_zeros():
     # the speed estimate's own slip: one window in 11 whose taps were mixed 30 % off the block's
     # 1x (beyond the 10 % tolerance) counts as a zero in the block, as by hand, and does not
     # restart it (restarted, no block would ever fill: the average would stay unset)
-    b = hl.BLK
-    x1, slip = 1812, 1812 * 7 // 10
-    rng = np.random.default_rng(9)
-    taps = _taps(b, 1, x1, 800.0, 500.0, rng, 1 << hl.SHIFT)
-    lone = np.arange(len(taps)) % 11 == 4
-    slipped = _rows(taps, x1)
-    for w in np.flatnonzero(lone):
-        slipped[w][fi.F_TAP_X1] = slip
-    zeroed = _rows(np.where(lone[:, None], 0, taps), x1)
-    got = _average_of(_Clocked(1, PA, N, 1, 410, TAB), slipped)
-    assert got != hl.UNSET and got == _average_of(_Clocked(1, PA, N, 1, 410, TAB), zeroed)
+    got, ref = _slipped_and_zeroed(1812 * 7 // 10, 11, 9)
+    assert got != hl.UNSET and got == ref
 
 
 def test_two_windows_in_a_row_at_another_speed_start_a_block_of_their_own():
