@@ -18,26 +18,26 @@ block's mean so far (DRIFT_SHIFT), a lone one beyond the tolerance among them, o
 enters as zeros: its taps let the whole orders through (half_taps: their leakage goes with the
 square of that error), and one such window should not cost the block. A lone one is common: a window
 whose own 1x estimate slips by a bin unwraps the next window's mixing speed a bin off
-(half_taps.mix_speed), and on a slow shaft that happened every dozen windows or so, so that a block
-restarted before it filled and a snapshot made none. A block with taps in fewer than half its
-windows is dropped. Blocks overlap by half: a full block's second half starts the next (the kept
-windows' speed taken as the block's mean), so a 10 s recording at 512 samples makes two blocks and
-running without a gap one every BLK / 2 windows; under the Hann window across the block two such
-blocks correlate 0.167 in amplitude, 0.03 in power (Welch's overlapped segments, 1967), so their
-prominences count as nearly independent. A full block gives, per half order, the power of the cells
-around the line's expected place over that of the floor cells, each over its cells' share of the
-noise (below), in log2; the three are averaged. The blocks' values are averaged as an EWMA with
-weight 2**-SHIFT, one per operating speed: the floor around the lines differs between speeds, so
-each axis keeps SLOTS averages, each for the speeds within the steady tolerance of its first
-block's, and a block at a speed no slot holds restarts the one least recently fed. A pump that
-changes duty between recordings (a snapshot at one speed, the next at another) so resumes each
-speed's average where it left it, as its slow channel resumes each mode's. An average counts once
-2**SHIFT blocks have entered it; the value is that of the slot holding the window's own speed, and
-UNSET (the detector holds the feature neutral) while that slot has fewer blocks or no slot holds the
-speed. An average not fed for STALE_S of the detector's clock is not read, and its next block starts
-it afresh: it tells of a machine as it was a day ago, and a looseness can have come, or been mended,
-since. The slots do not depend on the trained modes, so training reads the values the device will
-hold before it has fitted any.
+(half_taps.mix_speed), and at 3.4 bins (the evaluation's RW-1 at its day duty) about one window in
+ten did, so that a block restarted before it filled and a snapshot made none. A block with taps in
+fewer than half its windows is dropped. Blocks overlap by half: a full block's second half starts
+the next (the kept windows' speed taken as the block's mean), so a 10 s recording at 512 samples
+makes two blocks and running without a gap one every BLK / 2 windows; under the Hann window across
+the block two such blocks correlate 0.167 in amplitude, 0.03 in power (Welch's overlapped segments,
+1967), so their prominences count as nearly independent. A full block gives, per half order, the
+power of the cells around the line's expected place over that of the floor cells, each over its
+cells' share of the noise (below), in log2; the three are averaged. The blocks' values are averaged
+as an EWMA with weight 2**-SHIFT, one per operating speed: the floor around the lines differs
+between speeds, so each axis keeps SLOTS averages, each for the speeds within the steady tolerance
+of its first block's, and a block at a speed no slot holds restarts the one least recently fed. A
+pump that changes duty between recordings (a snapshot at one speed, the next at another) so resumes
+each speed's average where it left it, as its slow channel resumes each mode's. An average counts
+once 2**SHIFT blocks have entered it; the value is that of the slot holding the window's own speed,
+and UNSET (the detector holds the feature neutral) while that slot has fewer blocks or no slot holds
+the speed. An average not fed for STALE_S of the detector's clock is not read, and its next block
+starts it afresh: it tells of a machine as it was a day ago, and a looseness can have come, or been
+mended, since. The slots do not depend on the trained modes, so training reads the values the device
+will hold before it has fitted any.
 
 Noise is not spread evenly over a block's cells once neighbouring taps share samples. A tap's
 triangle reaches L samples each side of its boundary (half_taps.span: the fewest whole 0.5x
