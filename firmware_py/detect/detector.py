@@ -956,9 +956,10 @@ class Detector:
             self.steady_w = 0
         # the half orders' blocks take every running window past the start but a run-down: they
         # check the speed their taps were mixed at themselves (half_lines: 1/32 off the block's
-        # mean enters as zeros, beyond the steady tolerance starts a new block), where the
-        # estimate's steadiness trips on its own scatter at a slow shaft (3 % a window at 2.8
-        # bins, more once the half orders crowd the 1x) and left a snapshot no 32 in a row
+        # mean, or a lone window beyond the steady tolerance, enters as zeros; two in a row
+        # beyond it start a new block), where the estimate's steadiness trips on its own scatter
+        # at a slow shaft (3 % a window at 2.8 bins, more once the half orders crowd the 1x) and
+        # left a snapshot no 32 in a row
         self.half.push(f, not self.starting and st != W_RUNDOWN, self.clock_s)
         if self.starting:
             if self.steady_w < self.hold_w and self.run_w < self.hold_max_w:
