@@ -249,7 +249,8 @@ def _write(folder, recs):
 
 
 def test_train_command_writes_a_set_the_device_loads(tmp_path, capsys):
-    _write(tmp_path / "normal", healthy_stream(seed=6, per_point=7))
+    t0 = 1805349600                                # 2027-03-18 06:00:00 UTC as Unix seconds
+    _write(tmp_path / "normal", healthy_stream(seed=6, per_point=7, t_start=t0))
     out = tmp_path / "p101.msgpack"
     assert main(["train", str(tmp_path / "normal"), "--out", str(out), "--version", "7",
                  "--false-alerts-per-month", "0.5", "--board", str(BOARD)]) == 0
@@ -264,6 +265,12 @@ def test_train_command_writes_a_set_the_device_loads(tmp_path, capsys):
     assert summary["thresholds"]["alert_q8"] == p["det_thr_alert_q8"]
     assert summary["thresholds"]["target_false_alerts_per_30_days"] == 0.5
     assert out.with_suffix(".report.txt").read_text() == text.split("wrote ")[0]
+    # 24 recordings 10 min apart, the last one 20 s long: it ends 23 * 600 + 20 s after the first
+    # starts, and the report names both files with their dates
+    assert summary["span"]["days"] == (23 * 600 + 20) / 86400
+    assert (f"recorded from 2027-03-18 06:00:00.0 UTC (syn_{t0}.wav) to 2027-03-18 09:50:20.0 UTC "
+            f"(syn_{t0 + 23 * 600}.wav + 20.0 s): 0.2 days") in text
+    assert "for running like the training days (0.2 days): a drift of the duty" in text
 
 
 def test_train_command_refuses_bad_input_and_writes_nothing(tmp_path, capsys):

@@ -57,6 +57,7 @@ from host_tools.data import units
 from host_tools.errors import EdgevibError
 from host_tools.progress import start
 from host_tools.data.recording import Recording
+from host_tools.data.times import moment
 from host_tools.twin.replay import (
     StreamFeatures, check_recordings, evidence_sequences, m_s2_per_count, physical_columns, promise_check,
     is_raise, promise_text, stated_rate,
@@ -1066,6 +1067,7 @@ def train(recordings: Sequence[Any], profile: dict, false_alerts_per_month: floa
         "board": p["board"], "version": p["version"], "fs_hz": p["fs_hz"], "n": p["n"], "window_s": window_s,
         "analyse_every": every,
         "streams": len(streams), "recordings": sum(len(s) for s in streams), "machines": machines,
+        "span": _span([r for s in streams for r in s]),
         "windows": {"total": n_windows, "not_scored": n_windows - n_scored, "scored": n_scored,
                     "iso_zone_c_or_d": n_zone_c, "used": n_use},
         "hours": {"recorded": n_windows * window_s / 3600, "running_used": n_use * window_s / 3600},
@@ -1131,6 +1133,19 @@ def _mode_follow(p: dict, axis_names: Sequence[str]) -> list[dict]:
     return [r for r in rows if r["follow"]]
 
 
+def _span(recs: Sequence[Any]) -> dict | None:
+    """When the training data was recorded: the first recording's start and the last one's end
+    (Unix s, as read; None when no sidecar gives a start time) and the days between."""
+    timed = [r for r in recs if r.t0_s is not None]
+    if not timed:
+        return None
+    first = min(timed, key=lambda r: r.t0_s)
+    last = max(timed, key=lambda r: r.t0_s + r.duration_s)
+    end = last.t0_s + last.duration_s
+    return {"first": moment(first.t0_s, first.path), "last": moment(end, last.path, last.duration_s),
+            "days": (end - first.t0_s) / 86400.0}
+
+
 def report_text(summary: dict) -> str:
     """The training report as plain text (what `edgevib train` prints and writes beside the set):
     what was learned and why, in a technician's words."""
@@ -1140,6 +1155,8 @@ def report_text(summary: dict) -> str:
         f"edgevib training report: board {s['board']}, parameter set version {s['version']}",
         f"data: {s['recordings']} recordings in {s['streams']} stream(s), {w['total']} analysed windows of "
         f"{s['window_s']:g} s ({h['recorded']:.2f} h); {w['used']} steady running healthy windows used ({h['running_used']:.2f} h)",
+        *([f"  recorded from {s['span']['first']} to {s['span']['last']}: {s['span']['days']:.1f} days"]
+          if s.get("span") else []),
         "what the gateway learned, and why:",
         f"  speed: searched {lr['speed_range_hz'][0]:.1f}-{lr['speed_range_hz'][1]:.1f} Hz ({lr['speed']})",
         f"  vane pass: {lr['vane']}; bearing lines: {lr['envelope']}",
@@ -1196,6 +1213,10 @@ def report_text(summary: dict) -> str:
                ", not supported: the data support this bound" if t.get("upper_bound") else ", NOT supported by this much data")
         lines.append(f"expected false alerts per 30 days of running: {stated}; target "
                      f"{t['target_false_alerts_per_30_days']:g}{why}")
+        days = f" ({s['span']['days']:.1f} days)" if s.get("span") else ""
+        lines.append(f"  for running like the training days{days}: a drift of the duty slower than they span (suction "
+                     "level over a week, a season, a duty moved for good) is new to the set and can raise an alert; "
+                     "train on the longest stretch of normal duty at hand")
         if rf:
             theta = rf.get("extremal_index")
             lines.append(f"  from {rf['clusters']} independent stretches of high scores in {rf['hours']:.2f} h of held-out "
