@@ -1134,8 +1134,9 @@ def _mode_follow(p: dict, axis_names: Sequence[str]) -> list[dict]:
 
 
 def _span(recs: Sequence[Any]) -> dict | None:
-    """When the training data was recorded: the first recording's start and the last one's end
-    (Unix s, as read; None when no sidecar gives a start time) and the days between."""
+    """When the training data was recorded: the first recording's start and the last one's end,
+    dated with their file names (times.moment), and the days between; None when no sidecar
+    gives a start time."""
     timed = [r for r in recs if r.t0_s is not None]
     if not timed:
         return None
