@@ -15,7 +15,8 @@ Entry points
   onset and growth; sensor-fault spans; the recording schedule). No signals yet.
 - `synthesize(history, t0_s, n, faults=True)` -> int16 counts (n x 3): one stretch of the
   accelerometer at any time, from its own generator seeded by (seed, machine, t0_s), so any
-  recording can be made alone and comes out the same.
+  recording can be made alone and comes out the same; the lines' phases are the unit's own
+  (`unit_seed`), the same in every recording of one pump.
 - `write_history(out_dir, history)` -> path of OUT/<history name>/ground_truth.json; writes
   every recording of the schedule as WAV + sidecar (host_tools.data.recording.write_wav) into
   OUT/<history name>/, file names in time order. Periodic snapshots (default 10 s every 10 min)
@@ -188,6 +189,7 @@ class History:
     recordings: tuple[Recording, ...] = ()
     drift_phase: tuple[float, float] = (0.0, 0.0)
     machine_index: int = 0
+    unit_seed: int = 0              # the pump unit's own make-up (its lines' relative phases)
     file_s: float = 60.0
     _visible: dict = field(default_factory=dict, repr=False)
 
@@ -225,13 +227,16 @@ class History:
 def plan_history(name: str, machine: Machine | str, seed: int, days: float, start_t_s: float = START_T0_S,
                  role: str = "healthy", faults: Sequence[MachineFault] = (), sensor_faults: Sequence[SensorFault] = (),
                  interval_s: float = 600.0, snapshot_s: float = 10.0, long_stretch_s: float = 1800.0,
-                 mode_change_stretches_per_day: float = 2.0, file_s: float = 60.0) -> History:
+                 mode_change_stretches_per_day: float = 2.0, file_s: float = 60.0,
+                 unit_seed: int | None = None) -> History:
     """Plan a history of `days` days of `machine` from start_t_s (see the module docstring).
 
     The drive follows the daily demand in the machine's modes (changes on the hour, 15 % of hours
     off the usual pattern), trims its set point by up to +-4 % within a mode in half the hours,
     and stops once on most days for 15-120 min. Ramps: run-up 4-12 s, run-down 6-20 s, mode
-    changes at 1-2 Hz/s of drive frequency (VSD ramp settings; common practice)."""
+    changes at 1-2 Hz/s of drive frequency (VSD ramp settings; common practice). unit_seed: the
+    pump unit (default seed), whose lines' phases every history of it shares (evaluation_suite
+    gives a suite's histories of one machine the suite's seed)."""
     m = MACHINES[machine] if isinstance(machine, str) else machine
     idx = list(MACHINES).index(m.name) if m.name in MACHINES else 9
     rng = np.random.default_rng([seed, idx, 7])
@@ -240,7 +245,8 @@ def plan_history(name: str, machine: Machine | str, seed: int, days: float, star
     pieces, stop_windows = _add_stops(rng, pieces, start_t_s, end)
     bt, bf, stops, changes = _ramps(rng, pieces, end)
     h = History(name, role, m, seed, start_t_s, end, bt, bf, stops, changes, tuple(faults), tuple(sensor_faults),
-                drift_phase=tuple(rng.uniform(0, 2 * np.pi, 2)), machine_index=idx, file_s=file_s)
+                drift_phase=tuple(rng.uniform(0, 2 * np.pi, 2)), machine_index=idx, file_s=file_s,
+                unit_seed=seed if unit_seed is None else unit_seed)
     h.recordings = _schedule(rng, h, interval_s, snapshot_s, long_stretch_s, mode_change_stretches_per_day)
     return h
 
@@ -374,7 +380,13 @@ class _Synth:
         seeds = self.rng.integers(0, 2 ** 62, 12)
         r = [np.random.default_rng(int(s)) for s in seeds]
         self.theta = float(r[0].uniform(0, 2 * np.pi))
-        self.ph = r[0].uniform(0, 2 * np.pi, 10)
+        # The lines' phases against the shaft (1x on y, 2x, the vane pass and its 1x modulation,
+        # looseness harmonics) are set by the unit's rotor and transfer paths: stable from one run
+        # to the next, as field balancing relies on for 1x (common practice). So every recording
+        # of one unit shares them (held at every speed, a simplification); drawn per recording
+        # they would move the waveform's shape, and with it kurtosis and crest factor, from one
+        # snapshot to the next, and unbroken running would keep one draw for days.
+        self.ph = np.random.default_rng([h.unit_seed, 100 + h.machine_index, 1]).uniform(0, 2 * np.pi, 10)
         self.levels = [ph.Ar1Level(tau, _LEVEL_SPREAD, self.fs, r[1 + i]) for i, tau in enumerate(_LEVEL_TAU_S)]
         self.flow = ph.BandNoise(10.0, 1000.0, self.fs, 3, r[5])
         # Made only for a history with cavitation: the healthy and faulty copies still share it.
@@ -685,7 +697,8 @@ def evaluation_suite(seed: int = EVALUATION_SEED, scale: str = "full", machines:
     machines = machines or c["machines"]
     out = []
     for mi, name in enumerate(machines):
-        base = dict(interval_s=c["interval_s"], long_stretch_s=c["long_s"], mode_change_stretches_per_day=c["changes_per_day"])
+        base = dict(interval_s=c["interval_s"], long_stretch_s=c["long_s"], mode_change_stretches_per_day=c["changes_per_day"],
+                    unit_seed=seed)
         t_train = START_T0_S
         t_field = t_train + c["train_days"] * DAY_S
         out.append(plan_history(f"{name}-training", name, seed, c["train_days"], t_train, role="training", **base))
