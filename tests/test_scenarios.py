@@ -232,6 +232,7 @@ def test_lines_keep_the_units_phase_from_one_recording_to_the_next():
     # taken from the same DFT 3-6 Hz beside each line, where no line lies.
     hs = {h.name: h for h in sc.evaluation_suite(31, "full", machines=("RW-2",))}
     fs, n = 3200.0, 32000
+    df = fs / n                                       # 0.1 Hz bins of a 10-s recording
     t = (np.arange(n) - (n - 1) / 2) / fs
     w = np.hanning(n)
 
@@ -252,9 +253,9 @@ def test_lines_keep_the_units_phase_from_one_recording_to_the_next():
         for t0 in ts:
             c = sc.synthesize(h, t0, n, faults=False).astype(np.float64)
             spec = np.abs(np.fft.rfft((c[:, 0] - c[:, 0].mean()) * w))
-            k = int(np.argmax(spec[int(40 / 0.1):int(55 / 0.1)])) + int(40 / 0.1)
+            k = int(np.argmax(spec[int(40 / df):int(55 / df)])) + int(40 / df)   # 1x at top speed
             a, b, g = np.log(spec[k - 1:k + 2])
-            f1 = (k + 0.5 * (a - g) / (a - 2 * b + g)) * fs / n
+            f1 = (k + 0.5 * (a - g) / (a - 2 * b + g)) * df
             p1, s1 = line(c[:, 0], f1)
             p2, s2 = line(c[:, 1], 2 * f1)
             out.append((p2 - 2 * p1, math.sqrt(s2 ** 2 + 4 * s1 ** 2)))
